@@ -1,0 +1,448 @@
+package probe
+
+import (
+	"errors"
+	"fmt"
+	"runtime/debug"
+	"sort"
+	"strings"
+
+	"vitals/loader"
+	"vitals/tensor"
+)
+
+// Hook observes a node's outputs right after the node has run. Outputs are
+// read-only for the hook; they may be released once the hook returns.
+type Hook func(n *loader.Node, outs []*tensor.Tensor) error
+
+// Plan is a compiled graph: nodes in topological order, each with its kernel,
+// and for every value the step after which it is no longer needed.
+type Plan struct {
+	Graph  *loader.Graph
+	Opsets map[string]int64
+	Steps  []Step
+	// Depth[i] is the longest path from a graph input to step i (in nodes).
+	Depth []int
+	// release[i] lists the values freed after step i.
+	release [][]string
+	sub     map[*loader.Graph]*Plan
+	// Debug keeps Go stack traces in kernel panic errors.
+	Debug bool
+}
+
+// Step is one node with its chosen kernel.
+type Step struct {
+	Node   *loader.Node
+	Kernel Kernel
+	Opset  int
+}
+
+// UnsupportedError lists every node whose operator has no kernel.
+type UnsupportedError struct{ Nodes []string }
+
+func (e *UnsupportedError) Error() string {
+	return fmt.Sprintf("%d unsupported operator use(s): %s", len(e.Nodes), strings.Join(e.Nodes, "; "))
+}
+
+// Compile orders the model's graph and picks kernels.
+func Compile(m *loader.Model) (*Plan, error) {
+	return compileGraph(m.Graph, m.Opsets, nil)
+}
+
+func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]bool) (*Plan, error) {
+	p := &Plan{Graph: g, Opsets: opsets, sub: map[*loader.Graph]*Plan{}}
+	known := map[string]int{} // value -> depth of producer
+	for name := range outer {
+		known[name] = 0
+	}
+	for name := range g.Initializers {
+		known[name] = 0
+	}
+	for _, in := range g.Inputs {
+		known[in.Name] = 0
+	}
+	// Kahn's algorithm over nodes, stable in file order.
+	produced := map[string]bool{}
+	for _, n := range g.Nodes {
+		for _, o := range n.Outputs {
+			if o != "" {
+				produced[o] = true
+			}
+		}
+	}
+	pending := make([]*loader.Node, len(g.Nodes))
+	copy(pending, g.Nodes)
+	var unsupported []string
+	for len(pending) > 0 {
+		progressed := false
+		rest := pending[:0]
+		for _, n := range pending {
+			ready, depth := true, 0
+			for _, in := range n.Inputs {
+				if in == "" {
+					continue
+				}
+				d, ok := known[in]
+				if !ok {
+					ready = false
+					break
+				}
+				depth = max(depth, d)
+			}
+			if !ready {
+				rest = append(rest, n)
+				continue
+			}
+			progressed = true
+			opset := int(opsets[normDomain(n.Domain)])
+			if _, ok := opsets[normDomain(n.Domain)]; !ok && n.Domain == "" {
+				opset = 1
+			}
+			k, ok := Lookup(n.Domain, n.OpType, opset)
+			if !ok {
+				dom := n.Domain
+				if dom == "" {
+					dom = "ai.onnx"
+				}
+				unsupported = append(unsupported, fmt.Sprintf("node %q: %s (domain %s, opset %d)", n.Name, n.OpType, dom, opset))
+			}
+			// Subgraphs see every value of this graph and of the outer scopes.
+			for _, a := range n.Attrs {
+				gs := a.Graphs
+				if a.G != nil {
+					gs = append(gs, a.G)
+				}
+				for _, sg := range gs {
+					scope := map[string]bool{}
+					for k := range known {
+						scope[k] = true
+					}
+					for k := range produced {
+						scope[k] = true
+					}
+					sp, err := compileGraph(sg, opsets, scope)
+					if err != nil {
+						var ue *UnsupportedError
+						if errors.As(err, &ue) {
+							unsupported = append(unsupported, ue.Nodes...)
+							continue
+						}
+						return nil, fmt.Errorf("node %q (%s) subgraph %q: %w", n.Name, n.OpType, a.Name, err)
+					}
+					p.sub[sg] = sp
+					for g2, p2 := range sp.sub {
+						p.sub[g2] = p2
+					}
+				}
+			}
+			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset})
+			p.Depth = append(p.Depth, depth+1)
+			for _, o := range n.Outputs {
+				if o != "" {
+					known[o] = depth + 1
+				}
+			}
+		}
+		pending = rest
+		if !progressed {
+			return nil, cycleError(pending, known, produced)
+		}
+	}
+	if len(unsupported) > 0 {
+		return nil, &UnsupportedError{Nodes: unsupported}
+	}
+	for _, o := range g.Outputs {
+		if _, ok := known[o.Name]; !ok {
+			return nil, fmt.Errorf("graph output %q is produced by no node", o.Name)
+		}
+	}
+	p.computeRelease()
+	return p, nil
+}
+
+func cycleError(pending []*loader.Node, known map[string]int, produced map[string]bool) error {
+	var names []string
+	for _, n := range pending {
+		for _, in := range n.Inputs {
+			if _, ok := known[in]; in != "" && !ok && !produced[in] {
+				return fmt.Errorf("node %q (%s): input %q is not a graph input, an initializer or any node's output", n.Name, n.OpType, in)
+			}
+		}
+		names = append(names, fmt.Sprintf("%q", n.Name))
+	}
+	if len(names) > 8 {
+		names = append(names[:8], "...")
+	}
+	return fmt.Errorf("graph has a cycle: nodes %s wait on each other", strings.Join(names, ", "))
+}
+
+// computeRelease finds, for each produced value, the last step that reads it.
+func (p *Plan) computeRelease() {
+	keep := map[string]bool{}
+	for _, o := range p.Graph.Outputs {
+		keep[o.Name] = true
+	}
+	last := map[string]int{}
+	producedAt := map[string]int{}
+	for i, s := range p.Steps {
+		for _, o := range s.Node.Outputs {
+			producedAt[o] = i
+			last[o] = i
+		}
+	}
+	for i, s := range p.Steps {
+		for _, in := range s.Node.Inputs {
+			if _, ok := producedAt[in]; ok {
+				last[in] = max(last[in], i)
+			}
+		}
+		// values read by subgraphs stay alive until this step ends
+		for _, a := range s.Node.Attrs {
+			gs := a.Graphs
+			if a.G != nil {
+				gs = append(gs, a.G)
+			}
+			for _, g := range gs {
+				for _, name := range freeNames(g) {
+					if _, ok := producedAt[name]; ok {
+						last[name] = max(last[name], i)
+					}
+				}
+			}
+		}
+	}
+	p.release = make([][]string, len(p.Steps))
+	names := make([]string, 0, len(last))
+	for name := range last {
+		names = append(names, name)
+	}
+	sort.Strings(names)
+	for _, name := range names {
+		if !keep[name] && name != "" {
+			p.release[last[name]] = append(p.release[last[name]], name)
+		}
+	}
+}
+
+// freeNames lists the names a graph (and its nested subgraphs) reads from outer scopes.
+func freeNames(g *loader.Graph) []string {
+	local := map[string]bool{}
+	for n := range g.Initializers {
+		local[n] = true
+	}
+	for _, in := range g.Inputs {
+		local[in.Name] = true
+	}
+	for _, n := range g.Nodes {
+		for _, o := range n.Outputs {
+			local[o] = true
+		}
+	}
+	var out []string
+	for _, n := range g.Nodes {
+		for _, in := range n.Inputs {
+			if in != "" && !local[in] {
+				out = append(out, in)
+			}
+		}
+		for _, a := range n.Attrs {
+			gs := a.Graphs
+			if a.G != nil {
+				gs = append(gs, a.G)
+			}
+			for _, sg := range gs {
+				for _, name := range freeNames(sg) {
+					if !local[name] {
+						out = append(out, name)
+					}
+				}
+			}
+		}
+	}
+	return out
+}
+
+// Scope maps value names to tensors, falling back to an enclosing scope.
+type Scope struct {
+	vals   map[string]*tensor.Tensor
+	parent *Scope
+}
+
+// Get resolves a name through the scope chain.
+func (s *Scope) Get(name string) (*tensor.Tensor, bool) {
+	for ; s != nil; s = s.parent {
+		if t, ok := s.vals[name]; ok {
+			return t, true
+		}
+	}
+	return nil, false
+}
+
+type runState struct {
+	plan *Plan
+	hook Hook
+}
+
+// Run executes the plan on one batch of named inputs and returns the graph
+// outputs by name. hook (may be nil) sees every node's outputs.
+func (p *Plan) Run(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*tensor.Tensor, error) {
+	if err := p.checkInputs(inputs); err != nil {
+		return nil, err
+	}
+	return p.run(inputs, nil, hook)
+}
+
+func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (map[string]*tensor.Tensor, error) {
+	env := &Scope{vals: make(map[string]*tensor.Tensor, len(p.Graph.Initializers)+len(inputs)+16), parent: parent}
+	for name, t := range p.Graph.Initializers {
+		env.vals[name] = t
+	}
+	for name, t := range inputs {
+		env.vals[name] = t
+	}
+	rs := &runState{plan: p, hook: hook}
+	for i := range p.Steps {
+		s := &p.Steps[i]
+		c := &Call{Node: s.Node, Opset: s.Opset, Scope: env, sub: p.sub, run: rs}
+		c.In = make([]*tensor.Tensor, len(s.Node.Inputs))
+		for j, name := range s.Node.Inputs {
+			if name == "" {
+				continue
+			}
+			t, ok := env.Get(name)
+			if !ok {
+				return nil, fmt.Errorf("node %q (%s): input %q has no value", s.Node.Name, s.Node.OpType, name)
+			}
+			c.In[j] = t
+		}
+		c.Out = make([]*tensor.Tensor, len(s.Node.Outputs))
+		if err := p.call(s, c); err != nil {
+			return nil, err
+		}
+		for j, name := range s.Node.Outputs {
+			if name == "" {
+				continue
+			}
+			if c.Out[j] == nil {
+				return nil, fmt.Errorf("node %q (%s): kernel produced no output %d (%q)", s.Node.Name, s.Node.OpType, j, name)
+			}
+			env.vals[name] = c.Out[j]
+		}
+		if hook != nil {
+			if err := hook(s.Node, c.Out); err != nil {
+				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
+			}
+		}
+		for _, name := range p.release[i] {
+			delete(env.vals, name)
+		}
+	}
+	out := make(map[string]*tensor.Tensor, len(p.Graph.Outputs))
+	for _, o := range p.Graph.Outputs {
+		t, ok := env.Get(o.Name)
+		if !ok {
+			return nil, fmt.Errorf("graph output %q has no value", o.Name)
+		}
+		out[o.Name] = t
+	}
+	return out, nil
+}
+
+// call runs one kernel, turning a kernel panic into an error that names the node.
+func (p *Plan) call(s *Step, c *Call) (err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			msg := fmt.Sprint(r)
+			if p.Debug {
+				msg += "\n" + string(debug.Stack())
+			}
+			err = fmt.Errorf("node %q (%s): internal error: %s", s.Node.Name, s.Node.OpType, msg)
+		}
+	}()
+	if err := s.Kernel(c); err != nil {
+		return fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
+	}
+	return nil
+}
+
+// RunSubgraph runs a subgraph attribute of the current node with the given
+// inputs bound to the subgraph's inputs in order; outer values resolve through c.Scope.
+func (c *Call) RunSubgraph(g *loader.Graph, inputs []*tensor.Tensor) ([]*tensor.Tensor, error) {
+	sp, ok := c.sub[g]
+	if !ok {
+		return nil, errors.New("subgraph was not compiled")
+	}
+	if len(inputs) > len(g.Inputs) {
+		return nil, fmt.Errorf("subgraph %q takes %d inputs, got %d", g.Name, len(g.Inputs), len(inputs))
+	}
+	in := make(map[string]*tensor.Tensor, len(inputs))
+	for i, t := range inputs {
+		if t != nil {
+			in[g.Inputs[i].Name] = t
+		}
+	}
+	res, err := sp.run(in, c.Scope, nil)
+	if err != nil {
+		return nil, fmt.Errorf("subgraph %q: %w", g.Name, err)
+	}
+	outs := make([]*tensor.Tensor, len(g.Outputs))
+	for i, o := range g.Outputs {
+		outs[i] = res[o.Name]
+	}
+	return outs, nil
+}
+
+// checkInputs validates presence, dtype and rank/fixed dims of the graph inputs.
+func (p *Plan) checkInputs(inputs map[string]*tensor.Tensor) error {
+	for _, vi := range p.Graph.Inputs {
+		t, ok := inputs[vi.Name]
+		if !ok {
+			return fmt.Errorf("input %q is missing (the model has inputs %s)", vi.Name, inputNames(p.Graph))
+		}
+		if !vi.HasType {
+			continue
+		}
+		want := vi.DType
+		if want == tensor.Float16 || want == tensor.BFloat16 {
+			want = tensor.Float32
+		}
+		if t.DType != want {
+			return fmt.Errorf("input %q: model expects %v, got %v", vi.Name, vi.DType, t.DType)
+		}
+		if vi.Shape != nil {
+			if len(vi.Shape) != len(t.Shape) {
+				return fmt.Errorf("input %q: model expects shape %s, got %v", vi.Name, ShapeString(vi), t.Shape)
+			}
+			for i, d := range vi.Shape {
+				if d >= 0 && d != t.Shape[i] {
+					return fmt.Errorf("input %q: model expects shape %s, got %v", vi.Name, ShapeString(vi), t.Shape)
+				}
+			}
+		}
+	}
+	return nil
+}
+
+func inputNames(g *loader.Graph) string {
+	var s []string
+	for _, in := range g.Inputs {
+		s = append(s, fmt.Sprintf("%q", in.Name))
+	}
+	return strings.Join(s, ", ")
+}
+
+// ShapeString renders a declared shape with symbolic dims by name, e.g. [batch 3 224 224].
+func ShapeString(vi loader.ValueInfo) string {
+	parts := make([]string, len(vi.Shape))
+	for i, d := range vi.Shape {
+		switch {
+		case d >= 0:
+			parts[i] = fmt.Sprint(d)
+		case i < len(vi.Symbols) && vi.Symbols[i] != "":
+			parts[i] = vi.Symbols[i]
+		default:
+			parts[i] = "?"
+		}
+	}
+	return "[" + strings.Join(parts, " ") + "]"
+}
