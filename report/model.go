@@ -1,0 +1,237 @@
+// Package report holds the one report model of a vitals run (the JSON
+// contract of design.md) and its writers: terminal text, JSON, Markdown and HTML.
+// Unknown values are nil pointers, encoded as JSON null, never made-up numbers.
+package report
+
+import "math"
+
+// Report is the result of `vitals check` (and, with Compare set, `vitals compare`).
+type Report struct {
+	Tool     string    `json:"tool"`
+	Version  string    `json:"version"`
+	Model    Model     `json:"model"`
+	Input    Input     `json:"input"`
+	Layers   []Layer   `json:"layers"`
+	Weights  []Weight  `json:"weights"`
+	Findings []Finding `json:"findings"`
+	Ranking  []Rank    `json:"ranking"`
+	// Output summarises the model's final output (softmax health, accuracy with labels).
+	Output *Output `json:"output,omitempty"`
+	// Compare is set by `vitals compare`: the old checkpoint's numbers and the differences.
+	Compare *Comparison `json:"compare,omitempty"`
+	// Thresholds actually used (defaults merged with --config), for the plots and writers.
+	Thresholds map[string]float64 `json:"thresholds,omitempty"`
+}
+
+// Model describes the model file.
+type Model struct {
+	Path       string `json:"path"`
+	Opset      int64  `json:"opset"`
+	Producer   string `json:"producer"`
+	Nodes      int    `json:"nodes"`
+	Parameters int64  `json:"parameters"`
+}
+
+// Input describes the sample the statistics were computed on.
+type Input struct {
+	Source   string      `json:"source"` // "file" or "synthetic"
+	Samples  int         `json:"samples"`
+	PerInput []InputStat `json:"per_input"`
+}
+
+// InputStat is the moments of one model input over the sample, overall and per channel.
+type InputStat struct {
+	Name        string    `json:"name"`
+	Path        string    `json:"path,omitempty"`
+	Shape       []int     `json:"shape"`
+	Mean        *float64  `json:"mean"`
+	Std         *float64  `json:"std"`
+	ChannelAxis *int      `json:"channel_axis,omitempty"`
+	ChannelMean []float64 `json:"channel_mean,omitempty"`
+	ChannelStd  []float64 `json:"channel_std,omitempty"`
+}
+
+// Layer is the statistics of one node output over the whole sample.
+type Layer struct {
+	Node   string `json:"node"`
+	Op     string `json:"op"`
+	Output string `json:"output"`
+	Depth  int    `json:"depth"`
+	// Shape is the output shape of the last batch (the batch axis varies).
+	Shape        []int    `json:"shape"`
+	Count        int64    `json:"count"`
+	Mean         *float64 `json:"mean"`
+	Std          *float64 `json:"std"`
+	Min          *float64 `json:"min"`
+	Max          *float64 `json:"max"`
+	ZeroFraction *float64 `json:"zero_fraction"`
+	Nonfinite    int64    `json:"nonfinite"`
+	// Units is the number of units (channels or features) of an activation layer; nil otherwise.
+	Units *int `json:"units"`
+	// UnitAxis is the axis the units were taken along (1: channels of a conv output; last: features of a dense output).
+	UnitAxis          *int       `json:"unit_axis"`
+	DeadFraction      *float64   `json:"dead_fraction"`
+	SaturatedFraction *float64   `json:"saturated_fraction"`
+	Histogram         *Histogram `json:"histogram"`
+	// P01 and P99 are the 1st and 99th percentiles, interpolated from the histogram.
+	P01 *float64 `json:"p01"`
+	P99 *float64 `json:"p99"`
+	// Activation is "relu", "saturating" or "" (what kind of unit statistics were taken).
+	Activation string `json:"activation,omitempty"`
+	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
+	Note string `json:"note,omitempty"`
+}
+
+// Histogram has len(Counts) == len(Edges)-1 bins over [Edges[0], Edges[last]];
+// the counts sum to the layer's finite count (NaN/Inf are counted in Layer.Nonfinite).
+type Histogram struct {
+	Edges  []float64 `json:"edges"`
+	Counts []int64   `json:"counts"`
+}
+
+// Weight is the statistics of one weight tensor of a Conv, Gemm or MatMul node.
+type Weight struct {
+	Name  string   `json:"name"`
+	Node  string   `json:"node"`
+	Shape []int    `json:"shape"`
+	FanIn int      `json:"fan_in"`
+	Std   *float64 `json:"std"`
+	// Gain is std·√fan_in.
+	Gain *float64 `json:"gain"`
+	// ScaleVsHe is gain/√2 (He et al. 2015); ScaleVsXavier is gain/1 (Glorot & Bengio 2010).
+	ScaleVsHe     *float64 `json:"scale_vs_he"`
+	ScaleVsXavier *float64 `json:"scale_vs_xavier"`
+	IdenticalRows int      `json:"identical_rows"`
+	ZeroRows      int      `json:"zero_rows"`
+	Rows          int      `json:"rows"`
+	Nonfinite     int64    `json:"nonfinite"`
+	// FollowedBy is the activation (or normalisation) that follows the layer, which sets the reference gain.
+	FollowedBy string `json:"followed_by,omitempty"`
+}
+
+// Severity of a finding.
+type Severity string
+
+// Severities in increasing order.
+const (
+	Info    Severity = "info"
+	Warning Severity = "warning"
+	Error   Severity = "error"
+)
+
+// Level orders severities: info 0, warning 1, error 2.
+func (s Severity) Level() int {
+	switch s {
+	case Error:
+		return 2
+	case Warning:
+		return 1
+	}
+	return 0
+}
+
+// Finding is one verdict of one check on one node, with the numbers it was judged on.
+type Finding struct {
+	Check    string         `json:"check"`
+	Severity Severity       `json:"severity"`
+	Node     string         `json:"node"`
+	Message  string         `json:"message"`
+	Evidence map[string]any `json:"evidence"`
+	// Strength ≥ 1 says how far past its threshold the value is (used for ranking).
+	Strength float64 `json:"-"`
+}
+
+// Rank is one node's place in the ranking of unhealthy layers.
+type Rank struct {
+	Node   string   `json:"node"`
+	Score  float64  `json:"score"`
+	Checks []string `json:"checks"`
+}
+
+// Output summarises the final output over the sample.
+type Output struct {
+	Name           string   `json:"name"`
+	IsDistribution bool     `json:"is_distribution"`
+	Classes        int      `json:"classes"`
+	MeanMaxProb    *float64 `json:"mean_max_prob"`
+	Accuracy       *float64 `json:"accuracy"`
+	CrossEntropy   *float64 `json:"cross_entropy"`
+	LnClasses      *float64 `json:"ln_classes"`
+	Labeled        int      `json:"labeled"`
+}
+
+// Comparison holds what `vitals compare` adds: the old run and per-layer differences.
+type Comparison struct {
+	Old       string        `json:"old"`
+	New       string        `json:"new"`
+	OldLayers []Layer       `json:"old_layers"`
+	Layers    []LayerDelta  `json:"layers"`
+	Weights   []WeightDelta `json:"weights"`
+	Unmatched []string      `json:"unmatched"`
+	Agreement *Agreement    `json:"agreement"`
+}
+
+// LayerDelta is the change of one matched layer from OLD to NEW.
+type LayerDelta struct {
+	Node         string   `json:"node"`
+	OldNode      string   `json:"old_node"`
+	Op           string   `json:"op"`
+	MeanOld      *float64 `json:"mean_old"`
+	MeanNew      *float64 `json:"mean_new"`
+	StdOld       *float64 `json:"std_old"`
+	StdNew       *float64 `json:"std_new"`
+	DeadOld      *float64 `json:"dead_old"`
+	DeadNew      *float64 `json:"dead_new"`
+	SaturatedOld *float64 `json:"saturated_old"`
+	SaturatedNew *float64 `json:"saturated_new"`
+	// HistogramDistance is the total-variation distance between the two histograms on a common grid (0..1).
+	HistogramDistance *float64 `json:"histogram_distance"`
+}
+
+// WeightDelta is ‖W_new − W_old‖/‖W_old‖ for one weight tensor.
+type WeightDelta struct {
+	Name           string   `json:"name"`
+	Node           string   `json:"node"`
+	RelativeChange *float64 `json:"relative_change"`
+}
+
+// Agreement compares the two checkpoints' final outputs.
+type Agreement struct {
+	Output     string   `json:"output"`
+	Top1       *float64 `json:"top1_agreement"`
+	MeanKL     *float64 `json:"mean_kl"`
+	MaxAbsDiff *float64 `json:"max_abs_diff"`
+	Samples    int      `json:"samples"`
+}
+
+// Num returns a pointer to x, or nil when x is NaN or ±Inf (JSON null).
+func Num(x float64) *float64 {
+	if math.IsNaN(x) || math.IsInf(x, 0) {
+		return nil
+	}
+	return &x
+}
+
+// Val dereferences p, returning NaN for nil.
+func Val(p *float64) float64 {
+	if p == nil {
+		return math.NaN()
+	}
+	return *p
+}
+
+// IntPtr returns &v.
+func IntPtr(v int) *int { return &v }
+
+// LayerByNode returns the layer of a node, or nil.
+func (r *Report) LayerByNode(node string) *Layer {
+	for i := range r.Layers {
+		if r.Layers[i].Node == node {
+			return &r.Layers[i]
+		}
+	}
+	return nil
+}
+
+// Caution is the closing statement every human-readable report ends with.
+const Caution = "These statistics describe the given sample only. A report without findings does not certify the model's accuracy, robustness, fairness or fitness for a safety-relevant use; that stays with the team's own evaluation and the rules that apply where it is deployed."
