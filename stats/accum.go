@@ -1,0 +1,221 @@
+// Package stats turns observed node outputs into per-layer statistics
+// (streaming over batches), runs the health checks over them and ranks the layers.
+package stats
+
+import (
+	"math"
+)
+
+// Moments accumulates count, mean, M2 (sum of squared deviations), min, max,
+// zero and non-finite counts of a stream of float values. Batches are merged
+// with Chan et al.'s parallel formula:
+//
+//	n = nA+nB, δ = μB−μA, μ = μA + δ·nB/n, M2 = M2A + M2B + δ²·nA·nB/n
+//
+// which stays accurate when the mean is large relative to the spread.
+// Non-finite values are counted apart and excluded from the moments.
+type Moments struct {
+	N         int64
+	Mean      float64
+	M2        float64
+	Min, Max  float64
+	Zeros     int64
+	Nonfinite int64
+}
+
+// NewMoments returns empty moments (Min=+Inf, Max=−Inf).
+func NewMoments() Moments { return Moments{Min: math.Inf(1), Max: math.Inf(-1)} }
+
+// AddFloat32 folds a batch of float32 values in: a two-pass pass over the
+// batch (sum, then squared deviations from the batch mean) followed by a merge.
+func (m *Moments) AddFloat32(x []float32) {
+	var b Moments
+	b.Min, b.Max = math.Inf(1), math.Inf(-1)
+	var sum float64
+	var n int64
+	mn, mx := float32(math.Inf(1)), float32(math.Inf(-1))
+	for _, v := range x {
+		if v != v || v > math.MaxFloat32 || v < -math.MaxFloat32 {
+			b.Nonfinite++
+			continue
+		}
+		if v == 0 {
+			b.Zeros++
+		}
+		sum += float64(v)
+		n++
+		mn = min(mn, v)
+		mx = max(mx, v)
+	}
+	b.N = n
+	if n > 0 {
+		b.Mean = sum / float64(n)
+		var m2 float64
+		mu := b.Mean
+		for _, v := range x {
+			if v != v || v > math.MaxFloat32 || v < -math.MaxFloat32 {
+				continue
+			}
+			d := float64(v) - mu
+			m2 += d * d
+		}
+		b.M2 = m2
+		b.Min, b.Max = float64(mn), float64(mx)
+	}
+	m.Merge(b)
+}
+
+// Merge folds another set of moments into m.
+func (m *Moments) Merge(b Moments) {
+	m.Zeros += b.Zeros
+	m.Nonfinite += b.Nonfinite
+	if b.N == 0 {
+		return
+	}
+	if m.N == 0 {
+		z, nf := m.Zeros, m.Nonfinite
+		*m = b
+		m.Zeros, m.Nonfinite = z, nf
+		return
+	}
+	n := m.N + b.N
+	d := b.Mean - m.Mean
+	m.Mean += d * float64(b.N) / float64(n)
+	m.M2 += b.M2 + d*d*float64(m.N)*float64(b.N)/float64(n)
+	m.N = n
+	m.Min = math.Min(m.Min, b.Min)
+	m.Max = math.Max(m.Max, b.Max)
+}
+
+// Var is the population variance M2/N (NaN when empty).
+func (m *Moments) Var() float64 {
+	if m.N == 0 {
+		return math.NaN()
+	}
+	return m.M2 / float64(m.N)
+}
+
+// Std is √Var.
+func (m *Moments) Std() float64 { return math.Sqrt(m.Var()) }
+
+// Histogram is an equal-width histogram whose range adapts: when a value
+// falls outside [Lo, Lo+Bins·Width), the bin width doubles (adjacent bins
+// merge) until it fits, so counts always sum to the number of finite values
+// added and nothing is clipped.
+type Histogram struct {
+	Lo     float64
+	Width  float64
+	Counts []int64
+}
+
+// HistBins is the number of bins per histogram (even, so that bins merge in pairs).
+const HistBins = 64
+
+// AddFloat32 adds the finite values of x; min and max of x (finite) must be given.
+func (h *Histogram) AddFloat32(x []float32, mn, mx float64) {
+	if math.IsInf(mn, 0) || math.IsInf(mx, 0) || mn > mx {
+		return // no finite values
+	}
+	if h.Counts == nil {
+		h.Counts = make([]int64, HistBins)
+		h.Lo = mn
+		span := mx - mn
+		if span <= 0 {
+			span = math.Max(math.Abs(mn)*1e-3, 1e-6)
+			h.Lo = mn - span/2
+		}
+		h.Width = span * (1 + 1e-9) / HistBins
+		// round the width up so the top value lands inside the last bin
+		for h.Lo+h.Width*HistBins <= mx {
+			h.Width *= 1 + 1e-6
+		}
+	}
+	h.cover(mn, mx)
+	inv := 1 / h.Width
+	lo := h.Lo
+	counts := h.Counts
+	last := len(counts) - 1
+	for _, v := range x {
+		f := float64(v)
+		if f != f || math.IsInf(f, 0) {
+			continue
+		}
+		i := int((f - lo) * inv)
+		if i > last {
+			i = last
+		} else if i < 0 {
+			i = 0
+		}
+		counts[i]++
+	}
+}
+
+// cover widens the range until [mn, mx] fits.
+func (h *Histogram) cover(mn, mx float64) {
+	nb := len(h.Counts)
+	for i := 0; i < 2000 && (mn < h.Lo || mx >= h.Lo+h.Width*float64(nb)); i++ {
+		merged := make([]int64, nb)
+		if mn < h.Lo {
+			// grow to the left: old range becomes the upper half
+			for j := 0; j < nb/2; j++ {
+				merged[nb/2+j] = h.Counts[2*j] + h.Counts[2*j+1]
+			}
+			h.Lo -= h.Width * float64(nb)
+		} else {
+			for j := 0; j < nb/2; j++ {
+				merged[j] = h.Counts[2*j] + h.Counts[2*j+1]
+			}
+		}
+		h.Width *= 2
+		h.Counts = merged
+	}
+}
+
+// Edges returns the bin edges (len(Counts)+1 values).
+func (h *Histogram) Edges() []float64 {
+	e := make([]float64, len(h.Counts)+1)
+	for i := range e {
+		e[i] = h.Lo + float64(i)*h.Width
+	}
+	return e
+}
+
+// Quantile interpolates the q-quantile (0..1) linearly within the bin holding it.
+func (h *Histogram) Quantile(q float64) float64 {
+	var total int64
+	for _, c := range h.Counts {
+		total += c
+	}
+	if total == 0 {
+		return math.NaN()
+	}
+	target := q * float64(total)
+	var acc float64
+	for i, c := range h.Counts {
+		if c == 0 {
+			continue
+		}
+		if acc+float64(c) >= target {
+			frac := (target - acc) / float64(c)
+			return h.Lo + (float64(i)+frac)*h.Width
+		}
+		acc += float64(c)
+	}
+	return h.Lo + float64(len(h.Counts))*h.Width
+}
+
+// Trimmed returns edges and counts with empty leading and trailing bins removed.
+func (h *Histogram) Trimmed() ([]float64, []int64) {
+	lo, hi := 0, len(h.Counts)
+	for lo < hi && h.Counts[lo] == 0 {
+		lo++
+	}
+	for hi > lo && h.Counts[hi-1] == 0 {
+		hi--
+	}
+	if lo == hi {
+		return nil, nil
+	}
+	e := h.Edges()[lo : hi+1]
+	return append([]float64{}, e...), append([]int64{}, h.Counts[lo:hi]...)
+}

@@ -1,0 +1,351 @@
+package stats
+
+import (
+	"fmt"
+	"math"
+
+	"vitals/report"
+)
+
+// sevFor grades v against warning/error thresholds (higher is worse).
+func sevFor(v, warn, errT float64) (report.Severity, bool) {
+	switch {
+	case v >= errT:
+		return report.Error, true
+	case v >= warn:
+		return report.Warning, true
+	}
+	return "", false
+}
+
+func pct(x float64) string { return fmt.Sprintf("%.1f%%", 100*x) }
+
+var nonfiniteCheck = &Check{
+	Name: "nonfinite",
+	Doc: "NaN or Inf in an activation or a weight. Any non-finite value propagates to the output; " +
+		"the first layer where it appears is usually the cause (overflow in exp, division by zero, a diverged training run). Common practice.",
+	Run: func(p *Pass) {
+		first := true
+		for _, l := range p.Report.Layers {
+			if l.Nonfinite == 0 {
+				continue
+			}
+			msg := "%d of %d values are NaN or Inf"
+			strength := 1.0
+			if first {
+				msg += "; this is the first layer in depth order where they appear, so look here first"
+				strength = 3
+				first = false
+			}
+			p.Emit(report.Error, l.Node, strength, map[string]any{"nonfinite": l.Nonfinite, "count": l.Count}, msg, l.Nonfinite, l.Count)
+		}
+		for _, w := range p.Report.Weights {
+			if w.Nonfinite > 0 {
+				p.Emit(report.Error, w.Node, 5, map[string]any{"weight": w.Name, "nonfinite": w.Nonfinite},
+					"weight %q holds %d NaN/Inf values: the checkpoint is corrupt or training diverged; retrain or restore an earlier checkpoint", w.Name, w.Nonfinite)
+			}
+		}
+	},
+}
+
+var deadUnitsCheck = &Check{
+	Name: "dead-units",
+	Doc: "ReLU-family units that never output a positive value over the whole sample. " +
+		"A dead unit passes no gradient and is wasted capacity. Common practice: trained ReLU nets often carry 10–20% dead units; far more points to a too-high learning rate, poor initialisation or badly scaled inputs.",
+	Defaults: map[string]float64{"dead-units.warning": 0.25, "dead-units.error": 0.5},
+	Run: func(p *Pass) {
+		for _, l := range p.Report.Layers {
+			if l.DeadFraction == nil || l.Units == nil {
+				continue
+			}
+			f := *l.DeadFraction
+			sev, ok := sevFor(f, p.T("warning"), p.T("error"))
+			if !ok {
+				continue
+			}
+			dead := int(math.Round(f * float64(*l.Units)))
+			msg := "%d of %d units (%s) never output a positive value on %d samples; dead units pass no gradient. " +
+				"Usual fixes: lower the learning rate, He initialisation, LeakyRelu, check the input scale"
+			if l.Note != "" {
+				msg += " (" + l.Note + ")"
+			}
+			p.Emit(sev, l.Node, f/p.T("warning"), map[string]any{"dead_fraction": f, "dead_units": dead, "units": *l.Units,
+				"unit_axis": l.UnitAxis, "samples": p.Report.Input.Samples, "warning_at": p.T("warning"), "error_at": p.T("error")},
+				msg, dead, *l.Units, pct(f), p.Report.Input.Samples)
+		}
+	},
+}
+
+var saturationCheck = &Check{
+	Name: "saturation",
+	Doc: "Share of tanh/sigmoid/softsign outputs pinned at their limits (tanh |y|>0.99; sigmoid y<0.01 or y>0.99; hard variants at their clip bounds). " +
+		"Saturated units pass almost no gradient (common practice). Usual causes: inputs not normalised, weights too large.",
+	Defaults: map[string]float64{"saturation.warning": 0.2, "saturation.error": 0.5},
+	Run: func(p *Pass) {
+		for i, l := range p.Report.Layers {
+			if l.SaturatedFraction == nil || p.LayerKind[i] != ActSaturating {
+				continue
+			}
+			f := *l.SaturatedFraction
+			sev, ok := sevFor(f, p.T("warning"), p.T("error"))
+			if !ok {
+				continue
+			}
+			p.Emit(sev, l.Node, f/p.T("warning"), map[string]any{"saturated_fraction": f, "mean": l.Mean, "std": l.Std,
+				"warning_at": p.T("warning"), "error_at": p.T("error")},
+				"%s of %s outputs sit at the saturation limits, where the gradient is nearly zero. Usual fixes: normalise the inputs, smaller initial weights (Xavier), a normalisation layer before the activation",
+				pct(f), l.Op)
+		}
+	},
+}
+
+func stackSpread(p *Pass, st Stack) (first, last *report.Layer, ratio float64) {
+	first, last = &p.Report.Layers[st.Layers[0]], &p.Report.Layers[st.Layers[len(st.Layers)-1]]
+	return first, last, report.Val(last.Std) / report.Val(first.Std)
+}
+
+var spreadCollapseCheck = &Check{
+	Name: "spread-collapse",
+	Doc: "Activation spread (std) shrinking along a stack of layers with no normalisation between them, last layer against first. " +
+		"Glorot & Bengio 2010 show the signal vanishing with depth when weights are too small for the activation; He et al. 2015 derive the scale that keeps it (Var[w]=2/fan_in for ReLU).",
+	Defaults: map[string]float64{"spread-collapse.warning": 0.1, "spread-collapse.error": 1e-3, "spread-collapse.min_layers": 3},
+	Run: func(p *Pass) {
+		for _, st := range p.Stacks {
+			if len(st.Layers) < int(p.T("min_layers")) {
+				continue
+			}
+			first, last, ratio := stackSpread(p, st)
+			if math.IsNaN(ratio) || ratio >= p.T("warning") {
+				continue
+			}
+			sev := report.Warning
+			if ratio < p.T("error") {
+				sev = report.Error
+			}
+			p.Emit(sev, last.Node, math.Log10(p.T("warning")/math.Max(ratio, 1e-30)), map[string]any{"std_first": first.Std, "std_last": last.Std,
+				"ratio": ratio, "layers": len(st.Layers), "first": first.Node, "compound_gain": compoundGain(p, st)},
+				"activation std falls from %.3g at %q to %.3g here over %d layers (ratio %.2g): the signal vanishes with depth. Usual fixes: Xavier/He initialisation for the activation used, normalisation layers",
+				report.Val(first.Std), first.Node, report.Val(last.Std), len(st.Layers), ratio)
+		}
+	},
+}
+
+var spreadExplosionCheck = &Check{
+	Name: "spread-explosion",
+	Doc: "Activation spread (std) growing along a stack of layers with no normalisation between them, last layer against first. " +
+		"Glorot & Bengio 2010; He et al. 2015: weights larger than the activation's reference scale make the signal grow geometrically with depth.",
+	Defaults: map[string]float64{"spread-explosion.warning": 10, "spread-explosion.error": 1e3, "spread-explosion.min_layers": 3},
+	Run: func(p *Pass) {
+		for _, st := range p.Stacks {
+			if len(st.Layers) < int(p.T("min_layers")) {
+				continue
+			}
+			first, last, ratio := stackSpread(p, st)
+			if math.IsNaN(ratio) || ratio <= p.T("warning") {
+				continue
+			}
+			sev := report.Warning
+			if ratio > p.T("error") {
+				sev = report.Error
+			}
+			p.Emit(sev, last.Node, math.Log10(ratio/p.T("warning"))+1, map[string]any{"std_first": first.Std, "std_last": last.Std,
+				"ratio": ratio, "layers": len(st.Layers), "first": first.Node, "compound_gain": compoundGain(p, st)},
+				"activation std grows from %.3g at %q to %.3g here over %d layers (ratio %.3g): the signal explodes with depth. Usual fixes: smaller initial weights (Xavier/He), normalisation layers, gradient clipping",
+				report.Val(first.Std), first.Node, report.Val(last.Std), len(st.Layers), ratio)
+		}
+	},
+}
+
+// referenceGain is √2 for the ReLU family (He et al. 2015) and 1 otherwise (Glorot & Bengio 2010).
+func referenceGain(follow string) float64 {
+	if reluLike[follow] || follow == "Clip" {
+		return math.Sqrt2
+	}
+	return 1
+}
+
+// compoundGain is ∏ g/ref over the stack's weights, which predicts the spread ratio.
+func compoundGain(p *Pass, st Stack) *float64 {
+	prod := 1.0
+	if len(st.Weights) == 0 {
+		return nil
+	}
+	for _, wi := range st.Weights {
+		w := p.Report.Weights[wi]
+		prod *= report.Val(w.Gain) / referenceGain(w.FollowedBy)
+	}
+	return report.Num(prod)
+}
+
+var weightScaleCheck = &Check{
+	Name: "weight-scale",
+	Doc: "Weight gain g = std·√fan_in against the reference for the activation that follows (√2 for the ReLU family, He et al. 2015; 1 for tanh, sigmoid, softsign and no activation, Glorot & Bengio 2010), and the compound gain ∏(g/ref) along a stack. " +
+		"Skipped where a normalisation layer follows, since it rescales the output.",
+	Defaults: map[string]float64{"weight-scale.low": 0.5, "weight-scale.high": 2, "weight-scale.compound_low": 0.1, "weight-scale.compound_high": 10},
+	Run: func(p *Pass) {
+		for _, w := range p.Report.Weights {
+			if w.FollowedBy == "normalization" || w.Gain == nil {
+				continue
+			}
+			ref := referenceGain(w.FollowedBy)
+			ratio := *w.Gain / ref
+			if ratio >= p.T("low") && ratio <= p.T("high") {
+				continue
+			}
+			name := "He (√2)"
+			if ref == 1 {
+				name = "Xavier (1)"
+			}
+			strength := math.Max(ratio/p.T("high"), p.T("low")/math.Max(ratio, 1e-30))
+			p.Emit(report.Warning, w.Node, math.Min(strength, 3), map[string]any{"weight": w.Name, "gain": *w.Gain, "reference": ref,
+				"ratio": ratio, "fan_in": w.FanIn, "std": w.Std, "followed_by": w.FollowedBy},
+				"weight %q has gain std·√fan_in = %.3g, %.2g× the %s reference for a %s that follows; no initialisation rule gives this scale, so the layer may shrink or amplify its signal",
+				w.Name, *w.Gain, ratio, name, followName(w.FollowedBy))
+		}
+		for _, st := range p.Stacks {
+			cg := compoundGain(p, st)
+			if cg == nil || len(st.Weights) < 2 || (*cg >= p.T("compound_low") && *cg <= p.T("compound_high")) {
+				continue
+			}
+			last := p.Report.Layers[st.Layers[len(st.Layers)-1]]
+			p.Emit(report.Warning, last.Node, 1, map[string]any{"compound_gain": *cg, "weights": len(st.Weights)},
+				"the product of weight gains over the %d linear layers of this stack is %.3g× the reference: the spread is predicted to change that much with depth",
+				len(st.Weights), *cg)
+		}
+	},
+}
+
+func followName(f string) string {
+	if f == "none" || f == "" {
+		return "no activation"
+	}
+	return f
+}
+
+var symmetricUnitsCheck = &Check{
+	Name: "symmetric-units",
+	Doc: "Identical rows (filters or output units) in one weight tensor. " +
+		"Units that start identical get identical gradients and never become different (symmetry breaking, common practice); usual cause: constant or zero initialisation.",
+	Run: func(p *Pass) {
+		for _, w := range p.Report.Weights {
+			if w.IdenticalRows < 2 {
+				continue
+			}
+			sev := report.Warning
+			if w.IdenticalRows == w.Rows && w.Rows > 1 {
+				sev = report.Error
+			}
+			p.Emit(sev, w.Node, 1+4*float64(w.IdenticalRows)/float64(w.Rows), map[string]any{"weight": w.Name, "identical_rows": w.IdenticalRows,
+				"rows": w.Rows, "zero_rows": w.ZeroRows},
+				"%d of %d units of weight %q are exact copies of another unit: they compute the same thing and were never symmetry-broken. Usual fix: random initialisation (Xavier/He), not constants or zeros",
+				w.IdenticalRows, w.Rows, w.Name)
+		}
+	},
+}
+
+var batchnormDriftCheck = &Check{
+	Name: "batchnorm-drift",
+	Doc: "BatchNorm running statistics that disagree with the data: per channel |μ_sample−μ_run|/σ_run and var_sample/var_run. " +
+		"Inference normalises with the stored population statistics (Ioffe & Szegedy 2015), so when they do not match the data the layer shifts and rescales its output.",
+	Defaults: map[string]float64{"batchnorm-drift.mean_shift": 1, "batchnorm-drift.var_low": 0.25, "batchnorm-drift.var_high": 4,
+		"batchnorm-drift.channel_share": 0.1, "batchnorm-drift.error_share": 0.5},
+	Run: func(p *Pass) {
+		for _, bn := range p.BatchNorms {
+			drift := 0
+			worstShift, worstRatio := 0.0, 1.0
+			for ch := range bn.MeanShift {
+				s, v := bn.MeanShift[ch], bn.VarRatio[ch]
+				if s > p.T("mean_shift") || v < p.T("var_low") || v > p.T("var_high") {
+					drift++
+				}
+				worstShift = math.Max(worstShift, s)
+				if math.Abs(math.Log(v)) > math.Abs(math.Log(worstRatio)) {
+					worstRatio = v
+				}
+			}
+			share := float64(drift) / float64(bn.Channels)
+			if share >= p.T("channel_share") {
+				sev := report.Warning
+				if share >= p.T("error_share") {
+					sev = report.Error
+				}
+				p.Emit(sev, bn.Node, share/p.T("channel_share"), map[string]any{"drifting_channels": drift, "channels": bn.Channels,
+					"max_mean_shift_sigmas": worstShift, "worst_var_ratio": worstRatio},
+					"%d of %d channels: the sample's statistics disagree with the stored running statistics (largest mean shift %.2gσ, worst variance ratio %.3g). "+
+						"Usual causes: running statistics not updated or reset after training, different preprocessing at inference, or a data shift",
+					drift, bn.Channels, worstShift, worstRatio)
+			}
+			if bn.GammaZero > 0 || bn.VarZero > 0 {
+				p.Emit(report.Info, bn.Node, 1, map[string]any{"gamma_zero_channels": bn.GammaZero, "running_var_zero_channels": bn.VarZero},
+					"%d channels have scale γ≈0 (switched off) and %d have running variance ≈0", bn.GammaZero, bn.VarZero)
+			}
+		}
+	},
+}
+
+var inputScaleCheck = &Check{
+	Name: "input-scale",
+	Doc: "Per-channel mean and std of each float model input. " +
+		"Zero-centred, unit-scale input is common practice; raw pixel values or unscaled sensor units saturate or kill the first layers.",
+	Defaults: map[string]float64{"input-scale.max_abs_mean": 1, "input-scale.std_low": 0.2, "input-scale.std_high": 5},
+	Run: func(p *Pass) {
+		if p.Report.Input.Source == "synthetic" {
+			return
+		}
+		for _, in := range p.Report.Input.PerInput {
+			if in.Mean == nil {
+				continue
+			}
+			bad, worstMean, worstStd := 0, 0.0, 1.0
+			means, stds := in.ChannelMean, in.ChannelStd
+			if len(means) == 0 {
+				means, stds = []float64{*in.Mean}, []float64{report.Val(in.Std)}
+			}
+			for i := range means {
+				m, s := means[i], stds[i]
+				if math.Abs(m) > p.T("max_abs_mean") || s < p.T("std_low") || s > p.T("std_high") {
+					bad++
+				}
+				if math.Abs(m) > math.Abs(worstMean) {
+					worstMean = m
+				}
+				if math.Abs(math.Log(s)) > math.Abs(math.Log(worstStd)) {
+					worstStd = s
+				}
+			}
+			if bad == 0 {
+				continue
+			}
+			p.Emit(report.Warning, in.Name, 1+float64(bad)/float64(len(means)), map[string]any{"channels_off_scale": bad, "channels": len(means),
+				"mean": in.Mean, "std": in.Std, "worst_channel_mean": worstMean, "worst_channel_std": worstStd},
+				"input %q: %d of %d channels are not zero-centred, unit-scale (worst mean %.3g, worst std %.3g). Check that the sample was preprocessed exactly as in training (scaling, mean/std normalisation)",
+				in.Name, bad, len(means), worstMean, worstStd)
+		}
+	},
+}
+
+var outputHealthCheck = &Check{
+	Name: "output-health",
+	Doc: "The final output over the sample: mean top probability (overconfident or near-uniform), and with labels the accuracy and mean cross-entropy against ln C. " +
+		"Common practice: an untrained C-class softmax has loss ≈ ln C.",
+	Defaults: map[string]float64{"output-health.overconfident": 0.99, "output-health.uniform_factor": 1.5},
+	Run: func(p *Pass) {
+		o := p.Report.Output
+		if o == nil || o.MeanMaxProb == nil {
+			return
+		}
+		mp := *o.MeanMaxProb
+		ev := map[string]any{"mean_max_prob": mp, "classes": o.Classes, "is_distribution": o.IsDistribution}
+		switch {
+		case mp > p.T("overconfident"):
+			p.Emit(report.Info, o.Name, 1, ev, "mean top-class probability is %.4f: the model is near-certain on almost every sample", mp)
+		case mp < p.T("uniform_factor")/float64(o.Classes):
+			p.Emit(report.Info, o.Name, 1, ev, "mean top-class probability is %.3f over %d classes: outputs are close to uniform, as an untrained model's would be", mp, o.Classes)
+		}
+		if o.Accuracy != nil {
+			ev2 := map[string]any{"accuracy": *o.Accuracy, "cross_entropy": o.CrossEntropy, "ln_classes": o.LnClasses, "labeled": o.Labeled}
+			p.Emit(report.Info, o.Name, 1, ev2, "accuracy %.1f%% on %d labelled samples; mean cross-entropy %.3f (ln %d = %.3f is chance level)",
+				100**o.Accuracy, o.Labeled, report.Val(o.CrossEntropy), o.Classes, report.Val(o.LnClasses))
+		}
+	},
+}

@@ -1,0 +1,374 @@
+package stats
+
+import (
+	"math"
+
+	"vitals/loader"
+	"vitals/probe"
+	"vitals/tensor"
+)
+
+// ActKind says which unit statistics a node's output gets.
+type ActKind int
+
+// Activation kinds.
+const (
+	ActNone       ActKind = iota
+	ActReLU               // ReLU family: a unit is dead if never > 0
+	ActSaturating         // bounded: share of outputs at the bounds
+)
+
+// actInfo describes one activation node: its kind and saturation rule.
+type actInfo struct {
+	kind ActKind
+	// sat reports whether y is saturated (nil: no saturation rule).
+	satLo, satHi float64 // saturated when y <= satLo or y >= satHi (strict variants via eps)
+	strict       bool    // use < and > instead of <= and >=
+	hasSat       bool
+	note         string
+}
+
+// classify decides from op type and attributes what kind of activation a node is.
+// Saturation limits: tanh |y|>0.99, sigmoid y<0.01 or y>0.99, softsign |y|>0.99
+// (common practice: the derivative there is under ~2% of its peak);
+// hard variants (HardSigmoid, HardTanh-style Clip) at their clip bounds.
+func classify(n *loader.Node, g *loader.Graph) actInfo {
+	switch n.OpType {
+	case "Relu", "ThresholdedRelu":
+		return actInfo{kind: ActReLU}
+	case "LeakyRelu":
+		alpha := float32(0.01)
+		if a := n.Attrs["alpha"]; a != nil {
+			alpha = a.F
+		}
+		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + fmtG(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
+	case "PRelu":
+		return actInfo{kind: ActReLU, note: "PRelu: a dead unit still passes its learned negative slope"}
+	case "Tanh", "Softsign":
+		return actInfo{kind: ActSaturating, hasSat: true, satLo: -0.99, satHi: 0.99, strict: true}
+	case "Sigmoid":
+		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0.01, satHi: 0.99, strict: true}
+	case "HardSigmoid":
+		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0, satHi: 1}
+	case "Clip":
+		lo, hi, ok := clipBounds(n, g)
+		if !ok {
+			return actInfo{}
+		}
+		if lo == 0 {
+			ai := actInfo{kind: ActReLU, note: "Clip(0, " + fmtG(hi) + ") treated as ReLU" + fmtG(hi)}
+			if !math.IsInf(hi, 1) {
+				ai.hasSat, ai.satLo, ai.satHi = true, math.Inf(-1), hi
+			}
+			return ai
+		}
+		if !math.IsInf(lo, -1) && !math.IsInf(hi, 1) {
+			return actInfo{kind: ActSaturating, hasSat: true, satLo: lo, satHi: hi, note: "Clip treated as hard tanh"}
+		}
+	}
+	return actInfo{}
+}
+
+// clipBounds reads Clip's bounds from attributes (opset<11) or constant inputs.
+func clipBounds(n *loader.Node, g *loader.Graph) (lo, hi float64, ok bool) {
+	lo, hi = math.Inf(-1), math.Inf(1)
+	if a := n.Attrs["min"]; a != nil {
+		lo = float64(a.F)
+	}
+	if a := n.Attrs["max"]; a != nil {
+		hi = float64(a.F)
+	}
+	for i, dst := range []*float64{&lo, &hi} {
+		if len(n.Inputs) > i+1 && n.Inputs[i+1] != "" {
+			t, found := constValue(g, n.Inputs[i+1])
+			if !found || t.Size() < 1 {
+				return 0, 0, false
+			}
+			*dst = t.Float64At(0)
+		}
+	}
+	return lo, hi, true
+}
+
+// constValue finds a tensor that is an initializer or the output of a Constant node.
+func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
+	if t, ok := g.Initializers[name]; ok {
+		return t, true
+	}
+	for _, n := range g.Nodes {
+		if n.OpType == "Constant" && len(n.Outputs) > 0 && n.Outputs[0] == name {
+			if a := n.Attrs["value"]; a != nil && a.T != nil {
+				return a.T, true
+			}
+		}
+	}
+	return nil, false
+}
+
+// layerAcc accumulates the statistics of one node output.
+type layerAcc struct {
+	node     *loader.Node
+	output   string
+	depth    int
+	shape    []int
+	mom      Moments
+	hist     Histogram
+	act      actInfo
+	unitKind int // 1: channel axis (conv); 2: last axis (dense); 0: decide by rank
+	unitAxis int
+	everPos  []bool
+	sat      int64
+	satN     int64
+	// per-channel moments along axis 1 (only for values feeding a BatchNormalization)
+	perChan []Moments
+}
+
+// Collector is the probe hook that gathers statistics of every float node
+// output over all batches, plus input and output summaries.
+type Collector struct {
+	Model  *loader.Model
+	Plan   *probe.Plan
+	layers []*layerAcc
+	byOut  map[string]*layerAcc
+	// values whose per-channel moments are wanted (BatchNormalization inputs)
+	perChanWanted map[string]bool
+	inputs        map[string]*layerAcc
+	inputOrder    []string
+	out           *outputAcc
+	producer      map[string]*loader.Node
+	dataDep       map[string]bool
+	Samples       int
+}
+
+// NewCollector prepares accumulators for every data-dependent float output of the plan.
+func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
+	c := &Collector{Model: m, Plan: p, byOut: map[string]*layerAcc{}, perChanWanted: map[string]bool{},
+		inputs: map[string]*layerAcc{}, producer: map[string]*loader.Node{}, dataDep: map[string]bool{}}
+	g := m.Graph
+	for _, in := range g.Inputs {
+		c.dataDep[in.Name] = true
+	}
+	for _, s := range p.Steps {
+		for _, o := range s.Node.Outputs {
+			c.producer[o] = s.Node
+		}
+		dep := false
+		for _, in := range s.Node.Inputs {
+			if c.dataDep[in] {
+				dep = true
+			}
+		}
+		for _, a := range s.Node.Attrs { // subgraphs may read data from the outer scope
+			if a.G != nil || len(a.Graphs) > 0 {
+				dep = true
+			}
+		}
+		if dep {
+			for _, o := range s.Node.Outputs {
+				c.dataDep[o] = true
+			}
+		}
+		if s.Node.OpType == "BatchNormalization" && len(s.Node.Inputs) > 0 {
+			c.perChanWanted[s.Node.Inputs[0]] = true
+		}
+	}
+	for i, s := range p.Steps {
+		for _, o := range s.Node.Outputs {
+			if o == "" || !c.dataDep[o] {
+				continue
+			}
+			la := &layerAcc{node: s.Node, output: o, depth: p.Depth[i], mom: NewMoments(), act: classify(s.Node, g)}
+			if la.act.kind != ActNone {
+				la.unitKind = c.unitKindOf(s.Node)
+			}
+			la.perChan = nil
+			c.layers = append(c.layers, la)
+			c.byOut[o] = la
+		}
+	}
+	for _, in := range g.Inputs {
+		c.inputs[in.Name] = &layerAcc{output: in.Name, mom: NewMoments()}
+		c.inputOrder = append(c.inputOrder, in.Name)
+	}
+	return c
+}
+
+// unitKindOf walks upstream from an activation through elementwise and
+// normalisation nodes to the nearest linear operator: Conv/ConvTranspose
+// make units channels (axis 1), Gemm/MatMul make them features (last axis).
+func (c *Collector) unitKindOf(n *loader.Node) int {
+	cur := n
+	for step := 0; step < 32 && cur != nil && len(cur.Inputs) > 0; step++ {
+		p := c.producer[cur.Inputs[0]]
+		if p == nil {
+			return 0
+		}
+		switch p.OpType {
+		case "Conv", "ConvTranspose", "QLinearConv", "ConvInteger":
+			return 1
+		case "Gemm", "MatMul", "MatMulInteger", "Einsum":
+			return 2
+		}
+		// follow data through Add(bias), Mul, BatchNormalization, Reshape... along input 0,
+		// or input 1 when input 0 is a constant (e.g. Add(bias, x))
+		if !c.dataDep[p.Inputs[0]] && len(p.Inputs) > 1 {
+			cur = &loader.Node{Inputs: p.Inputs[1:]}
+			continue
+		}
+		cur = p
+	}
+	return 0
+}
+
+// Hook is the probe.Hook that feeds the collector.
+func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
+	for i, t := range outs {
+		if t == nil || i >= len(n.Outputs) {
+			continue
+		}
+		la := c.byOut[n.Outputs[i]]
+		if la == nil {
+			continue
+		}
+		c.observe(la, t)
+	}
+	return nil
+}
+
+// AddInputs records the moments of one batch of model inputs (call before Run).
+func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
+	for name, t := range batch {
+		if la := c.inputs[name]; la != nil {
+			c.observe(la, t)
+			if t.Rank() >= 2 {
+				la.perChan = perChannel(la.perChan, t, channelAxis(t))
+			}
+		}
+	}
+}
+
+// channelAxis is the axis of an input's channels: 1 for images [N,C,H,W] and
+// sequences [N,C,L], the last axis for tabular [N,F].
+func channelAxis(t *tensor.Tensor) int {
+	if t.Rank() >= 3 {
+		return 1
+	}
+	return t.Rank() - 1
+}
+
+func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
+	x, ok := t.Data.([]float32)
+	if !ok {
+		if f, ok64 := t.Data.([]float64); ok64 {
+			x = make([]float32, len(f))
+			for i, v := range f {
+				x[i] = float32(v)
+			}
+		} else {
+			return
+		}
+	}
+	la.shape = append(la.shape[:0], t.Shape...)
+	before := la.mom
+	var b Moments
+	b = NewMoments()
+	b.AddFloat32(x)
+	la.mom.Merge(b)
+	_ = before
+	la.hist.AddFloat32(x, b.Min, b.Max)
+	if c.perChanWanted[la.output] && t.Rank() >= 2 {
+		la.perChan = perChannel(la.perChan, t, 1)
+	}
+	if la.act.kind == ActNone || t.Rank() == 0 {
+		return
+	}
+	axis := t.Rank() - 1
+	if la.unitKind == 1 || (la.unitKind == 0 && t.Rank() >= 3) {
+		axis = 1
+	}
+	la.unitAxis = axis
+	units := t.Shape[axis]
+	if len(la.everPos) != units {
+		la.everPos = make([]bool, units)
+	}
+	inner := 1
+	for _, d := range t.Shape[axis+1:] {
+		inner *= d
+	}
+	if la.act.kind == ActReLU {
+		everPositive(la.everPos, x, units, inner)
+	}
+	if la.act.hasSat {
+		la.sat += countSaturated(x, la.act)
+		la.satN += int64(len(x))
+	}
+}
+
+// everPositive sets ever[u] when any element of unit u is > 0; data is laid
+// out as [outer, units, inner].
+func everPositive(ever []bool, x []float32, units, inner int) {
+	block := units * inner
+	for o := 0; o+block <= len(x); o += block {
+		for u := 0; u < units; u++ {
+			if ever[u] {
+				continue
+			}
+			for _, v := range x[o+u*inner : o+(u+1)*inner] {
+				if v > 0 {
+					ever[u] = true
+					break
+				}
+			}
+		}
+	}
+}
+
+func countSaturated(x []float32, a actInfo) int64 {
+	var n int64
+	lo, hi := float32(a.satLo), float32(a.satHi)
+	if a.strict {
+		for _, v := range x {
+			if v < lo || v > hi {
+				n++
+			}
+		}
+	} else {
+		for _, v := range x {
+			if v <= lo || v >= hi {
+				n++
+			}
+		}
+	}
+	return n
+}
+
+// perChannel merges the batch's per-channel moments along axis.
+func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
+	x, ok := t.Data.([]float32)
+	if !ok {
+		return acc
+	}
+	ch := t.Shape[axis]
+	if len(acc) != ch {
+		acc = make([]Moments, ch)
+		for i := range acc {
+			acc[i] = NewMoments()
+		}
+	}
+	inner := 1
+	for _, d := range t.Shape[axis+1:] {
+		inner *= d
+	}
+	block := ch * inner
+	buf := make([]float32, 0, len(x)/max(ch, 1))
+	for cc := 0; cc < ch; cc++ {
+		buf = buf[:0]
+		for o := 0; o+block <= len(x); o += block {
+			buf = append(buf, x[o+cc*inner:o+(cc+1)*inner]...)
+		}
+		var b Moments
+		b.AddFloat32(buf)
+		acc[cc].Merge(b)
+	}
+	return acc
+}
