@@ -1,0 +1,254 @@
+// Command vitals checks the health of a trained ONNX model on a sample of
+// real data, layer by layer, on the CPU.
+//
+//	vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]
+//	vitals compare OLD.onnx NEW.onnx --data PATH [flags]
+//	vitals ops [--model FILE]
+//
+// Exit codes: 0 healthy (or findings below --fail-on), 1 findings at or above
+// --fail-on, 2 usage or input error, 130 interrupted.
+package main
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"runtime/debug"
+	"strings"
+
+	flag "github.com/spf13/pflag"
+
+	"vitals/report"
+	"vitals/stats"
+)
+
+// version is set at build time with -ldflags "-X main.version=..."; "dev" otherwise.
+var version = "dev"
+
+const usage = `vitals: layer-by-layer health of a trained ONNX model on real data, on the CPU.
+
+Usage:
+  vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]
+  vitals compare OLD.onnx NEW.onnx --data PATH [flags]
+  vitals ops [--model FILE]
+
+Run "vitals check --help" for the flags. Checks:
+`
+
+func main() {
+	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+}
+
+// run is main without os.Exit, for tests. Unexpected panics become exit code 2
+// with a one-line message (the stack only with --debug).
+func run(args []string, stdout, stderr io.Writer) (code int) {
+	debugOn := false
+	for _, a := range args {
+		if a == "--debug" {
+			debugOn = true
+		}
+	}
+	defer func() {
+		if r := recover(); r != nil {
+			fmt.Fprintf(stderr, "vitals: internal error: %v\n", r)
+			if debugOn {
+				fmt.Fprintln(stderr, string(debug.Stack()))
+			} else {
+				fmt.Fprintln(stderr, "vitals: rerun with --debug for details")
+			}
+			code = 2
+		}
+	}()
+	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
+		fmt.Fprint(stderr, usage)
+		for _, c := range stats.Checks {
+			fmt.Fprintf(stderr, "  %-18s %s\n", c.Name, stats.HelpLine(c.Doc))
+		}
+		if len(args) == 0 {
+			return 2
+		}
+		return 0
+	}
+	var err error
+	switch args[0] {
+	case "check":
+		code, err = cmdCheck(args[1:], stdout, stderr)
+	case "compare":
+		code, err = cmdCompare(args[1:], stdout, stderr)
+	case "ops":
+		code, err = cmdOps(args[1:], stdout, stderr)
+	case "version", "--version":
+		fmt.Fprintln(stdout, "vitals", version)
+		return 0
+	default:
+		fmt.Fprintf(stderr, "vitals: unknown command %q (want check, compare or ops)\n", args[0])
+		return 2
+	}
+	if err != nil {
+		if errors.Is(err, errInterrupted) {
+			fmt.Fprintln(stderr, "vitals: interrupted; no report written")
+			return 130
+		}
+		if errors.Is(err, flag.ErrHelp) {
+			return 0
+		}
+		fmt.Fprintln(stderr, "vitals:", err)
+		return 2
+	}
+	return code
+}
+
+// common holds the flags check and compare share.
+type common struct {
+	fs      *flag.FlagSet
+	data    []string
+	labels  string
+	samples int
+	batch   int
+	out     string
+	format  string
+	failOn  string
+	config  string
+	all     bool
+	mean    string
+	std     string
+	layout  string
+	seed    int64
+	debug   bool
+}
+
+func newCommon(name string, stderr io.Writer) *common {
+	c := &common{fs: flag.NewFlagSet(name, flag.ContinueOnError)}
+	fs := c.fs
+	fs.SetOutput(stderr)
+	fs.StringArrayVar(&c.data, "data", nil, "sample: a .npy/.npz/.pb/.csv file or a folder of images; INPUT=PATH per input for several inputs (repeatable)")
+	fs.StringVar(&c.labels, "labels", "", "integer class ids (.npy), one per sample: adds accuracy and cross-entropy")
+	fs.IntVar(&c.samples, "samples", 0, "use at most N samples (0: all; 64 for synthetic input)")
+	fs.IntVar(&c.batch, "batch", 32, "samples per batch")
+	fs.StringVar(&c.out, "out", "", "write report.json, plots and the report of --format into this folder")
+	fs.StringVar(&c.format, "format", "text", "report format on stdout (and in --out): "+strings.Join(formatNames(), "|"))
+	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
+	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
+	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10")
+	fs.StringVar(&c.mean, "mean", "", "per-channel mean subtracted from images scaled to [0,1], e.g. 0.485,0.456,0.406")
+	fs.StringVar(&c.std, "std", "", "per-channel std images are divided by, e.g. 0.229,0.224,0.225")
+	fs.StringVar(&c.layout, "layout", "nchw", "image tensor layout the model wants: nchw|nhwc")
+	fs.Int64Var(&c.seed, "seed", 1, "seed of the synthetic Gaussian input")
+	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
+	return c
+}
+
+func (c *common) dataOptions() (dataOptions, error) {
+	o := dataOptions{data: c.data, labels: c.labels, samples: c.samples, batch: c.batch, layout: strings.ToLower(c.layout), seed: c.seed}
+	var err error
+	if o.mean, err = parseFloats(c.mean); err != nil {
+		return o, userErr("--mean: %v", err)
+	}
+	if o.std, err = parseFloats(c.std); err != nil {
+		return o, userErr("--std: %v", err)
+	}
+	if o.layout != "nchw" && o.layout != "nhwc" {
+		return o, userErr("--layout must be nchw or nhwc, got %q", c.layout)
+	}
+	if c.samples < 0 {
+		return o, userErr("--samples must be ≥ 0")
+	}
+	return o, nil
+}
+
+func (c *common) validate() error {
+	if _, ok := writers[c.format]; !ok {
+		return userErr("--format must be one of %s, got %q", strings.Join(formatNames(), ", "), c.format)
+	}
+	if c.failOn != "warning" && c.failOn != "error" {
+		return userErr("--fail-on must be warning or error, got %q", c.failOn)
+	}
+	if (c.format == "markdown" || c.format == "html") && c.out == "" {
+		return userErr("--format %s writes files next to its plots: give --out DIR", c.format)
+	}
+	if c.out != "" {
+		if err := prepareOut(c.out); err != nil {
+			return inputErr{err}
+		}
+	}
+	return nil
+}
+
+// exitCode applies --fail-on to the findings.
+func exitCode(r *report.Report, failOn string) int {
+	level := 2
+	if failOn == "warning" {
+		level = 1
+	}
+	for _, f := range r.Findings {
+		if f.Severity.Level() >= level {
+			return 1
+		}
+	}
+	return 0
+}
+
+func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
+	c := newCommon("check", stderr)
+	c.fs.Usage = func() {
+		fmt.Fprintln(stderr, "Usage: vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]")
+		c.fs.PrintDefaults()
+	}
+	if err := c.fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return 0, nil
+		}
+		return 2, userErr("%v", err)
+	}
+	if c.fs.NArg() != 1 {
+		c.fs.Usage()
+		return 2, userErr("check takes exactly one model file, got %d arguments", c.fs.NArg())
+	}
+	if err := c.validate(); err != nil {
+		return 2, err
+	}
+	o, err := c.dataOptions()
+	if err != nil {
+		return 2, err
+	}
+	th, err := loadThresholds(c.config)
+	if err != nil {
+		return 2, err
+	}
+	watchSignals()
+	l, err := loadAndCompile(c.fs.Arg(0), c.debug)
+	if err != nil {
+		return 2, err
+	}
+	feed, err := openFeed(l.model.Graph, o)
+	if err != nil {
+		return 2, err
+	}
+	defer feed.Close()
+	col, err := analyse(l, feed, th, nil)
+	if err != nil {
+		return 2, err
+	}
+	r := col.Report
+	r.Version = version
+	annotateInputs(r, c.data)
+	if err := emit(r, c, stdout); err != nil {
+		return 2, err
+	}
+	return exitCode(r, c.failOn), nil
+}
+
+// annotateInputs records which file fed each input.
+func annotateInputs(r *report.Report, data []string) {
+	for i := range r.Input.PerInput {
+		for _, spec := range data {
+			name, path, named := strings.Cut(spec, "=")
+			if !named {
+				r.Input.PerInput[i].Path = spec
+			} else if name == r.Input.PerInput[i].Name {
+				r.Input.PerInput[i].Path = path
+			}
+		}
+	}
+}

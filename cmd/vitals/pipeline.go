@@ -1,0 +1,473 @@
+package main
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"os/signal"
+	"strconv"
+	"strings"
+	"syscall"
+	"time"
+
+	"vitals/loader"
+	"vitals/probe"
+	"vitals/report"
+	"vitals/stats"
+	"vitals/tensor"
+)
+
+// dataOptions are the flags that say where the sample comes from.
+type dataOptions struct {
+	data    []string
+	labels  string
+	samples int
+	batch   int
+	mean    []float64
+	std     []float64
+	layout  string
+	seed    int64
+}
+
+// inputErr marks errors caused by the user's files or flags (exit code 2).
+type inputErr struct{ error }
+
+func (e inputErr) Unwrap() error { return e.error }
+
+func userErr(format string, args ...any) error { return inputErr{fmt.Errorf(format, args...)} }
+
+// loaded is one compiled model.
+type loaded struct {
+	model *loader.Model
+	plan  *probe.Plan
+}
+
+func loadAndCompile(path string, debug bool) (*loaded, error) {
+	m, err := loader.LoadModel(path)
+	if err != nil {
+		return nil, inputErr{err}
+	}
+	p, err := probe.Compile(m)
+	if err != nil {
+		return nil, inputErr{fmt.Errorf("compiling model %q: %w", path, err)}
+	}
+	p.Debug = debug
+	return &loaded{model: m, plan: p}, nil
+}
+
+// sampleFeed yields batches of named inputs plus the matching labels.
+type sampleFeed struct {
+	sources   map[string]loader.Source
+	order     []string
+	labels    []int64
+	synthetic bool
+	total     int // samples to read (after --samples), -1 unknown
+	done      int
+	batch     int
+}
+
+// openFeed matches --data to the model's inputs, checking shapes and dtypes up front.
+func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
+	f := &sampleFeed{sources: map[string]loader.Source{}, batch: o.batch, total: -1}
+	if o.batch <= 0 {
+		return nil, userErr("--batch must be positive, got %d", o.batch)
+	}
+	if len(g.Inputs) == 0 {
+		return nil, userErr("the model has no inputs to feed")
+	}
+	for _, in := range g.Inputs {
+		f.order = append(f.order, in.Name)
+	}
+	fail := func(err error) (*sampleFeed, error) {
+		f.Close()
+		return nil, err
+	}
+	if len(o.data) == 0 {
+		f.synthetic = true
+		n := o.samples
+		if n <= 0 {
+			n = 64
+		}
+		for i, in := range g.Inputs {
+			if in.Shape == nil {
+				return fail(userErr("input %q has no declared shape; synthetic input needs one: pass --data", in.Name))
+			}
+			if in.DType != tensor.Float32 {
+				return fail(userErr("input %q is %v; synthetic Gaussian input only fits float inputs: pass --data", in.Name, in.DType))
+			}
+			shape := append([]int{}, in.Shape[1:]...)
+			for j, d := range shape {
+				if d < 0 {
+					return fail(userErr("input %q has symbolic dimension %d (%s); synthetic input needs fixed sizes beyond the batch axis: pass --data", in.Name, j+1, probe.ShapeString(in)))
+				}
+			}
+			f.sources[in.Name] = loader.Synthetic(shape, n, o.seed+int64(i))
+		}
+	} else {
+		for _, spec := range o.data {
+			name, path, named := strings.Cut(spec, "=")
+			if !named {
+				path, name = spec, ""
+			}
+			if _, err := os.Stat(path); err != nil {
+				return fail(userErr("--data %q: %v", spec, err))
+			}
+			srcs, err := openData(g, name, path, o)
+			if err != nil {
+				return fail(inputErr{err})
+			}
+			for k, s := range srcs {
+				if _, dup := f.sources[k]; dup {
+					s.Close()
+					return fail(userErr("input %q is given twice in --data", k))
+				}
+				f.sources[k] = s
+			}
+		}
+		for _, in := range g.Inputs {
+			if f.sources[in.Name] == nil {
+				return fail(userErr("model input %q has no data: pass --data %s=PATH (the model's inputs: %s)", in.Name, in.Name, strings.Join(f.order, ", ")))
+			}
+		}
+		for name, s := range f.sources {
+			vi, ok := inputInfo(g, name)
+			if !ok {
+				return fail(userErr("--data names %q, which is not an input of the model (inputs: %s)", name, strings.Join(f.order, ", ")))
+			}
+			if err := checkSource(vi, s); err != nil {
+				return fail(inputErr{err})
+			}
+		}
+	}
+	// sample count: the smallest source, capped by --samples
+	for _, s := range f.sources {
+		if n := s.Len(); n >= 0 && (f.total < 0 || n < f.total) {
+			f.total = n
+		}
+	}
+	if o.samples > 0 && (f.total < 0 || o.samples < f.total) {
+		f.total = o.samples
+	}
+	for name, s := range f.sources {
+		if n := s.Len(); n >= 0 && f.total >= 0 && n != f.total && o.samples <= 0 {
+			return fail(userErr("input %q has %d samples but another input has %d; pass the same number of samples for every input", name, n, f.total))
+		}
+	}
+	if o.labels != "" {
+		lt, err := loader.ReadNpy(o.labels)
+		if err != nil {
+			return fail(inputErr{err})
+		}
+		if lt.DType != tensor.Int64 && lt.DType != tensor.Int32 && lt.DType != tensor.Uint8 {
+			return fail(userErr("--labels %q: want integer class ids, got %v", o.labels, lt.DType))
+		}
+		for _, v := range lt.Ints() {
+			f.labels = append(f.labels, int64(v))
+		}
+		if f.total >= 0 && len(f.labels) < f.total {
+			return fail(userErr("--labels %q has %d labels for %d samples", o.labels, len(f.labels), f.total))
+		}
+	}
+	return f, nil
+}
+
+func inputInfo(g *loader.Graph, name string) (loader.ValueInfo, bool) {
+	for _, in := range g.Inputs {
+		if in.Name == name {
+			return in, true
+		}
+	}
+	return loader.ValueInfo{}, false
+}
+
+// openData opens one --data path for the named input ("" = the single input, or npz keys).
+func openData(g *loader.Graph, name, path string, o dataOptions) (map[string]loader.Source, error) {
+	fi, err := os.Stat(path)
+	if err != nil {
+		return nil, err
+	}
+	target := name
+	if target == "" {
+		if len(g.Inputs) == 1 {
+			target = g.Inputs[0].Name
+		}
+	}
+	if fi.IsDir() {
+		if target == "" {
+			return nil, fmt.Errorf("--data %q: a folder of images feeds one input; name it with INPUT=%s", path, path)
+		}
+		vi, _ := inputInfo(g, target)
+		if len(vi.Shape) != 4 {
+			return nil, fmt.Errorf("--data %q: input %q has shape %s; a folder of images needs a rank-4 image input", path, target, probe.ShapeString(vi))
+		}
+		opt := loader.ImageOptions{Layout: o.layout}
+		c, h, w := vi.Shape[1], vi.Shape[2], vi.Shape[3]
+		if o.layout == "nhwc" {
+			h, w, c = vi.Shape[1], vi.Shape[2], vi.Shape[3]
+		}
+		if c <= 0 || h <= 0 || w <= 0 {
+			return nil, fmt.Errorf("--data %q: input %q has symbolic image dimensions %s; cannot choose a resize target", path, target, probe.ShapeString(vi))
+		}
+		opt.Channels, opt.Height, opt.Width = c, h, w
+		for _, v := range o.mean {
+			opt.Mean = append(opt.Mean, float32(v))
+		}
+		for _, v := range o.std {
+			opt.Std = append(opt.Std, float32(v))
+		}
+		s, err := loader.OpenImages(path, opt)
+		if err != nil {
+			return nil, err
+		}
+		return map[string]loader.Source{target: s}, nil
+	}
+	if strings.EqualFold(filepath_ext(path), ".npz") && name == "" {
+		m, err := loader.OpenNpz(path)
+		if err != nil {
+			return nil, err
+		}
+		if len(m) == 1 && target != "" {
+			for _, s := range m {
+				return map[string]loader.Source{target: s}, nil
+			}
+		}
+		return m, nil
+	}
+	if target == "" {
+		return nil, fmt.Errorf("--data %q: the model has %d inputs; pass one file per input as INPUT=PATH", path, len(g.Inputs))
+	}
+	s, err := loader.OpenFile(path)
+	if err != nil {
+		return nil, err
+	}
+	return map[string]loader.Source{target: s}, nil
+}
+
+func filepath_ext(p string) string {
+	i := strings.LastIndexByte(p, '.')
+	if i < 0 || strings.ContainsAny(p[i:], "/\\") {
+		return ""
+	}
+	return p[i:]
+}
+
+// checkSource compares a source's per-sample shape and dtype with the model input.
+func checkSource(vi loader.ValueInfo, s loader.Source) error {
+	want := vi.DType
+	if want == tensor.Float16 || want == tensor.BFloat16 {
+		want = tensor.Float32
+	}
+	if vi.HasType && s.DType() != want {
+		// float64 samples for a float32 input are converted; other mismatches are errors
+		if !(want == tensor.Float32 && s.DType() == tensor.Float64) && !(want == tensor.Int64 && s.DType() == tensor.Int32) {
+			return fmt.Errorf("input %q: model expects %v, %q holds %v", vi.Name, vi.DType, s.Name(), s.DType())
+		}
+	}
+	if vi.Shape == nil {
+		return nil
+	}
+	got := append([]int{-1}, s.SampleShape()...)
+	if len(got) != len(vi.Shape) {
+		return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v (with the sample axis first: %v)", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape(), got)
+	}
+	for i := 1; i < len(got); i++ {
+		if vi.Shape[i] >= 0 && vi.Shape[i] != got[i] {
+			return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape())
+		}
+	}
+	return nil
+}
+
+// next returns the next batch (nil at the end) and its labels.
+func (f *sampleFeed) next(g *loader.Graph) (map[string]*tensor.Tensor, []int64, error) {
+	n := f.batch
+	if f.total >= 0 {
+		n = min(n, f.total-f.done)
+		if n <= 0 {
+			return nil, nil, nil
+		}
+	}
+	batch := map[string]*tensor.Tensor{}
+	k := -1
+	for _, name := range f.order {
+		t, err := f.sources[name].Next(n)
+		if errors.Is(err, io.EOF) {
+			return nil, nil, nil
+		}
+		if err != nil {
+			return nil, nil, inputErr{err}
+		}
+		t = convertFor(g, name, t)
+		if k >= 0 && t.Shape[0] != k {
+			return nil, nil, userErr("input %q ran out of samples at %d while others continue", name, f.done+t.Shape[0])
+		}
+		k = t.Shape[0]
+		batch[name] = t
+	}
+	// a fixed batch dimension in the model: only full batches fit
+	var labels []int64
+	if f.labels != nil {
+		if f.done+k > len(f.labels) {
+			return nil, nil, userErr("--labels has %d labels, the sample has more", len(f.labels))
+		}
+		labels = f.labels[f.done : f.done+k]
+	}
+	f.done += k
+	return batch, labels, nil
+}
+
+// convertFor widens float64 samples to float32 and int32 to int64 when the model wants that.
+func convertFor(g *loader.Graph, name string, t *tensor.Tensor) *tensor.Tensor {
+	vi, _ := inputInfo(g, name)
+	switch d := t.Data.(type) {
+	case []float64:
+		if vi.DType == tensor.Float32 {
+			out := make([]float32, len(d))
+			for i, v := range d {
+				out[i] = float32(v)
+			}
+			return tensor.From(out, t.Shape...)
+		}
+	case []int32:
+		if vi.DType == tensor.Int64 {
+			out := make([]int64, len(d))
+			for i, v := range d {
+				out[i] = int64(v)
+			}
+			return tensor.From(out, t.Shape...)
+		}
+	}
+	return t
+}
+
+func (f *sampleFeed) Close() {
+	for _, s := range f.sources {
+		s.Close()
+	}
+}
+
+// interrupted is closed on SIGINT/SIGTERM; runs stop between batches.
+var interrupted = make(chan struct{})
+
+func watchSignals() {
+	ch := make(chan os.Signal, 1)
+	signal.Notify(ch, os.Interrupt, syscall.SIGTERM)
+	go func() {
+		<-ch
+		close(interrupted)
+		<-ch
+		os.Exit(130)
+	}()
+}
+
+var errInterrupted = errors.New("interrupted")
+
+// progress prints "batch i, n samples" on stderr when it is a terminal and the run exceeds ~2 s.
+type progress struct {
+	start time.Time
+	tty   bool
+	shown bool
+	total int
+}
+
+func newProgress(total int) *progress {
+	fi, err := os.Stderr.Stat()
+	return &progress{start: time.Now(), tty: err == nil && fi.Mode()&os.ModeCharDevice != 0, total: total}
+}
+
+func (p *progress) update(done int) {
+	if !p.tty || time.Since(p.start) < 2*time.Second {
+		return
+	}
+	p.shown = true
+	el := time.Since(p.start).Seconds()
+	if p.total > 0 {
+		fmt.Fprintf(os.Stderr, "\rvitals: %d/%d samples (%.0f%%), %.1f s", done, p.total, 100*float64(done)/float64(p.total), el)
+	} else {
+		fmt.Fprintf(os.Stderr, "\rvitals: %d samples, %.1f s", done, el)
+	}
+}
+
+func (p *progress) finish() {
+	if p.shown {
+		fmt.Fprintln(os.Stderr)
+	}
+}
+
+// analyse runs one model over the feed and returns its collected statistics.
+func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each func(outs map[string]*tensor.Tensor, k int) error) (*stats.Collected, error) {
+	c := stats.NewCollector(l.model, l.plan)
+	pg := newProgress(feed.total)
+	defer pg.finish()
+	for {
+		select {
+		case <-interrupted:
+			return nil, errInterrupted
+		default:
+		}
+		batch, labels, err := feed.next(l.model.Graph)
+		if err != nil {
+			return nil, err
+		}
+		if batch == nil {
+			break
+		}
+		c.AddInputs(batch)
+		outs, err := l.plan.Run(batch, c.Hook)
+		if err != nil {
+			return nil, fmt.Errorf("running %q on samples %d–%d: %w", l.model.Path, feed.done-batchLen(batch), feed.done-1, err)
+		}
+		c.AddOutputs(outs, labels)
+		c.Samples += batchLen(batch)
+		if each != nil {
+			if err := each(outs, batchLen(batch)); err != nil {
+				return nil, err
+			}
+		}
+		pg.update(feed.done)
+	}
+	if c.Samples == 0 {
+		return nil, userErr("the sample is empty: no batches to run")
+	}
+	src := "file"
+	if feed.synthetic {
+		src = "synthetic"
+	}
+	col := c.Finish(src)
+	for _, in := range col.Report.Input.PerInput {
+		_ = in
+	}
+	if err := stats.Run(col, stats.Checks, thresholds); err != nil {
+		return nil, inputErr{err}
+	}
+	return col, nil
+}
+
+func batchLen(b map[string]*tensor.Tensor) int {
+	for _, t := range b {
+		if t.Rank() > 0 {
+			return t.Shape[0]
+		}
+	}
+	return 0
+}
+
+// parseFloats parses "0.485,0.456,0.406".
+func parseFloats(s string) ([]float64, error) {
+	if s == "" {
+		return nil, nil
+	}
+	var out []float64
+	for _, p := range strings.Split(s, ",") {
+		v, err := strconv.ParseFloat(strings.TrimSpace(p), 64)
+		if err != nil || math.IsNaN(v) {
+			return nil, fmt.Errorf("%q is not a number", p)
+		}
+		out = append(out, v)
+	}
+	return out, nil
+}
+
+var _ = report.Caution

@@ -1,0 +1,170 @@
+package report
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"strings"
+	"text/tabwriter"
+)
+
+// TextOptions control the terminal writer.
+type TextOptions struct {
+	Color bool // ANSI colour for severities (only when stdout is a terminal)
+	All   bool // every ranked layer instead of the top 10
+}
+
+// WriteJSON writes the report as indented JSON (the design.md contract).
+func WriteJSON(w io.Writer, r *Report) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(r)
+}
+
+// Verdict is the one-line summary: counts of errors and warnings and the layers they fall on.
+func Verdict(r *Report) string {
+	var e, wn int
+	nodes := map[string]bool{}
+	for _, f := range r.Findings {
+		switch f.Severity {
+		case Error:
+			e++
+			nodes[f.Node] = true
+		case Warning:
+			wn++
+			nodes[f.Node] = true
+		}
+	}
+	if e+wn == 0 {
+		return "No findings at warning level or above."
+	}
+	return fmt.Sprintf("%s, %s on %d layer(s).", plural(e, "error"), plural(wn, "warning"), len(nodes))
+}
+
+func plural(n int, word string) string {
+	if n == 1 {
+		return "1 " + word
+	}
+	return fmt.Sprintf("%d %ss", n, word)
+}
+
+// SourceLine says what the statistics describe (first line of every report).
+func SourceLine(r *Report) string {
+	if r.Input.Source == "synthetic" {
+		return fmt.Sprintf("NOTE: no --data given: these statistics describe the model's response to %d samples of seeded unit-Gaussian noise, not real data.", r.Input.Samples)
+	}
+	var names []string
+	for _, in := range r.Input.PerInput {
+		n := in.Name
+		if in.Path != "" {
+			n += " ← " + in.Path
+		}
+		names = append(names, n)
+	}
+	return fmt.Sprintf("Statistics over %d samples (%s).", r.Input.Samples, strings.Join(names, "; "))
+}
+
+// F formats an optional number compactly ("–" when unknown).
+func F(p *float64) string {
+	if p == nil {
+		return "–"
+	}
+	v := *p
+	if v == 0 {
+		return "0"
+	}
+	a := math.Abs(v)
+	if a >= 1e4 || a < 1e-3 {
+		return fmt.Sprintf("%.2e", v)
+	}
+	return fmt.Sprintf("%.4g", v)
+}
+
+// P formats an optional fraction as a percentage ("–" when unknown).
+func P(p *float64) string {
+	if p == nil {
+		return "–"
+	}
+	return fmt.Sprintf("%.1f%%", 100**p)
+}
+
+func colour(on bool, s Severity, text string) string {
+	if !on {
+		return text
+	}
+	switch s {
+	case Error:
+		return "\x1b[1;31m" + text + "\x1b[0m"
+	case Warning:
+		return "\x1b[33m" + text + "\x1b[0m"
+	}
+	return "\x1b[36m" + text + "\x1b[0m"
+}
+
+// WriteText writes the terminal report: source line, verdict, ranked
+// findings (top 10 layers unless All), output summary, the per-layer table in
+// depth order, and the caution.
+func WriteText(w io.Writer, r *Report, o TextOptions) error {
+	b := &strings.Builder{}
+	fmt.Fprintln(b, SourceLine(r))
+	fmt.Fprintf(b, "Model %s: opset %d, %d nodes, %d parameters, producer %q.\n", r.Model.Path, r.Model.Opset, r.Model.Nodes, r.Model.Parameters, r.Model.Producer)
+	fmt.Fprintln(b)
+	fmt.Fprintln(b, "Verdict: "+Verdict(r))
+	if len(r.Ranking) > 0 {
+		fmt.Fprintln(b)
+		fmt.Fprintln(b, "Unhealthy layers, worst first:")
+		limit := len(r.Ranking)
+		if !o.All && limit > 10 {
+			limit = 10
+		}
+		for i, rk := range r.Ranking[:limit] {
+			fmt.Fprintf(b, "%2d. %s  (score %.1f)\n", i+1, rk.Node, rk.Score)
+			for _, f := range r.Findings {
+				if f.Node != rk.Node {
+					continue
+				}
+				fmt.Fprintf(b, "    %s %s: %s\n", colour(o.Color, f.Severity, strings.ToUpper(string(f.Severity))), f.Check, f.Message)
+			}
+		}
+		if limit < len(r.Ranking) {
+			fmt.Fprintf(b, "    … %d more layers with findings (--all shows every one)\n", len(r.Ranking)-limit)
+		}
+	}
+	var infos []Finding
+	for _, f := range r.Findings {
+		if f.Severity == Info {
+			ranked := false
+			for _, rk := range r.Ranking {
+				if rk.Node == f.Node {
+					ranked = true
+				}
+			}
+			if !ranked {
+				infos = append(infos, f)
+			}
+		}
+	}
+	if len(infos) > 0 {
+		fmt.Fprintln(b)
+		fmt.Fprintln(b, "Notes:")
+		for _, f := range infos {
+			fmt.Fprintf(b, "    %s %s (%s): %s\n", colour(o.Color, Info, "INFO"), f.Check, f.Node, f.Message)
+		}
+	}
+	fmt.Fprintln(b)
+	fmt.Fprintln(b, "Layers in depth order:")
+	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "depth\tnode\top\tshape\tmean\tstd\tmin\tmax\tzero\tdead\tsaturated\tnon-finite\t")
+	for _, l := range r.Layers {
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%v\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t\n", l.Depth, l.Node, l.Op, l.Shape,
+			F(l.Mean), F(l.Std), F(l.Min), F(l.Max), P(l.ZeroFraction), P(l.DeadFraction), P(l.SaturatedFraction), l.Nonfinite)
+	}
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	fmt.Fprintln(b)
+	fmt.Fprintln(b, Caution)
+	_, err := io.WriteString(w, b.String())
+	return err
+}
