@@ -1,0 +1,391 @@
+package probe
+
+import (
+	"fmt"
+	"math"
+
+	"vitals/tensor"
+)
+
+// Pooling over the spatial axes of N×C×D1×…×Dn tensors: MaxPool (with the
+// optional Indices output), AveragePool, LpPool and their Global forms.
+
+func init() {
+	reg("MaxPool", maxPoolKernel, 1, 8, 10, 11, 12)
+	reg("AveragePool", avgPoolKernel, 1, 7, 10, 11, 19)
+	reg("LpPool", lpPoolKernel, 1, 2, 11, 18)
+	reg("GlobalAveragePool", globalPoolKernel(poolAvg), 1)
+	reg("GlobalMaxPool", globalPoolKernel(poolMax), 1)
+	reg("GlobalLpPool", globalPoolKernel(poolLp), 1, 2)
+}
+
+type poolKind int
+
+const (
+	poolMax poolKind = iota
+	poolAvg
+	poolLp
+)
+
+// poolWindows lists, for every output position, the in-image offsets of its
+// window taps (offs[start[p]:start[p+1]]) and how many taps fall inside the
+// padded input (for count_include_pad). It depends only on the geometry and
+// is shared by every N×C plane.
+type poolWindows struct {
+	start   []int
+	offs    []int
+	padded  []int
+	inSize  int
+	outSize int
+}
+
+func poolPrepare(c *Call, x *tensor.Tensor, ceilAllowed bool) (convGeom, *poolWindows, error) {
+	if x.Rank() < 3 {
+		return convGeom{}, nil, fmt.Errorf("pooling needs an input of rank ≥ 3, got %v", x.Shape)
+	}
+	nd := x.Rank() - 2
+	g, err := convAttrs(c, nd, nil)
+	if err != nil {
+		return g, nil, err
+	}
+	g.in = x.Shape[2:]
+	g.clonePads()
+	ceil := ceilAllowed && c.Int("ceil_mode", 0) != 0
+	if err := convForwardOut(&g, c.Str("auto_pad", "NOTSET"), ceil); err != nil {
+		return g, nil, err
+	}
+	if _, err := tensor.NumElements(append(append([]int{}, x.Shape[:2]...), g.out...)); err != nil {
+		return g, nil, err
+	}
+	return g, poolWindowsOf(&g), nil
+}
+
+func poolWindowsOf(g *convGeom) *poolWindows {
+	nd := len(g.in)
+	w := &poolWindows{inSize: 1, outSize: 1}
+	K := 1
+	for d := 0; d < nd; d++ {
+		w.inSize *= g.in[d]
+		w.outSize *= g.out[d]
+		K *= g.k[d]
+	}
+	inStr := tensor.Strides(g.in)
+	w.start = make([]int, 0, w.outSize+1)
+	w.offs = make([]int, 0, w.outSize*K)
+	w.padded = make([]int, w.outSize)
+	op := make([]int, nd)
+	kk := make([]int, nd)
+	for p := 0; p < w.outSize; p++ {
+		w.start = append(w.start, len(w.offs))
+		// taps inside the padded extent count for count_include_pad
+		cnt := 1
+		for d := 0; d < nd; d++ {
+			n := 0
+			for t := 0; t < g.k[d]; t++ {
+				x := op[d]*g.strides[d] - g.padBeg[d] + t*g.dil[d]
+				if x < g.in[d]+g.padEnd[d] {
+					n++
+				}
+			}
+			cnt *= n
+		}
+		w.padded[p] = cnt
+		for i := range kk {
+			kk[i] = 0
+		}
+		for t := 0; t < K; t++ {
+			off, ok := 0, true
+			for d := 0; d < nd; d++ {
+				x := op[d]*g.strides[d] - g.padBeg[d] + kk[d]*g.dil[d]
+				if x < 0 || x >= g.in[d] {
+					ok = false
+					break
+				}
+				off += x * inStr[d]
+			}
+			if ok {
+				w.offs = append(w.offs, off)
+			}
+			for d := nd - 1; d >= 0; d-- {
+				kk[d]++
+				if kk[d] < g.k[d] {
+					break
+				}
+				kk[d] = 0
+			}
+		}
+		for d := nd - 1; d >= 0; d-- {
+			op[d]++
+			if op[d] < g.out[d] {
+				break
+			}
+			op[d] = 0
+		}
+	}
+	w.start = append(w.start, len(w.offs))
+	return w
+}
+
+// maxPoolKernel: Y[n,c,o] = max over the window taps inside X; Indices holds
+// the flat index of the maximum in X (spatial part column-major when
+// storage_order = 1).
+func maxPoolKernel(c *Call) error {
+	if err := c.Need(1); err != nil {
+		return err
+	}
+	x := c.In[0]
+	g, w, err := poolPrepare(c, x, true)
+	if err != nil {
+		return err
+	}
+	outShape := append([]int{x.Shape[0], x.Shape[1]}, g.out...)
+	out := tensor.New(x.DType, outShape)
+	var idx []int64
+	if c.WantOut(1) {
+		idx = make([]int64, out.Size())
+	}
+	planes := x.Shape[0] * x.Shape[1]
+	switch xd := x.Data.(type) {
+	case []float32:
+		poolMaxRun(out.F32(), idx, xd, planes, w)
+	case []float64:
+		poolMaxRun(out.F64(), idx, xd, planes, w)
+	case []int8:
+		poolMaxRun(out.Data.([]int8), idx, xd, planes, w)
+	case []uint8:
+		poolMaxRun(out.Data.([]uint8), idx, xd, planes, w)
+	case []int32:
+		poolMaxRun(out.Data.([]int32), idx, xd, planes, w)
+	case []int64:
+		poolMaxRun(out.I64(), idx, xd, planes, w)
+	default:
+		return fmt.Errorf("MaxPool does not support %v", x.DType)
+	}
+	c.Set(0, out)
+	if idx != nil {
+		if c.Int("storage_order", 0) == 1 {
+			poolColumnMajor(idx, g.in)
+		}
+		c.Set(1, tensor.From(idx, outShape...))
+	}
+	return nil
+}
+
+func poolMaxRun[T Number](y []T, idx []int64, x []T, planes int, w *poolWindows) {
+	for pl := 0; pl < planes; pl++ {
+		xp := x[pl*w.inSize : (pl+1)*w.inSize]
+		yp := y[pl*w.outSize : (pl+1)*w.outSize]
+		for p := range yp {
+			offs := w.offs[w.start[p]:w.start[p+1]]
+			if len(offs) == 0 {
+				continue // window entirely in the padding: 0
+			}
+			best, at := xp[offs[0]], offs[0]
+			for _, o := range offs[1:] {
+				if v := xp[o]; v > best || v != v && best == best {
+					best, at = v, o
+				}
+			}
+			yp[p] = best
+			if idx != nil {
+				idx[pl*w.outSize+p] = int64(pl*w.inSize + at)
+			}
+		}
+	}
+}
+
+// poolColumnMajor rewrites flat row-major indices so their spatial part is
+// column-major (the plane offset stays as is).
+func poolColumnMajor(idx []int64, in []int) {
+	size := 1
+	for _, d := range in {
+		size *= d
+	}
+	nd := len(in)
+	co := make([]int, nd)
+	for i, v := range idx {
+		plane, r := int(v)/size, int(v)%size
+		for d := nd - 1; d >= 0; d-- {
+			co[d] = r % in[d]
+			r /= in[d]
+		}
+		cm, mul := 0, 1
+		for d := 0; d < nd; d++ {
+			cm += co[d] * mul
+			mul *= in[d]
+		}
+		idx[i] = int64(plane*size + cm)
+	}
+}
+
+// avgPoolKernel: Y = Σ window / count, count = taps inside X, or taps inside
+// the padded input with count_include_pad = 1.
+func avgPoolKernel(c *Call) error {
+	if err := c.Need(1); err != nil {
+		return err
+	}
+	x := c.In[0]
+	g, w, err := poolPrepare(c, x, c.Opset >= 10)
+	if err != nil {
+		return err
+	}
+	out := tensor.New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
+	planes := x.Shape[0] * x.Shape[1]
+	incl := c.Int("count_include_pad", 0) != 0
+	switch xd := x.Data.(type) {
+	case []float32:
+		poolAvgRun(out.F32(), xd, planes, w, incl)
+	case []float64:
+		poolAvgRun(out.F64(), xd, planes, w, incl)
+	default:
+		return fmt.Errorf("AveragePool does not support %v", x.DType)
+	}
+	c.Set(0, out)
+	return nil
+}
+
+func poolAvgRun[T Float](y, x []T, planes int, w *poolWindows, includePad bool) {
+	for pl := 0; pl < planes; pl++ {
+		xp := x[pl*w.inSize : (pl+1)*w.inSize]
+		yp := y[pl*w.outSize : (pl+1)*w.outSize]
+		for p := range yp {
+			offs := w.offs[w.start[p]:w.start[p+1]]
+			var s T
+			for _, o := range offs {
+				s += xp[o]
+			}
+			n := len(offs)
+			if includePad {
+				n = w.padded[p]
+			}
+			if n == 0 {
+				yp[p] = T(math.NaN())
+				continue
+			}
+			yp[p] = s / T(n)
+		}
+	}
+}
+
+// lpPoolKernel: Y = (Σ_window |x|^p)^(1/p), p from the attribute (default 2).
+func lpPoolKernel(c *Call) error {
+	if err := c.Need(1); err != nil {
+		return err
+	}
+	x := c.In[0]
+	g, w, err := poolPrepare(c, x, c.Opset >= 18)
+	if err != nil {
+		return err
+	}
+	p := float64(c.Int("p", 2))
+	if c.Opset < 2 {
+		p = float64(c.Float("p", 2))
+	}
+	out := tensor.New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
+	planes := x.Shape[0] * x.Shape[1]
+	switch xd := x.Data.(type) {
+	case []float32:
+		poolLpRun(out.F32(), xd, planes, w, p)
+	case []float64:
+		poolLpRun(out.F64(), xd, planes, w, p)
+	default:
+		return fmt.Errorf("LpPool does not support %v", x.DType)
+	}
+	c.Set(0, out)
+	return nil
+}
+
+func poolLpRun[T Float](y, x []T, planes int, w *poolWindows, p float64) {
+	for pl := 0; pl < planes; pl++ {
+		xp := x[pl*w.inSize : (pl+1)*w.inSize]
+		yp := y[pl*w.outSize : (pl+1)*w.outSize]
+		for q := range yp {
+			var s float64
+			for _, o := range w.offs[w.start[q]:w.start[q+1]] {
+				s += poolPow(math.Abs(float64(xp[o])), p)
+			}
+			yp[q] = T(poolPow(s, 1/p))
+		}
+	}
+}
+
+// poolPow avoids math.Pow for the common p = 1 and p = 2.
+func poolPow(v, p float64) float64 {
+	switch p {
+	case 1:
+		return v
+	case 2:
+		return v * v
+	case 0.5:
+		return math.Sqrt(v)
+	}
+	return math.Pow(v, p)
+}
+
+// globalPoolKernel reduces every spatial axis: Y[n,c,1,…,1].
+func globalPoolKernel(kind poolKind) Kernel {
+	return func(c *Call) error {
+		if err := c.Need(1); err != nil {
+			return err
+		}
+		x := c.In[0]
+		if x.Rank() < 2 {
+			return fmt.Errorf("global pooling needs an input of rank ≥ 2, got %v", x.Shape)
+		}
+		outShape := []int{x.Shape[0], x.Shape[1]}
+		for range x.Shape[2:] {
+			outShape = append(outShape, 1)
+		}
+		out := tensor.New(x.DType, outShape)
+		planes := x.Shape[0] * x.Shape[1]
+		p := float64(c.Int("p", 2))
+		if c.Opset < 2 {
+			p = float64(c.Float("p", 2))
+		}
+		switch xd := x.Data.(type) {
+		case []float32:
+			poolGlobalRun(out.F32(), xd, planes, kind, p)
+		case []float64:
+			poolGlobalRun(out.F64(), xd, planes, kind, p)
+		default:
+			return fmt.Errorf("global pooling does not support %v", x.DType)
+		}
+		c.Set(0, out)
+		return nil
+	}
+}
+
+func poolGlobalRun[T Float](y, x []T, planes int, kind poolKind, p float64) {
+	if planes == 0 {
+		return
+	}
+	size := len(x) / planes
+	for pl := range y {
+		xp := x[pl*size : (pl+1)*size]
+		switch kind {
+		case poolMax:
+			if size == 0 {
+				continue
+			}
+			best := xp[0]
+			for _, v := range xp[1:] {
+				if v > best || v != v {
+					best = v
+				}
+			}
+			y[pl] = best
+		case poolAvg:
+			var s float64
+			for _, v := range xp {
+				s += float64(v)
+			}
+			y[pl] = T(s / float64(size))
+		case poolLp:
+			var s float64
+			for _, v := range xp {
+				s += poolPow(math.Abs(float64(v)), p)
+			}
+			y[pl] = T(poolPow(s, 1/p))
+		}
+	}
+}
