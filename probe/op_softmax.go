@@ -1,0 +1,121 @@
+package probe
+
+import (
+	"fmt"
+	"math"
+
+	"vitals/tensor"
+)
+
+// Softmax family: Softmax, LogSoftmax, Hardmax.
+//
+// Before opset 13 the input is coerced to 2-D [∏dims[:axis], ∏dims[axis:]]
+// (default axis 1) and the operator works on each row; from opset 13 it works
+// along the single axis (default −1).
+
+func init() {
+	reg("Softmax", softmaxKernel(smSoftmax), 1, 11, 13)
+	reg("LogSoftmax", softmaxKernel(smLogSoftmax), 1, 11, 13)
+	reg("Hardmax", softmaxKernel(smHardmax), 1, 11, 13)
+}
+
+type smKind int
+
+const (
+	smSoftmax    smKind = iota // y = exp(x−max)/Σexp(x−max)
+	smLogSoftmax               // y = (x−max) − log Σexp(x−max)
+	smHardmax                  // y = 1 at the first maximum, 0 elsewhere
+)
+
+func softmaxKernel(kind smKind) Kernel {
+	return func(c *Call) error {
+		if err := c.Need(1); err != nil {
+			return err
+		}
+		x := c.In[0]
+		if err := normCheckFloat(x); err != nil {
+			return err
+		}
+		legacy := c.Opset < 13
+		def := int64(-1)
+		if legacy {
+			def = 1
+		}
+		rank := x.Rank()
+		if rank == 0 {
+			return fmt.Errorf("input must have rank ≥ 1, got a scalar")
+		}
+		axis, err := NormAxis(int(c.Int("axis", def)), rank)
+		if err != nil {
+			return err
+		}
+		outer, m, inner := 1, 1, 1
+		for _, d := range x.Shape[:axis] {
+			outer *= d
+		}
+		if legacy {
+			for _, d := range x.Shape[axis:] {
+				m *= d
+			}
+		} else {
+			m = x.Shape[axis]
+			for _, d := range x.Shape[axis+1:] {
+				inner *= d
+			}
+		}
+		y := tensor.New(x.DType, x.Shape)
+		switch d := x.Data.(type) {
+		case []float32:
+			smLoop(kind, y.F32(), d, outer, m, inner)
+		case []float64:
+			smLoop(kind, y.F64(), d, outer, m, inner)
+		}
+		c.Set(0, y)
+		return nil
+	}
+}
+
+// smLoop applies the operator along the middle axis of data laid out as [outer, m, inner].
+func smLoop[T Float](kind smKind, y, x []T, outer, m, inner int) {
+	if m == 0 {
+		return
+	}
+	for o := 0; o < outer; o++ {
+		for j := 0; j < inner; j++ {
+			base := o*m*inner + j
+			mx, arg := x[base], 0
+			for k := 1; k < m; k++ {
+				if v := x[base+k*inner]; v > mx {
+					mx, arg = v, k
+				}
+			}
+			switch kind {
+			case smHardmax:
+				for k := 0; k < m; k++ {
+					y[base+k*inner] = 0
+				}
+				y[base+arg*inner] = 1
+			case smSoftmax:
+				var s float64
+				for k := 0; k < m; k++ {
+					e := math.Exp(float64(x[base+k*inner] - mx))
+					y[base+k*inner] = T(e)
+					s += e
+				}
+				r := 1 / s
+				for k := 0; k < m; k++ {
+					y[base+k*inner] = T(float64(y[base+k*inner]) * r)
+				}
+			case smLogSoftmax:
+				var s float64
+				for k := 0; k < m; k++ {
+					s += math.Exp(float64(x[base+k*inner] - mx))
+				}
+				ls := math.Log(s)
+				for k := 0; k < m; k++ {
+					y[base+k*inner] = T(float64(x[base+k*inner]-mx) - ls)
+				}
+			}
+		}
+	}
+}
