@@ -1,7 +1,9 @@
 package loader
 
 import (
+	"archive/zip"
 	"bufio"
+	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -147,12 +149,17 @@ func expectEnd(r io.Reader) error {
 	var b [1]byte
 	n, err := io.ReadFull(r, b[:])
 	if n > 0 {
-		return fmt.Errorf("unexpected bytes after the array data")
+		return errors.New("unexpected bytes after the array data")
 	}
-	if err != io.EOF {
-		return err
+	switch {
+	case err == io.EOF:
+		return nil
+	case errors.Is(err, zip.ErrFormat):
+		return errors.New("member decompresses to more bytes than declared (zip bomb or corruption)")
+	case errors.Is(err, zip.ErrChecksum):
+		return errors.New("member fails its CRC-32 checksum")
 	}
-	return nil
+	return err
 }
 
 // npySource streams a C-order .npy array row block by row block.

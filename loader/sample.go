@@ -88,7 +88,10 @@ func (s *tensorSource) Name() string        { return s.name }
 func (s *tensorSource) SampleShape() []int  { return append([]int{}, s.t.Shape[1:]...) }
 func (s *tensorSource) DType() tensor.DType { return s.t.DType }
 func (s *tensorSource) Len() int            { return s.t.Shape[0] }
-func (s *tensorSource) Close() error        { s.t = &tensor.Tensor{DType: s.t.DType, Shape: s.t.Shape}; return nil }
+func (s *tensorSource) Close() error {
+	s.t = &tensor.Tensor{DType: s.t.DType, Shape: s.t.Shape}
+	return nil
+}
 
 func (s *tensorSource) Next(n int) (*tensor.Tensor, error) {
 	if n <= 0 {
