@@ -26,10 +26,10 @@ func shapeRun(op string, opset int, attrs map[string]*loader.Attr, nOut int, ins
 	return c.Out, nil
 }
 
-func ints(name string, v ...int64) *loader.Attr {
+func shapeIntsAttr(name string, v ...int64) *loader.Attr {
 	return &loader.Attr{Name: name, Kind: loader.AttrInts, Ints: v}
 }
-func str(name, v string) *loader.Attr { return &loader.Attr{Name: name, Kind: loader.AttrString, S: v} }
+func shapeStrAttr(name, v string) *loader.Attr { return &loader.Attr{Name: name, Kind: loader.AttrString, S: v} }
 
 // Data movement works on strings and bools, not only numbers.
 func TestShapeMovesStringsAndBools(t *testing.T) {
@@ -71,7 +71,7 @@ func TestShapePadWide(t *testing.T) {
 		{"edge", []float32{1, 1, 1, 1, 1, 2, 3, 3, 3, 3, 3}},
 	}
 	for _, tc := range cases {
-		out, err := shapeRun("Pad", 18, map[string]*loader.Attr{"mode": str("mode", tc.mode)}, 1, x, tensor.From([]int64{4, 4}, 2))
+		out, err := shapeRun("Pad", 18, map[string]*loader.Attr{"mode": shapeStrAttr("mode", tc.mode)}, 1, x, tensor.From([]int64{4, 4}, 2))
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -81,7 +81,7 @@ func TestShapePadWide(t *testing.T) {
 	}
 	// 2-D: the corners come from both axes; negative pads crop.
 	m := tensor.From([]float32{1, 2, 3, 4, 5, 6}, 2, 3)
-	out, err := shapeRun("Pad", 18, map[string]*loader.Attr{"mode": str("mode", "edge")}, 1, m, tensor.From([]int64{1, -1, 0, 1}, 4))
+	out, err := shapeRun("Pad", 18, map[string]*loader.Attr{"mode": shapeStrAttr("mode", "edge")}, 1, m, tensor.From([]int64{1, -1, 0, 1}, 4))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -104,12 +104,12 @@ func TestShapeBadInputs(t *testing.T) {
 		{"Gather", nil, []*tensor.Tensor{x, tensor.From([]int64{2}, 1)}},
 		{"GatherElements", map[string]*loader.Attr{"axis": {Name: "axis", I: 1}}, []*tensor.Tensor{x, tensor.From([]int64{0, 3}, 1, 2)}},
 		{"GatherND", nil, []*tensor.Tensor{x, tensor.From([]int64{0, 1, 2}, 1, 3)}},
-		{"Transpose", map[string]*loader.Attr{"perm": ints("perm", 0, 0)}, []*tensor.Tensor{x}},
+		{"Transpose", map[string]*loader.Attr{"perm": shapeIntsAttr("perm", 0, 0)}, []*tensor.Tensor{x}},
 		{"Squeeze", nil, []*tensor.Tensor{x, tensor.From([]int64{0}, 1)}},
 		{"Expand", nil, []*tensor.Tensor{x, tensor.From([]int64{4, 3}, 2)}},
 		{"Tile", nil, []*tensor.Tensor{x, tensor.From([]int64{2}, 1)}},
 		{"Slice", nil, []*tensor.Tensor{x, tensor.From([]int64{0}, 1), tensor.From([]int64{1}, 1), tensor.From([]int64{0}, 1), tensor.From([]int64{0}, 1)}},
-		{"Pad", map[string]*loader.Attr{"mode": str("mode", "reflect")}, []*tensor.Tensor{tensor.New(tensor.Float32, []int{0, 2}), tensor.From([]int64{1, 0, 1, 0}, 4)}},
+		{"Pad", map[string]*loader.Attr{"mode": shapeStrAttr("mode", "reflect")}, []*tensor.Tensor{tensor.New(tensor.Float32, []int{0, 2}), tensor.From([]int64{1, 0, 1, 0}, 4)}},
 		{"Range", nil, []*tensor.Tensor{tensor.From([]float32{0}), tensor.From([]float32{1}), tensor.From([]float32{0})}},
 		{"TopK", nil, []*tensor.Tensor{x, tensor.From([]int64{4}, 1)}},
 		{"ConstantOfShape", nil, []*tensor.Tensor{tensor.From([]int64{-1}, 1)}},
