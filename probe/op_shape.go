@@ -437,12 +437,10 @@ func rangeFill[T Number](c *Call, start, limit, delta T) error {
 		return fmt.Errorf("delta is zero")
 	}
 	n := math.Ceil((float64(limit) - float64(start)) / float64(delta))
-	if n < 0 {
-		n = 0
+	if math.IsNaN(n) || n > tensor.MaxElements {
+		return fmt.Errorf("range from %v to %v by %v has no valid length", start, limit, delta)
 	}
-	if n > tensor.MaxElements {
-		return fmt.Errorf("range of %g elements is too large", n)
-	}
+	n = max(n, 0)
 	out := make([]T, int(n))
 	v := start
 	for i := range out {
@@ -465,6 +463,9 @@ func eyeLikeKernel(c *Call) error {
 	dt := x.DType
 	if c.Has("dtype") {
 		dt = tensor.DType(c.Int("dtype", 0))
+	}
+	if dt == tensor.Float16 || dt == tensor.BFloat16 {
+		dt = tensor.Float32 // half types are computed widened, as on load
 	}
 	if !dt.Supported() {
 		return fmt.Errorf("unsupported dtype %v", dt)

@@ -19,6 +19,10 @@ type shapeMover interface {
 	take(dst, src any, offs []int)
 	// put sets dst[offs[i]] = src[i].
 	put(dst, src any, offs []int)
+	// putAt sets dst[o] = src[at] for every o in offs.
+	putAt(dst, src any, at int, offs []int)
+	// blocks copies block i of size n from src[offs[i]:] to dst[i·n:].
+	blocks(dst, src any, offs []int, n int)
 	// fill sets every element of dst to src[at].
 	fill(dst, src any, at int)
 	// nonzero lists the flat positions of src whose value is not the zero value.
@@ -75,6 +79,26 @@ func (shapeMoverT[T]) put(dst, src any, offs []int) {
 	d, s := dst.([]T), src.([]T)
 	for i, o := range offs {
 		d[o] = s[i]
+	}
+}
+
+func (shapeMoverT[T]) putAt(dst, src any, at int, offs []int) {
+	d, v := dst.([]T), src.([]T)[at]
+	for _, o := range offs {
+		d[o] = v
+	}
+}
+
+func (shapeMoverT[T]) blocks(dst, src any, offs []int, n int) {
+	d, s := dst.([]T), src.([]T)
+	if n == 1 {
+		for i, o := range offs {
+			d[i] = s[o]
+		}
+		return
+	}
+	for i, o := range offs {
+		copy(d[i*n:(i+1)*n], s[o:o+n])
 	}
 }
 
