@@ -221,48 +221,56 @@ func convKernel(c *Call) error {
 		return err
 	}
 	x, w, b := c.In[0], c.In[1], c.Input(2)
+	var out *tensor.Tensor
+	var err error
 	switch x.Data.(type) {
 	case []float32:
-		return convRun[float32](c, x, w, b)
+		out, err = convRun[float32](c, x, w, b)
 	case []float64:
-		return convRun[float64](c, x, w, b)
+		out, err = convRun[float64](c, x, w, b)
+	default:
+		return fmt.Errorf("Conv does not support %v", x.DType)
 	}
-	return fmt.Errorf("Conv does not support %v", x.DType)
+	if err != nil {
+		return err
+	}
+	c.Set(0, out)
+	return nil
 }
 
-func convRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
+func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	if x.Rank() < 3 || w.Rank() != x.Rank() {
-		return fmt.Errorf("Conv needs X of rank ≥ 3 and W of the same rank, got %v and %v", x.Shape, w.Shape)
+		return nil, fmt.Errorf("Conv needs X of rank ≥ 3 and W of the same rank, got %v and %v", x.Shape, w.Shape)
 	}
 	if w.DType != x.DType || b != nil && b.DType != x.DType {
-		return fmt.Errorf("input types differ")
+		return nil, fmt.Errorf("input types differ")
 	}
 	nd := x.Rank() - 2
 	N, C, M := x.Shape[0], x.Shape[1], w.Shape[0]
 	group := int(c.Int("group", 1))
 	if group < 1 || C%group != 0 || M%group != 0 || w.Shape[1]*group != C {
-		return fmt.Errorf("X %v, W %v do not fit group %d", x.Shape, w.Shape, group)
+		return nil, fmt.Errorf("X %v, W %v do not fit group %d", x.Shape, w.Shape, group)
 	}
 	if b != nil && b.Size() != M {
-		return fmt.Errorf("bias of shape %v, want %d values", b.Shape, M)
+		return nil, fmt.Errorf("bias of shape %v, want %d values", b.Shape, M)
 	}
 	g, err := convAttrs(c, nd, w.Shape[2:])
 	if err != nil {
-		return err
+		return nil, err
 	}
 	for i := range g.k {
 		if g.k[i] != w.Shape[2+i] {
-			return fmt.Errorf("kernel_shape %v does not match W %v", g.k, w.Shape)
+			return nil, fmt.Errorf("kernel_shape %v does not match W %v", g.k, w.Shape)
 		}
 	}
 	g.in = x.Shape[2:]
 	g.clonePads()
 	if err := convForwardOut(&g, c.Str("auto_pad", "NOTSET"), false); err != nil {
-		return err
+		return nil, err
 	}
 	outShape := append([]int{N, M}, g.out...)
 	if _, err := tensor.NumElements(outShape); err != nil {
-		return err
+		return nil, err
 	}
 	out := tensor.New(x.DType, outShape)
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
@@ -281,7 +289,7 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	var col []T
 	if !direct {
 		if _, err := tensor.NumElements([]int{Cg * K, P}); err != nil {
-			return err
+			return nil, err
 		}
 		col = make([]T, Cg*K*P)
 	}
@@ -300,8 +308,7 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	if b != nil {
 		convAddBias(yd, b.Data.([]T), N, M, P)
 	}
-	c.Set(0, out)
-	return nil
+	return out, nil
 }
 
 func convAddBias[T Number](y, bias []T, n, m, p int) {
