@@ -157,3 +157,49 @@ func TestConvChunked(t *testing.T) {
 		}
 	}
 }
+
+// TestEinsumFastPath compares the GEMM path (float32) with the general loop
+// (int64 inputs never take the GEMM path) on integer-valued data.
+func TestEinsumFastPath(t *testing.T) {
+	r := rand.New(rand.NewSource(5))
+	cases := []struct {
+		eq     string
+		shapes [][]int
+	}{
+		{"ij,jk->ki", [][]int{{3, 4}, {4, 5}}},
+		{"bij,bjk->bik", [][]int{{2, 3, 4}, {2, 4, 5}}},
+		{"ab,ab->", [][]int{{3, 4}, {3, 4}}},
+		{"i,j->ij", [][]int{{3}, {4}}},
+		{"abc,cd->dba", [][]int{{2, 3, 4}, {4, 5}}},
+		{"...ij,...jk", [][]int{{2, 3, 4}, {2, 4, 2}}},
+		{"ii,ij->j", [][]int{{3, 3}, {3, 2}}},
+	}
+	for _, tc := range cases {
+		var f32s, i64s []*tensor.Tensor
+		for _, s := range tc.shapes {
+			ft := tensor.New(tensor.Float32, s)
+			it := tensor.New(tensor.Int64, s)
+			for i := range ft.F32() {
+				v := r.Intn(7) - 3
+				ft.F32()[i], it.I64()[i] = float32(v), int64(v)
+			}
+			f32s, i64s = append(f32s, ft), append(i64s, it)
+		}
+		attrs := map[string]*loader.Attr{"equation": {Name: "equation", Kind: loader.AttrString, S: tc.eq}}
+		cf, ci := linTestCall("Einsum", attrs, 12, f32s...), linTestCall("Einsum", attrs, 12, i64s...)
+		if err := einsumKernel(cf); err != nil {
+			t.Fatalf("%s: %v", tc.eq, err)
+		}
+		if err := einsumKernel(ci); err != nil {
+			t.Fatalf("%s: %v", tc.eq, err)
+		}
+		if !tensor.SameShape(cf.Out[0].Shape, ci.Out[0].Shape) {
+			t.Fatalf("%s: shapes %v and %v", tc.eq, cf.Out[0].Shape, ci.Out[0].Shape)
+		}
+		for i, v := range ci.Out[0].I64() {
+			if float32(v) != cf.Out[0].F32()[i] {
+				t.Fatalf("%s: element %d: %g, want %d", tc.eq, i, cf.Out[0].F32()[i], v)
+			}
+		}
+	}
+}
