@@ -113,6 +113,9 @@ func (g *convGeom) clonePads() {
 	g.padEnd = append([]int{}, g.padEnd...)
 }
 
+// convColBudget bounds the im2col buffer (elements) of one Conv call.
+const convColBudget = 1 << 21
+
 // convTables gives, per spatial dimension d, the image coordinate touched by
 // kernel tap kd at window position p: p·s − padBeg + kd·dil, or −1 outside.
 func convTables(g *convGeom, img, pos []int) [][]int {
@@ -136,8 +139,10 @@ func convTables(g *convGeom, img, pos []int) [][]int {
 // convWalk moves data between images (channels × img) and a column matrix
 // (channels·K rows × prod(pos) columns): im2col copies image values into the
 // columns (zero outside the image); with scatter it adds the columns into the
-// images instead (col2im).
-func convWalk[T Number](col, img []T, channels int, g *convGeom, imgShape, pos []int, scatter bool) {
+// images instead (col2im). Only the column block of segments
+// [seg0, seg0+segs) is touched, a segment being one run of the last position
+// axis; the column matrix is then segs·pos[last] wide.
+func convWalk[T Number](col, img []T, channels int, g *convGeom, imgShape, pos []int, scatter bool, seg0, segs int) {
 	nd := len(imgShape)
 	tabs := convTables(g, imgShape, pos)
 	imgStr := tensor.Strides(imgShape)
@@ -145,16 +150,13 @@ func convWalk[T Number](col, img []T, channels int, g *convGeom, imgShape, pos [
 	for _, d := range imgShape {
 		imgSize *= d
 	}
-	P := 1
-	for _, d := range pos {
-		P *= d
-	}
 	K := 1
 	for _, d := range g.k {
 		K *= d
 	}
 	last := nd - 1
 	inner := pos[last]
+	P := segs * inner
 	kk := make([]int, nd)
 	pp := make([]int, nd)
 	row := 0
@@ -169,8 +171,10 @@ func convWalk[T Number](col, img []T, channels int, g *convGeom, imgShape, pos [
 			}
 			crow := col[row*P : (row+1)*P]
 			lastTab := tabs[last][kk[last]*inner : (kk[last]+1)*inner]
-			for i := range pp {
-				pp[i] = 0
+			r = seg0
+			for d := last - 1; d >= 0; d-- {
+				pp[d] = r % pos[d]
+				r /= pos[d]
 			}
 			for o := 0; o < P; o += inner {
 				seg := crow[o : o+inner]
@@ -221,48 +225,56 @@ func convKernel(c *Call) error {
 		return err
 	}
 	x, w, b := c.In[0], c.In[1], c.Input(2)
+	var out *tensor.Tensor
+	var err error
 	switch x.Data.(type) {
 	case []float32:
-		return convRun[float32](c, x, w, b)
+		out, err = convRun[float32](c, x, w, b)
 	case []float64:
-		return convRun[float64](c, x, w, b)
+		out, err = convRun[float64](c, x, w, b)
+	default:
+		return fmt.Errorf("Conv does not support %v", x.DType)
 	}
-	return fmt.Errorf("Conv does not support %v", x.DType)
+	if err != nil {
+		return err
+	}
+	c.Set(0, out)
+	return nil
 }
 
-func convRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
+func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	if x.Rank() < 3 || w.Rank() != x.Rank() {
-		return fmt.Errorf("Conv needs X of rank ≥ 3 and W of the same rank, got %v and %v", x.Shape, w.Shape)
+		return nil, fmt.Errorf("Conv needs X of rank ≥ 3 and W of the same rank, got %v and %v", x.Shape, w.Shape)
 	}
 	if w.DType != x.DType || b != nil && b.DType != x.DType {
-		return fmt.Errorf("input types differ")
+		return nil, fmt.Errorf("input types differ")
 	}
 	nd := x.Rank() - 2
 	N, C, M := x.Shape[0], x.Shape[1], w.Shape[0]
 	group := int(c.Int("group", 1))
 	if group < 1 || C%group != 0 || M%group != 0 || w.Shape[1]*group != C {
-		return fmt.Errorf("X %v, W %v do not fit group %d", x.Shape, w.Shape, group)
+		return nil, fmt.Errorf("X %v, W %v do not fit group %d", x.Shape, w.Shape, group)
 	}
 	if b != nil && b.Size() != M {
-		return fmt.Errorf("bias of shape %v, want %d values", b.Shape, M)
+		return nil, fmt.Errorf("bias of shape %v, want %d values", b.Shape, M)
 	}
 	g, err := convAttrs(c, nd, w.Shape[2:])
 	if err != nil {
-		return err
+		return nil, err
 	}
 	for i := range g.k {
 		if g.k[i] != w.Shape[2+i] {
-			return fmt.Errorf("kernel_shape %v does not match W %v", g.k, w.Shape)
+			return nil, fmt.Errorf("kernel_shape %v does not match W %v", g.k, w.Shape)
 		}
 	}
 	g.in = x.Shape[2:]
 	g.clonePads()
 	if err := convForwardOut(&g, c.Str("auto_pad", "NOTSET"), false); err != nil {
-		return err
+		return nil, err
 	}
 	outShape := append([]int{N, M}, g.out...)
 	if _, err := tensor.NumElements(outShape); err != nil {
-		return err
+		return nil, err
 	}
 	out := tensor.New(x.DType, outShape)
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
@@ -278,30 +290,36 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	for i := 0; i < nd && direct; i++ {
 		direct = g.strides[i] == 1 && g.padBeg[i] == 0
 	}
+	// The column matrix is built in blocks of whole output rows so that it
+	// stays within convColBudget elements however large the image.
+	inner := g.out[nd-1]
+	segTotal, chunk := 0, 0
 	var col []T
-	if !direct {
-		if _, err := tensor.NumElements([]int{Cg * K, P}); err != nil {
-			return err
-		}
-		col = make([]T, Cg*K*P)
+	if !direct && P > 0 {
+		segTotal = P / inner
+		chunk = max(1, min(segTotal, convColBudget/max(1, Cg*K*inner)))
+		col = make([]T, Cg*K*chunk*inner)
 	}
 	for n := 0; n < N; n++ {
 		for gi := 0; gi < group; gi++ {
 			xg := xd[(n*C+gi*Cg)*inSize : (n*C+(gi+1)*Cg)*inSize]
-			src := xg
-			if !direct {
-				convWalk(col, xg, Cg, &g, g.in, g.out, false)
-				src = col
-			}
 			yg := yd[(n*M+gi*Mg)*P : (n*M+(gi+1)*Mg)*P]
-			linGemmT(false, false, Mg, P, Cg*K, 1, wd[gi*Mg*Cg*K:], max(Cg*K, 1), src, max(P, 1), 0, yg, max(P, 1))
+			wg := wd[gi*Mg*Cg*K:]
+			if direct {
+				linGemmT(false, false, Mg, P, Cg*K, 1, wg, max(Cg*K, 1), xg, max(P, 1), 0, yg, max(P, 1))
+				continue
+			}
+			for s0 := 0; s0 < segTotal; s0 += chunk {
+				sn := min(chunk, segTotal-s0)
+				convWalk(col, xg, Cg, &g, g.in, g.out, false, s0, sn)
+				linGemmT(false, false, Mg, sn*inner, Cg*K, 1, wg, max(Cg*K, 1), col, max(sn*inner, 1), 0, yg[s0*inner:], max(P, 1))
+			}
 		}
 	}
 	if b != nil {
 		convAddBias(yd, b.Data.([]T), N, M, P)
 	}
-	c.Set(0, out)
-	return nil
+	return out, nil
 }
 
 func convAddBias[T Number](y, bias []T, n, m, p int) {
@@ -436,7 +454,7 @@ func convTransposeRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 			xg := xd[(n*C+gi*Cg)*inSize : (n*C+(gi+1)*Cg)*inSize]
 			linGemmT(true, false, Mg*K, inSize, Cg, 1, wd[gi*Cg*Mg*K:], max(Mg*K, 1), xg, max(inSize, 1), 0, col, max(inSize, 1))
 			yg := yd[(n*M+gi*Mg)*P : (n*M+(gi+1)*Mg)*P]
-			convWalk(col, yg, Mg, &g, g.out, g.in, true)
+			convWalk(col, yg, Mg, &g, g.out, g.in, true, 0, inSize/max(g.in[nd-1], 1))
 		}
 	}
 	if b != nil {

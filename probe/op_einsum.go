@@ -196,6 +196,21 @@ func einsumKernel(c *Call) error {
 		}
 		strides[i] = st
 	}
+	if n == 2 {
+		var fast *tensor.Tensor
+		ok := false
+		a, b := c.In[0], c.In[1]
+		switch a.Data.(type) {
+		case []float32:
+			fast, ok = linEinsumGemm[float32](a, b, sp.terms[0], sp.terms[1], sp.out, dims, pos)
+		case []float64:
+			fast, ok = linEinsumGemm[float64](a, b, sp.terms[0], sp.terms[1], sp.out, dims, pos)
+		}
+		if ok {
+			c.Set(0, fast)
+			return nil
+		}
+	}
 	outShape := dims[:len(sp.out)]
 	out := tensor.New(c.In[0].DType, outShape)
 	switch od := out.Data.(type) {
@@ -266,4 +281,130 @@ func linEinsumRun[T Number](out []T, ops [][]T, strides [][]int, dims []int, nOu
 		}
 		out[o] = acc
 	}
+}
+
+// linEinsumGemm handles the common two-operand contraction without
+// diagonals or broadcasting: A and B are permuted to [batch, m, k] and
+// [batch, k, n], multiplied per batch, and the [batch, m, n] result is
+// permuted to the output order. ok=false leaves the case to the general loop.
+func linEinsumGemm[T Number](a, b *tensor.Tensor, ta, tb, out []int, dims []int, pos map[int]int) (*tensor.Tensor, bool) {
+	in := func(l int, set []int) bool {
+		for _, v := range set {
+			if v == l {
+				return true
+			}
+		}
+		return false
+	}
+	for _, term := range [][]int{ta, tb} {
+		for i, l := range term {
+			if in(l, term[:i]) {
+				return nil, false // diagonal
+			}
+		}
+	}
+	for i, l := range ta {
+		if a.Shape[i] != dims[pos[l]] || !in(l, tb) && !in(l, out) {
+			return nil, false
+		}
+	}
+	for i, l := range tb {
+		if b.Shape[i] != dims[pos[l]] || !in(l, ta) && !in(l, out) {
+			return nil, false
+		}
+	}
+	var batch, ms, ns, ks []int
+	for _, l := range out {
+		switch {
+		case in(l, ta) && in(l, tb):
+			batch = append(batch, l)
+		case in(l, ta):
+			ms = append(ms, l)
+		default:
+			ns = append(ns, l)
+		}
+	}
+	for _, l := range ta {
+		if in(l, tb) && !in(l, out) {
+			ks = append(ks, l)
+		}
+	}
+	size := func(ls []int) int {
+		p := 1
+		for _, l := range ls {
+			p *= dims[pos[l]]
+		}
+		return p
+	}
+	axesOf := func(term []int, ls ...[]int) []int {
+		var perm []int
+		for _, group := range ls {
+			for _, l := range group {
+				for i, t := range term {
+					if t == l {
+						perm = append(perm, i)
+					}
+				}
+			}
+		}
+		return perm
+	}
+	ap := linPermute(a.Data.([]T), a.Shape, axesOf(ta, batch, ms, ks))
+	bp := linPermute(b.Data.([]T), b.Shape, axesOf(tb, batch, ks, ns))
+	nb, m, n, k := size(batch), size(ms), size(ns), size(ks)
+	res := make([]T, nb*m*n)
+	for i := 0; i < nb; i++ {
+		linGemmT(false, false, m, n, k, 1, ap[i*m*k:], max(k, 1), bp[i*k*n:], max(n, 1), 0, res[i*m*n:], max(n, 1))
+	}
+	mid := append(append(append([]int{}, batch...), ms...), ns...)
+	midShape := make([]int, len(mid))
+	for i, l := range mid {
+		midShape[i] = dims[pos[l]]
+	}
+	final := linPermute(res, midShape, axesOf(mid, out))
+	outShape := make([]int, len(out))
+	for i, l := range out {
+		outShape[i] = dims[pos[l]]
+	}
+	return tensor.From(final, outShape...), true
+}
+
+// linPermute returns src (of shape) with its axes reordered: axis i of the
+// result is axis perm[i] of src. The identity permutation returns src itself.
+func linPermute[T any](src []T, shape, perm []int) []T {
+	identity := true
+	for i, p := range perm {
+		identity = identity && p == i
+	}
+	if identity || len(src) == 0 {
+		return src
+	}
+	r := len(shape)
+	st := tensor.Strides(shape)
+	oshape, ost := make([]int, r), make([]int, r)
+	for i, p := range perm {
+		oshape[i], ost[i] = shape[p], st[p]
+	}
+	out := make([]T, len(src))
+	idx := make([]int, r)
+	off := 0
+	inner, innerSt := oshape[r-1], ost[r-1]
+	for o := 0; o < len(out); o += inner {
+		row := out[o : o+inner]
+		s := off
+		for j := range row {
+			row[j] = src[s]
+			s += innerSt
+		}
+		for d := r - 2; d >= 0; d-- {
+			idx[d]++
+			off += ost[d]
+			if idx[d] < oshape[d] {
+				break
+			}
+			off -= ost[d] * oshape[d]
+			idx[d] = 0
+		}
+	}
+	return out
 }

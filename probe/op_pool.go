@@ -389,3 +389,125 @@ func poolGlobalRun[T Float](y, x []T, planes int, kind poolKind, p float64) {
 		}
 	}
 }
+
+func init() {
+	reg("MaxUnpool", maxUnpoolKernel, 9, 11)
+}
+
+// maxUnpoolKernel scatters X into zeros: Y.flat[I[i]] = X[i]. The output
+// shape is output_shape (input 2) or per axis (in−1)·s + k − padBeg − padEnd.
+func maxUnpoolKernel(c *Call) error {
+	if err := c.Need(2); err != nil {
+		return err
+	}
+	x, ind := c.In[0], c.In[1]
+	if x.Rank() < 3 || !tensor.SameShape(x.Shape, ind.Shape) {
+		return fmt.Errorf("MaxUnpool needs X of rank ≥ 3 and I of the same shape, got %v and %v", x.Shape, ind.Shape)
+	}
+	nd := x.Rank() - 2
+	g, err := convAttrs(c, nd, nil)
+	if err != nil {
+		return err
+	}
+	shape := []int{x.Shape[0], x.Shape[1]}
+	for i := 0; i < nd; i++ {
+		shape = append(shape, (x.Shape[2+i]-1)*g.strides[i]+g.k[i]-g.padBeg[i]-g.padEnd[i])
+	}
+	if _, err := tensor.NumElements(shape); err != nil {
+		return err
+	}
+	out := tensor.New(x.DType, shape)
+	idx := ind.Ints()
+	n := out.Size()
+	for _, v := range idx {
+		if v < 0 || v >= n {
+			return fmt.Errorf("index %d outside the output of %d elements", v, n)
+		}
+	}
+	switch xd := x.Data.(type) {
+	case []float32:
+		poolScatter(out.F32(), xd, idx)
+	case []float64:
+		poolScatter(out.F64(), xd, idx)
+	case []int64:
+		poolScatter(out.I64(), xd, idx)
+	case []int32:
+		poolScatter(out.Data.([]int32), xd, idx)
+	case []uint8:
+		poolScatter(out.Data.([]uint8), xd, idx)
+	case []int8:
+		poolScatter(out.Data.([]int8), xd, idx)
+	default:
+		return fmt.Errorf("MaxUnpool does not support %v", x.DType)
+	}
+	// With output_shape the unpooled block sits at the start of a larger zero tensor.
+	if os := c.Input(2); os != nil {
+		full := os.Ints()
+		if len(full) != x.Rank() {
+			return fmt.Errorf("output_shape %v does not match input rank %d", full, x.Rank())
+		}
+		for i := range full {
+			if full[i] < shape[i] {
+				return fmt.Errorf("output_shape %v is smaller than the unpooled shape %v", full, shape)
+			}
+		}
+		if _, err := tensor.NumElements(full); err != nil {
+			return err
+		}
+		big := tensor.New(x.DType, full)
+		poolEmbed(big, out)
+		out = big
+	}
+	c.Set(0, out)
+	return nil
+}
+
+// poolEmbed copies small into the leading corner of big (same rank, same type).
+func poolEmbed(big, small *tensor.Tensor) {
+	r := small.Rank()
+	inner := small.Shape[r-1]
+	if inner == 0 || small.Size() == 0 {
+		return
+	}
+	bs := tensor.Strides(big.Shape)
+	idx := make([]int, r-1)
+	for o := 0; o < small.Size(); o += inner {
+		off := 0
+		for d, v := range idx {
+			off += v * bs[d]
+		}
+		tensor.CopyData(poolSub(big.Data, off, inner), poolSub(small.Data, o, inner))
+		for d := r - 2; d >= 0; d-- {
+			idx[d]++
+			if idx[d] < small.Shape[d] {
+				break
+			}
+			idx[d] = 0
+		}
+	}
+}
+
+// poolSub slices data[off:off+n] for any tensor element type.
+func poolSub(data any, off, n int) any {
+	switch d := data.(type) {
+	case []float32:
+		return d[off : off+n]
+	case []float64:
+		return d[off : off+n]
+	case []int64:
+		return d[off : off+n]
+	case []int32:
+		return d[off : off+n]
+	case []uint8:
+		return d[off : off+n]
+	case []int8:
+		return d[off : off+n]
+	}
+	panic(fmt.Sprintf("poolSub: %T", data))
+}
+
+func poolScatter[T Number](y, x []T, idx []int) {
+	for i, v := range idx {
+		y[v] = x[i]
+	}
+}
