@@ -350,6 +350,9 @@ func scanCore(c *Call, body *loader.Graph, ins []*tensor.Tensor, m int, inAxes, 
 		if t == nil {
 			return fmt.Errorf("scan input %d is missing", j)
 		}
+		if t.Rank() == 0 {
+			return fmt.Errorf("scan input %d is a scalar: it has no axis to scan", j)
+		}
 		ax, err := NormAxis(at(inAxes, j), t.Rank())
 		if err != nil {
 			return fmt.Errorf("scan input %d: %w", j, err)
