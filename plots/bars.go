@@ -38,4 +38,3 @@ func (b *bars) Thumbnail(c *draw.Canvas) {
 	r := c.Rectangle
 	c.FillPolygon(b.s.Color, []vg.Point{r.Min, {X: r.Max.X, Y: r.Min.Y}, r.Max, {X: r.Min.X, Y: r.Max.Y}})
 }
-

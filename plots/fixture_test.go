@@ -1,6 +1,7 @@
 package plots
 
 import (
+	"bytes"
 	"encoding/json"
 	"os"
 	"path/filepath"
@@ -35,4 +36,10 @@ func outDir(t *testing.T, sub string) string {
 		return d
 	}
 	return t.TempDir()
+}
+
+func renderToBytes(c *Chart) ([]byte, error) {
+	var b bytes.Buffer
+	err := RenderChart(&b, c)
+	return b.Bytes(), err
 }
