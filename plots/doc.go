@@ -1,0 +1,23 @@
+// Package plots renders the PNG figures of a vitals report for code review.
+//
+// Every figure is made in two steps: a *Spec function turns the report into a
+// plain specification (series of finite points, axis ranges, titles, labels),
+// which the tests check without looking at pixels, and a renderer draws that
+// specification with gonum.org/v1/plot. The figures only read report.Report;
+// NaN and ±Inf values are filtered out while the specification is built.
+//
+// WriteAll writes, for a check report:
+//   - depth-profile.png: activation mean ± std (or std on a log axis) and the
+//     1st/99th percentiles of every activation layer along depth;
+//   - unit-health.png: dead and saturated unit fractions per activation layer
+//     against the warning and error thresholds;
+//   - histograms-NN.png: a 4×4 grid per page of per-layer activation
+//     histograms, worst-ranked layers first;
+//   - weights.png: the gain std·√fan_in of every weight tensor against the
+//     Xavier/Glorot (1) and He (√2) references;
+//
+// and, for a comparison (Report.Compare set):
+//   - compare-histograms-NN.png: OLD and NEW histograms overlaid for the layers
+//     that changed most;
+//   - compare-depth-profile.png: both runs' activation std along depth.
+package plots

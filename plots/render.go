@@ -1,0 +1,98 @@
+package plots
+
+import (
+	"bufio"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/font"
+	"gonum.org/v1/plot/text"
+	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
+	"gonum.org/v1/plot/vg/vgimg"
+)
+
+// Figures are 1200 px wide at 96 dpi (12.5 in), which stays readable when a
+// code-review tool scales them to the width of a comment.
+const (
+	dpi     = 96
+	widthPx = 1200
+)
+
+// px converts pixels at the figure resolution to a vg length.
+func px(n float64) vg.Length { return vg.Length(n/dpi) * vg.Inch }
+
+// sans returns a text style in Liberation Sans of the given point size.
+func sans(size vg.Length) text.Style {
+	return text.Style{
+		Color:   inkText,
+		Font:    font.From(font.Font{Typeface: "Liberation", Variant: "Sans"}, size),
+		Handler: plot.DefaultTextHandler,
+	}
+}
+
+// writePNG renders a w×h pixel image with draw and encodes it as PNG.
+func writePNG(out io.Writer, wPx, hPx float64, drawFn func(draw.Canvas) error) error {
+	c := vgimg.NewWith(vgimg.UseWH(px(wPx), px(hPx)), vgimg.UseDPI(dpi), vgimg.UseBackgroundColor(white))
+	if err := drawFn(draw.New(c)); err != nil {
+		return err
+	}
+	bw := bufio.NewWriter(out)
+	if _, err := (vgimg.PngCanvas{Canvas: c}).WriteTo(bw); err != nil {
+		return err
+	}
+	return bw.Flush()
+}
+
+// saveAtomic writes name in dir through a temporary file renamed into place,
+// so that a reader never sees a half-written image.
+func saveAtomic(dir, name string, write func(io.Writer) error) (err error) {
+	f, err := os.CreateTemp(dir, "."+name+".*.tmp")
+	if err != nil {
+		return fmt.Errorf("writing %s: %w", name, err)
+	}
+	defer func() {
+		if err != nil {
+			f.Close()
+			os.Remove(f.Name())
+		}
+	}()
+	if err = write(f); err != nil {
+		return fmt.Errorf("rendering %s: %w", name, err)
+	}
+	if err = f.Chmod(0o644); err != nil {
+		return fmt.Errorf("writing %s: %w", name, err)
+	}
+	if err = f.Close(); err != nil {
+		return fmt.Errorf("writing %s: %w", name, err)
+	}
+	if err = os.Rename(f.Name(), filepath.Join(dir, name)); err != nil {
+		return fmt.Errorf("writing %s: %w", name, err)
+	}
+	return nil
+}
+
+// dashes returns the dash pattern of a style.
+func dashes(s Style) []vg.Length {
+	switch s {
+	case Dashed:
+		return []vg.Length{vg.Points(7), vg.Points(4)}
+	case Dotted:
+		return []vg.Length{vg.Points(1.5), vg.Points(3)}
+	}
+	return nil
+}
+
+// glyph returns the marker drawer of a shape.
+func glyph(s Shape) draw.GlyphDrawer {
+	switch s {
+	case Triangle:
+		return draw.PyramidGlyph{}
+	case Square:
+		return draw.SquareGlyph{}
+	}
+	return draw.CircleGlyph{}
+}

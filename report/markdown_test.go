@@ -1,0 +1,140 @@
+package report
+
+import (
+	"bytes"
+	"strings"
+	"testing"
+)
+
+// mdTables splits Markdown into tables: each is its header, separator and rows.
+func mdTables(md string) [][]string {
+	var tables [][]string
+	var cur []string
+	for _, l := range strings.Split(md, "\n") {
+		if strings.HasPrefix(l, "|") {
+			cur = append(cur, l)
+			continue
+		}
+		if cur != nil {
+			tables = append(tables, cur)
+			cur = nil
+		}
+	}
+	return tables
+}
+
+// mdCells counts the cells of a table line, honouring escaped pipes.
+func mdCells(line string) int {
+	return strings.Count(strings.ReplaceAll(line, `\|`, ""), "|") - 1
+}
+
+func TestWriteMarkdownCheck(t *testing.T) {
+	r := sampleCheckReport()
+	var b bytes.Buffer
+	if err := WriteMarkdown(&b, r, []string{"weights.png", "histograms-01.png", "depth-profile.png", "unit-health.png"}); err != nil {
+		t.Fatal(err)
+	}
+	md := b.String()
+	first := strings.SplitN(md, "\n", 2)[0]
+	if first != "**2 errors, 4 warnings in 5 layers**" {
+		t.Errorf("first line %q", first)
+	}
+	tables := mdTables(md)
+	if len(tables) != 3 {
+		t.Fatalf("want findings, layers and weights tables, got %d", len(tables))
+	}
+	for _, tb := range tables {
+		n := mdCells(tb[0])
+		if !strings.HasPrefix(tb[1], "| ---") && !strings.HasPrefix(tb[1], "| --:") {
+			t.Errorf("no separator under %q: %q", tb[0], tb[1])
+		}
+		for _, row := range tb[1:] {
+			if mdCells(row) != n {
+				t.Errorf("row %q has %d cells, header %d", row, mdCells(row), n)
+			}
+		}
+	}
+	if got := len(tables[0]) - 2; got != len(r.Findings) {
+		t.Errorf("findings rows %d, want %d", got, len(r.Findings))
+	}
+	if got := len(tables[1]) - 2; got != len(r.Layers) {
+		t.Errorf("layer rows %d, want %d", got, len(r.Layers))
+	}
+	if got := len(tables[2]) - 2; got != len(r.Weights) {
+		t.Errorf("weight rows %d, want %d", got, len(r.Weights))
+	}
+	// Ranked order: rank 1 first; the info finding last.
+	if !strings.Contains(tables[0][2], "| 1 | `/layer3/layer3.0/relu/Relu` | error | dead-units |") {
+		t.Errorf("first finding row %q", tables[0][2])
+	}
+	if !strings.Contains(md, "`/head/fc1\\|proj/Gemm`") || strings.Contains(md, "fc1|proj") {
+		t.Error("pipe in a node name is not escaped")
+	}
+	// Layers in depth order, with the unit columns.
+	if !strings.HasPrefix(tables[1][2], "| `/features/conv1/Conv` | Conv | [8×16×32×32] |") ||
+		!strings.Contains(tables[1][9], "| 56.2 |") {
+		t.Errorf("layer rows %q / %q", tables[1][2], tables[1][9])
+	}
+	// Images in figure order, relative links.
+	i1, i2 := strings.Index(md, "](depth-profile.png)"), strings.Index(md, "](weights.png)")
+	if i1 < 0 || i2 < i1 || !strings.Contains(md, "](histograms-01.png)") {
+		t.Error("image links missing or out of order")
+	}
+	for _, s := range []string{"## How to read this", "**dead-units**", "**weight-scale**"} {
+		if !strings.Contains(md, s) {
+			t.Errorf("missing %q", s)
+		}
+	}
+	if !strings.HasSuffix(strings.TrimSpace(md), Caution) {
+		t.Error("the caution does not end the report")
+	}
+	if strings.Contains(md, "## Comparison") {
+		t.Error("comparison section in a check report")
+	}
+}
+
+func TestWriteMarkdownSyntheticAndClean(t *testing.T) {
+	r := sampleCheckReport()
+	r.Input.Source = "synthetic"
+	r.Findings, r.Ranking = nil, nil
+	var b bytes.Buffer
+	if err := WriteMarkdown(&b, r, nil); err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(b.String(), "\n")
+	if !strings.Contains(lines[0], "seeded Gaussian noise, not data") {
+		t.Errorf("first line %q", lines[0])
+	}
+	if lines[2] != "**No findings at warning level or above**" {
+		t.Errorf("verdict %q", lines[2])
+	}
+	if strings.Contains(b.String(), "## Figures") {
+		t.Error("figures section without images")
+	}
+}
+
+func TestWriteMarkdownCompare(t *testing.T) {
+	r := sampleCompareReport()
+	var b bytes.Buffer
+	if err := WriteMarkdown(&b, r, []string{"compare-depth-profile.png", "compare-histograms-01.png"}); err != nil {
+		t.Fatal(err)
+	}
+	md := b.String()
+	for _, s := range []string{"## Comparison: OLD `models/smallcnn-epoch10.onnx` → NEW `models/smallcnn.onnx`",
+		"### Matched layers", "### Weight changes", "### Output agreement", "top-1 agreement 93.0%",
+		"### Unmatched layers", "- `/head/dropout/Dropout (OLD only)`", "dead % OLD → NEW"} {
+		if !strings.Contains(md, s) {
+			t.Errorf("missing %q", s)
+		}
+	}
+	tables := mdTables(md)
+	if len(tables) != 5 || len(tables[3])-2 != len(r.Compare.Layers) || len(tables[4])-2 != len(r.Compare.Weights) {
+		t.Fatalf("tables %d", len(tables))
+	}
+	if !strings.Contains(md, "| 9.4 → 56.2 |") {
+		t.Error("dead fraction change of layer3.0/relu missing")
+	}
+	if strings.Index(md, "](compare-histograms-01.png)") > strings.Index(md, "](compare-depth-profile.png)") {
+		t.Error("compare figures out of order")
+	}
+}
