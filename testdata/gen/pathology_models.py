@@ -266,7 +266,7 @@ def expected_pathology(name, layers, weights, bn):
                           "max_abs_mean_shift_over_running_std": worst["max_abs_mean_shift_over_running_std"],
                           "var_ratio_min": worst["var_ratio_min"], "var_ratio_max": worst["var_ratio_max"]},
                 "also_nodes": [b["onnx_node"] for b in drifted if b is not worst]}
-    return None
+    return {"check": None, "node": None}
 
 
 if __name__ == "__main__":
