@@ -42,12 +42,6 @@ func Verdict(r *Report) string {
 	return fmt.Sprintf("%s, %s on %d layer(s).", plural(e, "error"), plural(wn, "warning"), len(nodes))
 }
 
-func plural(n int, word string) string {
-	if n == 1 {
-		return "1 " + word
-	}
-	return fmt.Sprintf("%d %ss", n, word)
-}
 
 // SourceLine says what the statistics describe (first line of every report).
 func SourceLine(r *Report) string {

@@ -199,7 +199,7 @@ var weightScaleCheck = &Check{
 			strength := math.Max(ratio/p.T("high"), p.T("low")/math.Max(ratio, 1e-30))
 			p.Emit(report.Warning, w.Node, math.Min(strength, 3), map[string]any{"weight": w.Name, "gain": *w.Gain, "reference": ref,
 				"ratio": ratio, "fan_in": w.FanIn, "std": w.Std, "followed_by": w.FollowedBy},
-				"weight %q has gain std·√fan_in = %.3g, %.2g× the %s reference for a %s that follows; no initialisation rule gives this scale, so the layer may shrink or amplify its signal",
+				"weight %q has gain std·√fan_in = %.3g, %.2g× the %s reference for %s; no initialisation rule gives this scale, so the layer may shrink or amplify its signal",
 				w.Name, *w.Gain, ratio, name, followName(w.FollowedBy))
 		}
 		for _, st := range p.Stacks {
@@ -217,9 +217,9 @@ var weightScaleCheck = &Check{
 
 func followName(f string) string {
 	if f == "none" || f == "" {
-		return "no activation"
+		return "a layer with no activation after it"
 	}
-	return f
+	return "a " + f + " that follows"
 }
 
 var symmetricUnitsCheck = &Check{

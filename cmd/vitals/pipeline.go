@@ -103,7 +103,11 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 					return fail(userErr("input %q has symbolic dimension %d (%s); synthetic input needs fixed sizes beyond the batch axis: pass --data", in.Name, j+1, probe.ShapeString(in)))
 				}
 			}
-			f.sources[in.Name] = loader.Synthetic(shape, n, o.seed+int64(i))
+			src, err := loader.Synthetic(shape, n, o.seed+int64(i))
+			if err != nil {
+				return fail(userErr("input %q: %v", in.Name, err))
+			}
+			f.sources[in.Name] = src
 		}
 	} else {
 		for _, spec := range o.data {
