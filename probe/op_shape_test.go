@@ -29,7 +29,9 @@ func shapeRun(op string, opset int, attrs map[string]*loader.Attr, nOut int, ins
 func shapeIntsAttr(name string, v ...int64) *loader.Attr {
 	return &loader.Attr{Name: name, Kind: loader.AttrInts, Ints: v}
 }
-func shapeStrAttr(name, v string) *loader.Attr { return &loader.Attr{Name: name, Kind: loader.AttrString, S: v} }
+func shapeStrAttr(name, v string) *loader.Attr {
+	return &loader.Attr{Name: name, Kind: loader.AttrString, S: v}
+}
 
 // Data movement works on strings and bools, not only numbers.
 func TestShapeMovesStringsAndBools(t *testing.T) {
