@@ -45,14 +45,20 @@ func openNpyFile(path string, f *os.File) (Source, error) {
 	if st.IsDir() {
 		return nil, fmt.Errorf("reading %q: is a folder, not a .npy file", path)
 	}
-	h, err := readNpyHeader(f)
+	return openNpyStream(path, f, st.Size(), f)
+}
+
+// openNpyStream reads the header of a .npy stream of size bytes in total and
+// checks that the data its shape implies is present before serving it.
+func openNpyStream(name string, r io.Reader, size int64, c io.Closer) (Source, error) {
+	h, err := readNpyHeader(r)
 	if err != nil {
-		return nil, fmt.Errorf("reading %q: %w", path, err)
+		return nil, fmt.Errorf("reading %q: %w", name, err)
 	}
-	if have := st.Size() - h.hdrLen; have < h.dataLen {
-		return nil, fmt.Errorf("reading %q: truncated: shape %v of %s needs %d data bytes, file has %d", path, h.shape, h.dtype.descr, h.dataLen, max(have, 0))
+	if have := size - h.hdrLen; have < h.dataLen {
+		return nil, fmt.Errorf("reading %q: truncated: shape %v of %s needs %d data bytes, file has %d", name, h.shape, h.dtype.descr, h.dataLen, max(have, 0))
 	}
-	return newNpySource(path, f, f, h, false)
+	return newNpySource(name, r, c, h, false)
 }
 
 // ReadNpy reads a whole .npy file into a tensor in C order (for small arrays
@@ -137,9 +143,9 @@ func newNpySource(name string, r io.Reader, c io.Closer, h *npyHeader, strictEnd
 		c.Close()
 		return NewTensorSource(name, t)
 	}
-	row := 1
-	for _, d := range h.shape[1:] {
-		row *= d
+	row, err := tensor.NumElements(h.shape[1:])
+	if err != nil {
+		return nil, fmt.Errorf("reading %q: sample shape: %w", name, err)
 	}
 	return &npySource{name: name, r: r, c: c, h: h, row: row, strict: strictEnd}, nil
 }

@@ -75,6 +75,9 @@ func NewTensorSource(name string, t *tensor.Tensor) (Source, error) {
 	if tensor.DTypeOf(t.Data) != t.DType || sliceLen(t.Data) != t.Size() {
 		return nil, fmt.Errorf("reading %q: tensor %v has inconsistent data %T", name, t, t.Data)
 	}
+	if _, err := tensor.NumElements(t.Shape[1:]); err != nil {
+		return nil, fmt.Errorf("reading %q: sample shape: %w", name, err)
+	}
 	return &tensorSource{name: name, t: t}, nil
 }
 
