@@ -130,6 +130,7 @@ func buildChart(c *Chart) (*plot.Plot, plot.Legend, error) {
 	}
 	p.X.Min, p.X.Max = c.XMin, c.XMax
 	p.Y.Min, p.Y.Max = ymap(c.YMin, c.LogY), ymap(c.YMax, c.LogY)
+	p.Y.Tick.Marker = fewTicks{n: 6}
 	if c.LogY {
 		p.Y.Tick.Marker = logTicks{}
 	}

@@ -92,7 +92,7 @@ func glyph(s Shape) draw.GlyphDrawer {
 	case Triangle:
 		return draw.PyramidGlyph{}
 	case Square:
-		return draw.SquareGlyph{}
+		return draw.BoxGlyph{}
 	}
 	return draw.CircleGlyph{}
 }

@@ -22,7 +22,7 @@ type Shape int
 const (
 	Circle   Shape = iota // filled circle
 	Triangle              // filled triangle
-	Square                // outlined square
+	Square                // filled square
 )
 
 // Series is a named sequence of finite points drawn in one style and colour.
