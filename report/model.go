@@ -57,7 +57,7 @@ type Layer struct {
 	Op     string `json:"op"`
 	Output string `json:"output"`
 	Depth  int    `json:"depth"`
-	// Shape is the output shape of the last batch (the batch axis varies).
+	// Shape is the output shape of the first batch (the batch axis varies with --batch).
 	Shape        []int    `json:"shape"`
 	Count        int64    `json:"count"`
 	Mean         *float64 `json:"mean"`

@@ -42,7 +42,6 @@ func Verdict(r *Report) string {
 	return fmt.Sprintf("%s, %s on %d layer(s).", plural(e, "error"), plural(wn, "warning"), len(nodes))
 }
 
-
 // SourceLine says what the statistics describe (first line of every report).
 func SourceLine(r *Report) string {
 	if r.Input.Source == "synthetic" {
@@ -146,6 +145,9 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 			fmt.Fprintf(b, "    %s %s (%s): %s\n", colour(o.Color, Info, "INFO"), f.Check, f.Node, f.Message)
 		}
 	}
+	if r.Compare != nil {
+		writeCompareText(b, r.Compare)
+	}
 	fmt.Fprintln(b)
 	fmt.Fprintln(b, "Layers in depth order:")
 	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
@@ -161,4 +163,30 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 	fmt.Fprintln(b, Caution)
 	_, err := io.WriteString(w, b.String())
 	return err
+}
+
+// writeCompareText prints the checkpoint comparison: output agreement, the
+// layers whose histograms moved most, weight changes and unmatched names.
+func writeCompareText(b *strings.Builder, c *Comparison) {
+	fmt.Fprintln(b)
+	fmt.Fprintf(b, "Comparison: OLD %s → NEW %s\n", c.Old, c.New)
+	if a := c.Agreement; a != nil {
+		fmt.Fprintf(b, "  output %q over %d rows: top-1 agreement %s, mean KL(OLD‖NEW) %s, max |Δ| %s\n", a.Output, a.Samples, P(a.Top1), F(a.MeanKL), F(a.MaxAbsDiff))
+	}
+	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "  node\top\tmean OLD→NEW\tstd OLD→NEW\tdead OLD→NEW\tsaturated OLD→NEW\thistogram TV\t")
+	for _, d := range c.Layers {
+		fmt.Fprintf(tw, "  %s\t%s\t%s → %s\t%s → %s\t%s → %s\t%s → %s\t%s\t\n", d.Node, d.Op, F(d.MeanOld), F(d.MeanNew), F(d.StdOld), F(d.StdNew),
+			P(d.DeadOld), P(d.DeadNew), P(d.SaturatedOld), P(d.SaturatedNew), F(d.HistogramDistance))
+	}
+	tw.Flush()
+	if len(c.Weights) > 0 {
+		fmt.Fprintln(b, "  weight change ‖W_new − W_old‖/‖W_old‖:")
+		for _, w := range c.Weights {
+			fmt.Fprintf(b, "    %-28s %s\n", w.Name, F(w.RelativeChange))
+		}
+	}
+	if len(c.Unmatched) > 0 {
+		fmt.Fprintf(b, "  not matched between the checkpoints: %s\n", strings.Join(c.Unmatched, ", "))
+	}
 }

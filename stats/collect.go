@@ -268,13 +268,12 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 			return
 		}
 	}
-	la.shape = append(la.shape[:0], t.Shape...)
-	before := la.mom
-	var b Moments
-	b = NewMoments()
+	if la.shape == nil {
+		la.shape = append([]int{}, t.Shape...) // the first batch's shape
+	}
+	b := NewMoments()
 	b.AddFloat32(x)
 	la.mom.Merge(b)
-	_ = before
 	la.hist.AddFloat32(x, b.Min, b.Max)
 	if c.perChanWanted[la.output] && t.Rank() >= 2 {
 		la.perChan = perChannel(la.perChan, t, 1)
