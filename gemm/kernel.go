@@ -1,0 +1,70 @@
+package gemm
+
+import "unsafe"
+
+//go:generate go run gen_kernels.go
+
+// microKernel computes one MR×NR tile of C from a packed A micro-panel a
+// (kc steps of MR values) and a packed B micro-panel b (kc steps of NR values):
+//
+//	C[i][j] = alpha·Σ_p a[p·MR+i]·b[p·NR+j] + beta·C[i][j]
+//
+// C is row-major with row stride ldc (elements). If betaZero != 0 the old C is
+// never read, so garbage (NaN, Inf) in C does not propagate.
+type microKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+// kernel describes one micro-kernel and the cache blocking chosen for it.
+//
+// Blocking (Goto/BLIS): for each nc-wide column panel of op(B) and each kc-deep
+// slice of k, the kc×nc panel of op(B) is packed into NR-wide micro-panels;
+// for each mc-tall row block of op(A) the mc×kc block is packed into MR-tall
+// micro-panels; the micro-kernel then walks the block MR×NR tile by tile. The
+// kc×NR micro-panel of B is reused across all mc/MR A micro-panels and stays
+// in L1; the mc×kc A block is reused across all nc/NR B micro-panels and stays
+// in L2; the kc×nc B panel stays in L3 (shared).
+type kernel struct {
+	name       string
+	mr, nr     int
+	kc, mc, nc int
+	fn         microKernel
+}
+
+// genericKernel is the portable micro-kernel: 4×8 tile in plain Go. It is the
+// fallback on CPUs without AVX2/FMA and on other architectures.
+var genericKernel = &kernel{
+	name: "go", mr: 4, nr: 8, kc: 256, mc: 128, nc: 2048,
+	fn: goKernel,
+}
+
+func goKernel(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int) {
+	const mr, nr = 4, 8
+	var acc [mr][nr]float32
+	if kc > 0 {
+		as := unsafe.Slice(a, kc*mr)
+		bs := unsafe.Slice(b, kc*nr)
+		for p := 0; p < kc; p++ {
+			ap := as[p*mr : p*mr+mr : p*mr+mr]
+			bp := bs[p*nr : p*nr+nr : p*nr+nr]
+			for i := 0; i < mr; i++ {
+				ai := ap[i]
+				r := &acc[i]
+				for j := 0; j < nr; j++ {
+					r[j] += ai * bp[j]
+				}
+			}
+		}
+	}
+	cs := unsafe.Slice(c, (mr-1)*ldc+nr)
+	for i := 0; i < mr; i++ {
+		row := cs[i*ldc : i*ldc+nr : i*ldc+nr]
+		if betaZero != 0 {
+			for j := range row {
+				row[j] = alpha * acc[i][j]
+			}
+		} else {
+			for j := range row {
+				row[j] = alpha*acc[i][j] + beta*row[j]
+			}
+		}
+	}
+}

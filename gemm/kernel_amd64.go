@@ -1,0 +1,39 @@
+package gemm
+
+import "golang.org/x/sys/cpu"
+
+//go:noescape
+func sgemmKernelAVX512(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX2(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+// avx512Kernel: 8×48 zmm tile (24 accumulators + 3 B vectors + 2 broadcast
+// registers of the 32). MR=8 divides the channel counts of typical convolutions
+// (64, 128, 256, 512) exactly; NR=48 keeps three B loads per eight broadcasts.
+// kc=160 keeps the kc×NR B micro-panel at 30 KiB in the 48 KiB L1D; mc=192
+// keeps the mc×kc A block at 120 KiB, well inside the 1 MiB L2; nc=3072 keeps
+// the kc×nc B panel at ~1.9 MiB of the shared L3.
+var avx512Kernel = &kernel{
+	name: "avx512", mr: 8, nr: 48, kc: 160, mc: 192, nc: 3072,
+	fn: sgemmKernelAVX512,
+}
+
+// avx2Kernel: 6×16 ymm tile (12 accumulators + 2 B vectors + 2 broadcast
+// registers of the 16). kc=256 keeps the B micro-panel at 16 KiB in L1;
+// mc=144 (A block 144 KiB) fits L2; nc=3072 for the L3.
+var avx2Kernel = &kernel{
+	name: "avx2", mr: 6, nr: 16, kc: 256, mc: 144, nc: 3072,
+	fn: sgemmKernelAVX2,
+}
+
+func availableKernels() []*kernel {
+	var ks []*kernel
+	if cpu.X86.HasAVX512F && cpu.X86.HasAVX512VL && cpu.X86.HasAVX2 {
+		ks = append(ks, avx512Kernel)
+	}
+	if cpu.X86.HasAVX2 && cpu.X86.HasFMA {
+		ks = append(ks, avx2Kernel)
+	}
+	return append(ks, genericKernel)
+}
