@@ -33,6 +33,10 @@ func packA(mr int, dst []float32, a operand, i0, rows, p0, kc int) {
 			continue
 		}
 		// op(A)[i,p] = a[i*ld+p]: one source row per panel row, written at stride MR.
+		if mr == 8 && mv == 8 {
+			packA8(panel, a.data, (i0+r)*a.ld+p0, a.ld, kc)
+			continue
+		}
 		for i := 0; i < mv; i++ {
 			src := a.data[(i0+r+i)*a.ld+p0:]
 			src = src[:kc]
@@ -45,6 +49,25 @@ func packA(mr int, dst []float32, a operand, i0, rows, p0, kc int) {
 				panel[p*mr+i] = 0
 			}
 		}
+	}
+}
+
+// packA8 interleaves eight rows of length kc (row i at src[off+i*ld:]) into
+// dst[p*8+i], reading the eight rows in step so every write is sequential.
+func packA8(dst, src []float32, off, ld, kc int) {
+	r0 := src[off : off+kc]
+	r1 := src[off+ld : off+ld+kc]
+	r2 := src[off+2*ld : off+2*ld+kc]
+	r3 := src[off+3*ld : off+3*ld+kc]
+	r4 := src[off+4*ld : off+4*ld+kc]
+	r5 := src[off+5*ld : off+5*ld+kc]
+	r6 := src[off+6*ld : off+6*ld+kc]
+	r7 := src[off+7*ld : off+7*ld+kc]
+	dst = dst[:8*kc]
+	for p := range r0 {
+		d := dst[p*8 : p*8+8 : p*8+8]
+		d[0], d[1], d[2], d[3] = r0[p], r1[p], r2[p], r3[p]
+		d[4], d[5], d[6], d[7] = r4[p], r5[p], r6[p], r7[p]
 	}
 }
 
@@ -113,7 +136,7 @@ func (bf *buffers) ensure(kern *kernel) {
 // gemmRange computes rows [m0,m1) × columns [n0,n1) of C on one goroutine.
 // m0 is a multiple of MR and n0 of NR (needed to index pre-packed operands).
 func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, A, B operand, beta float32, c []float32, ldc int) {
-	mr, nr, kcMax, mcMax, ncMax := kern.mr, kern.nr, kern.kc, kern.mc, kern.nc
+	mr, nr, kcMax, mcMax, ncMax := kern.mr, kern.nr, kern.kcFor(k), kern.mc, kern.nc
 	fn := kern.fn
 	for jc := n0; jc < n1; jc += ncMax {
 		ncur := min(ncMax, n1-jc)

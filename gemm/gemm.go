@@ -128,8 +128,9 @@ func PackA(transA bool, m, k int, a []float32, lda int) *PackedA {
 	mp := roundUp(m, kern.mr)
 	p := &PackedA{kern: kern, m: m, k: k, data: make([]float32, mp*k)}
 	src := operand{data: a, ld: lda, trans: transA}
-	for pc := 0; pc < k; pc += kern.kc {
-		kcur := min(kern.kc, k-pc)
+	kc := kern.kcFor(k)
+	for pc := 0; pc < k; pc += kc {
+		kcur := min(kc, k-pc)
 		packA(kern.mr, p.data[pc*mp:pc*mp+mp*kcur], src, 0, m, pc, kcur)
 	}
 	return p
@@ -145,8 +146,9 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 	np := roundUp(n, kern.nr)
 	p := &PackedB{kern: kern, k: k, n: n, data: make([]float32, np*k)}
 	src := operand{data: b, ld: ldb, trans: transB}
-	for pc := 0; pc < k; pc += kern.kc {
-		kcur := min(kern.kc, k-pc)
+	kc := kern.kcFor(k)
+	for pc := 0; pc < k; pc += kc {
+		kcur := min(kc, k-pc)
 		packB(kern.nr, p.data[pc*np:pc*np+np*kcur], src, pc, kcur, 0, n)
 	}
 	return p

@@ -29,6 +29,17 @@ type kernel struct {
 	fn         microKernel
 }
 
+// kcFor returns the k-slice depth used for a product of depth k: the k range
+// is cut into ceil(k/kc) slices of equal depth (at most kc), so no call ends
+// with a short, inefficient slice (e.g. k=1024, kc=384 gives 3 slices of 342).
+func (kn *kernel) kcFor(k int) int {
+	if k <= kn.kc {
+		return max(k, 1)
+	}
+	s := (k + kn.kc - 1) / kn.kc
+	return (k + s - 1) / s
+}
+
 // genericKernel is the portable micro-kernel: 4×8 tile in plain Go. It is the
 // fallback on CPUs without AVX2/FMA and on other architectures.
 var genericKernel = &kernel{

@@ -15,7 +15,7 @@ func sgemmKernelAVX2(kc int, a, b, c *float32, ldc int, alpha, beta float32, bet
 // keeps the mc×kc A block at 120 KiB, well inside the 1 MiB L2; nc=3072 keeps
 // the kc×nc B panel at ~1.9 MiB of the shared L3.
 var avx512Kernel = &kernel{
-	name: "avx512", mr: 8, nr: 48, kc: 160, mc: 192, nc: 3072,
+	name: "avx512", mr: 8, nr: 48, kc: 384, mc: 96, nc: 3072,
 	fn: sgemmKernelAVX512,
 }
 
