@@ -79,6 +79,14 @@ func packB(nr int, dst []float32, b operand, p0, kc, j0, cols int) {
 		panel := dst[q*kc : q*kc+nr*kc]
 		if !b.trans {
 			// op(B)[p,j] = b[p*ld+j]: NR consecutive values per k step.
+			if nv == 48 && nr == 48 {
+				off := (p0)*b.ld + j0 + q
+				src := b.data[off : off+(kc-1)*b.ld+48]
+				for p := 0; p < kc; p++ {
+					*(*[48]float32)(panel[p*48:]) = [48]float32(src[p*b.ld:])
+				}
+				continue
+			}
 			for p := 0; p < kc; p++ {
 				src := b.data[(p0+p)*b.ld+j0+q:]
 				d := panel[p*nr : p*nr+nr]
@@ -142,10 +150,19 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 		ncur := min(ncMax, n1-jc)
 		for pc := 0; pc < k; pc += kcMax {
 			kcur := min(kcMax, k-pc)
+			// direct: B is read in place by the strided kernel (see kernel.fnStrided).
+			direct := B.packed == nil && !B.trans && kern.fnStrided != nil && m1-m0 <= kern.maxMDirect
 			var bp []float32
-			if B.packed != nil {
+			switch {
+			case B.packed != nil:
 				bp = B.packed[pc*B.padded+(jc*kcur) : pc*B.padded+(jc+roundUp(ncur, nr))*kcur]
-			} else {
+			case direct:
+				// Only a partial last micro-panel is packed (zero padded).
+				if last := ncur / nr * nr; last < ncur {
+					bp = bf.b[:roundUp(ncur, nr)*kcur]
+					packB(nr, bp[last*kcur:], B, pc, kcur, jc+last, ncur-last)
+				}
+			default:
 				bp = bf.b[:roundUp(ncur, nr)*kcur]
 				packB(nr, bp, B, pc, kcur, jc, ncur)
 			}
@@ -167,6 +184,29 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 				}
 				for jr := 0; jr < ncur; jr += nr {
 					nv := min(nr, ncur-jr)
+					if direct && nv == nr {
+						bo := pc*B.ld + jc + jr
+						bsrc := B.data[bo : bo+(kcur-1)*B.ld+nr]
+						for ir := 0; ir < mcur; ir += mr {
+							mv := min(mr, mcur-ir)
+							ci := (ic+ir)*ldc + jc + jr
+							if mv == mr {
+								kern.fnStrided(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero)
+								continue
+							}
+							t := bf.tile[:mr*nr]
+							if betaZero == 0 {
+								for i := 0; i < mv; i++ {
+									copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
+								}
+							}
+							kern.fnStrided(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &t[0], nr, alpha, betaEff, betaZero)
+							for i := 0; i < mv; i++ {
+								copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
+							}
+						}
+						continue
+					}
 					bpp := &bp[jr*kcur]
 					for ir := 0; ir < mcur; ir += mr {
 						mv := min(mr, mcur-ir)

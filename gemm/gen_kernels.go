@@ -30,10 +30,12 @@ type spec struct {
 	w          int    // floats per vector register
 	reg        string // "Z" or "Y"
 	unroll     int
+	strided    bool // B read in place: NR floats per k step at row stride ldb
 }
 
 func main() {
 	gen(spec{file: "kernel_avx512_amd64.s", name: "sgemmKernelAVX512", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4})
+	gen(spec{file: "kernel_avx512s_amd64.s", name: "sgemmKernelAVX512S", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
 
@@ -54,15 +56,27 @@ func gen(s spec) {
 	p("")
 	p("#include \"textflag.h\"")
 	p("")
-	p("// func %s(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+	// Argument frame offsets.
+	oC, oLdc, oAlpha, oBeta, oBZ, frame := 24, 32, 40, 44, 48, 56
+	if s.strided {
+		p("// func %s(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+		p("// As the packed kernel, but B is read in place: row p of the micro-panel at b + p·ldb.")
+		oC, oLdc, oAlpha, oBeta, oBZ, frame = 32, 40, 48, 52, 56, 64
+	} else {
+		p("// func %s(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+	}
 	p("// %d×%d register tile: %d accumulators %s0-%s%d, B in %s..%s, A broadcasts in %s/%s.",
 		s.mr, s.nr, nacc, s.reg, s.reg, nacc-1, breg(0), breg(nv-1), areg(0), areg(1))
-	p("TEXT ·%s(SB), NOSPLIT, $0-56", s.name)
+	p("TEXT ·%s(SB), NOSPLIT, $0-%d", s.name, frame)
 	p("\tMOVQ kc+0(FP), CX")
 	p("\tMOVQ a+8(FP), SI")
 	p("\tMOVQ b+16(FP), DI")
-	p("\tMOVQ c+24(FP), R8")
-	p("\tMOVQ ldc+32(FP), R9")
+	if s.strided {
+		p("\tMOVQ ldb+24(FP), R11")
+		p("\tSHLQ $2, R11")
+	}
+	p("\tMOVQ c+%d(FP), R8", oC)
+	p("\tMOVQ ldc+%d(FP), R9", oLdc)
 	p("\tSHLQ $2, R9")
 	// Prefetch the C tile for the write-back.
 	p("\tMOVQ R8, R10")
@@ -82,7 +96,14 @@ func gen(s spec) {
 	}
 	step := func(u int) {
 		for j := 0; j < nv; j++ {
-			p("\tVMOVUPS %d(DI), %s", (u*s.nr)*4+j*vb, breg(j))
+			if s.strided {
+				p("\tVMOVUPS %d(DI), %s", j*vb, breg(j))
+			} else {
+				p("\tVMOVUPS %d(DI), %s", (u*s.nr)*4+j*vb, breg(j))
+			}
+		}
+		if s.strided {
+			p("\tADDQ R11, DI")
 		}
 		for i := 0; i < s.mr; i++ {
 			p("\tVBROADCASTSS %d(SI), %s", (u*s.mr+i)*4, areg(i))
@@ -100,7 +121,9 @@ func gen(s spec) {
 		step(u)
 	}
 	p("\tADDQ $%d, SI", s.mr*4*s.unroll)
-	p("\tADDQ $%d, DI", s.nr*4*s.unroll)
+	if !s.strided {
+		p("\tADDQ $%d, DI", s.nr*4*s.unroll)
+	}
 	p("\tDECQ DX")
 	p("\tJNE loop")
 	p("tail:")
@@ -109,16 +132,18 @@ func gen(s spec) {
 	p("loop1:")
 	step(0)
 	p("\tADDQ $%d, SI", s.mr*4)
-	p("\tADDQ $%d, DI", s.nr*4)
+	if !s.strided {
+		p("\tADDQ $%d, DI", s.nr*4)
+	}
 	p("\tDECQ CX")
 	p("\tJNE loop1")
 	p("store:")
 	alpha, beta := breg(0), areg(0)
-	p("\tVBROADCASTSS alpha+40(FP), %s", alpha)
-	p("\tMOVQ betaZero+48(FP), AX")
+	p("\tVBROADCASTSS alpha+%d(FP), %s", oAlpha, alpha)
+	p("\tMOVQ betaZero+%d(FP), AX", oBZ)
 	p("\tTESTQ AX, AX")
 	p("\tJNE storezero")
-	p("\tVBROADCASTSS beta+44(FP), %s", beta)
+	p("\tVBROADCASTSS beta+%d(FP), %s", oBeta, beta)
 	for i := 0; i < s.mr; i++ {
 		for j := 0; j < nv; j++ {
 			p("\tVMULPS %s, %s, %s", alpha, acc(i, j), acc(i, j))

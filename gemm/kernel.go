@@ -13,6 +13,10 @@ import "unsafe"
 // never read, so garbage (NaN, Inf) in C does not propagate.
 type microKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
+// stridedKernel is a microKernel that reads B in place instead of packed: row
+// p of the kc×NR micro-panel starts at b + p·ldb (NR floats, no padding).
+type stridedKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
 // kernel describes one micro-kernel and the cache blocking chosen for it.
 //
 // Blocking (Goto/BLIS): for each nc-wide column panel of op(B) and each kc-deep
@@ -27,6 +31,13 @@ type kernel struct {
 	mr, nr     int
 	kc, mc, nc int
 	fn         microKernel
+	// fnStrided, if set, is used when B is not transposed and the rows of
+	// op(A) handled by one worker fit one mc block (at most maxMDirect): every
+	// B micro-panel is then read only m/MR times, straight from the caller's
+	// matrix, and packing B (a full extra pass over k·n floats, the dominant
+	// cost for small m such as the 64-channel convolutions) is skipped.
+	fnStrided  stridedKernel
+	maxMDirect int
 }
 
 // kcFor returns the k-slice depth used for a product of depth k: the k range
