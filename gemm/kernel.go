@@ -20,12 +20,13 @@ type stridedKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alp
 // kernel describes one micro-kernel and the cache blocking chosen for it.
 //
 // Blocking (Goto/BLIS): for each nc-wide column panel of op(B) and each kc-deep
-// slice of k, the kc×nc panel of op(B) is packed into NR-wide micro-panels;
-// for each mc-tall row block of op(A) the mc×kc block is packed into MR-tall
-// micro-panels; the micro-kernel then walks the block MR×NR tile by tile. The
-// kc×NR micro-panel of B is reused across all mc/MR A micro-panels and stays
-// in L1; the mc×kc A block is reused across all nc/NR B micro-panels and stays
-// in L2; the kc×nc B panel stays in L3 (shared).
+// slice of k, the kc×nc panel of op(B) is packed into NR-wide micro-panels
+// (kept in L3); for each mc-tall row block of op(A) the mc×kc block is packed
+// into MR-tall micro-panels (kept in L2, reused by all nc/NR B micro-panels);
+// the micro-kernel then walks the block MR×NR tile by tile, B micro-panel
+// outer, A micro-panel inner, so one kc×NR B micro-panel is reused mc/MR
+// times from L1/L2 while the A micro-panels stream from L2. The first k slice
+// applies beta to C, later slices accumulate into it.
 type kernel struct {
 	name       string
 	mr, nr     int
