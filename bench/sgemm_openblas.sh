@@ -22,6 +22,7 @@ if ! "$PY" -c 'import numpy' 2>/dev/null; then
 fi
 
 go test -c -o /tmp/vitals-gemm.test ./gemm/
+echo "load average: $(cut -d' ' -f1-3 /proc/loadavg) on $(nproc) cores; $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2-)"
 
 best_go=0
 best_ob=0

@@ -23,6 +23,16 @@
 // never share a C tile and never synchronise inside a call. Workers are a
 // persistent pool; packing buffers are recycled through a sync.Pool, so the
 // steady state does not allocate.
+//
+// Convolution (im2col): for an NCHW convolution with weights W
+// [Cout][Cin·kh·kw], pack W once with PackA(false, Cout, Cin·kh·kw, W, Cin·kh·kw)
+// and, per batch, write the im2col matrix cols [Cin·kh·kw][N·Hout·Wout] and call
+// SgemmPackedA(N·Hout·Wout, 1, pw, false, cols, N·Hout·Wout, 0, out, N·Hout·Wout);
+// out is then [Cout][N·Hout·Wout] (per-channel planes over the batch; add the
+// bias with beta=1 over a pre-filled out, or afterwards). For one image at a
+// time, n = Hout·Wout and out is directly the image's [Cout][Hout][Wout]. Gemm
+// (ONNX) with a constant B maps to PackB/SgemmPackedB. Calls are safe from
+// several goroutines at once; each call uses up to Threads() workers.
 package gemm
 
 import (
