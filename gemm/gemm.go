@@ -1,0 +1,249 @@
+// Package gemm is a cache-blocked, packed single-precision matrix multiply
+// (SGEMM) for row-major matrices with AVX-512 and AVX2+FMA micro-kernels in
+// Go assembly, chosen at run time, and a pure-Go fallback.
+//
+// It computes
+//
+//	C = alpha·op(A)·op(B) + beta·C,   op(X) = X or Xᵀ,
+//
+// with op(A) m×k, op(B) k×n and C m×n, all row-major with leading dimensions
+// (row strides, in elements) lda, ldb, ldc. When beta == 0, C is only written,
+// never read, so NaN or Inf garbage in C does not reach the result.
+//
+// Algorithm (Goto/BLIS): the product is cut into kc×nc panels of op(B) and
+// mc×kc blocks of op(A), each packed into a contiguous buffer of MR-tall (A)
+// and NR-wide (B) micro-panels, zero padded to whole micro-panels. A register
+// tile micro-kernel then computes MR×NR tiles of C with the packed operands
+// streaming from L1/L2. Tiles cut by the matrix edge are computed into a small
+// scratch tile and only the valid part is written back. The per-kernel blocking
+// parameters and their reasons are documented with each kernel.
+//
+// Parallelism: a call is split into one contiguous range of C columns (or rows,
+// when m > n) per worker, each range a whole number of micro-tiles, so workers
+// never share a C tile and never synchronise inside a call. Workers are a
+// persistent pool; packing buffers are recycled through a sync.Pool, so the
+// steady state does not allocate.
+//
+// Convolution (im2col): for an NCHW convolution with weights W
+// [Cout][Cin·kh·kw], pack W once with PackA(false, Cout, Cin·kh·kw, W, Cin·kh·kw)
+// and, per batch, write the im2col matrix cols [Cin·kh·kw][N·Hout·Wout] and call
+// SgemmPackedA(N·Hout·Wout, 1, pw, false, cols, N·Hout·Wout, 0, out, N·Hout·Wout);
+// out is then [Cout][N·Hout·Wout] (per-channel planes over the batch; add the
+// bias with beta=1 over a pre-filled out, or afterwards). For one image at a
+// time, n = Hout·Wout and out is directly the image's [Cout][Hout][Wout]. Gemm
+// (ONNX) with a constant B maps to PackB/SgemmPackedB. Calls are safe from
+// several goroutines at once; each call uses up to Threads() workers.
+package gemm
+
+import (
+	"runtime"
+	"sync/atomic"
+)
+
+var (
+	kernels = availableKernels()
+	// active is the kernel used by new calls; tests force others through setKernel.
+	active atomic.Pointer[kernel]
+	// threads is the configured worker count (0 = GOMAXPROCS).
+	threads atomic.Int64
+)
+
+func init() { active.Store(kernels[0]) }
+
+// KernelName reports the micro-kernel in use: "avx512", "avx2" or "go".
+func KernelName() string { return active.Load().name }
+
+// SetThreads sets the number of workers a call may use. n <= 0 restores the
+// default, runtime.GOMAXPROCS(0) at call time.
+func SetThreads(n int) {
+	if n < 0 {
+		n = 0
+	}
+	threads.Store(int64(n))
+}
+
+// Threads reports the number of workers a call may use.
+func Threads() int {
+	if t := int(threads.Load()); t > 0 {
+		return t
+	}
+	return runtime.GOMAXPROCS(0)
+}
+
+// setKernel forces a kernel by name (for tests); it returns a restore func.
+func setKernel(name string) (restore func(), ok bool) {
+	old := active.Load()
+	for _, k := range kernels {
+		if k.name == name {
+			active.Store(k)
+			return func() { active.Store(old) }, true
+		}
+	}
+	return func() {}, false
+}
+
+// Sgemm computes C = alpha·op(A)·op(B) + beta·C, row-major, op(X) = X or Xᵀ.
+// A is m×k (or k×m if transA) with leading dimension lda; B is k×n (or n×k)
+// with ldb; C is m×n with ldc. It panics if a slice is too short or a leading
+// dimension too small.
+func Sgemm(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("A", transA, m, k, a, lda)
+	checkOperand("B", transB, k, n, b, ldb)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	kern := active.Load()
+	run(kern, m, n, k, alpha,
+		operand{data: a, ld: lda, trans: transA},
+		operand{data: b, ld: ldb, trans: transB},
+		beta, c, ldc)
+}
+
+// PackedA is op(A) (m×k) packed once in the layout the micro-kernel reads,
+// for reuse across many products (e.g. convolution weights, C = W·cols).
+type PackedA struct {
+	kern *kernel
+	m, k int
+	data []float32
+}
+
+// PackedB is op(B) (k×n) packed once in the layout the micro-kernel reads,
+// for reuse across many products (e.g. fully connected weights, C = X·Wᵀ).
+type PackedB struct {
+	kern *kernel
+	k, n int
+	data []float32
+}
+
+// Rows and Cols report the shape of op(A).
+func (p *PackedA) Rows() int { return p.m }
+func (p *PackedA) Cols() int { return p.k }
+
+// Rows and Cols report the shape of op(B).
+func (p *PackedB) Rows() int { return p.k }
+func (p *PackedB) Cols() int { return p.n }
+
+// PackA packs op(A) (m×k; A is k×m if transA) for SgemmPackedA. The layout is,
+// for each kc-deep slice of k, the m rows (padded to a multiple of MR) as
+// MR-tall micro-panels, each stored k step by k step.
+func PackA(transA bool, m, k int, a []float32, lda int) *PackedA {
+	checkDims(m, 0, k, 0, 0)
+	checkOperand("A", transA, m, k, a, lda)
+	kern := active.Load()
+	mp := roundUp(m, kern.mr)
+	p := &PackedA{kern: kern, m: m, k: k, data: make([]float32, mp*k)}
+	src := operand{data: a, ld: lda, trans: transA}
+	kc := kern.kcFor(k)
+	for pc := 0; pc < k; pc += kc {
+		kcur := min(kc, k-pc)
+		packA(kern.mr, p.data[pc*mp:pc*mp+mp*kcur], src, 0, m, pc, kcur)
+	}
+	return p
+}
+
+// PackB packs op(B) (k×n; B is n×k if transB) for SgemmPackedB. The layout is,
+// for each kc-deep slice of k, the n columns (padded to a multiple of NR) as
+// NR-wide micro-panels, each stored k step by k step.
+func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
+	checkDims(0, n, k, 0, 0)
+	checkOperand("B", transB, k, n, b, ldb)
+	kern := active.Load()
+	np := roundUp(n, kern.nr)
+	p := &PackedB{kern: kern, k: k, n: n, data: make([]float32, np*k)}
+	src := operand{data: b, ld: ldb, trans: transB}
+	kc := kern.kcFor(k)
+	for pc := 0; pc < k; pc += kc {
+		kcur := min(kc, k-pc)
+		packB(kern.nr, p.data[pc*np:pc*np+np*kcur], src, pc, kcur, 0, n)
+	}
+	return p
+}
+
+// SgemmPackedA computes C = alpha·A·op(B) + beta·C with A packed by PackA
+// (m×k taken from pa). B and C are as in Sgemm.
+func SgemmPackedA(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	m, k := pa.m, pa.k
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("B", transB, k, n, b, ldb)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	run(pa.kern, m, n, k, alpha,
+		operand{packed: pa.data, padded: roundUp(m, pa.kern.mr)},
+		operand{data: b, ld: ldb, trans: transB},
+		beta, c, ldc)
+}
+
+// SgemmPackedB computes C = alpha·op(A)·B + beta·C with B packed by PackB
+// (k×n taken from pb). A and C are as in Sgemm.
+func SgemmPackedB(transA bool, m int, alpha float32, a []float32, lda int, pb *PackedB, beta float32, c []float32, ldc int) {
+	k, n := pb.k, pb.n
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("A", transA, m, k, a, lda)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	run(pb.kern, m, n, k, alpha,
+		operand{data: a, ld: lda, trans: transA},
+		operand{packed: pb.data, padded: roundUp(n, pb.kern.nr)},
+		beta, c, ldc)
+}
+
+func roundUp(x, m int) int { return (x + m - 1) / m * m }
+
+func checkDims(m, n, k, ldc, lenC int) {
+	if m < 0 || n < 0 || k < 0 {
+		panic("gemm: negative dimension")
+	}
+	if m > 0 && n > 0 {
+		if ldc < max(1, n) {
+			panic("gemm: ldc < n")
+		}
+		if lenC < (m-1)*ldc+n {
+			panic("gemm: C slice too short")
+		}
+	}
+}
+
+// checkOperand checks a rows×cols op(X) stored as X (or Xᵀ if trans).
+func checkOperand(name string, trans bool, rows, cols int, x []float32, ld int) {
+	if trans {
+		rows, cols = cols, rows
+	}
+	if ld < max(1, cols) {
+		panic("gemm: leading dimension of " + name + " too small")
+	}
+	if rows > 0 && cols > 0 && len(x) < (rows-1)*ld+cols {
+		panic("gemm: " + name + " slice too short")
+	}
+}
+
+// scaleC sets C = beta·C (C = 0 when beta == 0, ignoring old contents).
+func scaleC(m, n int, beta float32, c []float32, ldc int) {
+	if beta == 1 {
+		return
+	}
+	for i := 0; i < m; i++ {
+		row := c[i*ldc : i*ldc+n]
+		if beta == 0 {
+			clear(row)
+		} else {
+			for j := range row {
+				row[j] *= beta
+			}
+		}
+	}
+}

@@ -1,0 +1,93 @@
+package gemm
+
+import "unsafe"
+
+//go:generate go run gen_kernels.go
+
+// microKernel computes one MR×NR tile of C from a packed A micro-panel a
+// (kc steps of MR values) and a packed B micro-panel b (kc steps of NR values):
+//
+//	C[i][j] = alpha·Σ_p a[p·MR+i]·b[p·NR+j] + beta·C[i][j]
+//
+// C is row-major with row stride ldc (elements). If betaZero != 0 the old C is
+// never read, so garbage (NaN, Inf) in C does not propagate.
+type microKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+// stridedKernel is a microKernel that reads B in place instead of packed: row
+// p of the kc×NR micro-panel starts at b + p·ldb (NR floats, no padding).
+type stridedKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+// kernel describes one micro-kernel and the cache blocking chosen for it.
+//
+// Blocking (Goto/BLIS): for each nc-wide column panel of op(B) and each kc-deep
+// slice of k, the kc×nc panel of op(B) is packed into NR-wide micro-panels
+// (kept in L3); for each mc-tall row block of op(A) the mc×kc block is packed
+// into MR-tall micro-panels (kept in L2, reused by all nc/NR B micro-panels);
+// the micro-kernel then walks the block MR×NR tile by tile, B micro-panel
+// outer, A micro-panel inner, so one kc×NR B micro-panel is reused mc/MR
+// times from L1/L2 while the A micro-panels stream from L2. The first k slice
+// applies beta to C, later slices accumulate into it.
+type kernel struct {
+	name       string
+	mr, nr     int
+	kc, mc, nc int
+	fn         microKernel
+	// fnStrided, if set, is used when B is not transposed and the rows of
+	// op(A) handled by one worker fit one mc block (at most maxMDirect): every
+	// B micro-panel is then read only m/MR times, straight from the caller's
+	// matrix, and packing B (a full extra pass over k·n floats, the dominant
+	// cost for small m such as the 64-channel convolutions) is skipped.
+	fnStrided  stridedKernel
+	maxMDirect int
+}
+
+// kcFor returns the k-slice depth used for a product of depth k: the k range
+// is cut into ceil(k/kc) slices of equal depth (at most kc), so no call ends
+// with a short, inefficient slice (e.g. k=1024, kc=384 gives 3 slices of 342).
+func (kn *kernel) kcFor(k int) int {
+	if k <= kn.kc {
+		return max(k, 1)
+	}
+	s := (k + kn.kc - 1) / kn.kc
+	return (k + s - 1) / s
+}
+
+// genericKernel is the portable micro-kernel: 4×8 tile in plain Go. It is the
+// fallback on CPUs without AVX2/FMA and on other architectures.
+var genericKernel = &kernel{
+	name: "go", mr: 4, nr: 8, kc: 256, mc: 128, nc: 2048,
+	fn: goKernel,
+}
+
+func goKernel(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int) {
+	const mr, nr = 4, 8
+	var acc [mr][nr]float32
+	if kc > 0 {
+		as := unsafe.Slice(a, kc*mr)
+		bs := unsafe.Slice(b, kc*nr)
+		for p := 0; p < kc; p++ {
+			ap := as[p*mr : p*mr+mr : p*mr+mr]
+			bp := bs[p*nr : p*nr+nr : p*nr+nr]
+			for i := 0; i < mr; i++ {
+				ai := ap[i]
+				r := &acc[i]
+				for j := 0; j < nr; j++ {
+					r[j] += ai * bp[j]
+				}
+			}
+		}
+	}
+	cs := unsafe.Slice(c, (mr-1)*ldc+nr)
+	for i := 0; i < mr; i++ {
+		row := cs[i*ldc : i*ldc+nr : i*ldc+nr]
+		if betaZero != 0 {
+			for j := range row {
+				row[j] = alpha * acc[i][j]
+			}
+		} else {
+			for j := range row {
+				row[j] = alpha*acc[i][j] + beta*row[j]
+			}
+		}
+	}
+}

@@ -1,0 +1,5 @@
+//go:build !amd64
+
+package gemm
+
+func availableKernels() []*kernel { return []*kernel{genericKernel} }
