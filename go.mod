@@ -4,7 +4,7 @@ go 1.26.8
 
 require (
 	github.com/spf13/pflag v1.1.0
-	golang.org/x/sys v0.0.0-20210119212857-b64e53b001e4
+	golang.org/x/sys v0.50.0
 	gonum.org/v1/gonum v0.17.0
 	gonum.org/v1/plot v0.17.0
 	google.golang.org/protobuf v1.36.12
