@@ -98,39 +98,63 @@ func (m *Moments) Var() float64 {
 // Std is √Var.
 func (m *Moments) Std() float64 { return math.Sqrt(m.Var()) }
 
-// Histogram is an equal-width histogram whose range adapts: when a value
-// falls outside [Lo, Lo+Bins·Width), the bin width doubles (adjacent bins
-// merge) until it fits, so counts always sum to the number of finite values
-// added and nothing is clipped.
+// Histogram is an equal-width histogram on a grid that depends only on the
+// finite minimum and maximum seen, never on how the values were split into
+// batches: the bin width is W = 2^Exp and the window of HistBins bins starts
+// at a multiple of (HistBins/2)·W. The grid is the smallest W (at least
+// max|x|·2⁻⁴⁰) whose aligned window covers [min, max]. When the range grows,
+// W doubles and bins merge exactly (bin edges stay aligned), so counts always
+// sum to the number of finite values added, nothing is clipped, and any batch
+// split of the same sample gives the same histogram.
 type Histogram struct {
-	Lo     float64
-	Width  float64
+	Exp    int   // bin width is 2^Exp
+	Start  int64 // window starts at Start·(HistBins/2)·2^Exp
 	Counts []int64
+	Min    float64 // finite minimum seen
+	Max    float64 // finite maximum seen
+	Lo     float64 // left edge of the window
+	Width  float64 // bin width 2^Exp
 }
 
-// HistBins is the number of bins per histogram (even, so that bins merge in pairs).
-const HistBins = 64
+// HistBins is the number of bins per histogram (even, so that windows align at half-window steps).
+const HistBins = 128
 
-// AddFloat32 adds the finite values of x; min and max of x (finite) must be given.
+// histGrid returns the canonical (exponent, start) of the window for [mn, mx].
+func histGrid(mn, mx float64) (int, int64) {
+	amax := math.Max(math.Abs(mn), math.Abs(mx))
+	_, ea := math.Frexp(amax)
+	e := max(ea-40, -140)
+	if span := mx - mn; span > 0 {
+		_, es := math.Frexp(span / HistBins)
+		e = max(e, es-1)
+	}
+	for ; e < 1100; e++ {
+		h := math.Ldexp(HistBins/2, e)
+		j := math.Floor(mn / h)
+		if mx < (j+2)*h {
+			return e, int64(j)
+		}
+	}
+	return e, 0
+}
+
+// AddFloat32 adds the finite values of x; mn and mx are x's finite min and max.
 func (h *Histogram) AddFloat32(x []float32, mn, mx float64) {
 	if math.IsInf(mn, 0) || math.IsInf(mx, 0) || mn > mx {
 		return // no finite values
 	}
 	if h.Counts == nil {
-		h.Counts = make([]int64, HistBins)
-		h.Lo = mn
-		span := mx - mn
-		if span <= 0 {
-			span = math.Max(math.Abs(mn)*1e-3, 1e-6)
-			h.Lo = mn - span/2
-		}
-		h.Width = span * (1 + 1e-9) / HistBins
-		// round the width up so the top value lands inside the last bin
-		for h.Lo+h.Width*HistBins <= mx {
-			h.Width *= 1 + 1e-6
-		}
+		h.Min, h.Max = mn, mx
+	} else {
+		h.Min, h.Max = math.Min(h.Min, mn), math.Max(h.Max, mx)
 	}
-	h.cover(mn, mx)
+	e, start := histGrid(h.Min, h.Max)
+	if h.Counts == nil {
+		h.Counts = make([]int64, HistBins)
+		h.setGrid(e, start)
+	} else if e != h.Exp || start != h.Start {
+		h.regrid(e, start)
+	}
 	inv := 1 / h.Width
 	lo := h.Lo
 	counts := h.Counts
@@ -150,24 +174,26 @@ func (h *Histogram) AddFloat32(x []float32, mn, mx float64) {
 	}
 }
 
-// cover widens the range until [mn, mx] fits.
-func (h *Histogram) cover(mn, mx float64) {
-	nb := len(h.Counts)
-	for i := 0; i < 2000 && (mn < h.Lo || mx >= h.Lo+h.Width*float64(nb)); i++ {
-		merged := make([]int64, nb)
-		if mn < h.Lo {
-			// grow to the left: old range becomes the upper half
-			for j := 0; j < nb/2; j++ {
-				merged[nb/2+j] = h.Counts[2*j] + h.Counts[2*j+1]
-			}
-			h.Lo -= h.Width * float64(nb)
-		} else {
-			for j := 0; j < nb/2; j++ {
-				merged[j] = h.Counts[2*j] + h.Counts[2*j+1]
-			}
+func (h *Histogram) setGrid(e int, start int64) {
+	h.Exp, h.Start = e, start
+	h.Width = math.Ldexp(1, e)
+	h.Lo = float64(start) * math.Ldexp(HistBins/2, e)
+}
+
+// regrid moves the counts onto a coarser or shifted aligned grid; every old
+// bin lies inside exactly one new bin, so no count is split or lost.
+func (h *Histogram) regrid(e int, start int64) {
+	oldLo, oldW, old := h.Lo, h.Width, h.Counts
+	h.setGrid(e, start)
+	h.Counts = make([]int64, HistBins)
+	for i, c := range old {
+		if c == 0 {
+			continue
 		}
-		h.Width *= 2
-		h.Counts = merged
+		left := oldLo + float64(i)*oldW
+		k := int(math.Floor((left - h.Lo) / h.Width))
+		k = min(max(k, 0), HistBins-1)
+		h.Counts[k] += c
 	}
 }
 

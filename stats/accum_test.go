@@ -88,3 +88,39 @@ func TestHistogramAdaptsWithoutClipping(t *testing.T) {
 		t.Errorf("median %g, bin width %g", q, h.Width)
 	}
 }
+
+// Any split of the same values into batches gives the identical histogram
+// (grid and counts), since the grid depends only on the overall min and max.
+func TestHistogramBatchIndependent(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 3))
+	x := make([]float32, 6000)
+	for i := range x {
+		x[i] = float32(rng.ExpFloat64()*3 - 0.7)
+	}
+	build := func(batch int) Histogram {
+		var h Histogram
+		for lo := 0; lo < len(x); lo += batch {
+			b := x[lo:min(len(x), lo+batch)]
+			m := NewMoments()
+			m.AddFloat32(b)
+			h.AddFloat32(b, m.Min, m.Max)
+		}
+		return h
+	}
+	ref := build(len(x))
+	for _, bs := range []int{1, 7, 100, 999, 3000} {
+		h := build(bs)
+		if h.Lo != ref.Lo || h.Width != ref.Width {
+			t.Fatalf("batch %d: grid lo=%g w=%g, want lo=%g w=%g", bs, h.Lo, h.Width, ref.Lo, ref.Width)
+		}
+		for i := range h.Counts {
+			if h.Counts[i] != ref.Counts[i] {
+				t.Fatalf("batch %d: bin %d has %d, want %d", bs, i, h.Counts[i], ref.Counts[i])
+			}
+		}
+	}
+	// at least a quarter of the window is used (the grid is the finest that covers the range)
+	if span := ref.Max - ref.Min; span < ref.Width*HistBins/4 {
+		t.Errorf("range %g uses under a quarter of the %g-wide window", span, ref.Width*HistBins)
+	}
+}
