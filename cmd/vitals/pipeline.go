@@ -130,11 +130,6 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 				f.sources[k] = s
 			}
 		}
-		for _, in := range g.Inputs {
-			if f.sources[in.Name] == nil {
-				return fail(userErr("model input %q has no data: pass --data %s=PATH (the model's inputs: %s)", in.Name, in.Name, strings.Join(f.order, ", ")))
-			}
-		}
 		for name, s := range f.sources {
 			vi, ok := inputInfo(g, name)
 			if !ok {
@@ -142,6 +137,11 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 			}
 			if err := checkSource(vi, s); err != nil {
 				return fail(inputErr{err})
+			}
+		}
+		for _, in := range g.Inputs {
+			if f.sources[in.Name] == nil {
+				return fail(userErr("model input %q has no data: pass --data %s=PATH (the model's inputs: %s)", in.Name, in.Name, strings.Join(f.order, ", ")))
 			}
 		}
 	}
