@@ -223,8 +223,9 @@ func TestCompareDemo(t *testing.T) {
 		Findings []struct{ Check, Node, Severity string }
 		Compare  struct {
 			Layers []struct {
-				Node             string
-				DeadOld, DeadNew *float64 `json:"dead_old"`
+				Node    string
+				DeadOld *float64 `json:"dead_old"`
+				DeadNew *float64 `json:"dead_new"`
 			}
 		}
 	}
