@@ -46,9 +46,11 @@ type refModel struct {
 	} `json:"files"`
 	InputName string `json:"input_name"`
 	Pathology *struct {
-		Check     *string  `json:"check"`
-		Node      *string  `json:"node"`
-		AlsoNodes []string `json:"also_nodes"`
+		Check     *string            `json:"check"`
+		Node      *string            `json:"node"`
+		AlsoNodes []string           `json:"also_nodes"`
+		Value     json.RawMessage    `json:"value"`
+		PerNode   map[string]float64 `json:"per_node"`
 	} `json:"pathology"`
 }
 
@@ -133,8 +135,8 @@ type refResult struct {
 	outDiff  float64 // worst |got−want| − (atol+rtol·|want|), ≤ 0 when within tolerance
 	outWorst float64 // worst |got−want|
 	outAtol  float64
-	outNeed  float64 // smallest atol that would pass with rtol outRtol
-	margin   float64 // worst (deviation / tolerance) over all compared layer statistics
+	outNeed  float64  // smallest atol that would pass with rtol outRtol
+	margin   float64  // worst (deviation / tolerance) over all compared layer statistics
 	problems []string // every mismatch, one line each
 	layers   int      // golden layers compared
 	badLay   int      // golden layers with at least one mismatch
@@ -471,6 +473,7 @@ func TestReferencePathologies(t *testing.T) {
 				return
 			}
 			checkPathology(t, r, *pat.Check, *pat.Node)
+			checkPathologyValue(t, r, *pat.Check, *pat.Node, pat.Value, pat.PerNode)
 			for _, n := range pat.AlsoNodes {
 				if len(findings(r.rep, *pat.Check, n)) == 0 {
 					t.Errorf("%s does not fire on %s (index.json also_nodes)", *pat.Check, n)
@@ -516,6 +519,40 @@ func checkPathology(t *testing.T, r *refResult, check, node string) {
 	}
 }
 
+// checkPathologyValue: for dead-units and saturation, index.json's value (the
+// share torch 1.13 forward hooks counted on the digits sample) must be exactly
+// the fraction vitals reports; both are counts over the same float32 values.
+func checkPathologyValue(t *testing.T, r *refResult, check, node string, raw json.RawMessage, perNode map[string]float64) {
+	t.Helper()
+	frac := func(l *report.Layer) *float64 {
+		if check == "dead-units" {
+			return l.DeadFraction
+		}
+		return l.SaturatedFraction
+	}
+	if check != "dead-units" && check != "saturation" {
+		return
+	}
+	var want float64
+	if err := json.Unmarshal(raw, &want); err != nil {
+		t.Fatalf("index.json value for %s: %v", check, err)
+	}
+	want2 := map[string]float64{node: want}
+	for n, v := range perNode {
+		want2[n] = v
+	}
+	for n, v := range want2 {
+		l := r.rep.LayerByNode(n)
+		if l == nil || frac(l) == nil {
+			t.Errorf("%s: vitals reports no %s fraction", n, check)
+			continue
+		}
+		if got := *frac(l); math.Abs(got-v) > 1e-12 {
+			t.Errorf("%s: %s fraction %.10g, torch counted %.10g", n, check, got, v)
+		}
+	}
+}
+
 // rankOf is the 1-based ranking position of a node, 0 if unranked.
 func rankOf(rep *report.Report, node string) int {
 	for i, rk := range rep.Ranking {
@@ -525,7 +562,6 @@ func rankOf(rep *report.Report, node string) int {
 	}
 	return 0
 }
-
 
 // The comparison itself must be able to fail: a golden layer nudged past each
 // tolerance (and a dead count off by one unit) has to be reported.
