@@ -264,7 +264,7 @@ func evalRef(m refModel) *refResult {
 	}
 	r.rep = col.Report
 
-	// final output against torch's eager output
+	// final output against torch 1.13's eager forward pass (<name>.output.npy)
 	w := want.F32()
 	if len(got) != len(w) {
 		r.fail("output has %d values, torch's has %d", len(got), len(w))
@@ -351,6 +351,8 @@ func compareLayer(r *refResult, g goldenLayer) {
 		r.fail("%s: vitals reports null moments", id)
 		return
 	}
+	// Moments: torch 1.13 forward hooks, float64 accumulation over the float32
+	// tensor, population std (ddof=0) — the same definitions vitals reports.
 	tolMean := statRel*math.Abs(g.Mean) + statRel*g.Std
 	tolStd := statRel * g.Std
 	scale := math.Max(math.Abs(g.Min), math.Abs(g.Max))
