@@ -192,6 +192,11 @@ var weightScaleCheck = &Check{
 			if ratio >= p.T("low") && ratio <= p.T("high") {
 				continue
 			}
+			if *w.Gain == 0 {
+				p.Emit(report.Warning, w.Node, 3, map[string]any{"weight": w.Name, "gain": 0.0, "std": w.Std, "fan_in": w.FanIn},
+					"every entry of weight %q has the same value (std 0): the layer cannot tell its inputs apart. Usual cause: constant or zero initialisation", w.Name)
+				continue
+			}
 			name := "He (√2)"
 			if ref == 1 {
 				name = "Xavier (1)"
@@ -296,29 +301,38 @@ var inputScaleCheck = &Check{
 			if in.Mean == nil {
 				continue
 			}
-			bad, worstMean, worstStd := 0, 0.0, 1.0
 			means, stds := in.ChannelMean, in.ChannelStd
 			if len(means) == 0 {
 				means, stds = []float64{*in.Mean}, []float64{report.Val(in.Std)}
 			}
+			bad, constant := 0, 0
+			worstMean, worstStd := 0.0, 1.0
 			for i := range means {
 				m, s := means[i], stds[i]
+				if s == 0 {
+					constant++ // a constant feature: no rescaling changes it
+					continue
+				}
 				if math.Abs(m) > p.T("max_abs_mean") || s < p.T("std_low") || s > p.T("std_high") {
 					bad++
+					if math.Abs(m) > math.Abs(worstMean) {
+						worstMean = m
+					}
+					if math.Abs(math.Log(s)) > math.Abs(math.Log(worstStd)) {
+						worstStd = s
+					}
 				}
-				if math.Abs(m) > math.Abs(worstMean) {
-					worstMean = m
-				}
-				if math.Abs(math.Log(s)) > math.Abs(math.Log(worstStd)) {
-					worstStd = s
-				}
+			}
+			if constant > 0 {
+				p.Emit(report.Info, in.Name, 1, map[string]any{"constant_channels": constant, "channels": len(means)},
+					"input %q: %d of %d channels are constant over the sample (std 0); they carry no information here", in.Name, constant, len(means))
 			}
 			if bad == 0 {
 				continue
 			}
 			p.Emit(report.Warning, in.Name, 1+float64(bad)/float64(len(means)), map[string]any{"channels_off_scale": bad, "channels": len(means),
 				"mean": in.Mean, "std": in.Std, "worst_channel_mean": worstMean, "worst_channel_std": worstStd},
-				"input %q: %d of %d channels are not zero-centred, unit-scale (worst mean %.3g, worst std %.3g). Check that the sample was preprocessed exactly as in training (scaling, mean/std normalisation)",
+				"input %q: %d of %d channels are not zero-centred, unit-scale (among them: largest |mean| %.3g, std furthest from 1: %.3g). Check that the sample was preprocessed exactly as in training (scaling, mean/std normalisation)",
 				in.Name, bad, len(means), worstMean, worstStd)
 		}
 	},

@@ -33,11 +33,14 @@ func (p *Pass) T(param string) float64 { return p.Thresholds[p.check.Name+"."+pa
 
 // Emit reports a finding of the running check.
 func (p *Pass) Emit(sev report.Severity, node string, strength float64, evidence map[string]any, format string, args ...any) {
+	// strength is compressed logarithmically (1 + log₂ s, at most 8) so that
+	// large excesses still order layers without one finding swamping the rest
 	if math.IsNaN(strength) || strength < 1 {
 		strength = 1
 	}
+	strength = math.Min(1+math.Log2(strength), 8)
 	p.findings = append(p.findings, report.Finding{Check: p.check.Name, Severity: sev, Node: node,
-		Message: fmt.Sprintf(format, args...), Evidence: evidence, Strength: math.Min(strength, 5)})
+		Message: fmt.Sprintf(format, args...), Evidence: evidence, Strength: strength})
 }
 
 // Checks is the list of health checks, in the order they run.
