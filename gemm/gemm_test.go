@@ -285,6 +285,9 @@ func TestPanics(t *testing.T) {
 // TestNoAllocs: the steady state (pooled buffers, persistent workers) does
 // not allocate.
 func TestNoAllocs(t *testing.T) {
+	if raceEnabled {
+		t.Skip("the race detector allocates on its own")
+	}
 	r := rand.New(rand.NewPCG(9, 10))
 	tc := gemmCase{false, false, 200, 300, 170, 1, 0, 0}
 	a, b, c := tc.operands(r)
