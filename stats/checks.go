@@ -39,6 +39,9 @@ func (p *Pass) Emit(sev report.Severity, node string, strength float64, evidence
 		strength = 1
 	}
 	strength = math.Min(1+math.Log2(strength), 8)
+	for k, v := range evidence {
+		evidence[k] = plainValue(v)
+	}
 	p.findings = append(p.findings, report.Finding{Check: p.check.Name, Severity: sev, Node: node,
 		Message: fmt.Sprintf(format, args...), Evidence: evidence, Strength: strength})
 }
@@ -190,3 +193,21 @@ func contains(s []string, x string) bool {
 
 // ErrNoChecks is returned when a check selection matches nothing.
 var ErrNoChecks = errors.New("no checks selected")
+
+// plainValue dereferences optional numbers so evidence holds plain values
+// (nil for unknown), which every writer prints as numbers.
+func plainValue(v any) any {
+	switch x := v.(type) {
+	case *float64:
+		if x == nil {
+			return nil
+		}
+		return *x
+	case *int:
+		if x == nil {
+			return nil
+		}
+		return *x
+	}
+	return v
+}
