@@ -198,3 +198,120 @@ func TestMatMulGemmPackedMatchesReference(t *testing.T) {
 		}
 	}
 }
+
+func specialF32(r *rand.Rand, n int) []float32 {
+	x := make([]float32, n)
+	sp := []float32{0, float32(math.Copysign(0, -1)), float32(math.NaN()), float32(math.Inf(1)), float32(math.Inf(-1)), 6, -6}
+	for i := range x {
+		if r.Intn(50) == 0 {
+			x[i] = sp[r.Intn(len(sp))]
+		} else {
+			x[i] = float32(r.NormFloat64() * 4)
+		}
+	}
+	return x
+}
+
+func TestArithF32FastMatchesBinaryLoop(t *testing.T) {
+	r := rand.New(rand.NewSource(14))
+	pairs := [][2][]int{
+		{{3, 5, 7}, {3, 5, 7}},
+		{{2, 70000}, {2, 70000}}, // parallel
+		{{3, 5, 7}, {}},
+		{{1}, {4, 9}},
+		{{2, 6, 5, 5}, {1, 6, 1, 1}},
+		{{6, 1, 1}, {2, 6, 5, 5}},
+		{{4, 300, 301}, {300, 1}},
+		{{2, 3, 17}, {17}},
+		{{17}, {2, 3, 17}},
+		{{2, 3, 4, 5}, {3, 4, 1}},
+		{{2, 3, 4, 5}, {3, 1, 5}}, // two blocks: general loop
+		{{2, 1, 4}, {3, 1}},       // both broadcast: general loop
+		{{8, 64, 112, 112}, {64, 1, 1}},
+	}
+	for _, pr := range pairs {
+		a, b := tensor.New(tensor.Float32, pr[0]), tensor.New(tensor.Float32, pr[1])
+		copy(a.F32(), specialF32(r, a.Size()))
+		copy(b.F32(), specialF32(r, b.Size()))
+		os, err := Broadcast(a.Shape, b.Shape)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, op := range []opID{addT, subT, mulT, divT} {
+			want, got := tensor.New(tensor.Float32, os), tensor.New(tensor.Float32, os)
+			applyArith(op, want.F32(), os, a.F32(), a.Shape, b.F32(), b.Shape)
+			if !arithF32Fast(op, got.F32(), os, a.F32(), a.Shape, b.F32(), b.Shape) {
+				applyArith(op, got.F32(), os, a.F32(), a.Shape, b.F32(), b.Shape)
+			}
+			for i, w := range want.F32() {
+				g := got.F32()[i]
+				if math.Float32bits(g) != math.Float32bits(w) && !(g != g && w != w) {
+					t.Fatalf("%v op %d %v: element %d = %g, want %g", pr[0], op, pr[1], i, g, w)
+				}
+			}
+		}
+	}
+}
+
+func TestUnaryF32FastMatchesScalar(t *testing.T) {
+	r := rand.New(rand.NewSource(15))
+	x := specialF32(r, 3*elemChunk+17)
+	check := func(name string, k func(dst, src []float32), ref func(float32) float32) {
+		got := make([]float32, len(x))
+		f32Map(got, x, k)
+		for i, v := range x {
+			w, g := ref(v), got[i]
+			if g != w && !(g != g && w != w) {
+				t.Fatalf("%s(%g) = %g, want %g", name, v, g, w)
+			}
+		}
+	}
+	check("relu", reluF32, func(v float32) float32 {
+		if v < 0 {
+			return 0
+		}
+		return v
+	})
+	check("clip", func(d, s []float32) { clipF32(d, s, -1.5, 6) }, func(v float32) float32 {
+		if v < -1.5 {
+			return -1.5
+		}
+		if v > 6 {
+			return 6
+		}
+		return v
+	})
+	check("clip-inverted", func(d, s []float32) { clipF32(d, s, 2, 1) }, func(v float32) float32 {
+		if v != v {
+			return v
+		}
+		return 1
+	})
+	check("sigmoid", sigmoidF32, elemVia64(elemSigmoid))
+	check("tanh", tanhF32, elemVia64(math.Tanh))
+	check("erf", erfF32, elemVia64(math.Erf))
+}
+
+func TestMaxPoolF32MatchesGeneric(t *testing.T) {
+	r := rand.New(rand.NewSource(16))
+	x := tensor.New(tensor.Float32, []int{3, 5, 13, 11})
+	copy(x.F32(), specialF32(r, x.Size()))
+	attrs := map[string]*loader.Attr{"kernel_shape": linInts("kernel_shape", 3, 3), "strides": linInts("strides", 2, 2), "pads": linInts("pads", 1, 1, 1, 1)}
+	c := linTestCall("MaxPool", attrs, 12, x)
+	if err := maxPoolKernel(c); err != nil {
+		t.Fatal(err)
+	}
+	g, w, err := poolPrepare(c, x, true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	_ = g
+	want := make([]float32, c.Out[0].Size())
+	poolMaxRun(want, nil, x.F32(), 15, w)
+	for i, v := range want {
+		got := c.Out[0].F32()[i]
+		if got != v && !(got != got && v != v) {
+			t.Fatalf("element %d = %g, want %g", i, got, v)
+		}
+	}
+}
