@@ -178,9 +178,11 @@ func mapFloat(t *tensor.Tensor, f32 func(float32) float32, f64 func(float64) flo
 	switch d := t.Data.(type) {
 	case []float32:
 		out := make([]float32, len(d))
-		for i, v := range d {
-			out[i] = f32(v)
-		}
+		f32Map(out, d, func(dst, src []float32) {
+			for i, v := range src {
+				dst[i] = f32(v)
+			}
+		})
 		return &tensor.Tensor{DType: tensor.Float32, Shape: append([]int{}, t.Shape...), Data: out}, nil
 	case []float64:
 		out := make([]float64, len(d))

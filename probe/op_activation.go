@@ -19,10 +19,10 @@ func init() {
 	reg("Selu", elemSelu, 1, 6)
 	reg("Celu", elemCelu, 12)
 	reg("ThresholdedRelu", elemThresholdedRelu, 10)
-	reg("Sigmoid", elemFloatKernel(elemSigmoid), 1, 6, 13)
+	reg("Sigmoid", unaryF32Kernel(elemSigmoid, sigmoidF32), 1, 6, 13)
 	reg("HardSigmoid", elemHardSigmoid, 1, 6)
 	reg("HardSwish", elemFloatKernel(elemHardSwish), 14)
-	reg("Tanh", elemFloatKernel(math.Tanh), 1, 6, 13)
+	reg("Tanh", unaryF32Kernel(math.Tanh, tanhF32), 1, 6, 13)
 	reg("Softplus", elemFloatKernel(elemSoftplus), 1)
 	reg("Softsign", elemFloatKernel(func(x float64) float64 { return x / (1 + math.Abs(x)) }), 1)
 	reg("Gelu", elemGelu, 20)
@@ -168,6 +168,10 @@ func elemNumericMap(c *Call, op elemNumOp, p1, p2 float64) error {
 	out := tensor.New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
+		if op == elemReluOp {
+			f32Map(out.F32(), d, reluF32)
+			break
+		}
 		elemNumericApply(op, p1, p2, out.F32(), d)
 	case []float64:
 		elemNumericApply(op, p1, p2, out.F64(), d)
@@ -306,6 +310,17 @@ func elemClip(c *Call) error {
 	out := tensor.New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
+		l, h := float32(math.Inf(-1)), float32(math.Inf(1))
+		if lo != nil {
+			l = lo.F32()[0]
+		}
+		if hi != nil {
+			h = hi.F32()[0]
+		}
+		if l == l && h == h {
+			f32Map(out.F32(), d, func(dst, src []float32) { clipF32(dst, src, l, h) })
+			break
+		}
 		elemClipApply(out.F32(), d, lo, hi)
 	case []float64:
 		elemClipApply(out.F64(), d, lo, hi)

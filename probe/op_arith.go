@@ -71,7 +71,9 @@ func arith(_ func(x, y float64) float64, op opID) Kernel {
 		out := tensor.New(a.DType, os)
 		switch x := a.Data.(type) {
 		case []float32:
-			applyArith(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape)
+			if !arithF32Fast(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) {
+				applyArith(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape)
+			}
 		case []float64:
 			applyArith(op, out.F64(), os, x, a.Shape, b.F64(), b.Shape)
 		case []int64:

@@ -113,6 +113,10 @@ func (g *convGeom) clonePads() {
 	g.padEnd = append([]int{}, g.padEnd...)
 }
 
+// convUseReference routes float32 convolutions through the generic path
+// below (im2col + linGemmT) instead of convFastF32; tests flip it.
+var convUseReference = false
+
 // convColBudget bounds the im2col buffer (elements) of one Conv call.
 const convColBudget = 1 << 21
 
@@ -289,6 +293,15 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	direct := K == 1 && P == inSize
 	for i := 0; i < nd && direct; i++ {
 		direct = g.strides[i] == 1 && g.padBeg[i] == 0
+	}
+	if xf, ok := any(xd).([]float32); ok && !convUseReference {
+		var bd []float32
+		if b != nil {
+			bd = b.F32()
+		}
+		convFastF32(&convF32Args{c: c, w: w, xd: xf, wd: any(wd).([]float32), bd: bd, yd: any(yd).([]float32),
+			N: N, C: C, M: M, group: group, Cg: Cg, Mg: Mg, K: K, P: P, inSize: inSize, g: &g, direct: direct})
+		return out, nil
 	}
 	// The column matrix is built in blocks of whole output rows so that it
 	// stays within convColBudget elements however large the image.

@@ -7,6 +7,7 @@ import (
 	"gonum.org/v1/gonum/blas/blas32"
 	"gonum.org/v1/gonum/blas/blas64"
 
+	"vitals/gemm"
 	"vitals/tensor"
 )
 
@@ -29,6 +30,27 @@ func linTrans(t bool) blas.Transpose {
 // linGemm computes C = alpha·op(A)·op(B) + beta·C for row-major float32
 // matrices, op(A) m×k, op(B) k×n, C m×n (leading dimensions lda, ldb, ldc).
 func linGemm(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 {
+		linScaleRows(c, m, n, ldc, beta)
+		return
+	}
+	if linGemmReference {
+		linGemmRef(transA, transB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+		return
+	}
+	gemm.Sgemm(transA, transB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+}
+
+// linGemmReference makes linGemm use linGemmRef (tests flip it to compute
+// reference results).
+var linGemmReference = false
+
+// linGemmRef is the gonum SGEMM that linGemm used before vitals/gemm: the
+// reference the fast paths are tested against.
+func linGemmRef(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
 	if m == 0 || n == 0 {
 		return
 	}
@@ -117,6 +139,12 @@ func matMulKernel(c *Call) error {
 	}
 	if a.Rank() == 0 || b.Rank() == 0 {
 		return fmt.Errorf("MatMul needs inputs of rank ≥ 1, got %v and %v", a.Shape, b.Shape)
+	}
+	if av, ok := a.Data.([]float32); ok && b.Rank() == 2 && b.DType == a.DType && c.isInitializer(1) && !linGemmReference {
+		if out, ok := matMulPackedB(a, av, b); ok {
+			c.Set(0, out)
+			return nil
+		}
 	}
 	var out *tensor.Tensor
 	var err error
@@ -254,6 +282,12 @@ func gemmKernel(c *Call) error {
 		beta = 0
 	}
 	lda, ldb := max(a.Shape[1], 1), max(b.Shape[1], 1)
+	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference {
+		pb := packedRight(b, b.F32(), tB, k, n, ldb)
+		gemm.SgemmPackedB(tA, m, alpha, av, lda, pb, beta, out.F32(), n)
+		c.Set(0, out)
+		return nil
+	}
 	switch av := a.Data.(type) {
 	case []float32:
 		linGemm(tA, tB, m, n, k, alpha, av, lda, b.F32(), ldb, beta, out.F32(), max(n, 1))
@@ -272,4 +306,26 @@ func gemmKernel(c *Call) error {
 	}
 	c.Set(0, out)
 	return nil
+}
+
+// matMulPackedB is MatMul with a constant 2-D B ([k, n]) packed once: A's
+// leading dimensions fold into the rows of one product. ok is false when the
+// shapes do not fit (the general path then reports the error).
+func matMulPackedB(a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Tensor, bool) {
+	k, n := b.Shape[0], b.Shape[1]
+	if a.Rank() < 1 || a.Shape[a.Rank()-1] != k || k == 0 || n == 0 {
+		return nil, false
+	}
+	outShape := append(append([]int{}, a.Shape[:a.Rank()-1]...), n)
+	rows := len(ad) / k
+	total, err := tensor.NumElements(outShape)
+	if err != nil {
+		return nil, false
+	}
+	out := make([]float32, total)
+	if rows > 0 {
+		pb := packedRight(b, b.F32(), false, k, n, n)
+		gemm.SgemmPackedB(false, rows, 1, ad, k, pb, 0, out, n)
+	}
+	return tensor.From(out, outShape...), true
 }

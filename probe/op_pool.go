@@ -147,7 +147,11 @@ func maxPoolKernel(c *Call) error {
 	planes := x.Shape[0] * x.Shape[1]
 	switch xd := x.Data.(type) {
 	case []float32:
-		poolMaxRun(out.F32(), idx, xd, planes, w)
+		if idx == nil {
+			poolMaxF32(out.F32(), xd, planes, w)
+		} else {
+			poolMaxRun(out.F32(), idx, xd, planes, w)
+		}
 	case []float64:
 		poolMaxRun(out.F64(), idx, xd, planes, w)
 	case []int8:

@@ -31,7 +31,7 @@ func init() {
 	reg("Asinh", f(math.Asinh), 9)
 	reg("Acosh", f(math.Acosh), 9)
 	reg("Atanh", f(math.Atanh), 9)
-	reg("Erf", f(math.Erf), 9, 13)
+	reg("Erf", unaryF32Kernel(math.Erf, erfF32), 9, 13)
 	reg("Neg", elemSignedKernel(elemNeg), 1, 6, 13)
 	reg("Abs", elemSignedKernel(elemAbs), 1, 6, 13)
 	reg("Sign", elemSignedKernel(elemSign), 9, 13)

@@ -1,0 +1,80 @@
+#!/usr/bin/env bash
+# vitals' executor against ONNX Runtime (CPU) on the same models, inputs,
+# batch and cores, in one run.
+#
+# Models (exported once into $VITALS_BENCH_DIR, default ~/.cache/vitals-bench,
+# by bench/gen/export.py with Debian's python3-torch/torchvision, random
+# He-initialised weights): torchvision resnet18 and mobilenet_v2 at 224×224,
+# a 4-layer MLP (784-2048-2048-1024-10), a 4-layer transformer encoder
+# (d=256, 4 heads, ff=1024, 128 tokens). Input: 64 seeded Gaussian items.
+#
+# vitals: `vitals check MODEL --data X.npy --batch 8 --samples 64` (every
+# statistics hook on; wall time of the whole command, model loading and the
+# report included) and, from bench/hookcost, the executor alone with an
+# empty hook, with the statistics hook, and with the one-pass moments.
+# ONNX Runtime: onnxruntime-node (pinned in bench/ort/package.json), 2 intra-op
+# threads, sequential, all graph optimisations, inference time only.
+# Each figure is the best of $REPS rounds (default 3), the two sides alternating.
+#
+# Usage: bench/executor.sh [model ...]   (default: all four)
+set -euo pipefail
+cd "$(dirname "$0")/.."
+REPS=${REPS:-3}
+BATCH=8
+SAMPLES=64
+DIR=${VITALS_BENCH_DIR:-$HOME/.cache/vitals-bench}
+PY=/usr/bin/python3
+models=("$@")
+[ ${#models[@]} -eq 0 ] && models=(resnet18 mobilenet_v2 mlp transformer)
+
+if ! "$PY" -c 'import torch, torchvision' 2>/dev/null; then
+	apt-get install -y python3-torch python3-torchvision
+fi
+for m in "${models[@]}"; do
+	if [ ! -f "$DIR/$m.onnx" ] || [ ! -f "$DIR/$m.npy" ]; then
+		"$PY" bench/gen/export.py "$DIR"
+		break
+	fi
+done
+# onnxruntime-node ships its CPU binary in the npm package; its install step
+# would also fetch optional CUDA files from outside the npm registry, which
+# this machine cannot reach, so that step is skipped.
+if [ ! -d bench/ort/node_modules/onnxruntime-node ]; then
+	(cd bench/ort && ONNXRUNTIME_NODE_INSTALL=skip npm install --no-audit --no-fund --silent)
+fi
+go build -o /tmp/vitals-bench-vitals ./cmd/vitals
+go build -o /tmp/vitals-bench-hookcost ./bench/hookcost
+
+echo "machine: $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2- | sed 's/^ //'), $(nproc) cores, GOMAXPROCS=${GOMAXPROCS:-$(nproc)}, gemm kernel $(go run ./bench/hookcost -kernel)"
+echo "load average before: $(cut -d' ' -f1-3 /proc/loadavg)"
+echo "batch $BATCH, $SAMPLES items, best of $REPS"
+rows=()
+for m in "${models[@]}"; do
+	best_v=1e18
+	best_o=1e18
+	for r in $(seq "$REPS"); do
+		t0=$(date +%s.%N)
+		set +e
+		/tmp/vitals-bench-vitals check "$DIR/$m.onnx" --data "$DIR/$m.npy" --batch $BATCH --samples $SAMPLES --format json >/dev/null 2>/tmp/vitals-bench-err.txt
+		rc=$?
+		set -e
+		t1=$(date +%s.%N)
+		if [ $rc -gt 1 ]; then
+			echo "vitals check failed on $m:" >&2
+			cat /tmp/vitals-bench-err.txt >&2
+			exit 1
+		fi
+		v=$(awk -v a="$t0" -v b="$t1" -v n=$SAMPLES 'BEGIN {printf "%.3f", (b - a) * 1000 / n}')
+		o=$(cd bench/ort && node run.js "$DIR/$m.onnx" "$DIR/$m.npy" $BATCH $SAMPLES 2 1 | sed 's/.*=//')
+		best_v=$(awk -v a="$best_v" -v b="$v" 'BEGIN {print (b < a) ? b : a}')
+		best_o=$(awk -v a="$best_o" -v b="$o" 'BEGIN {print (b < a) ? b : a}')
+	done
+	hc=$(/tmp/vitals-bench-hookcost -model "$DIR/$m.onnx" -data "$DIR/$m.npy" -batch $BATCH -samples $SAMPLES -reps "$REPS" -terse)
+	rows+=("$(printf '| %s | %s | %s | %s | %s |' "$m" "$best_v" "$hc" "$best_o" \
+		"$(awk -v a="$best_v" -v b="$best_o" 'BEGIN {printf "%.2f×", a / b}')")")
+done
+echo
+echo "| model | vitals check ms/image | executor ms/image: empty hook / statistics hook / one-pass moments | ONNX Runtime ms/image | vitals check / ORT |"
+echo "|---|---|---|---|---|"
+printf '%s\n' "${rows[@]}"
+echo "load average after: $(cut -d' ' -f1-3 /proc/loadavg)"

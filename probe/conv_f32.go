@@ -1,0 +1,291 @@
+package probe
+
+import (
+	"vitals/gemm"
+	"vitals/tensor"
+)
+
+// Float32 convolution fast paths:
+//
+//   - channel-wise (depthwise) convolutions, one input channel per output
+//     channel group (Cg == 1), 2-D: a direct kernel over output planes, the
+//     interior of 3×3 windows unrolled; no GEMM (the work is memory bound);
+//   - everything else: per image and group, C = W·cols on vitals/gemm, with
+//     W packed once per initializer, the columns read straight from X for
+//     1×1 stride-1 unpadded kernels and otherwise built by im2col (2-D:
+//     row copies; other ranks: convWalk) in a pooled buffer, split across
+//     cores by channel.
+//
+// The bias is written into Y before the product, which then accumulates
+// (beta = 1), so no separate bias pass runs.
+
+// convFastColBudget bounds the im2col block of one product (elements).
+const convFastColBudget = 1 << 20
+
+type convF32Args struct {
+	c              *Call
+	w              *tensor.Tensor
+	xd, wd, bd, yd []float32
+	N, C, M, group int
+	Cg, Mg, K, P   int
+	inSize         int
+	g              *convGeom
+	direct         bool
+}
+
+func convFastF32(a *convF32Args) {
+	g := a.g
+	nd := len(g.in)
+	// bias first: the products accumulate onto it
+	if a.bd != nil {
+		for n := 0; n < a.N; n++ {
+			for m := 0; m < a.M; m++ {
+				seg := a.yd[(n*a.M+m)*a.P : (n*a.M+m+1)*a.P]
+				bv := a.bd[m]
+				for i := range seg {
+					seg[i] = bv
+				}
+			}
+		}
+	}
+	if a.Cg == 1 && nd == 2 && a.P > 0 {
+		convDepthwise2D(a)
+		return
+	}
+	beta := float32(0)
+	if a.bd != nil {
+		beta = 1
+	}
+	kg := a.Cg * a.K
+	var packs []*gemm.PackedA
+	if a.c.isInitializer(1) && kg > 0 {
+		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
+	}
+	inner := g.out[nd-1]
+	segTotal := a.P / max(inner, 1)
+	chunk := max(1, min(segTotal, convFastColBudget/max(1, kg*inner)))
+	var colBuf *[]float32
+	if !a.direct && a.P > 0 {
+		colBuf = getF32(kg * chunk * inner)
+		defer putF32(colBuf)
+	}
+	for n := 0; n < a.N; n++ {
+		for gi := 0; gi < a.group; gi++ {
+			xg := a.xd[(n*a.C+gi*a.Cg)*a.inSize : (n*a.C+(gi+1)*a.Cg)*a.inSize]
+			yg := a.yd[(n*a.M+gi*a.Mg)*a.P:]
+			if a.direct {
+				convProduct(a, packs, gi, a.P, xg, max(a.P, 1), beta, yg)
+				continue
+			}
+			for s0 := 0; s0 < segTotal; s0 += chunk {
+				sn := min(chunk, segTotal-s0)
+				cols := (*colBuf)[:kg*sn*inner]
+				convIm2col(cols, xg, a.Cg, g, s0, sn)
+				convProduct(a, packs, gi, sn*inner, cols, max(sn*inner, 1), beta, yg[s0*inner:])
+			}
+		}
+	}
+}
+
+// convProduct computes y (Mg×ncols, row stride P) (+)= W_gi · cols.
+func convProduct(a *convF32Args, packs []*gemm.PackedA, gi, ncols int, cols []float32, ldb int, beta float32, y []float32) {
+	kg := a.Cg * a.K
+	if packs != nil {
+		gemm.SgemmPackedA(ncols, 1, packs[gi], false, cols, ldb, beta, y, max(a.P, 1))
+		return
+	}
+	gemm.Sgemm(false, false, a.Mg, ncols, kg, 1, a.wd[gi*a.Mg*kg:], max(kg, 1), cols, ldb, beta, y, max(a.P, 1))
+}
+
+// convIm2col fills cols ([channels·K][segs·inner]) for output segments
+// [seg0, seg0+segs) of one group's image, split across cores by channel.
+func convIm2col(cols, img []float32, channels int, g *convGeom, seg0, segs int) {
+	K := 1
+	for _, k := range g.k {
+		K *= k
+	}
+	inner := g.out[len(g.out)-1]
+	rowLen := segs * inner
+	imgSize := 1
+	for _, d := range g.in {
+		imgSize *= d
+	}
+	minCh := max(1, (1<<14)/max(1, K*rowLen))
+	parFor(channels, minCh, func(c0, c1 int) {
+		dst := cols[c0*K*rowLen : c1*K*rowLen]
+		src := img[c0*imgSize : c1*imgSize]
+		if len(g.in) == 2 {
+			im2col2D(dst, src, c1-c0, g, seg0, segs)
+		} else {
+			convWalk(dst, src, c1-c0, g, g.in, g.out, false, seg0, segs)
+		}
+	})
+}
+
+// convValidRange is the range [lo, hi) of output positions o in [0, n) whose
+// input coordinate o·s + off lies in [0, size).
+func convValidRange(n, s, off, size int) (lo, hi int) {
+	// o·s + off >= 0  ⇔  o >= ceil(−off / s)
+	if off < 0 {
+		lo = (-off + s - 1) / s
+	}
+	// o·s + off < size  ⇔  o < ceil((size − off) / s)
+	if size-off <= 0 {
+		return min(lo, n), min(lo, n)
+	}
+	hi = min(n, (size-off+s-1)/s)
+	lo = min(lo, hi)
+	return lo, hi
+}
+
+// im2col2D is convWalk for 2-D images without scatter, by whole rows: the
+// column row of tap (kh, kw) holds, for output rows oh0.., the input row
+// oh·sh − pt + kh·dh sampled at ow·sw − pl + kw·dw (zero outside).
+func im2col2D(cols, img []float32, channels int, g *convGeom, oh0, rows int) {
+	H, W := g.in[0], g.in[1]
+	KH, KW := g.k[0], g.k[1]
+	OW := g.out[1]
+	sh, sw := g.strides[0], g.strides[1]
+	dh, dw := g.dil[0], g.dil[1]
+	pt, pl := g.padBeg[0], g.padBeg[1]
+	rowLen := rows * OW
+	r := 0
+	for ch := 0; ch < channels; ch++ {
+		im := img[ch*H*W : (ch+1)*H*W]
+		for kh := 0; kh < KH; kh++ {
+			for kw := 0; kw < KW; kw++ {
+				dst := cols[r*rowLen : (r+1)*rowLen]
+				r++
+				off := kw*dw - pl
+				lo, hi := convValidRange(OW, sw, off, W)
+				for i := 0; i < rows; i++ {
+					d := dst[i*OW : (i+1)*OW]
+					ih := (oh0+i)*sh - pt + kh*dh
+					if ih < 0 || ih >= H || lo >= hi {
+						clear(d)
+						continue
+					}
+					clear(d[:lo])
+					clear(d[hi:])
+					src := im[ih*W : (ih+1)*W]
+					if sw == 1 {
+						copy(d[lo:hi], src[lo+off:hi+off])
+						continue
+					}
+					p := lo*sw + off
+					dd := d[lo:hi]
+					for j := range dd {
+						dd[j] = src[p]
+						p += sw
+					}
+				}
+			}
+		}
+	}
+}
+
+// convDepthwise2D: every output channel m reads only input channel m/Mg.
+func convDepthwise2D(a *convF32Args) {
+	g := a.g
+	H, W := g.in[0], g.in[1]
+	OH, OW := g.out[0], g.out[1]
+	KH, KW := g.k[0], g.k[1]
+	planes := a.N * a.M
+	hasBias := a.bd != nil
+	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
+		for p := p0; p < p1; p++ {
+			n, m := p/a.M, p%a.M
+			ci := m / a.Mg // input channel (Cg == 1)
+			x := a.xd[(n*a.C+ci)*H*W : (n*a.C+ci+1)*H*W]
+			w := a.wd[m*KH*KW : (m+1)*KH*KW]
+			y := a.yd[p*OH*OW : (p+1)*OH*OW]
+			if !hasBias {
+				clear(y)
+			}
+			if KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 {
+				dw3x3Plane(y, x, w, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
+				continue
+			}
+			dwGenericPlane(y, x, w, H, W, OH, OW, KH, KW, g, 0, OH, 0, OW)
+		}
+	})
+}
+
+// dwGenericPlane accumulates the window sums of output rows [oh0, oh1) and
+// columns [ow0, ow1) of one plane into y, tap by tap.
+func dwGenericPlane(y, x, w []float32, H, W, OH, OW, KH, KW int, g *convGeom, oh0, oh1, ow0, ow1 int) {
+	sh, sw := g.strides[0], g.strides[1]
+	dh, dw := g.dil[0], g.dil[1]
+	pt, pl := g.padBeg[0], g.padBeg[1]
+	for kh := 0; kh < KH; kh++ {
+		for kw := 0; kw < KW; kw++ {
+			wv := w[kh*KW+kw]
+			off := kw*dw - pl
+			lo, hi := convValidRange(OW, sw, off, W)
+			lo, hi = max(lo, ow0), min(hi, ow1)
+			if lo >= hi {
+				continue
+			}
+			for oh := oh0; oh < oh1; oh++ {
+				ih := oh*sh - pt + kh*dh
+				if ih < 0 || ih >= H {
+					continue
+				}
+				src := x[ih*W : (ih+1)*W]
+				dst := y[oh*OW : (oh+1)*OW]
+				p := lo*sw + off
+				for j := lo; j < hi; j++ {
+					dst[j] += wv * src[p]
+					p += sw
+				}
+			}
+		}
+	}
+}
+
+// dw3x3Plane: 3×3 window, any stride and padding. The interior (all nine
+// taps inside the image) runs unrolled; the border goes through dwGenericPlane.
+func dw3x3Plane(y, x, w []float32, H, W, OH, OW, sh, sw, pt, pl int) {
+	g := &convGeom{strides: []int{sh, sw}, dil: []int{1, 1}, padBeg: []int{pt, pl}}
+	// interior rows: oh·sh − pt ≥ 0 and oh·sh − pt + 2 < H
+	rlo, rhi := convValidRange(OH, sh, -pt, H-2)
+	clo, chi := convValidRange(OW, sw, -pl, W-2)
+	if rlo >= rhi || clo >= chi {
+		dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, 0, OH, 0, OW)
+		return
+	}
+	// border strips
+	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, 0, rlo, 0, OW)
+	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, rhi, OH, 0, OW)
+	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, rlo, rhi, 0, clo)
+	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, rlo, rhi, chi, OW)
+	w0, w1, w2, w3, w4, w5, w6, w7, w8 := w[0], w[1], w[2], w[3], w[4], w[5], w[6], w[7], w[8]
+	n := chi - clo
+	for oh := rlo; oh < rhi; oh++ {
+		ih := oh*sh - pt
+		base := clo*sw - pl
+		r0 := x[ih*W+base:]
+		r1 := x[(ih+1)*W+base:]
+		r2 := x[(ih+2)*W+base:]
+		dst := y[oh*OW+clo : oh*OW+chi]
+		if sw == 1 {
+			r0, r1, r2 = r0[:n+2], r1[:n+2], r2[:n+2]
+			for j := range dst {
+				s := dst[j]
+				s += w0*r0[j] + w1*r0[j+1] + w2*r0[j+2]
+				s += w3*r1[j] + w4*r1[j+1] + w5*r1[j+2]
+				s += w6*r2[j] + w7*r2[j+1] + w8*r2[j+2]
+				dst[j] = s
+			}
+			continue
+		}
+		for j := range dst {
+			p := j * sw
+			s := dst[j]
+			s += w0*r0[p] + w1*r0[p+1] + w2*r0[p+2]
+			s += w3*r1[p] + w4*r1[p+1] + w5*r1[p+2]
+			s += w6*r2[p] + w7*r2[p+1] + w8*r2[p+2]
+			dst[j] = s
+		}
+	}
+}

@@ -1,0 +1,241 @@
+package probe
+
+import (
+	"math"
+
+	"vitals/tensor"
+)
+
+// Float32 elementwise fast paths: slice kernels with the operation chosen
+// once per call (no per-element closure or interface call), split across
+// cores for large tensors in fixed contiguous chunks (parFor), so results do
+// not depend on the number of workers.
+
+// elemChunk is the smallest share of a parallel elementwise loop.
+const elemChunk = 1 << 15
+
+// f32Map runs k over (dst, src) in parallel chunks.
+func f32Map(dst, src []float32, k func(dst, src []float32)) {
+	dst = dst[:len(src)]
+	parFor(len(src), elemChunk, func(lo, hi int) { k(dst[lo:hi], src[lo:hi]) })
+}
+
+func reluF32(dst, src []float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		dst[i] = max(v, 0)
+	}
+}
+
+// clipF32 is min(max(x, lo), hi); NaN stays NaN (bounds must not be NaN).
+func clipF32(dst, src []float32, lo, hi float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		dst[i] = min(max(v, lo), hi)
+	}
+}
+
+func sigmoidF32(dst, src []float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		dst[i] = float32(elemSigmoid(float64(v)))
+	}
+}
+
+func tanhF32(dst, src []float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		dst[i] = float32(math.Tanh(float64(v)))
+	}
+}
+
+func erfF32(dst, src []float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		dst[i] = float32(math.Erf(float64(v)))
+	}
+}
+
+// unaryF32Kernel is a float kernel whose float32 case runs the slice kernel
+// k32 (which must compute exactly float32(g(float64(x)))) and whose other
+// cases go through mapFloat with g.
+func unaryF32Kernel(g func(float64) float64, k32 func(dst, src []float32)) Kernel {
+	slow := unaryFloat(elemVia64(g), g)
+	return func(c *Call) error {
+		if err := c.Need(1); err != nil {
+			return err
+		}
+		x := c.In[0]
+		if d, ok := x.Data.([]float32); ok {
+			out := tensor.New(tensor.Float32, x.Shape)
+			f32Map(out.F32(), d, k32)
+			c.Set(0, out)
+			return nil
+		}
+		return slow(c)
+	}
+}
+
+// Binary arithmetic.
+
+// vvF32: dst = x op y elementwise (same length).
+func vvF32(op opID, dst, x, y []float32) {
+	dst, y = dst[:len(x)], y[:len(x)]
+	switch op {
+	case addT:
+		for i := range x {
+			dst[i] = x[i] + y[i]
+		}
+	case subT:
+		for i := range x {
+			dst[i] = x[i] - y[i]
+		}
+	case mulT:
+		for i := range x {
+			dst[i] = x[i] * y[i]
+		}
+	case divT:
+		for i := range x {
+			dst[i] = x[i] / y[i]
+		}
+	}
+}
+
+// vsF32: dst = x op s, or s op x when swap.
+func vsF32(op opID, dst, x []float32, s float32, swap bool) {
+	dst = dst[:len(x)]
+	switch {
+	case op == addT:
+		for i, v := range x {
+			dst[i] = v + s
+		}
+	case op == mulT:
+		for i, v := range x {
+			dst[i] = v * s
+		}
+	case op == subT && !swap:
+		for i, v := range x {
+			dst[i] = v - s
+		}
+	case op == subT:
+		for i, v := range x {
+			dst[i] = s - v
+		}
+	case op == divT && !swap:
+		for i, v := range x {
+			dst[i] = v / s
+		}
+	case op == divT:
+		for i, v := range x {
+			dst[i] = s / v
+		}
+	}
+}
+
+// arithF32Fast computes out = a op b for float32 when one operand has the
+// output's shape and the other (small) one varies along one contiguous
+// block of axes only (a scalar, a per-channel [C,1,1] or a trailing bias
+// [D]); it reports false for every other broadcast, left to binaryLoop.
+func arithF32Fast(op opID, out []float32, os []int, a []float32, as []int, b []float32, bs []int) bool {
+	n := len(out)
+	if n == 0 {
+		return false
+	}
+	if len(a) == n && len(b) == n {
+		parFor(n, elemChunk, func(lo, hi int) { vvF32(op, out[lo:hi], a[lo:hi], b[lo:hi]) })
+		return true
+	}
+	full, small, ss, swap := a, b, bs, false
+	if len(a) != n {
+		if len(b) != n {
+			return false
+		}
+		full, small, ss, swap = b, a, as, true
+	}
+	if len(small) == 1 {
+		s := small[0]
+		parFor(n, elemChunk, func(lo, hi int) { vsF32(op, out[lo:hi], full[lo:hi], s, swap) })
+		return true
+	}
+	// out = [outer, B, inner], small varies along B only
+	rank := len(os)
+	sh := make([]int, rank)
+	for i := range sh {
+		sh[i] = 1
+	}
+	copy(sh[rank-len(ss):], ss)
+	p, q := -1, -1
+	for i, d := range sh {
+		if d != 1 {
+			if p < 0 {
+				p = i
+			} else if q >= 0 {
+				return false // two separate blocks
+			}
+			if d != os[i] {
+				return false
+			}
+		} else if p >= 0 && q < 0 {
+			q = i
+		}
+	}
+	if p < 0 {
+		return false
+	}
+	if q < 0 {
+		q = rank
+	}
+	for i := q; i < rank; i++ {
+		if sh[i] != 1 {
+			return false
+		}
+	}
+	B, inner := len(small), 1
+	for _, d := range os[q:] {
+		inner *= d
+	}
+	if inner == 1 {
+		// rows of B elements: dst row = full row op small
+		rows := n / B
+		parFor(rows, max(1, elemChunk/B), func(lo, hi int) {
+			for r := lo; r < hi; r++ {
+				d, f := out[r*B:(r+1)*B], full[r*B:(r+1)*B]
+				if swap {
+					vvF32(op, d, small, f)
+				} else {
+					vvF32(op, d, f, small)
+				}
+			}
+		})
+		return true
+	}
+	blocks := n / inner
+	parFor(blocks, max(1, elemChunk/inner), func(lo, hi int) {
+		for r := lo; r < hi; r++ {
+			vsF32(op, out[r*inner:(r+1)*inner], full[r*inner:(r+1)*inner], small[r%B], swap)
+		}
+	})
+	return true
+}
+
+// poolMaxF32 is poolMaxRun for float32 without indices, planes split across
+// cores. The maximum propagates NaN as poolMaxRun does.
+func poolMaxF32(y, x []float32, planes int, w *poolWindows) {
+	parFor(planes, max(1, elemChunk/max(1, w.outSize*4)), func(p0, p1 int) {
+		for pl := p0; pl < p1; pl++ {
+			xp := x[pl*w.inSize : (pl+1)*w.inSize]
+			yp := y[pl*w.outSize : (pl+1)*w.outSize]
+			for p := range yp {
+				offs := w.offs[w.start[p]:w.start[p+1]]
+				if len(offs) == 0 {
+					continue
+				}
+				best := xp[offs[0]]
+				for _, o := range offs[1:] {
+					best = max(best, xp[o])
+				}
+				yp[p] = best
+			}
+		}
+	})
+}

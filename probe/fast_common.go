@@ -1,0 +1,105 @@
+package probe
+
+import (
+	"runtime"
+	"sync"
+	"weak"
+
+	"vitals/gemm"
+	"vitals/tensor"
+)
+
+// Shared machinery of the float32 fast paths: the packed-weight cache and a
+// deterministic parallel loop.
+
+// isInitializer reports whether t is input i of the call and a constant
+// initializer of the running plan (immutable for the plan's lifetime).
+func (c *Call) isInitializer(i int) bool {
+	if c.run == nil || c.run.plan == nil || i >= len(c.Node.Inputs) || i >= len(c.In) {
+		return false
+	}
+	t, ok := c.run.plan.Graph.Initializers[c.Node.Inputs[i]]
+	return ok && t == c.In[i]
+}
+
+// packKey identifies one packing of one weight tensor: the tensor (held
+// weakly, so the cache never keeps a model alive) and how it was packed.
+type packKey struct {
+	t     weak.Pointer[tensor.Tensor]
+	kind  uint8 // 'A' conv weights per group, 'B' right operand of a product
+	trans bool
+	group int
+}
+
+// packCache maps packKey → []*gemm.PackedA or *gemm.PackedB. An entry is
+// dropped when its tensor is garbage collected.
+var packCache sync.Map
+
+func cachedPack[V any](t *tensor.Tensor, kind uint8, trans bool, group int, build func() V) V {
+	key := packKey{t: weak.Make(t), kind: kind, trans: trans, group: group}
+	if v, ok := packCache.Load(key); ok {
+		return v.(V)
+	}
+	v := build()
+	if _, loaded := packCache.LoadOrStore(key, v); !loaded {
+		runtime.AddCleanup(t, func(k packKey) { packCache.Delete(k) }, key)
+	}
+	return v
+}
+
+// packedConvWeights packs W ([M][Cg·K], group-major) once per group.
+func packedConvWeights(w *tensor.Tensor, wd []float32, group, mg, kg int) []*gemm.PackedA {
+	return cachedPack(w, 'A', false, group, func() []*gemm.PackedA {
+		ps := make([]*gemm.PackedA, group)
+		for g := range ps {
+			ps[g] = gemm.PackA(false, mg, kg, wd[g*mg*kg:(g+1)*mg*kg], max(kg, 1))
+		}
+		return ps
+	})
+}
+
+// packedRight packs op(B) (k×n) once.
+func packedRight(b *tensor.Tensor, bd []float32, trans bool, k, n, ldb int) *gemm.PackedB {
+	return cachedPack(b, 'B', trans, 0, func() *gemm.PackedB {
+		return gemm.PackB(trans, k, n, bd, ldb)
+	})
+}
+
+// parFor splits [0, n) into at most GOMAXPROCS contiguous chunks of at least
+// minChunk items and runs f on each; chunk boundaries depend only on n,
+// minChunk and GOMAXPROCS, and f must write disjoint outputs, so results do
+// not depend on scheduling.
+func parFor(n, minChunk int, f func(lo, hi int)) {
+	workers := min(runtime.GOMAXPROCS(0), n/max(minChunk, 1))
+	if workers <= 1 {
+		if n > 0 {
+			f(0, n)
+		}
+		return
+	}
+	var wg sync.WaitGroup
+	step := (n + workers - 1) / workers
+	for lo := step; lo < n; lo += step {
+		wg.Add(1)
+		go func(lo, hi int) {
+			defer wg.Done()
+			f(lo, hi)
+		}(lo, min(lo+step, n))
+	}
+	f(0, min(step, n))
+	wg.Wait()
+}
+
+// f32Pool recycles scratch buffers (im2col columns).
+var f32Pool sync.Pool
+
+func getF32(n int) *[]float32 {
+	if p, ok := f32Pool.Get().(*[]float32); ok && cap(*p) >= n {
+		*p = (*p)[:n]
+		return p
+	}
+	s := make([]float32, n)
+	return &s
+}
+
+func putF32(p *[]float32) { f32Pool.Put(p) }

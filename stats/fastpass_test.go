@@ -1,0 +1,139 @@
+package stats
+
+import (
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"testing"
+)
+
+func fastData(rng *rand.Rand, n int, offset float64, specials bool) []float32 {
+	x := make([]float32, n)
+	sp := []float32{0, float32(math.Copysign(0, -1)), float32(math.NaN()), float32(math.Inf(1)), float32(math.Inf(-1))}
+	for i := range x {
+		switch {
+		case rng.IntN(4) == 0:
+			x[i] = 0 // ReLU-like zeros
+		case specials && rng.IntN(3000) == 0:
+			x[i] = sp[rng.IntN(len(sp))]
+		default:
+			x[i] = float32(offset + rng.NormFloat64()*3)
+		}
+	}
+	return x
+}
+
+func momentsClose(t *testing.T, what string, got, want Moments) {
+	t.Helper()
+	if got.N != want.N || got.Zeros != want.Zeros || got.Nonfinite != want.Nonfinite || got.Min != want.Min || got.Max != want.Max {
+		t.Fatalf("%s: got %+v, want %+v", what, got, want)
+	}
+	if want.N == 0 {
+		return
+	}
+	if math.Abs(got.Mean-want.Mean) > 1e-9*(1+math.Abs(want.Mean)) || math.Abs(got.M2-want.M2) > 1e-8*(1+want.M2) {
+		t.Fatalf("%s: mean %.15g M2 %.15g, want %.15g %.15g", what, got.Mean, got.M2, want.Mean, want.M2)
+	}
+}
+
+func TestFastMomentsMatchesAddFloat32(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for _, n := range []int{0, 1, 3, 4, 7, 100, fastChunk - 1, fastChunk, fastChunk + 5, 3*fastChunk + 1, fastParallelMin + 12345} {
+		for _, offset := range []float64{0, 1e4} {
+			for _, specials := range []bool{false, true} {
+				x := fastData(rng, n, offset, specials)
+				want := NewMoments()
+				want.AddFloat32(x)
+				momentsClose(t, "fast", FastMoments(x), want)
+			}
+		}
+	}
+	negZero := float32(math.Copysign(0, -1))
+	for _, x := range [][]float32{
+		{0, negZero, 1, 2, 3}, {negZero, 0, 1, 2, 3}, {1, 2, 0, 3, 4}, {negZero, 5, 6, 7},
+		{0, negZero, -1, -2}, {negZero, 0, -1, -2, -3}, {-1, negZero, -3, -4}, {0, -5, -6, -7, -8},
+		{0, negZero}, {negZero, 0}, {negZero}, {0},
+	} {
+		want := NewMoments()
+		want.AddFloat32(x)
+		got := FastMoments(x)
+		momentsClose(t, "signed zeros", got, want)
+		if math.Signbit(got.Min) != math.Signbit(want.Min) || math.Signbit(got.Max) != math.Signbit(want.Max) {
+			t.Fatalf("%v: min %g max %g, want %g %g", x, got.Min, got.Max, want.Min, want.Max)
+		}
+	}
+	allBad := []float32{float32(math.NaN()), float32(math.Inf(1))}
+	want := NewMoments()
+	want.AddFloat32(allBad)
+	momentsClose(t, "all non-finite", FastMoments(allBad), want)
+}
+
+func TestFastMomentsIndependentOfWorkers(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	x := fastData(rng, 4*fastParallelMin+77, 0.5, true)
+	a := FastMoments(x)
+	old := runtime.GOMAXPROCS(1)
+	b := FastMoments(x)
+	runtime.GOMAXPROCS(3)
+	c := FastMoments(x)
+	runtime.GOMAXPROCS(old)
+	if a != b || a != c {
+		t.Fatalf("results depend on workers: %+v %+v %+v", a, b, c)
+	}
+}
+
+func TestFastUnitScansMatch(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	units, inner := 13, 37
+	x := fastData(rng, 3*units*inner, -2, true)
+	for u := 0; u < units; u += 3 { // some units never positive
+		for o := 0; o < 3; o++ {
+			for i := 0; i < inner; i++ {
+				x[o*units*inner+u*inner+i] = -float32(rng.Float64())
+			}
+		}
+	}
+	x[5*inner+3] = float32(math.NaN()) // a NaN next to positives in a dead unit's neighbour
+	a, b := make([]bool, units), make([]bool, units)
+	everPositive(a, x, units, inner)
+	everPositiveFast(b, x, units, inner)
+	for u := range a {
+		if a[u] != b[u] {
+			t.Fatalf("unit %d: fast %v, want %v", u, b[u], a[u])
+		}
+	}
+}
+
+func benchStats(b *testing.B, f func(x []float32)) {
+	for _, n := range []int{1 << 16, 1 << 22} {
+		x := fastData(rand.New(rand.NewPCG(1, 2)), n, 0.1, false)
+		b.Run(map[int]string{1 << 16: "256KiB", 1 << 22: "16MiB"}[n], func(b *testing.B) {
+			b.SetBytes(int64(4 * n))
+			for b.Loop() {
+				f(x)
+			}
+		})
+	}
+}
+
+// BenchmarkFastMoments reports the one-pass moments in MB/s (go test's
+// throughput unit, 10⁶ bytes of float32 input per second).
+func BenchmarkFastMoments(b *testing.B) { benchStats(b, func(x []float32) { FastMoments(x) }) }
+
+// BenchmarkAddFloat32 is the two-pass moments it replaces.
+func BenchmarkAddFloat32(b *testing.B) {
+	benchStats(b, func(x []float32) { m := NewMoments(); m.AddFloat32(x) })
+}
+
+func BenchmarkHistogram(b *testing.B) {
+	benchStats(b, func(x []float32) { var h Histogram; h.AddFloat32(x, -20, 20) })
+}
+
+func BenchmarkEverPositiveFast(b *testing.B) {
+	benchStats(b, func(x []float32) { everPositiveFast(make([]bool, 64), x, 64, len(x)/64) })
+}
+
+func BenchmarkCountSaturated(b *testing.B) {
+	ai := actInfo{satLo: -0.99, satHi: 0.99, strict: true}
+	benchStats(b, func(x []float32) { countSaturated(x, ai) })
+}
