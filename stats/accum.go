@@ -140,8 +140,16 @@ func histGrid(mn, mx float64) (int, int64) {
 
 // AddFloat32 adds the finite values of x; mn and mx are x's finite min and max.
 func (h *Histogram) AddFloat32(x []float32, mn, mx float64) {
+	if h.prepare(mn, mx) {
+		h.countInto(h.Counts, x)
+	}
+}
+
+// prepare widens the grid for a batch with finite range [mn, mx]; false when
+// the batch has no finite values.
+func (h *Histogram) prepare(mn, mx float64) bool {
 	if math.IsInf(mn, 0) || math.IsInf(mx, 0) || mn > mx {
-		return // no finite values
+		return false
 	}
 	if h.Counts == nil {
 		h.Min, h.Max = mn, mx
@@ -155,13 +163,17 @@ func (h *Histogram) AddFloat32(x []float32, mn, mx float64) {
 	} else if e != h.Exp || start != h.Start {
 		h.regrid(e, start)
 	}
+	return true
+}
+
+// countInto adds the finite values of x to counts on the current grid.
+func (h *Histogram) countInto(counts []int64, x []float32) {
 	inv := 1 / h.Width
 	lo := h.Lo
-	counts := h.Counts
 	last := len(counts) - 1
 	for _, v := range x {
 		f := float64(v)
-		if f != f || math.IsInf(f, 0) {
+		if f != f || f-f != 0 { // NaN or ±Inf
 			continue
 		}
 		i := int((f - lo) * inv)

@@ -2,6 +2,8 @@ package stats
 
 import (
 	"math"
+	"runtime"
+	"sync"
 
 	"vitals/loader"
 	"vitals/probe"
@@ -259,48 +261,117 @@ func channelAxis(t *tensor.Tensor) int {
 func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	x, ok := t.Data.([]float32)
 	if !ok {
-		if f, ok64 := t.Data.([]float64); ok64 {
-			x = make([]float32, len(f))
-			for i, v := range f {
-				x[i] = float32(v)
-			}
-		} else {
+		f, ok64 := t.Data.([]float64)
+		if !ok64 {
 			return
+		}
+		x = make([]float32, len(f))
+		for i, v := range f {
+			x[i] = float32(v)
 		}
 	}
 	if la.shape == nil {
 		la.shape = append([]int{}, t.Shape...) // the first batch's shape
 	}
-	b := NewMoments()
-	b.AddFloat32(x)
+	// pass 1: moments (the histogram grid needs the batch's min and max)
+	b := FastMoments(x)
 	la.mom.Merge(b)
-	la.hist.AddFloat32(x, b.Min, b.Max)
 	if c.perChanWanted[la.output] && t.Rank() >= 2 {
 		la.perChan = perChannel(la.perChan, t, 1)
 	}
-	if la.act.kind == ActNone || t.Rank() == 0 {
-		return
+	units, inner, axis := 0, 0, 0
+	if la.act.kind != ActNone && t.Rank() > 0 {
+		axis = t.Rank() - 1
+		if la.unitKind == 1 || (la.unitKind == 0 && t.Rank() >= 3) {
+			axis = 1
+		}
+		la.unitAxis = axis
+		units = t.Shape[axis]
+		if len(la.everPos) != units {
+			la.everPos = make([]bool, units)
+		}
+		inner = 1
+		for _, d := range t.Shape[axis+1:] {
+			inner *= d
+		}
 	}
-	axis := t.Rank() - 1
-	if la.unitKind == 1 || (la.unitKind == 0 && t.Rank() >= 3) {
-		axis = 1
-	}
-	la.unitAxis = axis
-	units := t.Shape[axis]
-	if len(la.everPos) != units {
-		la.everPos = make([]bool, units)
-	}
-	inner := 1
-	for _, d := range t.Shape[axis+1:] {
-		inner *= d
-	}
-	if la.act.kind == ActReLU {
-		everPositive(la.everPos, x, units, inner)
-	}
+	// pass 2: histogram, ever-positive units and saturation counts; integer
+	// results, so splitting the work across cores cannot change them
+	la.hist.prepare(b.Min, b.Max)
+	sat := secondPass(la, x, units, inner)
 	if la.act.hasSat {
-		la.sat += countSaturated(x, la.act)
+		la.sat += sat
 		la.satN += int64(len(x))
 	}
+}
+
+// secondPass fills the histogram (grid already prepared), the ever-positive
+// flags and counts saturated values, over blocks of whole outer rows in parallel.
+func secondPass(la *layerAcc, x []float32, units, inner int) int64 {
+	block := len(x)
+	if units > 0 {
+		block = units * inner
+	}
+	if block == 0 {
+		return 0
+	}
+	rows := len(x) / block
+	workers := 1
+	if len(x) >= fastParallelMin && rows > 1 {
+		workers = min(runtime.GOMAXPROCS(0), rows)
+	}
+	type part struct {
+		counts []int64
+		ever   []bool
+		sat    int64
+	}
+	parts := make([]part, workers)
+	work := func(w int) {
+		p := &parts[w]
+		if w == 0 {
+			p.counts, p.ever = la.hist.Counts, la.everPos
+		} else {
+			if la.hist.Counts != nil {
+				p.counts = make([]int64, len(la.hist.Counts))
+			}
+			p.ever = make([]bool, len(la.everPos))
+		}
+		lo, hi := w*rows/workers, (w+1)*rows/workers
+		seg := x[lo*block : hi*block]
+		if p.counts != nil {
+			la.hist.countInto(p.counts, seg)
+		}
+		if la.act.kind == ActReLU {
+			everPositiveFast(p.ever, seg, units, inner)
+		}
+		if la.act.hasSat {
+			p.sat = countSaturated(seg, la.act)
+		}
+	}
+	if workers > 1 {
+		var wg sync.WaitGroup
+		for w := 1; w < workers; w++ {
+			wg.Add(1)
+			go func() { defer wg.Done(); work(w) }()
+		}
+		work(0)
+		wg.Wait()
+	} else {
+		work(0)
+	}
+	sat := parts[0].sat
+	for _, p := range parts[1:] {
+		for i, c := range p.counts {
+			la.hist.Counts[i] += c
+		}
+		for i, e := range p.ever {
+			if e {
+				la.everPos[i] = true
+			}
+		}
+		sat += p.sat
+	}
+	return sat
 }
 
 // everPositive sets ever[u] when any element of unit u is > 0; data is laid
@@ -341,7 +412,8 @@ func countSaturated(x []float32, a actInfo) int64 {
 	return n
 }
 
-// perChannel merges the batch's per-channel moments along axis.
+// perChannel merges the batch's per-channel moments along axis, reading each
+// channel's contiguous runs in place.
 func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	x, ok := t.Data.([]float32)
 	if !ok {
@@ -359,14 +431,11 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 		inner *= d
 	}
 	block := ch * inner
-	buf := make([]float32, 0, len(x)/max(ch, 1))
 	for cc := 0; cc < ch; cc++ {
-		buf = buf[:0]
+		b := NewMoments()
 		for o := 0; o+block <= len(x); o += block {
-			buf = append(buf, x[o+cc*inner:o+(cc+1)*inner]...)
+			b.Merge(chunkMoments(x[o+cc*inner : o+(cc+1)*inner]))
 		}
-		var b Moments
-		b.AddFloat32(buf)
 		acc[cc].Merge(b)
 	}
 	return acc

@@ -4,9 +4,6 @@ import (
 	"math"
 	"runtime"
 	"sync"
-
-	"vitals/loader"
-	"vitals/tensor"
 )
 
 // One-pass statistics of a float32 slice at memory speed.
@@ -219,62 +216,4 @@ func everPositiveFast(ever []bool, x []float32, units, inner int) {
 			}
 		}
 	}
-}
-
-// observeFast is Collector.observe with the one-pass moments and the fast
-// unit scans: the same statistics (moments equal up to float64 rounding,
-// the histogram, dead-unit and saturation counts identical). Wire it in by
-// calling it from observe (or replacing observe's body with it).
-func (c *Collector) observeFast(la *layerAcc, t *tensor.Tensor) {
-	x, ok := t.Data.([]float32)
-	if !ok {
-		c.observe(la, t)
-		return
-	}
-	if la.shape == nil {
-		la.shape = append([]int{}, t.Shape...) // the first batch's shape
-	}
-	b := FastMoments(x)
-	la.mom.Merge(b)
-	la.hist.AddFloat32(x, b.Min, b.Max)
-	if c.perChanWanted[la.output] && t.Rank() >= 2 {
-		la.perChan = perChannel(la.perChan, t, 1)
-	}
-	if la.act.kind == ActNone || t.Rank() == 0 {
-		return
-	}
-	axis := t.Rank() - 1
-	if la.unitKind == 1 || (la.unitKind == 0 && t.Rank() >= 3) {
-		axis = 1
-	}
-	la.unitAxis = axis
-	units := t.Shape[axis]
-	if len(la.everPos) != units {
-		la.everPos = make([]bool, units)
-	}
-	inner := 1
-	for _, d := range t.Shape[axis+1:] {
-		inner *= d
-	}
-	if la.act.kind == ActReLU {
-		everPositiveFast(la.everPos, x, units, inner)
-	}
-	if la.act.hasSat {
-		la.sat += countSaturated(x, la.act) // predictable branches: already at memory speed
-		la.satN += int64(len(x))
-	}
-}
-
-// FastHook is Hook with observeFast, for measuring the fast pass before it
-// is wired into observe.
-func (c *Collector) FastHook(n *loader.Node, outs []*tensor.Tensor) error {
-	for i, t := range outs {
-		if t == nil || i >= len(n.Outputs) {
-			continue
-		}
-		if la := c.byOut[n.Outputs[i]]; la != nil {
-			c.observeFast(la, t)
-		}
-	}
-	return nil
 }

@@ -31,7 +31,7 @@ func main() {
 	ops := flag.Bool("ops", false, "print time per operator type")
 	prof := flag.String("cpuprofile", "", "write a CPU profile of the whole run")
 	kernel := flag.Bool("kernel", false, "print the SGEMM micro-kernel in use and exit")
-	flag.BoolVar(&terse, "terse", false, "print only the three times (ms/image) separated by \" / \"")
+	flag.BoolVar(&terse, "terse", false, "print only the two times (ms/image) separated by \" / \"")
 	flag.Parse()
 	if *kernel {
 		fmt.Println(gemm.KernelName())
@@ -89,11 +89,8 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		for r := 0; r < 1; r++ {
 			c := stats.NewCollector(m, p)
 			hook := probe.Hook(empty)
-			switch mode {
-			case 1:
+			if mode == 1 {
 				hook = c.Hook
-			case 2:
-				hook = c.FastHook
 			}
 			t0 := time.Now()
 			for _, b := range batches {
@@ -112,11 +109,11 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	if _, err := p.Run(batches[0], nil); err != nil {
 		return err
 	}
-	var best [3]time.Duration
+	var best [2]time.Duration
 	for i := range best {
 		best[i] = 1 << 62
 	}
-	// alternate the modes so load changes hit all three alike
+	// alternate the modes so load changes hit both alike
 	for r := 0; r < reps; r++ {
 		for mode := range best {
 			d, err := timeIt(mode)
@@ -126,13 +123,13 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			best[mode] = min(best[mode], d)
 		}
 	}
-	off, on, fast := best[0], best[1], best[2]
+	off, on := best[0], best[1]
 	if terse {
-		fmt.Printf("%.2f / %.2f (+%.0f%%) / %.2f (+%.0f%%)\n", ms(off), ms(on), 100*(float64(on)/float64(off)-1), ms(fast), 100*(float64(fast)/float64(off)-1))
+		fmt.Printf("%.2f / %.2f (+%.0f%%)\n", ms(off), ms(on), 100*(float64(on)/float64(off)-1))
 		return nil
 	}
-	fmt.Printf("%s: batch %d, %d images, best of %d: empty hook %.2f ms/image; statistics hook %.2f ms/image (+%.1f%%); with the one-pass moments (FastHook) %.2f ms/image (+%.1f%%)\n",
-		modelPath, batch, n, reps, ms(off), ms(on), 100*(float64(on)/float64(off)-1), ms(fast), 100*(float64(fast)/float64(off)-1))
+	fmt.Printf("%s: batch %d, %d images, best of %d: empty hook %.2f ms/image; statistics hook %.2f ms/image (+%.1f%%)\n",
+		modelPath, batch, n, reps, ms(off), ms(on), 100*(float64(on)/float64(off)-1))
 	if ops {
 		byOp := map[string]time.Duration{}
 		last := time.Now()
