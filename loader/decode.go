@@ -91,6 +91,34 @@ func DecodeModel(b []byte, dir string) (*Model, error) {
 type decoder struct {
 	dir string
 	gen int // counter for generated node names
+	// declared sums the storage the model's initializers declare (all graphs),
+	// checked against the memory budget before any of them is decoded.
+	declared int64
+}
+
+// declaredBytes is the storage a TensorProto's dims and data type ask for,
+// saturating; malformed dims count as 0 (decoding reports them).
+func declaredBytes(tp *onnxpb.TensorProto) int64 {
+	shape := make([]int, len(tp.GetDims()))
+	for i, v := range tp.GetDims() {
+		if v < 0 || v > tensor.MaxElements {
+			return 0
+		}
+		shape[i] = int(v)
+	}
+	n, err := tensor.NumElements(shape)
+	if err != nil {
+		return 0
+	}
+	return tensor.Bytes(storeType(tensor.DType(tp.GetDataType())), n)
+}
+
+// storeType is the type a tensor of dt is held in (half floats are widened).
+func storeType(dt tensor.DType) tensor.DType {
+	if dt == tensor.Float16 || dt == tensor.BFloat16 {
+		return tensor.Float32
+	}
+	return dt
 }
 
 func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
@@ -99,7 +127,17 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 		Initializers: map[string]*tensor.Tensor{},
 		ValueInfo:    map[string]ValueInfo{},
 	}
-	for _, tp := range gp.GetInitializer() {
+	inits := gp.GetInitializer()
+	for _, tp := range inits {
+		d.declared = satAdd(d.declared, declaredBytes(tp))
+	}
+	for _, sp := range gp.GetSparseInitializer() {
+		d.declared = satAdd(d.declared, declaredBytes(&onnxpb.TensorProto{Dims: sp.GetDims(), DataType: proto.Int32(sp.GetValues().GetDataType())}))
+	}
+	if err := tensor.CheckBytes(fmt.Sprintf("the model's initializers (%d in graph %q and its enclosing graphs)", len(inits), gp.GetName()), d.declared); err != nil {
+		return nil, err
+	}
+	for _, tp := range inits {
 		t, err := d.Tensor(tp)
 		if err != nil {
 			return nil, fmt.Errorf("initializer %q: %w", tp.GetName(), err)
@@ -284,7 +322,16 @@ func DecodeTensor(b []byte) (*tensor.Tensor, error) {
 	return (&decoder{}).Tensor(&tp)
 }
 
-// Tensor converts a TensorProto to a tensor, widening float16/bfloat16 to float32.
+func satAdd(a, b int64) int64 {
+	if a > 1<<62 || b > 1<<62 {
+		return 1<<63 - 1
+	}
+	return a + b
+}
+
+// Tensor converts a TensorProto to a tensor, widening float16/bfloat16 to
+// float32. The shape is checked for overflow and against the memory budget
+// before anything is read or allocated.
 func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 	shape := make([]int, len(tp.GetDims()))
 	for i, v := range tp.GetDims() {
@@ -298,12 +345,12 @@ func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 		return nil, err
 	}
 	dt := tensor.DType(tp.GetDataType())
-	store := dt
-	if dt == tensor.Float16 || dt == tensor.BFloat16 {
-		store = tensor.Float32
-	}
+	store := storeType(dt)
 	if !store.Supported() {
 		return nil, fmt.Errorf("unsupported data type %v", dt)
+	}
+	if err := tensor.CheckBytes(fmt.Sprintf("shape %v of %v", shape, store), tensor.Bytes(store, n)); err != nil {
+		return nil, err
 	}
 	raw := tp.GetRawData()
 	hasRaw := tp.RawData != nil
@@ -544,6 +591,9 @@ func (d *decoder) external(tp *onnxpb.TensorProto, want int) ([]byte, error) {
 	if err != nil {
 		return nil, fmt.Errorf("external data: %w", err)
 	}
+	if !fi.Mode().IsRegular() {
+		return nil, fmt.Errorf("external data %q is not a regular file", loc)
+	}
 	if length < 0 {
 		length = fi.Size() - offset
 	}
@@ -602,48 +652,47 @@ func (d *decoder) sparse(sp *onnxpb.SparseTensorProto) (*tensor.Tensor, error) {
 	}
 	shape := make([]int, len(sp.GetDims()))
 	for i, v := range sp.GetDims() {
+		if v < 0 || v > tensor.MaxElements {
+			return nil, fmt.Errorf("sparse dimension %d is %d", i, v)
+		}
 		shape[i] = int(v)
 	}
-	n, err := tensor.NumElements(shape)
+	n, err := tensor.CheckShape(vals.DType, shape)
 	if err != nil {
 		return nil, err
 	}
-	out := &tensor.Tensor{DType: vals.DType, Shape: shape, Data: tensor.MakeSlice(vals.DType, n)}
+	if vals.Rank() != 1 {
+		return nil, fmt.Errorf("sparse values have shape %v, want one axis [NNZ]", vals.Shape)
+	}
+	if idx.DType != tensor.Int64 && idx.DType != tensor.Int32 {
+		return nil, fmt.Errorf("sparse indices are %v, want int64", idx.DType)
+	}
 	nnz := vals.Size()
+	switch {
+	case idx.Rank() == 1 && idx.Shape[0] == nnz:
+	case idx.Rank() == 2 && idx.Shape[0] == nnz && idx.Shape[1] == len(shape):
+	default:
+		return nil, fmt.Errorf("sparse indices have shape %v; with %d values and shape %v want [%d] or [%d %d]", idx.Shape, nnz, shape, nnz, nnz, len(shape))
+	}
+	out := &tensor.Tensor{DType: vals.DType, Shape: shape, Data: tensor.MakeSlice(vals.DType, n)}
 	ix := idx.Ints()
-	strides := tensor.Strides(shape)
 	for k := 0; k < nnz; k++ {
 		var flat int
 		if idx.Rank() == 1 {
 			flat = ix[k]
 		} else {
-			for j := range shape {
-				flat += ix[k*len(shape)+j] * strides[j]
+			for j, dim := range shape {
+				v := ix[k*len(shape)+j]
+				if v < 0 || v >= dim {
+					return nil, fmt.Errorf("sparse index %d of value %d is %d, out of range for shape %v", j, k, v, shape)
+				}
+				flat = flat*dim + v
 			}
 		}
 		if flat < 0 || flat >= n {
 			return nil, fmt.Errorf("sparse index %d out of range for shape %v", flat, shape)
 		}
-		setFrom(out.Data, flat, vals.Data, k)
+		tensor.CopyData(sliceRange(out.Data, flat, flat+1), sliceRange(vals.Data, k, k+1))
 	}
 	return out, nil
-}
-
-func setFrom(dst any, i int, src any, j int) {
-	switch d := dst.(type) {
-	case []float32:
-		d[i] = src.([]float32)[j]
-	case []float64:
-		d[i] = src.([]float64)[j]
-	case []int64:
-		d[i] = src.([]int64)[j]
-	case []int32:
-		d[i] = src.([]int32)[j]
-	case []uint8:
-		d[i] = src.([]uint8)[j]
-	case []int8:
-		d[i] = src.([]int8)[j]
-	case []bool:
-		d[i] = src.([]bool)[j]
-	}
 }

@@ -326,6 +326,11 @@ func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (
 			if c.Out[j] == nil {
 				return nil, fmt.Errorf("node %q (%s): kernel produced no output %d (%q)", s.Node.Name, s.Node.OpType, j, name)
 			}
+			// Kernels that allocate with make rather than tensor.New are held
+			// to the memory budget here, before the run goes on.
+			if err := tensor.CheckBytes(fmt.Sprintf("output %q %v", name, c.Out[j]), tensor.Bytes(c.Out[j].DType, c.Out[j].Size())); err != nil {
+				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
+			}
 			env.vals[name] = c.Out[j]
 		}
 		if hook != nil {
@@ -352,6 +357,11 @@ func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (
 func (p *Plan) call(s *Step, c *Call) (err error) {
 	defer func() {
 		if r := recover(); r != nil {
+			// An allocation over the memory budget is the model's doing, not a bug.
+			if be, ok := r.(*tensor.BudgetError); ok {
+				err = fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, be)
+				return
+			}
 			msg := fmt.Sprint(r)
 			if p.Debug {
 				msg += "\n" + string(debug.Stack())
