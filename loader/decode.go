@@ -128,13 +128,23 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 		ValueInfo:    map[string]ValueInfo{},
 	}
 	inits := gp.GetInitializer()
+	// Budget before decoding: each declared initializer, then their sum.
+	declare := func(name string, dims []int64, dt int32) error {
+		b := declaredBytes(&onnxpb.TensorProto{Dims: dims, DataType: proto.Int32(dt)})
+		d.declared = satAdd(d.declared, b)
+		return tensor.CheckBytes(fmt.Sprintf("initializer %q (shape %v of %v)", name, dims, storeType(tensor.DType(dt))), b)
+	}
 	for _, tp := range inits {
-		d.declared = satAdd(d.declared, declaredBytes(tp))
+		if err := declare(tp.GetName(), tp.GetDims(), tp.GetDataType()); err != nil {
+			return nil, err
+		}
 	}
 	for _, sp := range gp.GetSparseInitializer() {
-		d.declared = satAdd(d.declared, declaredBytes(&onnxpb.TensorProto{Dims: sp.GetDims(), DataType: proto.Int32(sp.GetValues().GetDataType())}))
+		if err := declare(sp.GetValues().GetName(), sp.GetDims(), sp.GetValues().GetDataType()); err != nil {
+			return nil, err
+		}
 	}
-	if err := tensor.CheckBytes(fmt.Sprintf("the model's initializers (%d in graph %q and its enclosing graphs)", len(inits), gp.GetName()), d.declared); err != nil {
+	if err := tensor.CheckBytes(fmt.Sprintf("storage for the model's initializers (%d in graph %q, with enclosing graphs)", len(inits), gp.GetName()), d.declared); err != nil {
 		return nil, err
 	}
 	for _, tp := range inits {
