@@ -93,3 +93,20 @@ func TestKernelPanicBecomesError(t *testing.T) {
 		t.Errorf("panic with Debug: want a stack, got %v", err)
 	}
 }
+
+// Found by FuzzGraph: Gemm whose output is empty with an empty C panicked in expandInto.
+func TestGemmEmptyOutputWithC(t *testing.T) {
+	m := graphModel(nil, []string{"y"}, &loader.Node{Name: "g", OpType: "Gemm", Inputs: []string{"x", "x", "x"}, Outputs: []string{"y"},
+		Attrs: map[string]*loader.Attr{"transA": {Name: "transA", Kind: loader.AttrInt, I: 1}}})
+	p, err := Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out, err := p.Run(map[string]*tensor.Tensor{"x": tensor.From([]float32{}, 1, 0)}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if y := out["y"]; !tensor.SameShape(y.Shape, []int{0, 0}) {
+		t.Errorf("shape %v, want [0 0]", y.Shape)
+	}
+}
