@@ -106,7 +106,9 @@ func genGraph(r *fuzzBytes) (*loader.Model, *tensor.Tensor) {
 		}
 		return values[len(values)-1-r.intn(len(values))]
 	}
-	ia := func(name string, v ...int64) *loader.Attr { return &loader.Attr{Name: name, Kind: loader.AttrInts, Ints: v} }
+	ia := func(name string, v ...int64) *loader.Attr {
+		return &loader.Attr{Name: name, Kind: loader.AttrInts, Ints: v}
+	}
 	in := func(name string, v int64) *loader.Attr { return &loader.Attr{Name: name, Kind: loader.AttrInt, I: v} }
 	for i := range nodes {
 		op := graphOps[r.intn(len(graphOps))]
