@@ -4,11 +4,13 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
+	"unsafe"
 
 	"google.golang.org/protobuf/proto"
 
@@ -364,14 +366,31 @@ func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 	}
 	raw := tp.GetRawData()
 	hasRaw := tp.RawData != nil
+	t := &tensor.Tensor{DType: store, Shape: shape}
 	if tp.GetDataLocation() == onnxpb.TensorProto_EXTERNAL {
-		raw, err = d.external(tp, n*dt.Size())
+		if dt == tensor.String {
+			return nil, errors.New("string tensors cannot live in external data")
+		}
+		sec, closeFn, err := d.external(tp, n*dt.Size())
 		if err != nil {
 			return nil, err
 		}
+		defer closeFn()
+		// Read straight into the tensor's storage where the file's layout is
+		// the host's, so a large weight is never held twice.
+		if data, ok, err := readNative(sec, dt, n); ok {
+			if err != nil {
+				return nil, fmt.Errorf("external data: %w", err)
+			}
+			t.Data = data
+			return t, nil
+		}
+		raw = make([]byte, n*dt.Size())
+		if _, err := io.ReadFull(sec, raw); err != nil {
+			return nil, fmt.Errorf("external data: %w", err)
+		}
 		hasRaw = true
 	}
-	t := &tensor.Tensor{DType: store, Shape: shape}
 	if hasRaw && dt != tensor.String {
 		if len(raw) != n*dt.Size() {
 			return nil, fmt.Errorf("raw data has %d bytes, shape %v of %v needs %d", len(raw), shape, dt, n*dt.Size())
@@ -567,8 +586,52 @@ func halfToFloat(dt tensor.DType, h uint16) float32 {
 	return math.Float32frombits(sign | (exp+112)<<23 | mant<<13)
 }
 
-// external reads a tensor's bytes from its external data file, confined to d.dir.
-func (d *decoder) external(tp *onnxpb.TensorProto, want int) ([]byte, error) {
+// littleEndianHost reports whether the machine stores numbers little-endian (as ONNX raw data does).
+var littleEndianHost = func() bool { x := uint16(1); return *(*byte)(unsafe.Pointer(&x)) == 1 }()
+
+// readNative reads n elements of dt from r directly into a new typed slice
+// when the host is little-endian and dt is stored as is; ok is false otherwise.
+func readNative(r io.Reader, dt tensor.DType, n int) (data any, ok bool, err error) {
+	if !littleEndianHost || storeType(dt) != dt || dt == tensor.Bool || dt == tensor.String {
+		return nil, false, nil
+	}
+	data = tensor.MakeSlice(dt, n)
+	if n == 0 {
+		return data, true, nil
+	}
+	var p unsafe.Pointer
+	switch d := data.(type) {
+	case []float32:
+		p = unsafe.Pointer(&d[0])
+	case []float64:
+		p = unsafe.Pointer(&d[0])
+	case []int64:
+		p = unsafe.Pointer(&d[0])
+	case []int32:
+		p = unsafe.Pointer(&d[0])
+	case []uint64:
+		p = unsafe.Pointer(&d[0])
+	case []uint32:
+		p = unsafe.Pointer(&d[0])
+	case []int16:
+		p = unsafe.Pointer(&d[0])
+	case []uint16:
+		p = unsafe.Pointer(&d[0])
+	case []int8:
+		p = unsafe.Pointer(&d[0])
+	case []uint8:
+		p = unsafe.Pointer(&d[0])
+	default:
+		return nil, false, nil
+	}
+	_, err = io.ReadFull(r, unsafe.Slice((*byte)(p), n*dt.Size()))
+	return data, true, err
+}
+
+// external opens a tensor's section of its external data file, confined to
+// d.dir, after checking it: a regular file, offset and length inside it, and
+// length equal to want (the bytes the shape needs).
+func (d *decoder) external(tp *onnxpb.TensorProto, want int) (*io.SectionReader, func() error, error) {
 	var loc string
 	offset, length := int64(0), int64(-1)
 	for _, kv := range tp.GetExternalData() {
@@ -582,42 +645,47 @@ func (d *decoder) external(tp *onnxpb.TensorProto, want int) ([]byte, error) {
 			length, err = strconv.ParseInt(kv.GetValue(), 10, 64)
 		}
 		if err != nil {
-			return nil, fmt.Errorf("external data %s: %w", kv.GetKey(), err)
+			return nil, nil, fmt.Errorf("external data %s: %w", kv.GetKey(), err)
 		}
 	}
 	if d.dir == "" {
-		return nil, errors.New("external data is not allowed here")
+		return nil, nil, errors.New("external data is not allowed here")
 	}
 	path, err := ConfinedPath(d.dir, loc)
 	if err != nil {
-		return nil, fmt.Errorf("external data: %w", err)
+		return nil, nil, fmt.Errorf("external data: %w", err)
+	}
+	// stat before opening: opening a FIFO or device could block or never end
+	if fi, err := os.Stat(path); err != nil {
+		return nil, nil, fmt.Errorf("external data: %w", err)
+	} else if !fi.Mode().IsRegular() {
+		return nil, nil, fmt.Errorf("external data %q is not a regular file", loc)
 	}
 	f, err := os.Open(path)
 	if err != nil {
-		return nil, fmt.Errorf("external data: %w", err)
+		return nil, nil, fmt.Errorf("external data: %w", err)
 	}
-	defer f.Close()
 	fi, err := f.Stat()
 	if err != nil {
-		return nil, fmt.Errorf("external data: %w", err)
+		f.Close()
+		return nil, nil, fmt.Errorf("external data: %w", err)
 	}
 	if !fi.Mode().IsRegular() {
-		return nil, fmt.Errorf("external data %q is not a regular file", loc)
+		f.Close()
+		return nil, nil, fmt.Errorf("external data %q is not a regular file", loc)
 	}
 	if length < 0 {
 		length = fi.Size() - offset
 	}
 	if offset < 0 || offset > fi.Size() || length > fi.Size()-offset {
-		return nil, fmt.Errorf("external data %q: offset %d + length %d is past the end of the %d-byte file", loc, offset, length, fi.Size())
+		f.Close()
+		return nil, nil, fmt.Errorf("external data %q: offset %d + length %d is past the end of the %d-byte file", loc, offset, length, fi.Size())
 	}
 	if int(length) != want {
-		return nil, fmt.Errorf("external data %q: %d bytes, shape %v needs %d", loc, length, tp.GetDims(), want)
+		f.Close()
+		return nil, nil, fmt.Errorf("external data %q: %d bytes, shape %v needs %d", loc, length, tp.GetDims(), want)
 	}
-	buf := make([]byte, length)
-	if _, err := f.ReadAt(buf, offset); err != nil {
-		return nil, fmt.Errorf("external data %q: %w", loc, err)
-	}
-	return buf, nil
+	return io.NewSectionReader(f, offset, length), f.Close, nil
 }
 
 // ConfinedPath joins a relative location to dir and refuses anything that

@@ -5,9 +5,11 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"runtime/debug"
 	"strconv"
 	"strings"
 
+	"vitals/loader"
 	"vitals/tensor"
 )
 
@@ -83,4 +85,41 @@ func applyMemoryBudget(flagValue string) error {
 	}
 	tensor.SetMemoryBudget(b)
 	return nil
+}
+
+// loadedWeights sums the initializer bytes of every model loaded so far.
+var loadedWeights int64
+
+// tuneGC keeps the peak heap near the weights plus one batch's working set.
+// The weights of a large model stay alive for the whole run, and Go's default
+// collector (GOGC=100) lets garbage grow as large as everything alive before
+// it collects, so a 400 MB model could peak near 800 MB plus activations.
+// Weights hold no pointers, which makes collections cheap however large they
+// are, so with more than 128 MiB of weights the collector runs once garbage
+// reaches 128 MiB (as a share of the live heap, at least 25%).
+func tuneGC(m *loader.Model) {
+	var w int64
+	var walk func(g *loader.Graph)
+	walk = func(g *loader.Graph) {
+		for _, t := range g.Initializers {
+			w += tensor.Bytes(t.DType, t.Size())
+		}
+		for _, n := range g.Nodes {
+			for _, a := range n.Attrs {
+				if a.G != nil {
+					walk(a.G)
+				}
+				for _, sg := range a.Graphs {
+					walk(sg)
+				}
+			}
+		}
+	}
+	walk(m.Graph)
+	loadedWeights += w
+	const allowance = 128 << 20
+	if loadedWeights <= allowance || os.Getenv("GOGC") != "" {
+		return // small models, or the user chose
+	}
+	debug.SetGCPercent(max(25, int(100*allowance/loadedWeights)))
 }

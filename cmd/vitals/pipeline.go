@@ -55,6 +55,7 @@ func loadAndCompile(path string, debug bool) (*loaded, error) {
 		return nil, inputErr{fmt.Errorf("compiling model %q: %w", path, err)}
 	}
 	p.Debug = debug
+	tuneGC(m)
 	return &loaded{model: m, plan: p}, nil
 }
 
