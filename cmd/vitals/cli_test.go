@@ -279,3 +279,31 @@ func TestInterruptKeepsEarlierReport(t *testing.T) {
 		}
 	}
 }
+
+// A finished run with --out replaces the reports whole and leaves no
+// temporary files behind (every file goes through a temp file and a rename).
+func TestOutWritesWholeFiles(t *testing.T) {
+	out := t.TempDir()
+	os.WriteFile(filepath.Join(out, "report.json"), []byte("old"), 0o644)
+	code, _, stderr := runCLI(t, "check", demoModel, "--data", demoData, "--out", out, "--format", "markdown")
+	if code > 1 {
+		t.Fatalf("code %d: %s", code, stderr)
+	}
+	entries, _ := os.ReadDir(out)
+	names := map[string]bool{}
+	for _, e := range entries {
+		names[e.Name()] = true
+		if strings.HasPrefix(e.Name(), ".") || strings.Contains(e.Name(), "tmp") {
+			t.Errorf("left behind: %s", e.Name())
+		}
+	}
+	for _, want := range []string{"report.json", "report.md", "depth-profile.png"} {
+		if !names[want] {
+			t.Errorf("%s not written (have %v)", want, names)
+		}
+	}
+	var r map[string]any
+	if b, _ := os.ReadFile(filepath.Join(out, "report.json")); json.Unmarshal(b, &r) != nil || r["tool"] != "vitals" {
+		t.Errorf("report.json is not the new report")
+	}
+}
