@@ -30,8 +30,8 @@ func FuzzParseThresholds(f *testing.F) {
 			if strings.TrimSpace(k) == "" || math.IsNaN(v) || math.IsInf(v, 0) {
 				t.Fatalf("accepted %q: %v", k, v)
 			}
-			if strings.ContainsAny(k, "#:\n\r") || k != strings.TrimSpace(k) || strings.Trim(k, `"'`) != k {
-				continue // JSON names the line format cannot spell
+			if strings.ContainsAny(k, "#:\n\r") || k != strings.TrimSpace(k) || strings.Trim(k, `"'`) != k || strings.HasPrefix(k, "{") {
+				continue // names the line format cannot spell (a leading '{' reads as JSON)
 			}
 			lines = append(lines, fmt.Sprintf("%s: %v", k, v))
 		}
