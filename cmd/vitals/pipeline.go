@@ -442,6 +442,15 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 	c := stats.NewCollector(l.model, l.plan)
 	pg := newProgress(feed.total)
 	defer pg.finish()
+	// a signal also stops a long batch, after the node that is running
+	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
+		select {
+		case <-interrupted:
+			return errInterrupted
+		default:
+		}
+		return c.Hook(n, outs)
+	}
 	for {
 		select {
 		case <-interrupted:
@@ -456,7 +465,10 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			break
 		}
 		c.AddInputs(batch)
-		outs, err := l.plan.Run(batch, c.Hook)
+		outs, err := l.plan.Run(batch, hook)
+		if errors.Is(err, errInterrupted) {
+			return nil, errInterrupted
+		}
 		if err != nil {
 			return nil, fmt.Errorf("running %q on samples %d–%d: %w", l.model.Path, feed.done-batchLen(batch), feed.done-1, err)
 		}
