@@ -28,8 +28,8 @@ func graphModel(inits map[string]*tensor.Tensor, outputs []string, nodes ...*loa
 }
 
 // At run time an output over the memory budget is an error naming the node
-// and the bytes: through tensor.New (ConstantOfShape, Expand) it is refused
-// before allocation, through a kernel's own make (MatMul) right after it.
+// and the bytes, refused before allocation: through tensor.New
+// (ConstantOfShape, Expand), makeChecked (MatMul, Range) or a shape check (Resize).
 func TestRunMemoryBudget(t *testing.T) {
 	prev := tensor.SetMemoryBudget(1 << 20) // 1 MiB
 	defer tensor.SetMemoryBudget(prev)
@@ -44,6 +44,12 @@ func TestRunMemoryBudget(t *testing.T) {
 			&loader.Node{Name: "bomb", OpType: "Expand", Inputs: []string{"x", "shape"}, Outputs: []string{"y"}}), "16777216 bytes"},
 		{"MatMul", graphModel(map[string]*tensor.Tensor{"w": tensor.New(tensor.Float32, []int{1, 1024})}, []string{"y"},
 			&loader.Node{Name: "bomb", OpType: "MatMul", Inputs: []string{"x", "w"}, Outputs: []string{"y"}}), "4194304 bytes"},
+		// Range's length comes from values in the file: 10^12 elements would
+		// end the process (Go cannot recover from running out of memory)
+		{"Range", graphModel(map[string]*tensor.Tensor{"s": tensor.From([]int64{0}), "l": tensor.From([]int64{1_000_000_000_000}), "d": tensor.From([]int64{1})}, []string{"y"},
+			&loader.Node{Name: "bomb", OpType: "Range", Inputs: []string{"s", "l", "d"}, Outputs: []string{"y"}}), "8000000000000 bytes"},
+		{"Resize", graphModel(map[string]*tensor.Tensor{"roi": tensor.From([]float32{}, 0), "scales": tensor.From([]float32{1, 1000}, 2)}, []string{"y"},
+			&loader.Node{Name: "bomb", OpType: "Resize", Inputs: []string{"x", "roi", "scales"}, Outputs: []string{"y"}}), "4096000 bytes"},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			p, err := Compile(c.model)

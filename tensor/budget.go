@@ -18,9 +18,11 @@ import (
 //     initializers) and each external-data tensor before reading it;
 //   - the CLI checks batch × per-sample size of every input before the run;
 //   - at run time New and MakeSlice, through which kernels allocate, panic with
-//     a *BudgetError instead of allocating; probe's Plan.call converts that
-//     panic into an error naming the node, and the run loop checks the size of
-//     every output a kernel returns, which covers kernels that allocate with
+//     a *BudgetError instead of allocating (as does probe's makeChecked, for
+//     kernels that size their own buffers: MatMul, Range, Einsum,
+//     ConvTranspose); probe's Plan.call converts that panic into an error
+//     naming the node, and the run loop also checks the size of every output
+//     a kernel returns, which catches any other kernel that allocates with
 //     make directly (after the fact, but before the run goes on).
 //
 // The budget is per tensor at run time (live activations of one batch are not
