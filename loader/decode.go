@@ -4,11 +4,13 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
+	"unsafe"
 
 	"google.golang.org/protobuf/proto"
 
@@ -91,6 +93,34 @@ func DecodeModel(b []byte, dir string) (*Model, error) {
 type decoder struct {
 	dir string
 	gen int // counter for generated node names
+	// declared sums the storage the model's initializers declare (all graphs),
+	// checked against the memory budget before any of them is decoded.
+	declared int64
+}
+
+// declaredBytes is the storage a TensorProto's dims and data type ask for,
+// saturating; malformed dims count as 0 (decoding reports them).
+func declaredBytes(tp *onnxpb.TensorProto) int64 {
+	shape := make([]int, len(tp.GetDims()))
+	for i, v := range tp.GetDims() {
+		if v < 0 || v > tensor.MaxElements {
+			return 0
+		}
+		shape[i] = int(v)
+	}
+	n, err := tensor.NumElements(shape)
+	if err != nil {
+		return 0
+	}
+	return tensor.Bytes(storeType(tensor.DType(tp.GetDataType())), n)
+}
+
+// storeType is the type a tensor of dt is held in (half floats are widened).
+func storeType(dt tensor.DType) tensor.DType {
+	if dt == tensor.Float16 || dt == tensor.BFloat16 {
+		return tensor.Float32
+	}
+	return dt
 }
 
 func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
@@ -99,7 +129,27 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 		Initializers: map[string]*tensor.Tensor{},
 		ValueInfo:    map[string]ValueInfo{},
 	}
-	for _, tp := range gp.GetInitializer() {
+	inits := gp.GetInitializer()
+	// Budget before decoding: each declared initializer, then their sum.
+	declare := func(name string, dims []int64, dt int32) error {
+		b := declaredBytes(&onnxpb.TensorProto{Dims: dims, DataType: proto.Int32(dt)})
+		d.declared = satAdd(d.declared, b)
+		return tensor.CheckBytes(fmt.Sprintf("initializer %q (shape %v of %v)", name, dims, storeType(tensor.DType(dt))), b)
+	}
+	for _, tp := range inits {
+		if err := declare(tp.GetName(), tp.GetDims(), tp.GetDataType()); err != nil {
+			return nil, err
+		}
+	}
+	for _, sp := range gp.GetSparseInitializer() {
+		if err := declare(sp.GetValues().GetName(), sp.GetDims(), sp.GetValues().GetDataType()); err != nil {
+			return nil, err
+		}
+	}
+	if err := tensor.CheckBytes(fmt.Sprintf("storage for the model's initializers (%d in graph %q, with enclosing graphs)", len(inits), gp.GetName()), d.declared); err != nil {
+		return nil, err
+	}
+	for _, tp := range inits {
 		t, err := d.Tensor(tp)
 		if err != nil {
 			return nil, fmt.Errorf("initializer %q: %w", tp.GetName(), err)
@@ -284,7 +334,16 @@ func DecodeTensor(b []byte) (*tensor.Tensor, error) {
 	return (&decoder{}).Tensor(&tp)
 }
 
-// Tensor converts a TensorProto to a tensor, widening float16/bfloat16 to float32.
+func satAdd(a, b int64) int64 {
+	if a > 1<<62 || b > 1<<62 {
+		return 1<<63 - 1
+	}
+	return a + b
+}
+
+// Tensor converts a TensorProto to a tensor, widening float16/bfloat16 to
+// float32. The shape is checked for overflow and against the memory budget
+// before anything is read or allocated.
 func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 	shape := make([]int, len(tp.GetDims()))
 	for i, v := range tp.GetDims() {
@@ -298,23 +357,40 @@ func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 		return nil, err
 	}
 	dt := tensor.DType(tp.GetDataType())
-	store := dt
-	if dt == tensor.Float16 || dt == tensor.BFloat16 {
-		store = tensor.Float32
-	}
+	store := storeType(dt)
 	if !store.Supported() {
 		return nil, fmt.Errorf("unsupported data type %v", dt)
 	}
+	if err := tensor.CheckBytes(fmt.Sprintf("shape %v of %v", shape, store), tensor.Bytes(store, n)); err != nil {
+		return nil, err
+	}
 	raw := tp.GetRawData()
 	hasRaw := tp.RawData != nil
+	t := &tensor.Tensor{DType: store, Shape: shape}
 	if tp.GetDataLocation() == onnxpb.TensorProto_EXTERNAL {
-		raw, err = d.external(tp, n*dt.Size())
+		if dt == tensor.String {
+			return nil, errors.New("string tensors cannot live in external data")
+		}
+		sec, closeFn, err := d.external(tp, n*dt.Size())
 		if err != nil {
 			return nil, err
 		}
+		defer closeFn()
+		// Read straight into the tensor's storage where the file's layout is
+		// the host's, so a large weight is never held twice.
+		if data, ok, err := readNative(sec, dt, n); ok {
+			if err != nil {
+				return nil, fmt.Errorf("external data: %w", err)
+			}
+			t.Data = data
+			return t, nil
+		}
+		raw = make([]byte, n*dt.Size())
+		if _, err := io.ReadFull(sec, raw); err != nil {
+			return nil, fmt.Errorf("external data: %w", err)
+		}
 		hasRaw = true
 	}
-	t := &tensor.Tensor{DType: store, Shape: shape}
 	if hasRaw && dt != tensor.String {
 		if len(raw) != n*dt.Size() {
 			return nil, fmt.Errorf("raw data has %d bytes, shape %v of %v needs %d", len(raw), shape, dt, n*dt.Size())
@@ -510,8 +586,52 @@ func halfToFloat(dt tensor.DType, h uint16) float32 {
 	return math.Float32frombits(sign | (exp+112)<<23 | mant<<13)
 }
 
-// external reads a tensor's bytes from its external data file, confined to d.dir.
-func (d *decoder) external(tp *onnxpb.TensorProto, want int) ([]byte, error) {
+// littleEndianHost reports whether the machine stores numbers little-endian (as ONNX raw data does).
+var littleEndianHost = func() bool { x := uint16(1); return *(*byte)(unsafe.Pointer(&x)) == 1 }()
+
+// readNative reads n elements of dt from r directly into a new typed slice
+// when the host is little-endian and dt is stored as is; ok is false otherwise.
+func readNative(r io.Reader, dt tensor.DType, n int) (data any, ok bool, err error) {
+	if !littleEndianHost || storeType(dt) != dt || dt == tensor.Bool || dt == tensor.String {
+		return nil, false, nil
+	}
+	data = tensor.MakeSlice(dt, n)
+	if n == 0 {
+		return data, true, nil
+	}
+	var p unsafe.Pointer
+	switch d := data.(type) {
+	case []float32:
+		p = unsafe.Pointer(&d[0])
+	case []float64:
+		p = unsafe.Pointer(&d[0])
+	case []int64:
+		p = unsafe.Pointer(&d[0])
+	case []int32:
+		p = unsafe.Pointer(&d[0])
+	case []uint64:
+		p = unsafe.Pointer(&d[0])
+	case []uint32:
+		p = unsafe.Pointer(&d[0])
+	case []int16:
+		p = unsafe.Pointer(&d[0])
+	case []uint16:
+		p = unsafe.Pointer(&d[0])
+	case []int8:
+		p = unsafe.Pointer(&d[0])
+	case []uint8:
+		p = unsafe.Pointer(&d[0])
+	default:
+		return nil, false, nil
+	}
+	_, err = io.ReadFull(r, unsafe.Slice((*byte)(p), n*dt.Size()))
+	return data, true, err
+}
+
+// external opens a tensor's section of its external data file, confined to
+// d.dir, after checking it: a regular file, offset and length inside it, and
+// length equal to want (the bytes the shape needs).
+func (d *decoder) external(tp *onnxpb.TensorProto, want int) (*io.SectionReader, func() error, error) {
 	var loc string
 	offset, length := int64(0), int64(-1)
 	for _, kv := range tp.GetExternalData() {
@@ -525,39 +645,47 @@ func (d *decoder) external(tp *onnxpb.TensorProto, want int) ([]byte, error) {
 			length, err = strconv.ParseInt(kv.GetValue(), 10, 64)
 		}
 		if err != nil {
-			return nil, fmt.Errorf("external data %s: %w", kv.GetKey(), err)
+			return nil, nil, fmt.Errorf("external data %s: %w", kv.GetKey(), err)
 		}
 	}
 	if d.dir == "" {
-		return nil, errors.New("external data is not allowed here")
+		return nil, nil, errors.New("external data is not allowed here")
 	}
 	path, err := ConfinedPath(d.dir, loc)
 	if err != nil {
-		return nil, fmt.Errorf("external data: %w", err)
+		return nil, nil, fmt.Errorf("external data: %w", err)
+	}
+	// stat before opening: opening a FIFO or device could block or never end
+	if fi, err := os.Stat(path); err != nil {
+		return nil, nil, fmt.Errorf("external data: %w", err)
+	} else if !fi.Mode().IsRegular() {
+		return nil, nil, fmt.Errorf("external data %q is not a regular file", loc)
 	}
 	f, err := os.Open(path)
 	if err != nil {
-		return nil, fmt.Errorf("external data: %w", err)
+		return nil, nil, fmt.Errorf("external data: %w", err)
 	}
-	defer f.Close()
 	fi, err := f.Stat()
 	if err != nil {
-		return nil, fmt.Errorf("external data: %w", err)
+		f.Close()
+		return nil, nil, fmt.Errorf("external data: %w", err)
+	}
+	if !fi.Mode().IsRegular() {
+		f.Close()
+		return nil, nil, fmt.Errorf("external data %q is not a regular file", loc)
 	}
 	if length < 0 {
 		length = fi.Size() - offset
 	}
 	if offset < 0 || offset > fi.Size() || length > fi.Size()-offset {
-		return nil, fmt.Errorf("external data %q: offset %d + length %d is past the end of the %d-byte file", loc, offset, length, fi.Size())
+		f.Close()
+		return nil, nil, fmt.Errorf("external data %q: offset %d + length %d is past the end of the %d-byte file", loc, offset, length, fi.Size())
 	}
 	if int(length) != want {
-		return nil, fmt.Errorf("external data %q: %d bytes, shape %v needs %d", loc, length, tp.GetDims(), want)
+		f.Close()
+		return nil, nil, fmt.Errorf("external data %q: %d bytes, shape %v needs %d", loc, length, tp.GetDims(), want)
 	}
-	buf := make([]byte, length)
-	if _, err := f.ReadAt(buf, offset); err != nil {
-		return nil, fmt.Errorf("external data %q: %w", loc, err)
-	}
-	return buf, nil
+	return io.NewSectionReader(f, offset, length), f.Close, nil
 }
 
 // ConfinedPath joins a relative location to dir and refuses anything that
@@ -602,48 +730,47 @@ func (d *decoder) sparse(sp *onnxpb.SparseTensorProto) (*tensor.Tensor, error) {
 	}
 	shape := make([]int, len(sp.GetDims()))
 	for i, v := range sp.GetDims() {
+		if v < 0 || v > tensor.MaxElements {
+			return nil, fmt.Errorf("sparse dimension %d is %d", i, v)
+		}
 		shape[i] = int(v)
 	}
-	n, err := tensor.NumElements(shape)
+	n, err := tensor.CheckShape(vals.DType, shape)
 	if err != nil {
 		return nil, err
 	}
-	out := &tensor.Tensor{DType: vals.DType, Shape: shape, Data: tensor.MakeSlice(vals.DType, n)}
+	if vals.Rank() != 1 {
+		return nil, fmt.Errorf("sparse values have shape %v, want one axis [NNZ]", vals.Shape)
+	}
+	if idx.DType != tensor.Int64 && idx.DType != tensor.Int32 {
+		return nil, fmt.Errorf("sparse indices are %v, want int64", idx.DType)
+	}
 	nnz := vals.Size()
+	switch {
+	case idx.Rank() == 1 && idx.Shape[0] == nnz:
+	case idx.Rank() == 2 && idx.Shape[0] == nnz && idx.Shape[1] == len(shape):
+	default:
+		return nil, fmt.Errorf("sparse indices have shape %v; with %d values and shape %v want [%d] or [%d %d]", idx.Shape, nnz, shape, nnz, nnz, len(shape))
+	}
+	out := &tensor.Tensor{DType: vals.DType, Shape: shape, Data: tensor.MakeSlice(vals.DType, n)}
 	ix := idx.Ints()
-	strides := tensor.Strides(shape)
 	for k := 0; k < nnz; k++ {
 		var flat int
 		if idx.Rank() == 1 {
 			flat = ix[k]
 		} else {
-			for j := range shape {
-				flat += ix[k*len(shape)+j] * strides[j]
+			for j, dim := range shape {
+				v := ix[k*len(shape)+j]
+				if v < 0 || v >= dim {
+					return nil, fmt.Errorf("sparse index %d of value %d is %d, out of range for shape %v", j, k, v, shape)
+				}
+				flat = flat*dim + v
 			}
 		}
 		if flat < 0 || flat >= n {
 			return nil, fmt.Errorf("sparse index %d out of range for shape %v", flat, shape)
 		}
-		setFrom(out.Data, flat, vals.Data, k)
+		tensor.CopyData(sliceRange(out.Data, flat, flat+1), sliceRange(vals.Data, k, k+1))
 	}
 	return out, nil
-}
-
-func setFrom(dst any, i int, src any, j int) {
-	switch d := dst.(type) {
-	case []float32:
-		d[i] = src.([]float32)[j]
-	case []float64:
-		d[i] = src.([]float64)[j]
-	case []int64:
-		d[i] = src.([]int64)[j]
-	case []int32:
-		d[i] = src.([]int32)[j]
-	case []uint8:
-		d[i] = src.([]uint8)[j]
-	case []int8:
-		d[i] = src.([]int8)[j]
-	case []bool:
-		d[i] = src.([]bool)[j]
-	}
 }

@@ -159,6 +159,9 @@ func expandInto(dst, src any, srcShape, outShape []int) {
 }
 
 func expandT[T any](out []T, src []T, srcShape, outShape []int) {
+	if len(out) == 0 {
+		return // src may be empty too (found by FuzzGraph: Gemm with an empty C)
+	}
 	binaryLoop(out, outShape, src, srcShape, src[:1], []int{1}, func(x, _ T) T { return x })
 }
 

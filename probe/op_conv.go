@@ -459,7 +459,7 @@ func convTransposeRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	if _, err := tensor.NumElements([]int{Mg * K, inSize}); err != nil {
 		return err
 	}
-	col := make([]T, Mg*K*inSize)
+	col := makeChecked[T](Mg * K * inSize)
 	// convWalk maps window position p to image coordinate p·s − padBeg + t·d,
 	// exactly the transpose map with the input as positions and Y as image.
 	for n := 0; n < N; n++ {

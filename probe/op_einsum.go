@@ -352,7 +352,7 @@ func linEinsumGemm[T Number](a, b *tensor.Tensor, ta, tb, out []int, dims []int,
 	ap := linPermute(a.Data.([]T), a.Shape, axesOf(ta, batch, ms, ks))
 	bp := linPermute(b.Data.([]T), b.Shape, axesOf(tb, batch, ks, ns))
 	nb, m, n, k := size(batch), size(ms), size(ns), size(ks)
-	res := make([]T, nb*m*n)
+	res := makeChecked[T](nb * m * n)
 	for i := 0; i < nb; i++ {
 		linGemmT(false, false, m, n, k, 1, ap[i*m*k:], max(k, 1), bp[i*k*n:], max(n, 1), 0, res[i*m*n:], max(n, 1))
 	}

@@ -201,7 +201,7 @@ func linMatMul[T Number](a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*t
 	if err != nil {
 		return nil, err
 	}
-	out := make([]T, total)
+	out := makeChecked[T](total)
 	nb := 1
 	for _, d := range batch {
 		nb *= d

@@ -206,7 +206,7 @@ func resizeRun(c *Call, x *tensor.Tensor, o resizeOpts, scales []float64, out []
 	default:
 		return fmt.Errorf("unknown mode %q", o.mode)
 	}
-	if _, err := tensor.NumElements(out); err != nil {
+	if _, err := tensor.CheckShape(x.DType, out); err != nil {
 		return err
 	}
 	cur := x

@@ -441,7 +441,7 @@ func rangeFill[T Number](c *Call, start, limit, delta T) error {
 		return fmt.Errorf("range from %v to %v by %v has no valid length", start, limit, delta)
 	}
 	n = max(n, 0)
-	out := make([]T, int(n))
+	out := makeChecked[T](int(n))
 	v := start
 	for i := range out {
 		out[i] = v

@@ -1,6 +1,7 @@
 package probe
 
 import (
+	"container/heap"
 	"errors"
 	"fmt"
 	"runtime/debug"
@@ -61,7 +62,13 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 	for _, in := range g.Inputs {
 		known[in.Name] = 0
 	}
-	// Kahn's algorithm over nodes, stable in file order.
+	// Kahn's algorithm over nodes, stable in file order: it schedules exactly
+	// as repeated sweeps over the waiting nodes in file order would (each sweep
+	// takes every node whose inputs are known when the sweep reaches it), but
+	// in O(n log n), so a hostile file listing a long chain backwards cannot
+	// stall the compiler. A node waits on the distinct input names not yet
+	// known; when the last one becomes known it joins the current sweep if the
+	// sweep has not passed its position yet, else the next sweep.
 	produced := map[string]bool{}
 	for _, n := range g.Nodes {
 		for _, o := range n.Outputs {
@@ -70,30 +77,38 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 			}
 		}
 	}
-	pending := make([]*loader.Node, len(g.Nodes))
-	copy(pending, g.Nodes)
-	var unsupported []string
-	for len(pending) > 0 {
-		progressed := false
-		rest := pending[:0]
-		for _, n := range pending {
-			ready, depth := true, 0
-			for _, in := range n.Inputs {
-				if in == "" {
-					continue
-				}
-				d, ok := known[in]
-				if !ok {
-					ready = false
-					break
-				}
-				depth = max(depth, d)
-			}
-			if !ready {
-				rest = append(rest, n)
+	missing := make([]int, len(g.Nodes))
+	waiters := map[string][]int{}
+	var sweep, next intHeap
+	for i, n := range g.Nodes {
+		seen := map[string]bool{}
+		for _, in := range n.Inputs {
+			if _, ok := known[in]; in == "" || ok || seen[in] {
 				continue
 			}
-			progressed = true
+			seen[in] = true
+			missing[i]++
+			waiters[in] = append(waiters[in], i)
+		}
+		if missing[i] == 0 {
+			sweep = append(sweep, i)
+		}
+	}
+	var unsupported []string
+	scheduled := make([]bool, len(g.Nodes))
+	for len(sweep) > 0 {
+		cursor := -1
+		for len(sweep) > 0 {
+			i := heap.Pop(&sweep).(int)
+			cursor = i
+			n := g.Nodes[i]
+			scheduled[i] = true
+			depth := 0
+			for _, in := range n.Inputs {
+				if in != "" {
+					depth = max(depth, known[in])
+				}
+			}
 			opset := int(opsets[normDomain(n.Domain)])
 			if _, ok := opsets[normDomain(n.Domain)]; !ok && n.Domain == "" {
 				opset = 1
@@ -138,15 +153,37 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset})
 			p.Depth = append(p.Depth, depth+1)
 			for _, o := range n.Outputs {
-				if o != "" {
-					known[o] = depth + 1
+				if o == "" {
+					continue
 				}
+				_, was := known[o]
+				known[o] = depth + 1
+				if was {
+					continue
+				}
+				for _, w := range waiters[o] {
+					if missing[w]--; missing[w] == 0 {
+						if w > cursor {
+							heap.Push(&sweep, w)
+						} else {
+							next = append(next, w)
+						}
+					}
+				}
+				delete(waiters, o)
 			}
 		}
-		pending = rest
-		if !progressed {
-			return nil, cycleError(pending, known, produced)
+		sweep, next = next, nil
+		heap.Init(&sweep)
+	}
+	if len(p.Steps) < len(g.Nodes) {
+		var pending []*loader.Node
+		for i, n := range g.Nodes {
+			if !scheduled[i] {
+				pending = append(pending, n)
+			}
 		}
+		return nil, cycleError(pending, known, produced)
 	}
 	if len(unsupported) > 0 {
 		return nil, &UnsupportedError{Nodes: unsupported}
@@ -326,6 +363,11 @@ func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (
 			if c.Out[j] == nil {
 				return nil, fmt.Errorf("node %q (%s): kernel produced no output %d (%q)", s.Node.Name, s.Node.OpType, j, name)
 			}
+			// Kernels that allocate with make rather than tensor.New are held
+			// to the memory budget here, before the run goes on.
+			if err := tensor.CheckBytes(fmt.Sprintf("output %q %v", name, c.Out[j]), tensor.Bytes(c.Out[j].DType, c.Out[j].Size())); err != nil {
+				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
+			}
 			env.vals[name] = c.Out[j]
 		}
 		if hook != nil {
@@ -352,6 +394,11 @@ func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (
 func (p *Plan) call(s *Step, c *Call) (err error) {
 	defer func() {
 		if r := recover(); r != nil {
+			// An allocation over the memory budget is the model's doing, not a bug.
+			if be, ok := r.(*tensor.BudgetError); ok {
+				err = fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, be)
+				return
+			}
 			msg := fmt.Sprint(r)
 			if p.Debug {
 				msg += "\n" + string(debug.Stack())
@@ -445,4 +492,18 @@ func ShapeString(vi loader.ValueInfo) string {
 		}
 	}
 	return "[" + strings.Join(parts, " ") + "]"
+}
+
+// intHeap is a min-heap of node positions.
+type intHeap []int
+
+func (h intHeap) Len() int           { return len(h) }
+func (h intHeap) Less(i, j int) bool { return h[i] < h[j] }
+func (h intHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
+func (h *intHeap) Push(x any)        { *h = append(*h, x.(int)) }
+func (h *intHeap) Pop() any {
+	old := *h
+	x := old[len(old)-1]
+	*h = old[:len(old)-1]
+	return x
 }

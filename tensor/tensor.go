@@ -111,18 +111,24 @@ func (t *Tensor) Size() int {
 // Rank is len(Shape).
 func (t *Tensor) Rank() int { return len(t.Shape) }
 
-// New allocates a zero tensor. It panics only on a bad dtype or a shape that
-// NumElements rejects; callers that take shapes from files check first.
+// New allocates a zero tensor. It panics on a bad dtype, on a shape that
+// NumElements rejects and, with a *BudgetError, on a tensor over the memory
+// budget (see SetMemoryBudget); probe turns such panics into errors naming
+// the node. Code outside a kernel uses Alloc.
 func New(dt DType, shape []int) *Tensor {
-	n, err := NumElements(shape)
+	n, err := CheckShape(dt, shape)
 	if err != nil {
 		panic(err)
 	}
 	return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: MakeSlice(dt, n)}
 }
 
-// MakeSlice allocates a zero slice of n elements of the Go type for dt.
+// MakeSlice allocates a zero slice of n elements of the Go type for dt. Over
+// the memory budget it panics with a *BudgetError instead of allocating.
 func MakeSlice(dt DType, n int) any {
+	if err := CheckBytes(fmt.Sprintf("%d elements of %v", n, dt), Bytes(dt, n)); err != nil {
+		panic(err)
+	}
 	switch dt {
 	case Float32:
 		return make([]float32, n)

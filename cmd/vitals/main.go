@@ -51,11 +51,11 @@ func run(args []string, stdout, stderr io.Writer) (code int) {
 	}
 	defer func() {
 		if r := recover(); r != nil {
-			fmt.Fprintf(stderr, "vitals: internal error: %v\n", r)
+			msg := strings.Join(strings.Fields(fmt.Sprint(r)), " ")
 			if debugOn {
-				fmt.Fprintln(stderr, string(debug.Stack()))
+				fmt.Fprintf(stderr, "vitals: internal error: %s\n%s\n", msg, debug.Stack())
 			} else {
-				fmt.Fprintln(stderr, "vitals: rerun with --debug for details")
+				fmt.Fprintf(stderr, "vitals: internal error: %s (rerun with --debug for the stack)\n", msg)
 			}
 			code = 2
 		}
@@ -116,6 +116,7 @@ type common struct {
 	layout  string
 	seed    int64
 	debug   bool
+	maxMem  string
 }
 
 func newCommon(name string, stderr io.Writer) *common {
@@ -136,6 +137,7 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.StringVar(&c.layout, "layout", "nchw", "image tensor layout the model wants: nchw|nhwc")
 	fs.Int64Var(&c.seed, "seed", 1, "seed of the synthetic Gaussian input")
 	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
+	fs.StringVar(&c.maxMem, "max-memory", "", "memory budget in bytes, e.g. 512M or 8G (default: half the physical memory; 0: none); tensors that would exceed it are refused with an error")
 	return c
 }
 
@@ -158,6 +160,9 @@ func (c *common) dataOptions() (dataOptions, error) {
 }
 
 func (c *common) validate() error {
+	if err := applyMemoryBudget(c.maxMem); err != nil {
+		return err
+	}
 	if _, ok := writers[c.format]; !ok {
 		return userErr("--format must be one of %s, got %q", strings.Join(formatNames(), ", "), c.format)
 	}

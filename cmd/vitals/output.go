@@ -3,8 +3,10 @@ package main
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -161,13 +163,19 @@ func loadThresholds(path string) (map[string]float64, error) {
 	return th, nil
 }
 
-// ParseThresholds parses the --config formats (see loadThresholds).
+// ParseThresholds parses the --config formats (see loadThresholds). Names
+// must be non-empty and values finite (NaN would silently disable a check).
 func ParseThresholds(b []byte) (map[string]float64, error) {
 	th := map[string]float64{}
 	trim := bytes.TrimSpace(b)
 	if len(trim) > 0 && trim[0] == '{' {
 		if err := json.Unmarshal(trim, &th); err != nil {
 			return nil, err
+		}
+		for k := range th {
+			if strings.TrimSpace(k) == "" {
+				return nil, errors.New("empty threshold name")
+			}
 		}
 		return th, nil
 	}
@@ -184,10 +192,14 @@ func ParseThresholds(b []byte) (map[string]float64, error) {
 			return nil, fmt.Errorf("line %d: want \"name.param: value\", got %q", i+1, line)
 		}
 		f, err := strconv.ParseFloat(strings.TrimSpace(v), 64)
-		if err != nil {
-			return nil, fmt.Errorf("line %d: %q is not a number", i+1, strings.TrimSpace(v))
+		if err != nil || math.IsNaN(f) || math.IsInf(f, 0) {
+			return nil, fmt.Errorf("line %d: %q is not a finite number", i+1, strings.TrimSpace(v))
 		}
-		th[strings.Trim(strings.TrimSpace(k), `"'`)] = f
+		name := strings.TrimSpace(strings.Trim(strings.TrimSpace(k), `"'`))
+		if name == "" {
+			return nil, fmt.Errorf("line %d: empty threshold name", i+1)
+		}
+		th[name] = f
 	}
 	return th, nil
 }

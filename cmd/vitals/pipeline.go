@@ -9,6 +9,7 @@ import (
 	"os/signal"
 	"strconv"
 	"strings"
+	"sync"
 	"syscall"
 	"time"
 
@@ -54,6 +55,7 @@ func loadAndCompile(path string, debug bool) (*loaded, error) {
 		return nil, inputErr{fmt.Errorf("compiling model %q: %w", path, err)}
 	}
 	p.Debug = debug
+	tuneGC(m)
 	return &loaded{model: m, plan: p}, nil
 }
 
@@ -157,6 +159,22 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 	for name, s := range f.sources {
 		if n := s.Len(); n >= 0 && f.total >= 0 && n != f.total && o.samples <= 0 {
 			return fail(userErr("input %q has %d samples but another input has %d; pass the same number of samples for every input", name, n, f.total))
+		}
+	}
+	// memory budget: one batch of every input, before anything is read
+	for _, name := range f.order {
+		s := f.sources[name]
+		k := o.batch
+		if f.total >= 0 {
+			k = min(k, f.total)
+		}
+		per, err := tensor.NumElements(s.SampleShape())
+		if err != nil {
+			return fail(userErr("input %q: %v", name, err))
+		}
+		if err := tensor.CheckBytes(fmt.Sprintf("input %q: a batch of %d samples of shape %v (%v)", name, k, s.SampleShape(), s.DType()),
+			satMul(tensor.Bytes(s.DType(), per), int64(k))); err != nil {
+			return fail(inputErr{fmt.Errorf("%w; lower --batch", err)})
 		}
 	}
 	if o.labels != "" {
@@ -352,21 +370,40 @@ func (f *sampleFeed) Close() {
 	}
 }
 
-// interrupted is closed on SIGINT/SIGTERM; runs stop between batches.
-var interrupted = make(chan struct{})
+// satMul multiplies non-negative counts, saturating at MaxInt64.
+func satMul(a, b int64) int64 {
+	if a != 0 && b > math.MaxInt64/a {
+		return math.MaxInt64
+	}
+	return a * b
+}
 
+// interrupted is closed on SIGINT/SIGTERM; runs stop between batches.
+var (
+	interrupted = make(chan struct{})
+	watchOnce   sync.Once
+)
+
+// watchSignals starts (once per process) the watcher: the first signal asks
+// the run to stop between batches, a second one exits at once.
 func watchSignals() {
-	ch := make(chan os.Signal, 1)
-	signal.Notify(ch, os.Interrupt, syscall.SIGTERM)
-	go func() {
-		<-ch
-		close(interrupted)
-		<-ch
-		os.Exit(130)
-	}()
+	watchOnce.Do(func() {
+		ch := make(chan os.Signal, 1)
+		signal.Notify(ch, os.Interrupt, syscall.SIGTERM)
+		go func() {
+			<-ch
+			close(interrupted)
+			<-ch
+			os.Exit(130)
+		}()
+	})
 }
 
 var errInterrupted = errors.New("interrupted")
+
+// afterBatchHook, when set (by tests only), runs after every batch; it lets a
+// test force a panic deep inside the pipeline.
+var afterBatchHook func(samplesDone int)
 
 // progress prints "batch i, n samples" on stderr when it is a terminal and the run exceeds ~2 s.
 type progress struct {
@@ -405,6 +442,15 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 	c := stats.NewCollector(l.model, l.plan)
 	pg := newProgress(feed.total)
 	defer pg.finish()
+	// a signal also stops a long batch, after the node that is running
+	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
+		select {
+		case <-interrupted:
+			return errInterrupted
+		default:
+		}
+		return c.Hook(n, outs)
+	}
 	for {
 		select {
 		case <-interrupted:
@@ -419,7 +465,10 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			break
 		}
 		c.AddInputs(batch)
-		outs, err := l.plan.Run(batch, c.Hook)
+		outs, err := l.plan.Run(batch, hook)
+		if errors.Is(err, errInterrupted) {
+			return nil, errInterrupted
+		}
 		if err != nil {
 			return nil, fmt.Errorf("running %q on samples %d–%d: %w", l.model.Path, feed.done-batchLen(batch), feed.done-1, err)
 		}
@@ -431,6 +480,9 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			}
 		}
 		pg.update(feed.done)
+		if afterBatchHook != nil {
+			afterBatchHook(feed.done)
+		}
 	}
 	if c.Samples == 0 {
 		return nil, userErr("the sample is empty: no batches to run")
