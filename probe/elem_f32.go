@@ -30,8 +30,16 @@ func reluF32(dst, src []float32) {
 // clipF32 is min(max(x, lo), hi); NaN stays NaN (bounds must not be NaN).
 func clipF32(dst, src []float32, lo, hi float32) {
 	dst = dst[:len(src)]
+	// plain comparisons: NaN passes through (both false); the float min/max
+	// builtins are several times slower here because of their NaN and ±0 rules
 	for i, v := range src {
-		dst[i] = min(max(v, lo), hi)
+		if v < lo {
+			v = lo
+		}
+		if v > hi {
+			v = hi
+		}
+		dst[i] = v
 	}
 }
 

@@ -1,6 +1,7 @@
 package stats
 
 import (
+	"fmt"
 	"math"
 	"runtime"
 	"sync"
@@ -140,6 +141,73 @@ type Collector struct {
 	producer      map[string]*loader.Node
 	dataDep       map[string]bool
 	Samples       int
+	// jobs feeds the statistics worker: one goroutine takes node outputs in
+	// the order the hook saw them, so the statistics of one node overlap
+	// with the computation of the next while results stay deterministic.
+	jobs  chan obsJob
+	done  chan struct{}
+	errMu sync.Mutex
+	err   error
+}
+
+func (c *Collector) failed() error {
+	c.errMu.Lock()
+	defer c.errMu.Unlock()
+	return c.err
+}
+
+type obsJob struct {
+	la      *layerAcc
+	t       *tensor.Tensor
+	isInput bool
+}
+
+// queue hands a tensor to the statistics worker, starting it on first use.
+// At most a few tensors wait, which bounds the extra memory held.
+func (c *Collector) queue(j obsJob) error {
+	if c.jobs == nil {
+		c.jobs = make(chan obsJob, 4)
+		c.done = make(chan struct{})
+		go c.work()
+	}
+	if err := c.failed(); err != nil {
+		return err
+	}
+	c.jobs <- j
+	return nil
+}
+
+func (c *Collector) work() {
+	defer close(c.done)
+	for j := range c.jobs {
+		if c.failed() != nil {
+			continue // drain after a failure
+		}
+		func() {
+			defer func() {
+				if r := recover(); r != nil {
+					c.errMu.Lock()
+					c.err = fmt.Errorf("statistics of %q: internal error: %v", j.la.output, r)
+					c.errMu.Unlock()
+				}
+			}()
+			c.observe(j.la, j.t)
+			if j.isInput && j.t.Rank() >= 2 {
+				j.la.perChan = perChannel(j.la.perChan, j.t, channelAxis(j.t))
+			}
+		}()
+	}
+}
+
+// Wait lets the statistics worker finish everything queued and reports a
+// failure of it. Finish calls it; call it before reading any accumulator.
+func (c *Collector) Wait() error {
+	if c.jobs != nil {
+		close(c.jobs)
+		<-c.done
+		c.jobs = nil
+	}
+	return c.failed()
 }
 
 // NewCollector prepares accumulators for every data-dependent float output of the plan.
@@ -232,7 +300,9 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 		if la == nil {
 			continue
 		}
-		c.observe(la, t)
+		if err := c.queue(obsJob{la: la, t: t}); err != nil {
+			return err
+		}
 	}
 	return nil
 }
@@ -241,10 +311,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
 	for name, t := range batch {
 		if la := c.inputs[name]; la != nil {
-			c.observe(la, t)
-			if t.Rank() >= 2 {
-				la.perChan = perChannel(la.perChan, t, channelAxis(t))
-			}
+			c.queue(obsJob{la: la, t: t, isInput: true})
 		}
 	}
 }
@@ -298,7 +365,7 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	// pass 2: histogram, ever-positive units and saturation counts; integer
 	// results, so splitting the work across cores cannot change them
 	la.hist.prepare(b.Min, b.Max)
-	sat := secondPass(la, x, units, inner)
+	sat := secondPass(la, x, units, inner, b.Nonfinite == 0)
 	if la.act.hasSat {
 		la.sat += sat
 		la.satN += int64(len(x))
@@ -307,7 +374,7 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 
 // secondPass fills the histogram (grid already prepared), the ever-positive
 // flags and counts saturated values, over blocks of whole outer rows in parallel.
-func secondPass(la *layerAcc, x []float32, units, inner int) int64 {
+func secondPass(la *layerAcc, x []float32, units, inner int, allFinite bool) int64 {
 	block := len(x)
 	if units > 0 {
 		block = units * inner
@@ -338,7 +405,11 @@ func secondPass(la *layerAcc, x []float32, units, inner int) int64 {
 		}
 		lo, hi := w*rows/workers, (w+1)*rows/workers
 		seg := x[lo*block : hi*block]
-		if p.counts != nil {
+		switch {
+		case p.counts == nil:
+		case allFinite:
+			la.hist.countFinite(p.counts, seg)
+		default:
 			la.hist.countInto(p.counts, seg)
 		}
 		if la.act.kind == ActReLU {

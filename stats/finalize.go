@@ -55,6 +55,7 @@ var normOps = map[string]bool{"BatchNormalization": true, "LayerNormalization": 
 
 // Finish turns the accumulators into the report model and the structure the checks need.
 func (c *Collector) Finish(source string) *Collected {
+	c.Wait()
 	g := c.Model.Graph
 	r := &report.Report{Tool: "vitals", Thresholds: map[string]float64{}}
 	r.Model = report.Model{Path: c.Model.Path, Opset: c.Model.Opsets[""], Producer: c.Model.Producer,

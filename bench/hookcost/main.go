@@ -101,6 +101,9 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 					return 0, err
 				}
 			}
+			if err := c.Wait(); err != nil {
+				return 0, err
+			}
 			best = min(best, time.Since(t0))
 		}
 		return best / time.Duration(n), nil

@@ -484,6 +484,9 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			afterBatchHook(feed.done)
 		}
 	}
+	if err := c.Wait(); err != nil {
+		return nil, err
+	}
 	if c.Samples == 0 {
 		return nil, userErr("the sample is empty: no batches to run")
 	}
