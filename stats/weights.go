@@ -72,20 +72,18 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 		m := NewMoments()
 		m.AddFloat32(x)
 		rows, rowLen := w.Shape[0], len(x)/w.Shape[0]
-		get := func(r, j int) float32 { return x[r*rowLen+j] }
+		row := func(r int, buf []float32) []float32 { return x[r*rowLen : (r+1)*rowLen] }
 		if byCols {
-			rows, rowLen = w.Shape[1], w.Shape[0]
-			get = func(r, j int) float32 { return x[j*w.Shape[1]+r] }
-		}
-		rowsData := make([][]float32, rows)
-		for r := range rowsData {
-			row := make([]float32, rowLen)
-			for j := range row {
-				row[j] = get(r, j)
+			cols := w.Shape[1]
+			rows, rowLen = cols, w.Shape[0]
+			row = func(r int, buf []float32) []float32 {
+				for j := range buf {
+					buf[j] = x[j*cols+r]
+				}
+				return buf
 			}
-			rowsData[r] = row
 		}
-		ident, zero := identicalRows(rowsData)
+		ident, zero := identicalRows(rows, rowLen, row)
 		std := m.Std()
 		gain := std * math.Sqrt(float64(fanIn))
 		wr := report.Weight{
@@ -103,30 +101,56 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 }
 
 // identicalRows counts non-zero rows that equal at least one other row
-// (every member of a group of equal rows counts), and all-zero rows.
-func identicalRows(rows [][]float32) (identical, zero int) {
-	groups := map[string]int{}
-	keys := make([]string, len(rows))
-	for i, r := range rows {
+// (every member of a group of equal rows counts), and all-zero rows. Rows are
+// read through row (which may fill buf) and grouped by a 64-bit FNV-1a hash of
+// their bit patterns; rows sharing a hash are compared value by value, so the
+// weights are never copied whole.
+func identicalRows(rows, rowLen int, row func(r int, buf []float32) []float32) (identical, zero int) {
+	buf := make([]float32, rowLen)
+	byHash := map[uint64][]int{}
+	for r := 0; r < rows; r++ {
+		v := row(r, buf)
+		h := uint64(14695981039346656037)
 		allZero := true
-		b := make([]byte, 0, 4*len(r))
-		for _, v := range r {
-			if v != 0 {
+		for _, f := range v {
+			if f != 0 {
 				allZero = false
 			}
-			u := math.Float32bits(v)
-			b = append(b, byte(u), byte(u>>8), byte(u>>16), byte(u>>24))
+			h ^= uint64(math.Float32bits(f))
+			h *= 1099511628211
 		}
 		if allZero {
 			zero++
 			continue
 		}
-		keys[i] = string(b)
-		groups[keys[i]]++
+		byHash[h] = append(byHash[h], r)
 	}
-	for i := range rows {
-		if keys[i] != "" && groups[keys[i]] > 1 {
-			identical++
+	for _, group := range byHash {
+		if len(group) < 2 {
+			continue
+		}
+		// split the group into classes of equal rows (one stored copy per class)
+		var reps [][]float32
+		var counts []int
+		for _, r := range group {
+			v := row(r, buf)
+			found := false
+			for ci, rep := range reps {
+				if sameBits(rep, v) {
+					counts[ci]++
+					found = true
+					break
+				}
+			}
+			if !found {
+				reps = append(reps, append([]float32(nil), v...))
+				counts = append(counts, 1)
+			}
+		}
+		for _, n := range counts {
+			if n > 1 {
+				identical += n
+			}
 		}
 	}
 	return identical, zero
@@ -141,4 +165,14 @@ func ParameterCount(g *loader.Graph) int64 {
 		}
 	}
 	return n
+}
+
+// sameBits compares two rows bit for bit (so NaN rows compare equal to themselves).
+func sameBits(a, b []float32) bool {
+	for k := range a {
+		if math.Float32bits(a[k]) != math.Float32bits(b[k]) {
+			return false
+		}
+	}
+	return true
 }
