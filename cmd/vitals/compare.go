@@ -1,12 +1,8 @@
 package main
 
 import (
-	"errors"
-	"fmt"
 	"io"
 	"math"
-
-	flag "github.com/spf13/pflag"
 
 	"vitals/report"
 	"vitals/stats"
@@ -16,29 +12,10 @@ import (
 // cmdCompare runs OLD and NEW on the same batches in the same order and diffs
 // their statistics into NEW's report (one report model, not a second pipeline).
 func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
-	c := newCommon("compare", stderr)
-	c.fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: vitals compare OLD.onnx NEW.onnx --data PATH [flags]")
-		c.fs.PrintDefaults()
+	c, o, th, help, err := parseCommand("compare", "vitals compare OLD.onnx NEW.onnx --data PATH [flags]", 2, args, stderr)
+	if help {
+		return 0, nil
 	}
-	if err := c.fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return 0, nil
-		}
-		return 2, userErr("%v", err)
-	}
-	if c.fs.NArg() != 2 {
-		c.fs.Usage()
-		return 2, userErr("compare takes two model files (OLD NEW), got %d arguments", c.fs.NArg())
-	}
-	if err := c.validate(); err != nil {
-		return 2, err
-	}
-	o, err := c.dataOptions()
-	if err != nil {
-		return 2, err
-	}
-	th, err := loadThresholds(c.config)
 	if err != nil {
 		return 2, err
 	}

@@ -194,30 +194,39 @@ func exitCode(r *report.Report, failOn string) int {
 	return 0
 }
 
-func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
-	c := newCommon("check", stderr)
+// parseCommand parses a subcommand's flags and arguments (nArgs model files),
+// validates them and reads --config; help is true after --help.
+func parseCommand(name, usage string, nArgs int, args []string, stderr io.Writer) (c *common, o dataOptions, th map[string]float64, help bool, err error) {
+	c = newCommon(name, stderr)
 	c.fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]")
+		fmt.Fprintln(stderr, "Usage: "+usage)
 		c.fs.PrintDefaults()
 	}
-	if err := c.fs.Parse(args); err != nil {
+	if err = c.fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
-			return 0, nil
+			return c, o, nil, true, nil
 		}
-		return 2, userErr("%v", err)
+		return c, o, nil, false, userErr("%v", err)
 	}
-	if c.fs.NArg() != 1 {
+	if c.fs.NArg() != nArgs {
 		c.fs.Usage()
-		return 2, userErr("check takes exactly one model file, got %d arguments", c.fs.NArg())
+		return c, o, nil, false, userErr("%s takes %d model file(s), got %d arguments", name, nArgs, c.fs.NArg())
 	}
-	if err := c.validate(); err != nil {
-		return 2, err
+	if err = c.validate(); err != nil {
+		return c, o, nil, false, err
 	}
-	o, err := c.dataOptions()
-	if err != nil {
-		return 2, err
+	if o, err = c.dataOptions(); err != nil {
+		return c, o, nil, false, err
 	}
-	th, err := loadThresholds(c.config)
+	th, err = loadThresholds(c.config)
+	return c, o, th, false, err
+}
+
+func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
+	c, o, th, help, err := parseCommand("check", "vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]", 1, args, stderr)
+	if help {
+		return 0, nil
+	}
 	if err != nil {
 		return 2, err
 	}
