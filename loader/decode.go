@@ -408,6 +408,9 @@ func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 // fromRaw decodes little-endian raw bytes.
 func fromRaw(dt tensor.DType, raw []byte, n int) any {
 	le := binary.LittleEndian
+	if out, ok := fromRawNative(dt, raw, n); ok {
+		return out
+	}
 	switch dt {
 	case tensor.Float32:
 		out := make([]float32, n)
