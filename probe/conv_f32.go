@@ -58,7 +58,7 @@ func convFastF32(a *convF32Args) {
 	}
 	kg := a.Cg * a.K
 	var packs []*gemm.PackedA
-	if a.c.isInitializer(1) && kg > 0 {
+	if a.c.isInitializer(1) && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
 	}
 	inner := g.out[nd-1]

@@ -3,6 +3,7 @@ package probe
 import (
 	"runtime"
 	"sync"
+	"sync/atomic"
 	"weak"
 
 	"vitals/gemm"
@@ -35,14 +36,44 @@ type packKey struct {
 // dropped when its tensor is garbage collected.
 var packCache sync.Map
 
+// PackCacheLimit bounds the bytes of packed weight copies kept between
+// calls (default 256 MiB), so that a large model's memory stays near its
+// weights: weights beyond it are not packed ahead; their products go through
+// gemm.Sgemm, which packs small blocks as it goes.
+var PackCacheLimit int64 = 256 << 20
+
+var packCacheBytes atomic.Int64
+
+// packRoom reports whether t's packed copy is cached or still fits the limit.
+func packRoom(t *tensor.Tensor) bool {
+	return packCacheBytes.Load()+int64(t.Size())*4 <= PackCacheLimit || packCached(t)
+}
+
+func packCached(t *tensor.Tensor) bool {
+	found := false
+	packCache.Range(func(k, _ any) bool {
+		if k.(packKey).t.Value() == t {
+			found = true
+			return false
+		}
+		return true
+	})
+	return found
+}
+
 func cachedPack[V any](t *tensor.Tensor, kind uint8, trans bool, group int, build func() V) V {
 	key := packKey{t: weak.Make(t), kind: kind, trans: trans, group: group}
 	if v, ok := packCache.Load(key); ok {
 		return v.(V)
 	}
 	v := build()
+	size := int64(t.Size()) * 4
 	if _, loaded := packCache.LoadOrStore(key, v); !loaded {
-		runtime.AddCleanup(t, func(k packKey) { packCache.Delete(k) }, key)
+		packCacheBytes.Add(size)
+		runtime.AddCleanup(t, func(k packKey) {
+			packCache.Delete(k)
+			packCacheBytes.Add(-size)
+		}, key)
 	}
 	return v
 }

@@ -282,7 +282,7 @@ func gemmKernel(c *Call) error {
 		beta = 0
 	}
 	lda, ldb := max(a.Shape[1], 1), max(b.Shape[1], 1)
-	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference {
+	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference && packRoom(b) {
 		pb := packedRight(b, b.F32(), tB, k, n, ldb)
 		gemm.SgemmPackedB(tA, m, alpha, av, lda, pb, beta, out.F32(), n)
 		c.Set(0, out)
@@ -323,9 +323,13 @@ func matMulPackedB(a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Te
 		return nil, false
 	}
 	out := make([]float32, total)
-	if rows > 0 {
+	switch {
+	case rows == 0:
+	case packRoom(b):
 		pb := packedRight(b, b.F32(), false, k, n, n)
 		gemm.SgemmPackedB(false, rows, 1, ad, k, pb, 0, out, n)
+	default:
+		gemm.Sgemm(false, false, rows, n, k, 1, ad, k, b.F32(), n, 0, out, n)
 	}
 	return tensor.From(out, outShape...), true
 }
