@@ -11,7 +11,7 @@
 # vitals: `vitals check MODEL --data X.npy --batch 8 --samples 64` (every
 # statistics hook on; wall time of the whole command, model loading and the
 # report included) and, from bench/hookcost, the executor alone with an
-# empty hook, with the statistics hook, and with the one-pass moments.
+# empty hook and with the statistics hook.
 # ONNX Runtime: onnxruntime-node (pinned in bench/ort/package.json), 2 intra-op
 # threads, sequential, all graph optimisations, inference time only.
 # Each figure is the best of $REPS rounds (default 3), the two sides alternating.
@@ -74,7 +74,7 @@ for m in "${models[@]}"; do
 		"$(awk -v a="$best_v" -v b="$best_o" 'BEGIN {printf "%.2f×", a / b}')")")
 done
 echo
-echo "| model | vitals check ms/image | executor ms/image: empty hook / statistics hook / one-pass moments | ONNX Runtime ms/image | vitals check / ORT |"
+echo "| model | vitals check ms/image | executor ms/image: empty hook / statistics hook | ONNX Runtime ms/image | vitals check / ORT |"
 echo "|---|---|---|---|---|"
 printf '%s\n' "${rows[@]}"
 echo "load average after: $(cut -d' ' -f1-3 /proc/loadavg)"
