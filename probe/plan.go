@@ -329,7 +329,22 @@ func (p *Plan) Run(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*ten
 	return p.run(inputs, nil, hook)
 }
 
+// RunReleased is Run that also returns the values released during the run
+// (dead once the hook is done with them), for tensor.Pool.Recycle.
+func (p *Plan) RunReleased(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
+	if err := p.checkInputs(inputs); err != nil {
+		return nil, nil, err
+	}
+	var released []*tensor.Tensor
+	out, err := p.runCollect(inputs, nil, hook, &released)
+	return out, released, err
+}
+
 func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (map[string]*tensor.Tensor, error) {
+	return p.runCollect(inputs, parent, hook, nil)
+}
+
+func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook, released *[]*tensor.Tensor) (map[string]*tensor.Tensor, error) {
 	env := &Scope{vals: make(map[string]*tensor.Tensor, len(p.Graph.Initializers)+len(inputs)+16), parent: parent}
 	for name, t := range p.Graph.Initializers {
 		env.vals[name] = t
@@ -376,6 +391,11 @@ func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (
 			}
 		}
 		for _, name := range p.release[i] {
+			if released != nil {
+				if t := env.vals[name]; t != nil && t.DType == tensor.Float32 {
+					*released = append(*released, t)
+				}
+			}
 			delete(env.vals, name)
 		}
 	}

@@ -160,6 +160,19 @@ type obsJob struct {
 	la      *layerAcc
 	t       *tensor.Tensor
 	isInput bool
+	sync    chan struct{} // a marker: closed when the worker reaches it
+}
+
+// Sync waits until the statistics worker has processed everything queued so
+// far (after it, the batch's tensors are no longer read by the collector).
+func (c *Collector) Sync() error {
+	if c.jobs == nil {
+		return c.failed()
+	}
+	done := make(chan struct{})
+	c.jobs <- obsJob{sync: done}
+	<-done
+	return c.failed()
 }
 
 // queue hands a tensor to the statistics worker, starting it on first use.
@@ -180,6 +193,10 @@ func (c *Collector) queue(j obsJob) error {
 func (c *Collector) work() {
 	defer close(c.done)
 	for j := range c.jobs {
+		if j.sync != nil {
+			close(j.sync)
+			continue
+		}
 		if c.failed() != nil {
 			continue // drain after a failure
 		}

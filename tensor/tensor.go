@@ -131,6 +131,9 @@ func MakeSlice(dt DType, n int) any {
 	}
 	switch dt {
 	case Float32:
+		if p := activePool.Load(); p != nil && n >= poolMin {
+			return p.get(n)
+		}
 		return make([]float32, n)
 	case Float64:
 		return make([]float64, n)

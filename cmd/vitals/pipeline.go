@@ -442,6 +442,15 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 	c := stats.NewCollector(l.model, l.plan)
 	pg := newProgress(feed.total)
 	defer pg.finish()
+	// activation storage is reused from batch to batch (at most a quarter of
+	// the memory budget, 1 GiB without one)
+	poolLimit := int64(1 << 30)
+	if b := tensor.MemoryBudget(); b > 0 {
+		poolLimit = min(poolLimit, b/4)
+	}
+	pool := tensor.NewPool(poolLimit)
+	tensor.UsePool(pool)
+	defer tensor.UsePool(nil)
 	// a signal also stops a long batch, after the node that is running
 	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
 		select {
@@ -465,7 +474,7 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			break
 		}
 		c.AddInputs(batch)
-		outs, err := l.plan.Run(batch, hook)
+		outs, released, err := l.plan.RunReleased(batch, hook)
 		if errors.Is(err, errInterrupted) {
 			return nil, errInterrupted
 		}
@@ -479,6 +488,18 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 				return nil, err
 			}
 		}
+		// the batch's released activations become the next batch's storage
+		if err := c.Sync(); err != nil {
+			return nil, err
+		}
+		keep := make([]*tensor.Tensor, 0, len(outs)+len(batch))
+		for _, t := range outs {
+			keep = append(keep, t)
+		}
+		for _, t := range batch {
+			keep = append(keep, t)
+		}
+		pool.Recycle(released, keep)
 		pg.update(feed.done)
 		if afterBatchHook != nil {
 			afterBatchHook(feed.done)

@@ -1,0 +1,136 @@
+package tensor
+
+import (
+	"sync"
+	"sync/atomic"
+	"unsafe"
+)
+
+// Pool recycles large float32 buffers from one batch to the next, so a long
+// run does not page in fresh memory for every activation (on a large CNN the
+// kernel's page faults cost about as much as an elementwise layer).
+//
+// Protocol: UsePool(p) makes MakeSlice draw float32 buffers of at least
+// poolMin elements from p (zeroed) and record every such buffer it hands
+// out. After a batch, when nothing reads the batch's released values any
+// more, Recycle(released, keep) returns to the pool those released buffers
+// that p itself handed out in this batch and that overlap no kept buffer
+// (graph outputs, inputs), and forgets the rest.
+type Pool struct {
+	mu     sync.Mutex
+	free   map[int][][]float32
+	bytes  int64
+	limit  int64
+	issued map[*float32]int // buffers handed out since the last Recycle
+}
+
+// poolMin is the smallest buffer (elements) worth pooling.
+const poolMin = 4096
+
+var activePool atomic.Pointer[Pool]
+
+// NewPool returns a pool keeping at most limit bytes of free buffers.
+func NewPool(limit int64) *Pool {
+	return &Pool{free: map[int][][]float32{}, limit: limit, issued: map[*float32]int{}}
+}
+
+// UsePool routes MakeSlice's large float32 allocations through p (nil: plain make).
+func UsePool(p *Pool) { activePool.Store(p) }
+
+func (p *Pool) get(n int) []float32 {
+	p.mu.Lock()
+	var b []float32
+	if l := p.free[n]; len(l) > 0 {
+		b = l[len(l)-1]
+		p.free[n] = l[:len(l)-1]
+		p.bytes -= int64(4 * n)
+	}
+	p.mu.Unlock()
+	if b == nil {
+		b = make([]float32, n)
+	} else {
+		clear(b)
+	}
+	p.mu.Lock()
+	p.issued[&b[0]] = n
+	p.mu.Unlock()
+	return b
+}
+
+type span struct{ lo, hi uintptr }
+
+func spanOf(t *Tensor) (span, bool) {
+	d, ok := t.Data.([]float32)
+	if !ok || len(d) == 0 {
+		return span{}, false
+	}
+	lo := uintptr(unsafe.Pointer(&d[0]))
+	return span{lo, lo + uintptr(4*len(d))}, true
+}
+
+// Recycle takes back the released tensors' buffers that are safe to reuse
+// (see Pool); keep lists tensors still alive (graph outputs, inputs).
+func (p *Pool) Recycle(released, keep []*Tensor) {
+	var kept []span
+	for _, t := range keep {
+		if s, ok := spanOf(t); ok {
+			kept = append(kept, s)
+		}
+	}
+	type cand struct {
+		s span
+		b []float32
+	}
+	var cands []cand
+	seen := map[uintptr]int{}
+	for _, t := range released {
+		s, ok := spanOf(t)
+		if !ok {
+			continue
+		}
+		d := t.Data.([]float32)
+		if n, issued := p.issuedLen(&d[0]); !issued || n != len(d) {
+			continue
+		}
+		if i, dup := seen[s.lo]; dup {
+			if cands[i].s != s {
+				cands[i].b = nil // two views of different extent: skip both
+			}
+			continue
+		}
+		seen[s.lo] = len(cands)
+		cands = append(cands, cand{s, d})
+	}
+	overlaps := func(a, b span) bool { return a.lo < b.hi && b.lo < a.hi }
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	for i, c := range cands {
+		if c.b == nil {
+			continue
+		}
+		ok := true
+		for _, k := range kept {
+			if overlaps(c.s, k) {
+				ok = false
+				break
+			}
+		}
+		for j, o := range cands {
+			if ok && j != i && o.s != c.s && overlaps(c.s, o.s) {
+				ok = false
+			}
+		}
+		if ok && p.bytes+int64(4*len(c.b)) <= p.limit {
+			p.free[len(c.b)] = append(p.free[len(c.b)], c.b)
+			p.bytes += int64(4 * len(c.b))
+		}
+	}
+	clear(p.issued)
+}
+
+func (p *Pool) issuedLen(ptr *float32) (int, bool) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	n, ok := p.issued[ptr]
+	return n, ok
+}

@@ -1,0 +1,37 @@
+package tensor
+
+import "testing"
+
+// Recycle takes back only buffers the pool handed out in this batch and that
+// no kept tensor (graph output, input) overlaps; a reused buffer comes back zeroed.
+func TestPoolRecycleRules(t *testing.T) {
+	p := NewPool(1 << 30)
+	UsePool(p)
+	defer UsePool(nil)
+	const n = poolMin
+	a := New(Float32, []int{n})     // released, safe → recycled
+	b := New(Float32, []int{n})     // released but also a graph output → kept
+	c := New(Float32, []int{2 * n}) // released with a half-size view of itself → skipped
+	view := &Tensor{DType: Float32, Shape: []int{n}, Data: c.F32()[:n]}
+	foreign := From(make([]float32, n), n) // not from the pool (e.g. an initializer) → never recycled
+	a.F32()[7] = 42
+	p.Recycle([]*Tensor{a, b, c, foreign}, []*Tensor{b, view})
+	if got := len(p.free[n]); got != 1 {
+		t.Fatalf("%d buffers of %d recycled, want 1 (only a)", got, n)
+	}
+	if len(p.free[2*n]) != 0 {
+		t.Fatal("a buffer with a live view into it was recycled")
+	}
+	d := New(Float32, []int{n})
+	if &d.F32()[0] != &a.F32()[0] {
+		t.Fatal("the recycled buffer was not reused")
+	}
+	if d.F32()[7] != 0 {
+		t.Fatal("a reused buffer must come back zeroed")
+	}
+	// the next batch forgets what the previous one handed out
+	p.Recycle([]*Tensor{b}, nil)
+	if len(p.free[n]) != 0 {
+		t.Fatal("a buffer issued in an earlier batch was recycled")
+	}
+}
