@@ -1,0 +1,104 @@
+package stats
+
+import (
+	"strings"
+	"testing"
+
+	"vitals/report"
+)
+
+// checkOn runs one check over hand-made statistics with the given threshold
+// overrides and returns its findings (a checktest-style helper: the
+// expectations sit next to the fixture).
+func checkOn(t *testing.T, c *Check, col *Collected, overrides map[string]float64) []report.Finding {
+	t.Helper()
+	if err := Run(col, []*Check{c}, overrides); err != nil {
+		t.Fatal(err)
+	}
+	return col.Report.Findings
+}
+
+func reluLayer(node string, dead float64, units int) report.Layer {
+	return report.Layer{Node: node, Op: "Relu", Count: 1000, Units: report.IntPtr(units), UnitAxis: report.IntPtr(1),
+		DeadFraction: report.Num(dead), Activation: "relu", Mean: report.Num(0.5), Std: report.Num(1)}
+}
+
+// dead-units grades against its thresholds (defaults 25% / 50%, "common
+// practice" in design.md) and follows --config overrides.
+func TestDeadUnitsThresholds(t *testing.T) {
+	mk := func() *Collected {
+		r := &report.Report{Input: report.Input{Samples: 500}, Layers: []report.Layer{
+			reluLayer("below", 0.24, 100), reluLayer("warn", 0.25, 100), reluLayer("err", 0.5, 100)}}
+		return &Collected{Report: r, LayerKind: []ActKind{ActReLU, ActReLU, ActReLU}}
+	}
+	got := map[string]report.Severity{}
+	for _, f := range checkOn(t, deadUnitsCheck, mk(), nil) {
+		got[f.Node] = f.Severity
+	}
+	if len(got) != 2 || got["warn"] != report.Warning || got["err"] != report.Error {
+		t.Fatalf("defaults: %v", got)
+	}
+	fs := checkOn(t, deadUnitsCheck, mk(), map[string]float64{"dead-units.warning": 0.6, "dead-units.error": 0.9})
+	if len(fs) != 0 {
+		t.Fatalf("raised thresholds still report %v", fs)
+	}
+	// few samples: never more than a warning, and the message says why
+	col := mk()
+	col.Report.Input.Samples = 5
+	for _, f := range checkOn(t, deadUnitsCheck, col, nil) {
+		if f.Severity != report.Warning || !strings.Contains(f.Message, "Only 5 samples") {
+			t.Fatalf("5 samples: %v %q", f.Severity, f.Message)
+		}
+	}
+}
+
+// Unknown threshold names are refused, naming the known ones.
+func TestUnknownThreshold(t *testing.T) {
+	col := &Collected{Report: &report.Report{}}
+	err := Run(col, Checks, map[string]float64{"dead-unit.warning": 0.3})
+	if err == nil || !strings.Contains(err.Error(), `"dead-unit.warning"`) || !strings.Contains(err.Error(), "dead-units.warning") {
+		t.Fatalf("got %v", err)
+	}
+}
+
+// spread-collapse compares the last activation of a stack with the first
+// (Glorot & Bengio 2010): ratio 0.05 → warning, 1e-4 → error, 0.5 → nothing.
+func TestSpreadCollapseGrades(t *testing.T) {
+	for _, tc := range []struct {
+		last float64
+		want report.Severity
+	}{{0.5, ""}, {0.05, report.Warning}, {1e-4, report.Error}} {
+		r := &report.Report{}
+		for i, std := range []float64{1, 0.7, tc.last} {
+			r.Layers = append(r.Layers, report.Layer{Node: string(rune('a' + i)), Op: "Tanh", Std: report.Num(std)})
+		}
+		col := &Collected{Report: r, Stacks: []Stack{{Layers: []int{0, 1, 2}}}, LayerKind: []ActKind{ActSaturating, ActSaturating, ActSaturating}}
+		fs := checkOn(t, spreadCollapseCheck, col, nil)
+		switch {
+		case tc.want == "" && len(fs) != 0:
+			t.Errorf("ratio %g: unexpected %v", tc.last, fs)
+		case tc.want != "" && (len(fs) != 1 || fs[0].Severity != tc.want || fs[0].Node != "c"):
+			t.Errorf("ratio %g: %v, want one %s on the last layer", tc.last, fs, tc.want)
+		}
+	}
+}
+
+// weight-scale judges std·√fan_in against √2 before a ReLU and 1 otherwise
+// (He et al. 2015; Glorot & Bengio 2010), and skips layers a normalisation follows.
+func TestWeightScaleReference(t *testing.T) {
+	w := func(name, follow string, gain float64) report.Weight {
+		return report.Weight{Name: name, Node: name, FanIn: 100, Gain: report.Num(gain), Std: report.Num(gain / 10), FollowedBy: follow, Rows: 4}
+	}
+	r := &report.Report{Weights: []report.Weight{
+		w("he_ok", "Relu", 1.41), w("xavier_ok", "Tanh", 1.0), w("relu_small", "Relu", 0.5),
+		w("tanh_big", "Tanh", 2.5), w("bn_after", "normalization", 40)}}
+	fs := checkOn(t, weightScaleCheck, &Collected{Report: r}, nil)
+	got := map[string]bool{}
+	for _, f := range fs {
+		got[f.Node] = true
+	}
+	// 0.5/√2 = 0.35 < 0.5 → warning; 2.5/1 > 2 → warning; the rest pass or are skipped
+	if len(got) != 2 || !got["relu_small"] || !got["tanh_big"] {
+		t.Fatalf("weight-scale findings on %v", got)
+	}
+}
