@@ -331,14 +331,14 @@ var inputScaleCheck = &Check{
 			}
 			if constant > 0 {
 				p.Emit(report.Info, in.Name, 1, map[string]any{"constant_channels": constant, "channels": len(means)},
-					"input %q: %d of %d channels are constant over the sample (std 0); they carry no information here", in.Name, constant, len(means))
+					"input %q: %d of %d channel(s) constant over the sample (std 0): they carry no information here", in.Name, constant, len(means))
 			}
 			if bad == 0 {
 				continue
 			}
 			p.Emit(report.Warning, in.Name, 1+float64(bad)/float64(len(means)), map[string]any{"channels_off_scale": bad, "channels": len(means),
 				"mean": in.Mean, "std": in.Std, "worst_channel_mean": worstMean, "worst_channel_std": worstStd},
-				"input %q: %d of %d channels are not zero-centred, unit-scale (among them: largest |mean| %.3g, std furthest from 1: %.3g). Check that the sample was preprocessed exactly as in training (scaling, mean/std normalisation)",
+				"input %q: %d of %d channel(s) not zero-centred, unit-scale (among them: largest |mean| %.3g, std furthest from 1: %.3g). Check that the sample was preprocessed exactly as in training (scaling, mean/std normalisation)",
 				in.Name, bad, len(means), worstMean, worstStd)
 		}
 	},
