@@ -130,7 +130,6 @@ func buildReview(r *Report, images []string) *review {
 		}
 	}
 	worst := map[string]Severity{}
-	flagged := map[string]bool{}
 	fs := slices.Clone(r.Findings)
 	slices.SortStableFunc(fs, func(a, b Finding) int {
 		ra, rb := rank[a.Node], rank[b.Node]
@@ -142,16 +141,8 @@ func buildReview(r *Report, images []string) *review {
 		}
 		return cmp.Or(cmp.Compare(ra, rb), cmp.Compare(b.Severity.Level(), a.Severity.Level()))
 	})
+	rv.Errors, rv.Warnings, rv.Layers = verdictCounts(fs)
 	for _, f := range fs {
-		switch f.Severity {
-		case Error:
-			rv.Errors++
-		case Warning:
-			rv.Warnings++
-		}
-		if f.Severity.Level() >= 1 {
-			flagged[f.Node] = true
-		}
 		if w, ok := worst[f.Node]; !ok || f.Severity.Level() > w.Level() {
 			worst[f.Node] = f.Severity
 		}
@@ -162,7 +153,6 @@ func buildReview(r *Report, images []string) *review {
 		}
 		rv.Findings = append(rv.Findings, rf)
 	}
-	rv.Layers = len(flagged)
 	rv.About = reviewAbout(r)
 	rv.Output = reviewOutput(r.Output)
 	layers := slices.Clone(r.Layers)
@@ -188,11 +178,31 @@ func buildReview(r *Report, images []string) *review {
 }
 
 // Verdict is the one-line summary, e.g. "2 errors, 3 warnings in 5 layers".
-func (rv *review) Verdict() string {
-	if rv.Errors+rv.Warnings == 0 {
+func (rv *review) Verdict() string { return verdictLine(rv.Errors, rv.Warnings, rv.Layers) }
+
+// verdictCounts counts error and warning findings and the layers they fall on.
+func verdictCounts(fs []Finding) (errors, warnings, layers int) {
+	flagged := map[string]bool{}
+	for _, f := range fs {
+		switch f.Severity {
+		case Error:
+			errors++
+		case Warning:
+			warnings++
+		default:
+			continue
+		}
+		flagged[f.Node] = true
+	}
+	return errors, warnings, len(flagged)
+}
+
+// verdictLine words the counts, e.g. "2 errors, 3 warnings in 5 layers".
+func verdictLine(errors, warnings, layers int) string {
+	if errors+warnings == 0 {
 		return "No findings at warning level or above"
 	}
-	return fmt.Sprintf("%s, %s in %s", plural(rv.Errors, "error"), plural(rv.Warnings, "warning"), plural(rv.Layers, "layer"))
+	return fmt.Sprintf("%s, %s in %s", plural(errors, "error"), plural(warnings, "warning"), plural(layers, "layer"))
 }
 
 // SyntheticNote is the first line of a report on seeded noise instead of data.

@@ -23,24 +23,7 @@ func WriteJSON(w io.Writer, r *Report) error {
 }
 
 // Verdict is the one-line summary: counts of errors and warnings and the layers they fall on.
-func Verdict(r *Report) string {
-	var e, wn int
-	nodes := map[string]bool{}
-	for _, f := range r.Findings {
-		switch f.Severity {
-		case Error:
-			e++
-			nodes[f.Node] = true
-		case Warning:
-			wn++
-			nodes[f.Node] = true
-		}
-	}
-	if e+wn == 0 {
-		return "No findings at warning level or above."
-	}
-	return fmt.Sprintf("%s, %s on %d layer(s).", plural(e, "error"), plural(wn, "warning"), len(nodes))
-}
+func Verdict(r *Report) string { return verdictLine(verdictCounts(r.Findings)) + "." }
 
 // SourceLine says what the statistics describe (first line of every report).
 func SourceLine(r *Report) string {
