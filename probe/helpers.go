@@ -231,8 +231,7 @@ func ToFloat32(t *tensor.Tensor) []float32 {
 	return out
 }
 
-// numericSwitch runs fn instantiated for the tensor's element type.
-// Usage pattern inside kernels: switch on t.Data and call a generic function.
+// shapeOf returns a copy of t's shape.
 func shapeOf(t *tensor.Tensor) []int { return append([]int{}, t.Shape...) }
 
 // ScalarInt reads a scalar/1-element integer tensor.

@@ -10,10 +10,10 @@ import (
 // Binary arithmetic with multidirectional broadcasting: Add, Sub, Mul, Div, Pow, Mod.
 
 func init() {
-	reg("Add", arith(func(x, y float64) float64 { return x + y }, addT), 1, 6, 7, 13, 14)
-	reg("Sub", arith(func(x, y float64) float64 { return x - y }, subT), 1, 6, 7, 13, 14)
-	reg("Mul", arith(func(x, y float64) float64 { return x * y }, mulT), 1, 6, 7, 13, 14)
-	reg("Div", arith(func(x, y float64) float64 { return x / y }, divT), 1, 6, 7, 13, 14)
+	reg("Add", arith(addT), 1, 6, 7, 13, 14)
+	reg("Sub", arith(subT), 1, 6, 7, 13, 14)
+	reg("Mul", arith(mulT), 1, 6, 7, 13, 14)
+	reg("Div", arith(divT), 1, 6, 7, 13, 14)
 	reg("Pow", powKernel, 1, 7, 12, 13, 15)
 	reg("Mod", modKernel, 10, 13)
 }
@@ -55,7 +55,7 @@ func isInt[T Number]() bool {
 
 // arith builds a broadcasting binary kernel dispatching on the element type;
 // legacy opsets (<7) with broadcast=1 and axis are handled by aligning b to axis.
-func arith(_ func(x, y float64) float64, op opID) Kernel {
+func arith(op opID) Kernel {
 	return func(c *Call) error {
 		if err := c.Need(2); err != nil {
 			return err

@@ -1,7 +1,6 @@
 package stats
 
 import (
-	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -190,9 +189,6 @@ func contains(s []string, x string) bool {
 	}
 	return false
 }
-
-// ErrNoChecks is returned when a check selection matches nothing.
-var ErrNoChecks = errors.New("no checks selected")
 
 // plainValue dereferences optional numbers so evidence holds plain values
 // (nil for unknown), which every writer prints as numbers.

@@ -462,25 +462,6 @@ func secondPass(la *layerAcc, x []float32, units, inner int, allFinite bool) int
 	return sat
 }
 
-// everPositive sets ever[u] when any element of unit u is > 0; data is laid
-// out as [outer, units, inner].
-func everPositive(ever []bool, x []float32, units, inner int) {
-	block := units * inner
-	for o := 0; o+block <= len(x); o += block {
-		for u := 0; u < units; u++ {
-			if ever[u] {
-				continue
-			}
-			for _, v := range x[o+u*inner : o+(u+1)*inner] {
-				if v > 0 {
-					ever[u] = true
-					break
-				}
-			}
-		}
-	}
-}
-
 func countSaturated(x []float32, a actInfo) int64 {
 	var n int64
 	lo, hi := float32(a.satLo), float32(a.satHi)

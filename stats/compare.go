@@ -160,32 +160,29 @@ func rebin(h *report.Histogram, lo, hi float64, bins int) []float64 {
 
 func compareFindings(oldCol, newCol *Collected, match map[int]int, changes []float64) {
 	nr, or := newCol.Report, oldCol.Report
-	oldSev := map[string]report.Severity{}
-	for _, f := range or.Findings {
-		k := f.Check + "\x00" + f.Node
-		if f.Severity.Level() > oldSev[k].Level() {
-			oldSev[k] = f.Severity
-		}
-	}
-	// map old node names to new ones for matched layers
+	// the worst OLD severity per (check, node), under the NEW name of matched layers
 	newName := map[string]string{}
 	for i, j := range match {
 		newName[or.Layers[j].Node] = nr.Layers[i].Node
 	}
-	remapped := map[string]report.Severity{}
-	for k, s := range oldSev {
-		chk, node, _ := cut0(k)
+	type checkNode struct{ check, node string }
+	oldSev := map[checkNode]report.Severity{}
+	for _, f := range or.Findings {
+		node := f.Node
 		if nn, ok := newName[node]; ok {
 			node = nn
 		}
-		remapped[chk+"\x00"+node] = s
+		k := checkNode{f.Check, node}
+		if f.Severity.Level() > oldSev[k].Level() {
+			oldSev[k] = f.Severity
+		}
 	}
 	var add []report.Finding
 	for _, f := range nr.Findings {
 		if f.Severity == report.Info {
 			continue
 		}
-		if prev := remapped[f.Check+"\x00"+f.Node]; prev.Level() < f.Severity.Level() {
+		if prev := oldSev[checkNode{f.Check, f.Node}]; prev.Level() < f.Severity.Level() {
 			before := "no finding"
 			if prev != "" {
 				before = string(prev)
@@ -216,13 +213,4 @@ func compareFindings(oldCol, newCol *Collected, match map[int]int, changes []flo
 		}
 	}
 	nr.Ranking, nr.Findings = rank(nr, append(nr.Findings, add...))
-}
-
-func cut0(s string) (string, string, bool) {
-	for i := 0; i < len(s); i++ {
-		if s[i] == 0 {
-			return s[:i], s[i+1:], true
-		}
-	}
-	return s, "", false
 }

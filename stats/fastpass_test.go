@@ -137,3 +137,22 @@ func BenchmarkCountSaturated(b *testing.B) {
 	ai := actInfo{satLo: -0.99, satHi: 0.99, strict: true}
 	benchStats(b, func(x []float32) { countSaturated(x, ai) })
 }
+
+// everPositive is the plain reference scan for everPositiveFast: it sets ever[u] when any element of unit u is > 0; data is laid
+// out as [outer, units, inner].
+func everPositive(ever []bool, x []float32, units, inner int) {
+	block := units * inner
+	for o := 0; o+block <= len(x); o += block {
+		for u := 0; u < units; u++ {
+			if ever[u] {
+				continue
+			}
+			for _, v := range x[o+u*inner : o+(u+1)*inner] {
+				if v > 0 {
+					ever[u] = true
+					break
+				}
+			}
+		}
+	}
+}

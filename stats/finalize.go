@@ -1,7 +1,6 @@
 package stats
 
 import (
-	"fmt"
 	"math"
 	"strconv"
 
@@ -303,6 +302,3 @@ func (c *Collector) batchNorms() []BNStat {
 	}
 	return out
 }
-
-// String summarises a stack for messages.
-func (s Stack) String() string { return fmt.Sprintf("%d layers", len(s.Layers)) }

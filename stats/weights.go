@@ -69,8 +69,7 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 		}
 		seen[name] = true
 		x := w.F32()
-		m := NewMoments()
-		m.AddFloat32(x)
+		m := FastMoments(x)
 		rows, rowLen := w.Shape[0], len(x)/w.Shape[0]
 		row := func(r int, buf []float32) []float32 { return x[r*rowLen : (r+1)*rowLen] }
 		if byCols {

@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"os/signal"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"sync"
@@ -15,7 +16,6 @@ import (
 
 	"vitals/loader"
 	"vitals/probe"
-	"vitals/report"
 	"vitals/stats"
 	"vitals/tensor"
 )
@@ -245,7 +245,7 @@ func openData(g *loader.Graph, name, path string, o dataOptions) (map[string]loa
 		}
 		return map[string]loader.Source{target: s}, nil
 	}
-	if strings.EqualFold(filepath_ext(path), ".npz") && name == "" {
+	if strings.EqualFold(filepath.Ext(path), ".npz") && name == "" {
 		m, err := loader.OpenNpz(path)
 		if err != nil {
 			return nil, err
@@ -265,14 +265,6 @@ func openData(g *loader.Graph, name, path string, o dataOptions) (map[string]loa
 		return nil, err
 	}
 	return map[string]loader.Source{target: s}, nil
-}
-
-func filepath_ext(p string) string {
-	i := strings.LastIndexByte(p, '.')
-	if i < 0 || strings.ContainsAny(p[i:], "/\\") {
-		return ""
-	}
-	return p[i:]
 }
 
 // checkSource compares a source's per-sample shape and dtype with the model input.
@@ -516,9 +508,6 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 		src = "synthetic"
 	}
 	col := c.Finish(src)
-	for _, in := range col.Report.Input.PerInput {
-		_ = in
-	}
 	if err := stats.Run(col, stats.Checks, thresholds); err != nil {
 		return nil, inputErr{err}
 	}
@@ -549,5 +538,3 @@ func parseFloats(s string) ([]float64, error) {
 	}
 	return out, nil
 }
-
-var _ = report.Caution
