@@ -134,7 +134,9 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 	declare := func(name string, dims []int64, dt int32) error {
 		b := declaredBytes(&onnxpb.TensorProto{Dims: dims, DataType: proto.Int32(dt)})
 		d.declared = satAdd(d.declared, b)
-		return tensor.CheckBytes(fmt.Sprintf("initializer %q (shape %v of %v)", name, dims, storeType(tensor.DType(dt))), b)
+		return tensor.CheckBytes(b, func() string {
+			return fmt.Sprintf("initializer %q (shape %v of %v)", name, dims, storeType(tensor.DType(dt)))
+		})
 	}
 	for _, tp := range inits {
 		if err := declare(tp.GetName(), tp.GetDims(), tp.GetDataType()); err != nil {
@@ -146,7 +148,9 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 			return nil, err
 		}
 	}
-	if err := tensor.CheckBytes(fmt.Sprintf("storage for the model's initializers (%d in graph %q, with enclosing graphs)", len(inits), gp.GetName()), d.declared); err != nil {
+	if err := tensor.CheckBytes(d.declared, func() string {
+		return fmt.Sprintf("storage for the model's initializers (%d in graph %q, with enclosing graphs)", len(inits), gp.GetName())
+	}); err != nil {
 		return nil, err
 	}
 	for _, tp := range inits {
@@ -361,7 +365,7 @@ func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 	if !store.Supported() {
 		return nil, fmt.Errorf("unsupported data type %v", dt)
 	}
-	if err := tensor.CheckBytes(fmt.Sprintf("shape %v of %v", shape, store), tensor.Bytes(store, n)); err != nil {
+	if err := tensor.CheckBytes(tensor.Bytes(store, n), func() string { return fmt.Sprintf("shape %v of %v", shape, store) }); err != nil {
 		return nil, err
 	}
 	raw := tp.GetRawData()

@@ -20,7 +20,7 @@ func makeChecked[T any](n int) []T {
 	if n >= 0 && (size == 0 || int64(n) <= bytes/size) {
 		bytes = int64(n) * size
 	}
-	if err := tensor.CheckBytes(fmt.Sprintf("a buffer of %d %T values", n, zero), bytes); err != nil {
+	if err := tensor.CheckBytes(bytes, func() string { return fmt.Sprintf("a buffer of %d %T values", n, zero) }); err != nil {
 		panic(err)
 	}
 	return make([]T, n)

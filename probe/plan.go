@@ -380,7 +380,7 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 			}
 			// Kernels that allocate with make rather than tensor.New are held
 			// to the memory budget here, before the run goes on.
-			if err := tensor.CheckBytes(fmt.Sprintf("output %q %v", name, c.Out[j]), tensor.Bytes(c.Out[j].DType, c.Out[j].Size())); err != nil {
+			if err := tensor.CheckBytes(tensor.Bytes(c.Out[j].DType, c.Out[j].Size()), func() string { return fmt.Sprintf("output %q %v", name, c.Out[j]) }); err != nil {
 				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
 			}
 			env.vals[name] = c.Out[j]

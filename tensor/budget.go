@@ -63,10 +63,12 @@ func Bytes(dt DType, n int) int64 {
 	return int64(n) * sz
 }
 
-// CheckBytes returns a *BudgetError when bytes exceed the budget.
-func CheckBytes(what string, bytes int64) error {
+// CheckBytes returns a *BudgetError when bytes exceed the budget; what
+// describes the allocation and is only called then, so that the check costs
+// nothing on the allocation path.
+func CheckBytes(bytes int64, what func() string) error {
 	if b := budget.Load(); b > 0 && bytes > b {
-		return &BudgetError{What: what, Bytes: bytes, Budget: b}
+		return &BudgetError{What: what(), Bytes: bytes, Budget: b}
 	}
 	return nil
 }
@@ -78,7 +80,7 @@ func CheckShape(dt DType, shape []int) (int, error) {
 	if err != nil {
 		return 0, err
 	}
-	if err := CheckBytes(fmt.Sprintf("tensor %v%v", dt, shape), Bytes(dt, n)); err != nil {
+	if err := CheckBytes(Bytes(dt, n), func() string { return fmt.Sprintf("tensor %v%v", dt, shape) }); err != nil {
 		return 0, err
 	}
 	return n, nil

@@ -126,7 +126,7 @@ func New(dt DType, shape []int) *Tensor {
 // MakeSlice allocates a zero slice of n elements of the Go type for dt. Over
 // the memory budget it panics with a *BudgetError instead of allocating.
 func MakeSlice(dt DType, n int) any {
-	if err := CheckBytes(fmt.Sprintf("%d elements of %v", n, dt), Bytes(dt, n)); err != nil {
+	if err := CheckBytes(Bytes(dt, n), func() string { return fmt.Sprintf("%d elements of %v", n, dt) }); err != nil {
 		panic(err)
 	}
 	switch dt {

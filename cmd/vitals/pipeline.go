@@ -172,8 +172,9 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 		if err != nil {
 			return fail(userErr("input %q: %v", name, err))
 		}
-		if err := tensor.CheckBytes(fmt.Sprintf("input %q: a batch of %d samples of shape %v (%v)", name, k, s.SampleShape(), s.DType()),
-			satMul(tensor.Bytes(s.DType(), per), int64(k))); err != nil {
+		if err := tensor.CheckBytes(satMul(tensor.Bytes(s.DType(), per), int64(k)), func() string {
+			return fmt.Sprintf("input %q: a batch of %d samples of shape %v (%v)", name, k, s.SampleShape(), s.DType())
+		}); err != nil {
 			return fail(inputErr{fmt.Errorf("%w; lower --batch", err)})
 		}
 	}
