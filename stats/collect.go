@@ -139,6 +139,7 @@ type Collector struct {
 	inputOrder    []string
 	out           *outputAcc
 	producer      map[string]*loader.Node
+	consumer      map[string][]*loader.Node // value → the nodes that read it
 	dataDep       map[string]bool
 	Samples       int
 	// jobs feeds the statistics worker: one goroutine takes node outputs in
@@ -230,7 +231,7 @@ func (c *Collector) Wait() error {
 // NewCollector prepares accumulators for every data-dependent float output of the plan.
 func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 	c := &Collector{Model: m, Plan: p, byOut: map[string]*layerAcc{}, perChanWanted: map[string]bool{},
-		inputs: map[string]*layerAcc{}, producer: map[string]*loader.Node{}, dataDep: map[string]bool{}}
+		inputs: map[string]*layerAcc{}, producer: map[string]*loader.Node{}, consumer: map[string][]*loader.Node{}, dataDep: map[string]bool{}}
 	g := m.Graph
 	for _, in := range g.Inputs {
 		c.dataDep[in.Name] = true
@@ -238,6 +239,9 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 	for _, s := range p.Steps {
 		for _, o := range s.Node.Outputs {
 			c.producer[o] = s.Node
+		}
+		for _, in := range s.Node.Inputs {
+			c.consumer[in] = append(c.consumer[in], s.Node)
 		}
 		dep := false
 		for _, in := range s.Node.Inputs {

@@ -148,21 +148,10 @@ func (c *Collector) Finish(source string) *Collected {
 	return col
 }
 
-// consumers maps a value to the nodes that read it.
-func (c *Collector) consumers() map[string][]*loader.Node {
-	m := map[string][]*loader.Node{}
-	for _, s := range c.Plan.Steps {
-		for _, in := range s.Node.Inputs {
-			m[in] = append(m[in], s.Node)
-		}
-	}
-	return m
-}
-
 // followerOf names what follows a linear node: an activation op type,
 // "normalization", or "none", looking through bias adds and reshapes.
 func (c *Collector) followerOf(n *loader.Node) string {
-	cons := c.consumers()
+	cons := c.consumer
 	cur := n
 	for step := 0; step < 8; step++ {
 		if len(cur.Outputs) == 0 {
