@@ -92,14 +92,27 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			if mode == 1 {
 				hook = c.Hook
 			}
+			// activation buffers recycled from batch to batch, as vitals check does
+			pool := tensor.NewPool(1 << 30)
+			tensor.UsePool(pool)
+			defer tensor.UsePool(nil)
 			t0 := time.Now()
 			for _, b := range batches {
 				if mode > 0 {
 					c.AddInputs(b)
 				}
-				if _, err := p.Run(b, hook); err != nil {
+				outs, released, err := p.RunReleased(b, hook)
+				if err != nil {
 					return 0, err
 				}
+				if err := c.Sync(); err != nil {
+					return 0, err
+				}
+				keep := []*tensor.Tensor{b[m.Graph.Inputs[0].Name]}
+				for _, t := range outs {
+					keep = append(keep, t)
+				}
+				pool.Recycle(released, keep)
 			}
 			if err := c.Wait(); err != nil {
 				return 0, err
