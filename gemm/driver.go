@@ -14,6 +14,7 @@ type operand struct {
 	trans  bool
 	packed []float32
 	padded int
+	pack   PackBFunc // B only: panels produced on demand (see SgemmPackedAFunc)
 }
 
 // packA packs op(A)[i0:i0+rows, p0:p0+kc] into dst as MR-tall micro-panels:
@@ -151,7 +152,7 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 		for pc := 0; pc < k; pc += kcMax {
 			kcur := min(kcMax, k-pc)
 			// direct: B is read in place by the strided kernel (see kernel.fnStrided).
-			direct := B.packed == nil && !B.trans && kern.fnStrided != nil && m1-m0 <= kern.maxMDirect
+			direct := B.packed == nil && B.pack == nil && !B.trans && kern.fnStrided != nil && m1-m0 <= kern.maxMDirect
 			var bp []float32
 			switch {
 			case B.packed != nil:
@@ -162,6 +163,9 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 					bp = bf.b[:roundUp(ncur, nr)*kcur]
 					packB(nr, bp[last*kcur:], B, pc, kcur, jc+last, ncur-last)
 				}
+			case B.pack != nil:
+				bp = bf.b[:roundUp(ncur, nr)*kcur]
+				B.pack(nr, bp, pc, kcur, jc, ncur)
 			default:
 				bp = bf.b[:roundUp(ncur, nr)*kcur]
 				packB(nr, bp, B, pc, kcur, jc, ncur)

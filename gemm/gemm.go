@@ -183,6 +183,51 @@ func SgemmPackedA(n int, alpha float32, pa *PackedA, transB bool, b []float32, l
 		beta, c, ldc)
 }
 
+// PackBFunc writes op(B)[p0:p0+kc, j0:j0+cols] into dst as nr-wide
+// micro-panels, the layout the micro-kernel reads:
+//
+//	dst[q·nr·kc + p·nr + j] = op(B)[p0+p, j0+q·nr+j],  0 for q·nr+j ≥ cols.
+//
+// It lets a caller produce B panel by panel instead of materialising it (a
+// convolution's im2col matrix, built straight from the image). The driver
+// calls it from several goroutines at once, always on disjoint dst.
+type PackBFunc func(nr int, dst []float32, p0, kc, j0, cols int)
+
+// SgemmPackedAFunc computes C = alpha·A·B + beta·C with A packed by PackA
+// (m×k) and B (k×n) written on demand by pack; C is as in Sgemm.
+func SgemmPackedAFunc(n int, alpha float32, pa *PackedA, pack PackBFunc, beta float32, c []float32, ldc int) {
+	m, k := pa.m, pa.k
+	checkDims(m, n, k, ldc, len(c))
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	run(pa.kern, m, n, k, alpha,
+		operand{packed: pa.data, padded: roundUp(m, pa.kern.mr)},
+		operand{pack: pack},
+		beta, c, ldc)
+}
+
+// SgemmFunc is Sgemm with B (k×n) written on demand by pack (see PackBFunc).
+func SgemmFunc(transA bool, m, n, k int, alpha float32, a []float32, lda int, pack PackBFunc, beta float32, c []float32, ldc int) {
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("A", transA, m, k, a, lda)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	run(active.Load(), m, n, k, alpha,
+		operand{data: a, ld: lda, trans: transA},
+		operand{pack: pack},
+		beta, c, ldc)
+}
+
 // SgemmPackedB computes C = alpha·op(A)·B + beta·C with B packed by PackB
 // (k×n taken from pb). A and C are as in Sgemm.
 func SgemmPackedB(transA bool, m int, alpha float32, a []float32, lda int, pb *PackedB, beta float32, c []float32, ldc int) {

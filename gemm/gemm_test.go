@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"sync/atomic"
 	"testing"
 )
 
@@ -300,4 +301,43 @@ func TestNoAllocs(t *testing.T) {
 	if n := testing.AllocsPerRun(20, f); n > 0 {
 		t.Fatalf("%.1f allocations per call", n)
 	}
+}
+
+// TestPackFunc: B produced panel by panel through a PackBFunc (written here
+// element by element from the layout PackBFunc documents, not with the
+// driver's own packB) gives the float64 reference product, with A packed or not.
+func TestPackFunc(t *testing.T) {
+	forEachKernel(t, func(t *testing.T) {
+		r := rand.New(rand.NewPCG(9, 10))
+		for _, s := range [][3]int{{1, 1, 1}, {64, 300, 147}, {17, 129, 33}, {130, 40, 400}, {9, 3100, 5}, {512, 392, 700}} {
+			for _, be := range []float32{0, 1} {
+				tc := gemmCase{false, false, s[0], s[1], s[2], 1, be, 1}
+				a, b, c0 := tc.operands(r)
+				var calls atomic.Int64 // the driver calls pack from several workers
+				pack := func(nr int, dst []float32, p0, kc, j0, cols int) {
+					calls.Add(1)
+					for q := 0; q*nr < cols; q++ {
+						for p := 0; p < kc; p++ {
+							for j := 0; j < nr; j++ {
+								v := float32(0)
+								if q*nr+j < cols {
+									v = float32(b.at(p0+p, j0+q*nr+j, false))
+								}
+								dst[q*nr*kc+p*nr+j] = v
+							}
+						}
+					}
+				}
+				got := append([]float32(nil), c0.data...)
+				SgemmPackedAFunc(tc.n, tc.alpha, PackA(false, tc.m, tc.k, a.data, a.ld), pack, tc.beta, got, c0.ld)
+				tc.check(t, a, b, c0, got)
+				got = append([]float32(nil), c0.data...)
+				SgemmFunc(false, tc.m, tc.n, tc.k, tc.alpha, a.data, a.ld, pack, tc.beta, got, c0.ld)
+				tc.check(t, a, b, c0, got)
+				if calls.Load() == 0 {
+					t.Fatalf("%v: the pack function was never called", tc)
+				}
+			}
+		}
+	})
 }
