@@ -36,8 +36,10 @@ type convF32Args struct {
 func convFastF32(a *convF32Args) {
 	g := a.g
 	nd := len(g.in)
-	// bias first: the products accumulate onto it
-	if a.bd != nil {
+	depthwise := a.Cg == 1 && nd == 2 && a.P > 0
+	implicit := !depthwise && nd == 2 && a.P > 0 && (!a.direct || a.P < convBatchMinP)
+	// bias first: the products accumulate onto it (convImplicit2D places it itself)
+	if a.bd != nil && !implicit {
 		for n := 0; n < a.N; n++ {
 			for m := 0; m < a.M; m++ {
 				seg := a.yd[(n*a.M+m)*a.P : (n*a.M+m+1)*a.P]
@@ -48,7 +50,7 @@ func convFastF32(a *convF32Args) {
 			}
 		}
 	}
-	if a.Cg == 1 && nd == 2 && a.P > 0 {
+	if depthwise {
 		convDepthwise2D(a)
 		return
 	}
@@ -60,6 +62,10 @@ func convFastF32(a *convF32Args) {
 	var packs []*gemm.PackedA
 	if a.c.isInitializer(1) && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
+	}
+	if implicit {
+		convImplicit2D(a, packs)
+		return
 	}
 	inner := g.out[nd-1]
 	segTotal := a.P / max(inner, 1)

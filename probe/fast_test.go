@@ -67,6 +67,9 @@ func TestConvFastMatchesReference(t *testing.T) {
 		{1, 4, 4, 4, 9, 9, 5, 5, 1, 2, 2, 1, 4, 2, 4, 2},   // depthwise 5×5 dilated
 		{2, 8, 6, 2, 7, 9, 3, 2, 2, 1, 1, 2, 1, 0, 0, 1},   // grouped
 		{1, 16, 9, 1, 33, 31, 3, 3, 1, 1, 1, 1, 1, 1, 1, 1},
+		{2, 3, 5, 1, 47, 50, 3, 3, 1, 1, 1, 1, 1, 1, 1, 1}, // P ≥ convBatchMinP: one product per image
+		{2, 4, 6, 2, 46, 48, 3, 3, 1, 1, 2, 2, 2, 2, 2, 2}, // the same, grouped and dilated
+		{3, 5, 4, 1, 6, 5, 1, 1, 1, 1, 1, 1, 0, 0, 0, 0},   // 1×1 direct, small plane: shared product
 	}
 	for trial := 0; trial < 20; trial++ {
 		g := []int{1, 2, 3}[r.Intn(3)]
@@ -100,9 +103,15 @@ func TestConvFastMatchesReference(t *testing.T) {
 					}
 					want = c.Out[0].F32()
 				})
-				for rep := 0; rep < 2; rep++ { // the second run reads the packed cache
+				for rep := 0; rep < 3; rep++ { // the second run reads the packed cache
+					saved := convBatchScratch
+					if rep == 2 { // small planes: products shared by runs of two images
+						convBatchScratch = 2 * (k.M / k.group) * (k.H + k.pt + k.pb) * (k.W + k.pl + k.pr)
+					}
 					c := fastCall("Conv", attrs, 11, names, map[string]bool{"W": constW}, in...)
-					if err := convKernel(c); err != nil {
+					err := convKernel(c)
+					convBatchScratch = saved
+					if err != nil {
 						t.Fatal(err)
 					}
 					closeF32(t, fmt.Sprintf("case %d %+v bias=%v const=%v", i, k, withBias, constW), c.Out[0].F32(), want, 1e-4)

@@ -1,0 +1,214 @@
+package probe
+
+import (
+	"vitals/gemm"
+)
+
+// Implicit-GEMM 2-D convolution (float32).
+//
+// One group's convolution is C = W·B, W the Mg×(Cg·KH·KW) weights and B the
+// im2col matrix: row p = (c·KH + kh)·KW + kw, column j = img·P + oh·OW + ow,
+//
+//	B[p][j] = X[img][c][oh·sh − pt + kh·dh][ow·sw − pl + kw·dw]  (0 outside the image).
+//
+// B is never materialised: the GEMM workers call im2colPanels.pack for each
+// kc×NR panel just before the micro-kernel reads it, so the columns are
+// built in cache, split across cores with the product, and no K×P buffer is
+// written and read back. Small output planes (P < convBatchMinP, e.g. the
+// 14×14 and 7×7 stages of a residual network, where one image's P columns
+// would fill the last NR-wide panel poorly) put all images of the batch
+// side by side in one product and scatter the result into Y.
+
+// convBatchMinP is the output plane size (OH·OW) from which each image gets
+// its own product instead of sharing one with the rest of the batch.
+const convBatchMinP = 2048
+
+// convBatchScratch bounds the scratch C of a shared product (elements; a
+// variable so that tests can make batches share products in runs).
+var convBatchScratch = 1 << 22
+
+// im2colPanels writes panels of B for a run of images of one group, read
+// from a zero-padded copy of the images (padImages), so every tap of every
+// output column reads inside the buffer and no bounds logic remains per value.
+type im2colPanels struct {
+	xp        []float32 // padded images: image i, channel c, row r, column q at xp[i·imgStride + c·Hp·Wp + r·Wp + q]
+	imgStride int       // C·Hp·Wp
+	Hp, Wp    int       // padded rows and columns: input (r − pt, q − pl), zero outside
+	OH, OW    int
+	sh, sw    int
+	rowOff    []int // offset of B row p in an image: c·Hp·Wp + kh·dh·Wp + kw·dw (c within the group)
+}
+
+// newIm2colPanels sizes the padded images and the row offsets for one
+// group's Cg channels (geometry g, the padded images hold all C channels).
+func newIm2colPanels(g *convGeom, C, Cg int) *im2colPanels {
+	KH, KW := g.k[0], g.k[1]
+	q := &im2colPanels{
+		OH: g.out[0], OW: g.out[1], sh: g.strides[0], sw: g.strides[1],
+		Hp: (g.out[0]-1)*g.strides[0] + (KH-1)*g.dil[0] + 1,
+		Wp: (g.out[1]-1)*g.strides[1] + (KW-1)*g.dil[1] + 1,
+	}
+	q.imgStride = C * q.Hp * q.Wp
+	q.rowOff = make([]int, 0, Cg*KH*KW)
+	for c := 0; c < Cg; c++ {
+		for kh := 0; kh < KH; kh++ {
+			for kw := 0; kw < KW; kw++ {
+				q.rowOff = append(q.rowOff, c*q.Hp*q.Wp+kh*g.dil[0]*q.Wp+kw*g.dil[1])
+			}
+		}
+	}
+	return q
+}
+
+// padImages writes images x[0:n] (C×H×W each) into dst in the padded layout:
+// padded (r, q) holds input (r − pt, q − pl), zero outside the input.
+func (q *im2colPanels) padImages(dst, x []float32, n, C int, g *convGeom) {
+	H, W, pt, pl := g.in[0], g.in[1], g.padBeg[0], g.padBeg[1]
+	// the input columns that land in padded columns [0, Wp)
+	c0, c1 := max(0, -pl), min(W, q.Wp-pl)
+	parFor(n*C, 8, func(lo, hi int) {
+		for ic := lo; ic < hi; ic++ {
+			src := x[ic*H*W : (ic+1)*H*W]
+			d := dst[ic*q.Hp*q.Wp : (ic+1)*q.Hp*q.Wp]
+			for r := 0; r < q.Hp; r++ {
+				row := d[r*q.Wp : (r+1)*q.Wp]
+				ih := r - pt
+				if ih < 0 || ih >= H || c0 >= c1 {
+					clear(row)
+					continue
+				}
+				clear(row[:c0+pl])
+				copy(row[c0+pl:c1+pl], src[ih*W+c0:ih*W+c1])
+				clear(row[c1+pl:])
+			}
+		}
+	})
+}
+
+// colRun is a run of consecutive output columns in one output row: panel
+// columns [d, d+n) read from padded offset base (+ rowOff[p]) on, every sw-th value.
+type colRun struct {
+	base, n, d int
+}
+
+// pack is a gemm.PackBFunc over the padded images (group offset in xp).
+func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
+	P := q.OH * q.OW
+	runs := make([]colRun, 0, nr+1)
+	offs := q.rowOff[p0 : p0+kc]
+	for c0 := 0; c0 < cols; c0 += nr {
+		nv := min(nr, cols-c0)
+		panel := dst[c0*kc : c0*kc+nr*kc]
+		runs = runs[:0]
+		for d, j := 0, j0+c0; d < nv; {
+			img, r := j/P, j%P
+			oh, ow := r/q.OW, r%q.OW
+			n := min(q.OW-ow, nv-d)
+			runs = append(runs, colRun{img*q.imgStride + oh*q.sh*q.Wp + ow*q.sw, n, d})
+			d += n
+			j += n
+		}
+		if nv < nr {
+			for p := range offs {
+				clear(panel[p*nr+nv : (p+1)*nr])
+			}
+		}
+		if q.sw == 1 {
+			for _, r := range runs {
+				if r.n >= 16 {
+					for p, o := range offs {
+						copy(panel[p*nr+r.d:p*nr+r.d+r.n], q.xp[r.base+o:r.base+o+r.n])
+					}
+					continue
+				}
+				for p, o := range offs {
+					d := panel[p*nr+r.d : p*nr+r.d+r.n]
+					s := q.xp[r.base+o : r.base+o+len(d)]
+					for i := range d {
+						d[i] = s[i]
+					}
+				}
+			}
+			continue
+		}
+		for _, r := range runs {
+			for p, o := range offs {
+				d := panel[p*nr+r.d : p*nr+r.d+r.n]
+				s := r.base + o
+				for i := range d {
+					d[i] = q.xp[s]
+					s += q.sw
+				}
+			}
+		}
+	}
+}
+
+// convImplicit2D runs every group's product of a non-depthwise 2-D
+// convolution, the bias (if any) written first and accumulated onto.
+func convImplicit2D(a *convF32Args, packs []*gemm.PackedA) {
+	beta := float32(0)
+	if a.bd != nil {
+		beta = 1
+	}
+	g := a.g
+	kg := a.Cg * a.K
+	q := newIm2colPanels(g, a.C, a.Cg)
+	imgs := 1
+	if a.P < convBatchMinP {
+		imgs = max(1, min(a.N, convBatchScratch/max(1, a.Mg*a.P)))
+	}
+	var scratch *[]float32
+	if imgs > 1 {
+		scratch = getF32(a.Mg * imgs * a.P)
+		defer putF32(scratch)
+	}
+	padded := getF32(imgs * q.imgStride)
+	defer putF32(padded)
+	product := func(gi, ncols int, c []float32, ldc int) {
+		if packs != nil {
+			gemm.SgemmPackedAFunc(ncols, 1, packs[gi], q.pack, beta, c, ldc)
+			return
+		}
+		gemm.SgemmFunc(false, a.Mg, ncols, kg, 1, a.wd[gi*a.Mg*kg:], max(kg, 1), q.pack, beta, c, ldc)
+	}
+	for n0 := 0; n0 < a.N; n0 += imgs {
+		nb := min(imgs, a.N-n0)
+		q.padImages(*padded, a.xd[n0*a.C*a.inSize:], nb, a.C, g)
+		for gi := 0; gi < a.group; gi++ {
+			q.xp = (*padded)[gi*a.Cg*q.Hp*q.Wp:]
+			if imgs == 1 {
+				y := a.yd[(n0*a.M+gi*a.Mg)*a.P : (n0*a.M+(gi+1)*a.Mg)*a.P]
+				if beta != 0 {
+					for m := 0; m < a.Mg; m++ {
+						fillF32(y[m*a.P:(m+1)*a.P], a.bd[gi*a.Mg+m])
+					}
+				}
+				product(gi, a.P, y, a.P)
+				continue
+			}
+			// C is Mg × (nb·P): row m holds channel gi·Mg+m of images n0…n0+nb−1
+			cs := (*scratch)[:a.Mg*nb*a.P]
+			ld := nb * a.P
+			if beta != 0 {
+				for m := 0; m < a.Mg; m++ {
+					fillF32(cs[m*ld:(m+1)*ld], a.bd[gi*a.Mg+m])
+				}
+			}
+			product(gi, ld, cs, ld)
+			for i := 0; i < nb; i++ {
+				for m := 0; m < a.Mg; m++ {
+					y := a.yd[((n0+i)*a.M+gi*a.Mg+m)*a.P:]
+					copy(y[:a.P], cs[m*ld+i*a.P:m*ld+(i+1)*a.P])
+				}
+			}
+		}
+	}
+}
+
+// fillF32 sets every element of s to v.
+func fillF32(s []float32, v float32) {
+	for i := range s {
+		s[i] = v
+	}
+}
