@@ -15,6 +15,7 @@ import (
 	"io"
 	"os"
 	"runtime/debug"
+	"runtime/pprof"
 	"strings"
 
 	flag "github.com/spf13/pflag"
@@ -37,6 +38,19 @@ Run "vitals check --help" for the flags. Checks:
 `
 
 func main() {
+	// VITALS_CPUPROFILE=FILE writes a CPU profile of the whole command (a
+	// developer aid for the benchmarks under bench/).
+	if f := os.Getenv("VITALS_CPUPROFILE"); f != "" {
+		if w, err := os.Create(f); err == nil {
+			if pprof.StartCPUProfile(w) == nil {
+				code := run(os.Args[1:], os.Stdout, os.Stderr)
+				pprof.StopCPUProfile()
+				w.Close()
+				os.Exit(code)
+			}
+			w.Close()
+		}
+	}
 	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
 }
 
