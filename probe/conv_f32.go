@@ -58,15 +58,16 @@ func convFastF32(a *convF32Args) {
 	if a.bd != nil {
 		beta = 1
 	}
+	if implicit {
+		convImplicit2D(a)
+		return
+	}
 	kg := a.Cg * a.K
 	var packs []*gemm.PackedA
 	if a.c.isInitializer(1) && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
 	}
-	if implicit {
-		convImplicit2D(a, packs)
-		return
-	}
+
 	inner := g.out[nd-1]
 	segTotal := a.P / max(inner, 1)
 	chunk := max(1, min(segTotal, convFastColBudget/max(1, kg*inner)))

@@ -37,6 +37,7 @@ type im2colPanels struct {
 	OH, OW    int
 	sh, sw    int
 	rowOff    []int // offset of B row p in an image: c·Hp·Wp + kh·dh·Wp + kw·dw (c within the group)
+	ones      bool  // B has one more row, all ones (for a bias column in A)
 }
 
 // newIm2colPanels sizes the padded images and the row offsets for one
@@ -95,10 +96,15 @@ type colRun struct {
 func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 	P := q.OH * q.OW
 	runs := make([]colRun, 0, nr+1)
-	offs := q.rowOff[p0 : p0+kc]
+	offs := q.rowOff[p0:min(p0+kc, len(q.rowOff))]
 	for c0 := 0; c0 < cols; c0 += nr {
 		nv := min(nr, cols-c0)
 		panel := dst[c0*kc : c0*kc+nr*kc]
+		if len(offs) < kc { // the row of ones (see ones) is the slice's last
+			last := panel[(kc-1)*nr : kc*nr]
+			fillF32(last[:nv], 1)
+			clear(last[nv:])
+		}
 		runs = runs[:0]
 		for d, j := 0, j0+c0; d < nv; {
 			img, r := j/P, j%P
@@ -146,7 +152,7 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 
 // convImplicit2D runs every group's product of a non-depthwise 2-D
 // convolution, the bias (if any) written first and accumulated onto.
-func convImplicit2D(a *convF32Args, packs []*gemm.PackedA) {
+func convImplicit2D(a *convF32Args) {
 	beta := float32(0)
 	if a.bd != nil {
 		beta = 1
@@ -154,6 +160,17 @@ func convImplicit2D(a *convF32Args, packs []*gemm.PackedA) {
 	g := a.g
 	kg := a.Cg * a.K
 	q := newIm2colPanels(g, a.C, a.Cg)
+	var packs []*gemm.PackedA
+	switch {
+	case !a.c.isInitializer(1) || kg == 0 || !packRoom(a.w):
+	case a.bd != nil && a.c.isInitializer(2):
+		// the bias rides in the product as a column of A times a row of ones
+		packs = packedConvWeightsBias(a.w, a.c.In[2], a.wd, a.bd, a.group, a.Mg, kg)
+		q.ones = true
+		beta = 0
+	default:
+		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
+	}
 	imgs := 1
 	if a.P < convBatchMinP {
 		imgs = max(1, min(a.N, convBatchScratch/max(1, a.Mg*a.P)))

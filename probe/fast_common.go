@@ -13,23 +13,24 @@ import (
 // Shared machinery of the float32 fast paths: the packed-weight cache and a
 // deterministic parallel loop.
 
-// isInitializer reports whether t is input i of the call and a constant
-// initializer of the running plan (immutable for the plan's lifetime).
+// isInitializer reports whether input i of the call is one of the running
+// plan's initializer tensors (immutable for the plan's lifetime), read
+// directly or passed on unchanged (Identity).
 func (c *Call) isInitializer(i int) bool {
-	if c.run == nil || c.run.plan == nil || i >= len(c.Node.Inputs) || i >= len(c.In) {
+	if c.run == nil || c.run.plan == nil || i >= len(c.In) || c.In[i] == nil {
 		return false
 	}
-	t, ok := c.run.plan.Graph.Initializers[c.Node.Inputs[i]]
-	return ok && t == c.In[i]
+	return c.run.plan.consts[c.In[i]]
 }
 
 // packKey identifies one packing of one weight tensor: the tensor (held
 // weakly, so the cache never keeps a model alive) and how it was packed.
 type packKey struct {
 	t     weak.Pointer[tensor.Tensor]
-	kind  uint8 // 'A' conv weights per group, 'B' right operand of a product
+	kind  uint8 // 'A' conv weights per group, 'b' the same with the bias as an extra column, 'B' right operand of a product
 	trans bool
 	group int
+	aux   weak.Pointer[tensor.Tensor] // the bias of kind 'b'
 }
 
 // packCache maps packKey → []*gemm.PackedA or *gemm.PackedB. An entry is
@@ -61,8 +62,11 @@ func packCached(t *tensor.Tensor) bool {
 	return found
 }
 
-func cachedPack[V any](t *tensor.Tensor, kind uint8, trans bool, group int, build func() V) V {
+func cachedPack[V any](t, aux *tensor.Tensor, kind uint8, trans bool, group int, build func() V) V {
 	key := packKey{t: weak.Make(t), kind: kind, trans: trans, group: group}
+	if aux != nil {
+		key.aux = weak.Make(aux)
+	}
 	if v, ok := packCache.Load(key); ok {
 		return v.(V)
 	}
@@ -80,7 +84,7 @@ func cachedPack[V any](t *tensor.Tensor, kind uint8, trans bool, group int, buil
 
 // packedConvWeights packs W ([M][Cg·K], group-major) once per group.
 func packedConvWeights(w *tensor.Tensor, wd []float32, group, mg, kg int) []*gemm.PackedA {
-	return cachedPack(w, 'A', false, group, func() []*gemm.PackedA {
+	return cachedPack(w, nil, 'A', false, group, func() []*gemm.PackedA {
 		ps := make([]*gemm.PackedA, group)
 		for g := range ps {
 			ps[g] = gemm.PackA(false, mg, kg, wd[g*mg*kg:(g+1)*mg*kg], max(kg, 1))
@@ -89,9 +93,27 @@ func packedConvWeights(w *tensor.Tensor, wd []float32, group, mg, kg int) []*gem
 	})
 }
 
+// packedConvWeightsBias packs [W_g | b_g] (Mg×(kg+1)) once per group: the
+// product with an im2col matrix whose last row is all ones adds the bias
+// (see im2colPanels.ones), so Y is written once and never read back.
+func packedConvWeightsBias(w, b *tensor.Tensor, wd, bd []float32, group, mg, kg int) []*gemm.PackedA {
+	return cachedPack(w, b, 'b', false, group, func() []*gemm.PackedA {
+		ps := make([]*gemm.PackedA, group)
+		aug := make([]float32, mg*(kg+1))
+		for g := range ps {
+			for m := 0; m < mg; m++ {
+				copy(aug[m*(kg+1):m*(kg+1)+kg], wd[(g*mg+m)*kg:(g*mg+m+1)*kg])
+				aug[m*(kg+1)+kg] = bd[g*mg+m]
+			}
+			ps[g] = gemm.PackA(false, mg, kg+1, aug, kg+1)
+		}
+		return ps
+	})
+}
+
 // packedRight packs op(B) (k×n) once.
 func packedRight(b *tensor.Tensor, bd []float32, trans bool, k, n, ldb int) *gemm.PackedB {
-	return cachedPack(b, 'B', trans, 0, func() *gemm.PackedB {
+	return cachedPack(b, nil, 'B', trans, 0, func() *gemm.PackedB {
 		return gemm.PackB(trans, k, n, bd, ldb)
 	})
 }

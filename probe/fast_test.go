@@ -19,12 +19,14 @@ func fastCall(op string, attrs map[string]*loader.Attr, opset int, names []strin
 	c := linTestCall(op, attrs, opset, in...)
 	c.Node.Inputs = names
 	inits := map[string]*tensor.Tensor{}
+	ptrs := map[*tensor.Tensor]bool{}
 	for i, nm := range names {
 		if consts[nm] && in[i] != nil {
 			inits[nm] = in[i]
+			ptrs[in[i]] = true
 		}
 	}
-	c.run = &runState{plan: &Plan{Graph: &loader.Graph{Initializers: inits}}}
+	c.run = &runState{plan: &Plan{Graph: &loader.Graph{Initializers: inits}, consts: ptrs}}
 	return c
 }
 
@@ -108,7 +110,7 @@ func TestConvFastMatchesReference(t *testing.T) {
 					if rep == 2 { // small planes: products shared by runs of two images
 						convBatchScratch = 2 * (k.M / k.group) * (k.H + k.pt + k.pb) * (k.W + k.pl + k.pr)
 					}
-					c := fastCall("Conv", attrs, 11, names, map[string]bool{"W": constW}, in...)
+					c := fastCall("Conv", attrs, 11, names, map[string]bool{"W": constW, "B": constW}, in...)
 					err := convKernel(c)
 					convBatchScratch = saved
 					if err != nil {

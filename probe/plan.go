@@ -27,6 +27,9 @@ type Plan struct {
 	// release[i] lists the values freed after step i.
 	release [][]string
 	sub     map[*loader.Graph]*Plan
+	// consts holds the initializer tensors: a kernel input that is one of
+	// them (directly or passed on by Identity) is immutable for the plan's life.
+	consts map[*tensor.Tensor]bool
 	// Debug keeps Go stack traces in kernel panic errors.
 	Debug bool
 }
@@ -51,13 +54,14 @@ func Compile(m *loader.Model) (*Plan, error) {
 }
 
 func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]bool) (*Plan, error) {
-	p := &Plan{Graph: g, Opsets: opsets, sub: map[*loader.Graph]*Plan{}}
+	p := &Plan{Graph: g, Opsets: opsets, sub: map[*loader.Graph]*Plan{}, consts: map[*tensor.Tensor]bool{}}
 	known := map[string]int{} // value -> depth of producer
 	for name := range outer {
 		known[name] = 0
 	}
-	for name := range g.Initializers {
+	for name, t := range g.Initializers {
 		known[name] = 0
+		p.consts[t] = true
 	}
 	for _, in := range g.Inputs {
 		known[in.Name] = 0
