@@ -62,13 +62,6 @@ func tanhF32(dst, src []float32) {
 	}
 }
 
-func erfF32(dst, src []float32) {
-	dst = dst[:len(src)]
-	for i, v := range src {
-		dst[i] = float32(math.Erf(float64(v)))
-	}
-}
-
 // unaryF32Kernel is a float kernel whose float32 case runs the slice kernel
 // k32 (which must compute exactly float32(g(float64(x)))) and whose other
 // cases go through mapFloat with g.
