@@ -104,6 +104,25 @@ func Sgemm(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int
 		beta, c, ldc)
 }
 
+// SgemmSerial is Sgemm on the calling goroutine only, for callers that run
+// many small independent products in parallel themselves (batched MatMul).
+func SgemmSerial(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("A", transA, m, k, a, lda)
+	checkOperand("B", transB, k, n, b, ldb)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	runOn(1, active.Load(), m, n, k, alpha,
+		operand{data: a, ld: lda, trans: transA},
+		operand{data: b, ld: ldb, trans: transB},
+		beta, c, ldc)
+}
+
 // PackedA is op(A) (m×k) packed once in the layout the micro-kernel reads,
 // for reuse across many products (e.g. convolution weights, C = W·cols).
 type PackedA struct {

@@ -176,6 +176,24 @@ func TestMatMulGemmPackedMatchesReference(t *testing.T) {
 		}
 		closeF32(t, fmt.Sprint("MatMul ", as), c.Out[0].F32(), want, 1e-5)
 	}
+	// batched products on both sides, with broadcasting (attention-shaped):
+	// whole products spread over the cores
+	for _, s := range [][2][]int{{{2, 3, 17, 8}, {2, 3, 8, 17}}, {{4, 1, 9, 5}, {1, 3, 5, 11}}, {{3, 7, 6}, {6, 2}}, {{5, 2, 3}, {5, 3, 4}}} {
+		a, b := linRand(r, s[0]...), linRand(r, s[1]...)
+		var want []float32
+		withReference(func() {
+			c := fastCall("MatMul", nil, 13, []string{"A", "B"}, nil, a, b)
+			if err := matMulKernel(c); err != nil {
+				t.Fatal(err)
+			}
+			want = c.Out[0].F32()
+		})
+		c := fastCall("MatMul", nil, 13, []string{"A", "B"}, nil, a, b)
+		if err := matMulKernel(c); err != nil {
+			t.Fatal(err)
+		}
+		closeF32(t, fmt.Sprint("MatMul ", s), c.Out[0].F32(), want, 1e-5)
+	}
 	for _, tA := range []int64{0, 1} {
 		for _, tB := range []int64{0, 1} {
 			m, k, n := 9, 13, 21

@@ -221,6 +221,23 @@ func linMatMul[T Number](a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*t
 	}
 	sa := BroadcastStrides(aBatch, batch)
 	sb := BroadcastStrides(bBatch, batch)
+	if af, ok := any(ad).([]float32); ok && !linGemmReference && nb > 1 && m*n*k < matMulSerialMax {
+		// many small products (attention heads): whole products per core
+		bf, of := any(bd).([]float32), any(out).([]float32)
+		parFor(nb, 1, func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				oa, ob, r := 0, 0, i
+				for ax := len(batch) - 1; ax >= 0; ax-- {
+					v := r % batch[ax]
+					r /= batch[ax]
+					oa += v * sa[ax]
+					ob += v * sb[ax]
+				}
+				gemm.SgemmSerial(false, false, m, n, k, 1, af[oa*m*k:], max(k, 1), bf[ob*k*n:], max(n, 1), 0, of[i*m*n:], max(n, 1))
+			}
+		})
+		return tensor.From(out, outShape...), nil
+	}
 	idx := make([]int, len(batch))
 	for i := 0; i < nb; i++ {
 		oa, ob := 0, 0
@@ -239,6 +256,12 @@ func linMatMul[T Number](a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*t
 	}
 	return tensor.From(out, outShape...), nil
 }
+
+// matMulSerialMax is the multiply-add count of one product of a batched
+// MatMul below which the products are spread over the cores whole, each on
+// one core, instead of splitting every product (common practice: splitting
+// costs a hand-off per product; measured here on attention-sized products).
+const matMulSerialMax = 1 << 24
 
 // gemmKernel: Y = alpha·op(A)·op(B) + beta·C, op = transpose when transA/transB
 // is set, C (optional from opset 11) broadcast unidirectionally to M×N.
