@@ -226,6 +226,68 @@ func arithF32Fast(op opID, out []float32, os []int, a []float32, as []int, b []f
 
 // poolMaxF32 is poolMaxRun for float32 without indices, planes split across
 // cores. The maximum propagates NaN as poolMaxRun does.
+// poolMax2DF32 is poolMaxF32 for 2-D windows, separably: for each output
+// row the element-wise max of the window's input rows inside the image,
+// then for each output column the max of that row's taps inside the image.
+// Go's max is commutative and associative (NaN wins, +0 beats −0), so the
+// result equals the max over the window's taps in any order; outputs whose
+// window holds no input value are left as they are (0), as in poolMaxF32.
+func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
+	H, W := g.in[0], g.in[1]
+	OH, OW := g.out[0], g.out[1]
+	KH, KW := g.k[0], g.k[1]
+	sh, sw, dh, dw := g.strides[0], g.strides[1], g.dil[0], g.dil[1]
+	pt, pl := g.padBeg[0], g.padBeg[1]
+	parFor(planes, max(1, elemChunk/max(1, OH*OW*4)), func(p0, p1 int) {
+		tmp := make([]float32, W)
+		for pl0 := p0; pl0 < p1; pl0++ {
+			xp := x[pl0*H*W : (pl0+1)*H*W]
+			yp := y[pl0*OH*OW : (pl0+1)*OH*OW]
+			for oh := 0; oh < OH; oh++ {
+				rows := 0
+				for kh := 0; kh < KH; kh++ {
+					ih := oh*sh - pt + kh*dh
+					if ih < 0 || ih >= H {
+						continue
+					}
+					src := xp[ih*W : (ih+1)*W]
+					if rows == 0 {
+						copy(tmp, src)
+					} else {
+						for i, v := range src {
+							tmp[i] = max(tmp[i], v)
+						}
+					}
+					rows++
+				}
+				if rows == 0 {
+					continue
+				}
+				yr := yp[oh*OW : (oh+1)*OW]
+				for ow := range yr {
+					base := ow*sw - pl
+					first := true
+					var best float32
+					for kw := 0; kw < KW; kw++ {
+						iw := base + kw*dw
+						if iw < 0 || iw >= W {
+							continue
+						}
+						if first {
+							best, first = tmp[iw], false
+						} else {
+							best = max(best, tmp[iw])
+						}
+					}
+					if !first {
+						yr[ow] = best
+					}
+				}
+			}
+		}
+	})
+}
+
 func poolMaxF32(y, x []float32, planes int, w *poolWindows) {
 	parFor(planes, max(1, elemChunk/max(1, w.outSize*4)), func(p0, p1 int) {
 		for pl := p0; pl < p1; pl++ {

@@ -321,26 +321,43 @@ func TestUnaryF32FastMatchesScalar(t *testing.T) {
 	check("erf", erfF32, elemVia64(math.Erf))
 }
 
+// The float32 MaxPool paths (separable 2-D, and the window-table one for
+// other ranks) give exactly the generic per-window loop's values, NaN, ±0
+// and ±Inf included, for strides, dilations, asymmetric pads and ceil mode.
 func TestMaxPoolF32MatchesGeneric(t *testing.T) {
 	r := rand.New(rand.NewSource(16))
-	x := tensor.New(tensor.Float32, []int{3, 5, 13, 11})
-	copy(x.F32(), specialF32(r, x.Size()))
-	attrs := map[string]*loader.Attr{"kernel_shape": linInts("kernel_shape", 3, 3), "strides": linInts("strides", 2, 2), "pads": linInts("pads", 1, 1, 1, 1)}
-	c := linTestCall("MaxPool", attrs, 12, x)
-	if err := maxPoolKernel(c); err != nil {
-		t.Fatal(err)
+	type pc struct {
+		shape         []int
+		k, s, d, pads []int64
+		ceil          int64
 	}
-	g, w, err := poolPrepare(c, x, true)
-	if err != nil {
-		t.Fatal(err)
+	cases := []pc{
+		{[]int{3, 5, 13, 11}, []int64{3, 3}, []int64{2, 2}, []int64{1, 1}, []int64{1, 1, 1, 1}, 0},
+		{[]int{2, 3, 12, 9}, []int64{2, 3}, []int64{1, 2}, []int64{2, 1}, []int64{0, 1, 1, 2}, 1},
+		{[]int{1, 2, 7, 8}, []int64{3, 2}, []int64{3, 3}, []int64{1, 1}, []int64{2, 0, 2, 1}, 1},
+		{[]int{2, 3, 17}, []int64{3}, []int64{2}, []int64{1}, []int64{1, 1}, 0},
 	}
-	_ = g
-	want := make([]float32, c.Out[0].Size())
-	poolMaxRun(want, nil, x.F32(), 15, w)
-	for i, v := range want {
-		got := c.Out[0].F32()[i]
-		if got != v && !(got != got && v != v) {
-			t.Fatalf("element %d = %g, want %g", i, got, v)
+	for _, k := range cases {
+		x := tensor.New(tensor.Float32, k.shape)
+		copy(x.F32(), specialF32(r, x.Size()))
+		attrs := map[string]*loader.Attr{"kernel_shape": linInts("kernel_shape", k.k...), "strides": linInts("strides", k.s...),
+			"dilations": linInts("dilations", k.d...), "pads": linInts("pads", k.pads...),
+			"ceil_mode": {Name: "ceil_mode", Kind: loader.AttrInt, I: k.ceil}}
+		c := linTestCall("MaxPool", attrs, 12, x)
+		if err := maxPoolKernel(c); err != nil {
+			t.Fatal(err)
+		}
+		_, w, err := poolPrepare(c, x, true)
+		if err != nil {
+			t.Fatal(err)
+		}
+		want := make([]float32, c.Out[0].Size())
+		poolMaxRun(want, nil, x.F32(), k.shape[0]*k.shape[1], w)
+		for i, v := range want {
+			got := c.Out[0].F32()[i]
+			if math.Float32bits(got) != math.Float32bits(v) && !(got != got && v != v) {
+				t.Fatalf("%+v: element %d = %g, want %g", k, i, got, v)
+			}
 		}
 	}
 }

@@ -147,7 +147,9 @@ func maxPoolKernel(c *Call) error {
 	planes := x.Shape[0] * x.Shape[1]
 	switch xd := x.Data.(type) {
 	case []float32:
-		if idx == nil {
+		if idx == nil && len(g.out) == 2 {
+			poolMax2DF32(out.F32(), xd, planes, &g)
+		} else if idx == nil {
 			poolMaxF32(out.F32(), xd, planes, w)
 		} else {
 			poolMaxRun(out.F32(), idx, xd, planes, w)
