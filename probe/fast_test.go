@@ -361,3 +361,32 @@ func TestMaxPoolF32MatchesGeneric(t *testing.T) {
 		}
 	}
 }
+
+// Softmax, LogSoftmax and Hardmax split across cores by outer rows give
+// bit for bit the serial loop's values (the serial smLoop is the reference).
+func TestSoftmaxRowsParallelMatchesSerial(t *testing.T) {
+	r := rand.New(rand.NewSource(21))
+	x := linRand(r, 96, 4, 700)
+	for _, op := range []string{"Softmax", "LogSoftmax", "Hardmax"} {
+		for _, axis := range []int64{1, 2} {
+			attrs := map[string]*loader.Attr{"axis": {Name: "axis", Kind: loader.AttrInt, I: axis}}
+			c := linTestCall(op, attrs, 13, x)
+			k, _ := Lookup("", op, 13)
+			if err := k(c); err != nil {
+				t.Fatal(err)
+			}
+			outer, m, inner := 96, 4, 700
+			if axis == 2 {
+				outer, m, inner = 96*4, 700, 1
+			}
+			kind := map[string]smKind{"Softmax": smSoftmax, "LogSoftmax": smLogSoftmax, "Hardmax": smHardmax}[op]
+			want := make([]float32, x.Size())
+			smLoop(kind, want, x.F32(), outer, m, inner)
+			for i, w := range want {
+				if g := c.Out[0].F32()[i]; math.Float32bits(g) != math.Float32bits(w) {
+					t.Fatalf("%s axis %d: element %d = %g, serial %g", op, axis, i, g, w)
+				}
+			}
+		}
+	}
+}

@@ -64,11 +64,20 @@ func softmaxKernel(kind smKind) Kernel {
 			}
 		}
 		y := tensor.New(x.DType, x.Shape)
+		// rows of the outer axis are independent: split them across cores
+		// (each row is computed by one worker exactly as a serial run would)
+		minRows := max(1, elemChunk/max(1, m*inner))
 		switch d := x.Data.(type) {
 		case []float32:
-			smLoop(kind, y.F32(), d, outer, m, inner)
+			yd := y.F32()
+			parFor(outer, minRows, func(lo, hi int) {
+				smLoop(kind, yd[lo*m*inner:hi*m*inner], d[lo*m*inner:hi*m*inner], hi-lo, m, inner)
+			})
 		case []float64:
-			smLoop(kind, y.F64(), d, outer, m, inner)
+			yd := y.F64()
+			parFor(outer, minRows, func(lo, hi int) {
+				smLoop(kind, yd[lo*m*inner:hi*m*inner], d[lo*m*inner:hi*m*inner], hi-lo, m, inner)
+			})
 		}
 		c.Set(0, y)
 		return nil
