@@ -87,40 +87,39 @@ func setKernel(name string) (restore func(), ok bool) {
 // with ldb; C is m×n with ldc. It panics if a slice is too short or a leading
 // dimension too small.
 func Sgemm(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
-	checkDims(m, n, k, ldc, len(c))
-	checkOperand("A", transA, m, k, a, lda)
-	checkOperand("B", transB, k, n, b, ldb)
-	if m == 0 || n == 0 {
-		return
-	}
-	if k == 0 || alpha == 0 {
-		scaleC(m, n, beta, c, ldc)
-		return
-	}
-	kern := active.Load()
-	run(kern, m, n, k, alpha,
-		operand{data: a, ld: lda, trans: transA},
-		operand{data: b, ld: ldb, trans: transB},
-		beta, c, ldc)
+	sgemmOn(Threads(), transA, transB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
 }
 
 // SgemmSerial is Sgemm on the calling goroutine only, for callers that run
 // many small independent products in parallel themselves (batched MatMul).
 func SgemmSerial(transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	sgemmOn(1, transA, transB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+}
+
+func sgemmOn(workers int, transA, transB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
 	checkOperand("B", transB, k, n, b, ldb)
-	if m == 0 || n == 0 {
+	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
-	if k == 0 || alpha == 0 {
-		scaleC(m, n, beta, c, ldc)
-		return
-	}
-	runOn(1, active.Load(), m, n, k, alpha,
+	runOn(workers, active.Load(), m, n, k, alpha,
 		operand{data: a, ld: lda, trans: transA},
 		operand{data: b, ld: ldb, trans: transB},
 		beta, c, ldc)
+}
+
+// trivial finishes the products with nothing to multiply (m or n is 0:
+// nothing; k or alpha is 0: C = beta·C) and reports whether it did.
+func trivial(m, n, k int, alpha, beta float32, c []float32, ldc int) bool {
+	if m == 0 || n == 0 {
+		return true
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return true
+	}
+	return false
 }
 
 // PackedA is op(A) (m×k) packed once in the layout the micro-kernel reads,
@@ -189,11 +188,7 @@ func SgemmPackedA(n int, alpha float32, pa *PackedA, transB bool, b []float32, l
 	m, k := pa.m, pa.k
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("B", transB, k, n, b, ldb)
-	if m == 0 || n == 0 {
-		return
-	}
-	if k == 0 || alpha == 0 {
-		scaleC(m, n, beta, c, ldc)
+	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
 	run(pa.kern, m, n, k, alpha,
@@ -217,11 +212,7 @@ type PackBFunc func(nr int, dst []float32, p0, kc, j0, cols int)
 func SgemmPackedAFunc(n int, alpha float32, pa *PackedA, pack PackBFunc, beta float32, c []float32, ldc int) {
 	m, k := pa.m, pa.k
 	checkDims(m, n, k, ldc, len(c))
-	if m == 0 || n == 0 {
-		return
-	}
-	if k == 0 || alpha == 0 {
-		scaleC(m, n, beta, c, ldc)
+	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
 	run(pa.kern, m, n, k, alpha,
@@ -234,11 +225,7 @@ func SgemmPackedAFunc(n int, alpha float32, pa *PackedA, pack PackBFunc, beta fl
 func SgemmFunc(transA bool, m, n, k int, alpha float32, a []float32, lda int, pack PackBFunc, beta float32, c []float32, ldc int) {
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
-	if m == 0 || n == 0 {
-		return
-	}
-	if k == 0 || alpha == 0 {
-		scaleC(m, n, beta, c, ldc)
+	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
 	run(active.Load(), m, n, k, alpha,
@@ -253,11 +240,7 @@ func SgemmPackedB(transA bool, m int, alpha float32, a []float32, lda int, pb *P
 	k, n := pb.k, pb.n
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
-	if m == 0 || n == 0 {
-		return
-	}
-	if k == 0 || alpha == 0 {
-		scaleC(m, n, beta, c, ldc)
+	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
 	run(pb.kern, m, n, k, alpha,

@@ -25,18 +25,7 @@ func TestInitializerThroughIdentity(t *testing.T) {
 	b.Node("Conv", "conv", []string{"x", "W", "B2"}, []string{"y"},
 		modelbuild.Attr{Name: "pads", Value: []int64{1, 1, 1, 1}})
 	b.Output("y")
-	data, err := b.Bytes()
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := Compile(m)
-	if err != nil {
-		t.Fatal(err)
-	}
+	m, p := planOf(t, b)
 	x := linRand(r, 2, 3, 9, 9)
 	out, err := p.Run(map[string]*tensor.Tensor{"x": x}, nil)
 	if err != nil {
@@ -62,4 +51,22 @@ func TestInitializerThroughIdentity(t *testing.T) {
 		want = ref["y"].F32()
 	})
 	closeF32(t, "conv through Identity", out["y"].F32(), want, 1e-4)
+}
+
+// planOf serialises, decodes and compiles a built model, failing the test on any error.
+func planOf(t testing.TB, b *modelbuild.Builder) (*loader.Model, *Plan) {
+	t.Helper()
+	data, err := b.Bytes()
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := loader.DecodeModel(data, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return m, p
 }

@@ -5,7 +5,6 @@ import (
 	"testing"
 
 	"vitals/internal/modelbuild"
-	"vitals/loader"
 	"vitals/tensor"
 )
 
@@ -22,15 +21,7 @@ func TestValuesReleasedAfterLastConsumer(t *testing.T) {
 	// a skip connection: v0 is read again by the last node
 	b.Node("Add", "skip", []string{prev, "v0"}, []string{"y"})
 	b.Output("y")
-	data, _ := b.Bytes()
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := Compile(m)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, p := planOf(t, b)
 	freedAt := map[string]int{}
 	for i, names := range p.release {
 		for _, name := range names {
