@@ -12,14 +12,7 @@ import (
 
 func compileBuilt(t *testing.T, b *modelbuild.Builder) (*loader.Model, *probe.Plan, error) {
 	t.Helper()
-	data, err := b.Bytes()
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
+	m := probe.BuiltModel(t, b)
 	p, err := probe.Compile(m)
 	return m, p, err
 }

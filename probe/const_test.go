@@ -53,8 +53,9 @@ func TestInitializerThroughIdentity(t *testing.T) {
 	closeF32(t, "conv through Identity", out["y"].F32(), want, 1e-4)
 }
 
-// planOf serialises, decodes and compiles a built model, failing the test on any error.
-func planOf(t testing.TB, b *modelbuild.Builder) (*loader.Model, *Plan) {
+// BuiltModel serialises and decodes a built model, failing the test on an
+// error (exported for the package's external tests too).
+func BuiltModel(t testing.TB, b *modelbuild.Builder) *loader.Model {
 	t.Helper()
 	data, err := b.Bytes()
 	if err != nil {
@@ -64,6 +65,13 @@ func planOf(t testing.TB, b *modelbuild.Builder) (*loader.Model, *Plan) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	return m
+}
+
+// planOf is BuiltModel then Compile, failing the test on any error.
+func planOf(t testing.TB, b *modelbuild.Builder) (*loader.Model, *Plan) {
+	t.Helper()
+	m := BuiltModel(t, b)
 	p, err := Compile(m)
 	if err != nil {
 		t.Fatal(err)
