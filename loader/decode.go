@@ -34,11 +34,12 @@ func LoadModel(path string) (*Model, error) {
 	if fi.Size() > MaxProtoBytes {
 		return nil, fmt.Errorf("loading model %q: %d bytes is over the protobuf 2 GiB limit; ONNX keeps weights of such models in external data files", path, fi.Size())
 	}
-	b, err := os.ReadFile(path)
-	if err != nil {
-		return nil, fmt.Errorf("loading model %q: %w", path, err)
-	}
-	m, err := DecodeModel(b, filepath.Dir(path))
+	var m *Model
+	// DecodeModel keeps no reference to the bytes (the protobuf decoder copies)
+	err = withFileBytes(path, func(b []byte) (err error) {
+		m, err = DecodeModel(b, filepath.Dir(path))
+		return err
+	})
 	if err != nil {
 		return nil, fmt.Errorf("loading model %q: %w", path, err)
 	}
