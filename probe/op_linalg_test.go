@@ -127,15 +127,42 @@ func TestEinsumMatchesMatMul(t *testing.T) {
 	}
 }
 
-func BenchmarkConv3x3(b *testing.B) {
+// BenchmarkConvResNet18 runs the convolution shapes of ResNet-18 at 224×224
+// over a batch of 8 with constant weights and bias (as in a model), and
+// reports GFLOP/s (2 per multiply-add).
+func BenchmarkConvResNet18(b *testing.B) {
 	r := rand.New(rand.NewSource(3))
-	x, w := linRand(r, 1, 64, 56, 56), linRand(r, 64, 64, 3, 3)
-	c := linTestCall("Conv", map[string]*loader.Attr{"pads": linInts("pads", 1, 1, 1, 1)}, 11, x, w)
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		if err := convKernel(c); err != nil {
-			b.Fatal(err)
-		}
+	for _, s := range []struct {
+		name              string
+		C, M, H, k, s, pd int
+	}{
+		{"conv1_7x7s2", 3, 64, 224, 7, 2, 3},
+		{"layer1_3x3", 64, 64, 56, 3, 1, 1},
+		{"layer2_3x3s2", 64, 128, 56, 3, 2, 1},
+		{"layer2_3x3", 128, 128, 28, 3, 1, 1},
+		{"layer3_3x3", 256, 256, 14, 3, 1, 1},
+		{"layer4_3x3", 512, 512, 7, 3, 1, 1},
+		{"layer4_1x1s2", 256, 512, 14, 1, 2, 0},
+	} {
+		b.Run(s.name, func(b *testing.B) {
+			const n = 8
+			x, w, bias := linRand(r, n, s.C, s.H, s.H), linRand(r, s.M, s.C, s.k, s.k), linRand(r, s.M)
+			attrs := map[string]*loader.Attr{"pads": linInts("pads", int64(s.pd), int64(s.pd), int64(s.pd), int64(s.pd)),
+				"strides": linInts("strides", int64(s.s), int64(s.s))}
+			c := fastCall("Conv", attrs, 11, []string{"X", "W", "B"}, map[string]bool{"W": true, "B": true}, x, w, bias)
+			if err := convKernel(c); err != nil { // packs the weights
+				b.Fatal(err)
+			}
+			oh := (s.H+2*s.pd-s.k)/s.s + 1
+			flops := 2 * float64(n*s.M*oh*oh) * float64(s.C*s.k*s.k)
+			b.ResetTimer()
+			for b.Loop() {
+				if err := convKernel(c); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.ReportMetric(flops*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
+		})
 	}
 }
 
