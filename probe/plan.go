@@ -27,6 +27,8 @@ type Plan struct {
 	// release[i] lists the values freed after step i.
 	release [][]string
 	sub     map[*loader.Graph]*Plan
+	// producedAt maps each value to the step producing it (fuse.go).
+	producedAt map[string]int
 	// Debug keeps Go stack traces in kernel panic errors.
 	Debug bool
 }
@@ -36,6 +38,8 @@ type Step struct {
 	Node   *loader.Node
 	Kernel Kernel
 	Opset  int
+	// fuseWith is the activation step this step may compute too (fuse.go), or −1.
+	fuseWith int
 }
 
 // UnsupportedError lists every node whose operator has no kernel.
@@ -150,7 +154,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 					}
 				}
 			}
-			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset})
+			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset, fuseWith: -1})
 			p.Depth = append(p.Depth, depth+1)
 			for _, o := range n.Outputs {
 				if o == "" {
@@ -194,6 +198,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 		}
 	}
 	p.computeRelease()
+	p.markFusions()
 	return p, nil
 }
 
@@ -353,6 +358,8 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 		env.vals[name] = t
 	}
 	rs := &runState{plan: p, hook: hook}
+	// fused[j]: step j's output, computed already by the step fused with it
+	var fused map[int]*tensor.Tensor
 	for i := range p.Steps {
 		s := &p.Steps[i]
 		c := &Call{Node: s.Node, Opset: s.Opset, Scope: env, sub: p.sub, run: rs}
@@ -368,8 +375,20 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 			c.In[j] = t
 		}
 		c.Out = make([]*tensor.Tensor, len(s.Node.Outputs))
-		if err := p.call(s, c); err != nil {
-			return nil, err
+		if t, ok := fused[i]; ok {
+			c.Out[0] = t
+			delete(fused, i)
+		} else {
+			c.fuse = p.fuseFor(i, env, c)
+			if err := p.call(s, c); err != nil {
+				return nil, err
+			}
+			if c.fuse != nil && c.fuse.out != nil {
+				if fused == nil {
+					fused = map[int]*tensor.Tensor{}
+				}
+				fused[s.fuseWith] = c.fuse.out
+			}
 		}
 		for j, name := range s.Node.Outputs {
 			if name == "" {

@@ -1,0 +1,250 @@
+#include "textflag.h"
+
+// Row kernels of the 3×3 depthwise convolution (see conv_dw_amd64.go):
+// dst[j] = wb[9] + Σ_{k,t<3} wb[3k+t] · r_k[j·s + t] for j < n.
+// Registers: weights in 0..8, bias in 9, accumulator 10; DI dst, R8/R9/R10
+// the three input rows, CX the remaining block count.
+
+#define LOADARGS \
+	MOVQ dst+0(FP), DI \
+	MOVQ r0+8(FP), R8 \
+	MOVQ r1+16(FP), R9 \
+	MOVQ r2+24(FP), R10 \
+	MOVQ wb+32(FP), AX \
+	MOVQ n+40(FP), CX
+
+// func dw3s1AVX512(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
+// 16 outputs per block; tap t of row k is an unaligned load at r_k + 4t bytes.
+TEXT ·dw3s1AVX512(SB), NOSPLIT, $0-48
+	LOADARGS
+	VBROADCASTSS 0(AX), Z0
+	VBROADCASTSS 4(AX), Z1
+	VBROADCASTSS 8(AX), Z2
+	VBROADCASTSS 12(AX), Z3
+	VBROADCASTSS 16(AX), Z4
+	VBROADCASTSS 20(AX), Z5
+	VBROADCASTSS 24(AX), Z6
+	VBROADCASTSS 28(AX), Z7
+	VBROADCASTSS 32(AX), Z8
+	VBROADCASTSS 36(AX), Z9
+	SHRQ $4, CX
+	JZ   s1z_done
+s1z_loop:
+	VMOVAPS Z9, Z10
+	VFMADD231PS 0(R8), Z0, Z10
+	VFMADD231PS 4(R8), Z1, Z10
+	VFMADD231PS 8(R8), Z2, Z10
+	VFMADD231PS 0(R9), Z3, Z10
+	VFMADD231PS 4(R9), Z4, Z10
+	VFMADD231PS 8(R9), Z5, Z10
+	VFMADD231PS 0(R10), Z6, Z10
+	VFMADD231PS 4(R10), Z7, Z10
+	VFMADD231PS 8(R10), Z8, Z10
+	VMOVUPS Z10, (DI)
+	ADDQ $64, DI
+	ADDQ $64, R8
+	ADDQ $64, R9
+	ADDQ $64, R10
+	DECQ CX
+	JNZ  s1z_loop
+s1z_done:
+	VZEROUPPER
+	RET
+
+// func dw3s2AVX512(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
+// 16 outputs per block read p[0..32] of each row (p = r_k + 2j): tap 0 is
+// the even lanes of p[0..31], taps 1 and 2 the even and odd lanes of
+// p[1..32], picked with two-table permutes (Z30 even, Z31 odd indices).
+TEXT ·dw3s2AVX512(SB), NOSPLIT, $0-48
+	LOADARGS
+	VBROADCASTSS 0(AX), Z0
+	VBROADCASTSS 4(AX), Z1
+	VBROADCASTSS 8(AX), Z2
+	VBROADCASTSS 12(AX), Z3
+	VBROADCASTSS 16(AX), Z4
+	VBROADCASTSS 20(AX), Z5
+	VBROADCASTSS 24(AX), Z6
+	VBROADCASTSS 28(AX), Z7
+	VBROADCASTSS 32(AX), Z8
+	VBROADCASTSS 36(AX), Z9
+	VMOVDQU32 dwEvenIdx<>(SB), Z30
+	VMOVDQU32 dwOddIdx<>(SB), Z31
+	SHRQ $4, CX
+	JZ   s2z_done
+s2z_loop:
+	VMOVAPS Z9, Z10
+	VMOVUPS (R8), Z11
+	VPERMT2PS 64(R8), Z30, Z11
+	VMOVUPS 4(R8), Z12
+	VMOVAPS Z12, Z13
+	VPERMT2PS 68(R8), Z30, Z12
+	VPERMT2PS 68(R8), Z31, Z13
+	VFMADD231PS Z11, Z0, Z10
+	VFMADD231PS Z12, Z1, Z10
+	VFMADD231PS Z13, Z2, Z10
+	VMOVUPS (R9), Z11
+	VPERMT2PS 64(R9), Z30, Z11
+	VMOVUPS 4(R9), Z12
+	VMOVAPS Z12, Z13
+	VPERMT2PS 68(R9), Z30, Z12
+	VPERMT2PS 68(R9), Z31, Z13
+	VFMADD231PS Z11, Z3, Z10
+	VFMADD231PS Z12, Z4, Z10
+	VFMADD231PS Z13, Z5, Z10
+	VMOVUPS (R10), Z11
+	VPERMT2PS 64(R10), Z30, Z11
+	VMOVUPS 4(R10), Z12
+	VMOVAPS Z12, Z13
+	VPERMT2PS 68(R10), Z30, Z12
+	VPERMT2PS 68(R10), Z31, Z13
+	VFMADD231PS Z11, Z6, Z10
+	VFMADD231PS Z12, Z7, Z10
+	VFMADD231PS Z13, Z8, Z10
+	VMOVUPS Z10, (DI)
+	ADDQ $64, DI
+	ADDQ $128, R8
+	ADDQ $128, R9
+	ADDQ $128, R10
+	DECQ CX
+	JNZ  s2z_loop
+s2z_done:
+	VZEROUPPER
+	RET
+
+// func dw3s1AVX2(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
+// 8 outputs per block, as dw3s1AVX512.
+TEXT ·dw3s1AVX2(SB), NOSPLIT, $0-48
+	LOADARGS
+	VBROADCASTSS 0(AX), Y0
+	VBROADCASTSS 4(AX), Y1
+	VBROADCASTSS 8(AX), Y2
+	VBROADCASTSS 12(AX), Y3
+	VBROADCASTSS 16(AX), Y4
+	VBROADCASTSS 20(AX), Y5
+	VBROADCASTSS 24(AX), Y6
+	VBROADCASTSS 28(AX), Y7
+	VBROADCASTSS 32(AX), Y8
+	VBROADCASTSS 36(AX), Y9
+	SHRQ $3, CX
+	JZ   s1y_done
+s1y_loop:
+	VMOVAPS Y9, Y10
+	VFMADD231PS 0(R8), Y0, Y10
+	VFMADD231PS 4(R8), Y1, Y10
+	VFMADD231PS 8(R8), Y2, Y10
+	VFMADD231PS 0(R9), Y3, Y10
+	VFMADD231PS 4(R9), Y4, Y10
+	VFMADD231PS 8(R9), Y5, Y10
+	VFMADD231PS 0(R10), Y6, Y10
+	VFMADD231PS 4(R10), Y7, Y10
+	VFMADD231PS 8(R10), Y8, Y10
+	VMOVUPS Y10, (DI)
+	ADDQ $32, DI
+	ADDQ $32, R8
+	ADDQ $32, R9
+	ADDQ $32, R10
+	DECQ CX
+	JNZ  s1y_loop
+s1y_done:
+	VZEROUPPER
+	RET
+
+// func dw3s2AVX2(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
+// 8 outputs per block read p[0..16] of each row: VSHUFPS takes lanes 0,2
+// (imm 0x88) or 1,3 (0xDD) of each 128-bit half of two vectors, VPERMPD
+// 0xD8 puts the 64-bit pairs back in order. Tap 0 and 1: even and odd
+// lanes of p[0..15]; tap 2: odd lanes of p[1..16].
+TEXT ·dw3s2AVX2(SB), NOSPLIT, $0-48
+	LOADARGS
+	VBROADCASTSS 0(AX), Y0
+	VBROADCASTSS 4(AX), Y1
+	VBROADCASTSS 8(AX), Y2
+	VBROADCASTSS 12(AX), Y3
+	VBROADCASTSS 16(AX), Y4
+	VBROADCASTSS 20(AX), Y5
+	VBROADCASTSS 24(AX), Y6
+	VBROADCASTSS 28(AX), Y7
+	VBROADCASTSS 32(AX), Y8
+	VBROADCASTSS 36(AX), Y9
+	SHRQ $3, CX
+	JZ   s2y_done
+s2y_loop:
+	VMOVAPS Y9, Y10
+	VMOVUPS (R8), Y11
+	VSHUFPS $0x88, 32(R8), Y11, Y12
+	VSHUFPS $0xDD, 32(R8), Y11, Y13
+	VPERMPD $0xD8, Y12, Y12
+	VPERMPD $0xD8, Y13, Y13
+	VFMADD231PS Y12, Y0, Y10
+	VFMADD231PS Y13, Y1, Y10
+	VMOVUPS 4(R8), Y11
+	VSHUFPS $0xDD, 36(R8), Y11, Y12
+	VPERMPD $0xD8, Y12, Y12
+	VFMADD231PS Y12, Y2, Y10
+	VMOVUPS (R9), Y11
+	VSHUFPS $0x88, 32(R9), Y11, Y12
+	VSHUFPS $0xDD, 32(R9), Y11, Y13
+	VPERMPD $0xD8, Y12, Y12
+	VPERMPD $0xD8, Y13, Y13
+	VFMADD231PS Y12, Y3, Y10
+	VFMADD231PS Y13, Y4, Y10
+	VMOVUPS 4(R9), Y11
+	VSHUFPS $0xDD, 36(R9), Y11, Y12
+	VPERMPD $0xD8, Y12, Y12
+	VFMADD231PS Y12, Y5, Y10
+	VMOVUPS (R10), Y11
+	VSHUFPS $0x88, 32(R10), Y11, Y12
+	VSHUFPS $0xDD, 32(R10), Y11, Y13
+	VPERMPD $0xD8, Y12, Y12
+	VPERMPD $0xD8, Y13, Y13
+	VFMADD231PS Y12, Y6, Y10
+	VFMADD231PS Y13, Y7, Y10
+	VMOVUPS 4(R10), Y11
+	VSHUFPS $0xDD, 36(R10), Y11, Y12
+	VPERMPD $0xD8, Y12, Y12
+	VFMADD231PS Y12, Y8, Y10
+	VMOVUPS Y10, (DI)
+	ADDQ $32, DI
+	ADDQ $64, R8
+	ADDQ $64, R9
+	ADDQ $64, R10
+	DECQ CX
+	JNZ  s2y_loop
+s2y_done:
+	VZEROUPPER
+	RET
+
+DATA dwEvenIdx<>+0(SB)/4, $0
+DATA dwEvenIdx<>+4(SB)/4, $2
+DATA dwEvenIdx<>+8(SB)/4, $4
+DATA dwEvenIdx<>+12(SB)/4, $6
+DATA dwEvenIdx<>+16(SB)/4, $8
+DATA dwEvenIdx<>+20(SB)/4, $10
+DATA dwEvenIdx<>+24(SB)/4, $12
+DATA dwEvenIdx<>+28(SB)/4, $14
+DATA dwEvenIdx<>+32(SB)/4, $16
+DATA dwEvenIdx<>+36(SB)/4, $18
+DATA dwEvenIdx<>+40(SB)/4, $20
+DATA dwEvenIdx<>+44(SB)/4, $22
+DATA dwEvenIdx<>+48(SB)/4, $24
+DATA dwEvenIdx<>+52(SB)/4, $26
+DATA dwEvenIdx<>+56(SB)/4, $28
+DATA dwEvenIdx<>+60(SB)/4, $30
+GLOBL dwEvenIdx<>(SB), RODATA|NOPTR, $64
+DATA dwOddIdx<>+0(SB)/4, $1
+DATA dwOddIdx<>+4(SB)/4, $3
+DATA dwOddIdx<>+8(SB)/4, $5
+DATA dwOddIdx<>+12(SB)/4, $7
+DATA dwOddIdx<>+16(SB)/4, $9
+DATA dwOddIdx<>+20(SB)/4, $11
+DATA dwOddIdx<>+24(SB)/4, $13
+DATA dwOddIdx<>+28(SB)/4, $15
+DATA dwOddIdx<>+32(SB)/4, $17
+DATA dwOddIdx<>+36(SB)/4, $19
+DATA dwOddIdx<>+40(SB)/4, $21
+DATA dwOddIdx<>+44(SB)/4, $23
+DATA dwOddIdx<>+48(SB)/4, $25
+DATA dwOddIdx<>+52(SB)/4, $27
+DATA dwOddIdx<>+56(SB)/4, $29
+DATA dwOddIdx<>+60(SB)/4, $31
+GLOBL dwOddIdx<>(SB), RODATA|NOPTR, $64
