@@ -14,6 +14,12 @@ func dw3s1AVX512(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
 func dw3s2AVX512(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
 
 //go:noescape
+func dw3s1TailAVX512(dst, r0, r1, r2 *float32, wb *[10]float32, mask uint64)
+
+//go:noescape
+func dw3s2TailAVX512(dst, r0, r1, r2 *float32, wb *[10]float32, masks, maskB1 uint64)
+
+//go:noescape
 func dw3s1AVX2(dst, r0, r1, r2 *float32, wb *[10]float32, n int)
 
 //go:noescape
@@ -31,30 +37,45 @@ var dwVecLevel = func() int {
 	return 0
 }()
 
-// dw3RowVec runs the widest available kernel over the whole vectors of dst
-// and returns how many outputs it wrote. The blocks read r_k up to index
-// j·s + s·(width−1) + 2 for their last j, inside dw3Row's required length.
-func dw3RowVec(dst, r0, r1, r2 []float32, wk *[9]float32, bias float32, sw int) int {
+// dw3RowVec runs the widest available kernel over dst and returns how many
+// outputs it wrote: all of them with AVX-512 (the last partial vector under
+// a lane mask), the whole vectors with AVX2. Every block reads r_k only up to
+// index j·s + 2 of its last output j, inside dw3Row's required length.
+func dw3RowVec(dst, r0, r1, r2 []float32, wb *[10]float32, sw int) int {
 	width := 8
 	if dwVecLevel == 2 {
 		width = 16
 	}
 	n := len(dst) &^ (width - 1)
-	if dwVecLevel == 0 || n == 0 || sw != 1 && sw != 2 {
+	if dwVecLevel == 0 || len(dst) == 0 || sw != 1 && sw != 2 {
 		return 0
 	}
-	var wb [10]float32
-	copy(wb[:9], wk[:])
-	wb[9] = bias
-	switch {
-	case dwVecLevel == 2 && sw == 1:
-		dw3s1AVX512(&dst[0], &r0[0], &r1[0], &r2[0], &wb, n)
-	case dwVecLevel == 2:
-		dw3s2AVX512(&dst[0], &r0[0], &r1[0], &r2[0], &wb, n)
-	case sw == 1:
-		dw3s1AVX2(&dst[0], &r0[0], &r1[0], &r2[0], &wb, n)
-	default:
-		dw3s2AVX2(&dst[0], &r0[0], &r1[0], &r2[0], &wb, n)
+	if n > 0 {
+		switch {
+		case dwVecLevel == 2 && sw == 1:
+			dw3s1AVX512(&dst[0], &r0[0], &r1[0], &r2[0], wb, n)
+		case dwVecLevel == 2:
+			dw3s2AVX512(&dst[0], &r0[0], &r1[0], &r2[0], wb, n)
+		case sw == 1:
+			dw3s1AVX2(&dst[0], &r0[0], &r1[0], &r2[0], wb, n)
+		default:
+			dw3s2AVX2(&dst[0], &r0[0], &r1[0], &r2[0], wb, n)
+		}
 	}
-	return n
+	rem := len(dst) - n
+	if dwVecLevel != 2 || rem == 0 {
+		return n
+	}
+	lanes := func(k int) uint64 { return uint64(1)<<min(16, max(0, k)) - 1 }
+	p := n * sw
+	if sw == 1 {
+		// lanes i < rem read r[n+i+t], t ≤ 2: the last index is len(dst)+1
+		dw3s1TailAVX512(&dst[n], &r0[p], &r1[p], &r2[p], wb, lanes(rem))
+		return len(dst)
+	}
+	// stride 2: inputs p+0 .. p+2·rem exist (2·rem+1 values from p)
+	// (masks: outputs; loads of p[0..15], p[16..31], p[1..16]; p[17..32])
+	m := lanes(rem) | lanes(2*rem+1)<<16 | lanes(2*rem+1-16)<<32 | lanes(2*rem)<<48
+	dw3s2TailAVX512(&dst[n], &r0[p], &r1[p], &r2[p], wb, m, lanes(2*rem-16))
+	return len(dst)
 }

@@ -38,7 +38,13 @@ func convDepthwise2D(a *convF32Args) {
 		act, ad = f.f32, f.out.F32()
 	}
 	row3 := KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 && (g.strides[1] == 1 || g.strides[1] == 2) && W <= len(dwZeroRow)
+	flat := row3 && g.strides[0] == 1 && g.strides[1] == 1 && OW < dwFlatWidth
 	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
+		var scratch *[]float32
+		if flat {
+			scratch = getF32(dwFlatScratch(OH, OW))
+			defer putF32(scratch)
+		}
 		for p := p0; p < p1; p++ {
 			n, m := p/a.M, p%a.M
 			ci := m / a.Mg // input channel (Cg == 1)
@@ -49,7 +55,9 @@ func convDepthwise2D(a *convF32Args) {
 			if a.bd != nil {
 				bias = a.bd[m]
 			}
-			if row3 {
+			if flat {
+				dw3x3FlatPlane(y, x, w, bias, H, W, OH, OW, g.padBeg[0], g.padBeg[1], *scratch)
+			} else if row3 {
 				dw3x3Plane(y, x, w, bias, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
 			} else {
 				for i := range y {
@@ -105,64 +113,107 @@ func dw3x3Plane(y, x, w []float32, bias float32, H, W, OH, OW, sh, sw, pt, pl in
 	// interior columns: ow·sw − pl ≥ 0 and ow·sw − pl + 2 < W
 	clo, chi := convValidRange(OW, sw, -pl, W-2)
 	rhiStart := max(clo, chi)
+	var full, part [10]float32 // 9 weights, then the bias
+	copy(full[:9], w[:9])
+	full[9] = bias
 	var rows [3][]float32
-	var wk [9]float32
 	for oh := 0; oh < OH; oh++ {
 		ih := oh*sh - pt
+		wb := &full
+		if ih < 0 || ih+2 >= H {
+			part = full
+			wb = &part
+		}
 		for k := 0; k < 3; k++ {
-			r := ih + k
-			if r >= 0 && r < H {
+			if r := ih + k; r >= 0 && r < H {
 				rows[k] = x[r*W : (r+1)*W]
-				wk[3*k], wk[3*k+1], wk[3*k+2] = w[3*k], w[3*k+1], w[3*k+2]
 			} else {
 				rows[k] = dwZeroRow[:W]
-				wk[3*k], wk[3*k+1], wk[3*k+2] = 0, 0, 0
+				part[3*k], part[3*k+1], part[3*k+2] = 0, 0, 0
 			}
 		}
 		dst := y[oh*OW : (oh+1)*OW]
-		dw3Edge(dst, &rows, &wk, bias, 0, clo, sw, pl, W)
-		dw3Edge(dst, &rows, &wk, bias, rhiStart, OW, sw, pl, W)
+		dw3Edge(dst, &rows, wb, 0, clo, sw, pl, W)
+		dw3Edge(dst, &rows, wb, rhiStart, OW, sw, pl, W)
 		if clo < chi {
 			base := clo*sw - pl
-			dw3Row(dst[clo:chi], rows[0][base:], rows[1][base:], rows[2][base:], &wk, bias, sw)
+			dw3Row(dst[clo:chi], rows[0][base:], rows[1][base:], rows[2][base:], wb, sw)
 		}
 	}
 }
 
-// dw3Edge writes output columns [o0, o1) of one row, skipping the taps
+// dwFlatWidth: stride-1 planes with rows shorter than this many outputs
+// run dw3x3FlatPlane (per-row work would cost more than the arithmetic).
+const dwFlatWidth = 32
+
+// dwFlatScratch is the scratch size (elements) of dw3x3FlatPlane: the
+// bordered image, (OH+2)·(OW+2), then the flat output, OH·(OW+2).
+func dwFlatScratch(OH, OW int) int { return (2*OH + 2) * (OW + 2) }
+
+// dw3x3FlatPlane writes one stride-1 3×3 plane through a zero-bordered copy
+// of the image of width Wp = OW + 2, whose column c and row r hold input
+// column c − pl and row r − pt. Output (oh, ow) reads bordered rows oh..oh+2,
+// columns ow..ow+2, so on the flattened copy all outputs form one row of
+// (OH−1)·Wp + OW values at stride 1 (two unused values between image rows)
+// for dw3Row, then copied out row by row.
+func dw3x3FlatPlane(y, x, w []float32, bias float32, H, W, OH, OW, pt, pl int, scratch []float32) {
+	Wp, Hp := OW+2, OH+2
+	pad, out := scratch[:Hp*Wp], scratch[Hp*Wp:Hp*Wp+OH*Wp]
+	clear(pad)
+	c0, c1 := max(0, pl), min(Wp, W+pl) // bordered columns holding image values
+	for r := max(0, pt); r < min(Hp, H+pt); r++ {
+		if c0 < c1 {
+			src := x[(r-pt)*W:]
+			copy(pad[r*Wp+c0:r*Wp+c1], src[c0-pl:c1-pl])
+		}
+	}
+	var wb [10]float32
+	copy(wb[:9], w[:9])
+	wb[9] = bias
+	n := (OH-1)*Wp + OW
+	dw3Row(out[:n], pad, pad[Wp:], pad[2*Wp:], &wb, 1)
+	for oh := 0; oh < OH; oh++ {
+		copy(y[oh*OW:(oh+1)*OW], out[oh*Wp:oh*Wp+OW])
+	}
+}
+
+// dw3Edge writes output columns [o0, o1) of one row, leaving out the taps
 // whose input column ow·sw − pl + kw lies outside [0, W).
-func dw3Edge(dst []float32, rows *[3][]float32, wk *[9]float32, bias float32, o0, o1, sw, pl, W int) {
+func dw3Edge(dst []float32, rows *[3][]float32, wb *[10]float32, o0, o1, sw, pl, W int) {
 	for ow := o0; ow < o1; ow++ {
-		s := bias
+		i0 := ow*sw - pl
+		kl, kh := max(0, -i0), min(3, W-i0)
+		s := wb[9]
 		for k := 0; k < 3; k++ {
-			for kw := 0; kw < 3; kw++ {
-				if iw := ow*sw - pl + kw; iw >= 0 && iw < W {
-					s += wk[3*k+kw] * rows[k][iw]
-				}
+			r, wk := rows[k], wb[3*k:3*k+3]
+			for kw := kl; kw < kh; kw++ {
+				s += wk[kw] * r[i0+kw]
 			}
 		}
 		dst[ow] = s
 	}
 }
 
-// dw3Row writes dst[j] = bias + Σ_{k,t<3} wk[3k+t] · r_k[j·sw + t] for every
-// j < len(dst); each r_k must hold (len(dst)−1)·sw + 3 values. Whole vectors
-// go to dw3RowVec where the CPU has one, the rest to dw3RowGo.
-func dw3Row(dst, r0, r1, r2 []float32, wk *[9]float32, bias float32, sw int) {
+// dw3Row writes dst[j] = wb[9] + Σ_{k,t<3} wb[3k+t] · r_k[j·sw + t] for
+// every j < len(dst); each r_k must hold (len(dst)−1)·sw + 3 values. The
+// vector kernels (dw3RowVec) take what they can, dw3RowGo the rest.
+func dw3Row(dst, r0, r1, r2 []float32, wb *[10]float32, sw int) {
 	n := len(dst)
 	need := (n-1)*sw + 3
 	r0, r1, r2 = r0[:need], r1[:need], r2[:need]
-	done := dw3RowVec(dst, r0, r1, r2, wk, bias, sw)
-	dw3RowGo(dst[done:], r0[done*sw:], r1[done*sw:], r2[done*sw:], wk, bias, sw)
+	done := dw3RowVec(dst, r0, r1, r2, wb, sw)
+	if done < n {
+		dw3RowGo(dst[done:], r0[done*sw:], r1[done*sw:], r2[done*sw:], wb, sw)
+	}
 }
 
 // dw3RowGo is dw3Row in plain Go (fallback for the vector kernels' tails
 // and other CPUs, and their test reference).
-func dw3RowGo(dst, r0, r1, r2 []float32, wk *[9]float32, bias float32, sw int) {
+func dw3RowGo(dst, r0, r1, r2 []float32, wb *[10]float32, sw int) {
 	if len(dst) == 0 {
 		return
 	}
-	w0, w1, w2, w3, w4, w5, w6, w7, w8 := wk[0], wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8]
+	w0, w1, w2, w3, w4, w5, w6, w7, w8, bias := wb[0], wb[1], wb[2], wb[3], wb[4], wb[5], wb[6], wb[7], wb[8], wb[9]
 	need := (len(dst)-1)*sw + 3
 	r0, r1, r2 = r0[:need], r1[:need], r2[:need]
 	if sw == 1 {

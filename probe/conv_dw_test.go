@@ -24,16 +24,15 @@ func TestDw3RowVecMatchesGo(t *testing.T) {
 				for k := range rows {
 					rows[k] = linRand(r, need+5).F32()[:need]
 				}
-				var wk [9]float32
-				for i := range wk {
-					wk[i] = float32(r.NormFloat64())
+				var wb [10]float32 // 9 weights, bias
+				for i := range wb {
+					wb[i] = float32(r.NormFloat64())
 				}
-				bias := float32(r.NormFloat64())
 				got := make([]float32, n+1)
 				got[n] = 99 // must stay untouched
-				dw3Row(got[:n], rows[0], rows[1], rows[2], &wk, bias, sw)
+				dw3Row(got[:n], rows[0], rows[1], rows[2], &wb, sw)
 				want := make([]float32, n)
-				dw3RowGo(want, rows[0], rows[1], rows[2], &wk, bias, sw)
+				dw3RowGo(want, rows[0], rows[1], rows[2], &wb, sw)
 				closeF32(t, fmt.Sprintf("level %d stride %d n %d", level, sw, n), got[:n], want, 1e-5)
 				if got[n] != 99 {
 					t.Fatalf("level %d stride %d n %d wrote past dst", level, sw, n)
@@ -56,7 +55,7 @@ func dwConv(t *testing.T, attrs map[string]*loader.Attr, in ...*tensor.Tensor) [
 // The depthwise path (vector rows at each CPU level, Go rows, generic taps)
 // against the reference convolution (im2col + linGemmT, convUseReference)
 // and against the tap-by-tap dwGenericPlane, on odd sizes, strides 1 and 2
-// (and 3), every padding 0..2 per side, channel multipliers 1 and 2, with
+// (and 3), short rows (dw3x3FlatPlane) and long ones (dw3x3Plane), paddings 0..2 per side, channel multipliers 1 and 2, with
 // and without bias, on output buffers that start out full of garbage.
 func TestConvDepthwiseMatchesReference(t *testing.T) {
 	r := rand.New(rand.NewSource(22))
@@ -76,6 +75,9 @@ func TestConvDepthwiseMatchesReference(t *testing.T) {
 		{1, 2, 1, 23, 70, 3, 3, 3},
 		{2, 2, 1, 13, 33, 5, 2, 2},
 		{1, 3, 1, 112, 112, 3, 1, 1},
+		{2, 3, 2, 9, 14, 3, 1, 1},  // flat path (rows under dwFlatWidth)
+		{1, 2, 1, 30, 29, 3, 1, 1}, // flat path, rows of 27..31 outputs
+		{1, 2, 1, 7, 7, 3, 1, 1},
 	}
 	for i, k := range cases {
 		for pads := 0; pads < 81; pads += 1 + r.Intn(4) {
