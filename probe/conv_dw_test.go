@@ -2,6 +2,7 @@ package probe
 
 import (
 	"fmt"
+	"math"
 	"math/rand"
 	"testing"
 
@@ -153,4 +154,37 @@ func dwGenericReference(t *testing.T, attrs map[string]*loader.Attr, in ...*tens
 		}
 	}
 	return y
+}
+
+// Conv's float32 output comes from tensor.NewUninit, so every path of
+// convFastF32 must write every element: the GEMM paths (1×1 direct,
+// im2col, grouped), without bias (beta = 0) and with, on recycled buffers
+// full of garbage, against the reference convolution.
+func TestConvFastWritesEveryElement(t *testing.T) {
+	r := rand.New(rand.NewSource(23))
+	pool := tensor.NewPool(1 << 30)
+	tensor.UsePool(pool)
+	defer tensor.UsePool(nil)
+	type tc struct{ C, M, group, H, W, K, s, pad int }
+	for i, k := range []tc{{16, 32, 1, 16, 16, 1, 1, 0}, {8, 16, 1, 17, 15, 3, 1, 1}, {8, 16, 2, 18, 18, 3, 2, 1}, {4, 8, 1, 33, 31, 1, 2, 0}} {
+		x, w, b := linRand(r, 2, k.C, k.H, k.W), linRand(r, k.M, k.C/k.group, k.K, k.K), linRand(r, k.M)
+		p := int64(k.pad)
+		attrs := map[string]*loader.Attr{
+			"group":   {Name: "group", Kind: loader.AttrInt, I: int64(k.group)},
+			"strides": linInts("strides", int64(k.s), int64(k.s)),
+			"pads":    linInts("pads", p, p, p, p),
+		}
+		for _, in := range [][]*tensor.Tensor{{x, w}, {x, w, b}} {
+			var want []float32
+			withReference(func() { want = dwConv(t, attrs, in...) })
+			for rep := 0; rep < 3; rep++ {
+				got := dwConv(t, attrs, in...)
+				closeF32(t, fmt.Sprintf("case %d %+v inputs %d rep %d", i, k, len(in), rep), got, want, 1e-4)
+				for j := range got {
+					got[j] = float32(math.NaN())
+				}
+				pool.Recycle([]*tensor.Tensor{tensor.From(got, len(got))}, nil)
+			}
+		}
+	}
 }
