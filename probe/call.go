@@ -19,6 +19,9 @@ type Call struct {
 	// Plan is the plan being run (for compiled subgraphs).
 	sub map[*loader.Graph]*Plan
 	run *runState
+	// fuse, when not nil, is the activation node that alone consumes output
+	// 0: a kernel that can may compute it too and store it in fuse.out (see fuse.go).
+	fuse *fusedAct
 }
 
 // NIn is the number of inputs present (trailing omitted inputs are not counted).

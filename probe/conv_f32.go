@@ -8,8 +8,8 @@ import (
 // Float32 convolution fast paths:
 //
 //   - channel-wise (depthwise) convolutions, one input channel per output
-//     channel group (Cg == 1), 2-D: a direct kernel over output planes, the
-//     interior of 3×3 windows unrolled; no GEMM (the work is memory bound);
+//     channel group (Cg == 1), 2-D: a direct kernel over output planes in
+//     conv_dw_f32.go; no GEMM (the work is memory bound);
 //   - everything else: per image and group, C = W·cols on vitals/gemm, with
 //     W packed once per initializer, the columns read straight from X for
 //     1×1 stride-1 unpadded kernels and otherwise built by im2col (2-D:
@@ -31,13 +31,20 @@ type convF32Args struct {
 	inSize         int
 	g              *convGeom
 	direct         bool
+	// act, if set, is a fused activation: paths that support it (the
+	// implicit GEMM) also write act(Y) into actOut, block by block
+	act    func(dst, src []float32)
+	actOut []float32
 }
 
 func convFastF32(a *convF32Args) {
 	g := a.g
 	nd := len(g.in)
-	depthwise := a.Cg == 1 && nd == 2 && a.P > 0
-	implicit := !depthwise && nd == 2 && a.P > 0 && (!a.direct || a.P < convBatchMinP)
+	if convIsDepthwise(a) {
+		convDepthwise2D(a) // conv_dw_f32.go
+		return
+	}
+	implicit := convIsImplicit(a)
 	// bias first: the products accumulate onto it (convImplicit2D places it itself)
 	if a.bd != nil && !implicit {
 		for n := 0; n < a.N; n++ {
@@ -49,10 +56,6 @@ func convFastF32(a *convF32Args) {
 				}
 			}
 		}
-	}
-	if depthwise {
-		convDepthwise2D(a)
-		return
 	}
 	beta := float32(0)
 	if a.bd != nil {
@@ -187,112 +190,6 @@ func im2col2D(cols, img []float32, channels int, g *convGeom, oh0, rows int) {
 					}
 				}
 			}
-		}
-	}
-}
-
-// convDepthwise2D: every output channel m reads only input channel m/Mg.
-func convDepthwise2D(a *convF32Args) {
-	g := a.g
-	H, W := g.in[0], g.in[1]
-	OH, OW := g.out[0], g.out[1]
-	KH, KW := g.k[0], g.k[1]
-	planes := a.N * a.M
-	hasBias := a.bd != nil
-	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
-		for p := p0; p < p1; p++ {
-			n, m := p/a.M, p%a.M
-			ci := m / a.Mg // input channel (Cg == 1)
-			x := a.xd[(n*a.C+ci)*H*W : (n*a.C+ci+1)*H*W]
-			w := a.wd[m*KH*KW : (m+1)*KH*KW]
-			y := a.yd[p*OH*OW : (p+1)*OH*OW]
-			if !hasBias {
-				clear(y)
-			}
-			if KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 {
-				dw3x3Plane(y, x, w, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
-				continue
-			}
-			dwGenericPlane(y, x, w, H, W, OH, OW, KH, KW, g, 0, OH, 0, OW)
-		}
-	})
-}
-
-// dwGenericPlane accumulates the window sums of output rows [oh0, oh1) and
-// columns [ow0, ow1) of one plane into y, tap by tap.
-func dwGenericPlane(y, x, w []float32, H, W, OH, OW, KH, KW int, g *convGeom, oh0, oh1, ow0, ow1 int) {
-	sh, sw := g.strides[0], g.strides[1]
-	dh, dw := g.dil[0], g.dil[1]
-	pt, pl := g.padBeg[0], g.padBeg[1]
-	for kh := 0; kh < KH; kh++ {
-		for kw := 0; kw < KW; kw++ {
-			wv := w[kh*KW+kw]
-			off := kw*dw - pl
-			lo, hi := convValidRange(OW, sw, off, W)
-			lo, hi = max(lo, ow0), min(hi, ow1)
-			if lo >= hi {
-				continue
-			}
-			for oh := oh0; oh < oh1; oh++ {
-				ih := oh*sh - pt + kh*dh
-				if ih < 0 || ih >= H {
-					continue
-				}
-				src := x[ih*W : (ih+1)*W]
-				dst := y[oh*OW : (oh+1)*OW]
-				p := lo*sw + off
-				for j := lo; j < hi; j++ {
-					dst[j] += wv * src[p]
-					p += sw
-				}
-			}
-		}
-	}
-}
-
-// dw3x3Plane: 3×3 window, any stride and padding. The interior (all nine
-// taps inside the image) runs unrolled; the border goes through dwGenericPlane.
-func dw3x3Plane(y, x, w []float32, H, W, OH, OW, sh, sw, pt, pl int) {
-	g := &convGeom{strides: []int{sh, sw}, dil: []int{1, 1}, padBeg: []int{pt, pl}}
-	// interior rows: oh·sh − pt ≥ 0 and oh·sh − pt + 2 < H
-	rlo, rhi := convValidRange(OH, sh, -pt, H-2)
-	clo, chi := convValidRange(OW, sw, -pl, W-2)
-	if rlo >= rhi || clo >= chi {
-		dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, 0, OH, 0, OW)
-		return
-	}
-	// border strips
-	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, 0, rlo, 0, OW)
-	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, rhi, OH, 0, OW)
-	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, rlo, rhi, 0, clo)
-	dwGenericPlane(y, x, w, H, W, OH, OW, 3, 3, g, rlo, rhi, chi, OW)
-	w0, w1, w2, w3, w4, w5, w6, w7, w8 := w[0], w[1], w[2], w[3], w[4], w[5], w[6], w[7], w[8]
-	n := chi - clo
-	for oh := rlo; oh < rhi; oh++ {
-		ih := oh*sh - pt
-		base := clo*sw - pl
-		r0 := x[ih*W+base:]
-		r1 := x[(ih+1)*W+base:]
-		r2 := x[(ih+2)*W+base:]
-		dst := y[oh*OW+clo : oh*OW+chi]
-		if sw == 1 {
-			r0, r1, r2 = r0[:n+2], r1[:n+2], r2[:n+2]
-			for j := range dst {
-				s := dst[j]
-				s += w0*r0[j] + w1*r0[j+1] + w2*r0[j+2]
-				s += w3*r1[j] + w4*r1[j+1] + w5*r1[j+2]
-				s += w6*r2[j] + w7*r2[j+1] + w8*r2[j+2]
-				dst[j] = s
-			}
-			continue
-		}
-		for j := range dst {
-			p := j * sw
-			s := dst[j]
-			s += w0*r0[p] + w1*r0[p+1] + w2*r0[p+2]
-			s += w3*r1[p] + w4*r1[p+1] + w5*r1[p+2]
-			s += w6*r2[p] + w7*r2[p+1] + w8*r2[p+2]
-			dst[j] = s
 		}
 	}
 }

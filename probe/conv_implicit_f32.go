@@ -150,6 +150,13 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 	}
 }
 
+// convIsImplicit reports whether convFastF32 takes the implicit-GEMM path:
+// 2-D and not depthwise, except 1×1 convolutions that read X in place as
+// the column matrix of a large plane.
+func convIsImplicit(a *convF32Args) bool {
+	return len(a.g.in) == 2 && a.P > 0 && !convIsDepthwise(a) && (!a.direct || a.P < convBatchMinP)
+}
+
 // convImplicit2D runs every group's product of a non-depthwise 2-D
 // convolution, the bias (if any) written first and accumulated onto.
 func convImplicit2D(a *convF32Args) {
@@ -202,6 +209,10 @@ func convImplicit2D(a *convF32Args) {
 					}
 				}
 				product(gi, a.P, y, a.P)
+				if a.act != nil {
+					o := (n0*a.M + gi*a.Mg) * a.P
+					f32Map(a.actOut[o:o+len(y)], y, a.act)
+				}
 				continue
 			}
 			// C is Mg × (nb·P): row m holds channel gi·Mg+m of images n0…n0+nb−1
@@ -213,12 +224,19 @@ func convImplicit2D(a *convF32Args) {
 				}
 			}
 			product(gi, ld, cs, ld)
-			for i := 0; i < nb; i++ {
-				for m := 0; m < a.Mg; m++ {
-					y := a.yd[((n0+i)*a.M+gi*a.Mg+m)*a.P:]
-					copy(y[:a.P], cs[m*ld+i*a.P:m*ld+(i+1)*a.P])
+			// scatter rows to Y (and the fused activation, on rows in cache)
+			parFor(a.Mg, max(1, elemChunk/max(1, nb*a.P)), func(m0, m1 int) {
+				for m := m0; m < m1; m++ {
+					for i := 0; i < nb; i++ {
+						o := ((n0+i)*a.M + gi*a.Mg + m) * a.P
+						y := a.yd[o : o+a.P]
+						copy(y, cs[m*ld+i*a.P:m*ld+(i+1)*a.P])
+						if a.act != nil {
+							a.act(a.actOut[o:o+a.P], y)
+						}
+					}
 				}
-			}
+			})
 		}
 	}
 }

@@ -280,7 +280,13 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	if _, err := tensor.NumElements(outShape); err != nil {
 		return nil, err
 	}
-	out := tensor.New(x.DType, outShape)
+	isF32 := x.DType == tensor.Float32 && !convUseReference
+	var out *tensor.Tensor
+	if isF32 {
+		out = tensor.NewUninit(x.DType, outShape) // convFastF32 writes every element
+	} else {
+		out = tensor.New(x.DType, outShape)
+	}
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
 	Cg, Mg := C/group, M/group
 	K, P, inSize := 1, 1, 1
@@ -294,13 +300,13 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	for i := 0; i < nd && direct; i++ {
 		direct = g.strides[i] == 1 && g.padBeg[i] == 0
 	}
-	if xf, ok := any(xd).([]float32); ok && !convUseReference {
+	if xf, ok := any(xd).([]float32); ok && isF32 {
 		var bd []float32
 		if b != nil {
 			bd = b.F32()
 		}
-		convFastF32(&convF32Args{c: c, w: w, xd: xf, wd: any(wd).([]float32), bd: bd, yd: any(yd).([]float32),
-			N: N, C: C, M: M, group: group, Cg: Cg, Mg: Mg, K: K, P: P, inSize: inSize, g: &g, direct: direct})
+		convF32WithAct(&convF32Args{c: c, w: w, xd: xf, wd: any(wd).([]float32), bd: bd, yd: any(yd).([]float32),
+			N: N, C: C, M: M, group: group, Cg: Cg, Mg: Mg, K: K, P: P, inSize: inSize, g: &g, direct: direct}, outShape)
 		return out, nil
 	}
 	// The column matrix is built in blocks of whole output rows so that it
@@ -448,7 +454,13 @@ func convTransposeRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	if _, err := tensor.NumElements(outShape); err != nil {
 		return err
 	}
-	out := tensor.New(x.DType, outShape)
+	isF32 := x.DType == tensor.Float32 && !convUseReference
+	var out *tensor.Tensor
+	if isF32 {
+		out = tensor.NewUninit(x.DType, outShape) // convFastF32 writes every element
+	} else {
+		out = tensor.New(x.DType, outShape)
+	}
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
 	K, P, inSize := 1, 1, 1
 	for i := 0; i < nd; i++ {

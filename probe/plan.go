@@ -30,6 +30,8 @@ type Plan struct {
 	// consts holds the initializer tensors: a kernel input that is one of
 	// them (directly or passed on by Identity) is immutable for the plan's life.
 	consts map[*tensor.Tensor]bool
+	// producedAt maps each value to the step producing it (fuse.go).
+	producedAt map[string]int
 	// Debug keeps Go stack traces in kernel panic errors.
 	Debug bool
 }
@@ -39,6 +41,8 @@ type Step struct {
 	Node   *loader.Node
 	Kernel Kernel
 	Opset  int
+	// fuseWith is the activation step this step may compute too (fuse.go), or −1.
+	fuseWith int
 }
 
 // UnsupportedError lists every node whose operator has no kernel.
@@ -154,7 +158,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 					}
 				}
 			}
-			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset})
+			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset, fuseWith: -1})
 			p.Depth = append(p.Depth, depth+1)
 			for _, o := range n.Outputs {
 				if o == "" {
@@ -198,6 +202,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 		}
 	}
 	p.computeRelease()
+	p.markFusions()
 	return p, nil
 }
 
@@ -357,6 +362,8 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 		env.vals[name] = t
 	}
 	rs := &runState{plan: p, hook: hook}
+	// fused[j]: step j's output, computed already by the step fused with it
+	var fused map[int]*tensor.Tensor
 	for i := range p.Steps {
 		s := &p.Steps[i]
 		c := &Call{Node: s.Node, Opset: s.Opset, Scope: env, sub: p.sub, run: rs}
@@ -372,8 +379,20 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 			c.In[j] = t
 		}
 		c.Out = make([]*tensor.Tensor, len(s.Node.Outputs))
-		if err := p.call(s, c); err != nil {
-			return nil, err
+		if t, ok := fused[i]; ok {
+			c.Out[0] = t
+			delete(fused, i)
+		} else {
+			c.fuse = p.fuseFor(i, env, c)
+			if err := p.call(s, c); err != nil {
+				return nil, err
+			}
+			if c.fuse != nil && c.fuse.out != nil {
+				if fused == nil {
+					fused = map[int]*tensor.Tensor{}
+				}
+				fused[s.fuseWith] = c.fuse.out
+			}
 		}
 		for j, name := range s.Node.Outputs {
 			if name == "" {

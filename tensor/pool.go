@@ -37,7 +37,10 @@ func NewPool(limit int64) *Pool {
 // UsePool routes MakeSlice's large float32 allocations through p (nil: plain make).
 func UsePool(p *Pool) { activePool.Store(p) }
 
-func (p *Pool) get(n int) []float32 {
+// get hands out a buffer of n elements, zeroed unless uninit (then a
+// recycled buffer keeps its old contents: only for callers that overwrite
+// every element before anything reads it).
+func (p *Pool) get(n int, uninit bool) []float32 {
 	p.mu.Lock()
 	var b []float32
 	if l := p.free[n]; len(l) > 0 {
@@ -48,7 +51,7 @@ func (p *Pool) get(n int) []float32 {
 	p.mu.Unlock()
 	if b == nil {
 		b = make([]float32, n)
-	} else {
+	} else if !uninit {
 		clear(b)
 	}
 	p.mu.Lock()

@@ -35,3 +35,34 @@ func TestPoolRecycleRules(t *testing.T) {
 		t.Fatal("a buffer issued in an earlier batch was recycled")
 	}
 }
+
+// NewUninit draws from the pool like New but skips the clearing: a recycled
+// buffer keeps its old values; without a pool or below poolMin it is zeroed.
+func TestPoolNewUninit(t *testing.T) {
+	small := NewUninit(Float32, []int{8})
+	if len(small.F32()) != 8 || small.F32()[3] != 0 {
+		t.Fatal("an unpooled NewUninit must be a zeroed slice of the shape's size")
+	}
+	p := NewPool(1 << 30)
+	UsePool(p)
+	defer UsePool(nil)
+	const n = poolMin
+	a := New(Float32, []int{n})
+	a.F32()[7] = 42
+	p.Recycle([]*Tensor{a}, nil)
+	b := NewUninit(Float32, []int{n})
+	if &b.F32()[0] != &a.F32()[0] {
+		t.Fatal("the recycled buffer was not reused")
+	}
+	if b.F32()[7] != 42 {
+		t.Fatal("NewUninit cleared a recycled buffer")
+	}
+	if got := NewUninit(Int64, []int{n}); got.I64()[7] != 0 || len(got.I64()) != n {
+		t.Fatal("a non-float32 NewUninit must come zeroed")
+	}
+	b.F32()[7] = 5
+	p.Recycle([]*Tensor{b}, nil)
+	if c := New(Float32, []int{n}); c.F32()[7] != 0 {
+		t.Fatal("New after NewUninit must still clear")
+	}
+}

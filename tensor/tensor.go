@@ -123,6 +123,25 @@ func New(dt DType, shape []int) *Tensor {
 	return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: MakeSlice(dt, n)}
 }
 
+// NewUninit is New for a float32 tensor whose every element the caller
+// writes before anything reads it: a buffer recycled by the active Pool is
+// handed out without clearing (its contents are stale values of an earlier
+// batch). Other dtypes and unpooled sizes come zeroed as from New.
+func NewUninit(dt DType, shape []int) *Tensor {
+	n, err := CheckShape(dt, shape)
+	if err != nil {
+		panic(err)
+	}
+	p := activePool.Load()
+	if dt != Float32 || n < poolMin || p == nil {
+		return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: MakeSlice(dt, n)}
+	}
+	if err := CheckBytes(Bytes(dt, n), func() string { return fmt.Sprintf("%d elements of %v", n, dt) }); err != nil {
+		panic(err)
+	}
+	return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: p.get(n, true)}
+}
+
 // MakeSlice allocates a zero slice of n elements of the Go type for dt. Over
 // the memory budget it panics with a *BudgetError instead of allocating.
 func MakeSlice(dt DType, n int) any {
@@ -132,7 +151,7 @@ func MakeSlice(dt DType, n int) any {
 	switch dt {
 	case Float32:
 		if p := activePool.Load(); p != nil && n >= poolMin {
-			return p.get(n)
+			return p.get(n, false)
 		}
 		return make([]float32, n)
 	case Float64:

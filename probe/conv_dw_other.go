@@ -1,0 +1,6 @@
+//go:build !amd64
+
+package probe
+
+// dw3RowVec has no vector version off amd64: dw3RowGo does all the work.
+func dw3RowVec(dst, r0, r1, r2 []float32, wb *[10]float32, sw int) int { return 0 }

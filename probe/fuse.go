@@ -1,0 +1,214 @@
+package probe
+
+import (
+	"math"
+
+	"vitals/loader"
+	"vitals/tensor"
+)
+
+// Fusion of an activation into the node that produces its input.
+//
+// When a producer step (fuseProducers: its kernel knows how) has an output 0
+// whose only reader is an activation step listed in fusableActs, Compile
+// links the two. At run time the producer's kernel gets Call.fuse and may
+// compute the activation's output as well, while its own output is still in
+// cache, into a tensor of its own; the plan then hands that tensor to the
+// activation step instead of running its kernel. Nothing observable changes:
+// the producer's output is still written in full and seen by the hook at its
+// step, the activation's hook call happens at its own step with a value
+// computed by the same float32 function its kernel would apply, and values
+// are released after their last reader as before (the activation's output
+// merely exists from the producer's step on).
+
+// fusedAct is an activation a producing kernel computes alongside its own
+// output 0. The kernel fills out (same shape as output 0) with f32 applied to
+// it; a kernel that cannot leaves out nil and the activation step runs as usual.
+type fusedAct struct {
+	f32 func(dst, src []float32)
+	out *tensor.Tensor
+}
+
+// fuseProducers lists the operators whose kernels honour Call.fuse.
+var fuseProducers = map[string]bool{"Conv": true}
+
+// fusableActs maps an activation operator to the float32 function its own
+// kernel applies elementwise (the very same function, so fused values are
+// bit-identical), given the activation node's call with its inputs resolved.
+// It reports false when the node's attributes or extra inputs are such that
+// the ordinary kernel must run (it then also reports any error).
+var fusableActs = map[string]func(c *Call) (func(dst, src []float32), bool){
+	"Relu": func(*Call) (func(dst, src []float32), bool) { return reluF32, true },
+	"Clip": fuseClip,
+	"LeakyRelu": func(c *Call) (func(dst, src []float32), bool) {
+		a := c.Float("alpha", 0.01)
+		return func(dst, src []float32) { leakyReluF32(dst, src, a) }, true
+	},
+}
+
+// fuseClip: the bounds of elemClip's float32 path, when they are float32
+// scalars and not NaN.
+func fuseClip(c *Call) (func(dst, src []float32), bool) {
+	l, h := float32(math.Inf(-1)), float32(math.Inf(1))
+	if c.Opset < 11 {
+		if c.Has("min") {
+			l = c.Float("min", 0)
+		}
+		if c.Has("max") {
+			h = c.Float("max", 0)
+		}
+	} else {
+		for i, dst := range []*float32{&l, &h} {
+			b := c.Input(1 + i)
+			if b == nil {
+				continue
+			}
+			d, ok := b.Data.([]float32)
+			if !ok || len(d) != 1 {
+				return nil, false
+			}
+			*dst = d[0]
+		}
+	}
+	if l != l || h != h {
+		return nil, false
+	}
+	return func(dst, src []float32) { clipF32(dst, src, l, h) }, true
+}
+
+// leakyReluF32 is y = x for x >= 0, alpha·x otherwise (NaN stays NaN). The
+// float32 product equals elemLeakyRelu's float64 one rounded to float32: the
+// float64 product of two float32 values is exact.
+func leakyReluF32(dst, src []float32, alpha float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		if v < 0 {
+			v = alpha * v
+		}
+		dst[i] = v
+	}
+}
+
+// markFusions links each fusable producer step to the activation step that
+// alone reads its output 0 (Step.fuseWith, −1 when none). The activation's
+// other inputs must be known when the producer runs: initializers, graph or
+// outer-scope inputs, outputs of earlier steps, or outputs of Constant
+// steps (exporters put Clip's bounds as Constant nodes between the Conv and
+// the Clip), which fuseFor evaluates ahead of their step.
+func (p *Plan) markFusions() {
+	producedAt := map[string]int{}
+	p.producedAt = producedAt
+	for i, s := range p.Steps {
+		for _, o := range s.Node.Outputs {
+			if o != "" {
+				producedAt[o] = i
+			}
+		}
+	}
+	readers := map[string][]int{} // value -> reading steps, once per read
+	for i, s := range p.Steps {
+		for _, in := range s.Node.Inputs {
+			if in != "" {
+				readers[in] = append(readers[in], i)
+			}
+		}
+		for _, a := range s.Node.Attrs {
+			gs := a.Graphs
+			if a.G != nil {
+				gs = append(gs, a.G)
+			}
+			for _, g := range gs {
+				for _, name := range freeNames(g) {
+					readers[name] = append(readers[name], -1) // a subgraph read: never fused
+				}
+			}
+		}
+	}
+	for i := range p.Steps {
+		p.Steps[i].fuseWith = -1
+	}
+	for i := range p.Steps {
+		s := &p.Steps[i]
+		if !fuseProducers[s.Node.OpType] || normDomain(s.Node.Domain) != "" || len(s.Node.Outputs) == 0 {
+			continue
+		}
+		v := s.Node.Outputs[0]
+		if v == "" || producedAt[v] != i || len(readers[v]) != 1 || readers[v][0] <= i {
+			continue
+		}
+		j := readers[v][0]
+		act := p.Steps[j].Node
+		if _, ok := fusableActs[act.OpType]; !ok || normDomain(act.Domain) != "" ||
+			len(act.Inputs) == 0 || act.Inputs[0] != v || len(act.Outputs) != 1 || act.Outputs[0] == "" {
+			continue
+		}
+		early := true
+		for _, in := range act.Inputs[1:] {
+			if at, ok := producedAt[in]; in != "" && ok && at >= i && !p.isConstantStep(at) {
+				early = false
+			}
+		}
+		if early {
+			s.fuseWith = j
+		}
+	}
+}
+
+// fuseFor prepares the fusion of step i's activation (nil when there is
+// none or its kernel must run): its call with inputs resolved from env.
+func (p *Plan) fuseFor(i int, env *Scope, parent *Call) *fusedAct {
+	j := p.Steps[i].fuseWith
+	if j < 0 {
+		return nil
+	}
+	s := &p.Steps[j]
+	c := &Call{Node: s.Node, Opset: s.Opset, Scope: env, sub: parent.sub, run: parent.run}
+	c.In = make([]*tensor.Tensor, len(s.Node.Inputs))
+	for k, name := range s.Node.Inputs[1:] {
+		if name == "" {
+			continue
+		}
+		t, ok := env.Get(name)
+		if !ok {
+			if t, ok = p.evalConstant(name, env, parent); !ok {
+				return nil
+			}
+		}
+		c.In[k+1] = t
+	}
+	f, ok := fusableActs[s.Node.OpType](c)
+	if !ok {
+		return nil
+	}
+	return &fusedAct{f32: f}
+}
+
+// fusedNode names the activation a step is fused with (tests).
+func (p *Plan) fusedNode(i int) *loader.Node {
+	if j := p.Steps[i].fuseWith; j >= 0 {
+		return p.Steps[j].Node
+	}
+	return nil
+}
+
+// isConstantStep: step k is a Constant node, whose output depends on its
+// attributes only.
+func (p *Plan) isConstantStep(k int) bool {
+	n := p.Steps[k].Node
+	return n.OpType == "Constant" && normDomain(n.Domain) == "" && len(n.Inputs) == 0 && len(n.Outputs) == 1
+}
+
+// evalConstant computes the output of the Constant step producing name
+// ahead of that step (which still runs, and is observed, in its turn).
+func (p *Plan) evalConstant(name string, env *Scope, parent *Call) (*tensor.Tensor, bool) {
+	k, ok := p.producedAt[name]
+	if !ok || !p.isConstantStep(k) {
+		return nil, false
+	}
+	s := &p.Steps[k]
+	c := &Call{Node: s.Node, Opset: s.Opset, Scope: env, sub: parent.sub, run: parent.run, Out: make([]*tensor.Tensor, 1)}
+	if err := p.call(s, c); err != nil || c.Out[0] == nil {
+		return nil, false
+	}
+	return c.Out[0], true
+}
