@@ -8,8 +8,9 @@
 // passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32.
 // passLanes: s 0, q 128, mn 256, mx 320, zeros 384, negz 448, nonfin 512, sat 576.
 // Count tables: histTables=8 tables of histStride=136 uint32 (544 bytes);
-// value j of a group increments table j mod 8.
-TEXT ·passAVX512(SB), NOSPLIT, $64-48
+// value i increments table i mod 8. The frame holds the bins of one block
+// of 64 groups (1024 bytes).
+TEXT ·passAVX512(SB), $1024-48
 	MOVQ x_base+0(FP), SI
 	MOVQ x_len+8(FP), CX
 	MOVQ p+24(FP), DX
@@ -48,6 +49,17 @@ TEXT ·passAVX512(SB), NOSPLIT, $64-48
 	CMPB 32(DX), $0
 	JNE  nohist
 
+block:
+	// a block of up to 64 groups: bins of its values as bytes into the
+	// frame, then the table increments (reading the bins back once the
+	// stores have long completed, not through store forwarding)
+	MOVQ $64, R11
+	CMPQ CX, R11
+	CMOVQLT CX, R11              // R11 = groups in this block
+	SUBQ R11, CX
+	LEAQ 0(SP), R9
+	MOVQ R11, R12
+
 loop:
 	VMOVUPS (SI), Z10
 	VMINPS Z10, Z4, Z4           // mn = mn < v ? mn : v
@@ -84,42 +96,37 @@ loop:
 	VCVTTPD2DQ Z16, Y18
 	VINSERTI64X4 $1, Y18, Z17, Z17
 	VMOVDQA32 Z24, K3, Z17       // non-finite → junk bin 128
-	VMOVDQU32 Z17, (SP)
-	MOVL 0(SP), AX
-	INCL 0(DI)(AX*4)
-	MOVL 4(SP), AX
-	INCL 544(DI)(AX*4)
-	MOVL 8(SP), AX
-	INCL 1088(DI)(AX*4)
-	MOVL 12(SP), AX
-	INCL 1632(DI)(AX*4)
-	MOVL 16(SP), AX
-	INCL 2176(DI)(AX*4)
-	MOVL 20(SP), AX
-	INCL 2720(DI)(AX*4)
-	MOVL 24(SP), AX
-	INCL 3264(DI)(AX*4)
-	MOVL 28(SP), AX
-	INCL 3808(DI)(AX*4)
-	MOVL 32(SP), AX
-	INCL 0(DI)(AX*4)
-	MOVL 36(SP), AX
-	INCL 544(DI)(AX*4)
-	MOVL 40(SP), AX
-	INCL 1088(DI)(AX*4)
-	MOVL 44(SP), AX
-	INCL 1632(DI)(AX*4)
-	MOVL 48(SP), AX
-	INCL 2176(DI)(AX*4)
-	MOVL 52(SP), AX
-	INCL 2720(DI)(AX*4)
-	MOVL 56(SP), AX
-	INCL 3264(DI)(AX*4)
-	MOVL 60(SP), AX
-	INCL 3808(DI)(AX*4)
+	VPMOVDB Z17, (R9)            // 16 bins as bytes
+	ADDQ $16, R9
 	ADDQ $64, SI
-	DECQ CX
+	DECQ R12
 	JNZ  loop
+
+	LEAQ 0(SP), R9
+	SHLQ $1, R11                 // 8 bins per step
+
+count:
+	MOVBLZX 0(R9), AX
+	INCL 0(DI)(AX*4)
+	MOVBLZX 1(R9), AX
+	INCL 544(DI)(AX*4)
+	MOVBLZX 2(R9), AX
+	INCL 1088(DI)(AX*4)
+	MOVBLZX 3(R9), AX
+	INCL 1632(DI)(AX*4)
+	MOVBLZX 4(R9), AX
+	INCL 2176(DI)(AX*4)
+	MOVBLZX 5(R9), AX
+	INCL 2720(DI)(AX*4)
+	MOVBLZX 6(R9), AX
+	INCL 3264(DI)(AX*4)
+	MOVBLZX 7(R9), AX
+	INCL 3808(DI)(AX*4)
+	ADDQ $8, R9
+	DECQ R11
+	JNZ  count
+	TESTQ CX, CX
+	JNZ  block
 	JMP  store
 
 nohist:
