@@ -23,10 +23,11 @@ import (
 //
 //	t = (float64(v) − lo)·inv, bin = ⌊min(max(t, 0), 127)⌋,
 //
-// and non-finite values go to a junk bin (index HistBins). Counts are
-// spread over histTables interleaved tables (value i of each group of 16 in
-// table i mod histTables) so that runs of equal bins, such as the zeros of
-// ReLU outputs, do not wait on each other's increments.
+// and non-finite values go to a junk bin (index HistBins). Zeros, often half
+// of a ReLU output, are not counted one by one: chunkPass adds their number
+// (known from the moments) to the bin of 0. The other counts are spread
+// over histTables interleaved tables so that runs of equal bins do not wait
+// on each other's increments.
 
 // histTables is the number of interleaved count tables.
 const histTables = 8
@@ -62,9 +63,10 @@ func (l *passLanes) init() {
 	}
 }
 
-// passGo folds x into the lane accumulators and count tables; element i goes
-// to lane i mod 16 and table i mod histTables. It is the reference the vector
-// kernels must match bit for bit, and it does the tail they leave.
+// passGo folds x into the lane accumulators and count tables (zeros left
+// out); element i goes to lane i mod 16 and table i mod histTables. It is the
+// reference the vector kernels must match (lanes bit for bit, counts per bin
+// summed over the tables), and it does the tail they leave.
 func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	if !p.noHist {
 		tabs = tabs[:histTables*histStride]
@@ -82,7 +84,8 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 			l.mx[j] = v
 		}
 		b := math.Float32bits(v)
-		if b&0x7fffffff == 0 {
+		zero := b&0x7fffffff == 0
+		if zero {
 			l.zeros[j]++
 		}
 		if b == 0x80000000 {
@@ -95,22 +98,27 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 		if nonfinite {
 			l.nonfin[j]++
 		}
-		if p.noHist {
+		if p.noHist || zero {
 			continue
 		}
-		t := (f - p.lo) * p.inv
-		if !(t > 0) {
-			t = 0
-		}
-		if !(t < HistBins-1) {
-			t = HistBins - 1
-		}
-		k := int(t)
+		k := binOf(f, p)
 		if nonfinite {
 			k = HistBins
 		}
 		tabs[(i%histTables)*histStride+k]++
 	}
+}
+
+// binOf is the histogram bin of a finite value f: ⌊min(max((f − lo)·inv, 0), 127)⌋.
+func binOf(f float64, p *passParams) int {
+	t := (f - p.lo) * p.inv
+	if !(t > 0) {
+		t = 0
+	}
+	if !(t < HistBins-1) {
+		t = HistBins - 1
+	}
+	return int(t)
 }
 
 // pass folds x into l and tabs: the vector kernel for whole groups of 16
@@ -225,6 +233,13 @@ func chunkPass(x []float32, p passParams, tabs []uint32) (Moments, int64) {
 	var l passLanes
 	l.init()
 	pass(x, &p, tabs, &l)
+	if !p.noHist {
+		var zeros uint32
+		for _, z := range l.zeros {
+			zeros += z
+		}
+		tabs[binOf(0, &p)] += zeros
+	}
 	return l.moments(x, p.sh), l.satCount()
 }
 

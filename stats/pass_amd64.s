@@ -8,9 +8,11 @@
 // passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32.
 // passLanes: s 0, q 128, mn 256, mx 320, zeros 384, negz 448, nonfin 512, sat 576.
 // Count tables: histTables=8 tables of histStride=136 uint32 (544 bytes);
-// value i increments table i mod 8. The frame holds the bins of one block
-// of 64 groups (1024 bytes).
-TEXT ·passAVX512(SB), $1024-48
+// the k-th nonzero value of a block increments table k mod 8. Zeros are
+// not counted here (chunkPass adds them to the bin of 0). The frame holds
+// the bins of one block of 64 groups (4096 bytes and 64 bytes of slack for
+// the last full-width store).
+TEXT ·passAVX512(SB), $4160-48
 	MOVQ x_base+0(FP), SI
 	MOVQ x_len+8(FP), CX
 	MOVQ p+24(FP), DX
@@ -50,9 +52,9 @@ TEXT ·passAVX512(SB), $1024-48
 	JNE  nohist
 
 block:
-	// a block of up to 64 groups: bins of its values as bytes into the
-	// frame, then the table increments (reading the bins back once the
-	// stores have long completed, not through store forwarding)
+	// a block of up to 64 groups: the bins of its nonzero values packed
+	// into the frame, then the table increments (reading the bins back
+	// once the stores have long completed, not through store forwarding)
 	MOVQ $64, R11
 	CMPQ CX, R11
 	CMOVQLT CX, R11              // R11 = groups in this block
@@ -96,35 +98,57 @@ loop:
 	VCVTTPD2DQ Z16, Y18
 	VINSERTI64X4 $1, Y18, Z17, Z17
 	VMOVDQA32 Z24, K3, Z17       // non-finite → junk bin 128
-	VPMOVDB Z17, (R9)            // 16 bins as bytes
-	ADDQ $16, R9
+	KNOTW K1, K6                 // zeros are left out (counted apart)
+	VPCOMPRESSD Z17, K6, Z18     // the other bins, packed
+	VMOVDQU32 Z18, (R9)
+	KMOVW K6, AX
+	POPCNTL AX, AX
+	LEAQ (R9)(AX*4), R9
 	ADDQ $64, SI
 	DECQ R12
 	JNZ  loop
 
-	LEAQ 0(SP), R9
-	SHLQ $1, R11                 // 8 bins per step
+	LEAQ 0(SP), R8
+	MOVQ R9, R11
+	SUBQ R8, R11
+	SHRQ $2, R11                 // bins in the frame
+	MOVQ R11, R12
+	SHRQ $3, R12                 // 8 per step
+	JZ   rest
 
 count:
-	MOVBLZX 0(R9), AX
+	MOVL 0(R8), AX
 	INCL 0(DI)(AX*4)
-	MOVBLZX 1(R9), AX
+	MOVL 4(R8), AX
 	INCL 544(DI)(AX*4)
-	MOVBLZX 2(R9), AX
+	MOVL 8(R8), AX
 	INCL 1088(DI)(AX*4)
-	MOVBLZX 3(R9), AX
+	MOVL 12(R8), AX
 	INCL 1632(DI)(AX*4)
-	MOVBLZX 4(R9), AX
+	MOVL 16(R8), AX
 	INCL 2176(DI)(AX*4)
-	MOVBLZX 5(R9), AX
+	MOVL 20(R8), AX
 	INCL 2720(DI)(AX*4)
-	MOVBLZX 6(R9), AX
+	MOVL 24(R8), AX
 	INCL 3264(DI)(AX*4)
-	MOVBLZX 7(R9), AX
+	MOVL 28(R8), AX
 	INCL 3808(DI)(AX*4)
-	ADDQ $8, R9
-	DECQ R11
+	ADDQ $32, R8
+	DECQ R12
 	JNZ  count
+
+rest:
+	ANDQ $7, R11
+	JZ   next
+
+rest1:
+	MOVL 0(R8), AX
+	INCL 0(DI)(AX*4)
+	ADDQ $4, R8
+	DECQ R11
+	JNZ  rest1
+
+next:
 	TESTQ CX, CX
 	JNZ  block
 	JMP  store
