@@ -246,33 +246,67 @@ func TestTensorPassIndependentOfWorkers(t *testing.T) {
 	}
 }
 
-// BenchmarkStatsPass is the fused pass (moments, histogram, saturation) as
-// observe runs it once the grid is known, in MB/s of float32 input.
-func BenchmarkStatsPass(b *testing.B) {
-	p := passParams{lo: -32, inv: 2, satLo: float32(math.Inf(-1)), satHi: 6}
-	benchStats(b, func(x []float32) { tensorPass(x, p) })
+// benchGBs times f, a pass over x, and reports GB/s (10⁹ bytes of float32
+// input per second) besides go test's MB/s.
+func benchGBs(b *testing.B, x []float32, f func()) {
+	b.SetBytes(int64(4 * len(x)))
+	for b.Loop() {
+		f()
+	}
+	b.ReportMetric(float64(4*len(x))*float64(b.N)/b.Elapsed().Seconds()/1e9, "GB/s")
 }
 
-// BenchmarkStatsPassOneCore is the fused pass on one core, kernel and chunk
-// bookkeeping only.
+// benchSizes runs a benchmark on a 256 KiB (cache-resident) and a 16 MiB
+// slice of ReLU-like data (a quarter zeros).
+func benchSizes(b *testing.B, f func(b *testing.B, x []float32)) {
+	for _, n := range []int{1 << 16, 1 << 22} {
+		x := fastData(rand.New(rand.NewPCG(1, 2)), n, 0.1, false)
+		b.Run(fmt.Sprintf("%dKiB", n/256), func(b *testing.B) { f(b, x) })
+	}
+}
+
+var benchParams = passParams{lo: -32, inv: 2, satLo: float32(math.Inf(-1)), satHi: 6}
+
+// BenchmarkStatsPass is the fused pass (moments, histogram, saturation) of
+// one tensor as observe runs it once the grid is known, on all cores.
+func BenchmarkStatsPass(b *testing.B) {
+	benchSizes(b, func(b *testing.B, x []float32) { benchGBs(b, x, func() { tensorPass(x, benchParams) }) })
+}
+
+// BenchmarkStatsPassOneCore is the fused pass on one core.
 func BenchmarkStatsPassOneCore(b *testing.B) {
-	p := passParams{lo: -32, inv: 2, satLo: float32(math.Inf(-1)), satHi: 6}
 	tabs := make([]uint32, histTables*histStride)
-	benchStats(b, func(x []float32) {
-		for o := 0; o < len(x); o += fastChunk {
-			chunkPass(x[o:min(len(x), o+fastChunk)], p, tabs)
-		}
+	benchSizes(b, func(b *testing.B, x []float32) {
+		benchGBs(b, x, func() {
+			for o := 0; o < len(x); o += fastChunk {
+				chunkPass(x[o:min(len(x), o+fastChunk)], benchParams, tabs)
+			}
+		})
 	})
 }
 
 // BenchmarkStatsPassGo is the pure-Go fallback of the fused pass on one core.
 func BenchmarkStatsPassGo(b *testing.B) {
-	p := passParams{lo: -32, inv: 2, satLo: float32(math.Inf(-1)), satHi: 6}
 	tabs := make([]uint32, histTables*histStride)
-	benchStats(b, func(x []float32) {
-		var l passLanes
-		l.init()
-		passGo(x, &p, tabs, &l)
+	benchSizes(b, func(b *testing.B, x []float32) {
+		benchGBs(b, x, func() {
+			var l passLanes
+			l.init()
+			passGo(x, &benchParams, tabs, &l)
+		})
+	})
+}
+
+// BenchmarkObserve is all the statistics of one ReLU6 node output
+// [N, 32, H, W] after the first batch: moments, histogram, saturation and
+// ever-positive units.
+func BenchmarkObserve(b *testing.B) {
+	c := &Collector{perChanWanted: map[string]bool{}}
+	benchSizes(b, func(b *testing.B, x []float32) {
+		la := &layerAcc{mom: NewMoments(), act: actInfo{kind: ActReLU, hasSat: true, satLo: math.Inf(-1), satHi: 6}, unitKind: 1}
+		t := tensor.From(x, len(x)/(32*1024), 32, 32, 32)
+		c.observe(la, t) // the first batch sets the grid
+		benchGBs(b, x, func() { c.observe(la, t) })
 	})
 }
 
