@@ -65,13 +65,23 @@ func lanesEqual(a, b *passLanes) bool {
 	return a.zeros == b.zeros && a.negz == b.negz && a.nonfin == b.nonfin && a.sat == b.sat
 }
 
-// The vector kernel (with its Go tail) gives bit for bit the lanes and
-// tables of the pure-Go pass, on odd lengths, special values, all-equal data
-// and windows that do or do not cover the data.
+// Each vector kernel the CPU runs (level 2: AVX-512, level 1: AVX2), with
+// its Go tail, gives bit for bit the lanes and the per-bin counts of the
+// pure-Go pass, on odd lengths, special values, all-equal data and windows
+// that do or do not cover the data.
 func TestPassVecMatchesGo(t *testing.T) {
-	if !passVec(nil, &passParams{}, make([]uint32, histTables*histStride), &passLanes{}) {
+	if passLevel == passNone {
 		t.Skip("no vector kernel on this CPU")
 	}
+	best := passLevel
+	defer func() { passLevel = best }()
+	for level := best; level > passNone; level-- {
+		passLevel = level
+		t.Run(fmt.Sprintf("level%d", level), testPassVecMatchesGo)
+	}
+}
+
+func testPassVecMatchesGo(t *testing.T) {
 	rng := rand.New(rand.NewPCG(11, 12))
 	nan := float32(math.NaN())
 	params := []passParams{
@@ -310,14 +320,15 @@ func BenchmarkObserve(b *testing.B) {
 	})
 }
 
-// binTotals sums count tables per bin.
+// binTotals sums count tables per bin (the junk bin included, the unused
+// entries after it not).
 func binTotals(tabs []uint32) []uint32 {
 	if tabs == nil {
 		return nil
 	}
-	s := make([]uint32, histStride)
+	s := make([]uint32, HistBins+1)
 	for t := range histTables {
-		for k := range histStride {
+		for k := range HistBins + 1 {
 			s[k] += tabs[t*histStride+k]
 		}
 	}
