@@ -124,8 +124,18 @@ func testPassVecMatchesGo(t *testing.T) {
 }
 
 // The pass's counts equal the plain per-value formulas: histogram bins of
-// countInto, saturation of countSaturated, zeros and non-finite of AddFloat32.
+// countInto, saturation of countSaturated, zeros and non-finite of AddFloat32;
+// with each vector kernel the CPU has and with the pure-Go pass.
 func TestTensorPassMatchesReference(t *testing.T) {
+	best := passLevel
+	defer func() { passLevel = best }()
+	for level := best; level >= passNone; level-- {
+		passLevel = level
+		t.Run(fmt.Sprintf("level%d", level), testTensorPassMatchesReference)
+	}
+}
+
+func testTensorPassMatchesReference(t *testing.T) {
 	rng := rand.New(rand.NewPCG(13, 14))
 	acts := []actInfo{
 		{hasSat: true, satLo: math.Inf(-1), satHi: 6},           // ReLU6
