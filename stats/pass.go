@@ -32,7 +32,9 @@ import (
 // histTables is the number of interleaved count tables.
 const histTables = 8
 
-// histStride is the length of one count table: HistBins bins, the junk bin and padding.
+// histStride is the length of one count table: HistBins bins, the junk bin
+// (index HistBins), the slot where the AVX2 kernel drops zeros (HistBins+1,
+// never read) and padding.
 const histStride = HistBins + 8
 
 // passParams are a pass's constants: the shift of the moments, the
@@ -109,7 +111,7 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	}
 }
 
-// binOf is the histogram bin of a finite value f: ⌊min(max((f − lo)·inv, 0), 127)⌋.
+// binOf is the histogram bin of f: ⌊min(max((f − lo)·inv, 0), 127)⌋ (0 for NaN).
 func binOf(f float64, p *passParams) int {
 	t := (f - p.lo) * p.inv
 	if !(t > 0) {
