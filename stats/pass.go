@@ -65,14 +65,18 @@ func (l *passLanes) init() {
 	}
 }
 
-// passGo folds x into the lane accumulators and count tables (zeros left
-// out); element i goes to lane i mod 16 and table i mod histTables. It is the
-// reference the vector kernels must match (lanes bit for bit, counts per bin
-// summed over the tables), and it does the tail they leave.
+// passGo folds x into the lane accumulators and count tables: element i
+// goes to float lane i mod 16 and table i mod histTables, the integer
+// counts of the slice to lane 0, zeros to the unread table slot HistBins+1.
+// It is the reference the vector kernels must match (float lanes bit for
+// bit, counts and per-bin table sums exactly), and it does the tail they
+// leave. The counts are branch-free (a zero is as likely as not).
 func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	if !p.noHist {
 		tabs = tabs[:histTables*histStride]
 	}
+	satLo, satHi := p.satLo, p.satHi
+	var zeros, negz, nonfins, sat uint32
 	for i, v := range x {
 		j := i & 15
 		f := float64(v)
@@ -86,30 +90,34 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 			l.mx[j] = v
 		}
 		b := math.Float32bits(v)
-		zero := b&0x7fffffff == 0
-		if zero {
-			l.zeros[j]++
+		zero := isNil(b & 0x7fffffff)              // ±0
+		nonfin := isNil(b&0x7f800000 ^ 0x7f800000) // NaN or ±Inf
+		zeros += zero
+		negz += isNil(b ^ 0x80000000)
+		nonfins += nonfin
+		if v <= satLo || v >= satHi {
+			sat++
 		}
-		if b == 0x80000000 {
-			l.negz[j]++
-		}
-		if v <= p.satLo || v >= p.satHi {
-			l.sat[j]++
-		}
-		nonfinite := b&0x7f800000 == 0x7f800000
-		if nonfinite {
-			l.nonfin[j]++
-		}
-		if p.noHist || zero {
+		if p.noHist {
 			continue
 		}
 		k := binOf(f, p)
-		if nonfinite {
+		if nonfin != 0 {
 			k = HistBins
+		}
+		if zero != 0 {
+			k = HistBins + 1
 		}
 		tabs[(i%histTables)*histStride+k]++
 	}
+	l.zeros[0] += zeros
+	l.negz[0] += negz
+	l.nonfin[0] += nonfins
+	l.sat[0] += sat
 }
+
+// isNil is 1 when u is 0, else 0, without a branch.
+func isNil(u uint32) uint32 { return uint32((uint64(u) - 1) >> 63) }
 
 // binOf is the histogram bin of f: ⌊min(max((f − lo)·inv, 0), 127)⌋ (0 for NaN).
 func binOf(f float64, p *passParams) int {
