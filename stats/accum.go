@@ -166,22 +166,6 @@ func (h *Histogram) prepare(mn, mx float64) bool {
 	return true
 }
 
-// countFinite is countInto for a slice known to hold only finite values in
-// [h.Lo, h.Lo+HistBins·h.Width]: f − Lo is then ≥ 0 exactly, so only the top needs a clamp.
-func (h *Histogram) countFinite(counts []int64, x []float32) {
-	inv := 1 / h.Width
-	lo := h.Lo
-	last := uint(len(counts) - 1)
-	counts = counts[:last+1]
-	for _, v := range x {
-		i := uint((float64(v) - lo) * inv)
-		if i > last {
-			i = last
-		}
-		counts[i]++
-	}
-}
-
 // countInto adds the finite values of x to counts on the current grid.
 func (h *Histogram) countInto(counts []int64, x []float32) {
 	inv := 1 / h.Width

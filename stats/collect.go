@@ -3,7 +3,6 @@ package stats
 import (
 	"fmt"
 	"math"
-	"runtime"
 	"sync"
 
 	"vitals/loader"
@@ -361,128 +360,59 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	if la.shape == nil {
 		la.shape = append([]int{}, t.Shape...) // the first batch's shape
 	}
-	// pass 1: moments (the histogram grid needs the batch's min and max)
-	b := FastMoments(x)
+	// One read of the batch gives its moments, saturation count and
+	// histogram counts on the grid of the batches before. The grid depends
+	// only on the overall min and max, so when the batch leaves it unchanged
+	// those counts are the ones a count on the new grid would give; otherwise
+	// (first batch, or a batch that widens the range) the batch is counted
+	// again on the new grid.
+	p := passParams{}
+	p.satLo, p.satHi = la.act.satBounds()
+	hadGrid := la.hist.Counts != nil
+	e0, s0 := la.hist.Exp, la.hist.Start
+	if hadGrid {
+		p.lo, p.inv = la.hist.Lo, 1/la.hist.Width
+	} else {
+		p.noHist = true
+	}
+	r := tensorPass(x, p)
+	b := r.mom
 	la.mom.Merge(b)
 	if c.perChanWanted[la.output] && t.Rank() >= 2 {
 		la.perChan = perChannel(la.perChan, t, 1)
 	}
-	units, inner, axis := 0, 0, 0
+	if la.hist.prepare(b.Min, b.Max) {
+		counts := &r.counts
+		if !hadGrid || la.hist.Exp != e0 || la.hist.Start != s0 {
+			p.lo, p.inv, p.noHist = la.hist.Lo, 1/la.hist.Width, false
+			counts = &tensorPass(x, p).counts
+		}
+		for i, n := range counts {
+			la.hist.Counts[i] += n
+		}
+	}
+	if la.act.hasSat {
+		la.sat += r.sat
+		la.satN += int64(len(x))
+	}
 	if la.act.kind != ActNone && t.Rank() > 0 {
-		axis = t.Rank() - 1
+		axis := t.Rank() - 1
 		if la.unitKind == 1 || (la.unitKind == 0 && t.Rank() >= 3) {
 			axis = 1
 		}
 		la.unitAxis = axis
-		units = t.Shape[axis]
+		units := t.Shape[axis]
 		if len(la.everPos) != units {
 			la.everPos = make([]bool, units)
 		}
-		inner = 1
+		inner := 1
 		for _, d := range t.Shape[axis+1:] {
 			inner *= d
 		}
-	}
-	// pass 2: histogram, ever-positive units and saturation counts; integer
-	// results, so splitting the work across cores cannot change them
-	la.hist.prepare(b.Min, b.Max)
-	sat := secondPass(la, x, units, inner, b.Nonfinite == 0)
-	if la.act.hasSat {
-		la.sat += sat
-		la.satN += int64(len(x))
-	}
-}
-
-// secondPass fills the histogram (grid already prepared), the ever-positive
-// flags and counts saturated values, over blocks of whole outer rows in parallel.
-func secondPass(la *layerAcc, x []float32, units, inner int, allFinite bool) int64 {
-	block := len(x)
-	if units > 0 {
-		block = units * inner
-	}
-	if block == 0 {
-		return 0
-	}
-	rows := len(x) / block
-	workers := 1
-	if len(x) >= fastParallelMin && rows > 1 {
-		workers = min(runtime.GOMAXPROCS(0), rows)
-	}
-	type part struct {
-		counts []int64
-		ever   []bool
-		sat    int64
-	}
-	parts := make([]part, workers)
-	work := func(w int) {
-		p := &parts[w]
-		if w == 0 {
-			p.counts, p.ever = la.hist.Counts, la.everPos
-		} else {
-			if la.hist.Counts != nil {
-				p.counts = make([]int64, len(la.hist.Counts))
-			}
-			p.ever = make([]bool, len(la.everPos))
-		}
-		lo, hi := w*rows/workers, (w+1)*rows/workers
-		seg := x[lo*block : hi*block]
-		switch {
-		case p.counts == nil:
-		case allFinite:
-			la.hist.countFinite(p.counts, seg)
-		default:
-			la.hist.countInto(p.counts, seg)
-		}
 		if la.act.kind == ActReLU {
-			everPositiveFast(p.ever, seg, units, inner)
-		}
-		if la.act.hasSat {
-			p.sat = countSaturated(seg, la.act)
+			everPositiveFast(la.everPos, x, units, inner)
 		}
 	}
-	if workers > 1 {
-		var wg sync.WaitGroup
-		for w := 1; w < workers; w++ {
-			wg.Add(1)
-			go func() { defer wg.Done(); work(w) }()
-		}
-		work(0)
-		wg.Wait()
-	} else {
-		work(0)
-	}
-	sat := parts[0].sat
-	for _, p := range parts[1:] {
-		for i, c := range p.counts {
-			la.hist.Counts[i] += c
-		}
-		for i, e := range p.ever {
-			if e {
-				la.everPos[i] = true
-			}
-		}
-		sat += p.sat
-	}
-	return sat
-}
-
-func countSaturated(x []float32, a actInfo) int64 {
-	var n int64
-	lo, hi := float32(a.satLo), float32(a.satHi)
-	if a.strict {
-		for _, v := range x {
-			if v < lo || v > hi {
-				n++
-			}
-		}
-	} else {
-		for _, v := range x {
-			if v <= lo || v >= hi {
-				n++
-			}
-		}
-	}
-	return n
 }
 
 // perChannel merges the batch's per-channel moments along axis, reading each

@@ -156,3 +156,23 @@ func everPositive(ever []bool, x []float32, units, inner int) {
 		}
 	}
 }
+
+// countSaturated is the plain reference count of saturated values.
+func countSaturated(x []float32, a actInfo) int64 {
+	var n int64
+	lo, hi := float32(a.satLo), float32(a.satHi)
+	if a.strict {
+		for _, v := range x {
+			if v < lo || v > hi {
+				n++
+			}
+		}
+	} else {
+		for _, v := range x {
+			if v <= lo || v >= hi {
+				n++
+			}
+		}
+	}
+	return n
+}

@@ -1,0 +1,198 @@
+#include "textflag.h"
+
+// func passAVX512(x []float32, p *passParams, tabs *uint32, l *passLanes)
+//
+// passGo for len(x) a multiple of 16, 16 values per step. Lane layout:
+// Z0/Z1 Σd (values 0..7 / 8..15 of each group), Z2/Z3 Σd², Z4 min, Z5 max,
+// Z6 ±0 count, Z7 −0 count, Z8 non-finite count, Z9 saturated count.
+// passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32.
+// passLanes: s 0, q 128, mn 256, mx 320, zeros 384, negz 448, nonfin 512, sat 576.
+// Count tables: histTables=8 tables of histStride=136 uint32 (544 bytes);
+// the k-th nonzero value of a block increments table k mod 8. Zeros are
+// not counted here (chunkPass adds them to the bin of 0). The frame holds
+// the bins of one block of 64 groups (4096 bytes and 64 bytes of slack for
+// the last full-width store).
+TEXT ·passAVX512(SB), $4160-48
+	MOVQ x_base+0(FP), SI
+	MOVQ x_len+8(FP), CX
+	MOVQ p+24(FP), DX
+	MOVQ tabs+32(FP), DI
+	MOVQ l+40(FP), BX
+	SHRQ $4, CX
+	JZ   done
+	VBROADCASTSD 0(DX), Z31      // shift
+	VBROADCASTSD 8(DX), Z30      // lo
+	VBROADCASTSD 16(DX), Z29     // inv
+	VBROADCASTSS 24(DX), Z28     // satLo
+	VBROADCASTSS 28(DX), Z27     // satHi
+	MOVQ $0x405FC00000000000, AX // 127.0
+	VPBROADCASTQ AX, Z26
+	VPXORD Z25, Z25, Z25
+	MOVL $128, AX
+	VPBROADCASTD AX, Z24
+	MOVL $1, AX
+	VPBROADCASTD AX, Z23
+	MOVL $0x7fffffff, AX
+	VPBROADCASTD AX, Z22
+	MOVL $0x80000000, AX
+	VPBROADCASTD AX, Z21
+	MOVL $0x7f800000, AX
+	VPBROADCASTD AX, Z20
+	VMOVUPD 0(BX), Z0
+	VMOVUPD 64(BX), Z1
+	VMOVUPD 128(BX), Z2
+	VMOVUPD 192(BX), Z3
+	VMOVUPS 256(BX), Z4
+	VMOVUPS 320(BX), Z5
+	VMOVDQU32 384(BX), Z6
+	VMOVDQU32 448(BX), Z7
+	VMOVDQU32 512(BX), Z8
+	VMOVDQU32 576(BX), Z9
+	CMPB 32(DX), $0
+	JNE  nohist
+
+block:
+	// a block of up to 64 groups: the bins of its nonzero values packed
+	// into the frame, then the table increments (reading the bins back
+	// once the stores have long completed, not through store forwarding)
+	MOVQ $64, R11
+	CMPQ CX, R11
+	CMOVQLT CX, R11              // R11 = groups in this block
+	SUBQ R11, CX
+	LEAQ 0(SP), R9
+	MOVQ R11, R12
+
+loop:
+	VMOVUPS (SI), Z10
+	VMINPS Z10, Z4, Z4           // mn = mn < v ? mn : v
+	VMAXPS Z10, Z5, Z5           // mx = mx > v ? mx : v
+	VPTESTNMD Z22, Z10, K1       // ±0: (bits & 0x7fffffff) == 0
+	VPADDD Z23, Z6, K1, Z6
+	VPCMPEQD Z21, Z10, K2        // −0: bits == 0x80000000
+	VPADDD Z23, Z7, K2, Z7
+	VPANDD Z20, Z10, Z19         // NaN/±Inf: exponent bits all ones
+	VPCMPEQD Z20, Z19, K3
+	VPADDD Z23, Z8, K3, Z8
+	VCMPPS $0x12, Z28, Z10, K4   // v <= satLo (ordered: false for NaN)
+	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
+	KORW K4, K5, K4
+	VPADDD Z23, Z9, K4, Z9
+	VCVTPS2PD Y10, Z11           // values 0..7 as float64
+	VEXTRACTF64X4 $1, Z10, Y12
+	VCVTPS2PD Y12, Z12           // values 8..15
+	VSUBPD Z31, Z11, Z13         // d = v − shift
+	VSUBPD Z31, Z12, Z14
+	VADDPD Z13, Z0, Z0           // Σd
+	VADDPD Z14, Z1, Z1
+	VFMADD231PD Z13, Z13, Z2     // Σd²
+	VFMADD231PD Z14, Z14, Z3
+	VSUBPD Z30, Z11, Z15         // t = (v − lo)·inv
+	VSUBPD Z30, Z12, Z16
+	VMULPD Z29, Z15, Z15
+	VMULPD Z29, Z16, Z16
+	VMAXPD Z25, Z15, Z15         // t > 0 ? t : 0 (NaN → 0)
+	VMAXPD Z25, Z16, Z16
+	VMINPD Z26, Z15, Z15         // t < 127 ? t : 127
+	VMINPD Z26, Z16, Z16
+	VCVTTPD2DQ Z15, Y17          // bin = trunc(t)
+	VCVTTPD2DQ Z16, Y18
+	VINSERTI64X4 $1, Y18, Z17, Z17
+	VMOVDQA32 Z24, K3, Z17       // non-finite → junk bin 128
+	KNOTW K1, K6                 // zeros are left out (counted apart)
+	VPCOMPRESSD Z17, K6, Z18     // the other bins, packed
+	VMOVDQU32 Z18, (R9)
+	KMOVW K6, AX
+	POPCNTL AX, AX
+	LEAQ (R9)(AX*4), R9
+	ADDQ $64, SI
+	DECQ R12
+	JNZ  loop
+
+	LEAQ 0(SP), R8
+	MOVQ R9, R11
+	SUBQ R8, R11
+	SHRQ $2, R11                 // bins in the frame
+	MOVQ R11, R12
+	SHRQ $3, R12                 // 8 per step
+	JZ   rest
+
+count:
+	MOVL 0(R8), AX
+	INCL 0(DI)(AX*4)
+	MOVL 4(R8), AX
+	INCL 544(DI)(AX*4)
+	MOVL 8(R8), AX
+	INCL 1088(DI)(AX*4)
+	MOVL 12(R8), AX
+	INCL 1632(DI)(AX*4)
+	MOVL 16(R8), AX
+	INCL 2176(DI)(AX*4)
+	MOVL 20(R8), AX
+	INCL 2720(DI)(AX*4)
+	MOVL 24(R8), AX
+	INCL 3264(DI)(AX*4)
+	MOVL 28(R8), AX
+	INCL 3808(DI)(AX*4)
+	ADDQ $32, R8
+	DECQ R12
+	JNZ  count
+
+rest:
+	ANDQ $7, R11
+	JZ   next
+
+rest1:
+	MOVL 0(R8), AX
+	INCL 0(DI)(AX*4)
+	ADDQ $4, R8
+	DECQ R11
+	JNZ  rest1
+
+next:
+	TESTQ CX, CX
+	JNZ  block
+	JMP  store
+
+nohist:
+	VMOVUPS (SI), Z10
+	VMINPS Z10, Z4, Z4           // mn = mn < v ? mn : v
+	VMAXPS Z10, Z5, Z5           // mx = mx > v ? mx : v
+	VPTESTNMD Z22, Z10, K1       // ±0: (bits & 0x7fffffff) == 0
+	VPADDD Z23, Z6, K1, Z6
+	VPCMPEQD Z21, Z10, K2        // −0: bits == 0x80000000
+	VPADDD Z23, Z7, K2, Z7
+	VPANDD Z20, Z10, Z19         // NaN/±Inf: exponent bits all ones
+	VPCMPEQD Z20, Z19, K3
+	VPADDD Z23, Z8, K3, Z8
+	VCMPPS $0x12, Z28, Z10, K4   // v <= satLo (ordered: false for NaN)
+	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
+	KORW K4, K5, K4
+	VPADDD Z23, Z9, K4, Z9
+	VCVTPS2PD Y10, Z11           // values 0..7 as float64
+	VEXTRACTF64X4 $1, Z10, Y12
+	VCVTPS2PD Y12, Z12           // values 8..15
+	VSUBPD Z31, Z11, Z13         // d = v − shift
+	VSUBPD Z31, Z12, Z14
+	VADDPD Z13, Z0, Z0           // Σd
+	VADDPD Z14, Z1, Z1
+	VFMADD231PD Z13, Z13, Z2     // Σd²
+	VFMADD231PD Z14, Z14, Z3
+	ADDQ $64, SI
+	DECQ CX
+	JNZ  nohist
+
+store:
+	VMOVUPD Z0, 0(BX)
+	VMOVUPD Z1, 64(BX)
+	VMOVUPD Z2, 128(BX)
+	VMOVUPD Z3, 192(BX)
+	VMOVUPS Z4, 256(BX)
+	VMOVUPS Z5, 320(BX)
+	VMOVDQU32 Z6, 384(BX)
+	VMOVDQU32 Z7, 448(BX)
+	VMOVDQU32 Z8, 512(BX)
+	VMOVDQU32 Z9, 576(BX)
+	VZEROUPPER
+
+done:
+	RET
