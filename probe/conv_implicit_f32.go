@@ -28,71 +28,97 @@ const convBatchMinP = 2048
 var convBatchScratch = 1 << 22
 
 // im2colPanels writes panels of B for a run of images of one group, read
-// from a zero-padded copy of the images (padImages), so every tap of every
-// output column reads inside the buffer and no bounds logic remains per value.
+// from a zero-padded, phase-split copy of the images (padImages), so every
+// run of B is a contiguous copy and no bounds logic remains per value.
+//
+// Padded coordinates (r, c) hold input (r − pt, c − pl), zero outside. With
+// strides (sh, sw) they are split into sh·sw phase planes: phase (a, b) holds
+// the padded values at rows r ≡ a (mod sh) and columns c ≡ b (mod sw), at
+// (r / sh, c / sw). Tap (kh, kw) of output (oh, ow) reads padded
+// (oh·sh + kh·dh, ow·sw + kw·dw), that is phase (kh·dh mod sh, kw·dw mod sw)
+// at (oh + ⌊kh·dh/sh⌋, ow + ⌊kw·dw/sw⌋): consecutive outputs of a row read
+// consecutive values, whatever the stride.
 type im2colPanels struct {
-	xp        []float32 // padded images: image i, channel c, row r, column q at xp[i·imgStride + c·Hp·Wp + r·Wp + q]
-	imgStride int       // C·Hp·Wp
-	Hp, Wp    int       // padded rows and columns: input (r − pt, q − pl), zero outside
+	xp        []float32 // phase planes: image i, channel c, phase (a, b), row r, column q at xp[i·imgStride + ((c·sh + a)·sw + b)·Hq·Wq + r·Wq + q]
+	imgStride int       // C·sh·sw·Hq·Wq
+	Hq, Wq    int       // rows and columns of one phase plane
 	OH, OW    int
 	sh, sw    int
-	rowOff    []int // offset of B row p in an image: c·Hp·Wp + kh·dh·Wp + kw·dw (c within the group)
+	rowOff    []int // offset of B row p = (c, kh, kw) in an image's planes (c within the group)
 	ones      bool  // B has one more row, all ones (for a bias column in A)
 }
 
-// newIm2colPanels sizes the padded images and the row offsets for one
-// group's Cg channels (geometry g, the padded images hold all C channels).
+// newIm2colPanels sizes the phase planes and the row offsets for one
+// group's Cg channels (geometry g; the planes hold all C channels).
 func newIm2colPanels(g *convGeom, C, Cg int) *im2colPanels {
 	KH, KW := g.k[0], g.k[1]
-	q := &im2colPanels{
-		OH: g.out[0], OW: g.out[1], sh: g.strides[0], sw: g.strides[1],
-		Hp: (g.out[0]-1)*g.strides[0] + (KH-1)*g.dil[0] + 1,
-		Wp: (g.out[1]-1)*g.strides[1] + (KW-1)*g.dil[1] + 1,
-	}
-	q.imgStride = C * q.Hp * q.Wp
+	sh, sw := g.strides[0], g.strides[1]
+	// the padded rows and columns the windows read
+	Hp := (g.out[0]-1)*sh + (KH-1)*g.dil[0] + 1
+	Wp := (g.out[1]-1)*sw + (KW-1)*g.dil[1] + 1
+	q := &im2colPanels{OH: g.out[0], OW: g.out[1], sh: sh, sw: sw, Hq: (Hp + sh - 1) / sh, Wq: (Wp + sw - 1) / sw}
+	plane := q.Hq * q.Wq
+	q.imgStride = C * sh * sw * plane
 	q.rowOff = make([]int, 0, Cg*KH*KW)
 	for c := 0; c < Cg; c++ {
 		for kh := 0; kh < KH; kh++ {
 			for kw := 0; kw < KW; kw++ {
-				q.rowOff = append(q.rowOff, c*q.Hp*q.Wp+kh*g.dil[0]*q.Wp+kw*g.dil[1])
+				dr, dc := kh*g.dil[0], kw*g.dil[1]
+				phase := (c*sh+dr%sh)*sw + dc%sw
+				q.rowOff = append(q.rowOff, phase*plane+(dr/sh)*q.Wq+dc/sw)
 			}
 		}
 	}
 	return q
 }
 
-// padImages writes images x[0:n] (C×H×W each) into dst in the padded layout:
-// padded (r, q) holds input (r − pt, q − pl), zero outside the input.
+// padImages writes images x[0:n] (C×H×W each) into dst as phase planes (see
+// im2colPanels), zero where the padded position lies outside the input.
 func (q *im2colPanels) padImages(dst, x []float32, n, C int, g *convGeom) {
 	H, W, pt, pl := g.in[0], g.in[1], g.padBeg[0], g.padBeg[1]
-	// the input columns that land in padded columns [0, Wp)
-	c0, c1 := max(0, -pl), min(W, q.Wp-pl)
+	sh, sw := q.sh, q.sw
+	plane := q.Hq * q.Wq
 	parFor(n*C, 8, func(lo, hi int) {
 		for ic := lo; ic < hi; ic++ {
 			src := x[ic*H*W : (ic+1)*H*W]
-			d := dst[ic*q.Hp*q.Wp : (ic+1)*q.Hp*q.Wp]
-			for r := 0; r < q.Hp; r++ {
-				row := d[r*q.Wp : (r+1)*q.Wp]
-				ih := r - pt
-				if ih < 0 || ih >= H || c0 >= c1 {
-					clear(row)
-					continue
+			for a := 0; a < sh; a++ {
+				for b := 0; b < sw; b++ {
+					d := dst[((ic*sh+a)*sw+b)*plane : ((ic*sh+a)*sw+b+1)*plane]
+					// phase columns whose input column b + q·sw − pl lies in [0, W)
+					c0, c1 := convValidRange(q.Wq, sw, b-pl, W)
+					for r := 0; r < q.Hq; r++ {
+						row := d[r*q.Wq : (r+1)*q.Wq]
+						ih := r*sh + a - pt
+						if ih < 0 || ih >= H || c0 >= c1 {
+							clear(row)
+							continue
+						}
+						clear(row[:c0])
+						clear(row[c1:])
+						in := src[ih*W : (ih+1)*W]
+						if sw == 1 {
+							copy(row[c0:c1], in[c0+b-pl:c1+b-pl])
+							continue
+						}
+						iw := c0*sw + b - pl
+						for j := c0; j < c1; j++ {
+							row[j] = in[iw]
+							iw += sw
+						}
+					}
 				}
-				clear(row[:c0+pl])
-				copy(row[c0+pl:c1+pl], src[ih*W+c0:ih*W+c1])
-				clear(row[c1+pl:])
 			}
 		}
 	})
 }
 
 // colRun is a run of consecutive output columns in one output row: panel
-// columns [d, d+n) read from padded offset base (+ rowOff[p]) on, every sw-th value.
+// columns [d, d+n) read the n values from plane offset base + rowOff[p] on.
 type colRun struct {
 	base, n, d int
 }
 
-// pack is a gemm.PackBFunc over the padded images (group offset in xp).
+// pack is a gemm.PackBFunc over the phase planes (group offset in xp).
 func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 	P := q.OH * q.OW
 	runs := make([]colRun, 0, nr+1)
@@ -110,7 +136,7 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 			img, r := j/P, j%P
 			oh, ow := r/q.OW, r%q.OW
 			n := min(q.OW-ow, nv-d)
-			runs = append(runs, colRun{img*q.imgStride + oh*q.sh*q.Wp + ow*q.sw, n, d})
+			runs = append(runs, colRun{img*q.imgStride + oh*q.Wq + ow, n, d})
 			d += n
 			j += n
 		}
@@ -119,31 +145,18 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 				clear(panel[p*nr+nv : (p+1)*nr])
 			}
 		}
-		if q.sw == 1 {
-			for _, r := range runs {
-				if r.n >= 16 {
-					for p, o := range offs {
-						copy(panel[p*nr+r.d:p*nr+r.d+r.n], q.xp[r.base+o:r.base+o+r.n])
-					}
-					continue
-				}
-				for p, o := range offs {
-					d := panel[p*nr+r.d : p*nr+r.d+r.n]
-					s := q.xp[r.base+o : r.base+o+len(d)]
-					for i := range d {
-						d[i] = s[i]
-					}
-				}
-			}
-			continue
-		}
 		for _, r := range runs {
+			if r.n >= 16 {
+				for p, o := range offs {
+					copy(panel[p*nr+r.d:p*nr+r.d+r.n], q.xp[r.base+o:r.base+o+r.n])
+				}
+				continue
+			}
 			for p, o := range offs {
 				d := panel[p*nr+r.d : p*nr+r.d+r.n]
-				s := r.base + o
+				s := q.xp[r.base+o : r.base+o+len(d)]
 				for i := range d {
-					d[i] = q.xp[s]
-					s += q.sw
+					d[i] = s[i]
 				}
 			}
 		}
@@ -200,7 +213,7 @@ func convImplicit2D(a *convF32Args) {
 		nb := min(imgs, a.N-n0)
 		q.padImages(*padded, a.xd[n0*a.C*a.inSize:], nb, a.C, g)
 		for gi := 0; gi < a.group; gi++ {
-			q.xp = (*padded)[gi*a.Cg*q.Hp*q.Wp:]
+			q.xp = (*padded)[gi*a.Cg*q.sh*q.sw*q.Hq*q.Wq:]
 			if imgs == 1 {
 				y := a.yd[(n0*a.M+gi*a.Mg)*a.P : (n0*a.M+(gi+1)*a.Mg)*a.P]
 				if beta != 0 {

@@ -128,10 +128,14 @@ func TestEinsumMatchesMatMul(t *testing.T) {
 }
 
 // BenchmarkConvResNet18 runs the convolution shapes of ResNet-18 at 224×224
-// over a batch of 8 with constant weights and bias (as in a model), and
-// reports GFLOP/s (2 per multiply-add).
+// over a batch of 8 with constant weights and bias (as in a model), output
+// buffers recycled through a tensor.Pool as vitals check does, and reports
+// GFLOP/s (2 per multiply-add).
 func BenchmarkConvResNet18(b *testing.B) {
 	r := rand.New(rand.NewSource(3))
+	pool := tensor.NewPool(1 << 30)
+	tensor.UsePool(pool)
+	defer tensor.UsePool(nil)
 	for _, s := range []struct {
 		name              string
 		C, M, H, k, s, pd int
@@ -157,6 +161,7 @@ func BenchmarkConvResNet18(b *testing.B) {
 			flops := 2 * float64(n*s.M*oh*oh) * float64(s.C*s.k*s.k)
 			b.ResetTimer()
 			for b.Loop() {
+				pool.Recycle([]*tensor.Tensor{c.Out[0]}, []*tensor.Tensor{x})
 				if err := convKernel(c); err != nil {
 					b.Fatal(err)
 				}
