@@ -99,7 +99,9 @@ func packedConvWeights(w *tensor.Tensor, wd []float32, group, mg, kg int) []*gem
 func packedConvWeightsBias(w, b *tensor.Tensor, wd, bd []float32, group, mg, kg int) []*gemm.PackedA {
 	return cachedPack(w, b, 'b', false, group, func() []*gemm.PackedA {
 		ps := make([]*gemm.PackedA, group)
-		aug := make([]float32, mg*(kg+1))
+		buf := getF32(mg * (kg + 1)) // scratch reused across layers: no fresh pages per layer
+		defer putF32(buf)
+		aug := *buf
 		for g := range ps {
 			for m := 0; m < mg; m++ {
 				copy(aug[m*(kg+1):m*(kg+1)+kg], wd[(g*mg+m)*kg:(g*mg+m+1)*kg])

@@ -4,6 +4,7 @@ import (
 	"sync"
 	"sync/atomic"
 	"unsafe"
+	"vitals/internal/hugepage"
 )
 
 // Pool recycles large float32 buffers from one batch to the next, so a long
@@ -51,6 +52,7 @@ func (p *Pool) get(n int, uninit bool) []float32 {
 	p.mu.Unlock()
 	if b == nil {
 		b = make([]float32, n)
+		hugepage.Advise(b)
 	} else if !uninit {
 		clear(b)
 	}
