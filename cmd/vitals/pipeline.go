@@ -453,26 +453,62 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 		}
 		return c.Hook(n, outs)
 	}
+	// the next batch is read (and decoded) on its own goroutine while the
+	// current one runs; it has stopped before analyse returns
+	type fed struct {
+		batch  map[string]*tensor.Tensor
+		labels []int64
+		err    error
+	}
+	ahead := make(chan fed, 1)
+	stop := make(chan struct{})
+	go func() {
+		defer close(ahead)
+		for {
+			select {
+			case <-stop:
+				return
+			default:
+			}
+			b, lb, err := feed.next(l.model.Graph)
+			select {
+			case ahead <- fed{b, lb, err}:
+			case <-stop:
+				return
+			}
+			if b == nil || err != nil {
+				return
+			}
+		}
+	}()
+	defer func() {
+		close(stop)
+		for range ahead { // wait for the reader to finish
+		}
+	}()
+	done := 0
 	for {
 		select {
 		case <-interrupted:
 			return nil, errInterrupted
 		default:
 		}
-		batch, labels, err := feed.next(l.model.Graph)
+		f := <-ahead
+		batch, labels, err := f.batch, f.labels, f.err
 		if err != nil {
 			return nil, err
 		}
 		if batch == nil {
 			break
 		}
+		done += batchLen(batch)
 		c.AddInputs(batch)
 		outs, released, err := l.plan.RunReleased(batch, hook)
 		if errors.Is(err, errInterrupted) {
 			return nil, errInterrupted
 		}
 		if err != nil {
-			return nil, fmt.Errorf("running %q on samples %d–%d: %w", l.model.Path, feed.done-batchLen(batch), feed.done-1, err)
+			return nil, fmt.Errorf("running %q on samples %d–%d: %w", l.model.Path, done-batchLen(batch), done-1, err)
 		}
 		c.AddOutputs(outs, labels)
 		c.Samples += batchLen(batch)
@@ -493,9 +529,9 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			keep = append(keep, t)
 		}
 		pool.Recycle(released, keep)
-		pg.update(feed.done)
+		pg.update(done)
 		if afterBatchHook != nil {
-			afterBatchHook(feed.done)
+			afterBatchHook(done)
 		}
 	}
 	if err := c.Wait(); err != nil {
