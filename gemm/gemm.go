@@ -38,8 +38,6 @@ package gemm
 import (
 	"runtime"
 	"sync/atomic"
-
-	"vitals/internal/hugepage"
 )
 
 var (
@@ -157,7 +155,6 @@ func PackA(transA bool, m, k int, a []float32, lda int) *PackedA {
 	kern := active.Load()
 	mp := roundUp(m, kern.mr)
 	p := &PackedA{kern: kern, m: m, k: k, data: make([]float32, mp*k)}
-	hugepage.Advise(p.data)
 	src := operand{data: a, ld: lda, trans: transA}
 	kc := kern.kcFor(k)
 	for pc := 0; pc < k; pc += kc {
@@ -176,7 +173,6 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 	kern := active.Load()
 	np := roundUp(n, kern.nr)
 	p := &PackedB{kern: kern, k: k, n: n, data: make([]float32, np*k)}
-	hugepage.Advise(p.data)
 	src := operand{data: b, ld: ldb, trans: transB}
 	kc := kern.kcFor(k)
 	for pc := 0; pc < k; pc += kc {

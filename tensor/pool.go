@@ -4,7 +4,6 @@ import (
 	"sync"
 	"sync/atomic"
 	"unsafe"
-	"vitals/internal/hugepage"
 )
 
 // Pool recycles large float32 buffers from one batch to the next, so a long
@@ -52,7 +51,6 @@ func (p *Pool) get(n int, uninit bool) []float32 {
 	p.mu.Unlock()
 	if b == nil {
 		b = make([]float32, n)
-		hugepage.Advise(b)
 	} else if !uninit {
 		clear(b)
 	}

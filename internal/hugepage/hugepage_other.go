@@ -1,6 +1,0 @@
-//go:build !linux
-
-package hugepage
-
-// Advise does nothing outside Linux.
-func Advise([]float32) {}
