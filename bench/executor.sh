@@ -6,9 +6,10 @@
 # by bench/gen/export.py with Debian's python3-torch/torchvision, random
 # He-initialised weights): torchvision resnet18 and mobilenet_v2 at 224×224,
 # a 4-layer MLP (784-2048-2048-1024-10), a 4-layer transformer encoder
-# (d=256, 4 heads, ff=1024, 128 tokens). Input: seeded Gaussian items, 256
-# per model (8192 for the MLP, whose items take 0.2 ms each), so the fixed
-# start-up of `vitals check` is spread over a sample of realistic size.
+# (d=256, 4 heads, ff=1024, 128 tokens). Input: seeded Gaussian items, 1,000
+# per model (8192 for the MLP, whose items take 0.2 ms each): the size of a
+# real check, over which the fixed start-up of `vitals check` (reading the
+# model, packing weights, first-touch page faults: about 1 s) is spread.
 #
 # vitals: `vitals check MODEL --data X.npy --batch 8` over every item (every
 # statistics hook on; wall time of the whole command, model loading and the
@@ -36,7 +37,7 @@ models=("$@")
 if ! "$PY" -c 'import torch, torchvision' 2>/dev/null; then
 	apt-get install -y python3-torch python3-torchvision
 fi
-want_items() { if [ "$1" = mlp ]; then echo 8192; else echo 256; fi; }
+want_items() { if [ "$1" = mlp ]; then echo 8192; else echo 1000; fi; }
 for m in "${models[@]}"; do
 	if [ ! -f "$DIR/$m.onnx" ] || [ ! -f "$DIR/$m.npy" ] || [ "$(npy_items "$DIR/$m.npy")" != "$(want_items "$m")" ]; then
 		"$PY" bench/gen/export.py "$DIR"
