@@ -68,7 +68,7 @@ func arith(op opID) Kernel {
 		if err != nil {
 			return err
 		}
-		out := tensor.New(a.DType, os)
+		out := tensor.NewUninit(a.DType, os) // every element is written below
 		switch x := a.Data.(type) {
 		case []float32:
 			if !arithF32Fast(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) {
