@@ -434,6 +434,24 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 		inner *= d
 	}
 	block := ch * inner
+	if inner == 1 {
+		// tabular [N, F]: one value per row and channel, folded in row
+		// order exactly as chunkMoments of that one value would be
+		batch := make([]Moments, ch)
+		for i := range batch {
+			batch[i] = NewMoments()
+		}
+		for o := 0; o+block <= len(x); o += block {
+			row := x[o : o+block]
+			for cc, v := range row {
+				batch[cc].mergeOne(v)
+			}
+		}
+		for cc := range acc {
+			acc[cc].Merge(batch[cc])
+		}
+		return acc
+	}
 	for cc := 0; cc < ch; cc++ {
 		b := NewMoments()
 		for o := 0; o+block <= len(x); o += block {
@@ -442,4 +460,20 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 		acc[cc].Merge(b)
 	}
 	return acc
+}
+
+// mergeOne is m.Merge(chunkMoments([]float32{v})) without building a chunk:
+// a finite v has N 1, mean v (+0 for −0, as chunkMoments' shift + 0 gives),
+// M2 0, and v as its minimum and maximum.
+func (m *Moments) mergeOne(v float32) {
+	if v-v != 0 { // NaN or ±Inf
+		m.Merge(chunkMoments([]float32{v}))
+		return
+	}
+	f := float64(v)
+	var z int64
+	if v == 0 {
+		z = 1
+	}
+	m.Merge(Moments{N: 1, Mean: f + 0, Min: f, Max: f, Zeros: z})
 }

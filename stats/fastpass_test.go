@@ -1,6 +1,7 @@
 package stats
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"runtime"
@@ -175,4 +176,21 @@ func countSaturated(x []float32, a actInfo) int64 {
 		}
 	}
 	return n
+}
+
+// mergeOne folds a value in exactly (bit for bit) as merging chunkMoments
+// of that one value does (the reference), for ordinary and special values.
+func TestMergeOneMatchesChunkMoments(t *testing.T) {
+	vals := []float32{0, float32(math.Copysign(0, -1)), 1.5, -2.25, 3e-39, -1e38, float32(math.NaN()),
+		float32(math.Inf(1)), float32(math.Inf(-1)), 7, 7, -0.5}
+	got, want := NewMoments(), NewMoments()
+	for i, v := range vals {
+		got.mergeOne(v)
+		want.Merge(chunkMoments([]float32{v}))
+		if fmt.Sprintf("%#v", got) != fmt.Sprintf("%#v", want) ||
+			math.Float64bits(got.Mean) != math.Float64bits(want.Mean) || math.Float64bits(got.Min) != math.Float64bits(want.Min) ||
+			math.Float64bits(got.Max) != math.Float64bits(want.Max) || math.Float64bits(got.M2) != math.Float64bits(want.M2) {
+			t.Fatalf("after value %d (%g): %#v, want %#v", i, v, got, want)
+		}
+	}
 }
