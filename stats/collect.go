@@ -435,20 +435,8 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	}
 	block := ch * inner
 	if inner == 1 {
-		// tabular [N, F]: one value per row and channel, folded in row
-		// order exactly as chunkMoments of that one value would be
-		batch := make([]Moments, ch)
-		for i := range batch {
-			batch[i] = NewMoments()
-		}
-		for o := 0; o+block <= len(x); o += block {
-			row := x[o : o+block]
-			for cc, v := range row {
-				batch[cc].mergeOne(v)
-			}
-		}
-		for cc := range acc {
-			acc[cc].Merge(batch[cc])
+		for cc, b := range columnMoments(x, ch) {
+			acc[cc].Merge(b)
 		}
 		return acc
 	}
@@ -462,18 +450,55 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	return acc
 }
 
-// mergeOne is m.Merge(chunkMoments([]float32{v})) without building a chunk:
-// a finite v has N 1, mean v (+0 for −0, as chunkMoments' shift + 0 gives),
-// M2 0, and v as its minimum and maximum.
-func (m *Moments) mergeOne(v float32) {
-	if v-v != 0 { // NaN or ±Inf
-		m.Merge(chunkMoments([]float32{v}))
-		return
+// columnMoments returns the moments of each column of x, a row-major
+// matrix with ch columns (tabular samples [N, F]), in one pass over the
+// rows: each column is summed about its first row's value as one chunk is
+// (Σd, Σd² in float64, see chunkPass), with its minimum, maximum and zeros.
+// A column holding a NaN or ±Inf is recomputed by AddFloat32.
+func columnMoments(x []float32, ch int) []Moments {
+	rows := len(x) / ch
+	out := make([]Moments, ch)
+	if rows == 0 {
+		for i := range out {
+			out[i] = NewMoments()
+		}
+		return out
 	}
-	f := float64(v)
-	var z int64
-	if v == 0 {
-		z = 1
+	shift := make([]float64, ch)
+	s, q := make([]float64, ch), make([]float64, ch)
+	mn, mx := make([]float32, ch), make([]float32, ch)
+	zeros := make([]int64, ch)
+	first := x[:ch]
+	for c, v := range first {
+		shift[c] = float64(v)
+		mn[c], mx[c] = v, v
 	}
-	m.Merge(Moments{N: 1, Mean: f + 0, Min: f, Max: f, Zeros: z})
+	for r := 0; r < rows; r++ {
+		row := x[r*ch : (r+1)*ch]
+		for c, v := range row {
+			d := float64(v) - shift[c]
+			s[c] += d
+			q[c] += d * d
+			mn[c] = min(mn[c], v)
+			mx[c] = max(mx[c], v)
+			if v == 0 {
+				zeros[c]++
+			}
+		}
+	}
+	n := float64(rows)
+	for c := range out {
+		if s[c]-s[c] != 0 || q[c]-q[c] != 0 { // a NaN or ±Inf in the column
+			col := make([]float32, rows)
+			for r := range col {
+				col[r] = x[r*ch+c]
+			}
+			out[c] = NewMoments()
+			out[c].AddFloat32(col)
+			continue
+		}
+		out[c] = Moments{N: int64(rows), Mean: shift[c] + s[c]/n, M2: max(0, q[c]-s[c]*s[c]/n),
+			Min: float64(mn[c]), Max: float64(mx[c]), Zeros: zeros[c]}
+	}
+	return out
 }

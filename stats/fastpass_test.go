@@ -178,19 +178,39 @@ func countSaturated(x []float32, a actInfo) int64 {
 	return n
 }
 
-// mergeOne folds a value in exactly (bit for bit) as merging chunkMoments
-// of that one value does (the reference), for ordinary and special values.
-func TestMergeOneMatchesChunkMoments(t *testing.T) {
-	vals := []float32{0, float32(math.Copysign(0, -1)), 1.5, -2.25, 3e-39, -1e38, float32(math.NaN()),
-		float32(math.Inf(1)), float32(math.Inf(-1)), 7, 7, -0.5}
-	got, want := NewMoments(), NewMoments()
-	for i, v := range vals {
-		got.mergeOne(v)
-		want.Merge(chunkMoments([]float32{v}))
-		if fmt.Sprintf("%#v", got) != fmt.Sprintf("%#v", want) ||
-			math.Float64bits(got.Mean) != math.Float64bits(want.Mean) || math.Float64bits(got.Min) != math.Float64bits(want.Min) ||
-			math.Float64bits(got.Max) != math.Float64bits(want.Max) || math.Float64bits(got.M2) != math.Float64bits(want.M2) {
-			t.Fatalf("after value %d (%g): %#v, want %#v", i, v, got, want)
+// columnMoments agrees with the two-pass AddFloat32 (the reference) on
+// every column: counts exactly, mean and variance to 1e-12 relative, with
+// NaN, ±Inf, −0 and a constant column among them.
+func TestColumnMomentsMatchesTwoPass(t *testing.T) {
+	r := rand.New(rand.NewPCG(3, 4))
+	const rows, ch = 37, 9
+	x := make([]float32, rows*ch)
+	for i := range x {
+		x[i] = float32(r.NormFloat64()*3 + 100)
+	}
+	x[5*ch+2] = float32(math.NaN())
+	x[7*ch+3] = float32(math.Inf(-1))
+	for rr := 0; rr < rows; rr++ {
+		x[rr*ch+4] = 2.5                           // constant
+		x[rr*ch+5] = float32(math.Copysign(0, -1)) // all −0
+	}
+	got := columnMoments(x, ch)
+	for c := 0; c < ch; c++ {
+		col := make([]float32, rows)
+		for rr := range col {
+			col[rr] = x[rr*ch+c]
 		}
+		want := NewMoments()
+		want.AddFloat32(col)
+		g := got[c]
+		if g.N != want.N || g.Zeros != want.Zeros || g.Nonfinite != want.Nonfinite || g.Min != want.Min || g.Max != want.Max {
+			t.Fatalf("column %d: %+v, want %+v", c, g, want)
+		}
+		if want.N > 0 && (math.Abs(g.Mean-want.Mean) > 1e-12*math.Abs(want.Mean) || math.Abs(g.Var()-want.Var()) > 1e-9*(want.Var()+1e-12)) {
+			t.Fatalf("column %d: mean %g var %g, want %g %g", c, g.Mean, g.Var(), want.Mean, want.Var())
+		}
+	}
+	if fmt.Sprint(columnMoments(nil, 3)[0].N) != "0" {
+		t.Fatal("an empty sample must give empty moments")
 	}
 }
