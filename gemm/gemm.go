@@ -185,13 +185,17 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 // SgemmPackedA computes C = alpha·A·op(B) + beta·C with A packed by PackA
 // (m×k taken from pa). B and C are as in Sgemm.
 func SgemmPackedA(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	sgemmPackedAOn(Threads(), n, alpha, pa, transB, b, ldb, beta, c, ldc)
+}
+
+func sgemmPackedAOn(workers, n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
 	m, k := pa.m, pa.k
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("B", transB, k, n, b, ldb)
 	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
-	run(pa.kern, m, n, k, alpha,
+	runOn(workers, pa.kern, m, n, k, alpha,
 		operand{packed: pa.data, padded: roundUp(m, pa.kern.mr)},
 		operand{data: b, ld: ldb, trans: transB},
 		beta, c, ldc)
@@ -210,12 +214,22 @@ type PackBFunc func(nr int, dst []float32, p0, kc, j0, cols int)
 // SgemmPackedAFunc computes C = alpha·A·B + beta·C with A packed by PackA
 // (m×k) and B (k×n) written on demand by pack; C is as in Sgemm.
 func SgemmPackedAFunc(n int, alpha float32, pa *PackedA, pack PackBFunc, beta float32, c []float32, ldc int) {
+	sgemmPackedAFuncOn(Threads(), n, alpha, pa, pack, beta, c, ldc)
+}
+
+// SgemmPackedAFuncSerial is SgemmPackedAFunc on the calling goroutine only,
+// for callers that run independent products in parallel themselves.
+func SgemmPackedAFuncSerial(n int, alpha float32, pa *PackedA, pack PackBFunc, beta float32, c []float32, ldc int) {
+	sgemmPackedAFuncOn(1, n, alpha, pa, pack, beta, c, ldc)
+}
+
+func sgemmPackedAFuncOn(workers, n int, alpha float32, pa *PackedA, pack PackBFunc, beta float32, c []float32, ldc int) {
 	m, k := pa.m, pa.k
 	checkDims(m, n, k, ldc, len(c))
 	if trivial(m, n, k, alpha, beta, c, ldc) {
 		return
 	}
-	run(pa.kern, m, n, k, alpha,
+	runOn(workers, pa.kern, m, n, k, alpha,
 		operand{packed: pa.data, padded: roundUp(m, pa.kern.mr)},
 		operand{pack: pack},
 		beta, c, ldc)
@@ -232,6 +246,11 @@ func SgemmFunc(transA bool, m, n, k int, alpha float32, a []float32, lda int, pa
 		operand{data: a, ld: lda, trans: transA},
 		operand{pack: pack},
 		beta, c, ldc)
+}
+
+// SgemmPackedASerial is SgemmPackedA on the calling goroutine only.
+func SgemmPackedASerial(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	sgemmPackedAOn(1, n, alpha, pa, transB, b, ldb, beta, c, ldc)
 }
 
 // SgemmPackedB computes C = alpha·op(A)·B + beta·C with B packed by PackB

@@ -233,6 +233,9 @@ func TestPacked(t *testing.T) {
 							SgemmPackedA(tc.n, tc.alpha, pa, tc.transB, b.data, b.ld, tc.beta, got, c0.ld)
 							tc.check(t, a, b, c0, got)
 						}
+						got := append([]float32(nil), c0.data...)
+						SgemmPackedASerial(tc.n, tc.alpha, pa, tc.transB, b.data, b.ld, tc.beta, got, c0.ld)
+						tc.check(t, a, b, c0, got)
 						pb := PackB(tc.transB, tc.k, tc.n, b.data, b.ld)
 						if pb.Rows() != tc.k || pb.Cols() != tc.n {
 							t.Fatalf("PackB shape %d×%d", pb.Rows(), pb.Cols())
@@ -330,6 +333,9 @@ func TestPackFunc(t *testing.T) {
 				}
 				got := append([]float32(nil), c0.data...)
 				SgemmPackedAFunc(tc.n, tc.alpha, PackA(false, tc.m, tc.k, a.data, a.ld), pack, tc.beta, got, c0.ld)
+				tc.check(t, a, b, c0, got)
+				got = append([]float32(nil), c0.data...)
+				SgemmPackedAFuncSerial(tc.n, tc.alpha, PackA(false, tc.m, tc.k, a.data, a.ld), pack, tc.beta, got, c0.ld)
 				tc.check(t, a, b, c0, got)
 				got = append([]float32(nil), c0.data...)
 				SgemmFunc(false, tc.m, tc.n, tc.k, tc.alpha, a.data, a.ld, pack, tc.beta, got, c0.ld)

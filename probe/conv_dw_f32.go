@@ -265,8 +265,8 @@ func convF32WithAct(a *convF32Args, shape []int) {
 		return
 	}
 	ad := f.out.F32()
-	if convIsImplicit(a) {
-		// convImplicit2D applies f to each finished block of Y
+	if convIsImplicit(a) || a.direct {
+		// convImplicit2D and convDirect apply f to each finished block of Y
 		a.act, a.actOut = f.f32, ad
 		convFastF32(a)
 		return

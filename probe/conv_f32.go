@@ -1,6 +1,8 @@
 package probe
 
 import (
+	"runtime"
+
 	"vitals/gemm"
 	"vitals/tensor"
 )
@@ -45,8 +47,9 @@ func convFastF32(a *convF32Args) {
 		return
 	}
 	implicit := convIsImplicit(a)
-	// bias first: the products accumulate onto it (convImplicit2D places it itself)
-	if a.bd != nil && !implicit {
+	// bias first: the products accumulate onto it (convImplicit2D and
+	// convDirect place it themselves)
+	if a.bd != nil && !implicit && !a.direct {
 		for n := 0; n < a.N; n++ {
 			for m := 0; m < a.M; m++ {
 				seg := a.yd[(n*a.M+m)*a.P : (n*a.M+m+1)*a.P]
@@ -70,6 +73,10 @@ func convFastF32(a *convF32Args) {
 	if a.c.isInitializer(1) && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
 	}
+	if a.direct {
+		convDirect(a, packs, beta)
+		return
+	}
 
 	inner := g.out[nd-1]
 	segTotal := a.P / max(inner, 1)
@@ -83,10 +90,6 @@ func convFastF32(a *convF32Args) {
 		for gi := 0; gi < a.group; gi++ {
 			xg := a.xd[(n*a.C+gi*a.Cg)*a.inSize : (n*a.C+(gi+1)*a.Cg)*a.inSize]
 			yg := a.yd[(n*a.M+gi*a.Mg)*a.P:]
-			if a.direct {
-				convProduct(a, packs, gi, a.P, xg, max(a.P, 1), beta, yg)
-				continue
-			}
 			for s0 := 0; s0 < segTotal; s0 += chunk {
 				sn := min(chunk, segTotal-s0)
 				cols := (*colBuf)[:kg*sn*inner]
@@ -95,6 +98,49 @@ func convFastF32(a *convF32Args) {
 			}
 		}
 	}
+}
+
+// convDirect runs 1×1, unit-stride, unpadded convolutions, whose column
+// matrix is X itself (read in place), with whole images per core when there
+// are several (each product on one core: no hand-off per product) and the
+// fused activation, if any, applied to each image right after its products.
+func convDirect(a *convF32Args, packs []*gemm.PackedA, beta float32) {
+	kg := a.Cg * a.K
+	img := a.M * a.P
+	workers := min(runtime.GOMAXPROCS(0), a.N)
+	parFor(a.N, 1, func(n0, n1 int) {
+		serial := workers > 1
+		for n := n0; n < n1; n++ {
+			for gi := 0; gi < a.group; gi++ {
+				xg := a.xd[(n*a.C+gi*a.Cg)*a.inSize : (n*a.C+(gi+1)*a.Cg)*a.inSize]
+				o := (n*a.M + gi*a.Mg) * a.P
+				yg := a.yd[o : o+a.Mg*a.P]
+				if beta != 0 {
+					for m := 0; m < a.Mg; m++ {
+						fillF32(yg[m*a.P:(m+1)*a.P], a.bd[gi*a.Mg+m])
+					}
+				}
+				ld := max(a.P, 1)
+				switch {
+				case packs != nil && serial:
+					gemm.SgemmPackedASerial(a.P, 1, packs[gi], false, xg, ld, beta, yg, ld)
+				case packs != nil:
+					gemm.SgemmPackedA(a.P, 1, packs[gi], false, xg, ld, beta, yg, ld)
+				case serial:
+					gemm.SgemmSerial(false, false, a.Mg, a.P, kg, 1, a.wd[gi*a.Mg*kg:], max(kg, 1), xg, ld, beta, yg, ld)
+				default:
+					gemm.Sgemm(false, false, a.Mg, a.P, kg, 1, a.wd[gi*a.Mg*kg:], max(kg, 1), xg, ld, beta, yg, ld)
+				}
+			}
+			if a.act != nil {
+				if serial {
+					a.act(a.actOut[n*img:(n+1)*img], a.yd[n*img:(n+1)*img])
+				} else {
+					f32Map(a.actOut[n*img:(n+1)*img], a.yd[n*img:(n+1)*img], a.act)
+				}
+			}
+		}
+	})
 }
 
 // convProduct computes y (Mg×ncols, row stride P) (+)= W_gi · cols.

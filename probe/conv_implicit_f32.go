@@ -75,41 +75,44 @@ func newIm2colPanels(g *convGeom, C, Cg int) *im2colPanels {
 // padImages writes images x[0:n] (C×H×W each) into dst as phase planes (see
 // im2colPanels), zero where the padded position lies outside the input.
 func (q *im2colPanels) padImages(dst, x []float32, n, C int, g *convGeom) {
+	parFor(n*C, 8, func(lo, hi int) { q.padRange(dst, x, lo, hi, g) })
+}
+
+// padRange is padImages for the (image, channel) planes [lo, hi), on the calling goroutine.
+func (q *im2colPanels) padRange(dst, x []float32, lo, hi int, g *convGeom) {
 	H, W, pt, pl := g.in[0], g.in[1], g.padBeg[0], g.padBeg[1]
 	sh, sw := q.sh, q.sw
 	plane := q.Hq * q.Wq
-	parFor(n*C, 8, func(lo, hi int) {
-		for ic := lo; ic < hi; ic++ {
-			src := x[ic*H*W : (ic+1)*H*W]
-			for a := 0; a < sh; a++ {
-				for b := 0; b < sw; b++ {
-					d := dst[((ic*sh+a)*sw+b)*plane : ((ic*sh+a)*sw+b+1)*plane]
-					// phase columns whose input column b + q·sw − pl lies in [0, W)
-					c0, c1 := convValidRange(q.Wq, sw, b-pl, W)
-					for r := 0; r < q.Hq; r++ {
-						row := d[r*q.Wq : (r+1)*q.Wq]
-						ih := r*sh + a - pt
-						if ih < 0 || ih >= H || c0 >= c1 {
-							clear(row)
-							continue
-						}
-						clear(row[:c0])
-						clear(row[c1:])
-						in := src[ih*W : (ih+1)*W]
-						if sw == 1 {
-							copy(row[c0:c1], in[c0+b-pl:c1+b-pl])
-							continue
-						}
-						iw := c0*sw + b - pl
-						for j := c0; j < c1; j++ {
-							row[j] = in[iw]
-							iw += sw
-						}
+	for ic := lo; ic < hi; ic++ {
+		src := x[ic*H*W : (ic+1)*H*W]
+		for a := 0; a < sh; a++ {
+			for b := 0; b < sw; b++ {
+				d := dst[((ic*sh+a)*sw+b)*plane : ((ic*sh+a)*sw+b+1)*plane]
+				// phase columns whose input column b + q·sw − pl lies in [0, W)
+				c0, c1 := convValidRange(q.Wq, sw, b-pl, W)
+				for r := 0; r < q.Hq; r++ {
+					row := d[r*q.Wq : (r+1)*q.Wq]
+					ih := r*sh + a - pt
+					if ih < 0 || ih >= H || c0 >= c1 {
+						clear(row)
+						continue
+					}
+					clear(row[:c0])
+					clear(row[c1:])
+					in := src[ih*W : (ih+1)*W]
+					if sw == 1 {
+						copy(row[c0:c1], in[c0+b-pl:c1+b-pl])
+						continue
+					}
+					iw := c0*sw + b - pl
+					for j := c0; j < c1; j++ {
+						row[j] = in[iw]
+						iw += sw
 					}
 				}
 			}
 		}
-	})
+	}
 }
 
 // colRun is a run of consecutive output columns in one output row: panel
@@ -209,6 +212,11 @@ func convImplicit2D(a *convF32Args) {
 		}
 		gemm.SgemmFunc(false, a.Mg, ncols, kg, 1, a.wd[gi*a.Mg*kg:], max(kg, 1), q.pack, beta, c, ldc)
 	}
+	if imgs == 1 && packs != nil && a.N >= 2 {
+		// whole images per core: no hand-off per product
+		convImagesParallel(a, q, packs, beta)
+		return
+	}
 	for n0 := 0; n0 < a.N; n0 += imgs {
 		nb := min(imgs, a.N-n0)
 		q.padImages(*padded, a.xd[n0*a.C*a.inSize:], nb, a.C, g)
@@ -252,6 +260,37 @@ func convImplicit2D(a *convF32Args) {
 			})
 		}
 	}
+}
+
+// convImagesParallel is convImplicit2D's one-product-per-image path with
+// the images split across cores, each core padding its images into its own
+// buffer and running their products alone (serial GEMM), so no product is
+// handed between cores; Y's layout and values are those of the split
+// products (each C element is one dot product whichever core computes it).
+func convImagesParallel(a *convF32Args, q0 *im2colPanels, packs []*gemm.PackedA, beta float32) {
+	g := a.g
+	parFor(a.N, 1, func(n0, n1 int) {
+		q := *q0 // own plane pointer
+		padded := getF32(q.imgStride)
+		defer putF32(padded)
+		for n := n0; n < n1; n++ {
+			q.padRange(*padded, a.xd[n*a.C*a.inSize:], 0, a.C, g)
+			for gi := 0; gi < a.group; gi++ {
+				q.xp = (*padded)[gi*a.Cg*q.sh*q.sw*q.Hq*q.Wq:]
+				o := (n*a.M + gi*a.Mg) * a.P
+				y := a.yd[o : o+a.Mg*a.P]
+				if beta != 0 {
+					for m := 0; m < a.Mg; m++ {
+						fillF32(y[m*a.P:(m+1)*a.P], a.bd[gi*a.Mg+m])
+					}
+				}
+				gemm.SgemmPackedAFuncSerial(a.P, 1, packs[gi], q.pack, beta, y, a.P)
+				if a.act != nil {
+					a.act(a.actOut[o:o+len(y)], y)
+				}
+			}
+		}
+	})
 }
 
 // fillF32 sets every element of s to v.
