@@ -89,6 +89,11 @@ func smLoop[T Float](kind smKind, y, x []T, outer, m, inner int) {
 	if m == 0 {
 		return
 	}
+	exp := math.Exp
+	var zero T
+	if _, ok := any(zero).(float32); ok {
+		exp = expNonPos // float32 results: the fast exponential rounds the same (exp_f32.go)
+	}
 	for o := 0; o < outer; o++ {
 		for j := 0; j < inner; j++ {
 			base := o*m*inner + j
@@ -107,7 +112,7 @@ func smLoop[T Float](kind smKind, y, x []T, outer, m, inner int) {
 			case smSoftmax:
 				var s float64
 				for k := 0; k < m; k++ {
-					e := math.Exp(float64(x[base+k*inner] - mx))
+					e := exp(float64(x[base+k*inner] - mx))
 					y[base+k*inner] = T(e)
 					s += e
 				}
@@ -118,7 +123,7 @@ func smLoop[T Float](kind smKind, y, x []T, outer, m, inner int) {
 			case smLogSoftmax:
 				var s float64
 				for k := 0; k < m; k++ {
-					s += math.Exp(float64(x[base+k*inner] - mx))
+					s += exp(float64(x[base+k*inner] - mx))
 				}
 				ls := math.Log(s)
 				for k := 0; k < m; k++ {
