@@ -112,12 +112,33 @@ func packB(nr int, dst []float32, b operand, p0, kc, j0, cols int) {
 	}
 }
 
-// buffers are one worker's packing buffers, recycled through bufPool.
+// buffers are one worker's packing buffers, recycled through getBuffers
+// and putBuffers.
 type buffers struct {
 	a, b, tile []float32
 }
 
-var bufPool = sync.Pool{New: func() any { return new(buffers) }}
+// freeBuffers keeps idle packing buffers for good: a sync.Pool would hand
+// them (megabytes each) to the garbage collector at every cycle, and fresh
+// memory costs a page fault per 4 KiB. It holds a few more than the cores,
+// for callers running products side by side (SgemmSerial and the like).
+var freeBuffers = make(chan *buffers, 16)
+
+func getBuffers() *buffers {
+	select {
+	case bf := <-freeBuffers:
+		return bf
+	default:
+		return new(buffers)
+	}
+}
+
+func putBuffers(bf *buffers) {
+	select {
+	case freeBuffers <- bf:
+	default: // more than are ever used at once: let it go
+	}
+}
 
 // aligned returns a zeroed slice of n floats whose first element is 64-byte
 // aligned (one cache line, one zmm register).
@@ -255,10 +276,10 @@ type span struct{ m0, m1, n0, n1 int }
 
 func (j *job) do(i int) {
 	r := j.ranges[i]
-	bf := bufPool.Get().(*buffers)
+	bf := getBuffers()
 	bf.ensure(j.kern)
 	gemmRange(j.kern, bf, r.m0, r.m1, r.n0, r.n1, j.k, j.alpha, j.A, j.B, j.beta, j.c, j.ldc)
-	bufPool.Put(bf)
+	putBuffers(bf)
 }
 
 var jobPool = sync.Pool{New: func() any { return new(job) }}
@@ -314,10 +335,10 @@ func runOn(w int, kern *kernel, m, n, k int, alpha float32, A, B operand, beta f
 		w = min(w, mt)
 	}
 	if w <= 1 {
-		bf := bufPool.Get().(*buffers)
+		bf := getBuffers()
 		bf.ensure(kern)
 		gemmRange(kern, bf, 0, m, 0, n, k, alpha, A, B, beta, c, ldc)
-		bufPool.Put(bf)
+		putBuffers(bf)
 		return
 	}
 	j := jobPool.Get().(*job)

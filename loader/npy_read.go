@@ -3,10 +3,12 @@ package loader
 import (
 	"archive/zip"
 	"bufio"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
 	"os"
+	"unsafe"
 
 	"vitals/tensor"
 )
@@ -107,6 +109,14 @@ func readNpyData(r io.Reader, h *npyHeader) (*tensor.Tensor, error) {
 
 // readElems reads n elements of type d from r into dst starting at element off.
 func readElems(r io.Reader, dst any, off, n int, d npyDType) error {
+	if f, ok := dst.([]float32); ok && d.size == 4 && d.order == binary.LittleEndian && littleEndianHost && n > 0 {
+		// the file's bytes are the host's float32s: read them in place
+		b := unsafe.Slice((*byte)(unsafe.Pointer(&f[off])), 4*n)
+		if _, err := io.ReadFull(r, b); err != nil {
+			return fmt.Errorf("reading array data: %w", noEOF(err))
+		}
+		return nil
+	}
 	per := max(npyChunk/d.size, 1)
 	buf := make([]byte, min(n, per)*d.size)
 	for n > 0 {
@@ -178,6 +188,7 @@ type npySource struct {
 	pos    int // samples served
 	strict bool
 	done   bool
+	spare  spares
 }
 
 func (s *npySource) Name() string        { return s.name }
@@ -193,6 +204,9 @@ func (s *npySource) Close() error {
 	s.c, s.r = nil, nil
 	return err
 }
+
+// Reuse lets a later Next read into t's storage (see Reuser).
+func (s *npySource) Reuse(t *tensor.Tensor) { s.spare.give(t) }
 
 func (s *npySource) Next(n int) (*tensor.Tensor, error) {
 	if n <= 0 {
@@ -213,7 +227,10 @@ func (s *npySource) Next(n int) (*tensor.Tensor, error) {
 	}
 	k := min(n, total-s.pos)
 	out := &tensor.Tensor{DType: s.h.dtype.store, Shape: append([]int{k}, s.h.shape[1:]...)}
-	out.Data = tensor.MakeSlice(out.DType, k*s.row)
+	out.Data = s.spare.take(out.DType, k*s.row) // every element is read into below
+	if out.Data == nil {
+		out.Data = tensor.MakeSlice(out.DType, k*s.row)
+	}
 	if err := readElems(s.r, out.Data, 0, k*s.row, s.h.dtype); err != nil {
 		return nil, fmt.Errorf("reading %q: samples %d–%d: %w", s.name, s.pos, s.pos+k-1, err)
 	}

@@ -8,6 +8,7 @@ import (
 	"reflect"
 	"sort"
 	"strings"
+	"sync"
 
 	"vitals/tensor"
 )
@@ -21,6 +22,52 @@ type Source interface {
 	Len() int                           // number of samples (-1 if unknown)
 	Next(n int) (*tensor.Tensor, error) // next up to n samples as [k, SampleShape...]; io.EOF when done
 	Close() error
+}
+
+// Reuser is a Source that can read later batches into the storage of
+// batches the caller is done with (no fresh memory, hence no page faults,
+// per batch of a long sample). Reuse(t) promises that nothing reads or
+// writes t's data any more.
+type Reuser interface {
+	Reuse(t *tensor.Tensor)
+}
+
+// spares keeps up to two dead batch buffers for a Source's next batches; it
+// is safe for one reading goroutine and another giving buffers back.
+type spares struct {
+	mu   sync.Mutex
+	bufs []any
+}
+
+// give keeps t's storage (float32 only: the element type of models' inputs).
+func (sp *spares) give(t *tensor.Tensor) {
+	if t == nil {
+		return
+	}
+	if _, ok := t.Data.([]float32); !ok {
+		return
+	}
+	sp.mu.Lock()
+	if len(sp.bufs) < 2 {
+		sp.bufs = append(sp.bufs, t.Data)
+	}
+	sp.mu.Unlock()
+}
+
+// take returns a kept buffer of n elements of dt, or nil.
+func (sp *spares) take(dt tensor.DType, n int) any {
+	if dt != tensor.Float32 {
+		return nil
+	}
+	sp.mu.Lock()
+	defer sp.mu.Unlock()
+	for i, b := range sp.bufs {
+		if f := b.([]float32); len(f) == n {
+			sp.bufs = append(sp.bufs[:i], sp.bufs[i+1:]...)
+			return f
+		}
+	}
+	return nil
 }
 
 // OpenFile opens a sample file chosen by its extension (case-insensitive):

@@ -145,16 +145,57 @@ func parFor(n, minChunk int, f func(lo, hi int)) {
 	wg.Wait()
 }
 
-// f32Pool recycles scratch buffers (im2col columns).
-var f32Pool sync.Pool
+// scratch keeps float32 scratch buffers (padded images, im2col columns,
+// the C of shared products, packing temporaries) from call to call, up to
+// scratchLimit bytes. Not a sync.Pool: that hands its contents to the
+// garbage collector at every cycle, and fresh memory costs a page fault per
+// 4 KiB, which on a virtual machine added tens of thousands of faults over
+// a long sample. A buffer comes back with whatever it held.
+var scratch struct {
+	mu    sync.Mutex
+	free  []*[]float32
+	bytes int64
+}
 
+// scratchLimit bounds the bytes of idle scratch buffers kept.
+const scratchLimit = 256 << 20
+
+// getF32 returns a buffer of n elements (contents undefined), the smallest
+// kept one that is large enough, else a new one.
 func getF32(n int) *[]float32 {
-	if p, ok := f32Pool.Get().(*[]float32); ok && cap(*p) >= n {
+	scratch.mu.Lock()
+	best := -1
+	for i, p := range scratch.free {
+		if cap(*p) >= n && (best < 0 || cap(*p) < cap(*scratch.free[best])) {
+			best = i
+		}
+	}
+	if best >= 0 {
+		p := scratch.free[best]
+		scratch.free = append(scratch.free[:best], scratch.free[best+1:]...)
+		scratch.bytes -= int64(4 * cap(*p))
+		scratch.mu.Unlock()
 		*p = (*p)[:n]
 		return p
 	}
+	scratch.mu.Unlock()
 	s := make([]float32, n)
 	return &s
 }
 
-func putF32(p *[]float32) { f32Pool.Put(p) }
+// putF32 keeps a buffer for later getF32 calls, dropping the oldest kept
+// ones when the limit would be passed.
+func putF32(p *[]float32) {
+	size := int64(4 * cap(*p))
+	if size > scratchLimit {
+		return
+	}
+	scratch.mu.Lock()
+	defer scratch.mu.Unlock()
+	for scratch.bytes+size > scratchLimit && len(scratch.free) > 0 {
+		scratch.bytes -= int64(4 * cap(*scratch.free[0]))
+		scratch.free = scratch.free[1:]
+	}
+	scratch.free = append(scratch.free, p)
+	scratch.bytes += size
+}

@@ -40,24 +40,34 @@ type poolWindows struct {
 }
 
 func poolPrepare(c *Call, x *tensor.Tensor, ceilAllowed bool) (convGeom, *poolWindows, error) {
+	g, err := poolGeometry(c, x, ceilAllowed)
+	if err != nil {
+		return g, nil, err
+	}
+	return g, poolWindowsOf(&g), nil
+}
+
+// poolGeometry is poolPrepare without the window table (for the paths that
+// do not read it).
+func poolGeometry(c *Call, x *tensor.Tensor, ceilAllowed bool) (convGeom, error) {
 	if x.Rank() < 3 {
-		return convGeom{}, nil, fmt.Errorf("pooling needs an input of rank ≥ 3, got %v", x.Shape)
+		return convGeom{}, fmt.Errorf("pooling needs an input of rank ≥ 3, got %v", x.Shape)
 	}
 	nd := x.Rank() - 2
 	g, err := convAttrs(c, nd, nil)
 	if err != nil {
-		return g, nil, err
+		return g, err
 	}
 	g.in = x.Shape[2:]
 	g.clonePads()
 	ceil := ceilAllowed && c.Int("ceil_mode", 0) != 0
 	if err := convForwardOut(&g, c.Str("auto_pad", "NOTSET"), ceil); err != nil {
-		return g, nil, err
+		return g, err
 	}
 	if _, err := tensor.NumElements(append(append([]int{}, x.Shape[:2]...), g.out...)); err != nil {
-		return g, nil, err
+		return g, err
 	}
-	return g, poolWindowsOf(&g), nil
+	return g, nil
 }
 
 func poolWindowsOf(g *convGeom) *poolWindows {
@@ -134,7 +144,7 @@ func maxPoolKernel(c *Call) error {
 		return err
 	}
 	x := c.In[0]
-	g, w, err := poolPrepare(c, x, true)
+	g, err := poolGeometry(c, x, true)
 	if err != nil {
 		return err
 	}
@@ -145,11 +155,16 @@ func maxPoolKernel(c *Call) error {
 		idx = make([]int64, out.Size())
 	}
 	planes := x.Shape[0] * x.Shape[1]
+	xf, isF32 := x.Data.([]float32)
+	if isF32 && idx == nil && len(g.out) == 2 {
+		poolMax2DF32(out.F32(), xf, planes, &g) // no window table needed
+		c.Set(0, out)
+		return nil
+	}
+	w := poolWindowsOf(&g)
 	switch xd := x.Data.(type) {
 	case []float32:
-		if idx == nil && len(g.out) == 2 {
-			poolMax2DF32(out.F32(), xd, planes, &g)
-		} else if idx == nil {
+		if idx == nil {
 			poolMaxF32(out.F32(), xd, planes, w)
 		} else {
 			poolMaxRun(out.F32(), idx, xd, planes, w)

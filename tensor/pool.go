@@ -71,6 +71,13 @@ func spanOf(t *Tensor) (span, bool) {
 	return span{lo, lo + uintptr(4*len(d))}, true
 }
 
+// Overlap reports whether two float32 tensors share storage.
+func Overlap(a, b *Tensor) bool {
+	x, okA := spanOf(a)
+	y, okB := spanOf(b)
+	return okA && okB && x.lo < y.hi && y.lo < x.hi
+}
+
 // Recycle takes back the released tensors' buffers that are safe to reuse
 // (see Pool); keep lists tensors still alive (graph outputs, inputs).
 func (p *Pool) Recycle(released, keep []*Tensor) {

@@ -529,6 +529,18 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			keep = append(keep, t)
 		}
 		pool.Recycle(released, keep)
+		// the batch's inputs are dead now (statistics synced, no output shares
+		// them): their sources may read later batches into them
+		for name, t := range batch {
+			r, ok := feed.sources[name].(loader.Reuser)
+			shared := false
+			for _, o := range outs {
+				shared = shared || tensor.Overlap(t, o)
+			}
+			if ok && !shared {
+				r.Reuse(t)
+			}
+		}
 		pg.update(done)
 		if afterBatchHook != nil {
 			afterBatchHook(done)
