@@ -407,6 +407,8 @@ func TestUninitOutputsFullyWritten(t *testing.T) {
 		{"Add", []*tensor.Tensor{a, b}}, {"Mul", []*tensor.Tensor{a, row}}, {"Div", []*tensor.Tensor{row, a}},
 		{"Sub", []*tensor.Tensor{a, linRand(r, 4, 1, 65)}}, {"Erf", []*tensor.Tensor{a}}, {"Tanh", []*tensor.Tensor{a}},
 		{"Softmax", []*tensor.Tensor{a}}, {"LogSoftmax", []*tensor.Tensor{a}}, {"Hardmax", []*tensor.Tensor{a}},
+		{"MatMul", []*tensor.Tensor{a, linRand(r, 4, 65, 40)}}, {"MatMul", []*tensor.Tensor{a, linRand(r, 65, 70)}},
+		{"MatMul", []*tensor.Tensor{linRand(r, 4, 33, 0), linRand(r, 4, 0, 65)}},
 	}
 	run := func(op string, in []*tensor.Tensor) []float32 {
 		k, ok := Lookup("", op, 13)

@@ -201,7 +201,8 @@ func linMatMul[T Number](a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*t
 	if err != nil {
 		return nil, err
 	}
-	out := makeChecked[T](total)
+	// every element is written: each product has beta 0 (k = 0 writes zeros)
+	out := tensor.NewUninit(a.DType, []int{total}).Data.([]T)
 	nb := 1
 	for _, d := range batch {
 		nb *= d
@@ -345,7 +346,8 @@ func matMulPackedB(a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Te
 	if err != nil {
 		return nil, false
 	}
-	out := make([]float32, total)
+	res := tensor.NewUninit(tensor.Float32, []int{total}) // the product (beta 0) writes every element
+	out := res.F32()
 	switch {
 	case rows == 0:
 	case packRoom(b):
