@@ -31,6 +31,7 @@ func main() {
 	ops := flag.Bool("ops", false, "print time per operator type")
 	prof := flag.String("cpuprofile", "", "write a CPU profile of the whole run")
 	kernel := flag.Bool("kernel", false, "print the SGEMM micro-kernel in use and exit")
+	flag.BoolVar(&outBytes, "outputs", false, "also print the bytes of node outputs per item (what the statistics read)")
 	flag.BoolVar(&terse, "terse", false, "print only the two times (ms/image) separated by \" / \"")
 	flag.Parse()
 	if *kernel {
@@ -139,6 +140,21 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			best[mode] = min(best[mode], d)
 		}
 	}
+	if outBytes {
+		var total int64
+		count := func(_ *loader.Node, outs []*tensor.Tensor) error {
+			for _, t := range outs {
+				if t != nil {
+					total += int64(t.Size()) * 4
+				}
+			}
+			return nil
+		}
+		if _, err := p.Run(batches[0], count); err != nil {
+			return err
+		}
+		fmt.Printf("node outputs: %.1f MB per item\n", float64(total)/float64(batch)/1e6)
+	}
 	off, on := best[0], best[1]
 	if terse {
 		fmt.Printf("%.2f / %.2f (+%.0f%%)\n", ms(off), ms(on), 100*(float64(on)/float64(off)-1))
@@ -177,6 +193,6 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	return nil
 }
 
-var terse bool
+var terse, outBytes bool
 
 func ms(d time.Duration) float64 { return float64(d) / 1e6 }
