@@ -120,9 +120,9 @@ type buffers struct {
 
 // freeBuffers keeps idle packing buffers for good: a sync.Pool would hand
 // them (megabytes each) to the garbage collector at every cycle, and fresh
-// memory costs a page fault per 4 KiB. It holds a few more than the cores,
-// for callers running products side by side (SgemmSerial and the like).
-var freeBuffers = make(chan *buffers, 16)
+// memory costs a page fault per 4 KiB. It holds as many as are in use at
+// once on two cores (a product split over both, or two serial ones).
+var freeBuffers = make(chan *buffers, 4)
 
 func getBuffers() *buffers {
 	select {
