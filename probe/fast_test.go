@@ -394,8 +394,9 @@ func TestSoftmaxRowsParallelMatchesSerial(t *testing.T) {
 }
 
 // Kernels whose float32 output comes from an uninitialised pool buffer
-// (tensor.NewUninit) write every element: run on recycled buffers full of
-// NaN, each gives exactly what it gives on a fresh zeroed buffer (the
+// (tensor.NewUninit) write every element, and those that accumulate into
+// their output (ConvTranspose) get a zeroed one: run on recycled buffers full
+// of NaN, each gives exactly what it gives on a fresh zeroed buffer (the
 // reference: the same kernel without a pool).
 func TestUninitOutputsFullyWritten(t *testing.T) {
 	r := rand.New(rand.NewSource(41))
@@ -409,6 +410,8 @@ func TestUninitOutputsFullyWritten(t *testing.T) {
 		{"Softmax", []*tensor.Tensor{a}}, {"LogSoftmax", []*tensor.Tensor{a}}, {"Hardmax", []*tensor.Tensor{a}},
 		{"MatMul", []*tensor.Tensor{a, linRand(r, 4, 65, 40)}}, {"MatMul", []*tensor.Tensor{a, linRand(r, 65, 70)}},
 		{"MatMul", []*tensor.Tensor{linRand(r, 4, 33, 0), linRand(r, 4, 0, 65)}},
+		{"Conv", []*tensor.Tensor{linRand(r, 2, 4, 32, 32), linRand(r, 3, 4, 3, 3)}},
+		{"ConvTranspose", []*tensor.Tensor{linRand(r, 2, 4, 30, 30), linRand(r, 4, 3, 3, 3)}}, // adds into its output: must start from zeros
 	}
 	run := func(op string, in []*tensor.Tensor) []float32 {
 		k, ok := Lookup("", op, 13)

@@ -112,15 +112,9 @@ func (p *Plan) markFusions() {
 				readers[in] = append(readers[in], i)
 			}
 		}
-		for _, a := range s.Node.Attrs {
-			gs := a.Graphs
-			if a.G != nil {
-				gs = append(gs, a.G)
-			}
-			for _, g := range gs {
-				for _, name := range freeNames(g) {
-					readers[name] = append(readers[name], -1) // a subgraph read: never fused
-				}
+		for _, g := range subgraphs(s.Node) {
+			for _, name := range freeNames(g) {
+				readers[name] = append(readers[name], -1) // a subgraph read: never fused
 			}
 		}
 	}

@@ -57,15 +57,7 @@ func fuseTestModel(t *testing.T, r *rand.Rand) *loader.Model {
 	b.Node("Relu", "relu_out", []string{"c6"}, []string{"y"})
 	b.Output("y")
 	b.Output("c6")
-	data, err := b.Bytes()
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	return m
+	return BuiltModel(t, b)
 }
 
 type hookRecord struct {

@@ -454,13 +454,7 @@ func convTransposeRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	if _, err := tensor.NumElements(outShape); err != nil {
 		return err
 	}
-	isF32 := x.DType == tensor.Float32 && !convUseReference
-	var out *tensor.Tensor
-	if isF32 {
-		out = tensor.NewUninit(x.DType, outShape) // convFastF32 writes every element
-	} else {
-		out = tensor.New(x.DType, outShape)
-	}
+	out := tensor.New(x.DType, outShape) // zeroed: col2im adds into it
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
 	K, P, inSize := 1, 1, 1
 	for i := 0; i < nd; i++ {

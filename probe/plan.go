@@ -131,11 +131,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 			}
 			// Subgraphs see every value of this graph and of the outer scopes.
 			for _, a := range n.Attrs {
-				gs := a.Graphs
-				if a.G != nil {
-					gs = append(gs, a.G)
-				}
-				for _, sg := range gs {
+				for _, sg := range attrGraphs(a) {
 					scope := map[string]bool{}
 					for k := range known {
 						scope[k] = true
@@ -243,16 +239,10 @@ func (p *Plan) computeRelease() {
 			}
 		}
 		// values read by subgraphs stay alive until this step ends
-		for _, a := range s.Node.Attrs {
-			gs := a.Graphs
-			if a.G != nil {
-				gs = append(gs, a.G)
-			}
-			for _, g := range gs {
-				for _, name := range freeNames(g) {
-					if _, ok := producedAt[name]; ok {
-						last[name] = max(last[name], i)
-					}
+		for _, g := range subgraphs(s.Node) {
+			for _, name := range freeNames(g) {
+				if _, ok := producedAt[name]; ok {
+					last[name] = max(last[name], i)
 				}
 			}
 		}
@@ -291,16 +281,10 @@ func freeNames(g *loader.Graph) []string {
 				out = append(out, in)
 			}
 		}
-		for _, a := range n.Attrs {
-			gs := a.Graphs
-			if a.G != nil {
-				gs = append(gs, a.G)
-			}
-			for _, sg := range gs {
-				for _, name := range freeNames(sg) {
-					if !local[name] {
-						out = append(out, name)
-					}
+		for _, sg := range subgraphs(n) {
+			for _, name := range freeNames(sg) {
+				if !local[name] {
+					out = append(out, name)
 				}
 			}
 		}
@@ -549,4 +533,23 @@ func (h *intHeap) Pop() any {
 	x := old[len(old)-1]
 	*h = old[:len(old)-1]
 	return x
+}
+
+// subgraphs lists a node's graph attributes (If's branches, Loop's and
+// Scan's bodies), in attribute order, in a slice of its own.
+func subgraphs(n *loader.Node) []*loader.Graph {
+	var gs []*loader.Graph
+	for _, a := range n.Attrs {
+		gs = append(gs, attrGraphs(a)...)
+	}
+	return gs
+}
+
+// attrGraphs lists one attribute's graphs (Graphs, then G) in a slice of its own.
+func attrGraphs(a *loader.Attr) []*loader.Graph {
+	gs := append([]*loader.Graph{}, a.Graphs...)
+	if a.G != nil {
+		gs = append(gs, a.G)
+	}
+	return gs
 }
