@@ -7,19 +7,19 @@ import (
 	"vitals/tensor"
 )
 
-// Float32 convolution fast paths:
+// Float32 convolution fast paths, W packed once per initializer:
 //
-//   - channel-wise (depthwise) convolutions, one input channel per output
-//     channel group (Cg == 1), 2-D: a direct kernel over output planes in
-//     conv_dw_f32.go; no GEMM (the work is memory bound);
-//   - everything else: per image and group, C = W·cols on vitals/gemm, with
-//     W packed once per initializer, the columns read straight from X for
-//     1×1 stride-1 unpadded kernels and otherwise built by im2col (2-D:
-//     row copies; other ranks: convWalk) in a pooled buffer, split across
-//     cores by channel.
+//   - channel-wise (depthwise) 2-D convolutions (Cg == 1): a direct kernel
+//     over output planes in conv_dw_f32.go; no GEMM (the work is memory bound);
+//   - 1×1, unit-stride, unpadded convolutions of large planes (any rank):
+//     C = W·X with X read in place as the column matrix (convDirect), whole
+//     images per core;
+//   - other 2-D convolutions: implicit GEMM (conv_implicit_f32.go);
+//   - other ranks: per image and group, C = W·cols with the columns built by
+//     im2col (convWalk) in a scratch buffer, split across cores by channel.
 //
-// The bias is written into Y before the product, which then accumulates
-// (beta = 1), so no separate bias pass runs.
+// Where a bias is not folded into the product, it is written into Y first
+// and the product accumulates onto it (beta = 1): no separate bias pass.
 
 // convFastColBudget bounds the im2col block of one product (elements).
 const convFastColBudget = 1 << 20
@@ -170,11 +170,7 @@ func convIm2col(cols, img []float32, channels int, g *convGeom, seg0, segs int) 
 	parFor(channels, minCh, func(c0, c1 int) {
 		dst := cols[c0*K*rowLen : c1*K*rowLen]
 		src := img[c0*imgSize : c1*imgSize]
-		if len(g.in) == 2 {
-			im2col2D(dst, src, c1-c0, g, seg0, segs)
-		} else {
-			convWalk(dst, src, c1-c0, g, g.in, g.out, false, seg0, segs)
-		}
+		convWalk(dst, src, c1-c0, g, g.in, g.out, false, seg0, segs)
 	})
 }
 
@@ -192,50 +188,4 @@ func convValidRange(n, s, off, size int) (lo, hi int) {
 	hi = min(n, (size-off+s-1)/s)
 	lo = min(lo, hi)
 	return lo, hi
-}
-
-// im2col2D is convWalk for 2-D images without scatter, by whole rows: the
-// column row of tap (kh, kw) holds, for output rows oh0.., the input row
-// oh·sh − pt + kh·dh sampled at ow·sw − pl + kw·dw (zero outside).
-func im2col2D(cols, img []float32, channels int, g *convGeom, oh0, rows int) {
-	H, W := g.in[0], g.in[1]
-	KH, KW := g.k[0], g.k[1]
-	OW := g.out[1]
-	sh, sw := g.strides[0], g.strides[1]
-	dh, dw := g.dil[0], g.dil[1]
-	pt, pl := g.padBeg[0], g.padBeg[1]
-	rowLen := rows * OW
-	r := 0
-	for ch := 0; ch < channels; ch++ {
-		im := img[ch*H*W : (ch+1)*H*W]
-		for kh := 0; kh < KH; kh++ {
-			for kw := 0; kw < KW; kw++ {
-				dst := cols[r*rowLen : (r+1)*rowLen]
-				r++
-				off := kw*dw - pl
-				lo, hi := convValidRange(OW, sw, off, W)
-				for i := 0; i < rows; i++ {
-					d := dst[i*OW : (i+1)*OW]
-					ih := (oh0+i)*sh - pt + kh*dh
-					if ih < 0 || ih >= H || lo >= hi {
-						clear(d)
-						continue
-					}
-					clear(d[:lo])
-					clear(d[hi:])
-					src := im[ih*W : (ih+1)*W]
-					if sw == 1 {
-						copy(d[lo:hi], src[lo+off:hi+off])
-						continue
-					}
-					p := lo*sw + off
-					dd := d[lo:hi]
-					for j := range dd {
-						dd[j] = src[p]
-						p += sw
-					}
-				}
-			}
-		}
-	}
 }

@@ -17,7 +17,8 @@ import (
 // written and read back. Small output planes (P < convBatchMinP, e.g. the
 // 14×14 and 7×7 stages of a residual network, where one image's P columns
 // would fill the last NR-wide panel poorly) put all images of the batch
-// side by side in one product and scatter the result into Y.
+// side by side in one product and scatter the result into Y; larger planes
+// run whole images per core, each image's product on one core.
 
 // convBatchMinP is the output plane size (OH·OW) from which each image gets
 // its own product instead of sharing one with the rest of the batch.
