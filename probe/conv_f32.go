@@ -33,8 +33,8 @@ type convF32Args struct {
 	inSize         int
 	g              *convGeom
 	direct         bool
-	// act, if set, is a fused activation: paths that support it (the
-	// implicit GEMM) also write act(Y) into actOut, block by block
+	// act, if set, is a fused activation: the paths that support it (the
+	// implicit GEMM, convDirect) also write act(Y) into actOut, block by block
 	act    func(dst, src []float32)
 	actOut []float32
 }
@@ -51,13 +51,7 @@ func convFastF32(a *convF32Args) {
 	// convDirect place it themselves)
 	if a.bd != nil && !implicit && !a.direct {
 		for n := 0; n < a.N; n++ {
-			for m := 0; m < a.M; m++ {
-				seg := a.yd[(n*a.M+m)*a.P : (n*a.M+m+1)*a.P]
-				bv := a.bd[m]
-				for i := range seg {
-					seg[i] = bv
-				}
-			}
+			fillRows(a.yd[n*a.M*a.P:], a.P, a.bd)
 		}
 	}
 	beta := float32(0)
@@ -116,9 +110,7 @@ func convDirect(a *convF32Args, packs []*gemm.PackedA, beta float32) {
 				o := (n*a.M + gi*a.Mg) * a.P
 				yg := a.yd[o : o+a.Mg*a.P]
 				if beta != 0 {
-					for m := 0; m < a.Mg; m++ {
-						fillF32(yg[m*a.P:(m+1)*a.P], a.bd[gi*a.Mg+m])
-					}
+					fillRows(yg, a.P, a.bd[gi*a.Mg:(gi+1)*a.Mg])
 				}
 				ld := max(a.P, 1)
 				switch {

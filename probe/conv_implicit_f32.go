@@ -199,6 +199,11 @@ func convImplicit2D(a *convF32Args) {
 	if a.P < convBatchMinP {
 		imgs = max(1, min(a.N, convBatchScratch/max(1, a.Mg*a.P)))
 	}
+	if imgs == 1 && packs != nil && a.N >= 2 {
+		// whole images per core: no hand-off per product
+		convImagesParallel(a, q, packs, beta)
+		return
+	}
 	var scratch *[]float32
 	if imgs > 1 {
 		scratch = getF32(a.Mg * imgs * a.P)
@@ -213,22 +218,15 @@ func convImplicit2D(a *convF32Args) {
 		}
 		gemm.SgemmFunc(false, a.Mg, ncols, kg, 1, a.wd[gi*a.Mg*kg:], max(kg, 1), q.pack, beta, c, ldc)
 	}
-	if imgs == 1 && packs != nil && a.N >= 2 {
-		// whole images per core: no hand-off per product
-		convImagesParallel(a, q, packs, beta)
-		return
-	}
 	for n0 := 0; n0 < a.N; n0 += imgs {
 		nb := min(imgs, a.N-n0)
 		q.padImages(*padded, a.xd[n0*a.C*a.inSize:], nb, a.C, g)
 		for gi := 0; gi < a.group; gi++ {
-			q.xp = (*padded)[gi*a.Cg*q.sh*q.sw*q.Hq*q.Wq:]
+			q.xp = q.groupPlanes(*padded, gi, a.Cg)
 			if imgs == 1 {
 				y := a.yd[(n0*a.M+gi*a.Mg)*a.P : (n0*a.M+(gi+1)*a.Mg)*a.P]
 				if beta != 0 {
-					for m := 0; m < a.Mg; m++ {
-						fillF32(y[m*a.P:(m+1)*a.P], a.bd[gi*a.Mg+m])
-					}
+					fillRows(y, a.P, a.bd[gi*a.Mg:(gi+1)*a.Mg])
 				}
 				product(gi, a.P, y, a.P)
 				if a.act != nil {
@@ -241,9 +239,7 @@ func convImplicit2D(a *convF32Args) {
 			cs := (*scratch)[:a.Mg*nb*a.P]
 			ld := nb * a.P
 			if beta != 0 {
-				for m := 0; m < a.Mg; m++ {
-					fillF32(cs[m*ld:(m+1)*ld], a.bd[gi*a.Mg+m])
-				}
+				fillRows(cs, ld, a.bd[gi*a.Mg:(gi+1)*a.Mg])
 			}
 			product(gi, ld, cs, ld)
 			// scatter rows to Y (and the fused activation, on rows in cache)
@@ -277,13 +273,11 @@ func convImagesParallel(a *convF32Args, q0 *im2colPanels, packs []*gemm.PackedA,
 		for n := n0; n < n1; n++ {
 			q.padRange(*padded, a.xd[n*a.C*a.inSize:], 0, a.C, g)
 			for gi := 0; gi < a.group; gi++ {
-				q.xp = (*padded)[gi*a.Cg*q.sh*q.sw*q.Hq*q.Wq:]
+				q.xp = q.groupPlanes(*padded, gi, a.Cg)
 				o := (n*a.M + gi*a.Mg) * a.P
 				y := a.yd[o : o+a.Mg*a.P]
 				if beta != 0 {
-					for m := 0; m < a.Mg; m++ {
-						fillF32(y[m*a.P:(m+1)*a.P], a.bd[gi*a.Mg+m])
-					}
+					fillRows(y, a.P, a.bd[gi*a.Mg:(gi+1)*a.Mg])
 				}
 				gemm.SgemmPackedAFuncSerial(a.P, 1, packs[gi], q.pack, beta, y, a.P)
 				if a.act != nil {
@@ -292,6 +286,20 @@ func convImagesParallel(a *convF32Args, q0 *im2colPanels, packs []*gemm.PackedA,
 			}
 		}
 	})
+}
+
+// groupPlanes is the part of padded images (padImages' layout) that starts
+// at group gi's first channel (groups of Cg channels).
+func (q *im2colPanels) groupPlanes(padded []float32, gi, Cg int) []float32 {
+	return padded[gi*Cg*q.sh*q.sw*q.Hq*q.Wq:]
+}
+
+// fillRows sets row m of c (rows of ld elements) to v[m], for every m of v:
+// a bias written ahead of a product that accumulates onto it.
+func fillRows(c []float32, ld int, v []float32) {
+	for m, b := range v {
+		fillF32(c[m*ld:(m+1)*ld], b)
+	}
 }
 
 // fillF32 sets every element of s to v.
