@@ -25,6 +25,19 @@ func reluF32(dst, src []float32) {
 	clipF32(dst, src, 0, float32(math.Inf(1)))
 }
 
+// leakyReluF32 is y = x for x >= 0, alpha·x otherwise (NaN stays NaN). The
+// float32 product equals the float64 one of the same values rounded to
+// float32 (the float64 product of two float32 values is exact).
+func leakyReluF32(dst, src []float32, alpha float32) {
+	dst = dst[:len(src)]
+	for i, v := range src {
+		if v < 0 {
+			v = alpha * v
+		}
+		dst[i] = v
+	}
+}
+
 // clipF32 is min(max(x, lo), hi); NaN stays NaN (bounds must not be NaN).
 // On amd64 it runs as AVX min/max (clip_amd64.s): the scalar comparisons
 // mispredict on data that crosses the bounds at random.

@@ -321,6 +321,13 @@ func TestUnaryF32FastMatchesScalar(t *testing.T) {
 	check("sigmoid", sigmoidF32, elemVia64(elemSigmoid))
 	check("tanh", tanhF32, elemVia64(math.Tanh))
 	check("erf", erfF32, elemVia64(math.Erf))
+	alpha := float32(0.1)
+	check("leakyrelu", func(d, s []float32) { leakyReluF32(d, s, alpha) }, elemVia64(func(x float64) float64 {
+		if x < 0 {
+			return float64(alpha) * x
+		}
+		return x
+	}))
 }
 
 // The float32 MaxPool paths (separable 2-D, and the window-table one for

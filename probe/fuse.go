@@ -76,19 +76,6 @@ func fuseClip(c *Call) (func(dst, src []float32), bool) {
 	return func(dst, src []float32) { clipF32(dst, src, l, h) }, true
 }
 
-// leakyReluF32 is y = x for x >= 0, alpha·x otherwise (NaN stays NaN). The
-// float32 product equals elemLeakyRelu's float64 one rounded to float32: the
-// float64 product of two float32 values is exact.
-func leakyReluF32(dst, src []float32, alpha float32) {
-	dst = dst[:len(src)]
-	for i, v := range src {
-		if v < 0 {
-			v = alpha * v
-		}
-		dst[i] = v
-	}
-}
-
 // markFusions links each fusable producer step to the activation step that
 // alone reads its output 0 (Step.fuseWith, −1 when none). The activation's
 // other inputs must be known when the producer runs: initializers, graph or
@@ -96,15 +83,7 @@ func leakyReluF32(dst, src []float32, alpha float32) {
 // steps (exporters put Clip's bounds as Constant nodes between the Conv and
 // the Clip), which fuseFor evaluates ahead of their step.
 func (p *Plan) markFusions() {
-	producedAt := map[string]int{}
-	p.producedAt = producedAt
-	for i, s := range p.Steps {
-		for _, o := range s.Node.Outputs {
-			if o != "" {
-				producedAt[o] = i
-			}
-		}
-	}
+	producedAt := p.producedAt
 	readers := map[string][]int{} // value -> reading steps, once per read
 	for i, s := range p.Steps {
 		for _, in := range s.Node.Inputs {

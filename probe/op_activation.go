@@ -65,14 +65,17 @@ func elemRelu(c *Call) error {
 }
 
 // LeakyRelu: y = x for x >= 0, alpha*x otherwise (alpha default 0.01).
+// float32 inputs go through leakyReluF32, the function a fused Conv applies
+// too (fuse.go).
 func elemLeakyRelu(c *Call) error {
-	a := float64(c.Float("alpha", 0.01))
-	return elemFloatMap(c, func(x float64) float64 {
+	alpha := c.Float("alpha", 0.01)
+	a := float64(alpha)
+	return unaryF32Kernel(func(x float64) float64 {
 		if x < 0 {
 			return a * x
 		}
 		return x
-	})
+	}, func(dst, src []float32) { leakyReluF32(dst, src, alpha) })(c)
 }
 
 // Elu: y = x for x >= 0, alpha*(e^x - 1) otherwise (alpha default 1).

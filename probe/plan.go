@@ -30,7 +30,7 @@ type Plan struct {
 	// consts holds the initializer tensors: a kernel input that is one of
 	// them (directly or passed on by Identity) is immutable for the plan's life.
 	consts map[*tensor.Tensor]bool
-	// producedAt maps each value to the step producing it (fuse.go).
+	// producedAt maps each value to the step producing it.
 	producedAt map[string]int
 	// Debug keeps Go stack traces in kernel panic errors.
 	Debug bool
@@ -197,6 +197,14 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 			return nil, fmt.Errorf("graph output %q is produced by no node", o.Name)
 		}
 	}
+	p.producedAt = map[string]int{}
+	for i, s := range p.Steps {
+		for _, o := range s.Node.Outputs {
+			if o != "" {
+				p.producedAt[o] = i
+			}
+		}
+	}
 	p.computeRelease()
 	p.markFusions()
 	return p, nil
@@ -224,13 +232,10 @@ func (p *Plan) computeRelease() {
 	for _, o := range p.Graph.Outputs {
 		keep[o.Name] = true
 	}
+	producedAt := p.producedAt
 	last := map[string]int{}
-	producedAt := map[string]int{}
-	for i, s := range p.Steps {
-		for _, o := range s.Node.Outputs {
-			producedAt[o] = i
-			last[o] = i
-		}
+	for v, i := range producedAt {
+		last[v] = i
 	}
 	for i, s := range p.Steps {
 		for _, in := range s.Node.Inputs {
