@@ -71,11 +71,14 @@ func spanOf(t *Tensor) (span, bool) {
 	return span{lo, lo + uintptr(4*len(d))}, true
 }
 
+// overlaps reports whether two address ranges share a byte.
+func (a span) overlaps(b span) bool { return a.lo < b.hi && b.lo < a.hi }
+
 // Overlap reports whether two float32 tensors share storage.
 func Overlap(a, b *Tensor) bool {
 	x, okA := spanOf(a)
 	y, okB := spanOf(b)
-	return okA && okB && x.lo < y.hi && y.lo < x.hi
+	return okA && okB && x.overlaps(y)
 }
 
 // Recycle takes back the released tensors' buffers that are safe to reuse
@@ -111,7 +114,6 @@ func (p *Pool) Recycle(released, keep []*Tensor) {
 		seen[s.lo] = len(cands)
 		cands = append(cands, cand{s, d})
 	}
-	overlaps := func(a, b span) bool { return a.lo < b.hi && b.lo < a.hi }
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	for i, c := range cands {
@@ -120,13 +122,13 @@ func (p *Pool) Recycle(released, keep []*Tensor) {
 		}
 		ok := true
 		for _, k := range kept {
-			if overlaps(c.s, k) {
+			if c.s.overlaps(k) {
 				ok = false
 				break
 			}
 		}
 		for j, o := range cands {
-			if ok && j != i && o.s != c.s && overlaps(c.s, o.s) {
+			if ok && j != i && o.s != c.s && c.s.overlaps(o.s) {
 				ok = false
 			}
 		}
