@@ -314,12 +314,7 @@ func ensureWorkers(n int) {
 // worker) is not worth the hand-off (~ a 64×64×64 product).
 const minWorkPerThread = 1 << 18
 
-// run splits C into one range per worker and computes it.
-func run(kern *kernel, m, n, k int, alpha float32, A, B operand, beta float32, c []float32, ldc int) {
-	runOn(Threads(), kern, m, n, k, alpha, A, B, beta, c, ldc)
-}
-
-// runOn is run on at most w workers.
+// runOn splits C into one range per worker (at most w) and computes it.
 func runOn(w int, kern *kernel, m, n, k int, alpha float32, A, B operand, beta float32, c []float32, ldc int) {
 	mt := (m + kern.mr - 1) / kern.mr // row tiles
 	nt := (n + kern.nr - 1) / kern.nr // column tiles

@@ -100,13 +100,19 @@ func sgemmOn(workers int, transA, transB bool, m, n, k int, alpha float32, a []f
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
 	checkOperand("B", transB, k, n, b, ldb)
-	if trivial(m, n, k, alpha, beta, c, ldc) {
-		return
-	}
-	runOn(workers, active.Load(), m, n, k, alpha,
+	multiply(workers, active.Load(), m, n, k, alpha,
 		operand{data: a, ld: lda, trans: transA},
 		operand{data: b, ld: ldb, trans: transB},
 		beta, c, ldc)
+}
+
+// multiply finishes a product with nothing to multiply (see trivial) and
+// runs any other on at most workers goroutines; the caller has checked the
+// arguments.
+func multiply(workers int, kern *kernel, m, n, k int, alpha float32, A, B operand, beta float32, c []float32, ldc int) {
+	if !trivial(m, n, k, alpha, beta, c, ldc) {
+		runOn(workers, kern, m, n, k, alpha, A, B, beta, c, ldc)
+	}
 }
 
 // trivial finishes the products with nothing to multiply (m or n is 0:
@@ -192,13 +198,12 @@ func sgemmPackedAOn(workers, n int, alpha float32, pa *PackedA, transB bool, b [
 	m, k := pa.m, pa.k
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("B", transB, k, n, b, ldb)
-	if trivial(m, n, k, alpha, beta, c, ldc) {
-		return
-	}
-	runOn(workers, pa.kern, m, n, k, alpha,
-		operand{packed: pa.data, padded: roundUp(m, pa.kern.mr)},
-		operand{data: b, ld: ldb, trans: transB},
-		beta, c, ldc)
+	multiply(workers, pa.kern, m, n, k, alpha, pa.operand(), operand{data: b, ld: ldb, trans: transB}, beta, c, ldc)
+}
+
+// SgemmPackedASerial is SgemmPackedA on the calling goroutine only.
+func SgemmPackedASerial(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	sgemmPackedAOn(1, n, alpha, pa, transB, b, ldb, beta, c, ldc)
 }
 
 // PackBFunc writes op(B)[p0:p0+kc, j0:j0+cols] into dst as nr-wide
@@ -226,31 +231,14 @@ func SgemmPackedAFuncSerial(n int, alpha float32, pa *PackedA, pack PackBFunc, b
 func sgemmPackedAFuncOn(workers, n int, alpha float32, pa *PackedA, pack PackBFunc, beta float32, c []float32, ldc int) {
 	m, k := pa.m, pa.k
 	checkDims(m, n, k, ldc, len(c))
-	if trivial(m, n, k, alpha, beta, c, ldc) {
-		return
-	}
-	runOn(workers, pa.kern, m, n, k, alpha,
-		operand{packed: pa.data, padded: roundUp(m, pa.kern.mr)},
-		operand{pack: pack},
-		beta, c, ldc)
+	multiply(workers, pa.kern, m, n, k, alpha, pa.operand(), operand{pack: pack}, beta, c, ldc)
 }
 
 // SgemmFunc is Sgemm with B (k×n) written on demand by pack (see PackBFunc).
 func SgemmFunc(transA bool, m, n, k int, alpha float32, a []float32, lda int, pack PackBFunc, beta float32, c []float32, ldc int) {
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
-	if trivial(m, n, k, alpha, beta, c, ldc) {
-		return
-	}
-	run(active.Load(), m, n, k, alpha,
-		operand{data: a, ld: lda, trans: transA},
-		operand{pack: pack},
-		beta, c, ldc)
-}
-
-// SgemmPackedASerial is SgemmPackedA on the calling goroutine only.
-func SgemmPackedASerial(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
-	sgemmPackedAOn(1, n, alpha, pa, transB, b, ldb, beta, c, ldc)
+	multiply(Threads(), active.Load(), m, n, k, alpha, operand{data: a, ld: lda, trans: transA}, operand{pack: pack}, beta, c, ldc)
 }
 
 // SgemmPackedB computes C = alpha·op(A)·B + beta·C with B packed by PackB
@@ -259,13 +247,17 @@ func SgemmPackedB(transA bool, m int, alpha float32, a []float32, lda int, pb *P
 	k, n := pb.k, pb.n
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
-	if trivial(m, n, k, alpha, beta, c, ldc) {
-		return
-	}
-	run(pb.kern, m, n, k, alpha,
-		operand{data: a, ld: lda, trans: transA},
-		operand{packed: pb.data, padded: roundUp(n, pb.kern.nr)},
-		beta, c, ldc)
+	multiply(Threads(), pb.kern, m, n, k, alpha, operand{data: a, ld: lda, trans: transA}, pb.operand(), beta, c, ldc)
+}
+
+// operand is pa as the left operand of a product.
+func (pa *PackedA) operand() operand {
+	return operand{packed: pa.data, padded: roundUp(pa.m, pa.kern.mr)}
+}
+
+// operand is pb as the right operand of a product.
+func (pb *PackedB) operand() operand {
+	return operand{packed: pb.data, padded: roundUp(pb.n, pb.kern.nr)}
 }
 
 func roundUp(x, m int) int { return (x + m - 1) / m * m }
