@@ -3,6 +3,8 @@ package gemm
 import (
 	"sync"
 	"unsafe"
+
+	"vitals/internal/pages"
 )
 
 // operand is op(A) or op(B): either a row-major matrix (data, ld, trans) or,
@@ -143,7 +145,7 @@ func putBuffers(bf *buffers) {
 // aligned returns a zeroed slice of n floats whose first element is 64-byte
 // aligned (one cache line, one zmm register).
 func aligned(n int) []float32 {
-	s := make([]float32, n+16)
+	s := pages.Float32s(n + 16)
 	off := int(uintptr(unsafe.Pointer(&s[0]))&63) / 4
 	if off != 0 {
 		off = 16 - off

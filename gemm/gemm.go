@@ -38,6 +38,8 @@ package gemm
 import (
 	"runtime"
 	"sync/atomic"
+
+	"vitals/internal/pages"
 )
 
 var (
@@ -160,7 +162,7 @@ func PackA(transA bool, m, k int, a []float32, lda int) *PackedA {
 	checkOperand("A", transA, m, k, a, lda)
 	kern := active.Load()
 	mp := roundUp(m, kern.mr)
-	p := &PackedA{kern: kern, m: m, k: k, data: make([]float32, mp*k)}
+	p := &PackedA{kern: kern, m: m, k: k, data: pages.Float32s(mp * k)}
 	src := operand{data: a, ld: lda, trans: transA}
 	kc := kern.kcFor(k)
 	for pc := 0; pc < k; pc += kc {
@@ -178,7 +180,7 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 	checkOperand("B", transB, k, n, b, ldb)
 	kern := active.Load()
 	np := roundUp(n, kern.nr)
-	p := &PackedB{kern: kern, k: k, n: n, data: make([]float32, np*k)}
+	p := &PackedB{kern: kern, k: k, n: n, data: pages.Float32s(np * k)}
 	src := operand{data: b, ld: ldb, trans: transB}
 	kc := kern.kcFor(k)
 	for pc := 0; pc < k; pc += kc {

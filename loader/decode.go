@@ -35,7 +35,8 @@ func LoadModel(path string) (*Model, error) {
 		return nil, fmt.Errorf("loading model %q: %d bytes is over the protobuf 2 GiB limit; ONNX keeps weights of such models in external data files", path, fi.Size())
 	}
 	var m *Model
-	// DecodeModel keeps no reference to the bytes (the protobuf decoder copies)
+	// DecodeModel keeps no reference to the bytes (the weights are copied by
+	// placeRawData, the rest by the protobuf decoder)
 	err = withFileBytes(path, func(b []byte) (err error) {
 		m, err = DecodeModel(b, filepath.Dir(path))
 		return err
@@ -50,8 +51,15 @@ func LoadModel(path string) (*Model, error) {
 // DecodeModel decodes a serialized ModelProto; dir is the folder external data is read from ("" forbids external data).
 func DecodeModel(b []byte, dir string) (*Model, error) {
 	var mp onnxpb.ModelProto
-	if err := proto.Unmarshal(b, &mp); err != nil {
+	stripped, raws, split := splitRawData(b)
+	if !split {
+		stripped = b
+	}
+	if err := proto.Unmarshal(stripped, &mp); err != nil {
 		return nil, fmt.Errorf("not an ONNX model (protobuf decode failed): %w", err)
+	}
+	if split {
+		placeRawData(mp.Graph, raws)
 	}
 	if mp.Graph == nil {
 		return nil, errors.New("not an ONNX model: no graph")

@@ -7,6 +7,7 @@ import (
 	"weak"
 
 	"vitals/gemm"
+	"vitals/internal/pages"
 	"vitals/tensor"
 )
 
@@ -179,7 +180,7 @@ func getF32(n int) *[]float32 {
 		return p
 	}
 	scratch.mu.Unlock()
-	s := make([]float32, n)
+	s := pages.Float32s(n)
 	return &s
 }
 

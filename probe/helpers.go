@@ -162,7 +162,34 @@ func expandT[T any](out []T, src []T, srcShape, outShape []int) {
 	if len(out) == 0 {
 		return // src may be empty too (found by FuzzGraph: Gemm with an empty C)
 	}
+	if isTrailingBlock(srcShape, outShape) {
+		// src is a whole trailing block of out (a Gemm bias row, say): tile it
+		for o := 0; o < len(out); o += len(src) {
+			copy(out[o:o+len(src)], src)
+		}
+		return
+	}
 	binaryLoop(out, outShape, src, srcShape, src[:1], []int{1}, func(x, _ T) T { return x })
+}
+
+// isTrailingBlock reports whether srcShape, leading 1s dropped, is a
+// nonempty suffix of outShape, so that out is src repeated whole.
+func isTrailingBlock(srcShape, outShape []int) bool {
+	i := 0
+	for i < len(srcShape) && srcShape[i] == 1 {
+		i++
+	}
+	rest := srcShape[i:]
+	if len(rest) > len(outShape) {
+		return false
+	}
+	tail := outShape[len(outShape)-len(rest):]
+	for k := range rest {
+		if rest[k] != tail[k] {
+			return false
+		}
+	}
+	return true
 }
 
 // NormAxis maps a possibly negative axis into [0, rank).

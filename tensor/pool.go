@@ -4,6 +4,8 @@ import (
 	"sync"
 	"sync/atomic"
 	"unsafe"
+
+	"vitals/internal/pages"
 )
 
 // Pool recycles large float32 buffers from one batch to the next, so a long
@@ -50,7 +52,7 @@ func (p *Pool) get(n int, uninit bool) []float32 {
 	}
 	p.mu.Unlock()
 	if b == nil {
-		b = make([]float32, n)
+		b = pages.Float32s(n)
 	} else if !uninit {
 		clear(b)
 	}

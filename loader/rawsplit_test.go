@@ -1,0 +1,64 @@
+package loader
+
+import (
+	"os"
+	"path/filepath"
+	"testing"
+	"unsafe"
+
+	"google.golang.org/protobuf/proto"
+
+	"vitals/loader/onnxpb"
+)
+
+// splitRawData + placeRawData must decode to exactly the message the
+// protobuf decoder gives for the whole file. Models: the ONNX project's
+// published test models (../shared/onnx-conformance, the light model zoo
+// and a sample of node tests) and the reference models under testdata/ref.
+func TestSplitRawDataDecodesAsProtobuf(t *testing.T) {
+	var files []string
+	for _, pat := range []string{"../../shared/onnx-conformance/light/*.onnx", "../../shared/onnx-conformance/node/test_conv*/model.onnx", "../testdata/ref/*.onnx"} {
+		m, _ := filepath.Glob(pat)
+		files = append(files, m...)
+	}
+	if len(files) < 20 {
+		t.Fatalf("found %d models; want the conformance data beside the project", len(files))
+	}
+	for _, f := range files {
+		b, err := os.ReadFile(f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var whole, parts onnxpb.ModelProto
+		if err := proto.Unmarshal(b, &whole); err != nil {
+			t.Fatalf("%s: %v", f, err)
+		}
+		stripped, raws, ok := splitRawData(b)
+		if !ok {
+			t.Fatalf("%s: splitRawData failed on a valid model", f)
+		}
+		if err := proto.Unmarshal(stripped, &parts); err != nil {
+			t.Fatalf("%s: stripped model does not decode: %v", f, err)
+		}
+		placeRawData(parts.Graph, raws)
+		if !proto.Equal(&whole, &parts) {
+			t.Errorf("%s: split decode differs from the protobuf decoder's", f)
+		}
+		for i, init := range parts.Graph.GetInitializer() {
+			if r := init.RawData; len(r) > 0 && unsafePointer(r)%64 != 0 {
+				t.Errorf("%s: initializer %d raw data not 64-byte aligned", f, i)
+			}
+		}
+	}
+}
+
+// A malformed message is left to the protobuf decoder.
+func TestSplitRawDataMalformed(t *testing.T) {
+	for _, b := range [][]byte{{0x3a, 0x05, 0x2a}, {0xff}, {0x3a, 0x02, 0x2a, 0x7f}} {
+		if _, _, ok := splitRawData(b); ok {
+			t.Errorf("% x: split accepted malformed input", b)
+		}
+	}
+}
+
+func unsafePointer(b []byte) uintptr { return uintptr(unsafe.Pointer(&b[0])) }
