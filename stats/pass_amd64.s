@@ -11,8 +11,10 @@
 // the k-th nonzero value of a block increments table k mod 8. Zeros are
 // not counted here (chunkPass adds them to the bin of 0). The frame holds
 // the bins of one block of 64 groups (4096 bytes and 64 bytes of slack for
-// the last full-width store).
-TEXT ·passAVX512(SB), $4160-48
+// the last full-width store). Two such frames alternate: the increments of
+// one block's bins are interleaved with the vector work of the next (16 per
+// group), so the scalar increments and the vector arithmetic overlap.
+TEXT ·passAVX512(SB), $8320-48
 	MOVQ x_base+0(FP), SI
 	MOVQ x_len+8(FP), CX
 	MOVQ p+24(FP), DX
@@ -50,6 +52,10 @@ TEXT ·passAVX512(SB), $4160-48
 	VMOVDQU32 576(BX), Z9
 	CMPB 32(DX), $0
 	JNE  nohist
+	LEAQ 0(SP), R13              // frame of the block being read
+	LEAQ 4160(SP), R14           // frame of the block before it
+	MOVQ R14, R8                 // R8..R10: bins still to count (none yet)
+	MOVQ R14, R10
 
 block:
 	// a block of up to 64 groups: the bins of its nonzero values packed
@@ -59,7 +65,7 @@ block:
 	CMPQ CX, R11
 	CMOVQLT CX, R11              // R11 = groups in this block
 	SUBQ R11, CX
-	LEAQ 0(SP), R9
+	MOVQ R13, R9
 	MOVQ R11, R12
 
 loop:
@@ -105,13 +111,65 @@ loop:
 	POPCNTL AX, AX
 	LEAQ (R9)(AX*4), R9
 	ADDQ $64, SI
+	LEAQ 64(R8), AX              // 16 bins of the block before left?
+	CMPQ AX, R10
+	JA   nodrain
+	MOVL 0(R8), AX
+	INCL 0(DI)(AX*4)
+	MOVL 4(R8), AX
+	INCL 544(DI)(AX*4)
+	MOVL 8(R8), AX
+	INCL 1088(DI)(AX*4)
+	MOVL 12(R8), AX
+	INCL 1632(DI)(AX*4)
+	MOVL 16(R8), AX
+	INCL 2176(DI)(AX*4)
+	MOVL 20(R8), AX
+	INCL 2720(DI)(AX*4)
+	MOVL 24(R8), AX
+	INCL 3264(DI)(AX*4)
+	MOVL 28(R8), AX
+	INCL 3808(DI)(AX*4)
+	MOVL 32(R8), AX
+	INCL 0(DI)(AX*4)
+	MOVL 36(R8), AX
+	INCL 544(DI)(AX*4)
+	MOVL 40(R8), AX
+	INCL 1088(DI)(AX*4)
+	MOVL 44(R8), AX
+	INCL 1632(DI)(AX*4)
+	MOVL 48(R8), AX
+	INCL 2176(DI)(AX*4)
+	MOVL 52(R8), AX
+	INCL 2720(DI)(AX*4)
+	MOVL 56(R8), AX
+	INCL 3264(DI)(AX*4)
+	MOVL 60(R8), AX
+	INCL 3808(DI)(AX*4)
+	ADDQ $64, R8
+
+nodrain:
 	DECQ R12
 	JNZ  loop
 
-	LEAQ 0(SP), R8
-	MOVQ R9, R11
+drainrest:                           // the block before's last bins
+	CMPQ R8, R10
+	JAE  swap
+	MOVL 0(R8), AX
+	INCL 0(DI)(AX*4)
+	ADDQ $4, R8
+	JMP  drainrest
+
+swap:
+	MOVQ R13, R8                 // this block's bins, counted during the next
+	MOVQ R9, R10
+	XCHGQ R13, R14
+	TESTQ CX, CX
+	JNZ  block
+
+	MOVQ R10, R11                // the last block's bins
 	SUBQ R8, R11
-	SHRQ $2, R11                 // bins in the frame
+	SHRQ $2, R11
 	MOVQ R11, R12
 	SHRQ $3, R12                 // 8 per step
 	JZ   rest
@@ -149,8 +207,6 @@ rest1:
 	JNZ  rest1
 
 next:
-	TESTQ CX, CX
-	JNZ  block
 	JMP  store
 
 nohist:
