@@ -1,6 +1,8 @@
 package probe
 
 import (
+	"slices"
+
 	"vitals/gemm"
 )
 
@@ -127,6 +129,10 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 	P := q.OH * q.OW
 	runs := make([]colRun, 0, nr+1)
 	offs := q.rowOff[p0:min(p0+kc, len(q.rowOff))]
+	lo, hi := 0, 0
+	if len(offs) > 0 {
+		lo, hi = slices.Min(offs), slices.Max(offs)
+	}
 	for c0 := 0; c0 < cols; c0 += nr {
 		nv := min(nr, cols-c0)
 		panel := dst[c0*kc : c0*kc+nr*kc]
@@ -150,6 +156,9 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 			}
 		}
 		for _, r := range runs {
+			if packRun(panel, q.xp, offs, lo, hi, r.base, r.n, r.d, nr) {
+				continue
+			}
 			if r.n >= 16 {
 				for p, o := range offs {
 					copy(panel[p*nr+r.d:p*nr+r.d+r.n], q.xp[r.base+o:r.base+o+r.n])

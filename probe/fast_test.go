@@ -119,6 +119,17 @@ func TestConvFastMatchesReference(t *testing.T) {
 						t.Fatal(err)
 					}
 					closeF32(t, fmt.Sprintf("case %d %+v bias=%v const=%v", i, k, withBias, constW), c.Out[0].F32(), want, 1e-4)
+					if rep == 0 && havePackRun {
+						// the vector panel copy writes exactly what the Go copy does
+						havePackRun = false
+						g := fastCall("Conv", attrs, 11, names, map[string]bool{"W": constW, "B": constW}, in...)
+						err := convKernel(g)
+						havePackRun = true
+						if err != nil {
+							t.Fatal(err)
+						}
+						closeF32(t, fmt.Sprintf("case %d %+v bias=%v const=%v, Go panel copy", i, k, withBias, constW), g.Out[0].F32(), c.Out[0].F32(), 0)
+					}
 				}
 			}
 		}
