@@ -2,11 +2,13 @@
 // system call instead of one page fault per 4 KiB page on first write.
 //
 // On the virtual machines this was measured on, a page fault costs about
-// 13 µs, so writing 64 MiB of fresh memory page by page took 217 ms, while
-// mapping the same range first with madvise(MADV_POPULATE_WRITE) took
-// 12.5 ms (go test -bench . ./internal/pages). A check's first batch writes every node output
-// into fresh memory (416 MiB for a MobileNetV2-shaped model at batch 8), so
-// this is a measurable share of a run.
+// 13 µs: writing 64 MiB of fresh memory page by page took 229 ms, and
+// populating it first with madvise(MADV_POPULATE_WRITE), then writing it,
+// 128 ms (go test -bench . ./internal/pages; the first write to a populated
+// page still costs something there). A check's first batch writes every
+// node output into fresh memory (416 MiB for a MobileNetV2-shaped model at
+// batch 8), so this is a measurable share of a run. Transparent huge pages
+// (MADV_HUGEPAGE) made whole runs slower, not faster, and are not used.
 package pages
 
 import "unsafe"
