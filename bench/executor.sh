@@ -9,7 +9,8 @@
 # (d=256, 4 heads, ff=1024, 128 tokens). Input: seeded Gaussian items, 1,000
 # per model (8192 for the MLP, whose items take 0.2 ms each): the size of a
 # real check, over which the fixed start-up of `vitals check` (reading the
-# model, packing weights, first-touch page faults: about 1 s) is spread.
+# model, packing weights, the first batch with its first-touch page faults:
+# 0.2 s for the MLP to 0.8 s for mobilenet_v2 with 8 items) is spread.
 #
 # vitals: `vitals check MODEL --data X.npy --batch 8` over every item (every
 # statistics hook on; wall time of the whole command, model loading and the

@@ -1,4 +1,5 @@
 #include "textflag.h"
+#include "pass_count_amd64.h"
 
 // func passAVX512(x []float32, p *passParams, tabs *uint32, l *passLanes)
 //
@@ -114,38 +115,8 @@ loop:
 	LEAQ 64(R8), AX              // 16 bins of the block before left?
 	CMPQ AX, R10
 	JA   nodrain
-	MOVL 0(R8), AX
-	INCL 0(DI)(AX*4)
-	MOVL 4(R8), AX
-	INCL 544(DI)(AX*4)
-	MOVL 8(R8), AX
-	INCL 1088(DI)(AX*4)
-	MOVL 12(R8), AX
-	INCL 1632(DI)(AX*4)
-	MOVL 16(R8), AX
-	INCL 2176(DI)(AX*4)
-	MOVL 20(R8), AX
-	INCL 2720(DI)(AX*4)
-	MOVL 24(R8), AX
-	INCL 3264(DI)(AX*4)
-	MOVL 28(R8), AX
-	INCL 3808(DI)(AX*4)
-	MOVL 32(R8), AX
-	INCL 0(DI)(AX*4)
-	MOVL 36(R8), AX
-	INCL 544(DI)(AX*4)
-	MOVL 40(R8), AX
-	INCL 1088(DI)(AX*4)
-	MOVL 44(R8), AX
-	INCL 1632(DI)(AX*4)
-	MOVL 48(R8), AX
-	INCL 2176(DI)(AX*4)
-	MOVL 52(R8), AX
-	INCL 2720(DI)(AX*4)
-	MOVL 56(R8), AX
-	INCL 3264(DI)(AX*4)
-	MOVL 60(R8), AX
-	INCL 3808(DI)(AX*4)
+	COUNT8(0)
+	COUNT8(32)
 	ADDQ $64, R8
 
 nodrain:
@@ -175,22 +146,7 @@ swap:
 	JZ   rest
 
 count:
-	MOVL 0(R8), AX
-	INCL 0(DI)(AX*4)
-	MOVL 4(R8), AX
-	INCL 544(DI)(AX*4)
-	MOVL 8(R8), AX
-	INCL 1088(DI)(AX*4)
-	MOVL 12(R8), AX
-	INCL 1632(DI)(AX*4)
-	MOVL 16(R8), AX
-	INCL 2176(DI)(AX*4)
-	MOVL 20(R8), AX
-	INCL 2720(DI)(AX*4)
-	MOVL 24(R8), AX
-	INCL 3264(DI)(AX*4)
-	MOVL 28(R8), AX
-	INCL 3808(DI)(AX*4)
+	COUNT8(0)
 	ADDQ $32, R8
 	DECQ R12
 	JNZ  count

@@ -1,4 +1,5 @@
 #include "textflag.h"
+#include "pass_count_amd64.h"
 
 // func passAVX2(x []float32, p *passParams, tabs *uint32, l *passLanes)
 //
@@ -186,22 +187,7 @@ loop:
 	SHLQ $1, R11                 // 8 bins per step
 
 count:
-	MOVL 0(R8), AX
-	INCL 0(DI)(AX*4)
-	MOVL 4(R8), AX
-	INCL 544(DI)(AX*4)
-	MOVL 8(R8), AX
-	INCL 1088(DI)(AX*4)
-	MOVL 12(R8), AX
-	INCL 1632(DI)(AX*4)
-	MOVL 16(R8), AX
-	INCL 2176(DI)(AX*4)
-	MOVL 20(R8), AX
-	INCL 2720(DI)(AX*4)
-	MOVL 24(R8), AX
-	INCL 3264(DI)(AX*4)
-	MOVL 28(R8), AX
-	INCL 3808(DI)(AX*4)
+	COUNT8(0)
 	ADDQ $32, R8
 	DECQ R11
 	JNZ  count
