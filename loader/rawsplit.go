@@ -119,6 +119,10 @@ func placeRawData(g *onnxpb.GraphProto, raws [][]byte) {
 			continue
 		}
 		n := len(r)
+		if n == 0 {
+			g.Initializer[i].RawData = []byte{} // present but empty, as the decoder gives it
+			continue
+		}
 		g.Initializer[i].RawData = arena[:n:n]
 		copy(arena, r)
 		arena = arena[(n+63)&^63:]

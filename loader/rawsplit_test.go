@@ -62,3 +62,28 @@ func TestSplitRawDataMalformed(t *testing.T) {
 }
 
 func unsafePointer(b []byte) uintptr { return uintptr(unsafe.Pointer(&b[0])) }
+
+// An initializer whose raw_data is present but empty keeps a non-nil empty
+// slice, as the protobuf decoder gives it (an empty tensor [0, 5] from the
+// decoder fuzz seeds).
+func TestSplitRawDataEmptyRaw(t *testing.T) {
+	m := &onnxpb.ModelProto{Graph: &onnxpb.GraphProto{Initializer: []*onnxpb.TensorProto{
+		{Dims: []int64{0, 5}, DataType: proto.Int32(1), RawData: []byte{}},
+	}}}
+	b, err := proto.Marshal(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	stripped, raws, ok := splitRawData(b)
+	if !ok {
+		t.Fatal("split failed")
+	}
+	var got onnxpb.ModelProto
+	if err := proto.Unmarshal(stripped, &got); err != nil {
+		t.Fatal(err)
+	}
+	placeRawData(got.Graph, raws)
+	if r := got.Graph.Initializer[0].RawData; r == nil || len(r) != 0 {
+		t.Fatalf("raw data %v, want present and empty", r)
+	}
+}
