@@ -170,6 +170,9 @@ func (bf *buffers) ensure(kern *kernel) {
 func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, A, B operand, beta float32, c []float32, ldc int) {
 	mr, nr, kcMax, mcMax, ncMax := kern.mr, kern.nr, kern.kcFor(k), kern.mc, kern.nc
 	fn := kern.fn
+	if kern.fnStream != nil && m1-m0 <= kern.maxMStream {
+		fn = kern.fnStream
+	}
 	for jc := n0; jc < n1; jc += ncMax {
 		ncur := min(ncMax, n1-jc)
 		for pc := 0; pc < k; pc += kcMax {

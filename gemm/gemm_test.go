@@ -347,3 +347,36 @@ func TestPackFunc(t *testing.T) {
 		}
 	})
 }
+
+// The streaming variant (fnStream, used for products of at most maxMStream
+// rows per worker) differs from the plain micro-kernel only in its
+// prefetches: the results must be the same bits.
+func TestStreamKernelSameBits(t *testing.T) {
+	for _, k := range kernels {
+		if k.fnStream == nil {
+			continue
+		}
+		t.Run(k.name, func(t *testing.T) {
+			restore, _ := setKernel(k.name)
+			defer restore()
+			r := rand.New(rand.NewPCG(7, 8))
+			for _, s := range [][3]int{{8, 300, 700}, {3, 97, 1000}, {16, 1000, 64}} {
+				m, n, kk := s[0], s[1], s[2]
+				a, b := randSlice(r, m*kk), randSlice(r, kk*n)
+				pb := PackB(false, kk, n, b, n)
+				withStream := make([]float32, m*n)
+				SgemmPackedB(false, m, 1, a, kk, pb, 0, withStream, n)
+				saved := k.fnStream
+				k.fnStream = nil
+				plain := make([]float32, m*n)
+				SgemmPackedB(false, m, 1, a, kk, pb, 0, plain, n)
+				k.fnStream = saved
+				for i := range plain {
+					if math.Float32bits(plain[i]) != math.Float32bits(withStream[i]) {
+						t.Fatalf("%v: element %d = %g with the streaming kernel, %g without", s, i, withStream[i], plain[i])
+					}
+				}
+			}
+		})
+	}
+}

@@ -31,11 +31,13 @@ type spec struct {
 	reg        string // "Z" or "Y"
 	unroll     int
 	strided    bool // B read in place: NR floats per k step at row stride ldb
+	prefetchB  int  // if > 0: prefetch packed B this many bytes ahead (streaming from memory)
 }
 
 func main() {
 	gen(spec{file: "kernel_avx512_amd64.s", name: "sgemmKernelAVX512", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4})
 	gen(spec{file: "kernel_avx512s_amd64.s", name: "sgemmKernelAVX512S", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true})
+	gen(spec{file: "kernel_avx512p_amd64.s", name: "sgemmKernelAVX512P", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, prefetchB: 16384})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
 
@@ -117,6 +119,12 @@ func gen(s spec) {
 	p("\tJEQ tail")
 	p("loop:")
 	p("\tPREFETCHT0 %d(SI)", s.mr*4*s.unroll*4)
+	if s.prefetchB > 0 {
+		// one prefetch per cache line of B this iteration consumes
+		for o := 0; o < s.nr*4*s.unroll; o += 64 {
+			p("\tPREFETCHT0 %d(DI)", s.prefetchB+o)
+		}
+	}
 	for u := 0; u < s.unroll; u++ {
 		step(u)
 	}

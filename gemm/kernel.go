@@ -39,6 +39,13 @@ type kernel struct {
 	// cost for small m such as the 64-channel convolutions) is skipped.
 	fnStrided  stridedKernel
 	maxMDirect int
+	// fnStream, if set, is fn with software prefetch of packed B ahead of
+	// use, for calls whose worker has at most maxMStream rows of op(A): each
+	// B value is then used by so few rows that the product streams B from
+	// memory, where the hardware prefetcher alone fell short (a batch-8
+	// dense layer with cold weights: BenchmarkSgemmPackedBSmallM).
+	fnStream   microKernel
+	maxMStream int
 }
 
 // kcFor returns the k-slice depth used for a product of depth k: the k range
