@@ -435,9 +435,7 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	}
 	block := ch * inner
 	if inner == 1 {
-		for cc, b := range columnMoments(x, ch) {
-			acc[cc].Merge(b)
-		}
+		columnMomentsEach(x, ch, func(cc int, b Moments) { acc[cc].Merge(b) })
 		return acc
 	}
 	for cc := 0; cc < ch; cc++ {
@@ -450,55 +448,74 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	return acc
 }
 
-// columnMoments returns the moments of each column of x, a row-major
-// matrix with ch columns (tabular samples [N, F]), in one pass over the
-// rows: each column is summed about its first row's value as one chunk is
-// (Σd, Σd² in float64, see chunkPass), with its minimum, maximum and zeros.
-// A column holding a NaN or ±Inf is recomputed by AddFloat32.
-func columnMoments(x []float32, ch int) []Moments {
+// colAcc is one column's sums in columnMomentsEach, its fields side by side.
+type colAcc struct {
+	shift, s, q float64
+	mn, mx      float32
+	zeros       int64
+}
+
+// colAccs keeps columnMomentsEach's accumulators from call to call.
+var colAccs = sync.Pool{New: func() any { return new([]colAcc) }}
+
+// columnMomentsEach gives f the moments of each column of x, a row-major
+// matrix with ch columns, from one pass over the rows: each column is
+// summed about its first row's value as one chunk is (Σd, Σd² in float64,
+// see chunkPass), with its minimum, maximum and zeros. A column holding a
+// NaN or ±Inf is recomputed by AddFloat32. Nothing of ch's size is
+// allocated per call (a batch's allocation of that size first-touched
+// fresh pages, a page fault each, and cost more than the sums themselves).
+func columnMomentsEach(x []float32, ch int, f func(c int, m Moments)) {
 	rows := len(x) / ch
-	out := make([]Moments, ch)
 	if rows == 0 {
-		for i := range out {
-			out[i] = NewMoments()
+		for c := 0; c < ch; c++ {
+			f(c, NewMoments())
 		}
-		return out
+		return
 	}
-	shift := make([]float64, ch)
-	s, q := make([]float64, ch), make([]float64, ch)
-	mn, mx := make([]float32, ch), make([]float32, ch)
-	zeros := make([]int64, ch)
-	first := x[:ch]
-	for c, v := range first {
-		shift[c] = float64(v)
-		mn[c], mx[c] = v, v
+	accp := colAccs.Get().(*[]colAcc)
+	defer colAccs.Put(accp)
+	if cap(*accp) < ch {
+		*accp = make([]colAcc, ch)
+	}
+	acc := (*accp)[:ch]
+	for c, v := range x[:ch] {
+		acc[c] = colAcc{shift: float64(v), mn: v, mx: v}
 	}
 	for r := 0; r < rows; r++ {
 		row := x[r*ch : (r+1)*ch]
+		acc := acc[:len(row)]
 		for c, v := range row {
-			d := float64(v) - shift[c]
-			s[c] += d
-			q[c] += d * d
-			mn[c] = min(mn[c], v)
-			mx[c] = max(mx[c], v)
+			a := &acc[c]
+			d := float64(v) - a.shift
+			a.s += d
+			a.q += d * d
+			// a NaN compares false here; its column is recomputed below
+			if v < a.mn {
+				a.mn = v
+			}
+			if v > a.mx {
+				a.mx = v
+			}
 			if v == 0 {
-				zeros[c]++
+				a.zeros++
 			}
 		}
 	}
 	n := float64(rows)
-	for c := range out {
-		if s[c]-s[c] != 0 || q[c]-q[c] != 0 { // a NaN or ±Inf in the column
+	for c := range acc {
+		a := &acc[c]
+		if a.s-a.s != 0 || a.q-a.q != 0 { // a NaN or ±Inf in the column
 			col := make([]float32, rows)
 			for r := range col {
 				col[r] = x[r*ch+c]
 			}
-			out[c] = NewMoments()
-			out[c].AddFloat32(col)
+			m := NewMoments()
+			m.AddFloat32(col)
+			f(c, m)
 			continue
 		}
-		out[c] = Moments{N: int64(rows), Mean: shift[c] + s[c]/n, M2: max(0, q[c]-s[c]*s[c]/n),
-			Min: float64(mn[c]), Max: float64(mx[c]), Zeros: zeros[c]}
+		f(c, Moments{N: int64(rows), Mean: a.shift + a.s/n, M2: max(0, a.q-a.s*a.s/n),
+			Min: float64(a.mn), Max: float64(a.mx), Zeros: a.zeros})
 	}
-	return out
 }

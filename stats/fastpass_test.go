@@ -178,6 +178,13 @@ func countSaturated(x []float32, a actInfo) int64 {
 	return n
 }
 
+// columnMoments collects columnMomentsEach's moments in a slice.
+func columnMoments(x []float32, ch int) []Moments {
+	out := make([]Moments, ch)
+	columnMomentsEach(x, ch, func(c int, m Moments) { out[c] = m })
+	return out
+}
+
 // columnMoments agrees with the two-pass AddFloat32 (the reference) on
 // every column: counts exactly, mean and variance to 1e-12 relative, with
 // NaN, ±Inf, −0 and a constant column among them.
