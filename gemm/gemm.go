@@ -37,6 +37,7 @@ package gemm
 
 import (
 	"runtime"
+	"sync"
 	"sync/atomic"
 
 	"vitals/internal/pages"
@@ -183,12 +184,38 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 	p := &PackedB{kern: kern, k: k, n: n, data: pages.Float32s(np * k)}
 	src := operand{data: b, ld: ldb, trans: transB}
 	kc := kern.kcFor(k)
-	for pc := 0; pc < k; pc += kc {
-		kcur := min(kc, k-pc)
-		packB(kern.nr, p.data[pc*np:pc*np+np*kcur], src, pc, kcur, 0, n)
+	// large operands (a model's weights, packed once at start-up) are
+	// packed by all workers, each a contiguous run of micro-panels
+	w := 1
+	if np*k >= minPackParallel {
+		w = min(Threads(), np/kern.nr)
 	}
+	panels := np / kern.nr
+	var wg sync.WaitGroup
+	for i := 0; i < w; i++ {
+		q0, q1 := panels*i/w*kern.nr, panels*(i+1)/w*kern.nr
+		pack := func() {
+			for pc := 0; pc < k; pc += kc {
+				kcur := min(kc, k-pc)
+				slice := p.data[pc*np : pc*np+np*kcur]
+				packB(kern.nr, slice[q0*kcur:], src, pc, kcur, q0, min(q1, n)-q0)
+			}
+		}
+		if i == w-1 {
+			pack()
+			break
+		}
+		wg.Add(1)
+		go func() { defer wg.Done(); pack() }()
+	}
+	wg.Wait()
 	return p
 }
+
+// minPackParallel is the packed size (floats) from which PackB uses every
+// worker (common practice: below a few MiB the goroutine start-up is not
+// worth it).
+const minPackParallel = 1 << 20
 
 // SgemmPackedA computes C = alpha·A·op(B) + beta·C with A packed by PackA
 // (m×k taken from pa). B and C are as in Sgemm.

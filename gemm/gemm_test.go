@@ -380,3 +380,30 @@ func TestStreamKernelSameBits(t *testing.T) {
 		})
 	}
 }
+
+// PackB of a large operand is split across workers; the product from it
+// must be the same bits as Sgemm's, which packs the same panels per call.
+func TestPackBParallelSameBits(t *testing.T) {
+	r := rand.New(rand.NewPCG(9, 10))
+	const m, k, n = 5, 1100, 1000 // packed size ≥ minPackParallel
+	for _, tb := range bools {
+		a, b := randSlice(r, m*k), randSlice(r, k*n)
+		ldb := n
+		if tb {
+			ldb = k
+		}
+		want := make([]float32, m*n)
+		Sgemm(false, tb, m, n, k, 1, a, k, b, ldb, 0, want, n)
+		pb := PackB(tb, k, n, b, ldb)
+		if len(pb.data) < minPackParallel {
+			t.Fatalf("packed size %d below the parallel threshold", len(pb.data))
+		}
+		got := make([]float32, m*n)
+		SgemmPackedB(false, m, 1, a, k, pb, 0, got, n)
+		for i := range want {
+			if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+				t.Fatalf("transB=%v: element %d = %g from the parallel pack, %g from Sgemm", tb, i, got[i], want[i])
+			}
+		}
+	}
+}

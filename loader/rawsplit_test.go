@@ -87,3 +87,27 @@ func TestSplitRawDataEmptyRaw(t *testing.T) {
 		t.Fatalf("raw data %v, want present and empty", r)
 	}
 }
+
+// parallelCopy splits pieces across cores at arbitrary byte offsets; every
+// byte must land where a plain copy puts it.
+func TestParallelCopy(t *testing.T) {
+	sizes := []int{3, 5 << 20, 0, 1234567, 64, 2<<20 + 1}
+	var dsts, srcs [][]byte
+	total := 0
+	for k, n := range sizes {
+		src := make([]byte, n)
+		for i := range src {
+			src[i] = byte(i*7 + k)
+		}
+		dsts, srcs = append(dsts, make([]byte, n)), append(srcs, src)
+		total += n
+	}
+	parallelCopy(dsts, srcs, total)
+	for k := range dsts {
+		for i := range dsts[k] {
+			if dsts[k][i] != srcs[k][i] {
+				t.Fatalf("piece %d byte %d = %d, want %d", k, i, dsts[k][i], srcs[k][i])
+			}
+		}
+	}
+}
