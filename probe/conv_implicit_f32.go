@@ -177,10 +177,14 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 }
 
 // convIsImplicit reports whether convFastF32 takes the implicit-GEMM path:
-// 2-D and not depthwise, except 1×1 convolutions that read X in place as
-// the column matrix of a large plane.
+// 2-D and not depthwise, except 1×1 unit-stride unpadded convolutions,
+// which read X in place as the column matrix (convDirect), whatever the
+// plane size: for small planes the implicit path's padded copy, panel
+// packing and scatter of shared products cost more than the partly filled
+// last panel of a per-image product (MobileNetV2 at batch 8, bench/hookcost:
+// 8.9–9.9 against 6.9–7.3 ms per image).
 func convIsImplicit(a *convF32Args) bool {
-	return len(a.g.in) == 2 && a.P > 0 && !convIsDepthwise(a) && (!a.direct || a.P < convBatchMinP)
+	return len(a.g.in) == 2 && a.P > 0 && !convIsDepthwise(a) && !a.direct
 }
 
 // convImplicit2D runs every group's product of a non-depthwise 2-D

@@ -71,7 +71,7 @@ func TestConvFastMatchesReference(t *testing.T) {
 		{1, 16, 9, 1, 33, 31, 3, 3, 1, 1, 1, 1, 1, 1, 1, 1},
 		{2, 3, 5, 1, 47, 50, 3, 3, 1, 1, 1, 1, 1, 1, 1, 1}, // P ≥ convBatchMinP: one product per image
 		{2, 4, 6, 2, 46, 48, 3, 3, 1, 1, 2, 2, 2, 2, 2, 2}, // the same, grouped and dilated
-		{3, 5, 4, 1, 6, 5, 1, 1, 1, 1, 1, 1, 0, 0, 0, 0},   // 1×1 direct, small plane: shared product
+		{3, 5, 4, 1, 6, 5, 1, 1, 1, 1, 1, 1, 0, 0, 0, 0},   // 1×1 direct, small plane (per-image products too)
 		{2, 3, 4, 1, 20, 70, 7, 7, 2, 2, 1, 1, 3, 3, 3, 3}, // stride-2 stem on widened rows (phase planes)
 		{3, 4, 6, 2, 9, 41, 3, 3, 1, 1, 1, 1, 1, 1, 1, 1},  // widened rows shared across images, grouped
 	}
