@@ -267,8 +267,8 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 					if rows == 0 {
 						copy(tmp, src)
 					} else {
-						for i, v := range src {
-							tmp[i] = max(tmp[i], v)
+						for i := maxRowsVec(tmp, tmp, src); i < len(src); i++ {
+							tmp[i] = max(tmp[i], src[i])
 						}
 					}
 					rows++
@@ -277,7 +277,15 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 					continue
 				}
 				yr := yp[oh*OW : (oh+1)*OW]
+				vec0, vec1 := 0, 0 // outputs [vec0, vec1) done by the vector kernel
+				if KW == 3 && sw == 2 && dw == 1 && pl == 1 {
+					vec0 = 1
+					vec1 = 1 + maxCols3s2Vec(yr, tmp)
+				}
 				for ow := range yr {
+					if ow >= vec0 && ow < vec1 {
+						continue
+					}
 					base := ow*sw - pl
 					first := true
 					var best float32

@@ -356,6 +356,11 @@ func TestMaxPoolF32MatchesGeneric(t *testing.T) {
 		{[]int{2, 3, 12, 9}, []int64{2, 3}, []int64{1, 2}, []int64{2, 1}, []int64{0, 1, 1, 2}, 1},
 		{[]int{1, 2, 7, 8}, []int64{3, 2}, []int64{3, 3}, []int64{1, 1}, []int64{2, 0, 2, 1}, 1},
 		{[]int{2, 3, 17}, []int64{3}, []int64{2}, []int64{1}, []int64{1, 1}, 0},
+		// 3×3 stride 2 pad 1 on rows wide enough for the vector kernels
+		// (ResNet's stem pooling is this on 112×112)
+		{[]int{2, 3, 9, 112}, []int64{3, 3}, []int64{2, 2}, []int64{1, 1}, []int64{1, 1, 1, 1}, 0},
+		{[]int{1, 2, 6, 71}, []int64{3, 3}, []int64{2, 2}, []int64{1, 1}, []int64{1, 1, 1, 1}, 1},
+		{[]int{1, 1, 5, 50}, []int64{3, 3}, []int64{2, 2}, []int64{1, 1}, []int64{1, 1, 0, 0}, 0},
 	}
 	for _, k := range cases {
 		x := tensor.New(tensor.Float32, k.shape)
@@ -466,5 +471,43 @@ func TestUninitOutputsFullyWritten(t *testing.T) {
 			}
 		}
 		tensor.UsePool(nil)
+	}
+}
+
+// The max-pooling vector kernels follow Go's max on the values where
+// VMAXPS alone would not: NaN in either operand, +0 against −0.
+func TestPoolVecGoMaxSemantics(t *testing.T) {
+	r := rand.New(rand.NewSource(17))
+	vals := []float32{0, float32(math.Copysign(0, -1)), float32(math.NaN()), 1, -1, float32(math.Inf(-1))}
+	pick := func(n int) []float32 {
+		x := make([]float32, n)
+		for i := range x {
+			x[i] = vals[r.Intn(len(vals))]
+		}
+		return x
+	}
+	same := func(got, want float32) bool {
+		return math.Float32bits(got) == math.Float32bits(want) || (got != got && want != want)
+	}
+	for trial := 0; trial < 50; trial++ {
+		a, b := pick(64+trial), pick(64+trial)
+		got := make([]float32, len(a))
+		n := maxRowsVec(got, a, b)
+		if havePoolVec && n == 0 {
+			t.Fatal("vector kernel did nothing")
+		}
+		for i := 0; i < n; i++ {
+			if want := max(a[i], b[i]); !same(got[i], want) {
+				t.Fatalf("max(%g, %g) = %g (bits %x), Go gives %g", a[i], b[i], got[i], math.Float32bits(got[i]), want)
+			}
+		}
+		row := pick(2*(33+trial) + 40)
+		y := make([]float32, 33+trial)
+		k := maxCols3s2Vec(y, row)
+		for o := 1; o < 1+k; o++ {
+			if want := max(max(row[2*o-1], row[2*o]), row[2*o+1]); !same(y[o], want) {
+				t.Fatalf("window %d: %g, Go gives %g", o, y[o], want)
+			}
+		}
 	}
 }

@@ -1,0 +1,49 @@
+package probe
+
+import "golang.org/x/sys/cpu"
+
+// Max-pooling vector kernels (pool_amd64.s), with Go's max semantics.
+
+// maxRowsAVX512 sets dst[i] = max(a[i], b[i]) for i < n, n a multiple of 16.
+//
+//go:noescape
+func maxRowsAVX512(dst, a, b *float32, n int)
+
+// maxCols3s2AVX512 sets dst[o] = max(src[2o−1], src[2o], src[2o+1]) for
+// o < n, n a multiple of 16; it reads src[−1] through src[2n−1].
+//
+//go:noescape
+func maxCols3s2AVX512(dst, src *float32, n int)
+
+// havePoolVec is true where the kernels run (tests clear it to compare
+// with the Go loops).
+var havePoolVec = cpu.X86.HasAVX512F
+
+// maxRowsVec is maxRows' vector part: it returns how many leading values
+// it did (a multiple of 16, 0 without AVX-512).
+func maxRowsVec(dst, a, b []float32) int {
+	n := len(dst) &^ 15
+	if !havePoolVec || n == 0 {
+		return 0
+	}
+	_, _ = a[n-1], b[n-1]
+	maxRowsAVX512(&dst[0], &a[0], &b[0], n)
+	return n
+}
+
+// maxCols3s2Vec is the vector part of a 3-wide, stride-2, pad-1 window
+// row: it sets y[o] for o in [1, 1+k) from the row max tmp (W values) and
+// returns k (a multiple of 16, 0 without AVX-512). Those outputs' windows
+// lie inside the row.
+func maxCols3s2Vec(y, tmp []float32) int {
+	if !havePoolVec {
+		return 0
+	}
+	k := min(len(y)-1, (len(tmp)-18)/2) &^ 15
+	if k <= 0 {
+		return 0
+	}
+	_, _ = y[k], tmp[2*k+1] // the last output and the last value read
+	maxCols3s2AVX512(&y[1], &tmp[2], k)
+	return k
+}

@@ -1,0 +1,9 @@
+//go:build !amd64
+
+package probe
+
+var havePoolVec = false
+
+func maxRowsVec(dst, a, b []float32) int { return 0 }
+
+func maxCols3s2Vec(y, tmp []float32) int { return 0 }
