@@ -7,8 +7,10 @@
 // Σd², Y8/Y9 min, Y10/Y11 max; the counts stay in *l), 16 values per step.
 // There is no compress: zeros get bin 129 of the tables, which is ignored,
 // and every value is counted from the frame. Frame: the bins of a block at
-// 0 (4096 bytes), then 32-byte constants.
-TEXT ·passAVX2(SB), $4480-48
+// 0 (4096 bytes), then 32-byte constants, then a second bin frame at 4480:
+// as in passAVX512, one block's increments are interleaved with the vector
+// work of the next (16 per group).
+TEXT ·passAVX2(SB), $8576-48
 	MOVQ x_base+0(FP), SI
 	MOVQ x_len+8(FP), CX
 	MOVQ p+24(FP), DX
@@ -66,13 +68,17 @@ TEXT ·passAVX2(SB), $4480-48
 	VMOVUPS 352(BX), Y11
 	CMPB 32(DX), $0
 	JNE  nohist
+	LEAQ 0(SP), R13              // frame of the block being read
+	LEAQ 4480(SP), R14           // frame of the block before it
+	MOVQ R14, R8                 // R8..R10: bins still to count (none yet)
+	MOVQ R14, R10
 
 block:
 	MOVQ $64, R11
 	CMPQ CX, R11
 	CMOVQLT CX, R11              // R11 = groups in this block
 	SUBQ R11, CX
-	LEAQ 0(SP), R9
+	MOVQ R13, R9
 	MOVQ R11, R12
 
 loop:
@@ -180,20 +186,38 @@ loop:
 	VMOVDQU Y14, 32(R9)
 	ADDQ $64, R9
 	ADDQ $64, SI
+	CMPQ R8, R10                 // 16 bins of the block before left?
+	JAE  nodrain
+	COUNT8(0)
+	COUNT8(32)
+	ADDQ $64, R8
+
+nodrain:
 	DECQ R12
 	JNZ  loop
 
-	LEAQ 0(SP), R8
-	SHLQ $1, R11                 // 8 bins per step
-
-count:
+drainrest:                           // the block before's last bins (16 per group)
+	CMPQ R8, R10
+	JAE  swap
 	COUNT8(0)
-	ADDQ $32, R8
-	DECQ R11
-	JNZ  count
+	COUNT8(32)
+	ADDQ $64, R8
+	JMP  drainrest
+
+swap:
+	MOVQ R13, R8                 // this block's bins, counted during the next
+	MOVQ R9, R10
+	XCHGQ R13, R14
 	TESTQ CX, CX
 	JNZ  block
-	JMP  store
+
+count:                               // the last block's bins
+	CMPQ R8, R10
+	JAE  store
+	COUNT8(0)
+	COUNT8(32)
+	ADDQ $64, R8
+	JMP  count
 
 nohist:
 	// values 0..7 of the group
