@@ -78,6 +78,22 @@ func erfPoly(a float64) float64 {
 // range, so their independent chains of multiply-adds overlap.
 func erfF32(dst, src []float32) {
 	dst = dst[:len(src)]
+	if !haveErfVec {
+		erfF32Go(dst, src)
+		return
+	}
+	for i := 0; i < len(src); {
+		// eight at a time in vector lanes up to a group that leaves the
+		// table (or the tail), then that group in Go
+		i += erfVec(dst[i:], src[i:])
+		j := min(i+8, len(src))
+		erfF32Go(dst[i:j], src[i:j])
+		i = j
+	}
+}
+
+// erfF32Go is erfF32 in Go: four at a time when all four are in the table.
+func erfF32Go(dst, src []float32) {
 	i := 0
 	for ; i+4 <= len(src); i += 4 {
 		s := src[i : i+4 : i+4]
