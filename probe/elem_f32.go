@@ -100,6 +100,9 @@ func unaryF32Kernel(g func(float64) float64, k32 func(dst, src []float32)) Kerne
 // vvF32: dst = x op y elementwise (same length).
 func vvF32(op opID, dst, x, y []float32) {
 	dst, y = dst[:len(x)], y[:len(x)]
+	if k := vvVec(op, dst, x, y); k > 0 {
+		dst, x, y = dst[k:], x[k:], y[k:]
+	}
 	switch op {
 	case addT:
 		for i := range x {
@@ -123,6 +126,9 @@ func vvF32(op opID, dst, x, y []float32) {
 // vsF32: dst = x op s, or s op x when swap.
 func vsF32(op opID, dst, x []float32, s float32, swap bool) {
 	dst = dst[:len(x)]
+	if k := vsVec(op, dst, x, s, swap); k > 0 {
+		dst, x = dst[k:], x[k:]
+	}
 	switch {
 	case op == addT:
 		for i, v := range x {
