@@ -111,7 +111,13 @@ func smLoop[T Float](kind smKind, y, x []T, outer, m, inner int) {
 				y[base+arg*inner] = 1
 			case smSoftmax:
 				var s float64
-				for k := 0; k < m; k++ {
+				k0 := 0
+				if yf, ok := any(y).([]float32); ok && inner == 1 {
+					// a contiguous float32 row: the leading multiple of 8
+					// in vector lanes (the sum then in lane order)
+					k0, s = softmaxExpVec(yf[base:base+m], any(x).([]float32)[base:base+m], float32(mx))
+				}
+				for k := k0; k < m; k++ {
 					e := exp(float64(x[base+k*inner] - mx))
 					y[base+k*inner] = T(e)
 					s += e
