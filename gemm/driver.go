@@ -17,6 +17,7 @@ type operand struct {
 	packed []float32
 	padded int
 	pack   PackBFunc // B only: panels produced on demand (see SgemmPackedAFunc)
+	bias   []float32 // A only: added to row i of the product (see SgemmPackedABias)
 }
 
 // packA packs op(A)[i0:i0+rows, p0:p0+kc] into dst as MR-tall micro-panels:
@@ -118,6 +119,7 @@ func packB(nr int, dst []float32, b operand, p0, kc, j0, cols int) {
 // and putBuffers.
 type buffers struct {
 	a, b, tile []float32
+	bias       [16]float32 // an edge tile's bias rows (edgeBias), MR ≤ 16
 }
 
 // freeBuffers keeps idle packing buffers for good: a sync.Pool would hand
@@ -203,6 +205,9 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 			} else if beta == 0 {
 				betaZero = 1
 			}
+			// the first slice of a product with a bias starts from it (the
+			// caller checked the kernel has the bias variants)
+			withBias := pc == 0 && A.bias != nil
 			for ic := m0; ic < m1; ic += mcMax {
 				mcur := min(mcMax, m1-ic)
 				var ap []float32
@@ -221,6 +226,10 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 							mv := min(mr, mcur-ir)
 							ci := (ic+ir)*ldc + jc + jr
 							if mv == mr {
+								if withBias {
+									kern.fnStridedBias(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero, &A.bias[ic+ir])
+									continue
+								}
 								kern.fnStrided(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero)
 								continue
 							}
@@ -230,7 +239,11 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 									copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
 								}
 							}
-							kern.fnStrided(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &t[0], nr, alpha, betaEff, betaZero)
+							if withBias {
+								kern.fnStridedBias(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &t[0], nr, alpha, betaEff, betaZero, edgeBias(bf, A.bias, ic+ir, mv, mr))
+							} else {
+								kern.fnStrided(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &t[0], nr, alpha, betaEff, betaZero)
+							}
 							for i := 0; i < mv; i++ {
 								copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
 							}
@@ -243,6 +256,10 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 						app := &ap[ir*kcur]
 						ci := (ic+ir)*ldc + jc + jr
 						if mv == mr && nv == nr {
+							if withBias {
+								kern.fnBias(kcur, app, bpp, &c[ci], ldc, alpha, betaEff, betaZero, &A.bias[ic+ir])
+								continue
+							}
 							fn(kcur, app, bpp, &c[ci], ldc, alpha, betaEff, betaZero)
 							continue
 						}
@@ -253,7 +270,11 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 								copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
 							}
 						}
-						fn(kcur, app, bpp, &t[0], nr, alpha, betaEff, betaZero)
+						if withBias {
+							kern.fnBias(kcur, app, bpp, &t[0], nr, alpha, betaEff, betaZero, edgeBias(bf, A.bias, ic+ir, mv, mr))
+						} else {
+							fn(kcur, app, bpp, &t[0], nr, alpha, betaEff, betaZero)
+						}
 						for i := 0; i < mv; i++ {
 							copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
 						}
@@ -262,6 +283,15 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 			}
 		}
 	}
+}
+
+// edgeBias is the bias of an edge tile's mv rows from row i0, padded with
+// zeros to mr values in the worker's buffers (the kernel reads mr).
+func edgeBias(bf *buffers, bias []float32, i0, mv, mr int) *float32 {
+	b := bf.bias[:mr]
+	copy(b, bias[i0:i0+mv])
+	clear(b[mv:])
+	return &b[0]
 }
 
 // job is one parallel call: the arguments plus one C range per worker.

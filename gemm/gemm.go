@@ -36,6 +36,7 @@
 package gemm
 
 import (
+	"fmt"
 	"runtime"
 	"sync"
 	"sync/atomic"
@@ -233,6 +234,42 @@ func sgemmPackedAOn(workers, n int, alpha float32, pa *PackedA, transB bool, b [
 // SgemmPackedASerial is SgemmPackedA on the calling goroutine only.
 func SgemmPackedASerial(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {
 	sgemmPackedAOn(1, n, alpha, pa, transB, b, ldb, beta, c, ldc)
+}
+
+// SgemmPackedABias computes C = A·op(B) + bias·1ᵀ, bias[i] added to every
+// element of row i (len(bias) ≥ m), with A packed by PackA and B and C as in
+// Sgemm: a layer's product and its bias in one pass over C. The bias is
+// added in registers when the micro-kernel has a bias variant, else C is
+// set to it first and the product accumulates onto it.
+func SgemmPackedABias(n int, pa *PackedA, transB bool, b []float32, ldb int, bias, c []float32, ldc int) {
+	sgemmPackedABiasOn(Threads(), n, pa, transB, b, ldb, bias, c, ldc)
+}
+
+// SgemmPackedABiasSerial is SgemmPackedABias on the calling goroutine only.
+func SgemmPackedABiasSerial(n int, pa *PackedA, transB bool, b []float32, ldb int, bias, c []float32, ldc int) {
+	sgemmPackedABiasOn(1, n, pa, transB, b, ldb, bias, c, ldc)
+}
+
+func sgemmPackedABiasOn(workers, n int, pa *PackedA, transB bool, b []float32, ldb int, bias, c []float32, ldc int) {
+	m, k := pa.m, pa.k
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("B", transB, k, n, b, ldb)
+	if len(bias) < m {
+		panic(fmt.Sprintf("gemm: bias has %d values, want %d", len(bias), m))
+	}
+	if pa.kern.fnBias == nil || k == 0 {
+		for i := 0; i < m; i++ {
+			row := c[i*ldc : i*ldc+n]
+			for j := range row {
+				row[j] = bias[i]
+			}
+		}
+		multiply(workers, pa.kern, m, n, k, 1, pa.operand(), operand{data: b, ld: ldb, trans: transB}, 1, c, ldc)
+		return
+	}
+	A := pa.operand()
+	A.bias = bias
+	multiply(workers, pa.kern, m, n, k, 1, A, operand{data: b, ld: ldb, trans: transB}, 0, c, ldc)
 }
 
 // PackBFunc writes op(B)[p0:p0+kc, j0:j0+cols] into dst as nr-wide

@@ -32,12 +32,15 @@ type spec struct {
 	unroll     int
 	strided    bool // B read in place: NR floats per k step at row stride ldb
 	prefetchB  int  // if > 0: prefetch packed B this many bytes ahead (streaming from memory)
+	bias       bool // accumulators start from bias[i] (one more argument, bias *float32)
 }
 
 func main() {
 	gen(spec{file: "kernel_avx512_amd64.s", name: "sgemmKernelAVX512", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4})
 	gen(spec{file: "kernel_avx512s_amd64.s", name: "sgemmKernelAVX512S", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true})
 	gen(spec{file: "kernel_avx512p_amd64.s", name: "sgemmKernelAVX512P", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, prefetchB: 16384})
+	gen(spec{file: "kernel_avx512b_amd64.s", name: "sgemmKernelAVX512B", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, bias: true})
+	gen(spec{file: "kernel_avx512sb_amd64.s", name: "sgemmKernelAVX512SB", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, bias: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
 
@@ -67,6 +70,12 @@ func gen(s spec) {
 	} else {
 		p("// func %s(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
 	}
+	oBias := frame
+	if s.bias {
+		frame += 8
+		p("// with one more argument, bias *float32: the accumulators of row i start")
+		p("// from bias[i] instead of 0 (C = alpha·(bias + A·B) + beta·C).")
+	}
 	p("// %d×%d register tile: %d accumulators %s0-%s%d, B in %s..%s, A broadcasts in %s/%s.",
 		s.mr, s.nr, nacc, s.reg, s.reg, nacc-1, breg(0), breg(nv-1), areg(0), areg(1))
 	p("TEXT ·%s(SB), NOSPLIT, $0-%d", s.name, frame)
@@ -89,11 +98,21 @@ func gen(s spec) {
 		}
 		p("\tADDQ R9, R10")
 	}
-	for i := 0; i < nacc; i++ {
-		if s.reg == "Z" {
-			p("\tVPXORD %s, %s, %s", acc(i/nv, i%nv), acc(i/nv, i%nv), acc(i/nv, i%nv))
-		} else {
-			p("\tVXORPS %s, %s, %s", acc(i/nv, i%nv), acc(i/nv, i%nv), acc(i/nv, i%nv))
+	if s.bias {
+		p("\tMOVQ bias+%d(FP), AX", oBias)
+		for i := 0; i < s.mr; i++ {
+			p("\tVBROADCASTSS %d(AX), %s", 4*i, acc(i, 0))
+			for j := 1; j < nv; j++ {
+				p("\tVMOVAPS %s, %s", acc(i, 0), acc(i, j))
+			}
+		}
+	} else {
+		for i := 0; i < nacc; i++ {
+			if s.reg == "Z" {
+				p("\tVPXORD %s, %s, %s", acc(i/nv, i%nv), acc(i/nv, i%nv), acc(i/nv, i%nv))
+			} else {
+				p("\tVXORPS %s, %s, %s", acc(i/nv, i%nv), acc(i/nv, i%nv), acc(i/nv, i%nv))
+			}
 		}
 	}
 	step := func(u int) {

@@ -17,6 +17,12 @@ type microKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, be
 // p of the kc×NR micro-panel starts at b + p·ldb (NR floats, no padding).
 type stridedKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
 
+// biasKernel and stridedBiasKernel are microKernel and stridedKernel whose
+// accumulators start from bias[i] (MR values) instead of 0.
+type biasKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
+
+type stridedBiasKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
+
 // kernel describes one micro-kernel and the cache blocking chosen for it.
 //
 // Blocking (Goto/BLIS): for each nc-wide column panel of op(B) and each kc-deep
@@ -46,6 +52,11 @@ type kernel struct {
 	// dense layer with cold weights: BenchmarkSgemmPackedBSmallM).
 	fnStream   microKernel
 	maxMStream int
+	// fnBias and fnStridedBias, if set, are fn and fnStrided starting from
+	// a per-row bias: the first k slice of a product with a bias (see
+	// SgemmPackedABias) adds it in registers instead of reading it from C.
+	fnBias        biasKernel
+	fnStridedBias stridedBiasKernel
 }
 
 // kcFor returns the k-slice depth used for a product of depth k: the k range

@@ -12,6 +12,12 @@ func sgemmKernelAVX512S(kc int, a, b *float32, ldb int, c *float32, ldc int, alp
 func sgemmKernelAVX512P(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 //go:noescape
+func sgemmKernelAVX512B(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
+
+//go:noescape
+func sgemmKernelAVX512SB(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
+
+//go:noescape
 func sgemmKernelAVX2(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 // avx512Kernel: 8×48 zmm tile (24 accumulators + 3 B vectors + 2 broadcast
@@ -29,6 +35,7 @@ var avx512Kernel = &kernel{
 	name: "avx512", mr: 8, nr: 48, kc: 384, mc: 96, nc: 3072,
 	fn: sgemmKernelAVX512, fnStrided: sgemmKernelAVX512S, maxMDirect: 128,
 	fnStream: sgemmKernelAVX512P, maxMStream: 16,
+	fnBias: sgemmKernelAVX512B, fnStridedBias: sgemmKernelAVX512SB,
 }
 
 // avx2Kernel: 6×16 ymm tile (12 accumulators + 2 B vectors + 2 broadcast

@@ -109,10 +109,20 @@ func convDirect(a *convF32Args, packs []*gemm.PackedA, beta float32) {
 				xg := a.xd[(n*a.C+gi*a.Cg)*a.inSize : (n*a.C+(gi+1)*a.Cg)*a.inSize]
 				o := (n*a.M + gi*a.Mg) * a.P
 				yg := a.yd[o : o+a.Mg*a.P]
+				ld := max(a.P, 1)
+				if beta != 0 && packs != nil {
+					// the bias is added by the product (in registers)
+					bias := a.bd[gi*a.Mg : (gi+1)*a.Mg]
+					if serial {
+						gemm.SgemmPackedABiasSerial(a.P, packs[gi], false, xg, ld, bias, yg, ld)
+					} else {
+						gemm.SgemmPackedABias(a.P, packs[gi], false, xg, ld, bias, yg, ld)
+					}
+					continue
+				}
 				if beta != 0 {
 					fillRows(yg, a.P, a.bd[gi*a.Mg:(gi+1)*a.Mg])
 				}
-				ld := max(a.P, 1)
 				switch {
 				case packs != nil && serial:
 					gemm.SgemmPackedASerial(a.P, 1, packs[gi], false, xg, ld, beta, yg, ld)
