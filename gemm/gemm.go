@@ -38,10 +38,10 @@ package gemm
 import (
 	"fmt"
 	"runtime"
-	"sync"
 	"sync/atomic"
 
 	"vitals/internal/pages"
+	"vitals/internal/par"
 )
 
 var (
@@ -192,24 +192,14 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 		w = min(Threads(), np/kern.nr)
 	}
 	panels := np / kern.nr
-	var wg sync.WaitGroup
-	for i := 0; i < w; i++ {
+	par.Do(w, func(i int) {
 		q0, q1 := panels*i/w*kern.nr, panels*(i+1)/w*kern.nr
-		pack := func() {
-			for pc := 0; pc < k; pc += kc {
-				kcur := min(kc, k-pc)
-				slice := p.data[pc*np : pc*np+np*kcur]
-				packB(kern.nr, slice[q0*kcur:], src, pc, kcur, q0, min(q1, n)-q0)
-			}
+		for pc := 0; pc < k; pc += kc {
+			kcur := min(kc, k-pc)
+			slice := p.data[pc*np : pc*np+np*kcur]
+			packB(kern.nr, slice[q0*kcur:], src, pc, kcur, q0, min(q1, n)-q0)
 		}
-		if i == w-1 {
-			pack()
-			break
-		}
-		wg.Add(1)
-		go func() { defer wg.Done(); pack() }()
-	}
-	wg.Wait()
+	})
 	return p
 }
 

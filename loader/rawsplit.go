@@ -2,12 +2,12 @@ package loader
 
 import (
 	"runtime"
-	"sync"
 	"unsafe"
 
 	"google.golang.org/protobuf/encoding/protowire"
 
 	"vitals/internal/pages"
+	"vitals/internal/par"
 	"vitals/loader/onnxpb"
 )
 
@@ -142,25 +142,15 @@ func parallelCopy(dsts, srcs [][]byte, total int) {
 	if total >= 4<<20 {
 		w = runtime.GOMAXPROCS(0)
 	}
-	var wg sync.WaitGroup
-	for part := 0; part < w; part++ {
+	par.Do(w, func(part int) {
 		lo, hi := total*part/w, total*(part+1)/w // this share's bytes, counted over the pieces
-		do := func() {
-			at := 0
-			for i, d := range dsts {
-				a, b := max(lo-at, 0), min(hi-at, len(d))
-				if a < b {
-					copy(d[a:b], srcs[i][a:b])
-				}
-				at += len(d)
+		at := 0
+		for i, d := range dsts {
+			a, b := max(lo-at, 0), min(hi-at, len(d))
+			if a < b {
+				copy(d[a:b], srcs[i][a:b])
 			}
+			at += len(d)
 		}
-		if part == w-1 {
-			do()
-			break
-		}
-		wg.Add(1)
-		go func() { defer wg.Done(); do() }()
-	}
-	wg.Wait()
+	})
 }
