@@ -1,10 +1,6 @@
 package probe
 
-import (
-	"math"
-
-	"golang.org/x/sys/cpu"
-)
+import "golang.org/x/sys/cpu"
 
 // erfAVX512 computes erf of src into dst eight values at a time (see
 // erf_amd64.s and erfVecTable): it writes dst[i] for i below its result, a
@@ -25,17 +21,11 @@ const erfVecTerms = 20
 // result rounds as math.Erf's does but for values within about 1e-16 of a
 // rounding boundary (TestErf32MatchesMathErf checks the sweep).
 var erfVecTable = func() (t [erfVecTerms + 1][16]float64) {
+	var coef [erfVecTerms + 1]float64
 	for k := range 16 {
-		c := float64(k) / 4
-		t[0][k] = math.Erf(c)
-		scale := 2 / math.Sqrt(math.Pi) * math.Exp(-c*c)
-		hPrev, h := 0.0, 1.0
-		fact, sign := 1.0, 1.0
-		for n := 0; n < erfVecTerms; n++ {
-			fact *= float64(n + 1)
-			t[n+1][k] = sign * scale * h / fact
-			h, hPrev = 2*c*h-2*float64(n)*hPrev, h
-			sign = -sign
+		erfSeries(coef[:], float64(k)/4)
+		for n, v := range coef {
+			t[n][k] = v
 		}
 	}
 	return t

@@ -26,24 +26,29 @@ const (
 )
 
 // erfTable[k] = erf(c), then the coefficient of h^{n+1} for n = 0…7, c = k/16.
-var erfTable = func() [erfSteps*erfMax + 1][erfTerms + 1]float64 {
-	var t [erfSteps*erfMax + 1][erfTerms + 1]float64
+var erfTable = func() (t [erfSteps*erfMax + 1][erfTerms + 1]float64) {
 	for k := range t {
-		c := float64(k) / erfSteps
-		t[k][0] = math.Erf(c)
-		scale := 2 / math.Sqrt(math.Pi) * math.Exp(-c*c)
-		hPrev, h := 0.0, 1.0 // H₋₁ (unused), H₀
-		fact := 1.0          // (n+1)!
-		sign := 1.0
-		for n := 0; n < erfTerms; n++ {
-			fact *= float64(n + 1)
-			t[k][n+1] = sign * scale * h / fact
-			h, hPrev = 2*c*h-2*float64(n)*hPrev, h
-			sign = -sign
-		}
+		erfSeries(t[k][:], float64(k)/erfSteps)
 	}
 	return t
 }()
+
+// erfSeries sets coef[0] = erf(c) and coef[n+1] to the coefficient of
+// h^{n+1} in erf(c + h), for every further element of coef (the series
+// above, with the Hermite recurrence).
+func erfSeries(coef []float64, c float64) {
+	coef[0] = math.Erf(c)
+	scale := 2 / math.Sqrt(math.Pi) * math.Exp(-c*c)
+	hPrev, h := 0.0, 1.0 // H₋₁ (unused), H₀
+	fact := 1.0          // (n+1)!
+	sign := 1.0
+	for n := 0; n+1 < len(coef); n++ {
+		fact *= float64(n + 1)
+		coef[n+1] = sign * scale * h / fact
+		h, hPrev = 2*c*h-2*float64(n)*hPrev, h
+		sign = -sign
+	}
+}
 
 // erf32 is erf of one float32 value (see above); NaN stays NaN.
 func erf32(v float32) float32 {
