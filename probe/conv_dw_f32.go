@@ -216,22 +216,6 @@ func dw3RowGo(dst, r0, r1, r2 []float32, wb *[10]float32, sw int) {
 	w0, w1, w2, w3, w4, w5, w6, w7, w8, bias := wb[0], wb[1], wb[2], wb[3], wb[4], wb[5], wb[6], wb[7], wb[8], wb[9]
 	need := (len(dst)-1)*sw + 3
 	r0, r1, r2 = r0[:need], r1[:need], r2[:need]
-	if sw == 1 {
-		for j := range dst {
-			s := bias
-			s += w0 * r0[j]
-			s += w1 * r0[j+1]
-			s += w2 * r0[j+2]
-			s += w3 * r1[j]
-			s += w4 * r1[j+1]
-			s += w5 * r1[j+2]
-			s += w6 * r2[j]
-			s += w7 * r2[j+1]
-			s += w8 * r2[j+2]
-			dst[j] = s
-		}
-		return
-	}
 	for j := range dst {
 		p := j * sw
 		s := bias
