@@ -50,16 +50,9 @@ func LoadModel(path string) (*Model, error) {
 
 // DecodeModel decodes a serialized ModelProto; dir is the folder external data is read from ("" forbids external data).
 func DecodeModel(b []byte, dir string) (*Model, error) {
-	var mp onnxpb.ModelProto
-	stripped, raws, split := splitRawData(b)
-	if !split {
-		stripped = b
-	}
-	if err := proto.Unmarshal(stripped, &mp); err != nil {
+	mp, err := unmarshalModel(b)
+	if err != nil {
 		return nil, fmt.Errorf("not an ONNX model (protobuf decode failed): %w", err)
-	}
-	if split {
-		placeRawData(mp.Graph, raws)
 	}
 	if mp.Graph == nil {
 		return nil, errors.New("not an ONNX model: no graph")

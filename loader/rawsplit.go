@@ -5,6 +5,7 @@ import (
 	"unsafe"
 
 	"google.golang.org/protobuf/encoding/protowire"
+	"google.golang.org/protobuf/proto"
 
 	"vitals/internal/pages"
 	"vitals/internal/par"
@@ -103,9 +104,11 @@ func walkFields(b []byte, f func(num protowire.Number, typ protowire.Type, field
 // placeRawData copies raws (from splitRawData) into one buffer, each at a
 // 64-byte boundary so float data is used in place, with its pages mapped
 // in one system call (internal/pages), and hands them to the initializers.
-func placeRawData(g *onnxpb.GraphProto, raws [][]byte) {
-	if g == nil || len(raws) != len(g.Initializer) {
-		return
+// It reports false, placing nothing, when raws does not match the decoded
+// initializers one for one.
+func placeRawData(g *onnxpb.GraphProto, raws [][]byte) bool {
+	if len(raws) != len(g.GetInitializer()) {
+		return false
 	}
 	total := 0
 	for _, r := range raws {
@@ -131,6 +134,22 @@ func placeRawData(g *onnxpb.GraphProto, raws [][]byte) {
 		arena = arena[(n+63)&^63:]
 	}
 	parallelCopy(dsts, srcs, total)
+	return true
+}
+
+// unmarshalModel decodes a serialized ModelProto, its weights split off and
+// placed by splitRawData and placeRawData; anything those do not handle is
+// decoded whole by the protobuf decoder, whose error is then the one
+// returned.
+func unmarshalModel(b []byte) (*onnxpb.ModelProto, error) {
+	mp := new(onnxpb.ModelProto)
+	if stripped, raws, ok := splitRawData(b); ok {
+		if proto.Unmarshal(stripped, mp) == nil && placeRawData(mp.Graph, raws) {
+			return mp, nil
+		}
+		mp.Reset()
+	}
+	return mp, proto.Unmarshal(b, mp)
 }
 
 // parallelCopy copies srcs[i] into dsts[i] (total bytes in all), split into

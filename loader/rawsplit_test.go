@@ -40,9 +40,14 @@ func TestSplitRawDataDecodesAsProtobuf(t *testing.T) {
 		if err := proto.Unmarshal(stripped, &parts); err != nil {
 			t.Fatalf("%s: stripped model does not decode: %v", f, err)
 		}
-		placeRawData(parts.Graph, raws)
+		if !placeRawData(parts.Graph, raws) {
+			t.Fatalf("%s: raw data do not match the initializers", f)
+		}
 		if !proto.Equal(&whole, &parts) {
 			t.Errorf("%s: split decode differs from the protobuf decoder's", f)
+		}
+		if mp, err := unmarshalModel(b); err != nil || !proto.Equal(&whole, mp) {
+			t.Errorf("%s: unmarshalModel differs from the protobuf decoder (%v)", f, err)
 		}
 		for i, init := range parts.Graph.GetInitializer() {
 			if r := init.RawData; len(r) > 0 && unsafePointer(r)%64 != 0 {
@@ -82,7 +87,9 @@ func TestSplitRawDataEmptyRaw(t *testing.T) {
 	if err := proto.Unmarshal(stripped, &got); err != nil {
 		t.Fatal(err)
 	}
-	placeRawData(got.Graph, raws)
+	if !placeRawData(got.Graph, raws) {
+		t.Fatal("raw data do not match the initializers")
+	}
 	if r := got.Graph.Initializer[0].RawData; r == nil || len(r) != 0 {
 		t.Fatalf("raw data %v, want present and empty", r)
 	}
