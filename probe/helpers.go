@@ -173,7 +173,8 @@ func expandT[T any](out []T, src []T, srcShape, outShape []int) {
 }
 
 // isTrailingBlock reports whether srcShape, leading 1s dropped, is a
-// nonempty suffix of outShape, so that out is src repeated whole.
+// suffix of outShape (empty for a one-element src), so that out is src
+// repeated whole.
 func isTrailingBlock(srcShape, outShape []int) bool {
 	i := 0
 	for i < len(srcShape) && srcShape[i] == 1 {
