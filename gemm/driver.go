@@ -5,6 +5,7 @@ import (
 	"unsafe"
 
 	"vitals/internal/pages"
+	"vitals/internal/par"
 )
 
 // operand is op(A) or op(B): either a row-major matrix (data, ld, trans) or,
@@ -296,7 +297,6 @@ func edgeBias(bf *buffers, bias []float32, i0, mv, mr int) *float32 {
 
 // job is one parallel call: the arguments plus one C range per worker.
 type job struct {
-	wg     sync.WaitGroup
 	kern   *kernel
 	k      int
 	alpha  float32
@@ -305,6 +305,7 @@ type job struct {
 	c      []float32
 	ldc    int
 	ranges []span
+	run    func(int) // j.do, bound once so that a call does not allocate
 }
 
 type span struct{ m0, m1, n0, n1 int }
@@ -317,33 +318,11 @@ func (j *job) do(i int) {
 	putBuffers(bf)
 }
 
-var jobPool = sync.Pool{New: func() any { return new(job) }}
-
-type workItem struct {
-	j *job
-	i int
-}
-
-var (
-	workCh   = make(chan workItem, 256)
-	poolMu   sync.Mutex
-	nWorkers int
-)
-
-// ensureWorkers starts persistent worker goroutines until n exist.
-func ensureWorkers(n int) {
-	poolMu.Lock()
-	for nWorkers < n {
-		go func() {
-			for it := range workCh {
-				it.j.do(it.i)
-				it.j.wg.Done()
-			}
-		}()
-		nWorkers++
-	}
-	poolMu.Unlock()
-}
+var jobPool = sync.Pool{New: func() any {
+	j := new(job)
+	j.run = j.do
+	return j
+}}
 
 // minWorkPerThread is the multiply-add count below which a call (or one more
 // worker) is not worth the hand-off (~ a 64×64×64 product).
@@ -386,13 +365,7 @@ func runOn(w int, kern *kernel, m, n, k int, alpha float32, A, B operand, beta f
 			j.ranges = append(j.ranges, span{t0 * kern.mr, min(m, t1*kern.mr), 0, n})
 		}
 	}
-	ensureWorkers(w - 1)
-	j.wg.Add(w - 1)
-	for i := 1; i < w; i++ {
-		workCh <- workItem{j, i}
-	}
-	j.do(0)
-	j.wg.Wait()
+	par.Do(w, j.run)
 	j.A, j.B, j.c = operand{}, operand{}, nil
 	jobPool.Put(j)
 }

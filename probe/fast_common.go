@@ -8,6 +8,7 @@ import (
 
 	"vitals/gemm"
 	"vitals/internal/pages"
+	"vitals/internal/par"
 	"vitals/tensor"
 )
 
@@ -133,17 +134,9 @@ func parFor(n, minChunk int, f func(lo, hi int)) {
 		}
 		return
 	}
-	var wg sync.WaitGroup
 	step := (n + workers - 1) / workers
-	for lo := step; lo < n; lo += step {
-		wg.Add(1)
-		go func(lo, hi int) {
-			defer wg.Done()
-			f(lo, hi)
-		}(lo, min(lo+step, n))
-	}
-	f(0, min(step, n))
-	wg.Wait()
+	parts := (n + step - 1) / step
+	par.Do(parts, func(i int) { f(i*step, min((i+1)*step, n)) })
 }
 
 // scratch keeps float32 scratch buffers (padded images, im2col columns,

@@ -119,6 +119,7 @@ type layerAcc struct {
 	unitKind int // 1: channel axis (conv); 2: last axis (dense); 0: decide by rank
 	unitAxis int
 	everPos  []bool
+	notYet   []int32 // units of everPos still false
 	sat      int64
 	satN     int64
 	// per-channel moments along axis 1 (only for values feeding a BatchNormalization)
@@ -425,13 +426,14 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 		units := t.Shape[axis]
 		if len(la.everPos) != units {
 			la.everPos = make([]bool, units)
+			la.notYet = notPositive(la.everPos)
 		}
 		inner := 1
 		for _, d := range t.Shape[axis+1:] {
 			inner *= d
 		}
 		if la.act.kind == ActReLU {
-			everPositiveFast(la.everPos, x, units, inner)
+			la.notYet = everPositivePending(la.everPos, la.notYet, x, units, inner)
 		}
 	}
 }

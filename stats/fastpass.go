@@ -63,14 +63,41 @@ func anyPositive(x []float32) bool {
 	return false
 }
 
-// everPositiveFast is everPositive with the per-unit scan of anyPositive.
+// everPositiveFast is everPositive with the per-unit scan of anyPositive,
+// for units not yet seen positive only.
 func everPositiveFast(ever []bool, x []float32, units, inner int) {
-	block := units * inner
-	for o := 0; o+block <= len(x); o += block {
-		for u := 0; u < units; u++ {
-			if !ever[u] && anyPositive(x[o+u*inner:o+(u+1)*inner]) {
-				ever[u] = true
-			}
+	everPositivePending(ever, notPositive(ever), x, units, inner)
+}
+
+// notPositive lists the units u with !ever[u].
+func notPositive(ever []bool) []int32 {
+	var p []int32
+	for u, e := range ever {
+		if !e {
+			p = append(p, int32(u))
 		}
 	}
+	return p
+}
+
+// everPositivePending sets ever[u] for each unit u of pending that has a
+// value > 0 in x ([…, units, inner] row-major) and returns the units still
+// not seen positive (pending reused). A healthy layer has every unit
+// positive after its first batch and then costs nothing.
+func everPositivePending(ever []bool, pending []int32, x []float32, units, inner int) []int32 {
+	block := units * inner
+	for o := 0; o+block <= len(x) && len(pending) > 0; o += block {
+		k := 0
+		for _, u := range pending {
+			at := o + int(u)*inner
+			if anyPositive(x[at : at+inner]) {
+				ever[u] = true
+			} else {
+				pending[k] = u
+				k++
+			}
+		}
+		pending = pending[:k]
+	}
+	return pending
 }

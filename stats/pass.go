@@ -4,6 +4,8 @@ import (
 	"math"
 	"runtime"
 	"sync"
+
+	"vitals/internal/par"
 )
 
 // The fused statistics pass: one read of a node output gives its moments,
@@ -297,17 +299,7 @@ func tensorPass(x []float32, p passParams) *passResult {
 			flushTables(&rw.counts, tabs)
 		}
 	}
-	if workers > 1 {
-		var wg sync.WaitGroup
-		for w := 1; w < workers; w++ {
-			wg.Add(1)
-			go func() { defer wg.Done(); each(w) }()
-		}
-		each(0)
-		wg.Wait()
-	} else {
-		each(0)
-	}
+	par.Do(workers, each)
 	r.mom = NewMoments()
 	for _, pm := range parts {
 		r.mom.Merge(pm)

@@ -350,3 +350,33 @@ func binTotals(tabs []uint32) []uint32 {
 	}
 	return s
 }
+
+// BenchmarkObserveFeatures is all the statistics of one small ReLU output
+// [8, 2048] of a fully connected layer (one MLP batch), where fixed costs
+// per tensor, not bandwidth, decide.
+func BenchmarkObserveFeatures(b *testing.B) {
+	c := &Collector{perChanWanted: map[string]bool{}}
+	x := fastData(rand.New(rand.NewPCG(3, 4)), 8*2048, 0, false)
+	for i := range x {
+		x[i] = max(x[i], 0)
+	}
+	la := &layerAcc{mom: NewMoments(), act: actInfo{kind: ActReLU}, unitKind: 2}
+	t := tensor.From(x, 8, 2048)
+	c.observe(la, t)
+	for b.Loop() {
+		c.observe(la, t)
+	}
+}
+
+// BenchmarkColumnMoments is the per-feature moments of one tabular input
+// batch [8, 784].
+func BenchmarkColumnMoments(b *testing.B) {
+	x := fastData(rand.New(rand.NewPCG(3, 4)), 8*784, 0, false)
+	acc := make([]Moments, 784)
+	for i := range acc {
+		acc[i] = NewMoments()
+	}
+	for b.Loop() {
+		columnMomentsEach(x, 784, func(c int, m Moments) { acc[c].Merge(m) })
+	}
+}

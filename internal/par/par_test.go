@@ -1,8 +1,10 @@
 package par
 
 import (
+	"sync"
 	"sync/atomic"
 	"testing"
+	"time"
 )
 
 // Every part runs exactly once, whatever the count.
@@ -18,6 +20,37 @@ func TestDoRunsEachPartOnce(t *testing.T) {
 			if got := seen[i].Load(); got != want {
 				t.Fatalf("w=%d: part %d ran %d times, want %d", w, i, got, want)
 			}
+		}
+	}
+}
+
+// Parts that start jobs of their own, from several callers at once, all
+// run exactly once and every call returns, whether waiting callers spin or
+// park at once (spinFor 0).
+func TestDoNestedFromManyCallers(t *testing.T) {
+	for _, spin := range []time.Duration{0, 500 * time.Microsecond} {
+		old := spinFor.Load()
+		spinFor.Store(int64(spin))
+		var ran atomic.Int64
+		var nest func(depth int)
+		nest = func(depth int) {
+			Do(3, func(int) {
+				ran.Add(1)
+				if depth > 0 {
+					nest(depth - 1)
+				}
+			})
+		}
+		var wg sync.WaitGroup
+		for range 8 {
+			wg.Add(1)
+			go func() { defer wg.Done(); nest(3) }()
+		}
+		wg.Wait()
+		spinFor.Store(old)
+		// 3 + 9 + 27 + 81 parts per caller
+		if got, want := ran.Load(), int64(8*(3+9+27+81)); got != want {
+			t.Fatalf("spin %v: %d parts ran, want %d", spin, got, want)
 		}
 	}
 }
