@@ -15,7 +15,8 @@
 # vitals: `vitals check MODEL --data X.npy --batch 8` over every item (every
 # statistics hook on; wall time of the whole command, model loading and the
 # report included) and, from bench/hookcost, the executor alone with an
-# empty hook and with the statistics hook, over the first 64 items.
+# empty hook and with the statistics hook, over the first 64 items (2048
+# for the MLP).
 # ONNX Runtime: onnxruntime-node (pinned in bench/ort/package.json), 2 intra-op
 # threads, sequential, all graph optimisations, inference time only.
 # Each figure is the best of $REPS rounds (default 3), the two sides alternating.
@@ -25,7 +26,9 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 REPS=${REPS:-3}
 BATCH=8
-HOOKCOST_SAMPLES=64
+# items for the executor-alone figures: 64, or 2048 for the MLP, whose
+# 8-item batches take under a millisecond (64 items gave ±15% between runs)
+hookcost_items() { if [ "$1" = mlp ]; then echo 2048; else echo 64; fi; }
 # items in NAME.npy (its first axis)
 npy_items() {
 	"$PY" -c 'import sys, numpy; print(numpy.load(sys.argv[1], mmap_mode="r").shape[0])' "$1"
@@ -79,7 +82,7 @@ for m in "${models[@]}"; do
 		best_v=$(awk -v a="$best_v" -v b="$v" 'BEGIN {print (b < a) ? b : a}')
 		best_o=$(awk -v a="$best_o" -v b="$o" 'BEGIN {print (b < a) ? b : a}')
 	done
-	hc=$(/tmp/vitals-bench-hookcost -model "$DIR/$m.onnx" -data "$DIR/$m.npy" -batch $BATCH -samples $HOOKCOST_SAMPLES -reps "$REPS" -terse)
+	hc=$(/tmp/vitals-bench-hookcost -model "$DIR/$m.onnx" -data "$DIR/$m.npy" -batch $BATCH -samples "$(hookcost_items "$m")" -reps "$REPS" -terse)
 	rows+=("$(printf '| %s | %s | %s | %s | %s | %s |' "$m" "$SAMPLES" "$best_v" "$hc" "$best_o" \
 		"$(awk -v a="$best_v" -v b="$best_o" 'BEGIN {printf "%.2f×", a / b}')")")
 done

@@ -157,7 +157,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	}
 	off, on := best[0], best[1]
 	if terse {
-		fmt.Printf("%.2f / %.2f (+%.0f%%)\n", ms(off), ms(on), 100*(float64(on)/float64(off)-1))
+		fmt.Printf("%.3g / %.3g (+%.0f%%)\n", ms(off), ms(on), 100*(float64(on)/float64(off)-1))
 		return nil
 	}
 	fmt.Printf("%s: batch %d, %d images, best of %d: empty hook %.2f ms/image; statistics hook %.2f ms/image (+%.1f%%)\n",
