@@ -311,6 +311,20 @@ func BenchmarkStatsPassOneCore(b *testing.B) {
 	})
 }
 
+// BenchmarkStatsPassMomentsOneCore is the pass without its histogram (the
+// first batch's pass and FastMoments) on one core.
+func BenchmarkStatsPassMomentsOneCore(b *testing.B) {
+	p := benchParams
+	p.noHist = true
+	benchSizes(b, func(b *testing.B, x []float32) {
+		benchGBs(b, x, func() {
+			for o := 0; o < len(x); o += fastChunk {
+				chunkPass(x[o:min(len(x), o+fastChunk)], p, nil)
+			}
+		})
+	})
+}
+
 // BenchmarkStatsPassGo is the pure-Go fallback of the fused pass on one core.
 func BenchmarkStatsPassGo(b *testing.B) {
 	tabs := make([]uint32, histTables*histStride)

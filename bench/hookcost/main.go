@@ -2,7 +2,8 @@
 // model over a sample in batches with (1) a hook that does nothing and
 // (2) the statistics collector's hook (what `vitals check` runs), and prints
 // the best-of-N time per image of each and the overhead. With -ops it also
-// prints the time per operator type (hook off).
+// prints the time per operator type (hook off, buffers recycled, convolutions
+// split by kind).
 //
 //	go run ./bench/hookcost -model M.onnx -data X.npy [-batch 8] [-samples 64] [-reps 3] [-ops]
 package main
@@ -167,14 +168,27 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		last := time.Now()
 		hook := func(nd *loader.Node, _ []*tensor.Tensor) error {
 			now := time.Now()
-			byOp[nd.OpType] += now.Sub(last)
+			byOp[opKind(nd)] += now.Sub(last)
 			last = now
 			return nil
 		}
-		for _, b := range batches {
-			last = time.Now()
-			if _, err := p.Run(b, hook); err != nil {
-				return err
+		// buffers recycled as in the timed runs; the first round warms them
+		pool := tensor.NewPool(1 << 30)
+		tensor.UsePool(pool)
+		defer tensor.UsePool(nil)
+		for r := 0; r < 2; r++ {
+			clear(byOp)
+			for _, b := range batches {
+				last = time.Now()
+				outs, released, err := p.RunReleased(b, hook)
+				if err != nil {
+					return err
+				}
+				keep := []*tensor.Tensor{b[m.Graph.Inputs[0].Name]}
+				for _, t := range outs {
+					keep = append(keep, t)
+				}
+				pool.Recycle(released, keep)
 			}
 		}
 		type kv struct {
@@ -196,3 +210,19 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 var terse, outBytes bool
 
 func ms(d time.Duration) float64 { return float64(d) / 1e6 }
+
+// opKind is a node's operator type, convolutions split into depthwise
+// (group > 1), 1×1 and the rest by their kernel shape.
+func opKind(n *loader.Node) string {
+	if n.OpType != "Conv" {
+		return n.OpType
+	}
+	kind := "Conv"
+	if g := n.Attrs["group"]; g != nil && g.I > 1 {
+		kind += " grouped"
+	}
+	if k := n.Attrs["kernel_shape"]; k != nil {
+		kind += fmt.Sprintf(" %v", k.Ints)
+	}
+	return kind
+}
