@@ -28,12 +28,14 @@ var spinFor atomic.Int64 // nanoseconds
 
 func init() { spinFor.Store(int64(spinFromEnv())) }
 
-// task is one Do call: its function, the parts not yet finished, and a
-// wake-up for a caller that parked.
+// task is one Do call: its function, the parts not yet finished, a
+// wake-up for a caller that parked, and the first panic of a part.
 type task struct {
-	f    func(int)
-	left atomic.Int32
-	done chan struct{} // receives one token when left reaches 0
+	f     func(int)
+	left  atomic.Int32
+	done  chan struct{} // receives one token when left reaches 0
+	mu    sync.Mutex
+	panic any
 }
 
 type part struct {
@@ -41,11 +43,28 @@ type part struct {
 	i int
 }
 
+// run runs the part, keeping a panic for the task's caller: whatever
+// goroutine runs a part, the panic surfaces in the goroutine that called
+// Do (whose recover, if any, expects it), and the part still counts as
+// finished, so no caller waits for it forever.
 func (p part) run() {
+	defer func() {
+		if r := recover(); r != nil {
+			p.t.keepPanic(r)
+		}
+		if p.t.left.Add(-1) == 0 {
+			p.t.done <- struct{}{}
+		}
+	}()
 	p.t.f(p.i)
-	if p.t.left.Add(-1) == 0 {
-		p.t.done <- struct{}{}
+}
+
+func (t *task) keepPanic(r any) {
+	t.mu.Lock()
+	if t.panic == nil {
+		t.panic = r
 	}
+	t.mu.Unlock()
 }
 
 var (
@@ -56,7 +75,8 @@ var (
 )
 
 // Do runs f(0), …, f(w−1) at once, the last on the calling goroutine, and
-// returns when all are done (w ≤ 1: f(0) alone, on the caller).
+// returns when all are done (w ≤ 1: f(0) alone, on the caller). When parts
+// panic, Do panics with the first value kept once every part has finished.
 func Do(w int, f func(part int)) {
 	if w <= 1 {
 		f(0)
@@ -65,14 +85,18 @@ func Do(w int, f func(part int)) {
 	ensureWorkers(w - 1)
 	t := taskPool.Get().(*task)
 	t.f = f
-	t.left.Store(int32(w - 1))
+	t.left.Store(int32(w))
 	for i := 0; i < w-1; i++ {
 		queue <- part{t, i}
 	}
-	f(w - 1)
+	part{t, w - 1}.run()
 	t.wait()
-	t.f = nil
+	r := t.panic
+	t.f, t.panic = nil, nil
 	taskPool.Put(t)
+	if r != nil {
+		panic(r)
+	}
 }
 
 // wait returns when every queued part of t has finished, running queued

@@ -54,3 +54,36 @@ func TestDoNestedFromManyCallers(t *testing.T) {
 		}
 	}
 }
+
+type partFailure struct{ part int }
+
+// A panic in any part (on a worker or on the caller) comes back out of Do
+// on the caller, with its own value, after every other part has finished;
+// the pool goes on working.
+func TestDoReturnsPartPanicToCaller(t *testing.T) {
+	for _, bad := range []int{0, 3} { // 3 runs on the caller
+		var finished atomic.Int32
+		got := func() (r any) {
+			defer func() { r = recover() }()
+			Do(4, func(i int) {
+				if i == bad {
+					panic(partFailure{i})
+				}
+				time.Sleep(time.Millisecond)
+				finished.Add(1)
+			})
+			return nil
+		}()
+		if got != (partFailure{bad}) {
+			t.Fatalf("part %d panicked: Do gave %v", bad, got)
+		}
+		if n := finished.Load(); n != 3 {
+			t.Fatalf("part %d panicked: %d other parts had finished when Do returned, want 3", bad, n)
+		}
+	}
+	var ran atomic.Int32
+	Do(4, func(int) { ran.Add(1) })
+	if ran.Load() != 4 {
+		t.Fatalf("after the panics: %d parts ran, want 4", ran.Load())
+	}
+}
