@@ -16,7 +16,7 @@
 # statistics hook on; wall time of the whole command, model loading and the
 # report included) and, from bench/hookcost, the executor alone with an
 # empty hook and with the statistics hook, over the first 64 items (2048
-# for the MLP).
+# for the MLP), the first batch of 8 a warm-up left out.
 # ONNX Runtime: onnxruntime-node (pinned in bench/ort/package.json), 2 intra-op
 # threads, sequential, all graph optimisations, inference time only.
 # Each figure is the best of $REPS rounds (default 3), the two sides alternating.
