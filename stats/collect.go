@@ -458,7 +458,7 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	}
 	block := ch * inner
 	if inner == 1 {
-		columnMomentsEach(x, ch, func(cc int, b Moments) { acc[cc].Merge(b) })
+		columnMomentsInto(acc, x, ch)
 		return acc
 	}
 	for cc := 0; cc < ch; cc++ {
@@ -471,74 +471,78 @@ func perChannel(acc []Moments, t *tensor.Tensor, axis int) []Moments {
 	return acc
 }
 
-// colAcc is one column's sums in columnMomentsEach, its fields side by side.
-type colAcc struct {
-	shift, s, q float64
-	mn, mx      float32
-	zeros       int64
+// orderKey maps a float32 to an int32 with the same order for non-NaN
+// values, −0 just below +0 (the preference of Go's min and max, which
+// AddFloat32 uses); it is its own inverse on the bit patterns.
+func orderKey(v float32) int32 {
+	b := int32(math.Float32bits(v))
+	return b ^ int32(uint32(b>>31)>>1)
 }
 
-// colAccs keeps columnMomentsEach's accumulators from call to call.
-var colAccs = sync.Pool{New: func() any { return new([]colAcc) }}
+// keyFloat is the float32 of an orderKey.
+func keyFloat(k int32) float64 {
+	return float64(math.Float32frombits(uint32(k ^ int32(uint32(k>>31)>>1))))
+}
 
-// columnMomentsEach gives f the moments of each column of x, a row-major
-// matrix with ch columns, from one pass over the rows: each column is
-// summed about its first row's value as one chunk is (Σd, Σd² in float64,
-// see chunkPass), with its minimum, maximum and zeros. A column holding a
-// NaN or ±Inf is recomputed by AddFloat32. Nothing of ch's size is
-// allocated per call (a batch's allocation of that size first-touched
-// fresh pages, a page fault each, and cost more than the sums themselves).
-func columnMomentsEach(x []float32, ch int, f func(c int, m Moments)) {
+// columnMomentsInto folds the columns of x, a row-major matrix with ch
+// columns, into acc (one Moments per column), a column at a time down the
+// rows with its sums in registers (the rows' cache lines serve 16 columns
+// in turn). Each column is summed about a shift, its running mean (its first
+// value in this batch while it is empty): s = Σ(v − shift),
+// q = Σ(v − shift)² in float64, so that with n values in all
+//
+//	mean' = shift + s/n,  M2' = M2 + q − s²/n
+//
+// (one division per column, no merge of separate batch moments). Extremes
+// are running order keys (branch-free: a per-batch extreme mispredicted on
+// new data and cost more than the sums), with −0 below +0 as math.Min and
+// math.Max order them. A column holding a NaN or ±Inf, in this batch or an
+// earlier one, is folded in by AddFloat32 and Merge instead. Nothing is
+// allocated unless a column has such a value.
+func columnMomentsInto(acc []Moments, x []float32, ch int) {
 	rows := len(x) / ch
 	if rows == 0 {
-		for c := 0; c < ch; c++ {
-			f(c, NewMoments())
-		}
 		return
 	}
-	accp := colAccs.Get().(*[]colAcc)
-	defer colAccs.Put(accp)
-	if cap(*accp) < ch {
-		*accp = make([]colAcc, ch)
-	}
-	acc := (*accp)[:ch]
-	for c, v := range x[:ch] {
-		acc[c] = colAcc{shift: float64(v), mn: v, mx: v}
-	}
-	for r := 0; r < rows; r++ {
-		row := x[r*ch : (r+1)*ch]
-		acc := acc[:len(row)]
-		for c, v := range row {
-			a := &acc[c]
-			d := float64(v) - a.shift
-			a.s += d
-			a.q += d * d
-			// a NaN compares false here; its column is recomputed below
-			if v < a.mn {
-				a.mn = v
-			}
-			if v > a.mx {
-				a.mx = v
-			}
+	x = x[:rows*ch]
+	for c := range acc[:ch] {
+		m := &acc[c]
+		shift := float64(x[c])
+		mn, mx := orderKey(x[c]), orderKey(x[c])
+		if m.N > 0 {
+			shift = m.Mean
+			mn = min(mn, orderKey(float32(m.Min)))
+			mx = max(mx, orderKey(float32(m.Max)))
+		}
+		var s, q float64
+		var zeros int64
+		for i := c; i < len(x); i += ch {
+			v := x[i]
+			d := float64(v) - shift
+			s += d
+			q += d * d
+			k := orderKey(v) // a NaN's key is an extreme; its column is redone below
+			mn = min(mn, k)
+			mx = max(mx, k)
 			if v == 0 {
-				a.zeros++
+				zeros++
 			}
 		}
-	}
-	n := float64(rows)
-	for c := range acc {
-		a := &acc[c]
-		if a.s-a.s != 0 || a.q-a.q != 0 { // a NaN or ±Inf in the column
+		if s-s != 0 || q-q != 0 { // a NaN or ±Inf, now or (through the mean) before
 			col := make([]float32, rows)
 			for r := range col {
 				col[r] = x[r*ch+c]
 			}
-			m := NewMoments()
-			m.AddFloat32(col)
-			f(c, m)
+			b := NewMoments()
+			b.AddFloat32(col)
+			m.Merge(b)
 			continue
 		}
-		f(c, Moments{N: int64(rows), Mean: a.shift + a.s/n, M2: max(0, a.q-a.s*a.s/n),
-			Min: float64(a.mn), Max: float64(a.mx), Zeros: a.zeros})
+		n := float64(m.N + int64(rows))
+		m.M2 = max(0, m.M2+q-s*s/n)
+		m.Mean = shift + s/n
+		m.N += int64(rows)
+		m.Min, m.Max = keyFloat(mn), keyFloat(mx)
+		m.Zeros += zeros
 	}
 }
