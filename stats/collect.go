@@ -404,12 +404,11 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 		la.perChan = perChannel(la.perChan, t, 1)
 	}
 	if la.hist.prepare(b.Min, b.Max) {
-		counts := &r.counts
 		if !hadGrid || la.hist.Exp != e0 || la.hist.Start != s0 {
 			p.lo, p.inv, p.noHist = la.hist.Lo, 1/la.hist.Width, false
-			counts = &tensorPass(x, p).counts
+			r.counts = tensorPass(x, p).counts
 		}
-		for i, n := range counts {
+		for i, n := range r.counts {
 			la.hist.Counts[i] += n
 		}
 	}

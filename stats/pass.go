@@ -214,6 +214,10 @@ type passResult struct {
 	sat    int64           // saturated values
 }
 
+// smallHist is the tensor size (values) up to which a pass counts its
+// histogram in Go instead of through the kernel's count tables.
+const smallHist = 1024
+
 // tablePool recycles count tables.
 var tablePool = sync.Pool{New: func() any { return make([]uint32, histTables*histStride) }}
 
@@ -258,12 +262,24 @@ func chunkPass(x []float32, p passParams, tabs []uint32) (Moments, int64) {
 // tensorPass computes moments, saturation count and histogram counts of x
 // in one read, in parallel over whole chunks for large x; the results do not
 // depend on the number of workers. p.sh is ignored (each chunk has its own).
-func tensorPass(x []float32, p passParams) *passResult {
-	r := &passResult{}
+func tensorPass(x []float32, p passParams) (r passResult) {
 	nc := (len(x) + fastChunk - 1) / fastChunk
 	if nc <= 1 {
 		if p.noHist {
 			r.mom, r.sat = chunkPass(x, p, nil)
+			return r
+		}
+		if len(x) <= smallHist {
+			// the moments by the kernel, the few bins here: no count tables
+			// to clear and flush (cache misses after a layer's weights have
+			// streamed through cost more than counting)
+			p.noHist = true
+			r.mom, r.sat = chunkPass(x, p, nil)
+			for _, v := range x {
+				if f := float64(v); f-f == 0 { // finite
+					r.counts[binOf(f, &p)]++
+				}
+			}
 			return r
 		}
 		tabs := tablePool.Get().([]uint32)

@@ -150,7 +150,7 @@ func testTensorPassMatchesReference(t *testing.T) {
 		{hasSat: true, satLo: 0, satHi: 6, strict: true},
 		{},
 	}
-	for _, n := range []int{1, 17, 5000, fastChunk + 3, fastParallelMin + 4321} {
+	for _, n := range []int{1, 17, smallHist, smallHist + 16, 5000, fastChunk + 3, fastParallelMin + 4321} {
 		for _, specials := range []bool{false, true} {
 			x := passData(rng, n, specials)
 			ref := NewMoments()
@@ -267,7 +267,7 @@ func TestTensorPassIndependentOfWorkers(t *testing.T) {
 	runtime.GOMAXPROCS(3)
 	c := tensorPass(x, p)
 	runtime.GOMAXPROCS(old)
-	if *a != *b || *a != *c {
+	if a != b || a != c {
 		t.Fatalf("results depend on workers:\n%+v\n%+v\n%+v", a.mom, b.mom, c.mom)
 	}
 }
