@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"sync"
+	"sync/atomic"
 
 	"vitals/loader"
 	"vitals/probe"
@@ -124,7 +125,32 @@ type layerAcc struct {
 	satN     int64
 	// per-channel moments along axis 1 (only for values feeding a BatchNormalization)
 	perChan []Moments
+	// sameAs is the observed data input of a node that passes its values on
+	// unchanged, in order (Reshape and the like, sameValueOps); keepLast
+	// marks a layer some other layer is sameAs, whose batch result is then
+	// kept in last.
+	sameAs   *layerAcc
+	keepLast bool
+	last     lastBatch
 }
+
+// lastBatch is what one batch of a layer gave: its moments and the
+// histogram counts added on the grid (exp, start), for the data at data.
+type lastBatch struct {
+	ok        bool
+	data      *float32
+	n         int
+	mom       Moments
+	counts    [HistBins]int64
+	exp       int
+	start     int64
+	hasFinite bool
+}
+
+// sameValueOps pass their input's values on unchanged and in the same order
+// (only the shape may change), so their output's moments and histogram are
+// their input's.
+var sameValueOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true, "Unsqueeze": true, "Identity": true}
 
 // Collector is the probe hook that gathers statistics of every float node
 // output over all batches, plus input and output summaries.
@@ -137,6 +163,7 @@ type Collector struct {
 	perChanWanted map[string]bool
 	inputs        map[string]*layerAcc
 	inputOrder    []string
+	reused        atomic.Int64 // batches whose statistics reuseSame took over
 	out           *outputAcc
 	producer      map[string]*loader.Node
 	consumer      map[string][]*loader.Node // value → the nodes that read it
@@ -302,7 +329,50 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 		c.inputs[in.Name] = &layerAcc{output: in.Name, mom: NewMoments()}
 		c.inputOrder = append(c.inputOrder, in.Name)
 	}
+	for _, la := range c.layers {
+		n := la.node
+		if !sameValueOps[n.OpType] || len(n.Inputs) == 0 || len(n.Outputs) == 0 || la.output != n.Outputs[0] {
+			continue
+		}
+		src := c.byOut[n.Inputs[0]]
+		if src == nil {
+			src = c.inputs[n.Inputs[0]]
+		}
+		if src != nil && la.act.kind == ActNone && !la.act.hasSat && !c.perChanWanted[la.output] {
+			la.sameAs, src.keepLast = src, true
+		}
+	}
 	return c
+}
+
+// reuseSame takes la's batch statistics from its sameAs layer when that
+// layer has just observed these very values (the same memory and length,
+// this batch: buffers are recycled only between batches) on the grid la is
+// about to use; false when it cannot, and nothing is changed then. The
+// result is the one observe would compute.
+func (c *Collector) reuseSame(la *layerAcc, x []float32) bool {
+	s := la.sameAs
+	if s == nil || !s.last.ok || len(x) == 0 || s.last.data != &x[0] || s.last.n != len(x) {
+		return false
+	}
+	b := &s.last
+	if b.hasFinite {
+		mn, mx := b.mom.Min, b.mom.Max
+		if la.hist.Counts != nil {
+			mn, mx = math.Min(la.hist.Min, mn), math.Max(la.hist.Max, mx)
+		}
+		if e, st := histGrid(mn, mx); e != b.exp || st != b.start {
+			return false
+		}
+	}
+	la.mom.Merge(b.mom)
+	if la.hist.prepare(b.mom.Min, b.mom.Max) {
+		for i, n := range b.counts {
+			la.hist.Counts[i] += n
+		}
+	}
+	c.reused.Add(1)
+	return true
 }
 
 // unitKindOf walks upstream from an activation through elementwise and
@@ -368,6 +438,7 @@ func channelAxis(t *tensor.Tensor) int {
 }
 
 func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
+	la.last.ok = false // whatever happens below, no earlier batch's result stays
 	x, ok := t.Data.([]float32)
 	if !ok {
 		f, ok64 := t.Data.([]float64)
@@ -381,6 +452,10 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	}
 	if la.shape == nil {
 		la.shape = append([]int{}, t.Shape...) // the first batch's shape
+	}
+	if c.reuseSame(la, x) {
+		la.keepBatch(x, la.sameAs.last.mom, &la.sameAs.last.counts)
+		return
 	}
 	// One read of the batch gives its moments, saturation count and
 	// histogram counts on the grid of the batches before. The grid depends
@@ -411,7 +486,10 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 		for i, n := range r.counts {
 			la.hist.Counts[i] += n
 		}
+	} else {
+		r.counts = [HistBins]int64{}
 	}
+	la.keepBatch(x, b, &r.counts)
 	if la.act.hasSat {
 		la.sat += r.sat
 		la.satN += int64(len(x))
@@ -544,4 +622,15 @@ func columnMomentsInto(acc []Moments, x []float32, ch int) {
 		m.Min, m.Max = keyFloat(mn), keyFloat(mx)
 		m.Zeros += zeros
 	}
+}
+
+// keepBatch records this batch's result for the layers that are sameAs la.
+func (la *layerAcc) keepBatch(x []float32, b Moments, counts *[HistBins]int64) {
+	if !la.keepLast || len(x) == 0 {
+		return
+	}
+	l := &la.last
+	l.ok, l.data, l.n, l.mom, l.counts = true, &x[0], len(x), b, *counts
+	l.hasFinite = la.hist.Counts != nil && !(math.IsInf(b.Min, 0) || math.IsInf(b.Max, 0) || b.Min > b.Max)
+	l.exp, l.start = la.hist.Exp, la.hist.Start
 }

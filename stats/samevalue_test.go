@@ -1,0 +1,77 @@
+package stats
+
+import (
+	"math/rand/v2"
+	"testing"
+
+	"vitals/internal/modelbuild"
+	"vitals/loader"
+	"vitals/probe"
+	"vitals/tensor"
+)
+
+// Layers that pass their input's values on unchanged (Identity of the
+// model input, Flatten, Unsqueeze, Squeeze, Identity of a Relu) take their
+// batch statistics from that input instead of reading the values again;
+// over batches that widen the histogram's grid, and an all-zero batch,
+// every layer's moments, grid and counts are exactly those of a collector
+// that computes everything (the reference here is the plain computation).
+func TestSameValueLayersReuseExactly(t *testing.T) {
+	b := modelbuild.New("same", 11)
+	b.Input("x", []int{1, 4, 6}, true)
+	b.Node("Identity", "id0", []string{"x"}, []string{"a"})
+	b.Node("Relu", "relu", []string{"a"}, []string{"r"})
+	b.Node("Flatten", "flat", []string{"r"}, []string{"f"}, modelbuild.Attr{Name: "axis", Value: 1})
+	b.Node("Unsqueeze", "unsq", []string{"f"}, []string{"u"}, modelbuild.Attr{Name: "axes", Value: []int64{1}})
+	b.Node("Squeeze", "sq", []string{"u"}, []string{"s"}, modelbuild.Attr{Name: "axes", Value: []int64{1}})
+	b.Node("Identity", "id1", []string{"s"}, []string{"y"})
+	b.Output("y")
+	data, err := b.Bytes()
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := loader.DecodeModel(data, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := probe.Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	reuse, plain := NewCollector(m, p), NewCollector(m, p)
+	for _, la := range plain.layers {
+		la.sameAs = nil
+	}
+	rng := rand.New(rand.NewPCG(9, 10))
+	for k, scale := range []float32{1, 0, 0.5, 8, 3, 1000} {
+		x := tensor.New(tensor.Float32, []int{5, 4, 6})
+		for i := range x.F32() {
+			x.F32()[i] = scale * float32(rng.NormFloat64()+0.3*float64(k))
+		}
+		for _, c := range []*Collector{reuse, plain} {
+			in := map[string]*tensor.Tensor{"x": x}
+			c.AddInputs(in)
+			if _, err := p.Run(in, c.Hook); err != nil {
+				t.Fatal(err)
+			}
+			if err := c.Wait(); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	if n := reuse.reused.Load(); n != 5*6 {
+		t.Fatalf("%d batch results reused, want 30 (5 layers × 6 batches)", n)
+	}
+	for i, la := range reuse.layers {
+		want := plain.layers[i]
+		if la.mom != want.mom || la.hist.Exp != want.hist.Exp || la.hist.Start != want.hist.Start ||
+			la.hist.Min != want.hist.Min || la.hist.Max != want.hist.Max {
+			t.Fatalf("%s: moments %+v grid %d/%d, want %+v %d/%d", la.output, la.mom, la.hist.Exp, la.hist.Start, want.mom, want.hist.Exp, want.hist.Start)
+		}
+		for k := range la.hist.Counts {
+			if la.hist.Counts[k] != want.hist.Counts[k] {
+				t.Fatalf("%s: bin %d has %d, want %d", la.output, k, la.hist.Counts[k], want.hist.Counts[k])
+			}
+		}
+	}
+}
