@@ -132,13 +132,15 @@ type layerAcc struct {
 	sameAs   *layerAcc
 	keepLast bool
 	last     lastBatch
+	batches  int64 // observe calls so far (one per batch)
 }
 
 // lastBatch is what one batch of a layer gave: its moments and the
-// histogram counts added on the grid (exp, start), for the data at data.
+// histogram counts added on the grid (exp, start), for its batches-th
+// observation of n values.
 type lastBatch struct {
 	ok        bool
-	data      *float32
+	seq       int64
 	n         int
 	mom       Moments
 	counts    [HistBins]int64
@@ -147,10 +149,11 @@ type lastBatch struct {
 	hasFinite bool
 }
 
-// sameValueOps pass their input's values on unchanged and in the same order
-// (only the shape may change), so their output's moments and histogram are
-// their input's.
-var sameValueOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true, "Unsqueeze": true, "Identity": true}
+// sameValueOps pass their input's values on unchanged (only the shape may
+// change; Transpose also the order), so their output's histogram is their
+// input's, and so are the moments, up to the rounding of sums taken in
+// another order.
+var sameValueOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true, "Unsqueeze": true, "Identity": true, "Transpose": true}
 
 // Collector is the probe hook that gathers statistics of every float node
 // output over all batches, plus input and output summaries.
@@ -346,13 +349,14 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 }
 
 // reuseSame takes la's batch statistics from its sameAs layer when that
-// layer has just observed these very values (the same memory and length,
-// this batch: buffers are recycled only between batches) on the grid la is
-// about to use; false when it cannot, and nothing is changed then. The
-// result is the one observe would compute.
+// layer's last observation was of this batch (both have been observed as
+// many times: each layer once per batch, the input first) with as many
+// values, and on the grid la is about to use; false when it cannot, and
+// nothing is changed then. The result is the one observe would compute
+// (for Transpose, up to the order of the moments' sums).
 func (c *Collector) reuseSame(la *layerAcc, x []float32) bool {
 	s := la.sameAs
-	if s == nil || !s.last.ok || len(x) == 0 || s.last.data != &x[0] || s.last.n != len(x) {
+	if s == nil || !s.last.ok || len(x) == 0 || s.last.seq != la.batches || s.last.n != len(x) {
 		return false
 	}
 	b := &s.last
@@ -439,6 +443,7 @@ func channelAxis(t *tensor.Tensor) int {
 
 func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	la.last.ok = false // whatever happens below, no earlier batch's result stays
+	la.batches++
 	x, ok := t.Data.([]float32)
 	if !ok {
 		f, ok64 := t.Data.([]float64)
@@ -630,7 +635,7 @@ func (la *layerAcc) keepBatch(x []float32, b Moments, counts *[HistBins]int64) {
 		return
 	}
 	l := &la.last
-	l.ok, l.data, l.n, l.mom, l.counts = true, &x[0], len(x), b, *counts
+	l.ok, l.seq, l.n, l.mom, l.counts = true, la.batches, len(x), b, *counts
 	l.hasFinite = la.hist.Counts != nil && !(math.IsInf(b.Min, 0) || math.IsInf(b.Max, 0) || b.Min > b.Max)
 	l.exp, l.start = la.hist.Exp, la.hist.Start
 }
