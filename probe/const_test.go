@@ -5,6 +5,7 @@ import (
 	"testing"
 
 	"vitals/internal/modelbuild"
+	"vitals/internal/modeltest"
 	"vitals/loader"
 	"vitals/tensor"
 )
@@ -57,15 +58,7 @@ func TestInitializerThroughIdentity(t *testing.T) {
 // error (exported for the package's external tests too).
 func BuiltModel(t testing.TB, b *modelbuild.Builder) *loader.Model {
 	t.Helper()
-	data, err := b.Bytes()
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	return m
+	return modeltest.Model(t, b)
 }
 
 // planOf is BuiltModel then Compile, failing the test on any error.

@@ -6,8 +6,6 @@ import (
 	"testing"
 
 	"vitals/internal/modelbuild"
-	"vitals/loader"
-	"vitals/probe"
 	"vitals/report"
 	"vitals/stats"
 	"vitals/tensor"
@@ -16,18 +14,7 @@ import (
 // analyze builds, runs and checks a model over the given batches of input "x".
 func analyze(t *testing.T, b *modelbuild.Builder, batches ...*tensor.Tensor) *report.Report {
 	t.Helper()
-	data, err := b.Bytes()
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := probe.Compile(m)
-	if err != nil {
-		t.Fatal(err)
-	}
+	m, p := stats.BuildPlan(t, b)
 	c := stats.NewCollector(m, p)
 	for _, x := range batches {
 		in := map[string]*tensor.Tensor{"x": x}

@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"vitals/internal/modelbuild"
+	"vitals/internal/modeltest"
 	"vitals/loader"
 	"vitals/probe"
 	"vitals/tensor"
@@ -31,18 +32,7 @@ func TestSameValueLayersReuseExactly(t *testing.T) {
 	b.Node("Squeeze", "sq", []string{"u"}, []string{"s"}, modelbuild.Attr{Name: "axes", Value: []int64{1}})
 	b.Node("Identity", "id1", []string{"s"}, []string{"y"})
 	b.Output("y")
-	data, err := b.Bytes()
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := loader.DecodeModel(data, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := probe.Compile(m)
-	if err != nil {
-		t.Fatal(err)
-	}
+	m, p := BuildPlan(t, b)
 	reuse, plain := NewCollector(m, p), NewCollector(m, p)
 	for _, la := range plain.layers {
 		la.sameAs = nil
@@ -88,4 +78,16 @@ func TestSameValueLayersReuseExactly(t *testing.T) {
 			}
 		}
 	}
+}
+
+// BuildPlan serialises, decodes and compiles a built model, failing the test
+// on an error (exported for the package's external tests too).
+func BuildPlan(t testing.TB, b *modelbuild.Builder) (*loader.Model, *probe.Plan) {
+	t.Helper()
+	m := modeltest.Model(t, b)
+	p, err := probe.Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return m, p
 }
