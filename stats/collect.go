@@ -126,7 +126,7 @@ type layerAcc struct {
 	// per-channel moments along axis 1 (only for values feeding a BatchNormalization)
 	perChan []Moments
 	// sameAs is the observed data input of a node that passes its values on
-	// unchanged, in order (Reshape and the like, sameValueOps); keepLast
+	// unchanged (Reshape, Transpose and the like: sameValueOps); keepLast
 	// marks a layer some other layer is sameAs, whose batch result is then
 	// kept in last.
 	sameAs   *layerAcc
