@@ -1,6 +1,7 @@
 package gemm
 
 import (
+	"runtime"
 	"sync"
 	"unsafe"
 
@@ -125,9 +126,10 @@ type buffers struct {
 
 // freeBuffers keeps idle packing buffers for good: a sync.Pool would hand
 // them (megabytes each) to the garbage collector at every cycle, and fresh
-// memory costs a page fault per 4 KiB. It holds as many as are in use at
-// once on two cores (a product split over both, or two serial ones).
-var freeBuffers = make(chan *buffers, 4)
+// memory costs a page fault per 4 KiB. It holds two per core at start-up
+// (four on two cores): as many as are in use at once, a product split over
+// every core or serial products side by side on each.
+var freeBuffers = make(chan *buffers, 2*runtime.GOMAXPROCS(0))
 
 func getBuffers() *buffers {
 	select {
