@@ -541,7 +541,8 @@ func (h *intHeap) Pop() any {
 }
 
 // subgraphs lists a node's graph attributes (If's branches, Loop's and
-// Scan's bodies), in attribute order, in a slice of its own.
+// Scan's bodies) in a slice of its own, in no set order (Attrs is a map;
+// every caller treats them as a set).
 func subgraphs(n *loader.Node) []*loader.Graph {
 	var gs []*loader.Graph
 	for _, a := range n.Attrs {

@@ -63,12 +63,6 @@ func anyPositive(x []float32) bool {
 	return false
 }
 
-// everPositiveFast is everPositive with the per-unit scan of anyPositive,
-// for units not yet seen positive only.
-func everPositiveFast(ever []bool, x []float32, units, inner int) {
-	everPositivePending(ever, notPositive(ever), x, units, inner)
-}
-
 // notPositive lists the units u with !ever[u].
 func notPositive(ever []bool) []int32 {
 	var p []int32

@@ -102,7 +102,7 @@ func testFastUnitScan(t *testing.T, units, inner int) {
 	x[5*inner+inner/2] = float32(math.NaN()) // a NaN next to positives in a dead unit's neighbour
 	a, b := make([]bool, units), make([]bool, units)
 	everPositive(a, x, units, inner)
-	everPositiveFast(b, x, units, inner)
+	everPositivePending(b, notPositive(b), x, units, inner)
 	for u := range a {
 		if a[u] != b[u] {
 			t.Fatalf("inner %d, unit %d: fast %v, want %v", inner, u, b[u], a[u])
@@ -136,7 +136,10 @@ func BenchmarkHistogram(b *testing.B) {
 }
 
 func BenchmarkEverPositiveFast(b *testing.B) {
-	benchStats(b, func(x []float32) { everPositiveFast(make([]bool, 64), x, 64, len(x)/64) })
+	benchStats(b, func(x []float32) {
+		ever := make([]bool, 64)
+		everPositivePending(ever, notPositive(ever), x, 64, len(x)/64)
+	})
 }
 
 func BenchmarkCountSaturated(b *testing.B) {
@@ -144,7 +147,7 @@ func BenchmarkCountSaturated(b *testing.B) {
 	benchStats(b, func(x []float32) { countSaturated(x, ai) })
 }
 
-// everPositive is the plain reference scan for everPositiveFast: it sets ever[u] when any element of unit u is > 0; data is laid
+// everPositive is the plain reference scan for everPositivePending: it sets ever[u] when any element of unit u is > 0; data is laid
 // out as [outer, units, inner].
 func everPositive(ever []bool, x []float32, units, inner int) {
 	block := units * inner
