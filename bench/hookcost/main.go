@@ -3,9 +3,13 @@
 // (2) the statistics collector's hook (what `vitals check` runs), and prints
 // the best-of-N time per image of each and the overhead, the first batch (a
 // warm-up) left out. With -ops it also prints the time per operator type
-// (hook off, buffers recycled, convolutions split by kind).
+// (hook off, buffers recycled, convolutions split by kind). With -floor it
+// also times (3) a hook that only takes each node output's moments on a
+// worker, as the collector queues them (stats.FastMoments: sum, sum of
+// squares, extremes and counts, no histogram): the least any statistics
+// pass reading the outputs after the kernels wrote them could cost.
 //
-//	go run ./bench/hookcost -model M.onnx -data X.npy [-batch 8] [-samples 64] [-reps 3] [-ops]
+//	go run ./bench/hookcost -model M.onnx -data X.npy [-batch 8] [-samples 64] [-reps 3] [-ops] [-floor]
 package main
 
 import (
@@ -14,6 +18,7 @@ import (
 	"os"
 	"runtime/pprof"
 	"sort"
+	"sync"
 	"time"
 
 	"vitals/gemm"
@@ -33,6 +38,7 @@ func main() {
 	prof := flag.String("cpuprofile", "", "write a CPU profile of the whole run")
 	kernel := flag.Bool("kernel", false, "print the SGEMM micro-kernel in use and exit")
 	flag.BoolVar(&outBytes, "outputs", false, "also print the bytes of node outputs per item (what the statistics read)")
+	flag.BoolVar(&floor, "floor", false, "also time a hook that only takes each output's moments")
 	flag.BoolVar(&terse, "terse", false, "print only the two times (ms/image) separated by \" / \"")
 	flag.Parse()
 	if *kernel {
@@ -91,8 +97,14 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		for r := 0; r < 1; r++ {
 			c := stats.NewCollector(m, p)
 			hook := probe.Hook(empty)
-			if mode == 1 {
+			var mo *momentsOnly
+			switch mode {
+			case 1:
 				hook = c.Hook
+			case 2:
+				mo = newMomentsOnly()
+				defer mo.close()
+				hook = mo.hook
 			}
 			// activation buffers recycled from batch to batch, as vitals check does
 			pool := tensor.NewPool(1 << 30)
@@ -106,7 +118,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				if i == 1 {
 					t0 = time.Now()
 				}
-				if mode > 0 {
+				if mode == 1 {
 					c.AddInputs(b)
 				}
 				outs, released, err := p.RunReleased(b, hook)
@@ -115,6 +127,9 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				}
 				if err := c.Sync(); err != nil {
 					return 0, err
+				}
+				if mo != nil {
+					mo.wait()
 				}
 				keep := []*tensor.Tensor{b[m.Graph.Inputs[0].Name]}
 				for _, t := range outs {
@@ -137,7 +152,11 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	if _, err := p.Run(batches[0], nil); err != nil {
 		return err
 	}
-	var best [2]time.Duration
+	modes := 2
+	if floor {
+		modes = 3
+	}
+	best := make([]time.Duration, modes)
 	for i := range best {
 		best[i] = 1 << 62
 	}
@@ -168,11 +187,18 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	}
 	off, on := best[0], best[1]
 	if terse {
-		fmt.Printf("%.3g / %.3g (+%.0f%%)\n", ms(off), ms(on), 100*(float64(on)/float64(off)-1))
+		fmt.Printf("%.3g / %.3g (+%.0f%%)", ms(off), ms(on), 100*(float64(on)/float64(off)-1))
+		if floor {
+			fmt.Printf(" / moments only %.3g (+%.0f%%)", ms(best[2]), 100*(float64(best[2])/float64(off)-1))
+		}
+		fmt.Println()
 		return nil
 	}
 	fmt.Printf("%s: batch %d, %d images, best of %d: empty hook %.2f ms/image; statistics hook %.2f ms/image (+%.1f%%)\n",
 		modelPath, batch, n, reps, ms(off), ms(on), 100*(float64(on)/float64(off)-1))
+	if floor {
+		fmt.Printf("moments-only hook %.2f ms/image (+%.1f%%)\n", ms(best[2]), 100*(float64(best[2])/float64(off)-1))
+	}
 	if ops {
 		byOp := map[string]time.Duration{}
 		last := time.Now()
@@ -217,7 +243,53 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	return nil
 }
 
-var terse, outBytes bool
+var terse, outBytes, floor bool
+
+// momentsOnly is the -floor hook: each float32 node output's moments
+// (stats.FastMoments), taken on the calling goroutine for small tensors and
+// on one worker for the others, as the collector does (see
+// stats.Collector.queue), with at most 4 tensors waiting.
+type momentsOnly struct {
+	jobs chan []float32
+	wg   sync.WaitGroup
+	// sums of the means, so that nothing is optimised away: one per goroutine
+	sink, sinkW float64
+}
+
+func newMomentsOnly() *momentsOnly {
+	mo := &momentsOnly{jobs: make(chan []float32, 4)}
+	go func() {
+		for x := range mo.jobs {
+			mo.sinkW += stats.FastMoments(x).Mean
+			mo.wg.Done()
+		}
+	}()
+	return mo
+}
+
+func (mo *momentsOnly) hook(_ *loader.Node, outs []*tensor.Tensor) error {
+	for _, t := range outs {
+		if t == nil {
+			continue
+		}
+		x, ok := t.Data.([]float32)
+		if !ok {
+			continue
+		}
+		if len(x) <= 1<<14 {
+			mo.sink += stats.FastMoments(x).Mean
+			continue
+		}
+		mo.wg.Add(1)
+		mo.jobs <- x
+	}
+	return nil
+}
+
+// wait returns once every queued tensor is done (before buffers are recycled).
+func (mo *momentsOnly) wait() { mo.wg.Wait() }
+
+func (mo *momentsOnly) close() { mo.wg.Wait(); close(mo.jobs) }
 
 func ms(d time.Duration) float64 { return float64(d) / 1e6 }
 
