@@ -65,9 +65,9 @@ type hookRecord struct {
 	outs [][]float32
 }
 
-// recordRun runs the batches through RunReleased with a pool recycling the
-// released buffers between batches (as vitals check does) and records, in
-// call order, a copy of every output the hook sees.
+// recordRun runs the batches through RunRecycled with a pool recycling the
+// released buffers within and between batches (as vitals check does) and
+// records, in call order, a copy of every output the hook sees.
 func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
 	t.Helper()
 	pool := tensor.NewPool(1 << 30)
@@ -83,7 +83,7 @@ func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
 		return nil
 	}
 	for _, x := range batches {
-		outs, released, err := p.RunReleased(map[string]*tensor.Tensor{"x": x}, hook)
+		outs, released, err := p.RunRecycled(map[string]*tensor.Tensor{"x": x}, hook, pool.Put)
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -327,22 +327,29 @@ func (p *Plan) Run(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*ten
 	return p.run(inputs, nil, hook)
 }
 
-// RunReleased is Run that also returns the values released during the run
-// (dead once the hook is done with them), for tensor.Pool.Recycle.
-func (p *Plan) RunReleased(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
+// RunRecycled is Run that hands a released value (one no later step reads)
+// to dead as soon as the step that read it last is done and the hook has
+// seen that step's outputs, when the value was produced by a step of this
+// run and its storage overlaps no value still alive: no later step's input,
+// no graph output, no output computed ahead by a fused step. dead may then
+// reuse that storage for the rest of the run (tensor.Pool.Put, once the
+// hook's own readers are done with it). The released values it does not get
+// (all of them when dead is nil) are returned, for tensor.Pool.Recycle after
+// the batch.
+func (p *Plan) RunRecycled(inputs map[string]*tensor.Tensor, hook Hook, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
 	if err := p.checkInputs(inputs); err != nil {
 		return nil, nil, err
 	}
 	var released []*tensor.Tensor
-	out, err := p.runCollect(inputs, nil, hook, &released)
+	out, err := p.runCollect(inputs, nil, hook, &released, dead)
 	return out, released, err
 }
 
 func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (map[string]*tensor.Tensor, error) {
-	return p.runCollect(inputs, parent, hook, nil)
+	return p.runCollect(inputs, parent, hook, nil, nil)
 }
 
-func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook, released *[]*tensor.Tensor) (map[string]*tensor.Tensor, error) {
+func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook, released *[]*tensor.Tensor, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, error) {
 	env := &Scope{vals: make(map[string]*tensor.Tensor, len(p.Graph.Initializers)+len(inputs)+16), parent: parent}
 	for name, t := range p.Graph.Initializers {
 		env.vals[name] = t
@@ -351,6 +358,10 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 		env.vals[name] = t
 	}
 	rs := &runState{plan: p, hook: hook}
+	var rec *recycler
+	if dead != nil && released != nil {
+		rec = newRecycler(env, dead)
+	}
 	// fused[j]: step j's output, computed already by the step fused with it
 	var fused map[int]*tensor.Tensor
 	for i := range p.Steps {
@@ -402,13 +413,23 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
 			}
 		}
+		if rec != nil {
+			rec.add(s.Node.Outputs, env)
+		}
+		var gone []*tensor.Tensor
 		for _, name := range p.release[i] {
-			if released != nil {
-				if t := env.vals[name]; t != nil && t.DType == tensor.Float32 {
-					*released = append(*released, t)
-				}
+			if t := env.vals[name]; released != nil && t != nil && t.DType == tensor.Float32 {
+				gone = append(gone, t)
 			}
 			delete(env.vals, name)
+			if rec != nil {
+				delete(rec.live, name)
+			}
+		}
+		if rec != nil {
+			*released = rec.settle(gone, fused, *released)
+		} else if released != nil {
+			*released = append(*released, gone...)
 		}
 	}
 	out := make(map[string]*tensor.Tensor, len(p.Graph.Outputs))

@@ -179,6 +179,40 @@ type Collector struct {
 	done  chan struct{}
 	errMu sync.Mutex
 	err   error
+	// sent counts the items put on jobs, handled the ones the worker has
+	// finished (in the same order); pend holds dead tensors that wait for
+	// the worker to pass the mark sent had when they died (AfterObserved).
+	sent, handled atomic.Int64
+	pend          []pendingPut
+	put           func(*tensor.Tensor)
+}
+
+type pendingPut struct {
+	t    *tensor.Tensor
+	mark int64
+}
+
+// AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
+// dead tensor on to put once the statistics worker has finished every
+// tensor queued before it died (the tensor itself among them, if it was
+// queued), at once when it has. Sync and Wait pass on what is still
+// waiting. Call the function, Sync and Wait from one goroutine.
+func (c *Collector) AfterObserved(put func(*tensor.Tensor)) func(*tensor.Tensor) {
+	c.put = put
+	return func(t *tensor.Tensor) {
+		c.pend = append(c.pend, pendingPut{t, c.sent.Load()})
+		c.passOn(c.handled.Load())
+	}
+}
+
+// passOn hands to put the waiting tensors whose mark the worker has passed.
+func (c *Collector) passOn(handled int64) {
+	i := 0
+	for ; i < len(c.pend) && c.pend[i].mark <= handled; i++ {
+		c.put(c.pend[i].t)
+		c.pend[i] = pendingPut{}
+	}
+	c.pend = c.pend[:copy(c.pend, c.pend[i:])]
 }
 
 func (c *Collector) failed() error {
@@ -198,11 +232,14 @@ type obsJob struct {
 // far (after it, the batch's tensors are no longer read by the collector).
 func (c *Collector) Sync() error {
 	if c.jobs == nil {
+		c.passOn(c.sent.Load())
 		return c.failed()
 	}
 	done := make(chan struct{})
+	c.sent.Add(1)
 	c.jobs <- obsJob{sync: done}
 	<-done
+	c.passOn(c.sent.Load())
 	return c.failed()
 }
 
@@ -227,6 +264,7 @@ func (c *Collector) queue(j obsJob) error {
 	if err := c.failed(); err != nil {
 		return err
 	}
+	c.sent.Add(1)
 	c.jobs <- j
 	return nil
 }
@@ -235,13 +273,14 @@ func (c *Collector) work() {
 	defer close(c.done)
 	for j := range c.jobs {
 		if j.sync != nil {
+			c.handled.Add(1)
 			close(j.sync)
 			continue
 		}
-		if c.failed() != nil {
-			continue // drain after a failure
+		if c.failed() == nil { // after a failure, only drain
+			c.process(j)
 		}
-		c.process(j)
+		c.handled.Add(1)
 	}
 }
 
@@ -276,6 +315,7 @@ func (c *Collector) Wait() error {
 		<-c.done
 		c.jobs = nil
 	}
+	c.passOn(c.sent.Load())
 	return c.failed()
 }
 

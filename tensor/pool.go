@@ -14,10 +14,12 @@ import (
 //
 // Protocol: UsePool(p) makes MakeSlice draw float32 buffers of at least
 // poolMin elements from p (zeroed) and record every such buffer it hands
-// out. After a batch, when nothing reads the batch's released values any
-// more, Recycle(released, keep) returns to the pool those released buffers
-// that p itself handed out in this batch and that overlap no kept buffer
-// (graph outputs, inputs), and forgets the rest.
+// out. During a batch, Put(t) returns the buffer of a value that is dead
+// and shares storage with no live value, for the rest of the batch. After
+// a batch, when nothing reads the batch's released values any more,
+// Recycle(released, keep) returns to the pool those released buffers that
+// p itself handed out in this batch and that overlap no kept buffer (graph
+// outputs, inputs), and forgets the rest.
 type Pool struct {
 	mu     sync.Mutex
 	free   map[int][][]float32
@@ -140,6 +142,28 @@ func (p *Pool) Recycle(released, keep []*Tensor) {
 		}
 	}
 	clear(p.issued)
+}
+
+// Put takes back at once the buffer of t, a tensor the caller knows to be
+// dead and shared by no live tensor, when the pool handed out that whole
+// buffer since the last Recycle (otherwise it does nothing), so that a later
+// allocation of the same batch can reuse it. A buffer put back is forgotten
+// as issued: a Recycle that still lists t passes it over.
+func (p *Pool) Put(t *Tensor) {
+	d, ok := t.Data.([]float32)
+	if !ok || len(d) == 0 {
+		return
+	}
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if n, issued := p.issued[&d[0]]; !issued || n != len(d) {
+		return
+	}
+	delete(p.issued, &d[0])
+	if p.bytes+int64(4*len(d)) <= p.limit {
+		p.free[len(d)] = append(p.free[len(d)], d[:len(d):len(d)])
+		p.bytes += int64(4 * len(d))
+	}
 }
 
 func (p *Pool) issuedLen(ptr *float32) (int, bool) {

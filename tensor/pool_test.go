@@ -66,3 +66,29 @@ func TestPoolNewUninit(t *testing.T) {
 		t.Fatal("New after NewUninit must still clear")
 	}
 }
+
+// Put hands a whole buffer the pool issued back for the rest of the batch,
+// once: a view, a foreign buffer and a buffer put back already are passed
+// over.
+func TestPoolPut(t *testing.T) {
+	p := NewPool(1 << 30)
+	UsePool(p)
+	defer UsePool(nil)
+	const n = poolMin
+	a := New(Float32, []int{2 * n})
+	p.Put(&Tensor{DType: Float32, Shape: []int{n}, Data: a.F32()[:n]}) // a view: not the whole buffer
+	p.Put(From(make([]float32, 2*n), 2*n))                          // not from the pool
+	if len(p.free[2*n]) != 0 || len(p.free[n]) != 0 {
+		t.Fatal("a view or a foreign buffer was taken back")
+	}
+	a.F32()[5] = 3
+	p.Put(a)
+	p.Put(a) // twice: once only
+	if got := len(p.free[2*n]); got != 1 {
+		t.Fatalf("%d buffers taken back, want 1", got)
+	}
+	b := New(Float32, []int{2 * n}) // the same batch reuses it, zeroed
+	if &b.F32()[0] != &a.F32()[0] || b.F32()[5] != 0 {
+		t.Fatal("the buffer put back was not reused zeroed")
+	}
+}

@@ -19,6 +19,7 @@ import (
 	"runtime/pprof"
 	"sort"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"vitals/gemm"
@@ -106,10 +107,18 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				defer mo.close()
 				hook = mo.hook
 			}
-			// activation buffers recycled from batch to batch, as vitals check does
+			// activation buffers recycled within and from batch to batch, as
+			// vitals check does
 			pool := tensor.NewPool(1 << 30)
 			tensor.UsePool(pool)
 			defer tensor.UsePool(nil)
+			dead := pool.Put
+			switch mode {
+			case 1:
+				dead = c.AfterObserved(pool.Put)
+			case 2:
+				dead = mo.afterRead(pool.Put)
+			}
 			// the first batch is a warm-up (the pool's buffers first-touched,
 			// each histogram's grid found by a second pass), untimed when
 			// there are others: the figures stand for a long run
@@ -121,7 +130,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				if mode == 1 {
 					c.AddInputs(b)
 				}
-				outs, released, err := p.RunReleased(b, hook)
+				outs, released, err := p.RunRecycled(b, hook, dead)
 				if err != nil {
 					return 0, err
 				}
@@ -208,7 +217,8 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			last = now
 			return nil
 		}
-		// buffers recycled as in the timed runs; the first round warms them
+		// buffers recycled as in the timed runs (the hook reads nothing after
+		// it returns); the first round warms them
 		pool := tensor.NewPool(1 << 30)
 		tensor.UsePool(pool)
 		defer tensor.UsePool(nil)
@@ -216,7 +226,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			clear(byOp)
 			for _, b := range batches {
 				last = time.Now()
-				outs, released, err := p.RunReleased(b, hook)
+				outs, released, err := p.RunRecycled(b, hook, pool.Put)
 				if err != nil {
 					return err
 				}
@@ -254,6 +264,13 @@ type momentsOnly struct {
 	wg   sync.WaitGroup
 	// sums of the means, so that nothing is optimised away: one per goroutine
 	sink, sinkW float64
+	// tensors queued and done, and dead tensors waiting for the worker to
+	// reach the count queued when they died (as Collector.AfterObserved)
+	sent    int64
+	handled atomic.Int64
+	pend    []*tensor.Tensor
+	marks   []int64
+	put     func(*tensor.Tensor)
 }
 
 func newMomentsOnly() *momentsOnly {
@@ -261,10 +278,29 @@ func newMomentsOnly() *momentsOnly {
 	go func() {
 		for x := range mo.jobs {
 			mo.sinkW += stats.FastMoments(x).Mean
+			mo.handled.Add(1)
 			mo.wg.Done()
 		}
 	}()
 	return mo
+}
+
+// afterRead is the run's dead-value function: t goes to put once the worker
+// has read every tensor queued before t died.
+func (mo *momentsOnly) afterRead(put func(*tensor.Tensor)) func(*tensor.Tensor) {
+	mo.put = put
+	return func(t *tensor.Tensor) {
+		mo.pend, mo.marks = append(mo.pend, t), append(mo.marks, mo.sent)
+		mo.passOn(mo.handled.Load())
+	}
+}
+
+func (mo *momentsOnly) passOn(done int64) {
+	i := 0
+	for ; i < len(mo.pend) && mo.marks[i] <= done; i++ {
+		mo.put(mo.pend[i])
+	}
+	mo.pend, mo.marks = mo.pend[i:], mo.marks[i:]
 }
 
 func (mo *momentsOnly) hook(_ *loader.Node, outs []*tensor.Tensor) error {
@@ -281,13 +317,14 @@ func (mo *momentsOnly) hook(_ *loader.Node, outs []*tensor.Tensor) error {
 			continue
 		}
 		mo.wg.Add(1)
+		mo.sent++
 		mo.jobs <- x
 	}
 	return nil
 }
 
 // wait returns once every queued tensor is done (before buffers are recycled).
-func (mo *momentsOnly) wait() { mo.wg.Wait() }
+func (mo *momentsOnly) wait() { mo.wg.Wait(); mo.passOn(mo.sent) }
 
 func (mo *momentsOnly) close() { mo.wg.Wait(); close(mo.jobs) }
 

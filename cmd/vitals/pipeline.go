@@ -444,6 +444,9 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 	pool := tensor.NewPool(poolLimit)
 	tensor.UsePool(pool)
 	defer tensor.UsePool(nil)
+	// and within a batch: a value whose last reader has run goes back to
+	// the pool once the statistics worker is done with it
+	dead := c.AfterObserved(pool.Put)
 	// a signal also stops a long batch, after the node that is running
 	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
 		select {
@@ -503,7 +506,7 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 		}
 		done += batchLen(batch)
 		c.AddInputs(batch)
-		outs, released, err := l.plan.RunReleased(batch, hook)
+		outs, released, err := l.plan.RunRecycled(batch, hook, dead)
 		if errors.Is(err, errInterrupted) {
 			return nil, errInterrupted
 		}
