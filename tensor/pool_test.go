@@ -77,7 +77,7 @@ func TestPoolPut(t *testing.T) {
 	const n = poolMin
 	a := New(Float32, []int{2 * n})
 	p.Put(&Tensor{DType: Float32, Shape: []int{n}, Data: a.F32()[:n]}) // a view: not the whole buffer
-	p.Put(From(make([]float32, 2*n), 2*n))                          // not from the pool
+	p.Put(From(make([]float32, 2*n), 2*n))                             // not from the pool
 	if len(p.free[2*n]) != 0 || len(p.free[n]) != 0 {
 		t.Fatal("a view or a foreign buffer was taken back")
 	}
