@@ -1,6 +1,7 @@
 package main
 
 import (
+	"fmt"
 	"io"
 	"math"
 
@@ -48,6 +49,8 @@ func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 		return 2, err
 	}
 	defer newFeed.Close()
+	// NEW's batches must be OLD's for the outputs to agree batch by batch
+	newFeed.replay, newFeed.auto = oldFeed.sizes, false
 	ag := &agreeAcc{}
 	newName := firstOutput(newM)
 	batchIdx := 0
@@ -62,6 +65,7 @@ func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 	if err != nil {
 		return 2, err
 	}
+	fmt.Fprint(stderr, oldFeed.note()+newFeed.note())
 	stats.Compare(oldCol, newCol, oldM.model.Graph, newM.model.Graph, ag.result(newName))
 	r := newCol.Report
 	r.Version = version

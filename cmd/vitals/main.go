@@ -140,7 +140,7 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.StringArrayVar(&c.data, "data", nil, "sample: a .npy/.npz/.pb/.csv file or a folder of images; INPUT=PATH per input for several inputs (repeatable)")
 	fs.StringVar(&c.labels, "labels", "", "integer class ids (.npy), one per sample: adds accuracy and cross-entropy")
 	fs.IntVar(&c.samples, "samples", 0, "use at most N samples (0: all; 64 for synthetic input)")
-	fs.IntVar(&c.batch, "batch", 32, "samples per batch")
+	fs.IntVar(&c.batch, "batch", 0, "samples per batch (default: the model's fixed batch size, or chosen from the size of its activations after one sample, 1 to 32)")
 	fs.StringVar(&c.out, "out", "", "write report.json, plots and the report of --format into this folder")
 	fs.StringVar(&c.format, "format", "text", "report format on stdout (and in --out): "+strings.Join(formatNames(), "|"))
 	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
@@ -258,6 +258,7 @@ func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
 	if err != nil {
 		return 2, err
 	}
+	fmt.Fprint(stderr, feed.note())
 	r := col.Report
 	r.Version = version
 	annotateInputs(r, c.data)

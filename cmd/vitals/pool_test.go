@@ -10,7 +10,8 @@ import (
 // value is alive: the residual CNN (skip connections, tensors above the pool's
 // minimum size) run one sample per batch, so every batch after the first runs
 // on recycled buffers, must give the statistics of one batch of all three
-// samples (reference model and input from testdata/ref, made with torch 1.13).
+// samples (reference model and input from testdata/ref, made with torch 1.13),
+// and so must the batches chosen without --batch (one sample, then the rest).
 func TestRecycledStorageGivesSameStatistics(t *testing.T) {
 	type layer struct {
 		Node                string
@@ -19,7 +20,11 @@ func TestRecycledStorageGivesSameStatistics(t *testing.T) {
 		DeadFraction        *float64 `json:"dead_fraction"`
 	}
 	run := func(batch string) []layer {
-		code, out, stderr := runCLI(t, "check", "../../testdata/ref/resnet_tiny.onnx", "--data", "../../testdata/ref/resnet_tiny.input.npy", "--batch", batch, "--format", "json")
+		args := []string{"check", "../../testdata/ref/resnet_tiny.onnx", "--data", "../../testdata/ref/resnet_tiny.input.npy", "--format", "json"}
+		if batch != "" {
+			args = append(args, "--batch", batch)
+		}
+		code, out, stderr := runCLI(t, args...)
 		if code > 1 {
 			t.Fatalf("batch %s: exit %d: %s", batch, code, stderr)
 		}
@@ -29,9 +34,9 @@ func TestRecycledStorageGivesSameStatistics(t *testing.T) {
 		}
 		return r.Layers
 	}
-	one, all := run("1"), run("3")
-	if len(one) != len(all) || len(one) == 0 {
-		t.Fatalf("%d vs %d layers", len(one), len(all))
+	one, all, auto := run("1"), run("3"), run("")
+	if len(one) != len(all) || len(auto) != len(all) || len(one) == 0 {
+		t.Fatalf("%d, %d and %d layers", len(one), len(all), len(auto))
 	}
 	near := func(a, b *float64) bool {
 		if a == nil || b == nil {
@@ -43,6 +48,9 @@ func TestRecycledStorageGivesSameStatistics(t *testing.T) {
 		a, b := one[i], all[i]
 		if a.Count != b.Count || !near(a.Mean, b.Mean) || !near(a.Std, b.Std) || !near(a.Min, b.Min) || !near(a.Max, b.Max) || !near(a.DeadFraction, b.DeadFraction) {
 			t.Errorf("%s: batch 1 %+v vs batch 3 %+v", a.Node, a, b)
+		}
+		if c := auto[i]; c.Count != b.Count || !near(c.Mean, b.Mean) || !near(c.Std, b.Std) || !near(c.Min, b.Min) || !near(c.Max, b.Max) || !near(c.DeadFraction, b.DeadFraction) {
+			t.Errorf("%s: chosen batches %+v vs batch 3 %+v", c.Node, c, b)
 		}
 	}
 }

@@ -1,0 +1,113 @@
+package main
+
+import (
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"vitals/internal/modelbuild"
+	"vitals/loader"
+	"vitals/tensor"
+)
+
+// A model exported with a fixed batch size (the first axis a number, as
+// exporters write it without a dynamic batch axis; here 4, with a Reshape
+// whose target shape holds that 4 too) runs in batches of exactly that size
+// when --batch is left out; the samples that fall short of a last full
+// batch are left out with a note, a different --batch is refused naming the
+// input, and too few samples for one batch is an error.
+func TestFixedBatchModel(t *testing.T) {
+	dir := t.TempDir()
+	b := modelbuild.New("fixed", 13)
+	b.Input("x", []int{4, 6}, false)
+	w := make([]float32, 6*5)
+	for i := range w {
+		w[i] = float32(i%7) - 3
+	}
+	b.Init("w", []int{6, 5}, w)
+	b.Node("MatMul", "mm", []string{"x", "w"}, []string{"h"})
+	b.Node("Relu", "relu", []string{"h"}, []string{"r"})
+	b.Node("Constant", "shape", nil, []string{"s"}, modelbuild.Attr{Name: "value_ints", Value: []int64{4, 5, 1}})
+	b.Node("Reshape", "reshape", []string{"r", "s"}, []string{"y"})
+	b.Output("y")
+	model := filepath.Join(dir, "fixed.onnx")
+	if err := b.Write(model); err != nil {
+		t.Fatal(err)
+	}
+	sample := func(n int) string {
+		x := tensor.New(tensor.Float32, []int{n, 6})
+		for i := range x.F32() {
+			x.F32()[i] = float32(i%11) / 5
+		}
+		p := filepath.Join(dir, "x.npy")
+		f, err := os.Create(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		if err := loader.WriteNpy(f, x); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	code, out, stderr := runCLI(t, "check", model, "--data", sample(10), "--format", "json")
+	if code > 1 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var r struct {
+		Input  struct{ Samples int }
+		Layers []struct {
+			Node  string
+			Count int64
+		}
+	}
+	if err := json.Unmarshal([]byte(out), &r); err != nil {
+		t.Fatal(err)
+	}
+	if r.Input.Samples != 8 {
+		t.Errorf("%d samples used, want 8 (two batches of 4)", r.Input.Samples)
+	}
+	for _, l := range r.Layers {
+		if l.Node == "relu" && l.Count != 8*5 {
+			t.Errorf("relu observed %d values, want 40", l.Count)
+		}
+	}
+	if !strings.Contains(stderr, "batch size to 4") || !strings.Contains(stderr, "last 2 samples") {
+		t.Errorf("no note on the samples left out: %q", stderr)
+	}
+	code, _, stderr = runCLI(t, "check", model, "--data", sample(10), "--batch", "3")
+	if code != 2 || !strings.Contains(stderr, `input "x"`) || !strings.Contains(stderr, "--batch 4") {
+		t.Errorf("--batch 3: exit %d, %q", code, stderr)
+	}
+	code, _, stderr = runCLI(t, "check", model, "--data", sample(3))
+	if code != 2 || !strings.Contains(stderr, "only 3 samples") {
+		t.Errorf("3 samples: exit %d, %q", code, stderr)
+	}
+}
+
+// Without --batch the batch size follows the node outputs per sample
+// (autoBatchBytes, measured: see its comment), within the memory budget.
+func TestChooseBatch(t *testing.T) {
+	old := tensor.SetMemoryBudget(0)
+	defer tensor.SetMemoryBudget(old)
+	for _, c := range []struct {
+		perItem int64
+		want    int
+	}{
+		{23e6, 8},  // a ResNet-18-shaped CNN at 224×224
+		{52e6, 3},  // a MobileNetV2-shaped CNN
+		{40e3, 32}, // an MLP: capped at autoBatchMax
+		{2e9, 1},   // more than autoBatchBytes for one sample
+		{0, 32},
+	} {
+		if got := chooseBatch(c.perItem); got != c.want {
+			t.Errorf("chooseBatch(%d) = %d, want %d", c.perItem, got, c.want)
+		}
+	}
+	tensor.SetMemoryBudget(400 << 20) // a quarter is 100 MiB: 4 samples of 23 MB
+	if got := chooseBatch(23e6); got != 4 {
+		t.Errorf("within a 400 MiB budget: chooseBatch(23e6) = %d, want 4", got)
+	}
+}
