@@ -12,7 +12,7 @@ import (
 
 // recycleTestModel: values whose storage outlives them through views, each
 // followed by an allocation of the same size that would take that storage
-// if it were handed back too early: Reshape and Flatten views of a Relu
+// if it were handed back too early: Flatten views of a Relu
 // output read after a Sigmoid of the same size, a Conv whose fused Clip
 // output waits while same-sized values come and go, and a graph output that
 // is a view of an intermediate value.
