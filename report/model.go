@@ -91,11 +91,13 @@ type Histogram struct {
 
 // Weight is the statistics of one weight tensor of a Conv, Gemm or MatMul node.
 type Weight struct {
-	Name  string   `json:"name"`
-	Node  string   `json:"node"`
-	Shape []int    `json:"shape"`
-	FanIn int      `json:"fan_in"`
-	Std   *float64 `json:"std"`
+	Name  string `json:"name"`
+	Node  string `json:"node"`
+	Shape []int  `json:"shape"`
+	FanIn int    `json:"fan_in"`
+	// FanOut is dims[0]·∏k for a convolution, the output units of a dense layer.
+	FanOut int      `json:"fan_out"`
+	Std    *float64 `json:"std"`
 	// Gain is std·√fan_in.
 	Gain *float64 `json:"gain"`
 	// ScaleVsHe is gain/√2 (He et al. 2015); ScaleVsXavier is gain/1 (Glorot & Bengio 2010).

@@ -113,12 +113,13 @@ func sampleLayers() []sampleLayer {
 
 func sampleWeights() []Weight {
 	w := func(name, node string, shape []int, std float64, followed string) Weight {
-		fan := 1
-		for _, d := range shape[1:] {
+		fan, fanOut := shape[1], shape[0]
+		for _, d := range shape[2:] {
 			fan *= d
+			fanOut *= d
 		}
 		g := std * math.Sqrt(float64(fan))
-		return Weight{Name: name, Node: node, Shape: shape, FanIn: fan, Std: Num(std), Gain: Num(round4(g)),
+		return Weight{Name: name, Node: node, Shape: shape, FanIn: fan, FanOut: fanOut, Std: Num(std), Gain: Num(round4(g)),
 			ScaleVsHe: Num(round4(g / math.Sqrt2)), ScaleVsXavier: Num(round4(g)), Rows: shape[0], FollowedBy: followed}
 	}
 	ws := []Weight{

@@ -183,9 +183,50 @@ func compoundGain(p *Pass, st Stack) *float64 {
 	return report.Num(prod)
 }
 
+// initRule is the weight gain g = std·√fan_in one initialisation rule gives.
+type initRule struct {
+	name string
+	gain float64
+}
+
+// initRules are the gains the usual initialisation rules give a layer of
+// this fan-in and fan-out before the activation that follows (fanOut 0:
+// unknown, the forward rule alone).
+//
+//	ReLU family: Var = 2/fan_in → √2 (He et al. 2015, forward case);
+//	  Var = 2/fan_out → √(2·fan_in/fan_out) (their backward case, which they
+//	  show works as well; frameworks' "fan_out" mode, used by the common
+//	  ResNet and MobileNet definitions); Glorot's normalised rule with the
+//	  rectifier gain √2, Var = 4/(fan_in+fan_out) → √(4·fan_in/(fan_in+fan_out))
+//	  (common practice: the gain argument of frameworks' Xavier initialisers).
+//	others: Var = 1/fan_in → 1; Var = 1/fan_out → √(fan_in/fan_out);
+//	  Var = 2/(fan_in+fan_out) → √(2·fan_in/(fan_in+fan_out)) (Glorot &
+//	  Bengio 2010, the normalised initialisation of their eq. 16).
+func initRules(follow string, fanIn, fanOut int) []initRule {
+	k := 1.0 // variance factor of the activation
+	he := reluLike[follow] || follow == "Clip"
+	if he {
+		k = 2
+	}
+	rules := []initRule{{"He, fan-in (√2)", math.Sqrt(k)}}
+	if !he {
+		rules[0].name = "Xavier/LeCun, fan-in (1)"
+	}
+	if fanIn <= 0 || fanOut <= 0 {
+		return rules
+	}
+	in, out := float64(fanIn), float64(fanOut)
+	if he {
+		return append(rules, initRule{"He, fan-out", math.Sqrt(k * in / out)}, initRule{"Glorot normalised with gain √2", math.Sqrt(2 * k * in / (in + out))})
+	}
+	return append(rules, initRule{"fan-out", math.Sqrt(in / out)}, initRule{"Glorot normalised", math.Sqrt(2 * in / (in + out))})
+}
+
 var weightScaleCheck = &Check{
 	Name: "weight-scale",
-	Doc: "Weight gain g = std·√fan_in against the reference for the activation that follows (√2 for the ReLU family, He et al. 2015; 1 for tanh, sigmoid, softsign and no activation, Glorot & Bengio 2010), and the compound gain ∏(g/ref) along a stack. " +
+	Doc: "Weight gain g = std·√fan_in against the gains the usual initialisation rules give for the activation that follows: Var = 2/fan_in or 2/fan_out for the ReLU family (He et al. 2015, forward and backward cases), " +
+		"1/fan_in, 1/fan_out or 2/(fan_in+fan_out) otherwise (Glorot & Bengio 2010); a warning when g is outside [low, high]× every one of them. " +
+		"Also the compound gain ∏(g/ref) along a stack, with ref the forward rule's √2 or 1, which predicts the spread ratio of a plain chain (He et al. 2015, eq. 10); not for stacks through a residual Add, a Concat or a gating Mul, whose other path adds its own variance. " +
 		"Skipped where a normalisation layer follows, since it rescales the output.",
 	Defaults: map[string]float64{"weight-scale.low": 0.5, "weight-scale.high": 2, "weight-scale.compound_low": 0.1, "weight-scale.compound_high": 10},
 	Run: func(p *Pass) {
@@ -193,9 +234,16 @@ var weightScaleCheck = &Check{
 			if w.FollowedBy == "normalization" || w.Gain == nil {
 				continue
 			}
-			ref := referenceGain(w.FollowedBy)
-			ratio := *w.Gain / ref
-			if ratio >= p.T("low") && ratio <= p.T("high") {
+			rules := initRules(w.FollowedBy, w.FanIn, w.FanOut)
+			near, ratio, fits := rules[0], *w.Gain/rules[0].gain, false
+			for _, r := range rules {
+				q := *w.Gain / r.gain
+				fits = fits || (q >= p.T("low") && q <= p.T("high"))
+				if math.Abs(math.Log(q)) < math.Abs(math.Log(ratio)) {
+					near, ratio = r, q
+				}
+			}
+			if fits {
 				continue
 			}
 			if *w.Gain == 0 {
@@ -203,17 +251,16 @@ var weightScaleCheck = &Check{
 					"every entry of weight %q has the same value (std 0): the layer cannot tell its inputs apart. Usual cause: constant or zero initialisation", w.Name)
 				continue
 			}
-			name := "He (√2)"
-			if ref == 1 {
-				name = "Xavier (1)"
-			}
 			strength := math.Max(ratio/p.T("high"), p.T("low")/math.Max(ratio, 1e-30))
-			p.Emit(report.Warning, w.Node, math.Min(strength, 3), map[string]any{"weight": w.Name, "gain": *w.Gain, "reference": ref,
-				"ratio": ratio, "fan_in": w.FanIn, "std": w.Std, "followed_by": w.FollowedBy},
-				"weight %q has gain std·√fan_in = %.3g, %.2g× the %s reference for %s; no initialisation rule gives this scale, so the layer may shrink or amplify its signal",
-				w.Name, *w.Gain, ratio, name, followName(w.FollowedBy))
+			p.Emit(report.Warning, w.Node, math.Min(strength, 3), map[string]any{"weight": w.Name, "gain": *w.Gain, "reference": near.gain, "rule": near.name,
+				"ratio": ratio, "fan_in": w.FanIn, "fan_out": w.FanOut, "std": w.Std, "followed_by": w.FollowedBy},
+				"weight %q has gain std·√fan_in = %.3g, %.2g× the nearest usual initialisation (%s, %.3g) for %s; no usual rule gives this scale, so the layer may shrink or amplify its signal",
+				w.Name, *w.Gain, ratio, near.name, near.gain, followName(w.FollowedBy))
 		}
 		for _, st := range p.Stacks {
+			if st.Merged { // He et al. 2015 eq. 10 holds along a plain chain only
+				continue
+			}
 			cg := compoundGain(p, st)
 			if cg == nil || len(st.Weights) < 2 || (*cg >= p.T("compound_low") && *cg <= p.T("compound_high")) {
 				continue

@@ -27,6 +27,10 @@ type Collected struct {
 type Stack struct {
 	Layers  []int // indices into Report.Layers
 	Weights []int // indices into Report.Weights, in order
+	// Merged: a node between two members reads two data paths (a residual
+	// Add, a Concat, a gating Mul); the chain follows one of them, so the
+	// product of its weight gains does not predict the spread.
+	Merged bool
 }
 
 // BNStat holds per-channel drift numbers of one BatchNormalization node.
@@ -187,6 +191,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 	type link struct {
 		pred    *layerAcc
 		weights []int
+		merged  bool
 	}
 	links := map[*layerAcc]link{}
 	var acts []*layerAcc
@@ -199,12 +204,16 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		cur := la.node
 		for step := 0; step < 64; step++ {
 			var p *loader.Node
+			paths := 0
 			for _, in := range cur.Inputs {
 				if c.dataDep[in] {
-					p = c.producer[in]
-					break
+					if p == nil {
+						p = c.producer[in]
+					}
+					paths++
 				}
 			}
+			lk.merged = lk.merged || (paths > 1 && cur != la.node)
 			if p == nil || normOps[p.OpType] {
 				break
 			}
@@ -232,14 +241,16 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		}
 		var chain []*layerAcc
 		var ws []int
+		merged := false
 		for cur := la; cur != nil && len(chain) < 10000; cur = links[cur].pred {
 			chain = append([]*layerAcc{cur}, chain...)
 			ws = append(append([]int{}, links[cur].weights...), ws...)
+			merged = merged || (links[cur].merged && links[cur].pred != nil)
 		}
 		if len(chain) < 2 {
 			continue
 		}
-		st := Stack{Weights: ws}
+		st := Stack{Weights: ws, Merged: merged}
 		for _, l := range chain {
 			st.Layers = append(st.Layers, layerIdx[l])
 		}

@@ -271,3 +271,66 @@ func TestChecksValid(t *testing.T) {
 		t.Fatal("duplicate check not rejected")
 	}
 }
+
+// reluChain builds 10 ReLU layers of 400 units with Var[w] = 1/fan_in, the
+// forward second moment halving per layer (He et al. 2015, eq. 10); with
+// residual set, each layer adds its activation back: y = W·relu(x) +
+// relu(x), the branch first so that the chain of activations runs through
+// the weights, and each product still followed by a ReLU through the Add.
+func reluChain(rng *rand.Rand, residual bool) *modelbuild.Builder {
+	const units, layers = 400, 10
+	b := modelbuild.New("relu_chain", 13)
+	b.Input("x", []int{1, units}, true)
+	in := "x"
+	for l := 0; l < layers; l++ {
+		w := make([]float32, units*units)
+		for i := range w {
+			w[i] = float32(rng.NormFloat64() / math.Sqrt(units))
+		}
+		s := string(rune('a' + l))
+		b.Init("W"+s, []int{units, units}, w)
+		r := b.Node("Relu", "relu"+s, []string{in}, []string{"r" + s})
+		y := b.Node("MatMul", "fc"+s, []string{r, "W" + s}, []string{"y" + s})
+		if residual {
+			y = b.Node("Add", "add"+s, []string{y, r}, []string{"s" + s})
+		}
+		in = y
+	}
+	b.Output(in)
+	return b
+}
+
+// The compound gain predicts the spread of a plain chain: 10 ReLU layers at
+// Var[w] = 1/fan_in give ∏ g/√2 = 2^−4.5 ≈ 0.044 over the 9 weights between
+// the first and last activations, under the 0.1 line → a weight-scale
+// warning (He et al. 2015, eq. 10: the second moment halves per layer). With
+// a residual Add in every layer the same weights no longer shrink the signal
+// (the measured std grows), so no compound warning may be given there.
+func TestCompoundGainPlainChainOnly(t *testing.T) {
+	compound := func(r *report.Report) []report.Finding {
+		var out []report.Finding
+		for _, f := range findings(r, "weight-scale", "") {
+			if _, ok := f.Evidence["compound_gain"]; ok {
+				out = append(out, f)
+			}
+		}
+		return out
+	}
+	rng := rand.New(rand.NewPCG(11, 12))
+	plain := analyze(t, reluChain(rng, false), gaussian(rng, 1, 128, 400))
+	fs := compound(plain)
+	if len(fs) != 1 {
+		t.Fatalf("plain chain: compound findings %+v, want 1", fs)
+	}
+	if g := fs[0].Evidence["compound_gain"].(float64); math.Abs(math.Log2(g)+4.5) > 0.5 {
+		t.Errorf("plain chain: compound gain %.3g, want within 2^±0.5 of 2^−4.5", g)
+	}
+	res := analyze(t, reluChain(rng, true), gaussian(rng, 1, 128, 400))
+	if fs := compound(res); len(fs) != 0 {
+		t.Errorf("residual chain: compound findings %+v, want none", fs)
+	}
+	first, last := res.LayerByNode("relua"), res.LayerByNode("reluj")
+	if *last.Std <= *first.Std {
+		t.Errorf("residual chain: std %.3g → %.3g, expected to grow", *first.Std, *last.Std)
+	}
+}

@@ -9,12 +9,14 @@ import (
 )
 
 // weightOf locates the weight initializer of a linear node and how its rows
-// (output units) and fan-in are laid out.
+// (output units), fan-in and fan-out are laid out. Fan-out is taken as the
+// training frameworks take it for their fan_out initialisers (dims[0]·∏k for
+// a convolution, groups ignored).
 //
-//	Conv/ConvTranspose W: [M, C/g, k...]: rows = M filters, fan_in = C/g·∏k (ConvTranspose: [C, M/g, k...], fan_in = M/g·∏k... taken as dims[1]·∏k)
-//	Gemm B: transB=1 → [N, K] rows = N, fan_in = K; transB=0 → [K, N] units are columns
-//	MatMul B (initializer): [K, N], fan_in = K, units are columns
-func weightOf(n *loader.Node, g *loader.Graph) (name string, w *tensor.Tensor, fanIn int, byColumns bool, ok bool) {
+//	Conv/ConvTranspose W: [M, C/g, k...]: rows = M filters, fan_in = C/g·∏k, fan_out = M·∏k (ConvTranspose: [C, M/g, k...], taken alike as dims[1]·∏k and dims[0]·∏k)
+//	Gemm B: transB=1 → [N, K] rows = N, fan_in = K; transB=0 → [K, N] units are columns; fan_out = N
+//	MatMul B (initializer): [K, N], fan_in = K, fan_out = N, units are columns
+func weightOf(n *loader.Node, g *loader.Graph) (name string, w *tensor.Tensor, fanIn, fanOut int, byColumns bool, ok bool) {
 	idx := 1
 	switch n.OpType {
 	case "Conv", "ConvTranspose":
@@ -34,25 +36,26 @@ func weightOf(n *loader.Node, g *loader.Graph) (name string, w *tensor.Tensor, f
 	w, ok = constValue(g, name)
 	if !ok || w.DType != tensor.Float32 || w.Rank() < 2 {
 		// MatMul/Gemm whose first operand is the weight (x·Wᵀ exported as MatMul(W, x)) is rare; skip
-		return "", nil, 0, false, false
+		return "", nil, 0, 0, false, false
 	}
 	switch n.OpType {
 	case "Conv", "ConvTranspose":
-		fanIn = 1
-		for _, d := range w.Shape[1:] {
+		fanIn, fanOut = w.Shape[1], w.Shape[0]
+		for _, d := range w.Shape[2:] {
 			fanIn *= d
+			fanOut *= d
 		}
 	default:
 		if w.Rank() != 2 {
-			return "", nil, 0, false, false
+			return "", nil, 0, 0, false, false
 		}
 		if byColumns {
-			fanIn = w.Shape[0]
+			fanIn, fanOut = w.Shape[0], w.Shape[1]
 		} else {
-			fanIn = w.Shape[1]
+			fanIn, fanOut = w.Shape[1], w.Shape[0]
 		}
 	}
-	return name, w, fanIn, byColumns, true
+	return name, w, fanIn, fanOut, byColumns, true
 }
 
 // WeightStats computes, for every Conv/Gemm/MatMul weight, std, the gain
@@ -63,7 +66,7 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 	var out []report.Weight
 	seen := map[string]bool{}
 	for _, n := range g.Nodes {
-		name, w, fanIn, byCols, ok := weightOf(n, g)
+		name, w, fanIn, fanOut, byCols, ok := weightOf(n, g)
 		if !ok || seen[name] {
 			continue
 		}
@@ -86,7 +89,7 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 		std := m.Std()
 		gain := std * math.Sqrt(float64(fanIn))
 		wr := report.Weight{
-			Name: name, Node: n.Name, Shape: append([]int{}, w.Shape...), FanIn: fanIn,
+			Name: name, Node: n.Name, Shape: append([]int{}, w.Shape...), FanIn: fanIn, FanOut: fanOut,
 			Std: report.Num(std), Gain: report.Num(gain),
 			ScaleVsHe: report.Num(gain / math.Sqrt2), ScaleVsXavier: report.Num(gain),
 			IdenticalRows: ident, ZeroRows: zero, Rows: rows, Nonfinite: m.Nonfinite,

@@ -114,7 +114,7 @@ func TestJSONContract(t *testing.T) {
 		}
 	}
 	for _, w := range doc["weights"].([]any) {
-		check("weight", w.(map[string]any), map[string]kind{"name": str, "node": str, "shape": arr, "fan_in": num, "std": numOrNull,
+		check("weight", w.(map[string]any), map[string]kind{"name": str, "node": str, "shape": arr, "fan_in": num, "fan_out": num, "std": numOrNull,
 			"scale_vs_he": numOrNull, "scale_vs_xavier": numOrNull, "identical_rows": num, "zero_rows": num, "nonfinite": num})
 	}
 	findings := doc["findings"].([]any)
