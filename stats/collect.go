@@ -93,17 +93,34 @@ func clipBounds(n *loader.Node, g *loader.Graph) (lo, hi float64, ok bool) {
 	return lo, hi, true
 }
 
-// constValue finds a tensor that is an initializer or the output of a Constant node.
+// constValue finds a tensor that is an initializer or the output of a
+// Constant node, also through Identity nodes: exporters that store equal
+// initializers once alias the others with an Identity (PyTorch does, for
+// example, for BatchNorm running statistics still at their initial 0 and 1).
 func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
-	if t, ok := g.Initializers[name]; ok {
-		return t, true
-	}
-	for _, n := range g.Nodes {
-		if n.OpType == "Constant" && len(n.Outputs) > 0 && n.Outputs[0] == name {
-			if a := n.Attrs["value"]; a != nil && a.T != nil {
-				return a.T, true
-			}
+	for hop := 0; hop < 16; hop++ {
+		if t, ok := g.Initializers[name]; ok {
+			return t, true
 		}
+		next := ""
+		for _, n := range g.Nodes {
+			if len(n.Outputs) == 0 || n.Outputs[0] != name {
+				continue
+			}
+			switch {
+			case n.OpType == "Constant":
+				if a := n.Attrs["value"]; a != nil && a.T != nil {
+					return a.T, true
+				}
+			case n.OpType == "Identity" && len(n.Inputs) == 1:
+				next = n.Inputs[0]
+			}
+			break
+		}
+		if next == "" {
+			return nil, false
+		}
+		name = next
 	}
 	return nil, false
 }

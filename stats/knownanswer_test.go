@@ -180,6 +180,32 @@ func TestBatchNormDrift(t *testing.T) {
 	}
 }
 
+// Running statistics aliased through Identity nodes, as PyTorch's exporter
+// writes equal initializers once (here mean and var at their initial 0 and
+// 1, shared with beta and gamma), are still read: data with std 0.2 against
+// a running variance of 1 (variance ratio 0.04 < 0.25) drifts on every
+// channel (Ioffe & Szegedy 2015: inference uses population statistics).
+func TestBatchNormDriftThroughIdentity(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	const ch = 4
+	b := modelbuild.New("bn_alias", 13)
+	b.Input("x", []int{1, ch, 5, 5}, true)
+	b.Init("gamma", []int{ch}, []float32{1, 1, 1, 1})
+	b.Init("beta", []int{ch}, []float32{0, 0, 0, 0})
+	b.Node("Identity", "alias_mean", []string{"beta"}, []string{"mean"})
+	b.Node("Identity", "alias_var", []string{"gamma"}, []string{"var"})
+	b.Node("BatchNormalization", "bn", []string{"x", "gamma", "beta", "mean", "var"}, []string{"y"})
+	b.Output("y")
+	r := analyze(t, b, gaussian(rng, 0.2, 16, ch, 5, 5))
+	fs := findings(r, "batchnorm-drift", "bn")
+	if len(fs) != 1 || fs[0].Evidence["drifting_channels"] != ch {
+		t.Fatalf("batchnorm-drift: %+v, want all %d channels drifting", fs, ch)
+	}
+	if v := fs[0].Evidence["worst_var_ratio"].(float64); v < 0.02 || v > 0.08 {
+		t.Errorf("worst variance ratio %.3g, want ≈0.04", v)
+	}
+}
+
 // tanhStack builds 10 fully connected tanh layers of 500 units with weights N(0, std²).
 func tanhStack(rng *rand.Rand, std float64) *modelbuild.Builder {
 	const units, layers = 500, 10
