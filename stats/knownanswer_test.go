@@ -157,21 +157,31 @@ func TestSymmetricUnitsAndNonfiniteWeight(t *testing.T) {
 	}
 }
 
+const bnChannels = 4
+
+// bnDrift runs a lone BatchNormalization over 16 images of N(0, std²) with
+// γ = 1 and β = 0 as initializers and its running "mean" and "var" defined
+// by stats, and returns its batchnorm-drift findings.
+func bnDrift(t *testing.T, std float64, stats func(b *modelbuild.Builder)) []report.Finding {
+	t.Helper()
+	b := modelbuild.New("bn", 13)
+	b.Input("x", []int{1, bnChannels, 5, 5}, true)
+	b.Init("gamma", []int{bnChannels}, []float32{1, 1, 1, 1})
+	b.Init("beta", []int{bnChannels}, []float32{0, 0, 0, 0})
+	stats(b)
+	b.Node("BatchNormalization", "bn", []string{"x", "gamma", "beta", "mean", "var"}, []string{"y"})
+	b.Output("y")
+	rng := rand.New(rand.NewPCG(5, 6))
+	return findings(analyze(t, b, gaussian(rng, std, 16, bnChannels, 5, 5)), "batchnorm-drift", "bn")
+}
+
 // A BatchNorm whose running mean is shifted by 3σ from the data's mean:
 // batchnorm-drift fires (Ioffe & Szegedy 2015: inference uses population statistics).
 func TestBatchNormDrift(t *testing.T) {
-	rng := rand.New(rand.NewPCG(5, 6))
-	const ch = 4
-	b := modelbuild.New("bn", 13)
-	b.Input("x", []int{1, ch, 5, 5}, true)
-	b.Init("gamma", []int{ch}, []float32{1, 1, 1, 1})
-	b.Init("beta", []int{ch}, []float32{0, 0, 0, 0})
-	b.Init("mean", []int{ch}, []float32{3, 0, 3, 0}) // data mean is 0, std 1: channels 0 and 2 drift by 3σ
-	b.Init("var", []int{ch}, []float32{1, 1, 1, 1})
-	b.Node("BatchNormalization", "bn", []string{"x", "gamma", "beta", "mean", "var"}, []string{"y"})
-	b.Output("y")
-	r := analyze(t, b, gaussian(rng, 1, 16, ch, 5, 5))
-	fs := findings(r, "batchnorm-drift", "bn")
+	fs := bnDrift(t, 1, func(b *modelbuild.Builder) {
+		b.Init("mean", []int{bnChannels}, []float32{3, 0, 3, 0}) // data mean is 0, std 1: channels 0 and 2 drift by 3σ
+		b.Init("var", []int{bnChannels}, []float32{1, 1, 1, 1})
+	})
 	if len(fs) != 1 || fs[0].Evidence["drifting_channels"] != 2 {
 		t.Fatalf("batchnorm-drift: %+v, want 2 drifting channels", fs)
 	}
@@ -186,24 +196,27 @@ func TestBatchNormDrift(t *testing.T) {
 // a running variance of 1 (variance ratio 0.04 < 0.25) drifts on every
 // channel (Ioffe & Szegedy 2015: inference uses population statistics).
 func TestBatchNormDriftThroughIdentity(t *testing.T) {
-	rng := rand.New(rand.NewPCG(7, 8))
-	const ch = 4
-	b := modelbuild.New("bn_alias", 13)
-	b.Input("x", []int{1, ch, 5, 5}, true)
-	b.Init("gamma", []int{ch}, []float32{1, 1, 1, 1})
-	b.Init("beta", []int{ch}, []float32{0, 0, 0, 0})
-	b.Node("Identity", "alias_mean", []string{"beta"}, []string{"mean"})
-	b.Node("Identity", "alias_var", []string{"gamma"}, []string{"var"})
-	b.Node("BatchNormalization", "bn", []string{"x", "gamma", "beta", "mean", "var"}, []string{"y"})
-	b.Output("y")
-	r := analyze(t, b, gaussian(rng, 0.2, 16, ch, 5, 5))
-	fs := findings(r, "batchnorm-drift", "bn")
-	if len(fs) != 1 || fs[0].Evidence["drifting_channels"] != ch {
-		t.Fatalf("batchnorm-drift: %+v, want all %d channels drifting", fs, ch)
+	fs := bnDrift(t, 0.2, func(b *modelbuild.Builder) {
+		b.Node("Identity", "alias_mean", []string{"beta"}, []string{"mean"})
+		b.Node("Identity", "alias_var", []string{"gamma"}, []string{"var"})
+	})
+	if len(fs) != 1 || fs[0].Evidence["drifting_channels"] != bnChannels {
+		t.Fatalf("batchnorm-drift: %+v, want all %d channels drifting", fs, bnChannels)
 	}
 	if v := fs[0].Evidence["worst_var_ratio"].(float64); v < 0.02 || v > 0.08 {
 		t.Errorf("worst variance ratio %.3g, want ≈0.04", v)
 	}
+}
+
+// initGaussian adds a units×units initializer with entries N(0, std²) and
+// returns its name.
+func initGaussian(b *modelbuild.Builder, rng *rand.Rand, name string, units int, std float64) string {
+	w := make([]float32, units*units)
+	for i := range w {
+		w[i] = float32(rng.NormFloat64() * std)
+	}
+	b.Init(name, []int{units, units}, w)
+	return name
 }
 
 // tanhStack builds 10 fully connected tanh layers of 500 units with weights N(0, std²).
@@ -213,12 +226,7 @@ func tanhStack(rng *rand.Rand, std float64) *modelbuild.Builder {
 	b.Input("x", []int{1, units}, true)
 	in := "x"
 	for l := 0; l < layers; l++ {
-		w := make([]float32, units*units)
-		for i := range w {
-			w[i] = float32(rng.NormFloat64() * std)
-		}
-		wn := "W" + string(rune('a'+l))
-		b.Init(wn, []int{units, units}, w)
+		wn := initGaussian(b, rng, "W"+string(rune('a'+l)), units, std)
 		h := b.Node("MatMul", "fc"+string(rune('a'+l)), []string{in, wn}, []string{"h" + string(rune('a'+l))})
 		in = b.Node("Tanh", "tanh"+string(rune('a'+l)), []string{h}, []string{"t" + string(rune('a'+l))})
 	}
@@ -262,12 +270,8 @@ func TestHeInitSecondMoment(t *testing.T) {
 		b.Input("x", []int{1, units}, true)
 		in := "x"
 		for l := 0; l < layers; l++ {
-			w := make([]float32, units*units)
-			for i := range w {
-				w[i] = float32(rng.NormFloat64() * math.Sqrt(tc.varW))
-			}
 			s := string(rune('a' + l))
-			b.Init("W"+s, []int{units, units}, w)
+			initGaussian(b, rng, "W"+s, units, math.Sqrt(tc.varW))
 			if l > 0 {
 				in = b.Node("Relu", "relu"+s, []string{in}, []string{"r" + s})
 			}
@@ -309,12 +313,8 @@ func reluChain(rng *rand.Rand, residual bool) *modelbuild.Builder {
 	b.Input("x", []int{1, units}, true)
 	in := "x"
 	for l := 0; l < layers; l++ {
-		w := make([]float32, units*units)
-		for i := range w {
-			w[i] = float32(rng.NormFloat64() / math.Sqrt(units))
-		}
 		s := string(rune('a' + l))
-		b.Init("W"+s, []int{units, units}, w)
+		initGaussian(b, rng, "W"+s, units, 1/math.Sqrt(units))
 		r := b.Node("Relu", "relu"+s, []string{in}, []string{"r" + s})
 		y := b.Node("MatMul", "fc"+s, []string{r, "W" + s}, []string{"y" + s})
 		if residual {
