@@ -94,7 +94,10 @@ func shortName(name string, max int) string {
 
 // shortNames shortens a list of node names with shortName; names that would
 // come out the same keep their operator component ("head/GlobalAveragePool")
-// and, if still ambiguous, the full name clipped from the left.
+// and, if still ambiguous, show their last non-operator component prefixed
+// with the nearest path component that tells them apart from the others
+// ("features.3/…/conv.0.2" in a MobileNet, whose blocks repeat the same inner
+// names), or failing that the full name clipped from the left.
 func shortNames(names []string, max int) []string {
 	out := make([]string, len(names))
 	count := map[string]int{}
@@ -102,16 +105,49 @@ func shortNames(names []string, max int) []string {
 		out[i] = shortName(n, max)
 		count[out[i]]++
 	}
+	tail := make([]int, len(names)) // path components out[i] shows
 	for i, n := range names {
 		if count[out[i]] < 2 {
 			continue
 		}
 		parts := strings.Split(strings.Trim(n, "/"), "/")
-		s := parts[len(parts)-1]
-		if len(parts) >= 2 {
-			s = parts[len(parts)-2] + "/" + s
+		tail[i] = min(2, len(parts))
+		out[i] = clipLeft(strings.Join(parts[len(parts)-tail[i]:], "/"), max)
+	}
+	count = map[string]int{}
+	for _, s := range out {
+		count[s]++
+	}
+	group := map[string][]int{}
+	for i, s := range out {
+		if count[s] > 1 {
+			group[s] = append(group[s], i)
 		}
-		out[i] = clipLeft(s, max)
+	}
+	for _, members := range group {
+		for _, i := range members {
+			parts := strings.Split(strings.Trim(names[i], "/"), "/")
+			last := len(parts) - 1 // the label's end: the last component, not the shared operator
+			if last > 0 && opLike(parts[last]) {
+				last--
+			}
+			label := parts[last]
+			out[i] = clipLeft(names[i], max)
+			for j := min(len(parts)-tail[i], last) - 1; j >= 0; j-- {
+				unique := true
+				for _, o := range members {
+					op := strings.Split(strings.Trim(names[o], "/"), "/")
+					if o != i && len(op) == len(parts) && op[j] == parts[j] {
+						unique = false
+						break
+					}
+				}
+				if s := parts[j] + "/…/" + label; unique && len([]rune(s)) <= max {
+					out[i] = s
+					break
+				}
+			}
+		}
 	}
 	return out
 }

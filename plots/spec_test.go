@@ -25,6 +25,13 @@ func TestShortName(t *testing.T) {
 	if want := "head/GlobalAveragePool head/Flatten head/fc2"; strings.Join(got, " ") != want {
 		t.Errorf("shortNames = %q, want %q", got, want)
 	}
+	// blocks that repeat their inner names (as torchvision's MobileNetV2
+	// exports do) are told apart by the component that differs
+	got = shortNames([]string{"/features/features.0/features.0.2/Clip", "/features/features.2/conv/conv.0/conv.0.2/Clip",
+		"/features/features.13/conv/conv.0/conv.0.2/Clip", "/features/features.13/conv/conv.1/conv.1.2/Clip"}, 24)
+	if want := "features.0/features.0.2|features.2/…/conv.0.2|features.13/…/conv.0.2|conv.1/conv.1.2"; strings.Join(got, "|") != want {
+		t.Errorf("shortNames = %q, want %q", got, want)
+	}
 }
 
 func TestDepthProfileSpecLinear(t *testing.T) {
