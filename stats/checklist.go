@@ -110,28 +110,71 @@ func stackSpread(p *Pass, st Stack) (first, last *report.Layer, ratio float64) {
 	return first, last, report.Val(last.Std) / report.Val(first.Std)
 }
 
+// spreadFinding is one stack whose spread ratio crossed a line.
+type spreadFinding struct {
+	st          Stack
+	first, last *report.Layer
+	ratio       float64
+	others      []string // the last layers of other stacks from the same first layer that crossed it too
+}
+
+// spreadOutliers are the stacks of at least min_layers layers whose ratio
+// last/first crosses the line (beyond(ratio) true), one per first layer:
+// the stacks of a network with branches (residual blocks end one stack per
+// branch) share their first layer, and one finding on the worst of them,
+// naming how many others crossed the line too, says what they all say.
+func spreadOutliers(p *Pass, beyond func(float64) bool, worse func(a, b float64) bool) []spreadFinding {
+	byFirst := map[string]int{}
+	var out []spreadFinding
+	for _, st := range p.Stacks {
+		if len(st.Layers) < int(p.T("min_layers")) {
+			continue
+		}
+		first, last, ratio := stackSpread(p, st)
+		if math.IsNaN(ratio) || !beyond(ratio) {
+			continue
+		}
+		i, seen := byFirst[first.Node]
+		if !seen {
+			byFirst[first.Node] = len(out)
+			out = append(out, spreadFinding{st: st, first: first, last: last, ratio: ratio, others: []string{}})
+			continue
+		}
+		f := &out[i]
+		if worse(ratio, f.ratio) {
+			f.others = append(f.others, f.last.Node)
+			f.st, f.last, f.ratio = st, last, ratio
+		} else {
+			f.others = append(f.others, last.Node)
+		}
+	}
+	return out
+}
+
+// alsoText is the sentence on the other stacks of a spread finding.
+func alsoText(f spreadFinding) string {
+	if len(f.others) == 0 {
+		return ""
+	}
+	return fmt.Sprintf(" %d other layers downstream of %q cross the line too.", len(f.others), f.first.Node)
+}
+
 var spreadCollapseCheck = &Check{
 	Name: "spread-collapse",
 	Doc: "Activation spread (std) shrinking along a stack of layers with no normalisation between them, last layer against first. " +
 		"Glorot & Bengio 2010 show the signal vanishing with depth when weights are too small for the activation; He et al. 2015 derive the scale that keeps it (Var[w]=2/fan_in for ReLU).",
 	Defaults: map[string]float64{"spread-collapse.warning": 0.1, "spread-collapse.error": 1e-3, "spread-collapse.min_layers": 3},
 	Run: func(p *Pass) {
-		for _, st := range p.Stacks {
-			if len(st.Layers) < int(p.T("min_layers")) {
-				continue
-			}
-			first, last, ratio := stackSpread(p, st)
-			if math.IsNaN(ratio) || ratio >= p.T("warning") {
-				continue
-			}
+		below := func(r float64) bool { return r < p.T("warning") }
+		for _, f := range spreadOutliers(p, below, func(a, b float64) bool { return a < b }) {
 			sev := report.Warning
-			if ratio < p.T("error") {
+			if f.ratio < p.T("error") {
 				sev = report.Error
 			}
-			p.Emit(sev, last.Node, math.Log10(p.T("warning")/math.Max(ratio, 1e-30)), map[string]any{"std_first": first.Std, "std_last": last.Std,
-				"ratio": ratio, "layers": len(st.Layers), "first": first.Node, "compound_gain": compoundGain(p, st)},
-				"activation std falls from %.3g at %q to %.3g here over %d layers (ratio %.2g): the signal vanishes with depth. Usual fixes: Xavier/He initialisation for the activation used, normalisation layers",
-				report.Val(first.Std), first.Node, report.Val(last.Std), len(st.Layers), ratio)
+			p.Emit(sev, f.last.Node, math.Log10(p.T("warning")/math.Max(f.ratio, 1e-30)), map[string]any{"std_first": f.first.Std, "std_last": f.last.Std,
+				"ratio": f.ratio, "layers": len(f.st.Layers), "first": f.first.Node, "compound_gain": compoundGain(p, f.st), "also": f.others},
+				"activation std falls from %.3g at %q to %.3g here over %d layers (ratio %.2g): the signal vanishes with depth.%s Usual fixes: Xavier/He initialisation for the activation used, normalisation layers",
+				report.Val(f.first.Std), f.first.Node, report.Val(f.last.Std), len(f.st.Layers), f.ratio, alsoText(f))
 		}
 	},
 }
@@ -142,22 +185,16 @@ var spreadExplosionCheck = &Check{
 		"Glorot & Bengio 2010; He et al. 2015: weights larger than the activation's reference scale make the signal grow geometrically with depth.",
 	Defaults: map[string]float64{"spread-explosion.warning": 10, "spread-explosion.error": 1e3, "spread-explosion.min_layers": 3},
 	Run: func(p *Pass) {
-		for _, st := range p.Stacks {
-			if len(st.Layers) < int(p.T("min_layers")) {
-				continue
-			}
-			first, last, ratio := stackSpread(p, st)
-			if math.IsNaN(ratio) || ratio <= p.T("warning") {
-				continue
-			}
+		above := func(r float64) bool { return r > p.T("warning") }
+		for _, f := range spreadOutliers(p, above, func(a, b float64) bool { return a > b }) {
 			sev := report.Warning
-			if ratio > p.T("error") {
+			if f.ratio > p.T("error") {
 				sev = report.Error
 			}
-			p.Emit(sev, last.Node, math.Log10(ratio/p.T("warning"))+1, map[string]any{"std_first": first.Std, "std_last": last.Std,
-				"ratio": ratio, "layers": len(st.Layers), "first": first.Node, "compound_gain": compoundGain(p, st)},
-				"activation std grows from %.3g at %q to %.3g here over %d layers (ratio %.3g): the signal explodes with depth. Usual fixes: smaller initial weights (Xavier/He), normalisation layers, gradient clipping",
-				report.Val(first.Std), first.Node, report.Val(last.Std), len(st.Layers), ratio)
+			p.Emit(sev, f.last.Node, math.Log10(f.ratio/p.T("warning"))+1, map[string]any{"std_first": f.first.Std, "std_last": f.last.Std,
+				"ratio": f.ratio, "layers": len(f.st.Layers), "first": f.first.Node, "compound_gain": compoundGain(p, f.st), "also": f.others},
+				"activation std grows from %.3g at %q to %.3g here over %d layers (ratio %.3g): the signal explodes with depth.%s Usual fixes: smaller initial weights (Xavier/He), normalisation layers, gradient clipping",
+				report.Val(f.first.Std), f.first.Node, report.Val(f.last.Std), len(f.st.Layers), f.ratio, alsoText(f))
 		}
 	},
 }

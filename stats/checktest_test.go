@@ -84,6 +84,38 @@ func TestSpreadCollapseGrades(t *testing.T) {
 	}
 }
 
+// Stacks that share their first layer (a network's branches each end one)
+// give one finding per first layer, on the worst of them, naming the others
+// that crossed the line; a stack from another first layer has its own.
+func TestSpreadOneFindingPerFirstLayer(t *testing.T) {
+	r := &report.Report{}
+	for i, std := range []float64{1, 0.5, 0.05, 1e-4, 0.02, 2, 1, 0.1} {
+		r.Layers = append(r.Layers, report.Layer{Node: string(rune('a' + i)), Op: "Tanh", Std: report.Num(std)})
+	}
+	kinds := make([]ActKind, len(r.Layers))
+	col := &Collected{Report: r, LayerKind: kinds, Stacks: []Stack{
+		{Layers: []int{0, 1, 2}}, // a → c: 0.05, warning
+		{Layers: []int{0, 1, 3}}, // a → d: 1e-4, error: the worst from a
+		{Layers: []int{0, 1, 4}}, // a → e: 0.02
+		{Layers: []int{5, 6, 7}}, // f → h: 0.05, its own
+	}}
+	fs := checkOn(t, spreadCollapseCheck, col, nil)
+	if len(fs) != 2 {
+		t.Fatalf("%d findings %v, want 2", len(fs), fs)
+	}
+	byNode := map[string]report.Finding{}
+	for _, f := range fs {
+		byNode[f.Node] = f
+	}
+	d, ok := byNode["d"]
+	if !ok || d.Severity != report.Error || strings.Join(d.Evidence["also"].([]string), ",") != "c,e" || !strings.Contains(d.Message, "2 other layers") {
+		t.Errorf("finding from a: %+v, want an error on d naming c and e", d)
+	}
+	if h, ok := byNode["h"]; !ok || len(h.Evidence["also"].([]string)) != 0 {
+		t.Errorf("finding from f: %+v, want one on h alone", h)
+	}
+}
+
 // weight-scale judges std·√fan_in against √2 before a ReLU and 1 otherwise
 // (He et al. 2015; Glorot & Bengio 2010), and skips layers a normalisation follows.
 func TestWeightScaleReference(t *testing.T) {
