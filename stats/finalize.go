@@ -203,14 +203,17 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		var lk link
 		cur := la.node
 		for step := 0; step < 64; step++ {
+			// the signal path: the data input with the most values (a
+			// gating Mul's x, not its [N, C, 1, 1] gate), the first of equals
 			var p *loader.Node
-			paths := 0
+			paths, most := 0, -1
 			for _, in := range cur.Inputs {
-				if c.dataDep[in] {
-					if p == nil {
-						p = c.producer[in]
-					}
-					paths++
+				if !c.dataDep[in] {
+					continue
+				}
+				paths++
+				if n := c.valuesOf(in); n > most {
+					p, most = c.producer[in], n
 				}
 			}
 			lk.merged = lk.merged || (paths > 1 && cur != la.node)
@@ -257,6 +260,23 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		out = append(out, st)
 	}
 	return out
+}
+
+// valuesOf is the number of values of an observed value in its first batch
+// (0 when it was not observed: a graph input, a non-float value).
+func (c *Collector) valuesOf(name string) int {
+	la := c.byOut[name]
+	if la == nil {
+		la = c.inputs[name]
+	}
+	if la == nil || la.shape == nil {
+		return 0
+	}
+	n := 1
+	for _, d := range la.shape {
+		n *= d
+	}
+	return n
 }
 
 // batchNorms compares sample statistics at each BatchNormalization input with
