@@ -364,11 +364,14 @@ var batchnormDriftCheck = &Check{
 				if share >= p.T("error_share") {
 					sev = report.Error
 				}
+				cause := "Usual causes: running statistics not updated or reset after training, different preprocessing at inference, or a data shift"
+				if bn.Initial {
+					cause = "The running statistics are still BatchNorm's initial mean 0 and variance 1 in every channel: the model was exported before training updated them, or they were reset"
+				}
 				p.Emit(sev, bn.Node, share/p.T("channel_share"), map[string]any{"drifting_channels": drift, "channels": bn.Channels,
-					"max_mean_shift_sigmas": worstShift, "worst_var_ratio": worstRatio},
-					"%d of %d channels: the sample's statistics disagree with the stored running statistics (largest mean shift %.2gσ, worst variance ratio %.3g). "+
-						"Usual causes: running statistics not updated or reset after training, different preprocessing at inference, or a data shift",
-					drift, bn.Channels, worstShift, worstRatio)
+					"max_mean_shift_sigmas": worstShift, "worst_var_ratio": worstRatio, "initial_running_statistics": bn.Initial},
+					"%d of %d channels: the sample's statistics disagree with the stored running statistics (largest mean shift %.2gσ, worst variance ratio %.3g). %s",
+					drift, bn.Channels, worstShift, worstRatio, cause)
 			}
 			if bn.GammaZero > 0 || bn.VarZero > 0 {
 				p.Emit(report.Info, bn.Node, 1, map[string]any{"gamma_zero_channels": bn.GammaZero, "running_var_zero_channels": bn.VarZero},

@@ -41,6 +41,9 @@ type BNStat struct {
 	VarRatio  []float64 // var_sample / var_run
 	GammaZero int       // channels with |γ| < 1e-3
 	VarZero   int       // channels with running var < 1e-6 (besides ε)
+	// Initial: every running mean is 0 and every running variance 1, the
+	// values BatchNorm starts from: never updated by training, or reset.
+	Initial bool
 }
 
 // reluLike lists activations whose reference gain is √2 (He et al. 2015's
@@ -306,9 +309,10 @@ func (c *Collector) batchNorms() []BNStat {
 		if a := n.Attrs["epsilon"]; a != nil {
 			eps = float64(a.F)
 		}
-		bs := BNStat{Node: n.Name, Channels: len(perChan)}
+		bs := BNStat{Node: n.Name, Channels: len(perChan), Initial: true}
 		for ch, m := range perChan {
 			rm, rv := mean.Float64At(ch), vr.Float64At(ch)
+			bs.Initial = bs.Initial && rm == 0 && rv == 1
 			bs.MeanShift = append(bs.MeanShift, math.Abs(m.Mean-rm)/math.Sqrt(rv+eps))
 			bs.VarRatio = append(bs.VarRatio, m.Var()/(rv+eps))
 			if math.Abs(gamma.Float64At(ch)) < 1e-3 {

@@ -3,6 +3,7 @@ package stats_test
 import (
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 
 	"vitals/internal/modelbuild"
@@ -188,6 +189,9 @@ func TestBatchNormDrift(t *testing.T) {
 	if s := fs[0].Evidence["max_mean_shift_sigmas"].(float64); math.Abs(s-3) > 0.3 {
 		t.Errorf("max mean shift %.3g σ, want ≈3", s)
 	}
+	if fs[0].Evidence["initial_running_statistics"] != false {
+		t.Errorf("running means of 3 taken for initial values: %+v", fs[0].Evidence)
+	}
 }
 
 // Running statistics aliased through Identity nodes, as PyTorch's exporter
@@ -205,6 +209,10 @@ func TestBatchNormDriftThroughIdentity(t *testing.T) {
 	}
 	if v := fs[0].Evidence["worst_var_ratio"].(float64); v < 0.02 || v > 0.08 {
 		t.Errorf("worst variance ratio %.3g, want ≈0.04", v)
+	}
+	// mean 0 and var 1 everywhere: BatchNorm's initial values, said so
+	if fs[0].Evidence["initial_running_statistics"] != true || !strings.Contains(fs[0].Message, "initial mean 0 and variance 1") {
+		t.Errorf("running statistics at their initial values not named: %+v", fs[0])
 	}
 }
 
