@@ -159,3 +159,23 @@ func TestWeightScaleFanOut(t *testing.T) {
 		t.Errorf("nearest rule %q, want He, fan-out", rule)
 	}
 }
+
+// PyTorch's default initialisation of Conv and Linear, U(±1/√fan_in), has
+// gain 1/√3 (value from the framework's source, common practice): before a
+// ReLU that is 0.41× He's √2, a finding that names the default and the
+// forward factor 0.41 per layer (He et al. 2015, eq. 10); before a tanh
+// (0.58× of 1) it is no finding.
+func TestWeightScaleFrameworkDefault(t *testing.T) {
+	g := 1 / math.Sqrt(3)
+	w := func(name, follow string) report.Weight {
+		return report.Weight{Name: name, Node: name, FanIn: 64, FanOut: 64, Gain: report.Num(g), Std: report.Num(g / 8), FollowedBy: follow, Rows: 64}
+	}
+	fs := checkOn(t, weightScaleCheck, &Collected{Report: &report.Report{Weights: []report.Weight{w("relu_default", "Relu"), w("tanh_default", "Tanh")}}}, nil)
+	if len(fs) != 1 || fs[0].Node != "relu_default" {
+		t.Fatalf("findings %v, want one on relu_default", fs)
+	}
+	f := fs[0]
+	if f.Evidence["framework_default"] != true || !strings.Contains(f.Message, "U(±1/√fan_in)") || math.Abs(f.Evidence["forward_factor"].(float64)-g/math.Sqrt2) > 1e-9 {
+		t.Errorf("finding %+v: want the framework default named and forward factor %.3g", f, g/math.Sqrt2)
+	}
+}
