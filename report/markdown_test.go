@@ -138,3 +138,13 @@ func TestWriteMarkdownCompare(t *testing.T) {
 		t.Error("compare figures out of order")
 	}
 }
+
+// Evidence lists longer than three entries (the other layers of a spread
+// finding) show their first two and the count, so that the evidence column
+// stays readable; numbers keep 4 significant digits.
+func TestReviewEvidenceLists(t *testing.T) {
+	got := reviewEvidence(map[string]any{"also": []string{"a", "b", "c", "d"}, "few": []string{"x", "y"}, "ratio": 0.0123456})
+	if want := "also=[a b … 4 in all], few=[x y], ratio=0.01235"; got != want {
+		t.Errorf("reviewEvidence = %q, want %q", got, want)
+	}
+}

@@ -290,8 +290,13 @@ func reviewEvidence(ev map[string]any) string {
 	parts := make([]string, len(keys))
 	for i, k := range keys {
 		v := ev[k]
-		if f, ok := v.(float64); ok {
-			v = strconv.FormatFloat(f, 'g', 4, 64)
+		switch x := v.(type) {
+		case float64:
+			v = strconv.FormatFloat(x, 'g', 4, 64)
+		case []string: // e.g. the other layers of a spread finding: the first two and the count
+			if len(x) > 3 {
+				v = fmt.Sprintf("[%s … %d in all]", strings.Join(x[:2], " "), len(x))
+			}
 		}
 		parts[i] = fmt.Sprintf("%s=%v", k, v)
 	}
