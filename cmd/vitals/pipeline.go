@@ -401,12 +401,13 @@ func fixedBatch(g *loader.Graph) (int, loader.ValueInfo, error) {
 
 // autoBatchBytes is what the node outputs of one batch come to at the batch
 // size chosen when --batch is left out, and autoBatchMax the largest such
-// batch. Measured with vitals check over 256 items on the 2-core bench
+// batch. Measured with vitals check over 240–256 items on the 2-core bench
 // machine: resnet18 at 224×224 (23 MB of node outputs per item) ran fastest
-// at batch 8 (4: +9%, 16: +10%), mobilenet_v2 (52 MB per item) at 2 to 4
-// (8: +11%, 32: over 2× slower, its batches outgrowing the buffer pool), a
-// small transformer (32 MB) alike from 8 to 32, and an MLP (40 KB per item)
-// at 32 (8: +23%).
+// at batch 8 (4: +9%, 16: +10%); mobilenet_v2 (52 MB per item) within the
+// noise from 2 to 8 (three alternating rounds at 3, 5 and 8: 2.71–2.93 s,
+// peaks 228, 299 and 421 MB), while 32 took over 2× as long, its batches
+// outgrowing the buffer pool; a small transformer (32 MB) alike from 8 to 32;
+// an MLP (40 KB per item) fastest at 32 (8: +23%).
 const (
 	autoBatchBytes = 192 << 20
 	autoBatchMax   = 32
