@@ -85,6 +85,23 @@ func TestFixedBatchModel(t *testing.T) {
 	if code != 2 || !strings.Contains(stderr, "only 3 samples") {
 		t.Errorf("3 samples: exit %d, %q", code, stderr)
 	}
+	if strings.Contains(stderr, "dynamic batch axis") {
+		t.Errorf("batch 4: hint meant for batch 1 given: %q", stderr)
+	}
+	// a model fixed to one sample a batch runs, one at a time, with a hint
+	one := modelbuild.New("fixed1", 13)
+	one.Input("x", []int{1, 6}, false)
+	one.Init("w", []int{6, 5}, w)
+	one.Node("MatMul", "mm", []string{"x", "w"}, []string{"h"})
+	one.Output("h")
+	model1 := filepath.Join(dir, "fixed1.onnx")
+	if err := one.Write(model1); err != nil {
+		t.Fatal(err)
+	}
+	code, out, stderr = runCLI(t, "check", model1, "--data", sample(3), "--format", "json")
+	if code > 1 || !strings.Contains(stderr, "dynamic batch axis") || !strings.Contains(out, `"samples": 3`) {
+		t.Errorf("batch 1: exit %d, stderr %q", code, stderr)
+	}
 }
 
 // Without --batch the batch size follows the node outputs per sample

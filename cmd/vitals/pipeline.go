@@ -374,12 +374,17 @@ func (f *sampleFeed) next(g *loader.Graph) (map[string]*tensor.Tensor, []int64, 
 }
 
 // note is what the user should know about how the sample was fed ("" when
-// nothing): samples left out for a fixed batch size.
+// nothing): samples left out for a fixed batch size, and that a model fixed
+// to one sample a batch runs slower than it could.
 func (f *sampleFeed) note() string {
-	if f.dropped == 0 {
-		return ""
+	var b strings.Builder
+	if f.dropped > 0 {
+		fmt.Fprintf(&b, "vitals: the model fixes the batch size to %d; the last %d samples, fewer than a batch, were left out\n", f.fixed, f.dropped)
 	}
-	return fmt.Sprintf("vitals: the model fixes the batch size to %d; the last %d samples, fewer than a batch, were left out\n", f.fixed, f.dropped)
+	if f.fixed == 1 && f.done > 1 {
+		b.WriteString("vitals: the model fixes the batch size to 1, so samples ran one at a time; exported with a dynamic batch axis it would run several per batch, which is faster\n")
+	}
+	return b.String()
 }
 
 // fixedBatch is the batch size the model's inputs fix (the first axis of
