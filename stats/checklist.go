@@ -240,12 +240,9 @@ type initRule struct {
 //	  Var = 2/(fan_in+fan_out) → √(2·fan_in/(fan_in+fan_out)) (Glorot &
 //	  Bengio 2010, the normalised initialisation of their eq. 16).
 func initRules(follow string, fanIn, fanOut int) []initRule {
-	k := 1.0 // variance factor of the activation
-	he := reluLike[follow] || follow == "Clip"
-	if he {
-		k = 2
-	}
-	rules := []initRule{{"He, fan-in (√2)", math.Sqrt(k)}}
+	ref := referenceGain(follow)
+	k, he := ref*ref, ref != 1 // the activation's variance factor: 2 for the ReLU family
+	rules := []initRule{{"He, fan-in (√2)", ref}}
 	if !he {
 		rules[0].name = "Xavier/LeCun, fan-in (1)"
 	}
