@@ -1,0 +1,209 @@
+package probe
+
+import (
+	"cmp"
+	"fmt"
+	"slices"
+
+	"vitals/tensor"
+)
+
+// Detection post-processing: NonMaxSuppression (opsets 10 and 11).
+//
+// For every batch b and class k, the boxes of batch b whose score in class k
+// exceeds score_threshold (when that input is given: score > threshold) are
+// visited in descending score order, equal scores lowest box index first. A
+// box is kept unless, for some box already kept in (b, k),
+//
+//	IoU(a, c) = area(a ∩ c) / (area(a) + area(c) − area(a ∩ c)) > iou_threshold,
+//
+// and at most max_output_boxes_per_class boxes are kept per (b, k) (0, the
+// default, keeps none). Boxes without area or overlap never suppress.
+// center_point_box = 0 reads a box as [y1, x1, y2, x2], any two diagonal
+// corners; 1 reads it as [x_center, y_center, width, height]. The output is
+// int64 [num_selected, 3], one (batch, class, box) row per kept box, grouped
+// by batch then class, each group in the order its boxes were kept.
+
+func init() {
+	reg("NonMaxSuppression", nmsKernel, 10, 11)
+}
+
+func nmsKernel(c *Call) error {
+	if err := c.Need(2); err != nil {
+		return err
+	}
+	boxes, scores := c.In[0], c.In[1]
+	if boxes.Rank() != 3 || boxes.Shape[2] != 4 {
+		return fmt.Errorf("boxes must have shape [num_batches, spatial_dimension, 4], got %v", boxes.Shape)
+	}
+	if scores.Rank() != 3 {
+		return fmt.Errorf("scores must have shape [num_batches, num_classes, spatial_dimension], got %v", scores.Shape)
+	}
+	if scores.Shape[0] != boxes.Shape[0] || scores.Shape[2] != boxes.Shape[1] {
+		return fmt.Errorf("scores shape %v does not match boxes shape %v: want [%d, num_classes, %d]",
+			scores.Shape, boxes.Shape, boxes.Shape[0], boxes.Shape[1])
+	}
+	for _, in := range []struct {
+		name string
+		t    *tensor.Tensor
+	}{{"boxes", boxes}, {"scores", scores}} {
+		if in.t.DType != tensor.Float32 && in.t.DType != tensor.Float64 {
+			return fmt.Errorf("%s must be a float tensor, got %v", in.name, in.t.DType)
+		}
+	}
+	center := c.Int("center_point_box", 0)
+	if center != 0 && center != 1 {
+		return fmt.Errorf("attribute center_point_box must be 0 or 1, got %d", center)
+	}
+
+	var maxOut int64
+	if t, err := nmsScalar(c, 2, "max_output_boxes_per_class"); err != nil {
+		return err
+	} else if t != nil {
+		if t.DType.IsFloat() || t.DType == tensor.Bool || t.DType == tensor.String {
+			return fmt.Errorf("max_output_boxes_per_class must be an integer tensor, got %v", t.DType)
+		}
+		maxOut = max(int64(t.Float64At(0)), 0)
+	}
+	iou, hasScore, scoreThr := 0.0, false, 0.0
+	if t, err := nmsScalar(c, 3, "iou_threshold"); err != nil {
+		return err
+	} else if t != nil {
+		iou = t.Float64At(0)
+	}
+	if t, err := nmsScalar(c, 4, "score_threshold"); err != nil {
+		return err
+	} else if t != nil {
+		hasScore, scoreThr = true, t.Float64At(0)
+	}
+
+	p := nmsParams{
+		batches: boxes.Shape[0], classes: scores.Shape[1], n: boxes.Shape[1],
+		center: center == 1, maxOut: maxOut, hasScore: hasScore,
+	}
+	var sel []int64
+	if boxes.DType == tensor.Float32 && scores.DType == tensor.Float32 {
+		// the reference computes in single precision: thresholds are compared as float32
+		sel = nmsRun(p, boxes.F32(), scores.F32(), float32(iou), float32(scoreThr))
+	} else {
+		sel = nmsRun(p, nmsFloat64(boxes), nmsFloat64(scores), iou, scoreThr)
+	}
+	c.Set(0, tensor.From(sel, len(sel)/3, 3))
+	return nil
+}
+
+// nmsScalar returns optional input i, or nil when it is omitted or empty;
+// a present input must hold exactly one element.
+func nmsScalar(c *Call, i int, name string) (*tensor.Tensor, error) {
+	t := c.Input(i)
+	if t == nil || t.Size() == 0 {
+		return nil, nil
+	}
+	if t.Size() != 1 {
+		return nil, fmt.Errorf("%s must be a scalar, got shape %v", name, t.Shape)
+	}
+	return t, nil
+}
+
+func nmsFloat64(t *tensor.Tensor) []float64 {
+	if d, ok := t.Data.([]float64); ok {
+		return d
+	}
+	out := make([]float64, t.Size())
+	for i := range out {
+		out[i] = t.Float64At(i)
+	}
+	return out
+}
+
+type nmsParams struct {
+	batches, classes, n int
+	center              bool
+	maxOut              int64
+	hasScore            bool
+}
+
+// nmsRun selects boxes for every (batch, class) and returns the flattened
+// [num_selected, 3] rows.
+func nmsRun[T Float](p nmsParams, boxes, scores []T, iouThr, scoreThr T) []int64 {
+	var sel []int64
+	if p.maxOut == 0 || p.n == 0 {
+		return sel
+	}
+	// corners per box: x_min, y_min, x_max, y_max, then the area
+	geo := make([]T, 5*p.n)
+	order := make([]int, 0, p.n)
+	var kept []int
+	for b := 0; b < p.batches; b++ {
+		nmsCorners(geo, boxes[b*p.n*4:(b+1)*p.n*4], p.center)
+		for k := 0; k < p.classes; k++ {
+			s := scores[(b*p.classes+k)*p.n : (b*p.classes+k+1)*p.n]
+			order = order[:0]
+			for i, v := range s {
+				if !p.hasScore || v > scoreThr {
+					order = append(order, i)
+				}
+			}
+			// descending score (cmp.Compare ranks NaN lowest, so NaN comes last);
+			// the stable sort keeps equal scores in index order
+			slices.SortStableFunc(order, func(i, j int) int { return cmp.Compare(s[j], s[i]) })
+			kept = kept[:0]
+			for _, i := range order {
+				if int64(len(kept)) >= p.maxOut {
+					break
+				}
+				keep := true
+				for _, j := range kept {
+					if nmsOverlaps(geo, i, j, iouThr) {
+						keep = false
+						break
+					}
+				}
+				if keep {
+					kept = append(kept, i)
+					sel = append(sel, int64(b), int64(k), int64(i))
+				}
+			}
+		}
+	}
+	return sel
+}
+
+// nmsCorners fills geo with (x_min, y_min, x_max, y_max, area) for each box.
+func nmsCorners[T Float](geo, boxes []T, center bool) {
+	for i := 0; i < len(boxes)/4; i++ {
+		v := boxes[4*i : 4*i+4]
+		var x0, y0, x1, y1 T
+		if center {
+			hw, hh := v[2]/2, v[3]/2
+			x0, x1 = v[0]-hw, v[0]+hw
+			y0, y1 = v[1]-hh, v[1]+hh
+		} else {
+			y0, y1 = min(v[0], v[2]), max(v[0], v[2])
+			x0, x1 = min(v[1], v[3]), max(v[1], v[3])
+		}
+		g := geo[5*i : 5*i+5]
+		g[0], g[1], g[2], g[3] = x0, y0, x1, y1
+		g[4] = T((x1 - x0) * (y1 - y0))
+	}
+}
+
+// nmsOverlaps reports whether boxes i and j overlap with IoU > thr; a pair
+// without intersection or with an empty box never does.
+func nmsOverlaps[T Float](geo []T, i, j int, thr T) bool {
+	a, b := geo[5*i:5*i+5], geo[5*j:5*j+5]
+	ix0, ix1 := max(a[0], b[0]), min(a[2], b[2])
+	if !(ix1 > ix0) {
+		return false
+	}
+	iy0, iy1 := max(a[1], b[1]), min(a[3], b[3])
+	if !(iy1 > iy0) {
+		return false
+	}
+	inter := T((ix1 - ix0) * (iy1 - iy0))
+	union := a[4] + b[4] - inter
+	if !(inter > 0) || !(a[4] > 0) || !(b[4] > 0) || !(union > 0) {
+		return false
+	}
+	return inter/union > thr
+}
