@@ -320,16 +320,7 @@ func resizeTaps(o resizeOpts, in, out int, outF, scale float64, roi []float64) (
 	case "cubic":
 		support = 2
 		a := o.cubicA
-		kern = func(d float64) float64 {
-			d = math.Abs(d)
-			switch {
-			case d <= 1:
-				return ((a+2)*d-(a+3))*d*d + 1
-			case d < 2:
-				return ((a*d-5*a)*d+8*a)*d - 4*a
-			}
-			return 0
-		}
+		kern = func(d float64) float64 { return cubicWeight(d, a) }
 	}
 	s := 1.0
 	if o.antialias && o.mode != "nearest" && scale < 1 {
@@ -502,4 +493,18 @@ func resizeIntRange[T Integer]() (float64, float64) {
 		return math.MinInt32, math.MaxInt32
 	}
 	return math.MinInt64, math.MaxInt64
+}
+
+// cubicWeight is the cubic convolution kernel with coefficient a (Keys 1981;
+// ONNX uses a = −0.75) at distance d: (a+2)|d|³ − (a+3)|d|² + 1 for |d| ≤ 1,
+// a|d|³ − 5a|d|² + 8a|d| − 4a for 1 < |d| < 2, else 0.
+func cubicWeight(d, a float64) float64 {
+	d = math.Abs(d)
+	switch {
+	case d <= 1:
+		return ((a+2)*d-(a+3))*d*d + 1
+	case d < 2:
+		return ((a*d-5*a)*d+8*a)*d - 4*a
+	}
+	return 0
 }
