@@ -199,7 +199,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 	links := map[*layerAcc]link{}
 	var acts []*layerAcc
 	for _, la := range c.layers {
-		if _, ok := layerIdx[la]; !ok || !activationOps[la.node.OpType] || la.output != la.node.Outputs[0] {
+		if _, ok := layerIdx[la]; !ok || !activationOps[la.node.OpType] || la.output != la.node.Outputs[0] || c.isGate(la.output) {
 			continue
 		}
 		acts = append(acts, la)
@@ -263,6 +263,31 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		out = append(out, st)
 	}
 	return out
+}
+
+// isGate reports whether a value only scales a larger one: every reader is
+// a Mul whose other data input holds more values (a squeeze-and-excitation
+// gate [N, C, 1, 1] times its feature map). A gate's spread says nothing
+// about the signal's, so gate activations are in no stack.
+func (c *Collector) isGate(name string) bool {
+	readers := c.consumer[name]
+	if len(readers) == 0 {
+		return false
+	}
+	own := c.valuesOf(name)
+	for _, n := range readers {
+		if n.OpType != "Mul" || len(n.Inputs) != 2 {
+			return false
+		}
+		other := n.Inputs[0]
+		if other == name {
+			other = n.Inputs[1]
+		}
+		if !c.dataDep[other] || c.valuesOf(other) <= own {
+			return false
+		}
+	}
+	return true
 }
 
 // valuesOf is the number of values of an observed value in its first batch

@@ -13,8 +13,8 @@ import (
 // Mul(gate, x), the order PyTorch exports `scale * input` in) is a side
 // branch: the chain of activations follows the gated signal x, the input
 // with more values, so the stack is relu_a → relu_b → relu_c, marked Merged
-// (two data paths meet at the Mul), and the gate's Sigmoid is in no stack's
-// path between them.
+// (two data paths meet at the Mul), and the gate's Sigmoid, which only
+// scales the larger x, is in no stack at all.
 func TestStackFollowsSignalPastGate(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
 	b := modelbuild.New("se", 13)
@@ -61,5 +61,8 @@ func TestStackFollowsSignalPastGate(t *testing.T) {
 	}
 	if !strings.Contains(strings.Join(got, " "), "relu_a→relu_b→relu_c") {
 		t.Errorf("stacks %v: none runs relu_a→relu_b→relu_c", got)
+	}
+	if strings.Contains(strings.Join(got, " "), "gate") {
+		t.Errorf("stacks %v: the gate's Sigmoid is in one", got)
 	}
 }

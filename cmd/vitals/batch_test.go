@@ -128,3 +128,74 @@ func TestChooseBatch(t *testing.T) {
 		t.Errorf("within a 400 MiB budget: chooseBatch(23e6) = %d, want 4", got)
 	}
 }
+
+// A model whose input has no sample axis ([3, 4, 4], as detection models
+// exported for one image take it) runs one sample a run with the axis
+// dropped: all 5 samples are seen, the input statistics keep their channel
+// axis, and a --batch above 1 is refused naming the input.
+func TestUnbatchedInput(t *testing.T) {
+	dir := t.TempDir()
+	b := modelbuild.New("unbatched", 13)
+	b.Input("x", []int{3, 4, 4}, false)
+	w := make([]float32, 2*3)
+	for i := range w {
+		w[i] = float32(i) - 2.5
+	}
+	b.Init("w", []int{2, 3, 1, 1}, w)
+	b.Node("Constant", "axes", nil, []string{"axes"}, modelbuild.Attr{Name: "value_ints", Value: []int64{0}})
+	b.Node("Unsqueeze", "batch", []string{"x", "axes"}, []string{"xb"})
+	b.Node("Conv", "conv", []string{"xb", "w"}, []string{"c"})
+	b.Node("Relu", "relu", []string{"c"}, []string{"y"})
+	b.Output("y")
+	model := filepath.Join(dir, "unbatched.onnx")
+	if err := b.Write(model); err != nil {
+		t.Fatal(err)
+	}
+	x := tensor.New(tensor.Float32, []int{5, 3, 4, 4})
+	for i := range x.F32() {
+		x.F32()[i] = float32(i%13) / 4
+	}
+	data := filepath.Join(dir, "x.npy")
+	f, err := os.Create(data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := loader.WriteNpy(f, x); err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+	code, out, stderr := runCLI(t, "check", model, "--data", data, "--format", "json")
+	if code > 1 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var r struct {
+		Input struct {
+			Samples  int
+			PerInput []struct {
+				ChannelMean []float64 `json:"channel_mean"`
+			} `json:"per_input"`
+		}
+		Layers []struct {
+			Node  string
+			Count int64
+		}
+	}
+	if err := json.Unmarshal([]byte(out), &r); err != nil {
+		t.Fatal(err)
+	}
+	if r.Input.Samples != 5 || len(r.Input.PerInput) != 1 || len(r.Input.PerInput[0].ChannelMean) != 3 {
+		t.Errorf("samples %d, per input %+v: want 5 samples and 3 channel means", r.Input.Samples, r.Input.PerInput)
+	}
+	for _, l := range r.Layers {
+		if l.Node == "relu" && l.Count != 5*2*4*4 {
+			t.Errorf("relu observed %d values, want %d", l.Count, 5*2*4*4)
+		}
+	}
+	if strings.Contains(stderr, "dynamic batch axis") {
+		t.Errorf("batch-1 hint given for a model without a sample axis: %q", stderr)
+	}
+	code, _, stderr = runCLI(t, "check", model, "--data", data, "--batch", "2")
+	if code != 2 || !strings.Contains(stderr, `input "x"`) || !strings.Contains(stderr, "no sample axis") {
+		t.Errorf("--batch 2: exit %d, %q", code, stderr)
+	}
+}

@@ -75,6 +75,9 @@ type sampleFeed struct {
 	batch atomic.Int64
 	auto  bool
 	fixed int
+	// unbatched: the model's inputs have no sample axis; each run gets one
+	// sample with the axis dropped (runInputs)
+	unbatched bool
 	// sizes are the sizes of the batches read so far; replay, when set,
 	// gives the batch sizes to read (another model's sizes, for compare);
 	// dropped counts the samples left over that fell short of a fixed batch.
@@ -92,22 +95,6 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 	if len(g.Inputs) == 0 {
 		return nil, userErr("the model has no inputs to feed")
 	}
-	fixed, by, err := fixedBatch(g)
-	if err != nil {
-		return nil, err
-	}
-	switch {
-	case fixed > 0 && o.batch > 0 && o.batch != fixed:
-		return nil, userErr("--batch %d: the model fixes the batch size to %d (input %q has shape %s); pass --batch %d or leave --batch out", o.batch, fixed, by.Name, probe.ShapeString(by), fixed)
-	case fixed > 0:
-		f.batch.Store(int64(fixed))
-	case o.batch > 0:
-		f.batch.Store(int64(o.batch))
-	default:
-		f.batch.Store(1)
-		f.auto = true
-	}
-	f.fixed = fixed
 	for _, in := range g.Inputs {
 		f.order = append(f.order, in.Name)
 	}
@@ -175,6 +162,9 @@ func openFeed(g *loader.Graph, o dataOptions) (*sampleFeed, error) {
 				return fail(userErr("model input %q has no data: pass --data %s=PATH (the model's inputs: %s)", in.Name, in.Name, strings.Join(f.order, ", ")))
 			}
 		}
+	}
+	if err := f.chooseBatching(g, o.batch); err != nil {
+		return fail(err)
 	}
 	// sample count: the smallest source, capped by --samples
 	for _, s := range f.sources {
@@ -313,6 +303,15 @@ func checkSource(vi loader.ValueInfo, s loader.Source) error {
 		return nil
 	}
 	got := append([]int{-1}, s.SampleShape()...)
+	if len(vi.Shape) == len(got)-1 { // no sample axis: one sample a run
+		got = got[1:]
+		for i, d := range vi.Shape {
+			if d >= 0 && d != got[i] {
+				return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape())
+			}
+		}
+		return nil
+	}
 	if len(got) != len(vi.Shape) {
 		return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v (with the sample axis first: %v)", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape(), got)
 	}
@@ -373,6 +372,19 @@ func (f *sampleFeed) next(g *loader.Graph) (map[string]*tensor.Tensor, []int64, 
 	return batch, labels, nil
 }
 
+// runInputs is a batch as the plan takes it: without the sample axis when
+// the model's inputs have none (a view of the same values).
+func (f *sampleFeed) runInputs(batch map[string]*tensor.Tensor) map[string]*tensor.Tensor {
+	if !f.unbatched {
+		return batch
+	}
+	in := make(map[string]*tensor.Tensor, len(batch))
+	for name, t := range batch {
+		in[name] = t.Reshaped(t.Shape[1:])
+	}
+	return in
+}
+
 // note is what the user should know about how the sample was fed ("" when
 // nothing): samples left out for a fixed batch size, and that a model fixed
 // to one sample a batch runs slower than it could.
@@ -381,27 +393,70 @@ func (f *sampleFeed) note() string {
 	if f.dropped > 0 {
 		fmt.Fprintf(&b, "vitals: the model fixes the batch size to %d; the last %d samples, fewer than a batch, were left out\n", f.fixed, f.dropped)
 	}
-	if f.fixed == 1 && f.done > 1 {
+	if f.fixed == 1 && !f.unbatched && f.done > 1 {
 		b.WriteString("vitals: the model fixes the batch size to 1, so samples ran one at a time; exported with a dynamic batch axis it would run several per batch, which is faster\n")
 	}
 	return b.String()
 }
 
-// fixedBatch is the batch size the model's inputs fix (the first axis of
-// every input declaring one as a number), 0 when none does, and the input
-// that fixes it; inputs fixing different sizes are an error.
-func fixedBatch(g *loader.Graph) (int, loader.ValueInfo, error) {
-	n, by := 0, loader.ValueInfo{}
-	for _, in := range g.Inputs {
-		if len(in.Shape) == 0 || in.Shape[0] <= 0 {
-			continue
+// chooseBatching sets how the feed cuts the sample, from --batch (0: not
+// given) and the model's inputs:
+//   - inputs without a sample axis (rank one less than the sample's with it,
+//     as detection models exported for one image take [3, H, W]) run one
+//     sample a run, the axis dropped (unbatched);
+//   - inputs that fix their first axis to a number run batches of exactly
+//     that size (fixed), and another --batch is refused;
+//   - otherwise --batch, or, without it, one sample first and then
+//     chooseBatch's size (auto).
+//
+// Inputs that disagree (fixing different sizes, or some with a sample axis
+// and some without) are an error.
+func (f *sampleFeed) chooseBatching(g *loader.Graph, batch int) error {
+	var fixedBy, flatBy *loader.ValueInfo
+	with := ""
+	for i := range g.Inputs {
+		in := &g.Inputs[i]
+		s := f.sources[in.Name]
+		switch {
+		case s != nil && in.Shape != nil && len(in.Shape) == len(s.SampleShape()):
+			flatBy = in
+		case len(in.Shape) > 0 && in.Shape[0] > 0:
+			if fixedBy != nil && in.Shape[0] != fixedBy.Shape[0] {
+				return userErr("inputs %q (shape %s) and %q (shape %s) fix different batch sizes; vitals feeds every input the same samples", fixedBy.Name, probe.ShapeString(*fixedBy), in.Name, probe.ShapeString(*in))
+			}
+			fixedBy = in
+		default:
+			with = in.Name
 		}
-		if n > 0 && in.Shape[0] != n {
-			return 0, by, userErr("inputs %q (shape %s) and %q (shape %s) fix different batch sizes; vitals feeds every input the same samples", by.Name, probe.ShapeString(by), in.Name, probe.ShapeString(in))
-		}
-		n, by = in.Shape[0], in
 	}
-	return n, by, nil
+	if flatBy != nil && (fixedBy != nil || with != "") {
+		other := with
+		if fixedBy != nil {
+			other = fixedBy.Name
+		}
+		return userErr("input %q (shape %s) has no sample axis but input %q has one; vitals feeds every input the same samples", flatBy.Name, probe.ShapeString(*flatBy), other)
+	}
+	switch {
+	case flatBy != nil:
+		if batch > 1 {
+			return userErr("--batch %d: input %q (shape %s) has no sample axis, so the model takes one sample a run; pass --batch 1 or leave --batch out", batch, flatBy.Name, probe.ShapeString(*flatBy))
+		}
+		f.unbatched, f.fixed = true, 1
+		f.batch.Store(1)
+	case fixedBy != nil:
+		n := fixedBy.Shape[0]
+		if batch > 0 && batch != n {
+			return userErr("--batch %d: the model fixes the batch size to %d (input %q has shape %s); pass --batch %d or leave --batch out", batch, n, fixedBy.Name, probe.ShapeString(*fixedBy), n)
+		}
+		f.fixed = n
+		f.batch.Store(int64(n))
+	case batch > 0:
+		f.batch.Store(int64(batch))
+	default:
+		f.batch.Store(1)
+		f.auto = true
+	}
+	return nil
 }
 
 // autoBatchBytes is what the node outputs of one batch come to at the batch
@@ -627,7 +682,7 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 		}
 		done += batchLen(batch)
 		c.AddInputs(batch)
-		outs, released, err := l.plan.RunRecycled(batch, hook, dead)
+		outs, released, err := l.plan.RunRecycled(feed.runInputs(batch), hook, dead)
 		if errors.Is(err, errInterrupted) {
 			return nil, errInterrupted
 		}
