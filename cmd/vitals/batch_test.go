@@ -36,22 +36,7 @@ func TestFixedBatchModel(t *testing.T) {
 	if err := b.Write(model); err != nil {
 		t.Fatal(err)
 	}
-	sample := func(n int) string {
-		x := tensor.New(tensor.Float32, []int{n, 6})
-		for i := range x.F32() {
-			x.F32()[i] = float32(i%11) / 5
-		}
-		p := filepath.Join(dir, "x.npy")
-		f, err := os.Create(p)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer f.Close()
-		if err := loader.WriteNpy(f, x); err != nil {
-			t.Fatal(err)
-		}
-		return p
-	}
+	sample := func(n int) string { return rampNpy(t, filepath.Join(dir, "x.npy"), 11, 5, n, 6) }
 	code, out, stderr := runCLI(t, "check", model, "--data", sample(10), "--format", "json")
 	if code > 1 {
 		t.Fatalf("exit %d: %s", code, stderr)
@@ -151,19 +136,7 @@ func TestUnbatchedInput(t *testing.T) {
 	if err := b.Write(model); err != nil {
 		t.Fatal(err)
 	}
-	x := tensor.New(tensor.Float32, []int{5, 3, 4, 4})
-	for i := range x.F32() {
-		x.F32()[i] = float32(i%13) / 4
-	}
-	data := filepath.Join(dir, "x.npy")
-	f, err := os.Create(data)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := loader.WriteNpy(f, x); err != nil {
-		t.Fatal(err)
-	}
-	f.Close()
+	data := rampNpy(t, filepath.Join(dir, "x.npy"), 13, 4, 5, 3, 4, 4)
 	code, out, stderr := runCLI(t, "check", model, "--data", data, "--format", "json")
 	if code > 1 {
 		t.Fatalf("exit %d: %s", code, stderr)
@@ -198,4 +171,23 @@ func TestUnbatchedInput(t *testing.T) {
 	if code != 2 || !strings.Contains(stderr, `input "x"`) || !strings.Contains(stderr, "no sample axis") {
 		t.Errorf("--batch 2: exit %d, %q", code, stderr)
 	}
+}
+
+// rampNpy writes a float32 .npy of the given shape holding (i mod period)/div
+// for element i, and returns its path.
+func rampNpy(t *testing.T, path string, period, div int, shape ...int) string {
+	t.Helper()
+	x := tensor.New(tensor.Float32, shape)
+	for i := range x.F32() {
+		x.F32()[i] = float32(i%period) / float32(div)
+	}
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	if err := loader.WriteNpy(f, x); err != nil {
+		t.Fatal(err)
+	}
+	return path
 }
