@@ -197,16 +197,10 @@ type Collector struct {
 	errMu sync.Mutex
 	err   error
 	// sent counts the items put on jobs, handled the ones the worker has
-	// finished (in the same order); pend holds dead tensors that wait for
-	// the worker to pass the mark sent had when they died (AfterObserved).
+	// finished (in the same order); dead holds the tensors that died before
+	// the worker passed them (AfterObserved).
 	sent, handled atomic.Int64
-	pend          []pendingPut
-	put           func(*tensor.Tensor)
-}
-
-type pendingPut struct {
-	t    *tensor.Tensor
-	mark int64
+	dead          tensor.Deferred
 }
 
 // AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
@@ -215,21 +209,11 @@ type pendingPut struct {
 // queued), at once when it has. Sync and Wait pass on what is still
 // waiting. Call the function, Sync and Wait from one goroutine.
 func (c *Collector) AfterObserved(put func(*tensor.Tensor)) func(*tensor.Tensor) {
-	c.put = put
+	c.dead.Put = put
 	return func(t *tensor.Tensor) {
-		c.pend = append(c.pend, pendingPut{t, c.sent.Load()})
-		c.passOn(c.handled.Load())
+		c.dead.Add(t, c.sent.Load())
+		c.dead.PassOn(c.handled.Load())
 	}
-}
-
-// passOn hands to put the waiting tensors whose mark the worker has passed.
-func (c *Collector) passOn(handled int64) {
-	i := 0
-	for ; i < len(c.pend) && c.pend[i].mark <= handled; i++ {
-		c.put(c.pend[i].t)
-		c.pend[i] = pendingPut{}
-	}
-	c.pend = c.pend[:copy(c.pend, c.pend[i:])]
 }
 
 func (c *Collector) failed() error {
@@ -249,14 +233,14 @@ type obsJob struct {
 // far (after it, the batch's tensors are no longer read by the collector).
 func (c *Collector) Sync() error {
 	if c.jobs == nil {
-		c.passOn(c.sent.Load())
+		c.dead.PassOn(c.sent.Load())
 		return c.failed()
 	}
 	done := make(chan struct{})
 	c.sent.Add(1)
 	c.jobs <- obsJob{sync: done}
 	<-done
-	c.passOn(c.sent.Load())
+	c.dead.PassOn(c.sent.Load())
 	return c.failed()
 }
 
@@ -332,7 +316,7 @@ func (c *Collector) Wait() error {
 		<-c.done
 		c.jobs = nil
 	}
-	c.passOn(c.sent.Load())
+	c.dead.PassOn(c.sent.Load())
 	return c.failed()
 }
 

@@ -92,3 +92,27 @@ func TestPoolPut(t *testing.T) {
 		t.Fatal("the buffer put back was not reused zeroed")
 	}
 }
+
+// Deferred hands a tensor on only once the reader has finished the items
+// queued before it died, in order, each once.
+func TestDeferred(t *testing.T) {
+	var got []*Tensor
+	d := Deferred{Put: func(x *Tensor) { got = append(got, x) }}
+	a, b, c := From([]float32{1}, 1), From([]float32{2}, 1), From([]float32{3}, 1)
+	d.Add(a, 0) // nothing queued before it
+	d.Add(b, 2)
+	d.Add(c, 3)
+	d.PassOn(1)
+	if len(got) != 1 || got[0] != a {
+		t.Fatalf("after 1 done: %v, want a alone", got)
+	}
+	d.PassOn(2)
+	d.PassOn(2)
+	if len(got) != 2 || got[1] != b {
+		t.Fatalf("after 2 done: %d handed, want a then b", len(got))
+	}
+	d.PassOn(5)
+	if len(got) != 3 || got[2] != c {
+		t.Fatalf("after 5 done: %d handed, want all three", len(got))
+	}
+}

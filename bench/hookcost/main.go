@@ -268,9 +268,7 @@ type momentsOnly struct {
 	// reach the count queued when they died (as Collector.AfterObserved)
 	sent    int64
 	handled atomic.Int64
-	pend    []*tensor.Tensor
-	marks   []int64
-	put     func(*tensor.Tensor)
+	dead    tensor.Deferred
 }
 
 func newMomentsOnly() *momentsOnly {
@@ -288,19 +286,11 @@ func newMomentsOnly() *momentsOnly {
 // afterRead is the run's dead-value function: t goes to put once the worker
 // has read every tensor queued before t died.
 func (mo *momentsOnly) afterRead(put func(*tensor.Tensor)) func(*tensor.Tensor) {
-	mo.put = put
+	mo.dead.Put = put
 	return func(t *tensor.Tensor) {
-		mo.pend, mo.marks = append(mo.pend, t), append(mo.marks, mo.sent)
-		mo.passOn(mo.handled.Load())
+		mo.dead.Add(t, mo.sent)
+		mo.dead.PassOn(mo.handled.Load())
 	}
-}
-
-func (mo *momentsOnly) passOn(done int64) {
-	i := 0
-	for ; i < len(mo.pend) && mo.marks[i] <= done; i++ {
-		mo.put(mo.pend[i])
-	}
-	mo.pend, mo.marks = mo.pend[i:], mo.marks[i:]
 }
 
 func (mo *momentsOnly) hook(_ *loader.Node, outs []*tensor.Tensor) error {
@@ -324,7 +314,7 @@ func (mo *momentsOnly) hook(_ *loader.Node, outs []*tensor.Tensor) error {
 }
 
 // wait returns once every queued tensor is done (before buffers are recycled).
-func (mo *momentsOnly) wait() { mo.wg.Wait(); mo.passOn(mo.sent) }
+func (mo *momentsOnly) wait() { mo.wg.Wait(); mo.dead.PassOn(mo.sent) }
 
 func (mo *momentsOnly) close() { mo.wg.Wait(); close(mo.jobs) }
 
