@@ -302,25 +302,27 @@ func checkSource(vi loader.ValueInfo, s loader.Source) error {
 	if vi.Shape == nil {
 		return nil
 	}
-	got := append([]int{-1}, s.SampleShape()...)
-	if len(vi.Shape) == len(got)-1 { // no sample axis: one sample a run
-		got = got[1:]
-		for i, d := range vi.Shape {
-			if d >= 0 && d != got[i] {
-				return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape())
-			}
-		}
-		return nil
+	sample, dims := s.SampleShape(), vi.Shape
+	switch {
+	case noSampleAxis(vi, s): // one sample a run
+	case len(dims) == len(sample)+1:
+		dims = dims[1:]
+	default:
+		return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v (with the sample axis first: %v)", vi.Name, probe.ShapeString(vi), s.Name(), sample, append([]int{-1}, sample...))
 	}
-	if len(got) != len(vi.Shape) {
-		return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v (with the sample axis first: %v)", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape(), got)
-	}
-	for i := 1; i < len(got); i++ {
-		if vi.Shape[i] >= 0 && vi.Shape[i] != got[i] {
-			return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v", vi.Name, probe.ShapeString(vi), s.Name(), s.SampleShape())
+	for i, d := range dims {
+		if d >= 0 && d != sample[i] {
+			return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v", vi.Name, probe.ShapeString(vi), s.Name(), sample)
 		}
 	}
 	return nil
+}
+
+// noSampleAxis reports whether a model input takes one sample as it is,
+// without a sample axis: its rank is the sample's (detection models exported
+// for one image take [3, H, W]).
+func noSampleAxis(vi loader.ValueInfo, s loader.Source) bool {
+	return s != nil && vi.Shape != nil && len(vi.Shape) == len(s.SampleShape())
 }
 
 // next returns the next batch (nil at the end) and its labels.
@@ -418,7 +420,7 @@ func (f *sampleFeed) chooseBatching(g *loader.Graph, batch int) error {
 		in := &g.Inputs[i]
 		s := f.sources[in.Name]
 		switch {
-		case s != nil && in.Shape != nil && len(in.Shape) == len(s.SampleShape()):
+		case noSampleAxis(*in, s):
 			flatBy = in
 		case len(in.Shape) > 0 && in.Shape[0] > 0:
 			if fixedBy != nil && in.Shape[0] != fixedBy.Shape[0] {
