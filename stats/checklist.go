@@ -290,15 +290,16 @@ var weightScaleCheck = &Check{
 			// g = 1/√3 (a value from the framework's source, common
 			// practice): usual, but not a scale-preserving rule before a ReLU
 			frameworkDefault := math.Abs(*w.Gain*math.Sqrt(3)-1) < 0.05
+			forward := *w.Gain / rules[0].gain // the forward rule's gain preserves the spread
 			note := ""
 			if frameworkDefault {
 				note = " This is the framework default U(±1/√fan_in) (gain 1/√3), which does not preserve the scale here."
 			}
 			p.Emit(report.Warning, w.Node, math.Min(strength, 3), map[string]any{"weight": w.Name, "gain": *w.Gain, "reference": near.gain, "rule": near.name,
 				"ratio": ratio, "fan_in": w.FanIn, "fan_out": w.FanOut, "std": w.Std, "followed_by": w.FollowedBy, "framework_default": frameworkDefault,
-				"forward_factor": *w.Gain / rules[0].gain},
+				"forward_factor": forward},
 				"weight %q has gain std·√fan_in = %.3g, %.2g× the nearest usual initialisation (%s, %.3g) for %s; without normalisation it scales the spread of the signal passing forward by about %.2g× (He et al. 2015, eq. 10).%s",
-				w.Name, *w.Gain, ratio, near.name, near.gain, followName(w.FollowedBy), *w.Gain/rules[0].gain, note)
+				w.Name, *w.Gain, ratio, near.name, near.gain, followName(w.FollowedBy), forward, note)
 		}
 		for _, st := range p.Stacks {
 			if st.Merged { // He et al. 2015 eq. 10 holds along a plain chain only
