@@ -100,49 +100,36 @@ func shortName(name string, max int) string {
 // names), or failing that the full name clipped from the left.
 func shortNames(names []string, max int) []string {
 	out := make([]string, len(names))
-	count := map[string]int{}
+	parts := make([][]string, len(names))
 	for i, n := range names {
 		out[i] = shortName(n, max)
-		count[out[i]]++
+		parts[i] = strings.Split(strings.Trim(n, "/"), "/")
 	}
 	tail := make([]int, len(names)) // path components out[i] shows
-	for i, n := range names {
-		if count[out[i]] < 2 {
-			continue
-		}
-		parts := strings.Split(strings.Trim(n, "/"), "/")
-		tail[i] = min(2, len(parts))
-		out[i] = clipLeft(strings.Join(parts[len(parts)-tail[i]:], "/"), max)
-	}
-	count = map[string]int{}
-	for _, s := range out {
-		count[s]++
-	}
-	group := map[string][]int{}
-	for i, s := range out {
-		if count[s] > 1 {
-			group[s] = append(group[s], i)
-		}
-	}
-	for _, members := range group {
+	for _, members := range sameLabel(out) {
 		for _, i := range members {
-			parts := strings.Split(strings.Trim(names[i], "/"), "/")
-			last := len(parts) - 1 // the label's end: the last component, not the shared operator
-			if last > 0 && opLike(parts[last]) {
+			p := parts[i]
+			tail[i] = min(2, len(p))
+			out[i] = clipLeft(strings.Join(p[len(p)-tail[i]:], "/"), max)
+		}
+	}
+	for _, members := range sameLabel(out) {
+		for _, i := range members {
+			p := parts[i]
+			last := len(p) - 1 // the label's end: the last component, not the shared operator
+			if last > 0 && opLike(p[last]) {
 				last--
 			}
-			label := parts[last]
 			out[i] = clipLeft(names[i], max)
-			for j := min(len(parts)-tail[i], last) - 1; j >= 0; j-- {
+			for j := min(len(p)-tail[i], last) - 1; j >= 0; j-- {
 				unique := true
 				for _, o := range members {
-					op := strings.Split(strings.Trim(names[o], "/"), "/")
-					if o != i && len(op) == len(parts) && op[j] == parts[j] {
+					if o != i && len(parts[o]) == len(p) && parts[o][j] == p[j] {
 						unique = false
 						break
 					}
 				}
-				if s := parts[j] + "/…/" + label; unique && len([]rune(s)) <= max {
+				if s := p[j] + "/…/" + p[last]; unique && len([]rune(s)) <= max {
 					out[i] = s
 					break
 				}
@@ -150,6 +137,20 @@ func shortNames(names []string, max int) []string {
 		}
 	}
 	return out
+}
+
+// sameLabel groups the indices of labels that occur more than once.
+func sameLabel(labels []string) map[string][]int {
+	group := map[string][]int{}
+	for i, s := range labels {
+		group[s] = append(group[s], i)
+	}
+	for s, members := range group {
+		if len(members) < 2 {
+			delete(group, s)
+		}
+	}
+	return group
 }
 
 // opLike reports whether s looks like an ONNX operator type: an upper-case
