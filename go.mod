@@ -1,4 +1,4 @@
-module vitals
+module github.com/vitals-health/vitals
 
 go 1.26.8
 

@@ -5,8 +5,8 @@ import (
 	"sync"
 	"unsafe"
 
-	"vitals/internal/pages"
-	"vitals/internal/par"
+	"github.com/vitals-health/vitals/internal/pages"
+	"github.com/vitals-health/vitals/internal/par"
 )
 
 // operand is op(A) or op(B): either a row-major matrix (data, ld, trans) or,

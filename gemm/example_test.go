@@ -3,7 +3,7 @@ package gemm_test
 import (
 	"fmt"
 
-	"vitals/gemm"
+	"github.com/vitals-health/vitals/gemm"
 )
 
 // A 1×1-channel 2×2 "convolution" over a 3×3 image as im2col + GEMM:

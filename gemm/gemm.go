@@ -40,8 +40,8 @@ import (
 	"runtime"
 	"sync/atomic"
 
-	"vitals/internal/pages"
-	"vitals/internal/par"
+	"github.com/vitals-health/vitals/internal/pages"
+	"github.com/vitals-health/vitals/internal/par"
 )
 
 var (

@@ -8,7 +8,7 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/loader/onnxpb"
 )
 
 func modelWith(init ...*onnxpb.TensorProto) []byte {

@@ -10,7 +10,7 @@ import (
 	"strconv"
 	"strings"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // OpenCSV opens a comma-separated table for a tabular model: every column is

@@ -14,8 +14,8 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/loader/onnxpb"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // MaxProtoBytes is the protobuf format's 2 GiB message limit; larger models keep weights in external data.

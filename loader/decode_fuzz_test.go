@@ -10,9 +10,9 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader/onnxpb"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // fuzzBudget bounds every allocation a fuzz input can ask for.

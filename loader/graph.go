@@ -3,7 +3,7 @@
 package loader
 
 import (
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Model is a decoded ONNX ModelProto.

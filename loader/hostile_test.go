@@ -15,9 +15,9 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader/onnxpb"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // writeModelWith writes dir/model.onnx: y = Identity(x), plus the given initializers.

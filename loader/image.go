@@ -10,7 +10,7 @@ import (
 	"path/filepath"
 	"strings"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Limits checked on an image's header (image.DecodeConfig) before decoding it.

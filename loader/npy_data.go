@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // npyDecodeInto converts the raw elements in b (whole elements of type d, in

@@ -8,7 +8,7 @@ import (
 	"strconv"
 	"strings"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // NumPy .npy format (versions 1.0, 2.0 and 3.0), as documented in NumPy's

@@ -10,7 +10,7 @@ import (
 	"os"
 	"unsafe"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // MaxFortranBytes is the largest Fortran-order (column-major) array a Source

@@ -12,7 +12,7 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // f4Fixture is f4_c.npy: float32 (4, 3, 2), x[i] = 0.5*i - 3.

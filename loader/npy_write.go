@@ -9,7 +9,7 @@ import (
 	"strconv"
 	"strings"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // WriteNpy writes t as a .npy file in C order, little-endian, in the layout

@@ -12,7 +12,7 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 func TestOpenNpzFixtures(t *testing.T) {

@@ -4,7 +4,7 @@ import (
 	"bytes"
 	"unsafe"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // fromRawNative decodes raw_data on little-endian hosts without converting

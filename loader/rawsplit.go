@@ -7,9 +7,9 @@ import (
 	"google.golang.org/protobuf/encoding/protowire"
 	"google.golang.org/protobuf/proto"
 
-	"vitals/internal/pages"
-	"vitals/internal/par"
-	"vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/internal/pages"
+	"github.com/vitals-health/vitals/internal/par"
+	"github.com/vitals-health/vitals/loader/onnxpb"
 )
 
 // Field numbers of onnx.proto walked by splitRawData.

@@ -8,7 +8,7 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/loader/onnxpb"
 )
 
 // splitRawData + placeRawData must decode to exactly the message the

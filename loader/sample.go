@@ -10,7 +10,7 @@ import (
 	"strings"
 	"sync"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Source yields the samples of one model input, batch by batch, in order.

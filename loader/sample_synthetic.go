@@ -5,7 +5,7 @@ import (
 	"io"
 	"math/rand/v2"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // syntheticStream is the second PCG seed word, fixed so that a given seed

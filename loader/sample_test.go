@@ -11,8 +11,8 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/loader/onnxpb"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 func TestSyntheticDeterministic(t *testing.T) {

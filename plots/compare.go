@@ -7,7 +7,7 @@ import (
 	"slices"
 	"strings"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // maxCompareLayers is how many of the most-changed layers get an overlay panel.

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // DepthProfileSpec describes depth-profile.png: how the activations of every

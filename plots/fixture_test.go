@@ -7,7 +7,7 @@ import (
 	"path/filepath"
 	"testing"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // loadSample reads a sample report written by the report package's

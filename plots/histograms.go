@@ -6,7 +6,7 @@ import (
 	"slices"
 	"strings"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 const (

@@ -7,7 +7,7 @@ import (
 	"strings"
 	"unicode"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // activationOps are the ONNX operators whose outputs count as activation

@@ -6,7 +6,7 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 func TestShortName(t *testing.T) {

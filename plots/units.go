@@ -3,7 +3,7 @@ package plots
 import (
 	"fmt"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // UnitHealthSpec describes unit-health.png: for every activation layer in

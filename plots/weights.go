@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // WeightsSpec describes weights.png: the gain g = std·√fan_in of every weight

@@ -5,7 +5,7 @@ import (
 	"io"
 	"os"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // WriteAll writes every figure of r into dir (which must exist) and returns

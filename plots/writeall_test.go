@@ -9,7 +9,7 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 func TestWriteAllCheckAndCompare(t *testing.T) {

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"unsafe"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // makeChecked is make([]T, n) for kernels that size a buffer themselves

@@ -3,8 +3,8 @@ package probe
 import (
 	"fmt"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Call is one invocation of a kernel: the node, its inputs (nil where an

@@ -4,10 +4,10 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 func compileBuilt(t *testing.T, b *modelbuild.Builder) (*loader.Model, *probe.Plan, error) {

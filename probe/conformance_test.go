@@ -15,9 +15,9 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 func conformanceDir(t *testing.T) string {

@@ -4,10 +4,10 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/internal/modeltest"
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/internal/modeltest"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // A bias that reaches Conv through Identity (as exporters emit for shared

@@ -4,8 +4,8 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // benchDW times one MobileNetV2-sized depthwise 3×3 Conv (batch 8) through

@@ -1,6 +1,6 @@
 package probe
 
-import "vitals/tensor"
+import "github.com/vitals-health/vitals/tensor"
 
 // Float32 depthwise (channel-wise) 2-D convolution: every output channel m
 // reads only input channel m/Mg (Cg == 1), so each output plane is

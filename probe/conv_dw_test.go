@@ -6,8 +6,8 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // The vector row kernels of every level available on this CPU against

@@ -3,8 +3,8 @@ package probe
 import (
 	"runtime"
 
-	"vitals/gemm"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Float32 convolution fast paths, W packed once per initializer:

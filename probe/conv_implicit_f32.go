@@ -3,7 +3,7 @@ package probe
 import (
 	"slices"
 
-	"vitals/gemm"
+	"github.com/vitals-health/vitals/gemm"
 )
 
 // Implicit-GEMM 2-D convolution (float32).

@@ -3,7 +3,7 @@ package probe
 import (
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Float32 elementwise fast paths: slice kernels with the operation chosen

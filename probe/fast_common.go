@@ -6,10 +6,10 @@ import (
 	"sync/atomic"
 	"weak"
 
-	"vitals/gemm"
-	"vitals/internal/pages"
-	"vitals/internal/par"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/internal/pages"
+	"github.com/vitals-health/vitals/internal/par"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Shared machinery of the float32 fast paths: the packed-weight cache and a

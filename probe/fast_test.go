@@ -6,8 +6,8 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Tests of the float32 fast paths against the reference paths (gonum SGEMM,

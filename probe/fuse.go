@@ -3,8 +3,8 @@ package probe
 import (
 	"math"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Fusion of an activation into the node that produces its input.

@@ -6,9 +6,9 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // fuseTestModel: a small MobileNet-like graph at opset 13 with every kind of

@@ -6,8 +6,8 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // fuzzBytes hands out a fuzz input as small decisions; past its end it gives zeros.

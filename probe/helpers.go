@@ -3,7 +3,7 @@ package probe
 import (
 	"fmt"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Number is every numeric element type the executor computes in.

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Activation functions. Float-only activations are written once in float64

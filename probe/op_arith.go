@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Binary arithmetic with multidirectional broadcasting: Add, Sub, Mul, Div, Pow, Mod.

@@ -6,8 +6,8 @@ import (
 	"strconv"
 	"strings"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Type conversion and pass-through operators: Cast, CastLike, Identity, Dropout (inference).

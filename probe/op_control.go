@@ -3,8 +3,8 @@ package probe
 import (
 	"fmt"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Control flow: If, Loop, Scan. Subgraphs run through Call.RunSubgraph and read

@@ -3,8 +3,8 @@ package probe
 import (
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Control flow with subgraphs built by hand (only Add is needed): outer-scope

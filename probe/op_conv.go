@@ -3,7 +3,7 @@ package probe
 import (
 	"fmt"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Convolution: Conv (im2col + GEMM) and ConvTranspose (GEMM + col2im), 1-D to

@@ -8,8 +8,8 @@ import (
 	"testing"
 	"time"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Detection operators (NonMaxSuppression, RoiAlign): small hand-checked

@@ -5,7 +5,7 @@ import (
 	"sort"
 	"strings"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Einsum: out[o] = Σ_s Π_i in_i[labels_i(o, s)] over the summed labels s.

@@ -5,8 +5,8 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // elemRun runs kernel k on a single node built from attrs and inputs.

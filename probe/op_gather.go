@@ -3,7 +3,7 @@ package probe
 import (
 	"fmt"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Indexing: Gather, GatherElements, GatherND, ScatterElements (and its

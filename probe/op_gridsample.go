@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // GridSample (opsets 16, 20): X has shape [N, C, D1, …, Dr], grid has shape

@@ -5,8 +5,8 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 func linTestCall(op string, attrs map[string]*loader.Attr, opset int, in ...*tensor.Tensor) *Call {

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Comparison and logic with multidirectional broadcasting (legacy broadcast/axis

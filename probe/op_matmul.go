@@ -7,8 +7,8 @@ import (
 	"gonum.org/v1/gonum/blas/blas32"
 	"gonum.org/v1/gonum/blas/blas64"
 
-	"vitals/gemm"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Linear algebra: MatMul, Gemm, Einsum. Every float32 product goes through

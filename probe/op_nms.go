@@ -5,7 +5,7 @@ import (
 	"fmt"
 	"slices"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Detection post-processing: NonMaxSuppression (opsets 10 and 11).

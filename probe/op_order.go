@@ -3,7 +3,7 @@ package probe
 import (
 	"fmt"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Order-dependent kernels along one axis: TopK and CumSum.

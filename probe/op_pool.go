@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Pooling over the spatial axes of N×C×D1×…×Dn tensors: MaxPool (with the

@@ -5,8 +5,8 @@ import (
 	"math/rand"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // The conformance data covers forward runs with default activations only; these

@@ -5,7 +5,7 @@ import (
 	"math"
 	"strings"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Region pooling: RoiAlign (opsets 10 and 16).

@@ -3,7 +3,7 @@ package probe
 import (
 	"fmt"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Selection along one axis: ReverseSequence and Compress. Both build the

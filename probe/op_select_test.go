@@ -6,9 +6,9 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Kernels of op_select.go, op_gridsample.go and op_det.go: bad inputs give an

@@ -5,8 +5,8 @@ import (
 	"reflect"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // shapeRun runs one registered kernel on the given inputs.

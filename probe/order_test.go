@@ -6,7 +6,7 @@ import (
 	"testing"
 	"time"
 
-	"vitals/loader"
+	"github.com/vitals-health/vitals/loader"
 )
 
 // sweepOrder is the plain statement of the compiler's order: sweep the

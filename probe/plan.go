@@ -8,8 +8,8 @@ import (
 	"sort"
 	"strings"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Hook observes a node's outputs right after the node has run. Outputs are

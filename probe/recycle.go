@@ -1,6 +1,6 @@
 package probe
 
-import "vitals/tensor"
+import "github.com/vitals-health/vitals/tensor"
 
 // recycler decides, during RunRecycled, which released values' storage can
 // be handed back before the run ends: a value whose storage overlaps no

@@ -4,8 +4,8 @@ import (
 	"fmt"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Each intermediate value is released right after its last consumer, so a

@@ -4,8 +4,8 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // graphModel wraps nodes into a model with one float32 input "x" of free shape.

@@ -14,8 +14,8 @@ import (
 	"testing"
 	"time"
 
-	"vitals/plots"
-	"vitals/report"
+	"github.com/vitals-health/vitals/plots"
+	"github.com/vitals-health/vitals/report"
 )
 
 // chromiumPath finds a Chromium binary or skips the test.

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // sevFor grades v against warning/error thresholds (higher is worse).

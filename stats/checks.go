@@ -6,7 +6,7 @@ import (
 	"sort"
 	"strings"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // Check is one health check: a value with a name, a doc whose first sentence

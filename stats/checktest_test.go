@@ -5,7 +5,7 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // checkOn runs one check over hand-made statistics with the given threshold

@@ -6,9 +6,9 @@ import (
 	"sync"
 	"sync/atomic"
 
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // ActKind says which unit statistics a node's output gets.

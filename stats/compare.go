@@ -5,9 +5,9 @@ import (
 	"math"
 	"sort"
 
-	"vitals/loader"
-	"vitals/report"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Compare diffs the OLD checkpoint's statistics into the NEW one's report:

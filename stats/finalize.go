@@ -4,8 +4,8 @@ import (
 	"math"
 	"strconv"
 
-	"vitals/loader"
-	"vitals/report"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/report"
 )
 
 func fmtG(x float64) string { return strconv.FormatFloat(x, 'g', 4, 64) }

@@ -6,10 +6,10 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/report"
-	"vitals/stats"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // analyze builds, runs and checks a model over the given batches of input "x".

@@ -3,7 +3,7 @@ package stats
 import (
 	"math"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // outputAcc summarises the first graph output over the sample: whether it is

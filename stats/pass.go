@@ -5,7 +5,7 @@ import (
 	"runtime"
 	"sync"
 
-	"vitals/internal/par"
+	"github.com/vitals-health/vitals/internal/par"
 )
 
 // The fused statistics pass: one read of a node output gives its moments,

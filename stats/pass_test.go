@@ -9,7 +9,7 @@ import (
 	"testing"
 	"unsafe"
 
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // The assembly reads passParams and passLanes by offset.

@@ -18,11 +18,11 @@ import (
 	"sync"
 	"testing"
 
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/report"
-	"vitals/stats"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 const refDir = "../testdata/ref"

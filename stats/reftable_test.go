@@ -7,7 +7,7 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/report"
+	"github.com/vitals-health/vitals/report"
 )
 
 // The README's "Reference architectures" table is generated from the reference

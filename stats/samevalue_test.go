@@ -5,11 +5,11 @@ import (
 	"math/rand/v2"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/internal/modeltest"
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/internal/modeltest"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Layers that pass their input's values on unchanged (Identity of the

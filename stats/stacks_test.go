@@ -5,8 +5,8 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // A squeeze-and-excitation gate (GlobalAveragePool → Conv → Sigmoid, then

@@ -3,9 +3,9 @@ package stats
 import (
 	"math"
 
-	"vitals/loader"
-	"vitals/report"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // weightOf locates the weight initializer of a linear node and how its rows

@@ -5,7 +5,7 @@ import (
 	"sync/atomic"
 	"unsafe"
 
-	"vitals/internal/pages"
+	"github.com/vitals-health/vitals/internal/pages"
 )
 
 // Pool recycles large float32 buffers from one batch to the next, so a long

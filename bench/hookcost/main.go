@@ -22,11 +22,11 @@ import (
 	"sync/atomic"
 	"time"
 
-	"vitals/gemm"
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/stats"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 func main() {

@@ -7,9 +7,9 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // A model exported with a fixed batch size (the first axis a number, as

@@ -8,9 +8,9 @@ import (
 	"strings"
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 const (

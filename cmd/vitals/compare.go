@@ -5,9 +5,9 @@ import (
 	"io"
 	"math"
 
-	"vitals/report"
-	"vitals/stats"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // cmdCompare runs OLD and NEW on the same batches in the same order and diffs

@@ -20,8 +20,8 @@ import (
 
 	flag "github.com/spf13/pflag"
 
-	"vitals/report"
-	"vitals/stats"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/stats"
 )
 
 // version is set at build time with -ldflags "-X main.version=..."; "dev" otherwise.

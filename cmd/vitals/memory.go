@@ -9,8 +9,8 @@ import (
 	"strconv"
 	"strings"
 
-	"vitals/loader"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // fallbackBudget is the memory budget when /proc/meminfo cannot be read.

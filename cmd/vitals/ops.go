@@ -10,8 +10,8 @@ import (
 
 	flag "github.com/spf13/pflag"
 
-	"vitals/loader"
-	"vitals/probe"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
 )
 
 // cmdOps lists the supported operators, or with --model which of a model's operators are supported.

@@ -13,8 +13,8 @@ import (
 	"strconv"
 	"strings"
 
-	"vitals/plots"
-	"vitals/report"
+	"github.com/vitals-health/vitals/plots"
+	"github.com/vitals-health/vitals/report"
 )
 
 // writer renders the report in one format; dir is the --out folder ("" if none)

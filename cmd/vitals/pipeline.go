@@ -15,10 +15,10 @@ import (
 	"syscall"
 	"time"
 
-	"vitals/loader"
-	"vitals/probe"
-	"vitals/stats"
-	"vitals/tensor"
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // dataOptions are the flags that say where the sample comes from.

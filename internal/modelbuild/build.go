@@ -7,7 +7,7 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/loader/onnxpb"
 )
 
 // Builder accumulates one graph.

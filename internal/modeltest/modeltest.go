@@ -5,8 +5,8 @@ package modeltest
 import (
 	"testing"
 
-	"vitals/internal/modelbuild"
-	"vitals/loader"
+	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/loader"
 )
 
 // Model serialises and decodes a built model, failing the test on an error.

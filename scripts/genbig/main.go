@@ -21,7 +21,7 @@ import (
 
 	"google.golang.org/protobuf/proto"
 
-	"vitals/loader/onnxpb"
+	"github.com/vitals-health/vitals/loader/onnxpb"
 )
 
 func main() {
