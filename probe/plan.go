@@ -7,6 +7,7 @@ import (
 	"runtime/debug"
 	"sort"
 	"strings"
+	"sync/atomic"
 
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/tensor"
@@ -34,6 +35,14 @@ type Plan struct {
 	producedAt map[string]int
 	// Debug keeps Go stack traces in kernel panic errors.
 	Debug bool
+	// view[i] is the node the hook is given for step i: nil for the main
+	// graph (the step's own node), the qualified copy for a subgraph (flat.go).
+	view []*loader.Node
+	// runs counts the runs of this plan (of a subgraph: one per branch
+	// taken or iteration), for the coverage of the report.
+	runs atomic.Int64
+	// flat is the main plan's flat view (flat.go).
+	flat *Flat
 }
 
 // Step is one node with its chosen kernel.
@@ -54,7 +63,12 @@ func (e *UnsupportedError) Error() string {
 
 // Compile orders the model's graph and picks kernels.
 func Compile(m *loader.Model) (*Plan, error) {
-	return compileGraph(m.Graph, m.Opsets, nil)
+	p, err := compileGraph(m.Graph, m.Opsets, nil)
+	if err != nil {
+		return nil, err
+	}
+	p.flat = flatten(p)
+	return p, nil
 }
 
 func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]bool) (*Plan, error) {
@@ -357,6 +371,7 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 	for name, t := range inputs {
 		env.vals[name] = t
 	}
+	p.runs.Add(1)
 	rs := &runState{plan: p, hook: hook}
 	var rec *recycler
 	if dead != nil && released != nil {
@@ -409,7 +424,12 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 			env.vals[name] = c.Out[j]
 		}
 		if hook != nil {
-			if err := hook(s.Node, c.Out); err != nil {
+			// the one hook call: a subgraph's steps pass their qualified node
+			node := s.Node
+			if p.view != nil {
+				node = p.view[i]
+			}
+			if err := hook(node, c.Out); err != nil {
 				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
 			}
 		}
@@ -466,7 +486,9 @@ func (p *Plan) call(s *Step, c *Call) (err error) {
 }
 
 // RunSubgraph runs a subgraph attribute of the current node with the given
-// inputs bound to the subgraph's inputs in order; outer values resolve through c.Scope.
+// inputs bound to the subgraph's inputs in order; outer values resolve through
+// c.Scope. The run's hook sees every node of the subgraph, under its
+// qualified name (flat.go).
 func (c *Call) RunSubgraph(g *loader.Graph, inputs []*tensor.Tensor) ([]*tensor.Tensor, error) {
 	sp, ok := c.sub[g]
 	if !ok {
@@ -481,7 +503,11 @@ func (c *Call) RunSubgraph(g *loader.Graph, inputs []*tensor.Tensor) ([]*tensor.
 			in[g.Inputs[i].Name] = t
 		}
 	}
-	res, err := sp.run(in, c.Scope, nil)
+	var hook Hook
+	if c.run != nil {
+		hook = c.run.hook
+	}
+	res, err := sp.run(in, c.Scope, hook)
 	if err != nil {
 		return nil, fmt.Errorf("subgraph %q: %w", g.Name, err)
 	}

@@ -15,6 +15,8 @@ type Report struct {
 	Weights  []Weight  `json:"weights"`
 	Findings []Finding `json:"findings"`
 	Ranking  []Rank    `json:"ranking"`
+	// Coverage says which nodes of the model (subgraph bodies included) the run observed.
+	Coverage *Coverage `json:"coverage,omitempty"`
 	// Output summarises the model's final output (softmax health, accuracy with labels).
 	Output *Output `json:"output,omitempty"`
 	// Compare is set by `vitals compare`: the old checkpoint's numbers and the differences.
@@ -30,6 +32,42 @@ type Model struct {
 	Producer   string `json:"producer"`
 	Nodes      int    `json:"nodes"`
 	Parameters int64  `json:"parameters"`
+}
+
+// Coverage counts the nodes of the model, those inside If/Loop/Scan
+// subgraphs included, that ran on the sample and whose outputs were observed
+// (coverage.go writes it).
+type Coverage struct {
+	// Nodes is every node of the model; InSubgraphs of them sit in subgraphs.
+	Nodes       int `json:"nodes"`
+	InSubgraphs int `json:"in_subgraphs"`
+	// Executed nodes belong to a graph that ran at least once (the main graph,
+	// an If branch taken, a Loop or Scan body with at least one iteration).
+	Executed int `json:"executed"`
+	// Observed nodes had their outputs seen by the statistics at least once.
+	Observed int `json:"observed"`
+	// Subgraphs lists every subgraph with how often it ran.
+	Subgraphs []SubgraphRun `json:"subgraphs"`
+	// NotObserved lists every node not observed, with the reason.
+	NotObserved []Unobserved `json:"not_observed"`
+}
+
+// SubgraphRun is one subgraph (an If branch, a Loop or Scan body) and its runs.
+type SubgraphRun struct {
+	// Name is the prefix of its nodes' names: control-flow node/label (docs/subgraphs.md).
+	Name string `json:"name"`
+	Op   string `json:"op"`
+	// Nodes directly in it (not in subgraphs nested in it).
+	Nodes int `json:"nodes"`
+	// Runs: an If branch once per batch that took it, a body once per iteration.
+	Runs int64 `json:"runs"`
+}
+
+// Unobserved is a node the run did not observe.
+type Unobserved struct {
+	Node   string `json:"node"`
+	Op     string `json:"op"`
+	Reason string `json:"reason"`
 }
 
 // Input describes the sample the statistics were computed on.

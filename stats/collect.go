@@ -175,10 +175,20 @@ var sameValueOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": 
 // Collector is the probe hook that gathers statistics of every float node
 // output over all batches, plus input and output summaries.
 type Collector struct {
-	Model  *loader.Model
-	Plan   *probe.Plan
-	layers []*layerAcc
-	byOut  map[string]*layerAcc
+	Model *loader.Model
+	Plan  *probe.Plan
+	// flat is the plan's flat view: the main graph's nodes and, under
+	// qualified names, those of every If branch and Loop or Scan body.
+	flat *probe.Flat
+	// nodeIdx maps a node the hook is given to its index in flat; hits[i]
+	// counts the hook calls of flat node i, runs0 the runs of each subgraph
+	// (and mainRuns0 of the main graph) before this collector's first batch.
+	nodeIdx   map[*loader.Node]int
+	hits      []int64
+	runs0     []int64
+	mainRuns0 int64
+	layers    []*layerAcc
+	byOut     map[string]*layerAcc
 	// values whose per-channel moments are wanted (BatchNormalization inputs)
 	perChanWanted map[string]bool
 	inputs        map[string]*layerAcc
@@ -322,47 +332,60 @@ func (c *Collector) Wait() error {
 
 // NewCollector prepares accumulators for every data-dependent float output of the plan.
 func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
-	c := &Collector{Model: m, Plan: p, byOut: map[string]*layerAcc{}, perChanWanted: map[string]bool{},
-		inputs: map[string]*layerAcc{}, producer: map[string]*loader.Node{}, consumer: map[string][]*loader.Node{}, dataDep: map[string]bool{}}
-	g := m.Graph
+	f := p.Flat()
+	c := &Collector{Model: m, Plan: p, flat: f, byOut: map[string]*layerAcc{}, perChanWanted: map[string]bool{},
+		inputs: map[string]*layerAcc{}, producer: map[string]*loader.Node{}, consumer: map[string][]*loader.Node{}, dataDep: map[string]bool{},
+		nodeIdx: make(map[*loader.Node]int, len(f.Graph.Nodes)), hits: make([]int64, len(f.Graph.Nodes)), mainRuns0: p.Runs()}
+	for i := range f.Subgraphs {
+		c.runs0 = append(c.runs0, f.Subgraphs[i].Runs())
+	}
+	// the flat graph: every node, subgraph nodes and initializers under
+	// qualified names, each subgraph's nodes before its control-flow node
+	g := f.Graph
 	for _, in := range g.Inputs {
 		c.dataDep[in.Name] = true
 	}
-	for _, s := range p.Steps {
-		for _, o := range s.Node.Outputs {
-			c.producer[o] = s.Node
+	for _, sg := range f.Subgraphs { // bound by the control-flow node at each run
+		for _, in := range sg.Inputs {
+			c.dataDep[in] = true
 		}
-		for _, in := range s.Node.Inputs {
-			c.consumer[in] = append(c.consumer[in], s.Node)
+	}
+	for i, n := range g.Nodes {
+		c.nodeIdx[n] = i
+		for _, o := range n.Outputs {
+			c.producer[o] = n
+		}
+		for _, in := range n.Inputs {
+			c.consumer[in] = append(c.consumer[in], n)
 		}
 		dep := false
-		for _, in := range s.Node.Inputs {
+		for _, in := range n.Inputs {
 			if c.dataDep[in] {
 				dep = true
 			}
 		}
-		for _, a := range s.Node.Attrs { // subgraphs may read data from the outer scope
+		for _, a := range n.Attrs { // subgraphs may read data from the outer scope
 			if a.G != nil || len(a.Graphs) > 0 {
 				dep = true
 			}
 		}
 		if dep {
-			for _, o := range s.Node.Outputs {
+			for _, o := range n.Outputs {
 				c.dataDep[o] = true
 			}
 		}
-		if s.Node.OpType == "BatchNormalization" && len(s.Node.Inputs) > 0 {
-			c.perChanWanted[s.Node.Inputs[0]] = true
+		if n.OpType == "BatchNormalization" && len(n.Inputs) > 0 {
+			c.perChanWanted[n.Inputs[0]] = true
 		}
 	}
-	for i, s := range p.Steps {
-		for _, o := range s.Node.Outputs {
+	for i, n := range g.Nodes {
+		for _, o := range n.Outputs {
 			if o == "" || !c.dataDep[o] {
 				continue
 			}
-			la := &layerAcc{node: s.Node, output: o, depth: p.Depth[i], mom: NewMoments(), act: classify(s.Node, g)}
+			la := &layerAcc{node: n, output: o, depth: f.Depth[i], mom: NewMoments(), act: classify(n, g)}
 			if la.act.kind != ActNone {
-				la.unitKind = c.unitKindOf(s.Node)
+				la.unitKind = c.unitKindOf(n)
 			}
 			la.perChan = nil
 			c.layers = append(c.layers, la)
@@ -449,6 +472,9 @@ func (c *Collector) unitKindOf(n *loader.Node) int {
 
 // Hook is the probe.Hook that feeds the collector.
 func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
+	if i, ok := c.nodeIdx[n]; ok {
+		c.hits[i]++
+	}
 	for i, t := range outs {
 		if t == nil || i >= len(n.Outputs) {
 			continue

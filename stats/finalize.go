@@ -21,6 +21,9 @@ type Collected struct {
 	BatchNorms []BNStat
 	// LayerKind[i] is the activation kind of Report.Layers[i].
 	LayerKind []ActKind
+	// Graph is the flat view of the model the layer and weight names refer
+	// to (probe.Flat): subgraph nodes and initializers under qualified names.
+	Graph *loader.Graph
 }
 
 // Stack is a chain of activation layers and the weights of the linear layers between them.
@@ -62,10 +65,11 @@ var normOps = map[string]bool{"BatchNormalization": true, "LayerNormalization": 
 // Finish turns the accumulators into the report model and the structure the checks need.
 func (c *Collector) Finish(source string) *Collected {
 	c.Wait()
-	g := c.Model.Graph
+	g := c.flat.Graph // subgraph nodes and weights included
 	r := &report.Report{Tool: "vitals", Thresholds: map[string]float64{}}
 	r.Model = report.Model{Path: c.Model.Path, Opset: c.Model.Opsets[""], Producer: c.Model.Producer,
-		Nodes: len(c.Plan.Steps), Parameters: ParameterCount(g)}
+		Nodes: len(g.Nodes), Parameters: ParameterCount(g)}
+	r.Coverage = c.coverage()
 	if c.Model.ProducerVersion != "" {
 		r.Model.Producer += " " + c.Model.ProducerVersion
 	}
@@ -89,7 +93,7 @@ func (c *Collector) Finish(source string) *Collected {
 		}
 		r.Input.PerInput = append(r.Input.PerInput, is)
 	}
-	col := &Collected{Report: r}
+	col := &Collected{Report: r, Graph: g}
 	layerIdx := map[*layerAcc]int{}
 	for _, la := range c.layers {
 		if la.mom.N == 0 && la.mom.Nonfinite == 0 {
@@ -311,10 +315,9 @@ func (c *Collector) valuesOf(name string) int {
 // its stored running statistics (Ioffe & Szegedy 2015: inference normalises
 // with population statistics, so they should match the data).
 func (c *Collector) batchNorms() []BNStat {
-	g := c.Model.Graph
+	g := c.flat.Graph
 	var out []BNStat
-	for _, s := range c.Plan.Steps {
-		n := s.Node
+	for _, n := range g.Nodes {
 		if n.OpType != "BatchNormalization" || len(n.Inputs) < 5 {
 			continue
 		}

@@ -158,12 +158,30 @@ func identicalRows(rows, rowLen int, row func(r int, buf []float32) []float32) (
 	return identical, zero
 }
 
-// ParameterCount sums the element counts of all float initializers.
+// ParameterCount sums the element counts of all float initializers and of
+// the float values held by Constant nodes (some exporters store every
+// weight that way). Given a flat graph (probe.Flat) it counts those of the
+// subgraphs too.
 func ParameterCount(g *loader.Graph) int64 {
 	var n int64
 	for _, t := range g.Initializers {
 		if t.DType.IsFloat() {
 			n += int64(t.Size())
+		}
+	}
+	for _, nd := range g.Nodes {
+		if nd.OpType != "Constant" || nd.Domain != "" {
+			continue
+		}
+		for _, a := range nd.Attrs {
+			switch {
+			case (a.Name == "value" || a.Name == "sparse_value") && a.T != nil && a.T.DType.IsFloat():
+				n += int64(a.T.Size())
+			case a.Name == "value_float":
+				n++
+			case a.Name == "value_floats":
+				n += int64(len(a.Floats))
+			}
 		}
 	}
 	return n

@@ -66,7 +66,7 @@ func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 		return 2, err
 	}
 	fmt.Fprint(stderr, oldFeed.note()+newFeed.note())
-	stats.Compare(oldCol, newCol, oldM.model.Graph, newM.model.Graph, ag.result(newName))
+	stats.Compare(oldCol, newCol, oldCol.Graph, newCol.Graph, ag.result(newName))
 	r := newCol.Report
 	r.Version = version
 	annotateInputs(r, c.data)
