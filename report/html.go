@@ -85,10 +85,12 @@ figcaption { color: #525a6e; font-size: .9em; }
 </head>
 <body>
 {{if .V.Synthetic}}<p class="synthetic" id="synthetic">Synthetic input. No data was given: these statistics describe the model's response to seeded Gaussian noise, not data.</p>
+{{end}}{{if .V.CoverageWarning}}<p class="synthetic" id="coverage-warning">{{.V.CoverageWarning}}</p>
 {{end}}<p class="verdict {{if or .V.Errors .V.Warnings}}bad{{else}}good{{end}}" id="verdict">{{.V.Verdict}}</p>
 <h1>vitals review: <code>{{.R.Model.Path}}</code></h1>
 <p class="about">{{.V.About}}</p>
-
+{{if .V.Coverage}}<p class="about" id="coverage">{{.V.Coverage}}</p>
+{{end}}
 <h2>Findings</h2>
 {{if .V.Findings}}<table id="findings">
 <thead><tr><th>rank</th><th>node</th><th>severity</th><th>check</th><th>message</th><th>key evidence</th></tr></thead>
@@ -140,7 +142,9 @@ figcaption { color: #525a6e; font-size: .9em; }
 <h3>Unmatched layers</h3>
 {{if .Unmatched}}<ul>{{range .Unmatched}}<li><code>{{.}}</code></li>{{end}}</ul>{{else}}<p>None: every layer was matched.</p>{{end}}
 {{end}}
-<h2>How to read this</h2>
+{{if .V.Gaps}}<h2>Not observed</h2>
+<ul id="not-observed">{{range .V.Gaps}}<li>{{.}}</li>{{end}}</ul>
+{{end}}<h2>How to read this</h2>
 <ul>
 {{range .V.HowTo}}<li><strong>{{.Name}}</strong>: {{.Means}} {{.Do}}</li>
 {{end}}</ul>

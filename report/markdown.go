@@ -24,8 +24,14 @@ func WriteMarkdown(w io.Writer, r *Report, images []string) error {
 	if rv.Synthetic {
 		p("**Synthetic input.** "+reviewSyntheticNote, "")
 	}
+	if rv.CoverageWarning != "" {
+		p("**"+mdText(rv.CoverageWarning)+"**", "")
+	}
 	p("**"+rv.Verdict()+"**", "")
 	p("# vitals review: "+mdText(r.Model.Path), "", mdText(rv.About), "")
+	if rv.Coverage != "" {
+		p(mdText(rv.Coverage), "")
+	}
 
 	p("## Findings", "")
 	if len(rv.Findings) == 0 {
@@ -85,6 +91,13 @@ func WriteMarkdown(w io.Writer, r *Report, images []string) error {
 		}
 		for _, u := range c.Unmatched {
 			p("- " + mdCode(u))
+		}
+		p("")
+	}
+	if len(rv.Gaps) > 0 {
+		p("## Not observed", "")
+		for _, g := range rv.Gaps {
+			p("- " + mdText(g))
 		}
 		p("")
 	}

@@ -25,6 +25,9 @@ type review struct {
 	Compare    *reviewCompare
 	HowTo      []reviewCheck
 	Caution    string
+	// Coverage, CoverageWarning and Gaps: coverage.go's wording.
+	Coverage, CoverageWarning string
+	Gaps                      []string
 }
 
 type reviewFinding struct {
@@ -121,7 +124,8 @@ func reviewImageOrder(names []string) []reviewImage {
 
 // buildReview formats r for the review writers.
 func buildReview(r *Report, images []string) *review {
-	rv := &review{Synthetic: r.Input.Source == "synthetic", Caution: Caution, HowTo: reviewChecks}
+	rv := &review{Synthetic: r.Input.Source == "synthetic", Caution: Caution, HowTo: reviewChecks,
+		Coverage: CoverageLine(r), CoverageWarning: CoverageWarning(r), Gaps: CoverageGaps(r)}
 	rv.Images = reviewImageOrder(images)
 	rank := map[string]int{}
 	for i, rk := range r.Ranking {

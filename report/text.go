@@ -84,7 +84,13 @@ func colour(on bool, s Severity, text string) string {
 func WriteText(w io.Writer, r *Report, o TextOptions) error {
 	b := &strings.Builder{}
 	fmt.Fprintln(b, SourceLine(r))
+	if w := CoverageWarning(r); w != "" {
+		fmt.Fprintln(b, w)
+	}
 	fmt.Fprintf(b, "Model %s: opset %d, %d nodes, %d parameters, producer %q.\n", r.Model.Path, r.Model.Opset, r.Model.Nodes, r.Model.Parameters, r.Model.Producer)
+	if l := CoverageLine(r); l != "" {
+		fmt.Fprintln(b, l)
+	}
 	fmt.Fprintln(b)
 	fmt.Fprintln(b, "Verdict: "+Verdict(r))
 	if len(r.Ranking) > 0 {
@@ -141,6 +147,13 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 	}
 	if err := tw.Flush(); err != nil {
 		return err
+	}
+	if gaps := CoverageGaps(r); len(gaps) > 0 {
+		fmt.Fprintln(b)
+		fmt.Fprintln(b, "Not observed:")
+		for _, g := range gaps {
+			fmt.Fprintln(b, "    "+g)
+		}
 	}
 	fmt.Fprintln(b)
 	fmt.Fprintln(b, Caution)
