@@ -6,8 +6,10 @@ package stats_test
 // testdata/gen/controlflow_models.py (onnx 1.12 helper API; the golden
 // statistics are NumPy evaluations of the same networks, accumulated in
 // float64 over every execution: each batch that took a branch, each loop
-// iteration and scan step). Nothing on the reference side is computed by
-// vitals' own code.
+// iteration and scan step). testdata/gen/controlflow_ort.sh checked the
+// same golden layers with ONNX Runtime running the branch and body graphs
+// with their inner tensors exposed (testdata/controlflow/ort_check.txt).
+// Nothing on the reference side is computed by vitals' own code.
 
 import (
 	"encoding/json"

@@ -7,6 +7,11 @@ Runs with Debian's python3-onnx 1.12 (helper API) and python3-numpy only:
 
     /usr/bin/python3 testdata/gen/controlflow_models.py
 
+With --exposed DIR it writes instead, into DIR, the branch and body graphs
+as models of their own with every inner tensor exposed as an output; they
+are what testdata/gen/controlflow_ort.sh runs with ONNX Runtime to check the
+golden statistics a second way.
+
 The golden statistics are computed here with NumPy, independently of vitals:
 each network is evaluated in NumPy (float32 values, as ONNX prescribes) and
 every float value a node inside a branch or body produces is accumulated in
@@ -20,6 +25,7 @@ All scenarios are invented test data (seeded Gaussian weights and inputs).
 """
 
 import json
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -464,7 +470,7 @@ def const_weights():
     save(name, model, golden, {"input": x})
 
 
-if __name__ == "__main__":
+def main():
     OUT.mkdir(parents=True, exist_ok=True)
     if_rate()
     loop_rnn()
@@ -472,3 +478,53 @@ if __name__ == "__main__":
     const_weights()
     for p in sorted(OUT.iterdir()):
         print("%8d  %s" % (p.stat().st_size, p.relative_to(REPO)))
+
+
+# ---------------------------------------------------------------- models exposing inner tensors, for ONNX Runtime
+
+def expose_all(graph):
+    """Adds every node output of graph (not already an output) as a float graph output (every value inside these branches and bodies is float)."""
+    have = {o.name for o in graph.output}
+    for n in graph.node:
+        for o in n.output:
+            if o and o not in have:
+                graph.output.append(helper.make_tensor_value_info(o, TensorProto.FLOAT, None))
+                have.add(o)
+
+
+def body_model(model_path, node_name, extra_inputs):
+    """The body of a Loop or Scan node as a model of its own: its formal
+    inputs, then the outer-scope values it reads (extra_inputs: value infos),
+    the main-graph initializers it reads, and every node output exposed."""
+    m = onnx.load(str(model_path))
+    node = next(n for n in m.graph.node if n.name == node_name)
+    body = next(a.g for a in node.attribute if a.name == "body")
+    g = onnx.GraphProto()
+    g.CopyFrom(body)
+    g.input.extend(extra_inputs)
+    read = {i for n in g.node for i in n.input}
+    local = {i.name for i in g.initializer}
+    g.initializer.extend([t for t in m.graph.initializer if t.name in read and t.name not in local])
+    expose_all(g)
+    return opset_model(g)
+
+
+def write_exposed(dest):
+    """Writes, into dest (not committed), the models controlflow_ort.js runs
+    with ONNX Runtime to read the tensors inside the branches and bodies."""
+    dest = Path(dest)
+    dest.mkdir(parents=True, exist_ok=True)
+    for tag in ("then", "else"):
+        m = onnx.load(str(OUT / ("if_rate.%s.onnx" % tag)))
+        expose_all(m.graph)
+        onnx.save(m, str(dest / ("if_rate.%s.onnx" % tag)))
+    x_vi = helper.make_tensor_value_info("input", TensorProto.FLOAT, ["N", "T", "F"])
+    onnx.save(body_model(OUT / "loop_rnn.onnx", "/Loop", [x_vi]), str(dest / "loop_rnn.body.onnx"))
+    onnx.save(body_model(OUT / "scan_seq.onnx", "/Scan", []), str(dest / "scan_seq.body.onnx"))
+
+
+if __name__ == "__main__":
+    if len(sys.argv) == 3 and sys.argv[1] == "--exposed":
+        write_exposed(sys.argv[2])
+    else:
+        main()
