@@ -62,7 +62,8 @@ type Subgraph struct {
 
 // Runs is how often the subgraph has been run since the model was compiled:
 // an If branch once per batch that took it, a Loop or Scan body once per
-// iteration.
+// iteration. The count is the plan's: runs of one compiled plan on several
+// goroutines at once all add to it.
 func (s *Subgraph) Runs() int64 { return s.plan.runs.Load() }
 
 // Flat returns the plan's flat view (built by Compile; nil for a plan of a subgraph).

@@ -362,3 +362,46 @@ func TestIfBranchNeverTaken(t *testing.T) {
 		t.Errorf("coverage line %q", line)
 	}
 }
+
+// A node that runs but never reaches the collector (here: a hook that drops
+// the Loop body's calls) is counted as executed from the executor's run
+// counts, not observed by the hook, listed with that reason, and the report
+// opens with a warning.
+func TestCoverageReportsUnobservedNodes(t *testing.T) {
+	g := readCtlGolden(t, "loop_rnn")
+	mod, err := loader.LoadModel(filepath.Join(ctlDir, g.Model))
+	if err != nil {
+		t.Fatal(err)
+	}
+	plan, err := probe.Compile(mod)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x, err := loader.ReadNpy(filepath.Join(ctlDir, g.Input))
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := stats.NewCollector(mod, plan)
+	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
+		if strings.HasPrefix(n.Name, "/Loop/body/") {
+			return nil
+		}
+		return c.Hook(n, outs)
+	}
+	if _, err := plan.Run(map[string]*tensor.Tensor{"input": x}, hook); err != nil {
+		t.Fatal(err)
+	}
+	r := c.Finish("file").Report
+	cov := r.Coverage
+	if cov.Nodes != 19 || cov.Executed != 19 || cov.Observed != 12 || len(cov.NotObserved) != 7 {
+		t.Fatalf("coverage %+v, want 19 nodes executed, 12 observed", cov)
+	}
+	for _, u := range cov.NotObserved {
+		if !strings.HasPrefix(u.Node, "/Loop/body/") || u.Reason != "ran without being observed" {
+			t.Errorf("not observed: %+v", u)
+		}
+	}
+	if w := report.CoverageWarning(r); !strings.Contains(w, "7 of the 19 nodes that ran were not observed") {
+		t.Errorf("warning %q", w)
+	}
+}
