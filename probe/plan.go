@@ -430,7 +430,7 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 				node = p.view[i]
 			}
 			if err := hook(node, c.Out); err != nil {
-				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
+				return nil, fmt.Errorf("node %q (%s): %w", node.Name, s.Node.OpType, err)
 			}
 		}
 		if rec != nil {
