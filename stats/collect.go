@@ -470,6 +470,13 @@ func (c *Collector) unitKindOf(n *loader.Node) int {
 	return 0
 }
 
+// InSubgraph reports whether a node the hook is given sits inside an If
+// branch or a Loop or Scan body.
+func (c *Collector) InSubgraph(n *loader.Node) bool {
+	i, ok := c.nodeIdx[n]
+	return ok && c.flat.In[i] >= 0
+}
+
 // Hook is the probe.Hook that feeds the collector.
 func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 	if i, ok := c.nodeIdx[n]; ok {

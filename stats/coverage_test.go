@@ -44,6 +44,14 @@ func TestCoverageNestedNeverRan(t *testing.T) {
 	if _, err := p.Run(in, c.Hook); err != nil {
 		t.Fatal(err)
 	}
+	for _, n := range p.Flat().Graph.Nodes {
+		if c.InSubgraph(n) != (n.Name != "/If") {
+			t.Errorf("InSubgraph(%s) = %v", n.Name, c.InSubgraph(n))
+		}
+	}
+	if c.InSubgraph(iff) {
+		t.Errorf("InSubgraph(/If) = true")
+	}
 	r := c.Finish("file").Report
 	cov := r.Coverage
 	if cov.Nodes != 4 || cov.InSubgraphs != 3 || cov.Executed != 2 || cov.Observed != 2 {

@@ -611,7 +611,9 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 			return errInterrupted
 		default:
 		}
-		if feed.auto {
+		// (subgraph nodes left out: a loop body's values live one
+		// iteration at a time, and the loop's outputs are counted)
+		if feed.auto && !c.InSubgraph(n) {
 			for _, t := range outs {
 				if t != nil && t.DType == tensor.Float32 {
 					outBytes += int64(t.Size()) * 4
