@@ -470,12 +470,72 @@ def const_weights():
     save(name, model, golden, {"input": x})
 
 
+# ---------------------------------------------------------------- If guarding out-of-range input
+
+def if_guard():
+    """A classifier with a guard exported as an If on its own input: when
+    any |x| of the batch exceeds 1000 (a corrupt sensor frame) the then
+    branch returns uniform scores, else the network (in the else branch)
+    runs. One data input, so vitals check runs it as shipped; on the sample
+    the guard never fires: the then branch is never taken."""
+    name = "if_guard"
+    N, F, H, C = 20, 16, 12, 3
+    w1, b1 = gauss(H, F, std=np.sqrt(2.0 / F)), gauss(H, std=0.1)
+    w2, b2 = gauss(C, H, std=np.sqrt(1.0 / H)), gauss(C, std=0.1)
+    then_nodes = [
+        helper.make_node("Mul", ["input", "/guard/zero"], ["/guard/Mul_output_0"], name="/guard/Mul"),
+        helper.make_node("ReduceMean", ["/guard/Mul_output_0"], ["/guard/ReduceMean_output_0"], name="/guard/ReduceMean", axes=[1], keepdims=1),
+        helper.make_node("Expand", ["/guard/ReduceMean_output_0", "/guard/shape"], ["/guard/out"], name="/guard/Expand"),
+    ]
+    then_g = helper.make_graph(then_nodes, "guard", [], [helper.make_tensor_value_info("/guard/out", TensorProto.FLOAT, None)],
+                               initializer=[init("/guard/zero", np.zeros(1, np.float32)), init("/guard/shape", np.array([1, C], np.int64))])
+    else_nodes = [
+        helper.make_node("Gemm", ["input", "/fc1.weight", "/fc1.bias"], ["/fc1/Gemm_output_0"], name="/fc1/Gemm", transB=1),
+        helper.make_node("Relu", ["/fc1/Gemm_output_0"], ["/relu/Relu_output_0"], name="/relu/Relu"),
+        helper.make_node("Gemm", ["/relu/Relu_output_0", "/fc2.weight", "/fc2.bias"], ["/fc2/out"], name="/fc2/Gemm", transB=1),
+    ]
+    else_g = helper.make_graph(else_nodes, "net", [], [helper.make_tensor_value_info("/fc2/out", TensorProto.FLOAT, None)])
+    nodes = [
+        helper.make_node("Abs", ["input"], ["/Abs_output_0"], name="/Abs"),
+        helper.make_node("ReduceMax", ["/Abs_output_0"], ["/ReduceMax_output_0"], name="/ReduceMax", keepdims=0),
+        const_node("/Constant", "/Constant_output_0", np.array(1000, dtype=np.float32)),
+        helper.make_node("Greater", ["/ReduceMax_output_0", "/Constant_output_0"], ["/Greater_output_0"], name="/Greater"),
+        helper.make_node("If", ["/Greater_output_0"], ["output"], name="/If", then_branch=then_g, else_branch=else_g),
+    ]
+    inits = [init("/fc1.weight", w1), init("/fc1.bias", b1), init("/fc2.weight", w2), init("/fc2.bias", b2)]
+    g = helper.make_graph(nodes, name, [helper.make_tensor_value_info("input", TensorProto.FLOAT, ["N", F])],
+                          [helper.make_tensor_value_info("output", TensorProto.FLOAT, ["N", C])], initializer=inits)
+    model = opset_model(g)
+    x = gauss(N, F)
+    assert np.abs(x).max() < 1000
+    h = gemm_t(x, w1, b1)
+    r = relu(h)
+    z = gemm_t(r, w2, b2)
+    accs = [Acc("/If/else/fc1/Gemm", "Gemm", "/If/else/fc1/Gemm_output_0"),
+            Acc("/If/else/relu/Relu", "Relu", "/If/else/relu/Relu_output_0", "relu", -1),
+            Acc("/If/else/fc2/Gemm", "Gemm", "/If/else/fc2/out")]
+    for a, v in zip(accs, (h, r, z)):
+        a.add(v)
+    golden = {
+        "model": name + ".onnx", "input": name + ".input.npy", "input_name": "input",
+        "nodes": len(nodes) + len(then_nodes) + len(else_nodes), "nodes_in_subgraphs": len(then_nodes) + len(else_nodes),
+        # the float Constant (the threshold) counts as one parameter, the then branch's zero as another
+        "parameters": int(w1.size + b1.size + w2.size + b2.size) + 1 + 1,
+        "never_taken": ["/If/then/guard/Mul", "/If/then/guard/ReduceMean", "/If/then/guard/Expand"],
+        "never_taken_reason": "then_branch of /If never taken on this sample",
+        "layers": [a.golden() for a in accs],
+        "output": z.tolist(),
+    }
+    save(name, model, golden, {"input": x})
+
+
 def main():
     OUT.mkdir(parents=True, exist_ok=True)
     if_rate()
     loop_rnn()
     scan_seq()
     const_weights()
+    if_guard()
     for p in sorted(OUT.iterdir()):
         print("%8d  %s" % (p.stat().st_size, p.relative_to(REPO)))
 
