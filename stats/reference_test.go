@@ -233,8 +233,7 @@ func evalRef(m refModel) *refResult {
 	// activation storage recycled within and between batches, as vitals
 	// check does
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	arena := &tensor.Arena{Pool: pool}
 	dead := c.AfterObserved(func(t *tensor.Tensor) { r.recycled++; pool.Put(t) })
 	var got []float32
 	n := x.Shape[0]
@@ -242,7 +241,7 @@ func evalRef(m refModel) *refResult {
 		hi := min(lo+refBatch, n)
 		in := map[string]*tensor.Tensor{m.InputName: sliceRows(x, lo, hi)}
 		c.AddInputs(in)
-		outs, released, err := plan.RunRecycled(in, c.Hook, dead)
+		outs, released, err := plan.RunRecycled(arena, in, c.Hook, dead)
 		if err != nil {
 			r.err = fmt.Errorf("samples %d–%d: %w", lo, hi-1, err)
 			return r

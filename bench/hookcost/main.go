@@ -110,8 +110,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			// activation buffers recycled within and from batch to batch, as
 			// vitals check does
 			pool := tensor.NewPool(1 << 30)
-			tensor.UsePool(pool)
-			defer tensor.UsePool(nil)
+			arena := &tensor.Arena{Pool: pool}
 			dead := pool.Put
 			switch mode {
 			case 1:
@@ -130,7 +129,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				if mode == 1 {
 					c.AddInputs(b)
 				}
-				outs, released, err := p.RunRecycled(b, hook, dead)
+				outs, released, err := p.RunRecycled(arena, b, hook, dead)
 				if err != nil {
 					return 0, err
 				}
@@ -220,13 +219,12 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		// buffers recycled as in the timed runs (the hook reads nothing after
 		// it returns); the first round warms them
 		pool := tensor.NewPool(1 << 30)
-		tensor.UsePool(pool)
-		defer tensor.UsePool(nil)
+		arena := &tensor.Arena{Pool: pool}
 		for r := 0; r < 2; r++ {
 			clear(byOp)
 			for _, b := range batches {
 				last = time.Now()
-				outs, released, err := p.RunRecycled(b, hook, pool.Put)
+				outs, released, err := p.RunRecycled(arena, b, hook, pool.Put)
 				if err != nil {
 					return err
 				}

@@ -596,8 +596,7 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 		poolLimit = min(poolLimit, b/4)
 	}
 	pool := tensor.NewPool(poolLimit)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	arena := &tensor.Arena{Budget: tensor.MemoryBudget(), Pool: pool}
 	// and within a batch: a value whose last reader has run goes back to
 	// the pool once the statistics worker is done with it
 	dead := c.AfterObserved(pool.Put)
@@ -684,7 +683,7 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 		}
 		done += batchLen(batch)
 		c.AddInputs(batch)
-		outs, released, err := l.plan.RunRecycled(feed.runInputs(batch), hook, dead)
+		outs, released, err := l.plan.RunRecycled(arena, feed.runInputs(batch), hook, dead)
 		if errors.Is(err, errInterrupted) {
 			return nil, errInterrupted
 		}
