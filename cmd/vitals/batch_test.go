@@ -89,31 +89,6 @@ func TestFixedBatchModel(t *testing.T) {
 	}
 }
 
-// Without --batch the batch size follows the node outputs per sample
-// (autoBatchBytes, measured: see its comment), within the memory budget.
-func TestChooseBatch(t *testing.T) {
-	old := tensor.SetMemoryBudget(0)
-	defer tensor.SetMemoryBudget(old)
-	for _, c := range []struct {
-		perItem int64
-		want    int
-	}{
-		{23e6, 8},  // a ResNet-18-shaped CNN at 224×224
-		{52e6, 3},  // a MobileNetV2-shaped CNN
-		{40e3, 32}, // an MLP: capped at autoBatchMax
-		{2e9, 1},   // more than autoBatchBytes for one sample
-		{0, 32},
-	} {
-		if got := chooseBatch(c.perItem); got != c.want {
-			t.Errorf("chooseBatch(%d) = %d, want %d", c.perItem, got, c.want)
-		}
-	}
-	tensor.SetMemoryBudget(400 << 20) // a quarter is 100 MiB: 4 samples of 23 MB
-	if got := chooseBatch(23e6); got != 4 {
-		t.Errorf("within a 400 MiB budget: chooseBatch(23e6) = %d, want 4", got)
-	}
-}
-
 // A model whose input has no sample axis ([3, 4, 4], as detection models
 // exported for one image take it) runs one sample a run with the axis
 // dropped: all 5 samples are seen, the input statistics keep their channel
