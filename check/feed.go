@@ -4,9 +4,11 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"maps"
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync/atomic"
 
@@ -54,7 +56,7 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 		f.Close()
 		return nil, err
 	}
-	if len(o.Data) == 0 {
+	if len(o.Data) == 0 && len(o.Arrays) == 0 {
 		f.synthetic = true
 		n := o.Samples
 		if n <= 0 {
@@ -80,6 +82,13 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 			f.sources[in.Name] = src
 		}
 	} else {
+		for _, name := range slices.Sorted(maps.Keys(o.Arrays)) {
+			s, err := loader.NewTensorSource(name, o.Arrays[name])
+			if err != nil {
+				return fail(fmt.Errorf("input %q: %v", name, err))
+			}
+			f.sources[name] = s
+		}
 		for _, spec := range o.Data {
 			name, path, named := strings.Cut(spec, "=")
 			if !named {

@@ -34,9 +34,16 @@ func Load(path string, o LoadOptions) (*Model, error) {
 	if err != nil {
 		return nil, err
 	}
+	return Compile(m, o)
+}
+
+// Compile prepares a model already decoded (loader.DecodeModel, or built in
+// memory) for checking; o.MemoryBudget is not applied to its initializers,
+// which exist already.
+func Compile(m *loader.Model, o LoadOptions) (*Model, error) {
 	p, err := probe.Compile(m)
 	if err != nil {
-		return nil, fmt.Errorf("compiling model %q: %w", path, err)
+		return nil, fmt.Errorf("compiling model %q: %w", m.Path, err)
 	}
 	p.Debug = o.Debug
 	return &Model{model: m, plan: p}, nil

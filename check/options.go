@@ -7,13 +7,14 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
 )
 
-// Sample describes the data a model is run on. With no Data, every float
+// Sample describes the data a model is run on. With no Data and no Arrays, every float
 // input gets synthetic Gaussian samples (Seed, Samples or 64).
 type Sample struct {
 	// Data are "PATH" (the model has one input, or an .npz whose keys name
@@ -21,6 +22,10 @@ type Sample struct {
 	// TensorProto) or .csv file with the sample axis first, or a folder of
 	// images for a rank-4 image input.
 	Data []string
+	// Arrays are samples already in memory, by input name, the sample axis
+	// first (alone or beside Data for other inputs). They are read, not
+	// changed.
+	Arrays map[string]*tensor.Tensor
 	// Labels is an optional .npy of integer class ids, one per sample: it
 	// adds accuracy and cross-entropy to the output statistics.
 	Labels string
@@ -60,6 +65,10 @@ type Options struct {
 	// during the call only) and the batch's sample count, after the batch
 	// has run; an error stops the run. Compare calls it for NEW's batches.
 	Outputs func(outs map[string]*tensor.Tensor, samples int) error
+
+	// recycled, when set (by this package's tests), counts the values whose
+	// storage went back to the pool within a batch.
+	recycled *atomic.Int64
 }
 
 // Progress is how far a run has come.

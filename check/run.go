@@ -83,7 +83,11 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 	arena := &tensor.Arena{Budget: o.MemoryBudget, Pool: pool}
 	// and within a batch: a value whose last reader has run goes back to
 	// the pool once the statistics worker is done with it
-	dead := c.AfterObserved(pool.Put)
+	put := pool.Put
+	if o.recycled != nil {
+		put = func(t *tensor.Tensor) { o.recycled.Add(1); pool.Put(t) }
+	}
+	dead := c.AfterObserved(put)
 	// without Sample.Batch, the first batch (one sample) measures the node
 	// outputs per sample, from which the batch size is chosen
 	var outBytes int64
