@@ -9,6 +9,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"strings"
 	"sync/atomic"
 
@@ -19,8 +20,17 @@ import (
 
 // sampleFeed yields batches of named inputs plus the matching labels.
 type sampleFeed struct {
-	sources   map[string]loader.Source
-	order     []string
+	sources map[string]loader.Source
+	// order lists the per-sample inputs (read from sources), all every
+	// model input (for messages)
+	order, all []string
+	// consts are the inputs fed the same value in every batch (--fixed, and
+	// the first value of a carried input); moved maps a per-sample input
+	// whose batch axis is not the first to that axis; carry pairs an output
+	// with the input it feeds in the next batch.
+	consts map[string]*constInput
+	moved  map[string]int
+	carry  [][2]string
 	labels    []int64
 	synthetic bool
 	total     int // samples to read (after --samples), -1 unknown
@@ -45,16 +55,42 @@ type sampleFeed struct {
 
 // openFeed matches --data to the model's inputs, checking shapes and dtypes up front.
 func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) {
-	f := &sampleFeed{sources: map[string]loader.Source{}, total: -1}
+	f := &sampleFeed{sources: map[string]loader.Source{}, total: -1, consts: map[string]*constInput{}, moved: map[string]int{}}
 	if len(g.Inputs) == 0 {
 		return nil, fmt.Errorf("the model has no inputs to feed")
-	}
-	for _, in := range g.Inputs {
-		f.order = append(f.order, in.Name)
 	}
 	fail := func(err error) (*sampleFeed, error) {
 		f.Close()
 		return nil, err
+	}
+	// --fixed and --carry first: the inputs they name are not per sample
+	fixedSpec, err := f.parseConstSpecs(g, o)
+	if err != nil {
+		return nil, err
+	}
+	for _, in := range g.Inputs {
+		f.all = append(f.all, in.Name)
+		if _, ok := fixedSpec[in.Name]; !ok {
+			f.order = append(f.order, in.Name)
+		}
+	}
+	if len(f.order) == 0 {
+		return nil, fmt.Errorf("every input of the model is given by --fixed or --carry; at least one must vary per sample (--data)")
+	}
+	perSample := func(name string) bool { _, ok := fixedSpec[name]; return !ok }
+	sym := batchSymbol(g, perSample)
+	for _, name := range slices.Sorted(maps.Keys(fixedSpec)) {
+		vi, _ := inputInfo(g, name)
+		c, err := openConst(vi, fixedSpec[name], sym)
+		if err != nil {
+			return nil, err
+		}
+		f.consts[name] = c
+	}
+	for _, in := range g.Inputs {
+		if a := batchAxis(in, sym); a > 0 && perSample(in.Name) && in.Symbols[0] != sym {
+			f.moved[in.Name] = a
+		}
 	}
 	if len(o.Data) == 0 && len(o.Arrays) == 0 {
 		f.synthetic = true
@@ -63,6 +99,9 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 			n = 64
 		}
 		for i, in := range g.Inputs {
+			if !perSample(in.Name) {
+				continue
+			}
 			if in.Shape == nil {
 				return fail(fmt.Errorf("input %q has no declared shape; synthetic input needs one: pass --data", in.Name))
 			}
@@ -70,6 +109,9 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 				return fail(fmt.Errorf("input %q is %v; synthetic Gaussian input only fits float inputs: pass --data", in.Name, in.DType))
 			}
 			shape := append([]int{}, in.Shape[1:]...)
+			if a, ok := f.moved[in.Name]; ok {
+				shape = append(append([]int{}, in.Shape[:a]...), in.Shape[a+1:]...)
+			}
 			for j, d := range shape {
 				if d < 0 {
 					return fail(fmt.Errorf("input %q has symbolic dimension %d (%s); synthetic input needs fixed sizes beyond the batch axis: pass --data", in.Name, j+1, probe.ShapeString(in)))
@@ -97,7 +139,7 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 			if _, err := os.Stat(path); err != nil {
 				return fail(fmt.Errorf("--data %q: %v", spec, err))
 			}
-			srcs, err := openData(g, name, path, o)
+			srcs, err := openData(g, f.order, name, path, o)
 			if err != nil {
 				return fail(err)
 			}
@@ -112,19 +154,26 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 		for name, s := range f.sources {
 			vi, ok := inputInfo(g, name)
 			if !ok {
-				return fail(fmt.Errorf("--data names %q, which is not an input of the model (inputs: %s)", name, strings.Join(f.order, ", ")))
+				return fail(fmt.Errorf("--data names %q, which is not an input of the model (inputs: %s)", name, strings.Join(f.all, ", ")))
 			}
-			if err := checkSource(vi, s); err != nil {
+			if !perSample(name) {
+				return fail(fmt.Errorf("input %q is given by --data and by --fixed or --carry; give it once", name))
+			}
+			if err := checkSource(vi, s, f.moved[name]); err != nil {
 				return fail(err)
 			}
 		}
-		for _, in := range g.Inputs {
-			if f.sources[in.Name] == nil {
-				return fail(fmt.Errorf("model input %q has no data: pass --data %s=PATH (the model's inputs: %s)", in.Name, in.Name, strings.Join(f.order, ", ")))
+		var missing []string
+		for _, name := range f.order {
+			if f.sources[name] == nil {
+				missing = append(missing, name)
 			}
 		}
+		if len(missing) > 0 {
+			return fail(missingError(g, missing, f.all))
+		}
 	}
-	if err := f.chooseBatching(g, o.Batch); err != nil {
+	if err := f.chooseBatching(g, o.Batch, perSample); err != nil {
 		return fail(err)
 	}
 	// sample count: the smallest source, capped by --samples
@@ -138,7 +187,7 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 	}
 	for name, s := range f.sources {
 		if n := s.Len(); n >= 0 && f.total >= 0 && n != f.total && o.Samples <= 0 {
-			return fail(fmt.Errorf("input %q has %d samples but another input has %d; pass the same number of samples for every input", name, n, f.total))
+			return fail(fmt.Errorf("input %q has %d samples but another input has %d; pass the same number of samples for every input (an input that is the same for every sample goes in --fixed %s=FILE)", name, n, f.total, name))
 		}
 	}
 	// memory budget: one batch of every input, before anything is read
@@ -185,16 +234,17 @@ func inputInfo(g *loader.Graph, name string) (loader.ValueInfo, bool) {
 	return loader.ValueInfo{}, false
 }
 
-// openData opens one --data path for the named input ("" = the single input, or npz keys).
-func openData(g *loader.Graph, name, path string, o Sample) (map[string]loader.Source, error) {
+// openData opens one --data path for the named input ("" = the single
+// per-sample input of those in perSample, or npz keys).
+func openData(g *loader.Graph, perSample []string, name, path string, o Sample) (map[string]loader.Source, error) {
 	fi, err := os.Stat(path)
 	if err != nil {
 		return nil, err
 	}
 	target := name
 	if target == "" {
-		if len(g.Inputs) == 1 {
-			target = g.Inputs[0].Name
+		if len(perSample) == 1 {
+			target = perSample[0]
 		}
 	}
 	if fi.IsDir() {
@@ -239,17 +289,26 @@ func openData(g *loader.Graph, name, path string, o Sample) (map[string]loader.S
 		return m, nil
 	}
 	if target == "" {
-		return nil, fmt.Errorf("--data %q: the model has %d inputs; pass one file per input as INPUT=PATH", path, len(g.Inputs))
+		var ins []string
+		for _, in := range g.Inputs {
+			ins = append(ins, in.Name+" "+probe.ShapeString(in))
+		}
+		return nil, fmt.Errorf("--data %q: the model has %d inputs (%s); pass one file per input as INPUT=PATH, and inputs that do not vary per sample as --fixed NAME=FILE|VALUE|zeros", path, len(g.Inputs), strings.Join(ins, ", "))
 	}
 	s, err := loader.OpenFile(path)
 	if err != nil {
+		if strings.Contains(err.Error(), "no sample axis") {
+			return nil, fmt.Errorf("%w; an input that is the same in every batch goes in --fixed %s=%s", err, target, path)
+		}
 		return nil, err
 	}
 	return map[string]loader.Source{target: s}, nil
 }
 
 // checkSource compares a source's per-sample shape and dtype with the model input.
-func checkSource(vi loader.ValueInfo, s loader.Source) error {
+// axis is the input's batch axis (0, or where the model's symbolic batch
+// dimension is: the samples are moved there).
+func checkSource(vi loader.ValueInfo, s loader.Source, axis int) error {
 	want := vi.DType
 	if want == tensor.Float16 || want == tensor.BFloat16 {
 		want = tensor.Float32
@@ -264,19 +323,70 @@ func checkSource(vi loader.ValueInfo, s loader.Source) error {
 		return nil
 	}
 	sample, dims := s.SampleShape(), vi.Shape
+	one := append(append([]int{}, dims[:axis]...), dims[min(axis+1, len(dims)):]...) // a sample's shape
+	fix := fmt.Sprintf("; pass --data %s=FILE holding samples of shape %s (the sample axis first), or --fixed %s=FILE for a value that is the same in every batch", vi.Name, dimsString(one, vi, axis), vi.Name)
 	switch {
 	case noSampleAxis(vi, s): // one sample a run
 	case len(dims) == len(sample)+1:
-		dims = dims[1:]
+		dims = one
 	default:
-		return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v (with the sample axis first: %v)", vi.Name, probe.ShapeString(vi), s.Name(), sample, append([]int{-1}, sample...))
+		return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v%s", vi.Name, probe.ShapeString(vi), s.Name(), sample, fix)
 	}
 	for i, d := range dims {
 		if d >= 0 && d != sample[i] {
-			return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v", vi.Name, probe.ShapeString(vi), s.Name(), sample)
+			return fmt.Errorf("input %q: model expects shape %s, %q holds samples of shape %v%s", vi.Name, probe.ShapeString(vi), s.Name(), sample, fix)
 		}
 	}
 	return nil
+}
+
+// dimsString renders dims, vi's declared shape without the batch axis, with
+// its symbolic names.
+func dimsString(dims []int, vi loader.ValueInfo, axis int) string {
+	parts := make([]string, len(dims))
+	for i, d := range dims {
+		j := i
+		if i >= axis {
+			j = i + 1
+		}
+		switch {
+		case d >= 0:
+			parts[i] = fmt.Sprint(d)
+		case j < len(vi.Symbols) && vi.Symbols[j] != "":
+			parts[i] = vi.Symbols[j]
+		default:
+			parts[i] = "?"
+		}
+	}
+	return "[" + strings.Join(parts, " ") + "]"
+}
+
+// missingError names the inputs left out and the two ways to give them.
+func missingError(g *loader.Graph, missing, all []string) error {
+	var b strings.Builder
+	if len(missing) == 1 {
+		fmt.Fprintf(&b, "model input %q has no data", missing[0])
+	} else {
+		fmt.Fprintf(&b, "model inputs %s have no data", strings.Join(quoteAll(missing), ", "))
+	}
+	b.WriteString(": pass ")
+	for i, name := range missing {
+		vi, _ := inputInfo(g, name)
+		if i > 0 {
+			b.WriteString("; ")
+		}
+		fmt.Fprintf(&b, "--data %s=FILE (a sample per row) or --fixed %s=FILE|VALUE|zeros (the same value in every batch; shape %s)", name, name, probe.ShapeString(vi))
+	}
+	fmt.Fprintf(&b, " (the model's inputs: %s)", strings.Join(all, ", "))
+	return errors.New(b.String())
+}
+
+func quoteAll(s []string) []string {
+	out := make([]string, len(s))
+	for i, x := range s {
+		out[i] = strconv.Quote(x)
+	}
+	return out
 }
 
 // noSampleAxis reports whether a model input takes one sample as it is,
@@ -336,14 +446,32 @@ func (f *sampleFeed) next(g *loader.Graph) (map[string]*tensor.Tensor, []int64, 
 }
 
 // runInputs is a batch as the plan takes it: without the sample axis when
-// the model's inputs have none (a view of the same values).
-func (f *sampleFeed) runInputs(batch map[string]*tensor.Tensor) map[string]*tensor.Tensor {
-	if !f.unbatched {
+// the model's inputs have none (a view of the same values), the samples of
+// an input whose batch axis is not the first moved there (a copy), the
+// fixed inputs at the batch size, and the carried values (carried: by
+// input name) in place of their fixed first values.
+func (f *sampleFeed) runInputs(batch, carried map[string]*tensor.Tensor) map[string]*tensor.Tensor {
+	if !f.unbatched && len(f.moved) == 0 && len(f.consts) == 0 {
 		return batch
 	}
-	in := make(map[string]*tensor.Tensor, len(batch))
+	in := make(map[string]*tensor.Tensor, len(batch)+len(f.consts))
+	k := batchLen(batch)
 	for name, t := range batch {
-		in[name] = t.Reshaped(t.Shape[1:])
+		switch a, moved := f.moved[name]; {
+		case f.unbatched:
+			in[name] = t.Reshaped(t.Shape[1:])
+		case moved:
+			in[name] = spreadAxis(t, a, k, false)
+		default:
+			in[name] = t
+		}
+	}
+	for name, c := range f.consts {
+		if t, ok := carried[name]; ok {
+			in[name] = t
+		} else {
+			in[name] = c.at(k)
+		}
 	}
 	return in
 }
@@ -374,15 +502,20 @@ func (f *sampleFeed) notes() []string {
 //
 // Inputs that disagree (fixing different sizes, or some with a sample axis
 // and some without) are an error.
-func (f *sampleFeed) chooseBatching(g *loader.Graph, batch int) error {
+func (f *sampleFeed) chooseBatching(g *loader.Graph, batch int, perSample func(string) bool) error {
 	var fixedBy, flatBy *loader.ValueInfo
 	with := ""
 	for i := range g.Inputs {
 		in := &g.Inputs[i]
 		s := f.sources[in.Name]
+		_, moved := f.moved[in.Name]
 		switch {
+		case !perSample(in.Name):
+			continue
 		case noSampleAxis(*in, s):
 			flatBy = in
+		case moved:
+			with = in.Name
 		case len(in.Shape) > 0 && in.Shape[0] > 0:
 			if fixedBy != nil && in.Shape[0] != fixedBy.Shape[0] {
 				return fmt.Errorf("inputs %q (shape %s) and %q (shape %s) fix different batch sizes; vitals feeds every input the same samples", fixedBy.Name, probe.ShapeString(*fixedBy), in.Name, probe.ShapeString(*in))
@@ -397,7 +530,18 @@ func (f *sampleFeed) chooseBatching(g *loader.Graph, batch int) error {
 		if fixedBy != nil {
 			other = fixedBy.Name
 		}
-		return fmt.Errorf("input %q (shape %s) has no sample axis but input %q has one; vitals feeds every input the same samples", flatBy.Name, probe.ShapeString(*flatBy), other)
+		return fmt.Errorf("input %q (shape %s) has no sample axis but input %q has one; vitals feeds every input of --data the same samples: an input that is the same in every batch goes in --fixed %s=FILE|VALUE|zeros", flatBy.Name, probe.ShapeString(*flatBy), other, flatBy.Name)
+	}
+	if len(f.carry) > 0 {
+		// each sample's carried output feeds the next sample: one a batch
+		out, in := f.carry[0][0], f.carry[0][1]
+		if batch > 1 {
+			return fmt.Errorf("--batch %d: --carry %s=%s feeds each sample's output to the next sample, so samples run one at a time; pass --batch 1 or leave --batch out", batch, out, in)
+		}
+		if fixedBy != nil && fixedBy.Shape[0] != 1 {
+			return fmt.Errorf("--carry %s=%s runs one sample a batch, but the model fixes the batch size to %d (input %q has shape %s)", out, in, fixedBy.Shape[0], fixedBy.Name, probe.ShapeString(*fixedBy))
+		}
+		batch = 1
 	}
 	switch {
 	case flatBy != nil:

@@ -42,6 +42,17 @@ type Sample struct {
 	Layout    string
 	// Seed seeds the synthetic Gaussian input (input i uses Seed+i).
 	Seed int64
+	// Fixed are inputs that do not vary per sample, fed the same value in
+	// every batch: "NAME=FILE" (.npy or .pb), "NAME=VALUE" (a number, for
+	// the input's declared shape) or "NAME=zeros". When the input's declared
+	// shape carries the model's symbolic batch dimension (the "batch" of
+	// [2, batch, 128]), the value has size 1 on that axis (or lacks it) and
+	// is repeated along it to the batch size.
+	Fixed []string
+	// Carry are "OUT=IN" pairs: output OUT of each sample is input IN of the
+	// next, in file order (the state of a streaming model). IN starts from
+	// its Fixed value, zeros without one. Carrying runs one sample a batch.
+	Carry []string
 }
 
 // Options tune a run.

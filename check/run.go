@@ -156,6 +156,8 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 	}()
 	samples := 0
+	// carried: the values --carry feeds back, by input name
+	carried := map[string]*tensor.Tensor{}
 	for {
 		select {
 		case <-done:
@@ -173,7 +175,7 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		k := batchLen(batch)
 		samples += k
 		c.AddInputs(batch)
-		outs, released, err := m.plan.RunRecycled(arena, feed.runInputs(batch), hook, dead)
+		outs, released, err := m.plan.RunRecycled(arena, feed.runInputs(batch, carried), hook, dead)
 		if ctx.Err() != nil && errors.Is(err, ctx.Err()) {
 			return nil, ctx.Err()
 		}
@@ -182,6 +184,13 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 		c.AddOutputs(outs, labels)
 		c.Samples += k
+		for _, pair := range feed.carry {
+			t := outs[pair[0]]
+			if want := feed.consts[pair[1]].at(k); !tensor.SameShape(t.Shape, want.Shape) || t.DType != want.DType {
+				return nil, fmt.Errorf("--carry %s=%s: output %q is %v%v, input %q takes %v%v", pair[0], pair[1], pair[0], t.DType, t.Shape, pair[1], want.DType, want.Shape)
+			}
+			carried[pair[1]] = t.Clone() // a copy: the output's storage may be reused
+		}
 		if feed.auto {
 			feed.batch.Store(int64(chooseBatch(outBytes/int64(k), o.MemoryBudget)))
 			feed.auto = false

@@ -166,3 +166,31 @@ func rampNpy(t *testing.T, path string, period, div int, shape ...int) string {
 	}
 	return path
 }
+
+// --fixed and --carry reach the run: a streaming model
+// (state' = 0.5·state + x, state [1, batch, 4]) over 6 frames of a natural
+// [N, 4] file, with its state carried from frame to frame and a scalar gain
+// fixed, reports every frame; leaving the state out names both flags.
+func TestFixedAndCarryFlags(t *testing.T) {
+	dir := t.TempDir()
+	b := modelbuild.New("stream", 13)
+	b.InputOf("x", 1, []int{-1, 4}, map[int]string{0: "batch"})
+	b.InputOf("gain", 1, []int{}, nil)
+	b.InputOf("state", 1, []int{1, -1, 4}, map[int]string{1: "batch"})
+	b.Node("Mul", "decay", []string{"state", "gain"}, []string{"sa"})
+	b.Node("Add", "add", []string{"sa", "x"}, []string{"state_out"})
+	b.Output("state_out")
+	model := filepath.Join(dir, "stream.onnx")
+	if err := b.Write(model); err != nil {
+		t.Fatal(err)
+	}
+	frames := rampNpy(t, filepath.Join(dir, "frames.npy"), 9, 2, 6, 4)
+	code, out, stderr := runCLI(t, "check", model, "--data", frames, "--fixed", "gain=0.5", "--carry", "state_out=state", "--format", "json")
+	if code > 1 || !strings.Contains(out, `"samples": 6`) {
+		t.Errorf("exit %d, stderr %q", code, stderr)
+	}
+	code, _, stderr = runCLI(t, "check", model, "--data", "x="+frames, "--fixed", "gain=0.5")
+	if code != 2 || !strings.Contains(stderr, "--data state=FILE") || !strings.Contains(stderr, "--fixed state=FILE|VALUE|zeros") {
+		t.Errorf("state left out: exit %d, stderr %q", code, stderr)
+	}
+}

@@ -121,6 +121,8 @@ func run(args []string, stdout, stderr io.Writer) (code int) {
 type common struct {
 	fs      *flag.FlagSet
 	data    []string
+	fixed   []string
+	carry   []string
 	labels  string
 	samples int
 	batch   int
@@ -150,6 +152,8 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs := c.fs
 	fs.SetOutput(stderr)
 	fs.StringArrayVar(&c.data, "data", nil, "sample: a .npy/.npz/.pb/.csv file or a folder of images; INPUT=PATH per input for several inputs (repeatable)")
+	fs.StringArrayVar(&c.fixed, "fixed", nil, "an input that does not vary per sample, the same in every batch: NAME=FILE (.npy/.pb), NAME=VALUE or NAME=zeros; repeated along the model's batch axis (repeatable)")
+	fs.StringArrayVar(&c.carry, "carry", nil, "OUT=IN: output OUT of each sample is input IN of the next, in file order (streaming state; runs one sample a batch; repeatable)")
 	fs.StringVar(&c.labels, "labels", "", "integer class ids (.npy), one per sample: adds accuracy and cross-entropy")
 	fs.IntVar(&c.samples, "samples", 0, "use at most N samples (0: all; 64 for synthetic input)")
 	fs.IntVar(&c.batch, "batch", 0, "samples per batch (default: the model's fixed batch size, or chosen from the size of its activations after one sample, 1 to 32)")
@@ -169,7 +173,7 @@ func newCommon(name string, stderr io.Writer) *common {
 
 // sample is the sample the flags describe.
 func (c *common) sample() (check.Sample, error) {
-	o := check.Sample{Data: c.data, Labels: c.labels, Samples: c.samples, Batch: c.batch, Layout: strings.ToLower(c.layout), Seed: c.seed}
+	o := check.Sample{Data: c.data, Fixed: c.fixed, Carry: c.carry, Labels: c.labels, Samples: c.samples, Batch: c.batch, Layout: strings.ToLower(c.layout), Seed: c.seed}
 	var err error
 	if o.Mean, err = parseFloats(c.mean); err != nil {
 		return o, userErr("--mean: %v", err)
