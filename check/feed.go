@@ -28,9 +28,9 @@ type sampleFeed struct {
 	// the first value of a carried input); moved maps a per-sample input
 	// whose batch axis is not the first to that axis; carry pairs an output
 	// with the input it feeds in the next batch.
-	consts map[string]*constInput
-	moved  map[string]int
-	carry  [][2]string
+	consts    map[string]*constInput
+	moved     map[string]int
+	carry     [][2]string
 	labels    []int64
 	synthetic bool
 	total     int // samples to read (after --samples), -1 unknown
