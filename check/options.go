@@ -14,8 +14,10 @@ import (
 	"github.com/vitals-health/vitals/tensor"
 )
 
-// Sample describes the data a model is run on. With no Data and no Arrays, every float
-// input gets synthetic Gaussian samples (Seed, Samples or 64).
+// Sample describes the data a model is run on. With no Data and no Arrays,
+// every float input gets synthetic Gaussian samples (Seed, Samples or 64).
+// Error messages name the vitals command's flags (--data, --fixed,
+// --batch, ...): each is the field of the same name here.
 type Sample struct {
 	// Data are "PATH" (the model has one input, or an .npz whose keys name
 	// the inputs) or "INPUT=PATH", one per input: a .npy, .npz, .pb (ONNX
