@@ -23,7 +23,12 @@ const MaxProtoBytes = 2<<30 - 1
 
 // LoadModel reads and decodes an ONNX model file. External data is resolved
 // relative to the model's folder and may not leave it.
-func LoadModel(path string) (*Model, error) {
+func LoadModel(path string) (*Model, error) { return LoadModelIn(path, nil) }
+
+// LoadModelIn is LoadModel with the memory budget of ar (nil: the process
+// default, tensor.SetMemoryBudget): every initializer, and their sum, is
+// checked against it before it is decoded.
+func LoadModelIn(path string, ar *tensor.Arena) (*Model, error) {
 	fi, err := os.Stat(path)
 	if err != nil {
 		return nil, fmt.Errorf("loading model %q: %w", path, err)
@@ -38,7 +43,7 @@ func LoadModel(path string) (*Model, error) {
 	// DecodeModel keeps no reference to the bytes (the weights are copied by
 	// placeRawData, the rest by the protobuf decoder)
 	err = withFileBytes(path, func(b []byte) (err error) {
-		m, err = DecodeModel(b, filepath.Dir(path))
+		m, err = DecodeModelIn(b, filepath.Dir(path), ar)
 		return err
 	})
 	if err != nil {
@@ -49,7 +54,10 @@ func LoadModel(path string) (*Model, error) {
 }
 
 // DecodeModel decodes a serialized ModelProto; dir is the folder external data is read from ("" forbids external data).
-func DecodeModel(b []byte, dir string) (*Model, error) {
+func DecodeModel(b []byte, dir string) (*Model, error) { return DecodeModelIn(b, dir, nil) }
+
+// DecodeModelIn is DecodeModel with the memory budget of ar (nil: the process default).
+func DecodeModelIn(b []byte, dir string, ar *tensor.Arena) (*Model, error) {
 	mp, err := unmarshalModel(b)
 	if err != nil {
 		return nil, fmt.Errorf("not an ONNX model (protobuf decode failed): %w", err)
@@ -80,7 +88,7 @@ func DecodeModel(b []byte, dir string) (*Model, error) {
 	if len(m.Opsets) == 0 {
 		m.Opsets[""] = 1 // IR v3 files without opset_import: the spec says assume opset 1
 	}
-	d := &decoder{dir: dir}
+	d := &decoder{dir: dir, ar: ar}
 	g, err := d.graph(mp.Graph)
 	if err != nil {
 		return nil, err
@@ -94,7 +102,8 @@ func DecodeModel(b []byte, dir string) (*Model, error) {
 
 type decoder struct {
 	dir string
-	gen int // counter for generated node names
+	ar  *tensor.Arena // the budget initializers are held to
+	gen int           // counter for generated node names
 	// declared sums the storage the model's initializers declare (all graphs),
 	// checked against the memory budget before any of them is decoded.
 	declared int64
@@ -136,7 +145,7 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 	declare := func(name string, dims []int64, dt int32) error {
 		b := declaredBytes(&onnxpb.TensorProto{Dims: dims, DataType: proto.Int32(dt)})
 		d.declared = satAdd(d.declared, b)
-		return tensor.CheckBytes(b, func() string {
+		return d.ar.CheckBytes(b, func() string {
 			return fmt.Sprintf("initializer %q (shape %v of %v)", name, dims, storeType(tensor.DType(dt)))
 		})
 	}
@@ -150,7 +159,7 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 			return nil, err
 		}
 	}
-	if err := tensor.CheckBytes(d.declared, func() string {
+	if err := d.ar.CheckBytes(d.declared, func() string {
 		return fmt.Sprintf("storage for the model's initializers (%d in graph %q, with enclosing graphs)", len(inits), gp.GetName())
 	}); err != nil {
 		return nil, err
@@ -367,7 +376,7 @@ func (d *decoder) Tensor(tp *onnxpb.TensorProto) (*tensor.Tensor, error) {
 	if !store.Supported() {
 		return nil, fmt.Errorf("unsupported data type %v", dt)
 	}
-	if err := tensor.CheckBytes(tensor.Bytes(store, n), func() string { return fmt.Sprintf("shape %v of %v", shape, store) }); err != nil {
+	if err := d.ar.CheckBytes(tensor.Bytes(store, n), func() string { return fmt.Sprintf("shape %v of %v", shape, store) }); err != nil {
 		return nil, err
 	}
 	raw := tp.GetRawData()
@@ -744,7 +753,7 @@ func (d *decoder) sparse(sp *onnxpb.SparseTensorProto) (*tensor.Tensor, error) {
 		}
 		shape[i] = int(v)
 	}
-	n, err := tensor.CheckShape(vals.DType, shape)
+	n, err := d.ar.CheckShape(vals.DType, shape)
 	if err != nil {
 		return nil, err
 	}
@@ -761,7 +770,7 @@ func (d *decoder) sparse(sp *onnxpb.SparseTensorProto) (*tensor.Tensor, error) {
 	default:
 		return nil, fmt.Errorf("sparse indices have shape %v; with %d values and shape %v want [%d] or [%d %d]", idx.Shape, nnz, shape, nnz, nnz, len(shape))
 	}
-	out := &tensor.Tensor{DType: vals.DType, Shape: shape, Data: tensor.MakeSlice(vals.DType, n)}
+	out := &tensor.Tensor{DType: vals.DType, Shape: shape, Data: d.ar.MakeSlice(vals.DType, n)}
 	ix := idx.Ints()
 	for k := 0; k < nnz; k++ {
 		var flat int

@@ -24,6 +24,15 @@ type Call struct {
 	fuse *fusedAct
 }
 
+// Arena is the memory of the run this call belongs to: kernels allocate
+// their outputs and buffers from it (nil: the process default budget, no pool).
+func (c *Call) Arena() *tensor.Arena {
+	if c.run == nil {
+		return nil
+	}
+	return c.run.arena
+}
+
 // NIn is the number of inputs present (trailing omitted inputs are not counted).
 func (c *Call) NIn() int {
 	n := len(c.In)

@@ -19,8 +19,8 @@ func benchDW(b *testing.B, C, H, s int) {
 		"pads":    linInts("pads", 1, 1, 1, 1),
 	}
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	testArena = &tensor.Arena{Pool: pool}
+	defer func() { testArena = nil }()
 	b.SetBytes(int64(4 * x.Size()))
 	for i := 0; i < b.N; i++ {
 		c := fastCall("Conv", attrs, 11, []string{"X", "W", "B"}, map[string]bool{"W": true}, x, w, bias)

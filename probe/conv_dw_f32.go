@@ -243,7 +243,7 @@ func convF32WithAct(a *convF32Args, shape []int) {
 		convFastF32(a)
 		return
 	}
-	f.out = tensor.NewUninit(tensor.Float32, shape) // every element written below
+	f.out = a.c.Arena().NewUninit(tensor.Float32, shape) // every element written below
 	if convIsDepthwise(a) {
 		convFastF32(a) // convDepthwise2D applies f per plane
 		return

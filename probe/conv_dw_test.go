@@ -63,8 +63,8 @@ func TestConvDepthwiseMatchesReference(t *testing.T) {
 	saved := dwVecLevel
 	defer func() { dwVecLevel = saved }()
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	testArena = &tensor.Arena{Pool: pool}
+	defer func() { testArena = nil }()
 	type tc struct{ N, C, mult, H, W, K, sh, sw int }
 	cases := []tc{
 		{2, 3, 1, 37, 41, 3, 1, 1},
@@ -163,8 +163,8 @@ func dwGenericReference(t *testing.T, attrs map[string]*loader.Attr, in ...*tens
 func TestConvFastWritesEveryElement(t *testing.T) {
 	r := rand.New(rand.NewSource(23))
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	testArena = &tensor.Arena{Pool: pool}
+	defer func() { testArena = nil }()
 	type tc struct{ C, M, group, H, W, K, s, pad int }
 	for i, k := range []tc{{16, 32, 1, 16, 16, 1, 1, 0}, {8, 16, 1, 17, 15, 3, 1, 1}, {8, 16, 2, 18, 18, 3, 2, 1}, {4, 8, 1, 33, 31, 1, 2, 0}} {
 		x, w, b := linRand(r, 2, k.C, k.H, k.W), linRand(r, k.M, k.C/k.group, k.K, k.K), linRand(r, k.M)

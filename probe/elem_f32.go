@@ -86,7 +86,7 @@ func unaryF32Kernel(g func(float64) float64, k32 func(dst, src []float32)) Kerne
 		}
 		x := c.In[0]
 		if d, ok := x.Data.([]float32); ok {
-			out := tensor.NewUninit(tensor.Float32, x.Shape) // f32Map writes every element
+			out := c.Arena().NewUninit(tensor.Float32, x.Shape) // f32Map writes every element
 			f32Map(out.F32(), d, k32)
 			c.Set(0, out)
 			return nil

@@ -26,7 +26,7 @@ func fastCall(op string, attrs map[string]*loader.Attr, opset int, names []strin
 			ptrs[in[i]] = true
 		}
 	}
-	c.run = &runState{plan: &Plan{Graph: &loader.Graph{Initializers: inits}, consts: ptrs}}
+	c.run = &runState{plan: &Plan{Graph: &loader.Graph{Initializers: inits}, consts: ptrs}, arena: testArena}
 	return c
 }
 
@@ -450,9 +450,9 @@ func TestUninitOutputsFullyWritten(t *testing.T) {
 	for _, tc := range cases {
 		want := append([]float32{}, run(tc.op, tc.in)...)
 		pool := tensor.NewPool(1 << 30)
-		tensor.UsePool(pool)
+		testArena = &tensor.Arena{Pool: pool}
 		for rep := 0; rep < 2; rep++ {
-			g := tensor.NewUninit(tensor.Float32, []int{len(want)}) // a buffer the pool issued
+			g := testArena.NewUninit(tensor.Float32, []int{len(want)}) // a buffer the pool issued
 			garbage := g.F32()
 			for i := range garbage {
 				garbage[i] = float32(math.NaN())
@@ -460,17 +460,17 @@ func TestUninitOutputsFullyWritten(t *testing.T) {
 			pool.Recycle([]*tensor.Tensor{g}, nil)
 			got := run(tc.op, tc.in)
 			if &got[0] != &garbage[0] {
-				tensor.UsePool(nil)
+				testArena = nil
 				t.Fatalf("%s: the output did not reuse the recycled buffer", tc.op)
 			}
 			for i, w := range want {
 				if math.Float32bits(got[i]) != math.Float32bits(w) {
-					tensor.UsePool(nil)
+					testArena = nil
 					t.Fatalf("%s on a recycled buffer: element %d = %g, want %g", tc.op, i, got[i], w)
 				}
 			}
 		}
-		tensor.UsePool(nil)
+		testArena = nil
 	}
 }
 

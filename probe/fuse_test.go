@@ -71,8 +71,7 @@ type hookRecord struct {
 func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
 	t.Helper()
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	arena := &tensor.Arena{Pool: pool}
 	var recs []hookRecord
 	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
 		rec := hookRecord{node: n.Name}
@@ -83,7 +82,7 @@ func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
 		return nil
 	}
 	for _, x := range batches {
-		outs, released, err := p.RunRecycled(map[string]*tensor.Tensor{"x": x}, hook, pool.Put)
+		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, hook, pool.Put)
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -117,9 +117,9 @@ func binaryLoop[T, U any](out []U, outShape []int, a []T, aShape []int, b []T, b
 }
 
 // BroadcastTo materialises t expanded to outShape (data of the same type).
-func BroadcastTo(t *tensor.Tensor, outShape []int) *tensor.Tensor {
+func BroadcastTo(ar *tensor.Arena, t *tensor.Tensor, outShape []int) *tensor.Tensor {
 	n, _ := tensor.NumElements(outShape)
-	out := &tensor.Tensor{DType: t.DType, Shape: append([]int{}, outShape...), Data: tensor.MakeSlice(t.DType, n)}
+	out := &tensor.Tensor{DType: t.DType, Shape: append([]int{}, outShape...), Data: ar.MakeSlice(t.DType, n)}
 	if n == 0 {
 		return out
 	}

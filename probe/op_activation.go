@@ -168,7 +168,7 @@ func elemNumericMap(c *Call, op elemNumOp, p1, p2 float64) error {
 		return err
 	}
 	x := c.In[0]
-	out := tensor.New(x.DType, x.Shape)
+	out := c.Arena().New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
 		if op == elemReluOp {
@@ -251,7 +251,7 @@ func elemPRelu(c *Call) error {
 	if !tensor.SameShape(os, x.Shape) {
 		return fmt.Errorf("slope shape %v does not broadcast to input shape %v", s.Shape, x.Shape)
 	}
-	out := tensor.New(x.DType, os)
+	out := c.Arena().New(x.DType, os)
 	switch d := x.Data.(type) {
 	case []float32:
 		elemPReluApply(out.F32(), os, d, s.F32(), s.Shape)
@@ -310,7 +310,7 @@ func elemClip(c *Call) error {
 			return fmt.Errorf("bounds must be scalars, got shape %v", b.Shape)
 		}
 	}
-	out := tensor.New(x.DType, x.Shape)
+	out := c.Arena().New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
 		l, h := float32(math.Inf(-1)), float32(math.Inf(1))
@@ -352,7 +352,7 @@ func elemClip(c *Call) error {
 
 // elemScalarLike makes a one-element tensor of dtype dt holding v.
 func elemScalarLike(dt tensor.DType, v float64) *tensor.Tensor {
-	t := tensor.New(dt, nil)
+	t := tensor.New(dt, nil) // a scalar: the process default is fine
 	switch d := t.Data.(type) {
 	case []float32:
 		d[0] = float32(v)

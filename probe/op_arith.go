@@ -68,7 +68,7 @@ func arith(op opID) Kernel {
 		if err != nil {
 			return err
 		}
-		out := tensor.NewUninit(a.DType, os) // every element is written below
+		out := c.Arena().NewUninit(a.DType, os) // every element is written below
 		switch x := a.Data.(type) {
 		case []float32:
 			if !arithF32Fast(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) {
@@ -125,7 +125,7 @@ func powKernel(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out := tensor.New(a.DType, os)
+	out := c.Arena().New(a.DType, os)
 	bf := make([]float64, b.Size())
 	for i := range bf {
 		bf[i] = b.Float64At(i)
@@ -173,7 +173,7 @@ func modKernel(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out := tensor.New(a.DType, os)
+	out := c.Arena().New(a.DType, os)
 	switch x := a.Data.(type) {
 	case []float32:
 		binaryLoop(out.F32(), os, x, a.Shape, b.F32(), b.Shape, func(x, y float32) float32 { return float32(math.Mod(float64(x), float64(y))) })

@@ -109,7 +109,7 @@ func elemDropout(c *Call) error {
 	if c.WantOut(1) {
 		var mask *tensor.Tensor
 		if c.Opset >= 10 {
-			mask = tensor.New(tensor.Bool, x.Shape)
+			mask = c.Arena().New(tensor.Bool, x.Shape)
 			b := mask.Bools()
 			for i := range b {
 				b[i] = true

@@ -146,7 +146,7 @@ func loopKernel(c *Call) error {
 	}
 	for k, parts := range scans {
 		vi := body.Outputs[1+nCarried+k]
-		st, err := ctlStack(parts, 0, false, vi)
+		st, err := ctlStack(c.Arena(), parts, 0, false, vi)
 		if err != nil {
 			return fmt.Errorf("scan output %d: %w", k, err)
 		}
@@ -199,11 +199,11 @@ func ctlSplitDims(shape []int, axis int) (outer, inner int) {
 }
 
 // ctlTake returns slice i of t along axis, with that axis removed.
-func ctlTake(t *tensor.Tensor, axis, i int) *tensor.Tensor {
+func ctlTake(ar *tensor.Arena, t *tensor.Tensor, axis, i int) *tensor.Tensor {
 	outer, inner := ctlSplitDims(t.Shape, axis)
 	n := t.Shape[axis]
 	shape := append(append([]int{}, t.Shape[:axis]...), t.Shape[axis+1:]...)
-	out := tensor.New(t.DType, shape)
+	out := ar.New(t.DType, shape)
 	if inner == 0 {
 		return out
 	}
@@ -216,7 +216,7 @@ func ctlTake(t *tensor.Tensor, axis, i int) *tensor.Tensor {
 
 // ctlStack stacks equally shaped parts along a new axis (in reverse order when
 // reverse is set). With no parts it returns an empty tensor typed from vi.
-func ctlStack(parts []*tensor.Tensor, axis int, reverse bool, vi loader.ValueInfo) (*tensor.Tensor, error) {
+func ctlStack(ar *tensor.Arena, parts []*tensor.Tensor, axis int, reverse bool, vi loader.ValueInfo) (*tensor.Tensor, error) {
 	if len(parts) == 0 {
 		dt := vi.DType
 		if !dt.Supported() || dt == tensor.Undefined {
@@ -226,7 +226,7 @@ func ctlStack(parts []*tensor.Tensor, axis int, reverse bool, vi loader.ValueInf
 		for _, d := range vi.Shape {
 			shape = append(shape, max(d, 0))
 		}
-		return tensor.New(dt, shape), nil
+		return ar.New(dt, shape), nil
 	}
 	first := parts[0]
 	if axis < 0 || axis > first.Rank() {
@@ -242,7 +242,7 @@ func ctlStack(parts []*tensor.Tensor, axis int, reverse bool, vi loader.ValueInf
 	if _, err := tensor.NumElements(shape); err != nil {
 		return nil, err
 	}
-	out := tensor.New(first.DType, shape)
+	out := ar.New(first.DType, shape)
 	outer, inner := ctlSplitDims(shape, axis)
 	if inner == 0 {
 		return out, nil
@@ -299,7 +299,7 @@ func scanKernel(c *Call) error {
 			if t == nil || t.Rank() == 0 || t.Shape[0] != nb {
 				return fmt.Errorf("input %d must have batch axis %d", i+1, nb)
 			}
-			sub[i] = ctlTake(t, 0, b)
+			sub[i] = ctlTake(c.Arena(), t, 0, b)
 			if lens != nil && i >= len(ins)-m {
 				if lens[b] < 0 || sub[i].Rank() == 0 || lens[b] > sub[i].Shape[0] {
 					return fmt.Errorf("sequence_lens[%d] = %d out of range", b, lens[b])
@@ -315,7 +315,7 @@ func scanKernel(c *Call) error {
 		}
 	}
 	for i, parts := range results {
-		st, err := ctlStack(parts, 0, false, loader.ValueInfo{})
+		st, err := ctlStack(c.Arena(), parts, 0, false, loader.ValueInfo{})
 		if err != nil {
 			return fmt.Errorf("output %d: %w", i, err)
 		}
@@ -372,7 +372,7 @@ func scanCore(c *Call, body *loader.Graph, ins []*tensor.Tensor, m int, inAxes, 
 			if at(inDirs, j) != 0 {
 				idx = seq - 1 - s
 			}
-			step = append(step, ctlTake(ins[nState+j], axes[j], idx))
+			step = append(step, ctlTake(c.Arena(), ins[nState+j], axes[j], idx))
 		}
 		outs, err := c.RunSubgraph(body, step)
 		if err != nil {
@@ -396,7 +396,7 @@ func scanCore(c *Call, body *loader.Graph, ins []*tensor.Tensor, m int, inAxes, 
 		if len(parts) > 0 && ax < 0 {
 			ax += parts[0].Rank() + 1
 		}
-		st, err := ctlStack(parts, ax, at(outDirs, k) != 0, body.Outputs[nState+k])
+		st, err := ctlStack(c.Arena(), parts, ax, at(outDirs, k) != 0, body.Outputs[nState+k])
 		if err != nil {
 			return fmt.Errorf("scan output %d: %w", k, err)
 		}

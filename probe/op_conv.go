@@ -283,9 +283,9 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	isF32 := x.DType == tensor.Float32 && !convUseReference
 	var out *tensor.Tensor
 	if isF32 {
-		out = tensor.NewUninit(x.DType, outShape) // convFastF32 writes every element
+		out = c.Arena().NewUninit(x.DType, outShape) // convFastF32 writes every element
 	} else {
-		out = tensor.New(x.DType, outShape)
+		out = c.Arena().New(x.DType, outShape)
 	}
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
 	Cg, Mg := C/group, M/group
@@ -454,7 +454,7 @@ func convTransposeRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	if _, err := tensor.NumElements(outShape); err != nil {
 		return err
 	}
-	out := tensor.New(x.DType, outShape) // zeroed: col2im adds into it
+	out := c.Arena().New(x.DType, outShape) // zeroed: col2im adds into it
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
 	K, P, inSize := 1, 1, 1
 	for i := 0; i < nd; i++ {
@@ -465,7 +465,7 @@ func convTransposeRun[T Float](c *Call, x, w, b *tensor.Tensor) error {
 	if _, err := tensor.NumElements([]int{Mg * K, inSize}); err != nil {
 		return err
 	}
-	col := makeChecked[T](Mg * K * inSize)
+	col := makeChecked[T](c.Arena(), Mg*K*inSize)
 	// convWalk maps window position p to image coordinate p·s − padBeg + t·d,
 	// exactly the transpose map with the input as positions and Y as image.
 	for n := 0; n < N; n++ {

@@ -28,7 +28,7 @@ func detKernel(c *Call) error {
 	if x.Shape[r-2] != m {
 		return fmt.Errorf("input must hold square matrices [*, M, M], got shape %v (%d×%d)", x.Shape, x.Shape[r-2], m)
 	}
-	out, err := shapeNew(x.DType, x.Shape[:r-2])
+	out, err := shapeNew(c.Arena(), x.DType, x.Shape[:r-2])
 	if err != nil {
 		return err
 	}

@@ -202,9 +202,9 @@ func einsumKernel(c *Call) error {
 		a, b := c.In[0], c.In[1]
 		switch a.Data.(type) {
 		case []float32:
-			fast, ok = linEinsumGemm[float32](a, b, sp.terms[0], sp.terms[1], sp.out, dims, pos)
+			fast, ok = linEinsumGemm[float32](c.Arena(), a, b, sp.terms[0], sp.terms[1], sp.out, dims, pos)
 		case []float64:
-			fast, ok = linEinsumGemm[float64](a, b, sp.terms[0], sp.terms[1], sp.out, dims, pos)
+			fast, ok = linEinsumGemm[float64](c.Arena(), a, b, sp.terms[0], sp.terms[1], sp.out, dims, pos)
 		}
 		if ok {
 			c.Set(0, fast)
@@ -212,7 +212,7 @@ func einsumKernel(c *Call) error {
 		}
 	}
 	outShape := dims[:len(sp.out)]
-	out := tensor.New(c.In[0].DType, outShape)
+	out := c.Arena().New(c.In[0].DType, outShape)
 	switch od := out.Data.(type) {
 	case []float32:
 		linEinsumRun(od, linOperands[float32](c.In[:n]), strides, dims, len(sp.out))
@@ -287,7 +287,7 @@ func linEinsumRun[T Number](out []T, ops [][]T, strides [][]int, dims []int, nOu
 // diagonals or broadcasting: A and B are permuted to [batch, m, k] and
 // [batch, k, n], multiplied per batch, and the [batch, m, n] result is
 // permuted to the output order. ok=false leaves the case to the general loop.
-func linEinsumGemm[T Number](a, b *tensor.Tensor, ta, tb, out []int, dims []int, pos map[int]int) (*tensor.Tensor, bool) {
+func linEinsumGemm[T Number](ar *tensor.Arena, a, b *tensor.Tensor, ta, tb, out []int, dims []int, pos map[int]int) (*tensor.Tensor, bool) {
 	in := func(l int, set []int) bool {
 		for _, v := range set {
 			if v == l {
@@ -352,7 +352,7 @@ func linEinsumGemm[T Number](a, b *tensor.Tensor, ta, tb, out []int, dims []int,
 	ap := linPermute(a.Data.([]T), a.Shape, axesOf(ta, batch, ms, ks))
 	bp := linPermute(b.Data.([]T), b.Shape, axesOf(tb, batch, ks, ns))
 	nb, m, n, k := size(batch), size(ms), size(ns), size(ks)
-	res := makeChecked[T](nb * m * n)
+	res := makeChecked[T](ar, nb*m*n)
 	for i := 0; i < nb; i++ {
 		linGemmT(false, false, m, n, k, 1, ap[i*m*k:], max(k, 1), bp[i*k*n:], max(n, 1), 0, res[i*m*n:], max(n, 1))
 	}

@@ -66,7 +66,7 @@ func gatherKernel(c *Call) error {
 		}
 	}
 	shape := append(append(append([]int{}, x.Shape[:axis]...), it.Shape...), x.Shape[axis+1:]...)
-	out, err := shapeNew(x.DType, shape)
+	out, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}
@@ -144,7 +144,7 @@ func gatherElementsKernel(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out, err := shapeNew(x.DType, it.Shape)
+	out, err := shapeNew(c.Arena(), x.DType, it.Shape)
 	if err != nil {
 		return err
 	}
@@ -286,7 +286,7 @@ func gatherNDKernel(c *Call) error {
 		return err
 	}
 	shape := append(append([]int{}, it.Shape[:it.Rank()-1]...), block...)
-	out, err := shapeNew(x.DType, shape)
+	out, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}
@@ -355,7 +355,7 @@ func oneHotKernel(c *Call) error {
 		return fmt.Errorf("axis %d out of range for output rank %d", c.Int("axis", -1), r)
 	}
 	shape := append(append(append([]int{}, it.Shape[:axis]...), depth), it.Shape[axis:]...)
-	out, err := shapeNew(vals.DType, shape)
+	out, err := shapeNew(c.Arena(), vals.DType, shape)
 	if err != nil {
 		return err
 	}

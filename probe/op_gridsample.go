@@ -119,7 +119,7 @@ func gridSampleKernel(c *Call) error {
 	N, C := x.Shape[0], x.Shape[1]
 	in := x.Shape[2:]
 	shape := append([]int{N, C}, g.Shape[1:r+1]...)
-	out, err := shapeNew(x.DType, shape)
+	out, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}

@@ -9,6 +9,10 @@ import (
 	"github.com/vitals-health/vitals/tensor"
 )
 
+// testArena is the arena of the kernel calls the tests build (linTestCall,
+// fastCall): a test that wants pooled outputs sets it and resets it to nil.
+var testArena *tensor.Arena
+
 func linTestCall(op string, attrs map[string]*loader.Attr, opset int, in ...*tensor.Tensor) *Call {
 	if attrs == nil {
 		attrs = map[string]*loader.Attr{}
@@ -18,6 +22,7 @@ func linTestCall(op string, attrs map[string]*loader.Attr, opset int, in ...*ten
 		In:    in,
 		Out:   make([]*tensor.Tensor, 1),
 		Opset: opset,
+		run:   &runState{arena: testArena},
 	}
 }
 
@@ -134,8 +139,8 @@ func TestEinsumMatchesMatMul(t *testing.T) {
 func BenchmarkConvResNet18(b *testing.B) {
 	r := rand.New(rand.NewSource(3))
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	testArena = &tensor.Arena{Pool: pool}
+	defer func() { testArena = nil }()
 	for _, s := range []struct {
 		name              string
 		C, M, H, k, s, pd int

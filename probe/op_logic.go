@@ -51,7 +51,7 @@ func elemCompareKernel(op elemCmpOp) Kernel {
 		if err != nil {
 			return err
 		}
-		out := tensor.New(tensor.Bool, os)
+		out := c.Arena().New(tensor.Bool, os)
 		o := out.Bools()
 		switch x := a.Data.(type) {
 		case []float32:
@@ -121,7 +121,7 @@ func elemBoolKernel(f func(x, y bool) bool) Kernel {
 		if err != nil {
 			return err
 		}
-		out := tensor.New(tensor.Bool, os)
+		out := c.Arena().New(tensor.Bool, os)
 		binaryLoop(out.Bools(), os, a.Bools(), a.Shape, b.Bools(), b.Shape, f)
 		c.Set(0, out)
 		return nil
@@ -137,7 +137,7 @@ func elemNot(c *Call) error {
 	if x.DType != tensor.Bool {
 		return fmt.Errorf("expects a bool input, got %v", x.DType)
 	}
-	out := tensor.New(tensor.Bool, x.Shape)
+	out := c.Arena().New(tensor.Bool, x.Shape)
 	o := out.Bools()
 	for i, v := range x.Bools() {
 		o[i] = !v
@@ -165,7 +165,7 @@ func elemFloatTest(c *Call, pred func(float64) bool) error {
 		return err
 	}
 	x := c.In[0]
-	out := tensor.New(tensor.Bool, x.Shape)
+	out := c.Arena().New(tensor.Bool, x.Shape)
 	o := out.Bools()
 	switch d := x.Data.(type) {
 	case []float32:
@@ -199,7 +199,7 @@ func elemWhere(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out := tensor.New(x.DType, os)
+	out := c.Arena().New(x.DType, os)
 	cb := cond.Bools()
 	switch d := out.Data.(type) {
 	case []float32:
@@ -306,7 +306,7 @@ func elemBitShift(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out := tensor.New(a.DType, os)
+	out := c.Arena().New(a.DType, os)
 	switch x := a.Data.(type) {
 	case []uint8:
 		elemShift(left, out.Data.([]uint8), os, x, a.Shape, b.Data.([]uint8), b.Shape)

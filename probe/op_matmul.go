@@ -141,7 +141,7 @@ func matMulKernel(c *Call) error {
 		return fmt.Errorf("MatMul needs inputs of rank ≥ 1, got %v and %v", a.Shape, b.Shape)
 	}
 	if av, ok := a.Data.([]float32); ok && b.Rank() == 2 && b.DType == a.DType && c.isInitializer(1) && !linGemmReference {
-		if out, ok := matMulPackedB(a, av, b); ok {
+		if out, ok := matMulPackedB(c.Arena(), a, av, b); ok {
 			c.Set(0, out)
 			return nil
 		}
@@ -150,17 +150,17 @@ func matMulKernel(c *Call) error {
 	var err error
 	switch av := a.Data.(type) {
 	case []float32:
-		out, err = linMatMul(a, av, b, b.Data.([]float32))
+		out, err = linMatMul(c.Arena(), a, av, b, b.Data.([]float32))
 	case []float64:
-		out, err = linMatMul(a, av, b, b.Data.([]float64))
+		out, err = linMatMul(c.Arena(), a, av, b, b.Data.([]float64))
 	case []int64:
-		out, err = linMatMul(a, av, b, b.Data.([]int64))
+		out, err = linMatMul(c.Arena(), a, av, b, b.Data.([]int64))
 	case []int32:
-		out, err = linMatMul(a, av, b, b.Data.([]int32))
+		out, err = linMatMul(c.Arena(), a, av, b, b.Data.([]int32))
 	case []uint64:
-		out, err = linMatMul(a, av, b, b.Data.([]uint64))
+		out, err = linMatMul(c.Arena(), a, av, b, b.Data.([]uint64))
 	case []uint32:
-		out, err = linMatMul(a, av, b, b.Data.([]uint32))
+		out, err = linMatMul(c.Arena(), a, av, b, b.Data.([]uint32))
 	default:
 		return fmt.Errorf("MatMul does not support %v", a.DType)
 	}
@@ -171,7 +171,7 @@ func matMulKernel(c *Call) error {
 	return nil
 }
 
-func linMatMul[T Number](a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*tensor.Tensor, error) {
+func linMatMul[T Number](ar *tensor.Arena, a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*tensor.Tensor, error) {
 	as, bs := a.Shape, b.Shape
 	aVec, bVec := len(as) == 1, len(bs) == 1
 	if aVec {
@@ -202,7 +202,7 @@ func linMatMul[T Number](a *tensor.Tensor, ad []T, b *tensor.Tensor, bd []T) (*t
 		return nil, err
 	}
 	// every element is written: each product has beta 0 (k = 0 writes zeros)
-	out := tensor.NewUninit(a.DType, []int{total}).Data.([]T)
+	out := ar.NewUninit(a.DType, []int{total}).Data.([]T)
 	nb := 1
 	for _, d := range batch {
 		nb *= d
@@ -290,7 +290,7 @@ func gemmKernel(c *Call) error {
 		return fmt.Errorf("Gemm inner dimensions differ: A %v (transA=%v), B %v (transB=%v)", a.Shape, tA, b.Shape, tB)
 	}
 	alpha, beta := c.Float("alpha", 1), c.Float("beta", 1)
-	out := tensor.New(a.DType, []int{m, n})
+	out := c.Arena().New(a.DType, []int{m, n})
 	if cc != nil && beta != 0 {
 		if _, err := Broadcast(cc.Shape, out.Shape); err != nil || cc.Rank() > 2 {
 			return fmt.Errorf("Gemm C of shape %v does not broadcast to %v", cc.Shape, out.Shape)
@@ -335,7 +335,7 @@ func gemmKernel(c *Call) error {
 // matMulPackedB is MatMul with a constant 2-D B ([k, n]) packed once: A's
 // leading dimensions fold into the rows of one product. ok is false when the
 // shapes do not fit (the general path then reports the error).
-func matMulPackedB(a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Tensor, bool) {
+func matMulPackedB(ar *tensor.Arena, a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Tensor, bool) {
 	k, n := b.Shape[0], b.Shape[1]
 	if a.Rank() < 1 || a.Shape[a.Rank()-1] != k || k == 0 || n == 0 {
 		return nil, false
@@ -346,7 +346,7 @@ func matMulPackedB(a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Te
 	if err != nil {
 		return nil, false
 	}
-	res := tensor.NewUninit(tensor.Float32, []int{total}) // the product (beta 0) writes every element
+	res := ar.NewUninit(tensor.Float32, []int{total}) // the product (beta 0) writes every element
 	out := res.F32()
 	switch {
 	case rows == 0:

@@ -84,7 +84,7 @@ func matMulIntegerKernel(c *Call) error {
 		return fmt.Errorf("B: %w", err)
 	}
 	at, bt := tensor.From(af, a.Shape...), tensor.From(bf, b.Shape...)
-	out, err := linMatMul(at, af, bt, bf)
+	out, err := linMatMul(c.Arena(), at, af, bt, bf)
 	if err != nil {
 		return err
 	}

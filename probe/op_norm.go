@@ -76,8 +76,8 @@ func normAffine[T Float](y, x []T, n, c, inner int, k, o []float64) {
 }
 
 // normAffineTensor applies normAffine to a float tensor and returns the result.
-func normAffineTensor(x *tensor.Tensor, n, c, inner int, k, o []float64) *tensor.Tensor {
-	y := tensor.New(x.DType, x.Shape)
+func normAffineTensor(ar *tensor.Arena, x *tensor.Tensor, n, c, inner int, k, o []float64) *tensor.Tensor {
+	y := ar.New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
 		normAffine(y.F32(), d, n, c, inner, k, o)
@@ -181,7 +181,7 @@ func batchNormKernel(c *Call) error {
 		k[i] = scale[i] / math.Sqrt(useVar[i]+eps)
 		o[i] = bias[i] - useMean[i]*k[i]
 	}
-	c.Set(0, normAffineTensor(x, n, ch, inner, k, o))
+	c.Set(0, normAffineTensor(c.Arena(), x, n, ch, inner, k, o))
 	if !training {
 		return nil
 	}
@@ -235,7 +235,7 @@ func instanceNormKernel(c *Call) error {
 		k[i] = scale[i%ch] / math.Sqrt(vr[i]+eps)
 		o[i] = bias[i%ch] - mean[i]*k[i]
 	}
-	c.Set(0, normAffineTensor(x, 1, n*ch, inner, k, o))
+	c.Set(0, normAffineTensor(c.Arena(), x, 1, n*ch, inner, k, o))
 	return nil
 }
 
@@ -336,7 +336,7 @@ func layerLike(c *Call, rms bool) error {
 	if c.WantOut(1) || c.WantOut(2) {
 		means, inv = make([]float64, rows), make([]float64, rows)
 	}
-	y := tensor.New(x.DType, x.Shape)
+	y := c.Arena().New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
 		normRows(y.F32(), d, m, scale, bias, eps, rms, means, inv)
@@ -422,7 +422,7 @@ func groupNormKernel(c *Call) error {
 		k[i] = scale[i%ch] * r
 		o[i] = bias[i%ch] - mean[grp]*k[i]
 	}
-	c.Set(0, normAffineTensor(x, 1, n*ch, inner, k, o))
+	c.Set(0, normAffineTensor(c.Arena(), x, 1, n*ch, inner, k, o))
 	return nil
 }
 
@@ -450,7 +450,7 @@ func lrnKernel(c *Call) error {
 	for _, d := range x.Shape[2:] {
 		inner *= d
 	}
-	y := tensor.New(x.DType, x.Shape)
+	y := c.Arena().New(x.DType, x.Shape)
 	lo, hi := (size-1)/2, size-1-(size-1)/2
 	switch d := x.Data.(type) {
 	case []float32:
@@ -516,7 +516,7 @@ func mvnKernel(c *Call) error {
 		}
 		reduced[ax] = true
 	}
-	y := tensor.New(x.DType, x.Shape)
+	y := c.Arena().New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
 		mvnLoop(y.F32(), d, x.Shape, reduced)
@@ -596,7 +596,7 @@ func lpNormKernel(c *Call) error {
 	for _, d := range x.Shape[axis+1:] {
 		inner *= d
 	}
-	y := tensor.New(x.DType, x.Shape)
+	y := c.Arena().New(x.DType, x.Shape)
 	switch d := x.Data.(type) {
 	case []float32:
 		lpLoop(y.F32(), d, outer, x.Shape[axis], inner, p)

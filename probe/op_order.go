@@ -61,7 +61,7 @@ func topKKernel(c *Call) error {
 	}
 	shape := append([]int{}, x.Shape...)
 	shape[axis] = k
-	vals, err := shapeNew(x.DType, shape)
+	vals, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}
@@ -91,7 +91,7 @@ func cumSumKernel(c *Call) error {
 		return err
 	}
 	outer, n, inner := orderLanes(x.Shape, axis)
-	out := tensor.New(x.DType, x.Shape)
+	out := c.Arena().New(x.DType, x.Shape)
 	num.cumsum(x.Data, out.Data, outer, n, inner, c.Int("exclusive", 0) == 1, c.Int("reverse", 0) == 1)
 	c.Set(0, out)
 	return nil

@@ -149,7 +149,7 @@ func maxPoolKernel(c *Call) error {
 		return err
 	}
 	outShape := append([]int{x.Shape[0], x.Shape[1]}, g.out...)
-	out := tensor.New(x.DType, outShape)
+	out := c.Arena().New(x.DType, outShape)
 	var idx []int64
 	if c.WantOut(1) {
 		idx = make([]int64, out.Size())
@@ -250,7 +250,7 @@ func avgPoolKernel(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out := tensor.New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
+	out := c.Arena().New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
 	planes := x.Shape[0] * x.Shape[1]
 	incl := c.Int("count_include_pad", 0) != 0
 	switch xd := x.Data.(type) {
@@ -302,7 +302,7 @@ func lpPoolKernel(c *Call) error {
 	if c.Opset < 2 {
 		p = float64(c.Float("p", 2))
 	}
-	out := tensor.New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
+	out := c.Arena().New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
 	planes := x.Shape[0] * x.Shape[1]
 	switch xd := x.Data.(type) {
 	case []float32:
@@ -357,7 +357,7 @@ func globalPoolKernel(kind poolKind) Kernel {
 		for range x.Shape[2:] {
 			outShape = append(outShape, 1)
 		}
-		out := tensor.New(x.DType, outShape)
+		out := c.Arena().New(x.DType, outShape)
 		planes := x.Shape[0] * x.Shape[1]
 		p := float64(c.Int("p", 2))
 		if c.Opset < 2 {
@@ -437,7 +437,7 @@ func maxUnpoolKernel(c *Call) error {
 	if _, err := tensor.NumElements(shape); err != nil {
 		return err
 	}
-	out := tensor.New(x.DType, shape)
+	out := c.Arena().New(x.DType, shape)
 	idx := ind.Ints()
 	n := out.Size()
 	for _, v := range idx {
@@ -475,7 +475,7 @@ func maxUnpoolKernel(c *Call) error {
 		if _, err := tensor.NumElements(full); err != nil {
 			return err
 		}
-		big := tensor.New(x.DType, full)
+		big := c.Arena().New(x.DType, full)
 		poolEmbed(big, out)
 		out = big
 	}

@@ -206,7 +206,7 @@ func resizeRun(c *Call, x *tensor.Tensor, o resizeOpts, scales []float64, out []
 	default:
 		return fmt.Errorf("unknown mode %q", o.mode)
 	}
-	if _, err := tensor.CheckShape(x.DType, out); err != nil {
+	if _, err := c.Arena().CheckShape(x.DType, out); err != nil {
 		return err
 	}
 	cur := x
@@ -229,7 +229,7 @@ func resizeRun(c *Call, x *tensor.Tensor, o resizeOpts, scales []float64, out []
 		if tab.identity(x.Shape[ax]) {
 			continue
 		}
-		next, err := resizeApply(cur, ax, out[ax], tab, o.extrap)
+		next, err := resizeApply(c.Arena(), cur, ax, out[ax], tab, o.extrap)
 		if err != nil {
 			return err
 		}
@@ -393,10 +393,10 @@ func resizeTaps(o resizeOpts, in, out int, outF, scale float64, roi []float64) (
 }
 
 // resizeApply resamples axis ax of x to n entries with the taps.
-func resizeApply(x *tensor.Tensor, ax, n int, t *resizeAxis, extrap float64) (*tensor.Tensor, error) {
+func resizeApply(ar *tensor.Arena, x *tensor.Tensor, ax, n int, t *resizeAxis, extrap float64) (*tensor.Tensor, error) {
 	shape := append([]int{}, x.Shape...)
 	shape[ax] = n
-	out := tensor.New(x.DType, shape)
+	out := ar.New(x.DType, shape)
 	outer, inner := 1, 1
 	for _, d := range x.Shape[:ax] {
 		outer *= d

@@ -107,7 +107,7 @@ func roiAlignKernel(c *Call) error {
 			return fmt.Errorf("batch_indices[%d] = %d is outside [0, %d) for X of shape %v", r, b, n, x.Shape)
 		}
 	}
-	out, err := tensor.Alloc(x.DType, []int{len(idx), ch, o.oh, o.ow})
+	out, err := c.Arena().Alloc(x.DType, []int{len(idx), ch, o.oh, o.ow})
 	if err != nil {
 		return err
 	}

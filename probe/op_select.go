@@ -47,7 +47,7 @@ func reverseSequenceKernel(c *Call) error {
 			return fmt.Errorf("sequence_lens[%d] = %d is outside [0, %d] (time axis %d of input %v)", b, l, T, timeAxis, x.Shape)
 		}
 	}
-	out, err := shapeNew(x.DType, x.Shape)
+	out, err := shapeNew(c.Arena(), x.DType, x.Shape)
 	if err != nil {
 		return err
 	}
@@ -107,7 +107,7 @@ func compressKernel(c *Call) error {
 			return fmt.Errorf("condition has %d entries, more than the %d elements of the flattened input %v", ct.Size(), n, x.Shape)
 		}
 		sel := compressPicks(ct)
-		out, err := shapeNew(x.DType, []int{len(sel)})
+		out, err := shapeNew(c.Arena(), x.DType, []int{len(sel)})
 		if err != nil {
 			return err
 		}
@@ -129,7 +129,7 @@ func compressKernel(c *Call) error {
 	sel := compressPicks(ct)
 	shape := append([]int{}, x.Shape...)
 	shape[axis] = len(sel)
-	out, err := shapeNew(x.DType, shape)
+	out, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}

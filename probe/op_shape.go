@@ -238,7 +238,7 @@ func transposeKernel(c *Call) error {
 		dims[i] = x.Shape[p]
 		src[i] = st[p]
 	}
-	out, err := shapeView(x, 0, src, dims)
+	out, err := shapeView(c.Arena(), x, 0, src, dims)
 	if err != nil {
 		return err
 	}
@@ -260,7 +260,7 @@ func expandKernel(c *Call) error {
 	if err != nil {
 		return err
 	}
-	out, err := shapeView(x, 0, BroadcastStrides(x.Shape, shape), shape)
+	out, err := shapeView(c.Arena(), x, 0, BroadcastStrides(x.Shape, shape), shape)
 	if err != nil {
 		return err
 	}
@@ -290,7 +290,7 @@ func tileKernel(c *Call) error {
 		}
 		shape[i] = x.Shape[i] * n
 	}
-	out, err := shapeNew(x.DType, shape)
+	out, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}
@@ -392,7 +392,7 @@ func constantOfShapeKernel(c *Call) error {
 	if val.Size() != 1 {
 		return fmt.Errorf("value must hold one element, has shape %v", val.Shape)
 	}
-	out, err := shapeNew(val.DType, shape)
+	out, err := shapeNew(c.Arena(), val.DType, shape)
 	if err != nil {
 		return err
 	}
@@ -441,7 +441,7 @@ func rangeFill[T Number](c *Call, start, limit, delta T) error {
 		return fmt.Errorf("range from %v to %v by %v has no valid length", start, limit, delta)
 	}
 	n = max(n, 0)
-	out := makeChecked[T](int(n))
+	out := makeChecked[T](c.Arena(), int(n))
 	v := start
 	for i := range out {
 		out[i] = v
@@ -470,7 +470,7 @@ func eyeLikeKernel(c *Call) error {
 	if !dt.Supported() {
 		return fmt.Errorf("unsupported dtype %v", dt)
 	}
-	out := tensor.New(dt, x.Shape)
+	out := c.Arena().New(dt, x.Shape)
 	rows, cols, k := x.Shape[0], x.Shape[1], int(c.Int("k", 0))
 	switch d := out.Data.(type) {
 	case []float32:
@@ -556,7 +556,7 @@ func depthToSpaceKernel(c *Call) error {
 	} else {
 		in, perm = []int{n, b, b, ch, h, w}, []int{0, 3, 4, 1, 5, 2}
 	}
-	out, err := shapePermute(x, in, perm)
+	out, err := shapePermute(c.Arena(), x, in, perm)
 	if err != nil {
 		return err
 	}
@@ -575,7 +575,7 @@ func spaceToDepthKernel(c *Call) error {
 		return fmt.Errorf("needs a 4-D input with spatial dims divisible by blocksize (shape %v, blocksize %d)", x.Shape, b)
 	}
 	n, ch, h, w := x.Shape[0], x.Shape[1], x.Shape[2]/b, x.Shape[3]/b
-	out, err := shapePermute(x, []int{n, ch, h, b, w, b}, []int{0, 3, 5, 1, 2, 4})
+	out, err := shapePermute(c.Arena(), x, []int{n, ch, h, b, w, b}, []int{0, 3, 5, 1, 2, 4})
 	if err != nil {
 		return err
 	}
@@ -584,7 +584,7 @@ func spaceToDepthKernel(c *Call) error {
 }
 
 // shapePermute views x's data as shape in and transposes it by perm into a new tensor.
-func shapePermute(x *tensor.Tensor, in, perm []int) (*tensor.Tensor, error) {
+func shapePermute(ar *tensor.Arena, x *tensor.Tensor, in, perm []int) (*tensor.Tensor, error) {
 	st := tensor.Strides(in)
 	dims := make([]int, len(perm))
 	src := make([]int, len(perm))
@@ -592,5 +592,5 @@ func shapePermute(x *tensor.Tensor, in, perm []int) (*tensor.Tensor, error) {
 		dims[i] = in[p]
 		src[i] = st[p]
 	}
-	return shapeView(x, 0, src, dims)
+	return shapeView(ar, x, 0, src, dims)
 }

@@ -216,16 +216,16 @@ func shapeCoalesce(dims, a, b []int) ([]int, []int, []int) {
 }
 
 // shapeNew allocates an output tensor after checking the element count.
-func shapeNew(dt tensor.DType, shape []int) (*tensor.Tensor, error) {
+func shapeNew(ar *tensor.Arena, dt tensor.DType, shape []int) (*tensor.Tensor, error) {
 	if _, err := tensor.NumElements(shape); err != nil {
 		return nil, err
 	}
-	return tensor.New(dt, shape), nil
+	return ar.New(dt, shape), nil
 }
 
 // shapeView copies the view (off, strides over dims) of t into a new contiguous tensor of shape dims.
-func shapeView(t *tensor.Tensor, off int, strides, dims []int) (*tensor.Tensor, error) {
-	out, err := shapeNew(t.DType, dims)
+func shapeView(ar *tensor.Arena, t *tensor.Tensor, off int, strides, dims []int) (*tensor.Tensor, error) {
+	out, err := shapeNew(ar, t.DType, dims)
 	if err != nil {
 		return nil, err
 	}

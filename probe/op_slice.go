@@ -54,7 +54,7 @@ func concatKernel(c *Call) error {
 		}
 		shape[axis] += t.Shape[axis]
 	}
-	out, err := shapeNew(first.DType, shape)
+	out, err := shapeNew(c.Arena(), first.DType, shape)
 	if err != nil {
 		return err
 	}
@@ -131,7 +131,7 @@ func splitKernel(c *Call) error {
 		dims := append([]int{}, x.Shape...)
 		dims[axis] = p
 		if c.WantOut(i) {
-			out, err := shapeView(x, off*st[axis], st, dims)
+			out, err := shapeView(c.Arena(), x, off*st[axis], st, dims)
 			if err != nil {
 				return err
 			}
@@ -215,7 +215,7 @@ func sliceKernel(c *Call) error {
 			off += s * st[a]
 		}
 	}
-	out, err := shapeView(x, off, src, dims)
+	out, err := shapeView(c.Arena(), x, off, src, dims)
 	if err != nil {
 		return err
 	}
@@ -313,7 +313,7 @@ func padKernel(c *Call) error {
 		before[a], after[a] = max(before[a], 0), max(after[a], 0)
 		shape[a] = core[a] + before[a] + after[a]
 	}
-	out, err := shapeNew(x.DType, shape)
+	out, err := shapeNew(c.Arena(), x.DType, shape)
 	if err != nil {
 		return err
 	}

@@ -3,8 +3,6 @@ package probe
 import (
 	"fmt"
 	"math"
-
-	"github.com/vitals-health/vitals/tensor"
 )
 
 // Softmax family: Softmax, LogSoftmax, Hardmax.
@@ -63,7 +61,7 @@ func softmaxKernel(kind smKind) Kernel {
 				inner *= d
 			}
 		}
-		y := tensor.NewUninit(x.DType, x.Shape) // smLoop writes every element of every row
+		y := c.Arena().NewUninit(x.DType, x.Shape) // smLoop writes every element of every row
 		// rows of the outer axis are independent: split them across cores
 		// (each row is computed by one worker exactly as a serial run would)
 		minRows := max(1, elemChunk/max(1, m*inner))

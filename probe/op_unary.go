@@ -3,8 +3,6 @@ package probe
 import (
 	"fmt"
 	"math"
-
-	"github.com/vitals-health/vitals/tensor"
 )
 
 // Elementwise unary math: y = f(x) for every element.
@@ -57,7 +55,7 @@ func elemSignedKernel(op elemSignedOp) Kernel {
 			return err
 		}
 		x := c.In[0]
-		out := tensor.New(x.DType, x.Shape)
+		out := c.Arena().New(x.DType, x.Shape)
 		switch d := x.Data.(type) {
 		case []float32:
 			elemSignedApply(op, out.F32(), d)

@@ -48,7 +48,7 @@ func elemVariadicKernel(op elemFoldOp) Kernel {
 		if err != nil {
 			return err
 		}
-		out := BroadcastTo(ins[0], os)
+		out := BroadcastTo(c.Arena(), ins[0], os)
 		rest := ins[1:]
 		switch d := out.Data.(type) {
 		case []float32:

@@ -330,6 +330,9 @@ func (s *Scope) Get(name string) (*tensor.Tensor, bool) {
 type runState struct {
 	plan *Plan
 	hook Hook
+	// arena is the run's memory: its budget and buffer pool (nil: the
+	// process default budget, no pool).
+	arena *tensor.Arena
 }
 
 // Run executes the plan on one batch of named inputs and returns the graph
@@ -338,7 +341,7 @@ func (p *Plan) Run(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*ten
 	if err := p.checkInputs(inputs); err != nil {
 		return nil, err
 	}
-	return p.run(inputs, nil, hook)
+	return p.run(nil, inputs, nil, hook)
 }
 
 // RunRecycled is Run that hands a released value (one no later step reads)
@@ -349,21 +352,22 @@ func (p *Plan) Run(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*ten
 // reuse that storage for the rest of the run (tensor.Pool.Put, once the
 // hook's own readers are done with it). The released values it does not get
 // (all of them when dead is nil) are returned, for tensor.Pool.Recycle after
-// the batch.
-func (p *Plan) RunRecycled(inputs map[string]*tensor.Tensor, hook Hook, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
+// the batch. Kernels allocate from arena (the run's budget and buffer pool;
+// nil: the process default budget, no pool).
+func (p *Plan) RunRecycled(arena *tensor.Arena, inputs map[string]*tensor.Tensor, hook Hook, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
 	if err := p.checkInputs(inputs); err != nil {
 		return nil, nil, err
 	}
 	var released []*tensor.Tensor
-	out, err := p.runCollect(inputs, nil, hook, &released, dead)
+	out, err := p.runCollect(arena, inputs, nil, hook, &released, dead)
 	return out, released, err
 }
 
-func (p *Plan) run(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (map[string]*tensor.Tensor, error) {
-	return p.runCollect(inputs, parent, hook, nil, nil)
+func (p *Plan) run(arena *tensor.Arena, inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (map[string]*tensor.Tensor, error) {
+	return p.runCollect(arena, inputs, parent, hook, nil, nil)
 }
 
-func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook Hook, released *[]*tensor.Tensor, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, error) {
+func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor, parent *Scope, hook Hook, released *[]*tensor.Tensor, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, error) {
 	env := &Scope{vals: make(map[string]*tensor.Tensor, len(p.Graph.Initializers)+len(inputs)+16), parent: parent}
 	for name, t := range p.Graph.Initializers {
 		env.vals[name] = t
@@ -372,7 +376,7 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 		env.vals[name] = t
 	}
 	p.runs.Add(1)
-	rs := &runState{plan: p, hook: hook}
+	rs := &runState{plan: p, hook: hook, arena: arena}
 	var rec *recycler
 	if dead != nil && released != nil {
 		rec = newRecycler(env, dead)
@@ -418,7 +422,7 @@ func (p *Plan) runCollect(inputs map[string]*tensor.Tensor, parent *Scope, hook 
 			}
 			// Kernels that allocate with make rather than tensor.New are held
 			// to the memory budget here, before the run goes on.
-			if err := tensor.CheckBytes(tensor.Bytes(c.Out[j].DType, c.Out[j].Size()), func() string { return fmt.Sprintf("output %q %v", name, c.Out[j]) }); err != nil {
+			if err := arena.CheckBytes(tensor.Bytes(c.Out[j].DType, c.Out[j].Size()), func() string { return fmt.Sprintf("output %q %v", name, c.Out[j]) }); err != nil {
 				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
 			}
 			env.vals[name] = c.Out[j]
@@ -507,7 +511,7 @@ func (c *Call) RunSubgraph(g *loader.Graph, inputs []*tensor.Tensor) ([]*tensor.
 	if c.run != nil {
 		hook = c.run.hook
 	}
-	res, err := sp.run(in, c.Scope, hook)
+	res, err := sp.run(c.Arena(), in, c.Scope, hook)
 	if err != nil {
 		return nil, fmt.Errorf("subgraph %q: %w", g.Name, err)
 	}

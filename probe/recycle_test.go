@@ -79,12 +79,11 @@ func TestRecycledRunMatchesPlainRun(t *testing.T) {
 		wantOut = append(wantOut, slices.Clone(outs["y"].F32()), slices.Clone(outs["nf"].F32()))
 	}
 	pool := tensor.NewPool(1 << 30)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	arena := &tensor.Arena{Pool: pool}
 	handed := 0
 	dead := func(t *tensor.Tensor) { handed++; pool.Put(t) }
 	for _, x := range batches {
-		outs, released, err := p.RunRecycled(map[string]*tensor.Tensor{"x": x}, record(&got), dead)
+		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, record(&got), dead)
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -92,8 +92,7 @@ func ctlRun(t *testing.T, path string, g ctlGolden, scalars []int64) (*report.Re
 	}
 	c := stats.NewCollector(mod, plan)
 	pool := tensor.NewPool(1 << 26)
-	tensor.UsePool(pool)
-	defer tensor.UsePool(nil)
+	arena := &tensor.Arena{Pool: pool}
 	dead := c.AfterObserved(pool.Put)
 	var got []float32
 	out := mod.Graph.Outputs[0].Name
@@ -104,7 +103,7 @@ func ctlRun(t *testing.T, path string, g ctlGolden, scalars []int64) (*report.Re
 			in[g.ScalarInput] = tensor.From([]int64{scalars[k]})
 		}
 		c.AddInputs(in)
-		outs, released, err := plan.RunRecycled(in, c.Hook, dead)
+		outs, released, err := plan.RunRecycled(arena, in, c.Hook, dead)
 		if err != nil {
 			t.Fatalf("batch %d: %v", k, err)
 		}
@@ -404,4 +403,14 @@ func TestCoverageReportsUnobservedNodes(t *testing.T) {
 	if w := report.CoverageWarning(r); !strings.Contains(w, "7 of the 19 nodes that ran were not observed") {
 		t.Errorf("warning %q", w)
 	}
+}
+
+// sliceRows returns rows [lo,hi) of axis 0 of a float32 tensor (a copy).
+// (Batches here are cut by hand: each batch of the If model gets its own
+// sample rate, which one run of check.Check with a fixed input cannot give.)
+func sliceRows(t *tensor.Tensor, lo, hi int) *tensor.Tensor {
+	row := t.Size() / t.Shape[0]
+	out := tensor.New(t.DType, append([]int{hi - lo}, t.Shape[1:]...))
+	copy(out.F32(), t.F32()[lo*row:hi*row])
+	return out
 }

@@ -1,37 +1,45 @@
 package stats_test
 
 import (
+	"context"
 	"math"
 	"math/rand/v2"
 	"strings"
 	"testing"
 
+	"github.com/vitals-health/vitals/check"
 	"github.com/vitals-health/vitals/internal/modelbuild"
+	"github.com/vitals-health/vitals/internal/modeltest"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
 )
 
-// analyze builds, runs and checks a model over the given batches of input "x".
+// analyze builds a model and checks it through check.Check (the path
+// `vitals check` runs) over the given batches of input "x", concatenated
+// and cut again at the first batch's size.
 func analyze(t *testing.T, b *modelbuild.Builder, batches ...*tensor.Tensor) *report.Report {
 	t.Helper()
-	m, p := stats.BuildPlan(t, b)
-	c := stats.NewCollector(m, p)
-	for _, x := range batches {
-		in := map[string]*tensor.Tensor{"x": x}
-		c.AddInputs(in)
-		outs, err := p.Run(in, c.Hook)
-		if err != nil {
-			t.Fatal(err)
-		}
-		c.AddOutputs(outs, nil)
-		c.Samples += x.Shape[0]
-	}
-	col := c.Finish("file")
-	if err := stats.Run(col, stats.Checks, nil); err != nil {
+	m, err := check.Compile(modeltest.Model(t, b), check.LoadOptions{})
+	if err != nil {
 		t.Fatal(err)
 	}
-	return col.Report
+	x := batches[0]
+	if len(batches) > 1 {
+		var all []float32
+		n := 0
+		for _, b := range batches {
+			all = append(all, b.F32()...)
+			n += b.Shape[0]
+		}
+		x = tensor.From(all, append([]int{n}, x.Shape[1:]...)...)
+	}
+	sample := check.Sample{Arrays: map[string]*tensor.Tensor{"x": x}, Batch: batches[0].Shape[0]}
+	r, err := check.Check(context.Background(), m, sample, check.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return r
 }
 
 func gaussian(rng *rand.Rand, std float64, shape ...int) *tensor.Tensor {

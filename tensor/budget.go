@@ -11,13 +11,14 @@ import (
 // kernel from values in the file (ConstantOfShape, Expand, Tile, Range, a
 // broadcast of two large axes), can ask for more memory than the machine has,
 // and the Go runtime does not recover from running out of memory. So every
-// allocation whose size comes from a file is checked against one
-// process-wide byte budget before it is made:
+// allocation whose size comes from a file is checked against a byte budget
+// before it is made: the Arena of the run (each check owns one) or, for code
+// outside a run, the process default set by SetMemoryBudget:
 //
 //   - the loader checks each tensor's declared size (and the running sum of all
 //     initializers) and each external-data tensor before reading it;
 //   - the CLI checks batch × per-sample size of every input before the run;
-//   - at run time New and MakeSlice, through which kernels allocate, panic with
+//   - at run time Arena.New and Arena.MakeSlice, through which kernels allocate, panic with
 //     a *BudgetError instead of allocating (as does probe's makeChecked, for
 //     kernels that size their own buffers: MatMul, Range, Einsum,
 //     ConvTranspose); probe's Plan.call converts that panic into an error
@@ -27,9 +28,12 @@ import (
 //
 // The budget is per tensor at run time (live activations of one batch are not
 // summed) and cumulative for the model's initializers. Zero means no budget.
+//
+// budget is the process default, used where no Arena is given.
 var budget atomic.Int64
 
-// SetMemoryBudget sets the byte budget (0: unlimited) and returns the previous one.
+// SetMemoryBudget sets the process default byte budget (0: unlimited) and
+// returns the previous one. A run with its own Arena is not affected.
 func SetMemoryBudget(bytes int64) int64 {
 	if bytes < 0 {
 		bytes = 0
@@ -37,7 +41,7 @@ func SetMemoryBudget(bytes int64) int64 {
 	return budget.Swap(bytes)
 }
 
-// MemoryBudget returns the byte budget (0: unlimited).
+// MemoryBudget returns the process default byte budget (0: unlimited).
 func MemoryBudget() int64 { return budget.Load() }
 
 // BudgetError reports an allocation over the memory budget.
@@ -67,37 +71,16 @@ func Bytes(dt DType, n int) int64 {
 // describes the allocation and is only called then, so that the check costs
 // nothing on the allocation path.
 func CheckBytes(bytes int64, what func() string) error {
-	if b := budget.Load(); b > 0 && bytes > b {
-		return &BudgetError{What: what(), Bytes: bytes, Budget: b}
-	}
-	return nil
+	return (*Arena)(nil).CheckBytes(bytes, what)
 }
 
 // CheckShape checks a shape's element count (NumElements) and its storage
-// against the budget, before anything is allocated.
-func CheckShape(dt DType, shape []int) (int, error) {
-	n, err := NumElements(shape)
-	if err != nil {
-		return 0, err
-	}
-	if err := CheckBytes(Bytes(dt, n), func() string { return fmt.Sprintf("tensor %v%v", dt, shape) }); err != nil {
-		return 0, err
-	}
-	return n, nil
-}
+// against the process default budget, before anything is allocated.
+func CheckShape(dt DType, shape []int) (int, error) { return (*Arena)(nil).CheckShape(dt, shape) }
 
 // Alloc is New with errors instead of panics: a bad shape or one over the
-// memory budget is refused before allocation.
-func Alloc(dt DType, shape []int) (*Tensor, error) {
-	n, err := CheckShape(dt, shape)
-	if err != nil {
-		return nil, err
-	}
-	if dt.Size() == 0 {
-		return nil, fmt.Errorf("tensor: no storage for %v", dt)
-	}
-	return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: MakeSlice(dt, n)}, nil
-}
+// process default budget is refused before allocation.
+func Alloc(dt DType, shape []int) (*Tensor, error) { return (*Arena)(nil).Alloc(dt, shape) }
 
 // FormatBytes renders a byte count with a binary unit, e.g. "1.5 GiB".
 func FormatBytes(b int64) string {

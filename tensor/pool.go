@@ -2,7 +2,6 @@ package tensor
 
 import (
 	"sync"
-	"sync/atomic"
 	"unsafe"
 
 	"github.com/vitals-health/vitals/internal/pages"
@@ -12,7 +11,7 @@ import (
 // run does not page in fresh memory for every activation (on a large CNN the
 // kernel's page faults cost about as much as an elementwise layer).
 //
-// Protocol: UsePool(p) makes MakeSlice draw float32 buffers of at least
+// Protocol: an Arena with Pool p makes its MakeSlice draw float32 buffers of at least
 // poolMin elements from p (zeroed) and record every such buffer it hands
 // out. During a batch, Put(t) returns the buffer of a value that is dead
 // and shares storage with no live value, for the rest of the batch. After
@@ -31,15 +30,10 @@ type Pool struct {
 // poolMin is the smallest buffer (elements) worth pooling.
 const poolMin = 4096
 
-var activePool atomic.Pointer[Pool]
-
 // NewPool returns a pool keeping at most limit bytes of free buffers.
 func NewPool(limit int64) *Pool {
 	return &Pool{free: map[int][][]float32{}, limit: limit, issued: map[*float32]int{}}
 }
-
-// UsePool routes MakeSlice's large float32 allocations through p (nil: plain make).
-func UsePool(p *Pool) { activePool.Store(p) }
 
 // get hands out a buffer of n elements, zeroed unless uninit (then a
 // recycled buffer keeps its old contents: only for callers that overwrite

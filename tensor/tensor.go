@@ -111,48 +111,21 @@ func (t *Tensor) Size() int {
 // Rank is len(Shape).
 func (t *Tensor) Rank() int { return len(t.Shape) }
 
-// New allocates a zero tensor. It panics on a bad dtype, on a shape that
-// NumElements rejects and, with a *BudgetError, on a tensor over the memory
-// budget (see SetMemoryBudget); probe turns such panics into errors naming
-// the node. Code outside a kernel uses Alloc.
-func New(dt DType, shape []int) *Tensor {
-	n, err := CheckShape(dt, shape)
-	if err != nil {
-		panic(err)
-	}
-	return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: MakeSlice(dt, n)}
-}
+// New allocates a zero tensor with the process default budget and no pool
+// ((*Arena)(nil).New; kernels allocate from their run's Arena instead).
+func New(dt DType, shape []int) *Tensor { return (*Arena)(nil).New(dt, shape) }
 
-// NewUninit is New for a float32 tensor whose every element the caller
-// writes before anything reads it: a buffer recycled by the active Pool is
-// handed out without clearing (its contents are stale values of an earlier
-// batch). Other dtypes and unpooled sizes come zeroed as from New.
-func NewUninit(dt DType, shape []int) *Tensor {
-	n, err := CheckShape(dt, shape)
-	if err != nil {
-		panic(err)
-	}
-	p := activePool.Load()
-	if dt != Float32 || n < poolMin || p == nil {
-		return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: MakeSlice(dt, n)}
-	}
-	if err := CheckBytes(Bytes(dt, n), func() string { return fmt.Sprintf("%d elements of %v", n, dt) }); err != nil {
-		panic(err)
-	}
-	return &Tensor{DType: dt, Shape: append([]int{}, shape...), Data: p.get(n, true)}
-}
+// NewUninit is (*Arena)(nil).NewUninit: without a pool, a zeroed tensor.
+func NewUninit(dt DType, shape []int) *Tensor { return (*Arena)(nil).NewUninit(dt, shape) }
 
 // MakeSlice allocates a zero slice of n elements of the Go type for dt. Over
-// the memory budget it panics with a *BudgetError instead of allocating.
-func MakeSlice(dt DType, n int) any {
-	if err := CheckBytes(Bytes(dt, n), func() string { return fmt.Sprintf("%d elements of %v", n, dt) }); err != nil {
-		panic(err)
-	}
+// the process default budget it panics with a *BudgetError instead of allocating.
+func MakeSlice(dt DType, n int) any { return (*Arena)(nil).MakeSlice(dt, n) }
+
+// makeSlice is make for dt's Go type.
+func makeSlice(dt DType, n int) any {
 	switch dt {
 	case Float32:
-		if p := activePool.Load(); p != nil && n >= poolMin {
-			return p.get(n, false)
-		}
 		return make([]float32, n)
 	case Float64:
 		return make([]float64, n)

@@ -1,6 +1,7 @@
 // Command hookcost measures what the per-node statistics cost: it runs a
 // model over a sample in batches with (1) a hook that does nothing and
-// (2) the statistics collector's hook (what `vitals check` runs), and prints
+// (2) check.Check, what `vitals check` runs (statistics hook, read-ahead,
+// recycling, the checks at the end), and prints
 // the best-of-N time per image of each and the overhead, the first batch (a
 // warm-up) left out. With -ops it also prints the time per operator type
 // (hook off, buffers recycled, convolutions split by kind). With -floor it
@@ -13,6 +14,7 @@
 package main
 
 import (
+	"context"
 	"flag"
 	"fmt"
 	"os"
@@ -22,6 +24,7 @@ import (
 	"sync/atomic"
 	"time"
 
+	"github.com/vitals-health/vitals/check"
 	"github.com/vitals-health/vitals/gemm"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/probe"
@@ -93,15 +96,39 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	}
 	n := len(batches) * batch
 	empty := func(*loader.Node, []*tensor.Tensor) error { return nil }
+	cm, err := check.Compile(m, check.LoadOptions{})
+	if err != nil {
+		return err
+	}
+	// the sample check.Check reads: the same n items, cut at the same size
+	sample := check.Sample{Arrays: map[string]*tensor.Tensor{m.Graph.Inputs[0].Name: tensor.From(xd[:n*item], append([]int{n}, x.Shape[1:]...)...)}, Batch: batch}
 	timeIt := func(mode int) (time.Duration, error) {
+		timed := n
+		if len(batches) > 1 {
+			timed -= batch
+		}
+		if mode == 1 {
+			// the first batch is a warm-up, untimed when there are others
+			var t0 time.Time
+			o := check.Options{Progress: func(pr check.Progress) {
+				if pr.Done == batch {
+					t0 = time.Now()
+				}
+			}}
+			start := time.Now()
+			if _, err := check.Check(context.Background(), cm, sample, o); err != nil {
+				return 0, err
+			}
+			if len(batches) == 1 {
+				t0 = start
+			}
+			return time.Since(t0) / time.Duration(timed), nil
+		}
 		best := time.Duration(1 << 62)
 		for r := 0; r < 1; r++ {
-			c := stats.NewCollector(m, p)
 			hook := probe.Hook(empty)
 			var mo *momentsOnly
 			switch mode {
-			case 1:
-				hook = c.Hook
 			case 2:
 				mo = newMomentsOnly()
 				defer mo.close()
@@ -110,13 +137,9 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			// activation buffers recycled within and from batch to batch, as
 			// vitals check does
 			pool := tensor.NewPool(1 << 30)
-			tensor.UsePool(pool)
-			defer tensor.UsePool(nil)
+			arena := &tensor.Arena{Pool: pool}
 			dead := pool.Put
-			switch mode {
-			case 1:
-				dead = c.AfterObserved(pool.Put)
-			case 2:
+			if mode == 2 {
 				dead = mo.afterRead(pool.Put)
 			}
 			// the first batch is a warm-up (the pool's buffers first-touched,
@@ -127,14 +150,8 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				if i == 1 {
 					t0 = time.Now()
 				}
-				if mode == 1 {
-					c.AddInputs(b)
-				}
-				outs, released, err := p.RunRecycled(b, hook, dead)
+				outs, released, err := p.RunRecycled(arena, b, hook, dead)
 				if err != nil {
-					return 0, err
-				}
-				if err := c.Sync(); err != nil {
 					return 0, err
 				}
 				if mo != nil {
@@ -146,14 +163,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				}
 				pool.Recycle(released, keep)
 			}
-			if err := c.Wait(); err != nil {
-				return 0, err
-			}
 			best = min(best, time.Since(t0))
-		}
-		timed := n
-		if len(batches) > 1 {
-			timed -= batch
 		}
 		return best / time.Duration(timed), nil
 	}
@@ -220,13 +230,12 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		// buffers recycled as in the timed runs (the hook reads nothing after
 		// it returns); the first round warms them
 		pool := tensor.NewPool(1 << 30)
-		tensor.UsePool(pool)
-		defer tensor.UsePool(nil)
+		arena := &tensor.Arena{Pool: pool}
 		for r := 0; r < 2; r++ {
 			clear(byOp)
 			for _, b := range batches {
 				last = time.Now()
-				outs, released, err := p.RunRecycled(b, hook, pool.Put)
+				outs, released, err := p.RunRecycled(arena, b, hook, pool.Put)
 				if err != nil {
 					return err
 				}

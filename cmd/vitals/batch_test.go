@@ -89,31 +89,6 @@ func TestFixedBatchModel(t *testing.T) {
 	}
 }
 
-// Without --batch the batch size follows the node outputs per sample
-// (autoBatchBytes, measured: see its comment), within the memory budget.
-func TestChooseBatch(t *testing.T) {
-	old := tensor.SetMemoryBudget(0)
-	defer tensor.SetMemoryBudget(old)
-	for _, c := range []struct {
-		perItem int64
-		want    int
-	}{
-		{23e6, 8},  // a ResNet-18-shaped CNN at 224×224
-		{52e6, 3},  // a MobileNetV2-shaped CNN
-		{40e3, 32}, // an MLP: capped at autoBatchMax
-		{2e9, 1},   // more than autoBatchBytes for one sample
-		{0, 32},
-	} {
-		if got := chooseBatch(c.perItem); got != c.want {
-			t.Errorf("chooseBatch(%d) = %d, want %d", c.perItem, got, c.want)
-		}
-	}
-	tensor.SetMemoryBudget(400 << 20) // a quarter is 100 MiB: 4 samples of 23 MB
-	if got := chooseBatch(23e6); got != 4 {
-		t.Errorf("within a 400 MiB budget: chooseBatch(23e6) = %d, want 4", got)
-	}
-}
-
 // A model whose input has no sample axis ([3, 4, 4], as detection models
 // exported for one image take it) runs one sample a run with the axis
 // dropped: all 5 samples are seen, the input statistics keep their channel
@@ -190,4 +165,32 @@ func rampNpy(t *testing.T, path string, period, div int, shape ...int) string {
 		t.Fatal(err)
 	}
 	return path
+}
+
+// --fixed and --carry reach the run: a streaming model
+// (state' = 0.5·state + x, state [1, batch, 4]) over 6 frames of a natural
+// [N, 4] file, with its state carried from frame to frame and a scalar gain
+// fixed, reports every frame; leaving the state out names both flags.
+func TestFixedAndCarryFlags(t *testing.T) {
+	dir := t.TempDir()
+	b := modelbuild.New("stream", 13)
+	b.InputOf("x", 1, []int{-1, 4}, map[int]string{0: "batch"})
+	b.InputOf("gain", 1, []int{}, nil)
+	b.InputOf("state", 1, []int{1, -1, 4}, map[int]string{1: "batch"})
+	b.Node("Mul", "decay", []string{"state", "gain"}, []string{"sa"})
+	b.Node("Add", "add", []string{"sa", "x"}, []string{"state_out"})
+	b.Output("state_out")
+	model := filepath.Join(dir, "stream.onnx")
+	if err := b.Write(model); err != nil {
+		t.Fatal(err)
+	}
+	frames := rampNpy(t, filepath.Join(dir, "frames.npy"), 9, 2, 6, 4)
+	code, out, stderr := runCLI(t, "check", model, "--data", frames, "--fixed", "gain=0.5", "--carry", "state_out=state", "--format", "json")
+	if code > 1 || !strings.Contains(out, `"samples": 6`) {
+		t.Errorf("exit %d, stderr %q", code, stderr)
+	}
+	code, _, stderr = runCLI(t, "check", model, "--data", "x="+frames, "--fixed", "gain=0.5")
+	if code != 2 || !strings.Contains(stderr, "--data state=FILE") || !strings.Contains(stderr, "--fixed state=FILE|VALUE|zeros") {
+		t.Errorf("state left out: exit %d, stderr %q", code, stderr)
+	}
 }

@@ -1,17 +1,13 @@
 package main
 
 import (
-	"fmt"
 	"io"
-	"math"
 
-	"github.com/vitals-health/vitals/report"
-	"github.com/vitals-health/vitals/stats"
-	"github.com/vitals-health/vitals/tensor"
+	"github.com/vitals-health/vitals/check"
 )
 
 // cmdCompare runs OLD and NEW on the same batches in the same order and diffs
-// their statistics into NEW's report (one report model, not a second pipeline).
+// their statistics into NEW's report (check.Compare).
 func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 	c, o, th, help, err := parseCommand("compare", "vitals compare OLD.onnx NEW.onnx --data PATH [flags]", 2, args, stderr)
 	if help {
@@ -20,139 +16,21 @@ func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 	if err != nil {
 		return 2, err
 	}
-	watchSignals()
-	oldM, err := loadAndCompile(c.fs.Arg(0), c.debug)
+	ctx, stop := signalContext()
+	defer stop()
+	m, err := loadModels(c, c.fs.Arg(0), c.fs.Arg(1))
 	if err != nil {
 		return 2, err
 	}
-	newM, err := loadAndCompile(c.fs.Arg(1), c.debug)
+	pg := newProgress(stderr)
+	r, err := check.Compare(ctx, m[0], m[1], o, c.options(th, pg))
+	pg.finish()
 	if err != nil {
 		return 2, err
 	}
-	// OLD first: its outputs per batch are kept only as long as needed for agreement
-	oldFeed, err := openFeed(oldM.model.Graph, o)
-	if err != nil {
-		return 2, err
-	}
-	defer oldFeed.Close()
-	var oldOuts []*tensor.Tensor
-	oldName := firstOutput(oldM)
-	oldCol, err := analyse(oldM, oldFeed, th, func(outs map[string]*tensor.Tensor, k int) error {
-		oldOuts = append(oldOuts, outs[oldName])
-		return nil
-	})
-	if err != nil {
-		return 2, err
-	}
-	newFeed, err := openFeed(newM.model.Graph, o)
-	if err != nil {
-		return 2, err
-	}
-	defer newFeed.Close()
-	// NEW's batches must be OLD's for the outputs to agree batch by batch
-	newFeed.replay, newFeed.auto = oldFeed.sizes, false
-	ag := &agreeAcc{}
-	newName := firstOutput(newM)
-	batchIdx := 0
-	newCol, err := analyse(newM, newFeed, th, func(outs map[string]*tensor.Tensor, k int) error {
-		if batchIdx < len(oldOuts) {
-			ag.add(oldOuts[batchIdx], outs[newName])
-			oldOuts[batchIdx] = nil
-		}
-		batchIdx++
-		return nil
-	})
-	if err != nil {
-		return 2, err
-	}
-	fmt.Fprint(stderr, oldFeed.note()+newFeed.note())
-	stats.Compare(oldCol, newCol, oldCol.Graph, newCol.Graph, ag.result(newName))
-	r := newCol.Report
 	r.Version = version
-	annotateInputs(r, c.data)
 	if err := emit(r, c, stdout); err != nil {
 		return 2, err
 	}
 	return exitCode(r, c.failOn), nil
-}
-
-func firstOutput(l *loaded) string {
-	if len(l.model.Graph.Outputs) == 0 {
-		return ""
-	}
-	return l.model.Graph.Outputs[0].Name
-}
-
-// agreeAcc compares the two checkpoints' outputs row by row: top-1 agreement,
-// mean KL(old‖new) when both rows are probability distributions, and max |Δ|.
-type agreeAcc struct {
-	rows, same, distRows int
-	kl, maxAbs           float64
-	comparable           bool
-}
-
-func (a *agreeAcc) add(o, n *tensor.Tensor) {
-	if o == nil || n == nil || !tensor.SameShape(o.Shape, n.Shape) || o.DType != tensor.Float32 || n.DType != tensor.Float32 || o.Rank() == 0 {
-		return
-	}
-	a.comparable = true
-	x, y := o.F32(), n.F32()
-	for i := range x {
-		a.maxAbs = math.Max(a.maxAbs, math.Abs(float64(x[i])-float64(y[i])))
-	}
-	C := o.Shape[o.Rank()-1]
-	if C < 2 {
-		return
-	}
-	for r := 0; r+C <= len(x); r += C {
-		xr, yr := x[r:r+C], y[r:r+C]
-		a.rows++
-		if argmax(xr) == argmax(yr) {
-			a.same++
-		}
-		if isDist(xr) && isDist(yr) {
-			a.distRows++
-			for i := range xr {
-				p, q := float64(xr[i]), math.Max(float64(yr[i]), 1e-12)
-				if p > 0 {
-					a.kl += p * math.Log(p/q)
-				}
-			}
-		}
-	}
-}
-
-func argmax(x []float32) int {
-	b := 0
-	for i, v := range x {
-		if v > x[b] {
-			b = i
-		}
-	}
-	return b
-}
-
-func isDist(x []float32) bool {
-	s := 0.0
-	for _, v := range x {
-		if v < 0 {
-			return false
-		}
-		s += float64(v)
-	}
-	return math.Abs(s-1) < 1e-3
-}
-
-func (a *agreeAcc) result(name string) *report.Agreement {
-	if !a.comparable {
-		return nil
-	}
-	ag := &report.Agreement{Output: name, MaxAbsDiff: report.Num(a.maxAbs), Samples: a.rows}
-	if a.rows > 0 {
-		ag.Top1 = report.Num(float64(a.same) / float64(a.rows))
-	}
-	if a.distRows == a.rows && a.rows > 0 {
-		ag.MeanKL = report.Num(a.kl / float64(a.distRows))
-	}
-	return ag
 }

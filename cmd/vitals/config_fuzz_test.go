@@ -6,6 +6,8 @@ import (
 	"sort"
 	"strings"
 	"testing"
+
+	"github.com/vitals-health/vitals/check"
 )
 
 // FuzzParseThresholds: the --config parser never panics, accepts only
@@ -72,7 +74,7 @@ func TestParseBytes(t *testing.T) {
 			t.Errorf("parseBytes(%q) = %d, want an error", s, got)
 		}
 	}
-	if b := defaultBudget(); b < 64<<20 {
+	if b := check.DefaultMemoryBudget(); b < 64<<20 {
 		t.Errorf("default budget %d bytes", b)
 	}
 }

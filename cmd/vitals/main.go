@@ -10,16 +10,20 @@
 package main
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"runtime/debug"
 	"runtime/pprof"
+	"strconv"
 	"strings"
 
 	flag "github.com/spf13/pflag"
 
+	"github.com/vitals-health/vitals/check"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
 )
@@ -100,7 +104,7 @@ func run(args []string, stdout, stderr io.Writer) (code int) {
 		return 2
 	}
 	if err != nil {
-		if errors.Is(err, errInterrupted) {
+		if errors.Is(err, context.Canceled) {
 			fmt.Fprintln(stderr, "vitals: interrupted; no report written")
 			return 130
 		}
@@ -117,6 +121,8 @@ func run(args []string, stdout, stderr io.Writer) (code int) {
 type common struct {
 	fs      *flag.FlagSet
 	data    []string
+	fixed   []string
+	carry   []string
 	labels  string
 	samples int
 	batch   int
@@ -131,13 +137,23 @@ type common struct {
 	seed    int64
 	debug   bool
 	maxMem  string
+	budget  int64 // --max-memory in bytes, after validate
 }
+
+// inputErr marks errors caused by the user's files or flags (exit code 2).
+type inputErr struct{ error }
+
+func (e inputErr) Unwrap() error { return e.error }
+
+func userErr(format string, args ...any) error { return inputErr{fmt.Errorf(format, args...)} }
 
 func newCommon(name string, stderr io.Writer) *common {
 	c := &common{fs: flag.NewFlagSet(name, flag.ContinueOnError)}
 	fs := c.fs
 	fs.SetOutput(stderr)
 	fs.StringArrayVar(&c.data, "data", nil, "sample: a .npy/.npz/.pb/.csv file or a folder of images; INPUT=PATH per input for several inputs (repeatable)")
+	fs.StringArrayVar(&c.fixed, "fixed", nil, "an input that does not vary per sample, the same in every batch: NAME=FILE (.npy/.pb), NAME=VALUE or NAME=zeros; repeated along the model's batch axis (repeatable)")
+	fs.StringArrayVar(&c.carry, "carry", nil, "OUT=IN: output OUT of each sample is input IN of the next, in file order (streaming state; runs one sample a batch; repeatable)")
 	fs.StringVar(&c.labels, "labels", "", "integer class ids (.npy), one per sample: adds accuracy and cross-entropy")
 	fs.IntVar(&c.samples, "samples", 0, "use at most N samples (0: all; 64 for synthetic input)")
 	fs.IntVar(&c.batch, "batch", 0, "samples per batch (default: the model's fixed batch size, or chosen from the size of its activations after one sample, 1 to 32)")
@@ -155,26 +171,58 @@ func newCommon(name string, stderr io.Writer) *common {
 	return c
 }
 
-func (c *common) dataOptions() (dataOptions, error) {
-	o := dataOptions{data: c.data, labels: c.labels, samples: c.samples, batch: c.batch, layout: strings.ToLower(c.layout), seed: c.seed}
+// sample is the sample the flags describe.
+func (c *common) sample() (check.Sample, error) {
+	o := check.Sample{Data: c.data, Fixed: c.fixed, Carry: c.carry, Labels: c.labels, Samples: c.samples, Batch: c.batch, Layout: strings.ToLower(c.layout), Seed: c.seed}
 	var err error
-	if o.mean, err = parseFloats(c.mean); err != nil {
+	if o.Mean, err = parseFloats(c.mean); err != nil {
 		return o, userErr("--mean: %v", err)
 	}
-	if o.std, err = parseFloats(c.std); err != nil {
+	if o.Std, err = parseFloats(c.std); err != nil {
 		return o, userErr("--std: %v", err)
 	}
-	if o.layout != "nchw" && o.layout != "nhwc" {
+	if o.Layout != "nchw" && o.Layout != "nhwc" {
 		return o, userErr("--layout must be nchw or nhwc, got %q", c.layout)
 	}
 	if c.samples < 0 {
 		return o, userErr("--samples must be ≥ 0")
 	}
+	if c.batch < 0 {
+		return o, userErr("--batch must be positive, got %d", c.batch)
+	}
 	return o, nil
 }
 
+// parseFloats parses "0.485,0.456,0.406".
+func parseFloats(s string) ([]float64, error) {
+	if s == "" {
+		return nil, nil
+	}
+	var out []float64
+	for _, p := range strings.Split(s, ",") {
+		v, err := strconv.ParseFloat(strings.TrimSpace(p), 64)
+		if err != nil || math.IsNaN(v) {
+			return nil, fmt.Errorf("%q is not a number", p)
+		}
+		out = append(out, v)
+	}
+	return out, nil
+}
+
+// options are the run options the flags give: notes go to stderr after the
+// progress line pg shows there.
+func (c *common) options(th map[string]float64, pg *progress) check.Options {
+	return check.Options{
+		Thresholds:   th,
+		MemoryBudget: c.budget,
+		Progress:     pg.update,
+		Note:         func(n string) { pg.finish(); fmt.Fprintf(pg.w, "vitals: %s\n", n) },
+	}
+}
+
 func (c *common) validate() error {
-	if err := applyMemoryBudget(c.maxMem); err != nil {
+	var err error
+	if c.budget, err = memoryBudget(c.maxMem); err != nil {
 		return err
 	}
 	if _, ok := writers[c.format]; !ok {
@@ -210,7 +258,7 @@ func exitCode(r *report.Report, failOn string) int {
 
 // parseCommand parses a subcommand's flags and arguments (nArgs model files),
 // validates them and reads --config; help is true after --help.
-func parseCommand(name, usage string, nArgs int, args []string, stderr io.Writer) (c *common, o dataOptions, th map[string]float64, help bool, err error) {
+func parseCommand(name, usage string, nArgs int, args []string, stderr io.Writer) (c *common, o check.Sample, th map[string]float64, help bool, err error) {
 	c = newCommon(name, stderr)
 	c.fs.Usage = func() {
 		fmt.Fprintln(stderr, "Usage: "+usage)
@@ -229,11 +277,17 @@ func parseCommand(name, usage string, nArgs int, args []string, stderr io.Writer
 	if err = c.validate(); err != nil {
 		return c, o, nil, false, err
 	}
-	if o, err = c.dataOptions(); err != nil {
+	if o, err = c.sample(); err != nil {
 		return c, o, nil, false, err
 	}
-	th, err = loadThresholds(c.config)
-	return c, o, th, false, err
+	if th, err = loadThresholds(c.config); err != nil {
+		return c, o, nil, false, err
+	}
+	// unknown threshold names are refused here, before any model is loaded
+	if err = (&check.Options{Thresholds: th}).Validate(); err != nil {
+		return c, o, nil, false, userErr("--config %q: %v", c.config, err)
+	}
+	return c, o, th, false, nil
 }
 
 func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
@@ -244,40 +298,38 @@ func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
 	if err != nil {
 		return 2, err
 	}
-	watchSignals()
-	l, err := loadAndCompile(c.fs.Arg(0), c.debug)
+	ctx, stop := signalContext()
+	defer stop()
+	m, err := loadModels(c, c.fs.Arg(0))
 	if err != nil {
 		return 2, err
 	}
-	feed, err := openFeed(l.model.Graph, o)
+	pg := newProgress(stderr)
+	r, err := check.Check(ctx, m[0], o, c.options(th, pg))
+	pg.finish()
 	if err != nil {
 		return 2, err
 	}
-	defer feed.Close()
-	col, err := analyse(l, feed, th, nil)
-	if err != nil {
-		return 2, err
-	}
-	fmt.Fprint(stderr, feed.note())
-	r := col.Report
 	r.Version = version
-	annotateInputs(r, c.data)
 	if err := emit(r, c, stdout); err != nil {
 		return 2, err
 	}
 	return exitCode(r, c.failOn), nil
 }
 
-// annotateInputs records which file fed each input.
-func annotateInputs(r *report.Report, data []string) {
-	for i := range r.Input.PerInput {
-		for _, spec := range data {
-			name, path, named := strings.Cut(spec, "=")
-			if !named {
-				r.Input.PerInput[i].Path = spec
-			} else if name == r.Input.PerInput[i].Name {
-				r.Input.PerInput[i].Path = path
-			}
+// loadModels loads and compiles the models the command names and sizes the
+// garbage collector to their weights (tuneGC).
+func loadModels(c *common, paths ...string) ([]*check.Model, error) {
+	var ms []*check.Model
+	var weights int64
+	for _, p := range paths {
+		m, err := check.Load(p, check.LoadOptions{MemoryBudget: c.budget, Debug: c.debug})
+		if err != nil {
+			return nil, inputErr{err}
 		}
+		ms = append(ms, m)
+		weights += m.WeightBytes()
 	}
+	tuneGC(weights)
+	return ms, nil
 }

@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bufio"
 	"fmt"
 	"math"
 	"os"
@@ -9,33 +8,8 @@ import (
 	"strconv"
 	"strings"
 
-	"github.com/vitals-health/vitals/loader"
-	"github.com/vitals-health/vitals/tensor"
+	"github.com/vitals-health/vitals/check"
 )
-
-// fallbackBudget is the memory budget when /proc/meminfo cannot be read.
-const fallbackBudget = 8 << 30
-
-// defaultBudget is half the physical memory (MemTotal in /proc/meminfo), or 8 GiB.
-func defaultBudget() int64 {
-	f, err := os.Open("/proc/meminfo")
-	if err != nil {
-		return fallbackBudget
-	}
-	defer f.Close()
-	sc := bufio.NewScanner(f)
-	for sc.Scan() {
-		fields := strings.Fields(sc.Text())
-		if len(fields) >= 2 && fields[0] == "MemTotal:" {
-			kb, err := strconv.ParseInt(fields[1], 10, 64)
-			if err != nil || kb <= 0 {
-				break
-			}
-			return kb * 1024 / 2
-		}
-	}
-	return fallbackBudget
-}
 
 // parseBytes reads a byte count: a number with an optional binary unit K, M,
 // G or T (also KB/KiB, ..., case-insensitive), e.g. 512M, 8G, 1.5GiB, 1000000.
@@ -74,52 +48,31 @@ func parseBytes(s string) (int64, error) {
 	return int64(b), nil
 }
 
-// applyMemoryBudget sets the process-wide budget from --max-memory ("" = default).
-func applyMemoryBudget(flagValue string) error {
-	b := defaultBudget()
-	if flagValue != "" {
-		var err error
-		if b, err = parseBytes(flagValue); err != nil {
-			return userErr("--max-memory: %v", err)
-		}
+// memoryBudget is the budget --max-memory gives ("": check.DefaultMemoryBudget).
+func memoryBudget(flagValue string) (int64, error) {
+	if flagValue == "" {
+		return check.DefaultMemoryBudget(), nil
 	}
-	tensor.SetMemoryBudget(b)
-	return nil
+	b, err := parseBytes(flagValue)
+	if err != nil {
+		return 0, userErr("--max-memory: %v", err)
+	}
+	return b, nil
 }
-
-// loadedWeights sums the initializer bytes of every model loaded so far.
-var loadedWeights int64
 
 // tuneGC keeps the peak heap near the weights plus one batch's working set.
 // The weights of a large model stay alive for the whole run, and Go's default
 // collector (GOGC=100) lets garbage grow as large as everything alive before
 // it collects, so a 400 MB model could peak near 800 MB plus activations.
 // Weights hold no pointers, which makes collections cheap however large they
-// are, so with more than 128 MiB of weights the collector runs once garbage
-// reaches 128 MiB (as a share of the live heap, at least 25%).
-func tuneGC(m *loader.Model) {
-	var w int64
-	var walk func(g *loader.Graph)
-	walk = func(g *loader.Graph) {
-		for _, t := range g.Initializers {
-			w += tensor.Bytes(t.DType, t.Size())
-		}
-		for _, n := range g.Nodes {
-			for _, a := range n.Attrs {
-				if a.G != nil {
-					walk(a.G)
-				}
-				for _, sg := range a.Graphs {
-					walk(sg)
-				}
-			}
-		}
-	}
-	walk(m.Graph)
-	loadedWeights += w
+// are, so with more than 128 MiB of weights (the sum over the models the
+// command loaded) the collector runs once garbage reaches 128 MiB (as a
+// share of the live heap, at least 25%). The collector's target is the
+// process's, so the command, not the library, decides it.
+func tuneGC(weights int64) {
 	const allowance = 128 << 20
-	if loadedWeights <= allowance || os.Getenv("GOGC") != "" {
+	if weights <= allowance || os.Getenv("GOGC") != "" {
 		return // small models, or the user chose
 	}
-	debug.SetGCPercent(max(25, int(100*allowance/loadedWeights)))
+	debug.SetGCPercent(max(25, int(100*allowance/weights)))
 }

@@ -52,6 +52,13 @@ func (b *Builder) Input(name string, shape []int, batchDim bool) {
 	b.g.Input = append(b.g.Input, valueInfo(name, 1, shape, sym))
 }
 
+// InputOf declares a graph input of ONNX element type elem (1 float32,
+// 7 int64, ...) whose dimensions in symbolic are named (e.g. {1: "batch"}
+// for [2, batch, 128]); the other dimensions are shape's.
+func (b *Builder) InputOf(name string, elem int32, shape []int, symbolic map[int]string) {
+	b.g.Input = append(b.g.Input, valueInfo(name, elem, shape, symbolic))
+}
+
 // Output declares a float32 graph output of unknown shape.
 func (b *Builder) Output(name string) {
 	b.g.Output = append(b.g.Output, &onnxpb.ValueInfoProto{Name: proto.String(name), Type: &onnxpb.TypeProto{Value: &onnxpb.TypeProto_TensorType{
