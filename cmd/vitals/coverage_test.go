@@ -134,3 +134,24 @@ func TestCheckListsBranchNeverTaken(t *testing.T) {
 		t.Errorf("text report:\n%s", text)
 	}
 }
+
+// TestIfRateFixedScalar runs the sample-rate model as a user would: the
+// per-sample waveform from a file and the scalar rate with --fixed. The then
+// branch (taken for 16000, see testdata/gen/controlflow_models.py) is
+// reported layer by layer and the else branch is listed as never taken.
+func TestIfRateFixedScalar(t *testing.T) {
+	code, out, errOut := runCLI(t, "check", "../../testdata/controlflow/if_rate.onnx",
+		"--data", "input=../../testdata/controlflow/if_rate.input.npy", "--fixed", "sr=16000")
+	if code != 0 && code != 1 {
+		t.Fatalf("exit %d: %s", code, errOut)
+	}
+	for _, want := range []string{"/If/then/k16/conv1/Conv", "/If/then/k16/act/Tanh",
+		"else_branch of /If never taken on this sample", "Coverage: 9 of 15 nodes observed"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("report lacks %q:\n%s", want, out)
+		}
+	}
+	if strings.Contains(out, "/If/else/k8/conv1/Conv  ") {
+		t.Errorf("else-branch layer reported as observed:\n%s", out)
+	}
+}
