@@ -64,7 +64,7 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 	}
 	note(o, oldFeed, newFeed)
 	stats.Compare(oldCol, newCol, oldCol.Graph, newCol.Graph, ag.result(newName))
-	annotateInputs(newCol.Report, sample.Data)
+	annotateInputs(newCol.Report, newFeed)
 	return newCol.Report, nil
 }
 

@@ -6,7 +6,7 @@
 // kernels (probe). Check matches Sample.Data to the model's inputs,
 // checking dtypes and shapes before anything runs, and cuts the sample into
 // batches (Sample.Batch, the batch size the model fixes, or one sample
-// first and then as many as fit autoBatchBytes of node outputs). A reader
+// first and then as many as fit 192 MiB of node outputs, at most 32). A reader
 // goroutine decodes the next batch while the current one runs; the plan
 // calls a hook after every node, which hands the node's outputs to the
 // statistics collector (stats): moments, histograms, dead and saturated

@@ -28,7 +28,9 @@ type sampleFeed struct {
 	// the first value of a carried input); moved maps a per-sample input
 	// whose batch axis is not the first to that axis; carry pairs an output
 	// with the input it feeds in the next batch.
-	consts    map[string]*constInput
+	consts map[string]*constInput
+	// paths are the files that fed each input (Data, or a Fixed file)
+	paths     map[string]string
 	moved     map[string]int
 	carry     [][2]string
 	labels    []int64
@@ -55,7 +57,7 @@ type sampleFeed struct {
 
 // openFeed matches --data to the model's inputs, checking shapes and dtypes up front.
 func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) {
-	f := &sampleFeed{sources: map[string]loader.Source{}, total: -1, consts: map[string]*constInput{}, moved: map[string]int{}}
+	f := &sampleFeed{sources: map[string]loader.Source{}, total: -1, consts: map[string]*constInput{}, moved: map[string]int{}, paths: map[string]string{}}
 	if len(g.Inputs) == 0 {
 		return nil, fmt.Errorf("the model has no inputs to feed")
 	}
@@ -86,6 +88,9 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 			return nil, err
 		}
 		f.consts[name] = c
+		if c.value != nil {
+			f.paths[name] = c.spec
+		}
 	}
 	for _, in := range g.Inputs {
 		if a := batchAxis(in, sym); a > 0 && perSample(in.Name) && in.Symbols[0] != sym {
@@ -149,6 +154,7 @@ func openFeed(g *loader.Graph, o Sample, ar *tensor.Arena) (*sampleFeed, error) 
 					return fail(fmt.Errorf("input %q is given twice in --data", k))
 				}
 				f.sources[k] = s
+				f.paths[k] = path
 			}
 		}
 		for name, s := range f.sources {

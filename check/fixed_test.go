@@ -136,6 +136,16 @@ func TestFixedScalarAndStateInputs(t *testing.T) {
 			t.Errorf("%s: %d samples, want %d", c.what, r.Input.Samples, N)
 		}
 		wantStats(t, c.what, layer(t, r, "relu"), want(c.value))
+		// the unnamed --data file fed x alone; a fixed file is named too
+		for _, in := range r.Input.PerInput {
+			wantPath := map[string]string{"x": xf, "sr": "", "state": c.state}[in.Name]
+			if wantPath == "zeros" {
+				wantPath = ""
+			}
+			if in.Path != wantPath {
+				t.Errorf("%s: input %q from %q, want %q", c.what, in.Name, in.Path, wantPath)
+			}
+		}
 	}
 }
 

@@ -10,8 +10,10 @@ import (
 
 // Model is a loaded and compiled ONNX model, ready to be checked.
 //
-// A Model is read-only during a run; runs side by side should each Load
-// their own (the race test does), runs one after another may share one.
+// A Model is read-only while it runs (kernels keep no state in the plan;
+// each run has its own collector and arena), so runs side by side or one
+// after another may share one: TestConcurrentRunsMatchSolo shares each model
+// between two concurrent runs under the race detector.
 type Model struct {
 	model *loader.Model
 	plan  *probe.Plan

@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"strings"
 	"time"
 
 	"github.com/vitals-health/vitals/loader"
@@ -34,7 +33,7 @@ func Check(ctx context.Context, model *Model, sample Sample, o Options) (*report
 		return nil, err
 	}
 	note(o, feed)
-	annotateInputs(col.Report, sample.Data)
+	annotateInputs(col.Report, feed)
 	return col.Report, nil
 }
 
@@ -50,15 +49,10 @@ func note(o Options, feeds ...*sampleFeed) {
 }
 
 // annotateInputs records which file fed each input.
-func annotateInputs(r *report.Report, data []string) {
+func annotateInputs(r *report.Report, f *sampleFeed) {
 	for i := range r.Input.PerInput {
-		for _, spec := range data {
-			name, path, named := strings.Cut(spec, "=")
-			if !named {
-				r.Input.PerInput[i].Path = spec
-			} else if name == r.Input.PerInput[i].Name {
-				r.Input.PerInput[i].Path = path
-			}
+		if p, ok := f.paths[r.Input.PerInput[i].Name]; ok {
+			r.Input.PerInput[i].Path = p
 		}
 	}
 }

@@ -40,9 +40,9 @@ func jsonOf(t *testing.T, r *report.Report) string {
 	return b.String()
 }
 
-// Two different checks side by side in one process (run under -race in CI)
-// each give exactly their solo report: a run's buffer pool, memory budget
-// and progress belong to it. A third run at the same time, with a budget too
+// Two different checks side by side in one process (run under -race in CI),
+// each twice on one shared Model, each give exactly their solo report: a
+// run's buffer pool, memory budget and progress belong to it. A third run at the same time, with a budget too
 // small for its first hidden layer, fails naming that node while the others,
 // without a budget, are unaffected.
 func TestConcurrentRunsMatchSolo(t *testing.T) {
@@ -66,8 +66,15 @@ func TestConcurrentRunsMatchSolo(t *testing.T) {
 	progress := make([]int, len(jobs))
 	var budgetErr error
 	var wg sync.WaitGroup
+	// one Model per file, shared by the two runs of it
+	models := map[string]*check.Model{}
+	for _, j := range jobs {
+		if models[j.model] == nil {
+			models[j.model] = load(t, j.model)
+		}
+	}
 	for i, j := range jobs {
-		m := load(t, j.model)
+		m := models[j.model]
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
