@@ -49,6 +49,34 @@ type InputStat struct {
 	ChannelAxis *int      `json:"channel_axis,omitempty"`
 	ChannelMean []float64 `json:"channel_mean,omitempty"`
 	ChannelStd  []float64 `json:"channel_std,omitempty"`
+	// ClippedFraction, LevelsUsedFraction and Quantization are set when a
+	// quantizing node reads this input (see Layer).
+	ClippedFraction    *float64      `json:"clipped_fraction,omitempty"`
+	LevelsUsedFraction *float64      `json:"levels_used_fraction,omitempty"`
+	Quantization       *Quantization `json:"quantization,omitempty"`
+}
+
+// Quantization describes how a float tensor is quantized by the node that
+// reads it (QuantizeLinear or DynamicQuantizeLinear) and how its values fit
+// the integer grid over the whole sample. A value v maps to
+// q = saturate(round_half_even(v/scale) + zero_point).
+type Quantization struct {
+	Node string `json:"node"` // the quantizing node
+	Op   string `json:"op"`
+	Type string `json:"type"` // the integer type, e.g. "uint8"
+	// Granularity is "tensor", "axis" (one scale per index of Axis), "block"
+	// (one per BlockSize elements along Axis) or "dynamic" (computed from
+	// each batch's range by DynamicQuantizeLinear, so nothing clips).
+	Granularity string    `json:"granularity"`
+	Axis        *int      `json:"axis,omitempty"`
+	BlockSize   int       `json:"block_size,omitempty"`
+	Scale       []float64 `json:"scale,omitempty"`
+	ZeroPoint   []float64 `json:"zero_point,omitempty"`
+	// Clipped counts values with round(v/scale)+zero_point outside the type's range, of Count.
+	Clipped int64 `json:"clipped"`
+	Count   int64 `json:"count"`
+	// Levels is the number of integer levels of the type (256 for 8 bits); 0 when not counted (32-bit types).
+	Levels int `json:"levels"`
 }
 
 // Layer is the statistics of one node output over the whole sample.
@@ -80,6 +108,14 @@ type Layer struct {
 	Activation string `json:"activation,omitempty"`
 	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
 	Note string `json:"note,omitempty"`
+	// ClippedFraction is the share of this output's values that the node
+	// quantizing it clips (outside the integer range), over the whole sample;
+	// LevelsUsedFraction the share of integer levels the quantized values
+	// take (the mean over scales for per-axis quantization). Both nil unless a
+	// quantizing node reads this output.
+	ClippedFraction    *float64      `json:"clipped_fraction,omitempty"`
+	LevelsUsedFraction *float64      `json:"levels_used_fraction,omitempty"`
+	Quantization       *Quantization `json:"quantization,omitempty"`
 }
 
 // Histogram has len(Counts) == len(Edges)-1 bins over [Edges[0], Edges[last]];

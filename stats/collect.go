@@ -201,6 +201,8 @@ type Collector struct {
 	// the worker passed them (AfterObserved).
 	sent, handled atomic.Int64
 	dead          tensor.Deferred
+	// quant accumulates clipping and levels used of quantized tensors (quant.go); nil without quantizers.
+	quant *quantSet
 }
 
 // AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
@@ -369,6 +371,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			c.byOut[o] = la
 		}
 	}
+	c.quant = newQuantSet(g, p)
 	for _, in := range g.Inputs {
 		c.inputs[in.Name] = &layerAcc{output: in.Name, mom: NewMoments()}
 		c.inputOrder = append(c.inputOrder, in.Name)
@@ -453,6 +456,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 		if t == nil || i >= len(n.Outputs) {
 			continue
 		}
+		c.quant.observe(n.Outputs[i], t)
 		la := c.byOut[n.Outputs[i]]
 		if la == nil {
 			continue
@@ -467,6 +471,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 // AddInputs records the moments of one batch of model inputs (call before Run).
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
 	for name, t := range batch {
+		c.quant.observe(name, t)
 		if la := c.inputs[name]; la != nil {
 			c.queue(obsJob{la: la, t: t, isInput: true})
 		}

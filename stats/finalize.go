@@ -87,6 +87,7 @@ func (c *Collector) Finish(source string) *Collected {
 				is.ChannelStd = append(is.ChannelStd, m.Std())
 			}
 		}
+		is.ClippedFraction, is.LevelsUsedFraction, is.Quantization = c.quant.quantFor(name)
 		r.Input.PerInput = append(r.Input.PerInput, is)
 	}
 	col := &Collected{Report: r}
@@ -126,6 +127,7 @@ func (c *Collector) Finish(source string) *Collected {
 				l.SaturatedFraction = report.Num(float64(la.sat) / float64(la.satN))
 			}
 		}
+		l.ClippedFraction, l.LevelsUsedFraction, l.Quantization = c.quant.quantFor(la.output)
 		layerIdx[la] = len(r.Layers)
 		r.Layers = append(r.Layers, l)
 		col.LayerKind = append(col.LayerKind, la.act.kind)

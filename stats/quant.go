@@ -1,0 +1,233 @@
+package stats
+
+import (
+	"math"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// Quantization health: for every float tensor read by a quantizing node
+// (QuantizeLinear in the ONNX or com.microsoft domain, DynamicQuantizeLinear),
+// over the whole sample,
+//
+//	clipped share  = #{v : round_half_even(v/scale) + zero_point ∉ [lo, hi]} / #values
+//	levels used    = #{distinct saturated integers} / (hi − lo + 1)
+//
+// where [lo, hi] is the integer type's range; with one scale per axis index
+// or block, the levels used are counted per scale and averaged. A dynamic
+// quantizer takes its range from each batch, so it clips nothing; its levels
+// are read from its integer output. The division v/scale is in float32, as
+// the quantizer computes it.
+
+// levelSetsMax bounds the integer-level bitmaps kept per quantizer (sets × levels).
+const levelSetsMax = 1 << 24
+
+type quantAcc struct {
+	node    *loader.Node
+	input   string // the float tensor quantized
+	dynamic bool
+	dt      tensor.DType
+	lo, hi  float64
+	scale   []float64
+	zp      []float64
+	pshape  []int // shape of the scale tensor
+	axis    int
+	block   int
+	clipped int64
+	count   int64
+	used    [][]bool // per scale index (nil: not counted)
+}
+
+// quantSet holds the accumulators of a model's quantizers.
+type quantSet struct {
+	byInput map[string][]*quantAcc // float tensor → static quantizers reading it
+	byOut   map[string]*quantAcc   // integer output of a dynamic quantizer → its accumulator
+	all     []*quantAcc
+}
+
+func isQuantizer(n *loader.Node) bool {
+	return n.OpType == "QuantizeLinear" && (n.Domain == "" || n.Domain == "ai.onnx" || n.Domain == "com.microsoft") ||
+		n.OpType == "DynamicQuantizeLinear" && (n.Domain == "" || n.Domain == "ai.onnx")
+}
+
+// newQuantSet finds the quantizers of a plan whose parameters are known
+// before the run (constant scale and zero point), and the dynamic ones.
+func newQuantSet(g *loader.Graph, p *probe.Plan) *quantSet {
+	qs := &quantSet{byInput: map[string][]*quantAcc{}, byOut: map[string]*quantAcc{}}
+	for _, s := range p.Steps {
+		n := s.Node
+		if !isQuantizer(n) || len(n.Inputs) == 0 || n.Inputs[0] == "" || len(n.Outputs) == 0 {
+			continue
+		}
+		if n.OpType == "DynamicQuantizeLinear" {
+			a := &quantAcc{node: n, input: n.Inputs[0], dynamic: true, dt: tensor.Uint8, lo: 0, hi: 255}
+			a.used = [][]bool{make([]bool, 256)}
+			qs.byOut[n.Outputs[0]] = a
+			qs.all = append(qs.all, a)
+			continue
+		}
+		if len(n.Inputs) < 2 {
+			continue
+		}
+		sc, ok := constValue(g, n.Inputs[1])
+		if !ok || sc.Size() == 0 {
+			continue
+		}
+		a := &quantAcc{node: n, input: n.Inputs[0], dt: tensor.Uint8, pshape: sc.Shape, axis: 1}
+		if at := n.Attrs["output_dtype"]; at != nil && at.I != 0 {
+			a.dt = tensor.DType(at.I)
+		}
+		var zp *tensor.Tensor
+		if len(n.Inputs) > 2 && n.Inputs[2] != "" {
+			z, ok := constValue(g, n.Inputs[2])
+			if !ok {
+				continue
+			}
+			zp, a.dt = z, z.DType
+		}
+		if at := n.Attrs["axis"]; at != nil {
+			a.axis = int(at.I)
+		}
+		if at := n.Attrs["block_size"]; at != nil {
+			a.block = int(at.I)
+		}
+		lo, hi, ok := probe.QuantRange(a.dt)
+		if !ok {
+			continue
+		}
+		a.lo, a.hi = lo, hi
+		for i := 0; i < sc.Size(); i++ {
+			a.scale = append(a.scale, float64(float32(sc.Float64At(i))))
+			z := 0.0
+			if zp != nil && i < zp.Size() {
+				z = zp.Float64At(i)
+			}
+			a.zp = append(a.zp, z)
+		}
+		if levels := int(hi - lo + 1); a.dt != tensor.Int32 && levels*len(a.scale) <= levelSetsMax {
+			a.used = make([][]bool, len(a.scale))
+		}
+		qs.byInput[a.input] = append(qs.byInput[a.input], a)
+		qs.all = append(qs.all, a)
+	}
+	if len(qs.all) == 0 {
+		return nil
+	}
+	return qs
+}
+
+// observe takes one batch of a tensor: the float input of static quantizers,
+// or the integer output of a dynamic one.
+func (qs *quantSet) observe(name string, t *tensor.Tensor) {
+	if qs == nil || t == nil {
+		return
+	}
+	for _, a := range qs.byInput[name] {
+		a.observeFloat(t)
+	}
+	if a := qs.byOut[name]; a != nil && t.DType == tensor.Uint8 {
+		for _, q := range t.Data.([]uint8) {
+			a.used[0][q] = true
+		}
+		a.count += int64(t.Size())
+	}
+}
+
+func (a *quantAcc) observeFloat(t *tensor.Tensor) {
+	x, ok := t.Data.([]float32)
+	if !ok {
+		return
+	}
+	idx, err := probe.ParamIndex(t.Shape, a.pshape, a.axis, a.block)
+	if err != nil {
+		return // the kernel reports the mismatch when it runs
+	}
+	levels := int(a.hi - a.lo + 1)
+	for i, v := range x {
+		k := idx(i)
+		r := math.RoundToEven(float64(v/float32(a.scale[k]))) + a.zp[k]
+		if r < a.lo || r > a.hi {
+			a.clipped++
+		}
+		if a.used != nil && !math.IsNaN(r) {
+			if a.used[k] == nil {
+				a.used[k] = make([]bool, levels)
+			}
+			a.used[k][int(math.Max(a.lo, math.Min(a.hi, r))-a.lo)] = true
+		}
+	}
+	a.count += int64(len(x))
+}
+
+// result gives the clipped share, the share of levels used (NaN when not
+// counted) and the report's description.
+func (a *quantAcc) result() (clipped, levels float64, q *report.Quantization) {
+	q = &report.Quantization{Node: a.node.Name, Op: a.node.OpType, Type: a.dt.String(), Granularity: "tensor",
+		Scale: a.scale, ZeroPoint: a.zp, Clipped: a.clipped, Count: a.count}
+	switch {
+	case a.dynamic:
+		q.Granularity = "dynamic"
+	case a.block > 0:
+		q.Granularity, q.Axis, q.BlockSize = "block", report.IntPtr(a.axis), a.block
+	case len(a.scale) > 1:
+		q.Granularity, q.Axis = "axis", report.IntPtr(a.axis)
+	}
+	clipped, levels = math.NaN(), math.NaN()
+	if a.count > 0 && !a.dynamic {
+		clipped = float64(a.clipped) / float64(a.count)
+	}
+	if a.dynamic && a.count > 0 {
+		clipped = 0
+	}
+	if a.used != nil {
+		q.Levels = int(a.hi - a.lo + 1)
+		var sum float64
+		sets := 0
+		for _, u := range a.used {
+			if u == nil {
+				continue
+			}
+			n := 0
+			for _, b := range u {
+				if b {
+					n++
+				}
+			}
+			sum += float64(n) / float64(len(u))
+			sets++
+		}
+		if sets > 0 {
+			levels = sum / float64(sets)
+		}
+	}
+	return clipped, levels, q
+}
+
+// quantFor returns the quantization results for a tensor: when several
+// quantizers read it, the one that clips most.
+func (qs *quantSet) quantFor(name string) (clipped, levels *float64, q *report.Quantization) {
+	if qs == nil {
+		return nil, nil, nil
+	}
+	var accs []*quantAcc
+	accs = append(accs, qs.byInput[name]...)
+	for _, a := range qs.all {
+		if a.dynamic && a.input == name {
+			accs = append(accs, a)
+		}
+	}
+	worst := -1.0
+	for _, a := range accs {
+		c, l, d := a.result()
+		if d.Count == 0 {
+			continue
+		}
+		if cv := report.Val(report.Num(c)); q == nil || cv > worst {
+			worst, clipped, levels, q = cv, report.Num(c), report.Num(l), d
+		}
+	}
+	return clipped, levels, q
+}

@@ -1,0 +1,153 @@
+package stats_test
+
+import (
+	"encoding/json"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+const quantDir = "../testdata/quant"
+
+// quantReference is testdata/quant/reference.json, written by
+// testdata/gen/quant_models.py with NumPy over the whole digits sample.
+type quantReference map[string]json.RawMessage
+
+type quantModelRef struct {
+	Quant map[string]struct {
+		Scale              float64 `json:"scale"`
+		ZeroPoint          float64 `json:"zero_point"`
+		ClippedFraction    float64 `json:"clipped_fraction"`
+		LevelsUsedFraction float64 `json:"levels_used_fraction"`
+	} `json:"quant"`
+	SQNR map[string]float64 `json:"sqnr_db"`
+}
+
+func loadQuantRef(t *testing.T, model string) quantModelRef {
+	t.Helper()
+	var all quantReference
+	b, err := os.ReadFile(filepath.Join(quantDir, "reference.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, &all); err != nil {
+		t.Fatal(err)
+	}
+	var r quantModelRef
+	if err := json.Unmarshal(all[model], &r); err != nil {
+		t.Fatal(err)
+	}
+	return r
+}
+
+// runSample runs a model over the whole digits sample in batches of 64 with
+// the collector as hook; tap, when set, also sees every node output.
+func runSample(t *testing.T, path string, tap func(n *loader.Node, outs []*tensor.Tensor)) *stats.Collected {
+	t.Helper()
+	m, err := loader.LoadModel(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := probe.Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x, err := loader.ReadNpy("../testdata/ref/digits_sample_nchw.npy")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := stats.NewCollector(m, p)
+	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
+		if tap != nil {
+			tap(n, outs)
+		}
+		return c.Hook(n, outs)
+	}
+	per := x.Size() / x.Shape[0]
+	for lo := 0; lo < x.Shape[0]; lo += 64 {
+		hi := min(lo+64, x.Shape[0])
+		in := map[string]*tensor.Tensor{"input": tensor.From(append([]float32{}, x.F32()[lo*per:hi*per]...), append([]int{hi - lo}, x.Shape[1:]...)...)}
+		c.AddInputs(in)
+		outs, err := p.Run(in, hook)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := c.Sync(); err != nil {
+			t.Fatal(err)
+		}
+		c.AddOutputs(outs, nil)
+		c.Samples += hi - lo
+	}
+	col := c.Finish("file")
+	if err := stats.Run(col, stats.Checks, nil); err != nil {
+		t.Fatal(err)
+	}
+	return col
+}
+
+// The clipped share, the share of integer levels used and the quantization
+// parameters of each quantized activation agree with NumPy
+// (testdata/gen/quant_models.py: clipped = round_half_even(v/scale)+zp outside
+// [0, 255]; levels = distinct saturated values / 256, over all 512 images).
+// The bad-scale model (relu2's scale ten times too small) gets the
+// quant-range finding on relu2 at rank 1; the calibrated model gets none.
+func TestQuantHealthAgainstNumPy(t *testing.T) {
+	for _, name := range []string{"qdq", "qdq_badscale"} {
+		ref := loadQuantRef(t, name)
+		rep := runSample(t, filepath.Join(quantDir, name+".onnx"), nil).Report
+		for tensorName, want := range ref.Quant {
+			var clipped, levels *float64
+			var q *report.Quantization
+			if l := layerByOutput(rep, tensorName); l != nil {
+				clipped, levels, q = l.ClippedFraction, l.LevelsUsedFraction, l.Quantization
+			}
+			for _, in := range rep.Input.PerInput {
+				if in.Name == tensorName {
+					clipped, levels, q = in.ClippedFraction, in.LevelsUsedFraction, in.Quantization
+				}
+			}
+			if clipped == nil || levels == nil || q == nil {
+				t.Errorf("%s %s: no quantization statistics", name, tensorName)
+				continue
+			}
+			if math.Abs(*clipped-want.ClippedFraction) > 1e-12 || math.Abs(*levels-want.LevelsUsedFraction) > 1e-12 {
+				t.Errorf("%s %s: clipped %g, levels used %g; NumPy %g, %g", name, tensorName, *clipped, *levels, want.ClippedFraction, want.LevelsUsedFraction)
+			}
+			if q.Granularity != "tensor" || q.Type != "uint8" || len(q.Scale) != 1 || float32(q.Scale[0]) != float32(want.Scale) || q.ZeroPoint[0] != want.ZeroPoint {
+				t.Errorf("%s %s: parameters %+v, want uint8 per tensor scale %g zero point %g", name, tensorName, q, want.Scale, want.ZeroPoint)
+			}
+		}
+		var quantFindings []report.Finding
+		for _, f := range rep.Findings {
+			if f.Check == "quant-range" {
+				quantFindings = append(quantFindings, f)
+			}
+		}
+		switch name {
+		case "qdq":
+			if len(quantFindings) != 0 {
+				t.Errorf("calibrated model: quant-range findings %v", quantFindings)
+			}
+		case "qdq_badscale":
+			if len(quantFindings) != 1 || quantFindings[0].Node != "relu2" || quantFindings[0].Severity != report.Error || len(rep.Ranking) == 0 || rep.Ranking[0].Node != "relu2" {
+				t.Errorf("bad scale: want one quant-range error on relu2 ranked first, got %v, ranking %v", quantFindings, rep.Ranking)
+			}
+		}
+	}
+}
+
+func layerByOutput(r *report.Report, out string) *report.Layer {
+	for i := range r.Layers {
+		if r.Layers[i].Output == out {
+			return &r.Layers[i]
+		}
+	}
+	return nil
+}
