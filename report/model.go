@@ -224,6 +224,13 @@ type LayerDelta struct {
 	SaturatedNew *float64 `json:"saturated_new"`
 	// HistogramDistance is the total-variation distance between the two histograms on a common grid (0..1).
 	HistogramDistance *float64 `json:"histogram_distance"`
+	// SQNRdB is 10·log10(Σx²/Σ(x−x̂)²) over the whole sample, x OLD's tensor and
+	// x̂ NEW's (dequantized when it is an integer tensor); set when comparing a
+	// float model with a quantized or float16 one. SQNRMatch says how the
+	// layers were paired: "name" (same tensor name) or "order" (the k-th
+	// linear layer of each graph). Both omitted otherwise.
+	SQNRdB    *float64 `json:"sqnr_db,omitempty"`
+	SQNRMatch string   `json:"sqnr_match,omitempty"`
 }
 
 // WeightDelta is ‖W_new − W_old‖/‖W_old‖ for one weight tensor.

@@ -93,6 +93,7 @@ var reviewFigureCaptions = []struct{ prefix, caption string }{
 	{"weights", "Weight gain against the Xavier and He references"},
 	{"compare-histograms-", "OLD vs NEW histograms of the layers that changed most"},
 	{"compare-depth-profile", "Activation std along depth, OLD vs NEW"},
+	{"compare-sqnr", "SQNR of NEW against OLD along depth"},
 }
 
 // reviewImageOrder sorts figure names in the order WriteAll produces them.

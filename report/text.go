@@ -163,6 +163,7 @@ func writeCompareText(b *strings.Builder, c *Comparison) {
 			P(d.DeadOld), P(d.DeadNew), P(d.SaturatedOld), P(d.SaturatedNew), F(d.HistogramDistance))
 	}
 	tw.Flush()
+	writeSQNRText(b, c)
 	if len(c.Weights) > 0 {
 		fmt.Fprintln(b, "  weight change ‖W_new − W_old‖/‖W_old‖:")
 		for _, w := range c.Weights {

@@ -29,6 +29,12 @@ func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 	if err != nil {
 		return 2, err
 	}
+	// float against quantized or float16: SQNR per matched layer
+	var sqnr *stats.SQNR
+	if stats.WantSQNR(oldM.model.Graph, newM.model.Graph) {
+		sqnr = stats.NewSQNR(oldM.model.Graph, newM.model.Graph, oldM.plan, newM.plan)
+		oldM.tap, newM.tap = sqnr.TapOld, sqnr.TapNew
+	}
 	// OLD first: its outputs per batch are kept only as long as needed for agreement
 	oldFeed, err := openFeed(oldM.model.Graph, o)
 	if err != nil {
@@ -67,6 +73,9 @@ func cmdCompare(args []string, stdout, stderr io.Writer) (int, error) {
 	}
 	fmt.Fprint(stderr, oldFeed.note()+newFeed.note())
 	stats.Compare(oldCol, newCol, oldM.model.Graph, newM.model.Graph, ag.result(newName))
+	if sqnr != nil {
+		sqnr.Apply(newCol.Report)
+	}
 	r := newCol.Report
 	r.Version = version
 	annotateInputs(r, c.data)

@@ -44,6 +44,8 @@ func userErr(format string, args ...any) error { return inputErr{fmt.Errorf(form
 type loaded struct {
 	model *loader.Model
 	plan  *probe.Plan
+	// tap, when set, also sees every node's outputs (compare's SQNR, stats/sqnr.go)
+	tap func(n *loader.Node, outs []*tensor.Tensor)
 }
 
 func loadAndCompile(path string, debug bool) (*loaded, error) {
@@ -617,6 +619,9 @@ func analyse(l *loaded, feed *sampleFeed, thresholds map[string]float64, each fu
 					outBytes += int64(t.Size()) * 4
 				}
 			}
+		}
+		if l.tap != nil {
+			l.tap(n, outs)
 		}
 		return c.Hook(n, outs)
 	}
