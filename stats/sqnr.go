@@ -58,6 +58,13 @@ type SQNR struct {
 	depthNew  map[string]int
 	keptBytes int64
 	full      bool
+	// quantizers of NEW (QuantizeLinear, DynamicQuantizeLinear) and their depth
+	quantizers []quantizerAt
+}
+
+type quantizerAt struct {
+	name  string
+	depth int
 }
 
 var quantOps = map[string]bool{"QuantizeLinear": true, "DequantizeLinear": true, "DynamicQuantizeLinear": true, "QLinearConv": true,
@@ -198,6 +205,11 @@ func NewSQNR(oldG, newG *loader.Graph, oldP, newP *probe.Plan) *SQNR {
 	for o, i := range ng.outIdx {
 		if i < len(newP.Depth) {
 			s.depthNew[o] = newP.Depth[i]
+		}
+	}
+	for i, n := range ng.steps {
+		if isQuantizer(n) && i < len(newP.Depth) {
+			s.quantizers = append(s.quantizers, quantizerAt{n.Name, newP.Depth[i]})
 		}
 	}
 	inputs := map[string]bool{}
@@ -475,8 +487,19 @@ func (s *SQNR) Apply(r *report.Report) {
 		if drop >= sqnrDropDB {
 			f.Severity, f.Strength = report.Warning, math.Min(1+math.Log2(drop/sqnrDropDB), 8)
 		}
-		f.Message = fmt.Sprintf("the SQNR of NEW against OLD drops most at %s: %.1f dB after %.1f dB at %s (−%.1f dB, %.1f bits of resolution lost there); lowest first: %s",
-			cur.p.NewNode, cur.db, prev.db, prev.p.NewNode, drop, drop/sqnrDropDB, strings.Join(parts, ", "))
+		var between []string
+		for _, q := range s.quantizers {
+			if q.depth > prev.p.depth && q.depth < cur.p.depth {
+				between = append(between, q.name)
+			}
+		}
+		where := ""
+		if len(between) > 0 {
+			ev["quantizers_between"] = between
+			where = "; quantized in between by " + strings.Join(between, ", ")
+		}
+		f.Message = fmt.Sprintf("the SQNR of NEW against OLD drops most at %s: %.1f dB after %.1f dB at %s (−%.1f dB, %.1f bits of resolution lost there%s); lowest first: %s",
+			cur.p.NewNode, cur.db, prev.db, prev.p.NewNode, drop, drop/sqnrDropDB, where, strings.Join(parts, ", "))
 	}
 	r.Ranking, r.Findings = rank(r, append(r.Findings, f))
 }
