@@ -30,6 +30,8 @@ type Model struct {
 	Producer   string `json:"producer"`
 	Nodes      int    `json:"nodes"`
 	Parameters int64  `json:"parameters"`
+	// Float16Weights names the initializers stored as float16 in the file.
+	Float16Weights []string `json:"float16_weights,omitempty"`
 }
 
 // Input describes the sample the statistics were computed on.
@@ -116,6 +118,13 @@ type Layer struct {
 	ClippedFraction    *float64      `json:"clipped_fraction,omitempty"`
 	LevelsUsedFraction *float64      `json:"levels_used_fraction,omitempty"`
 	Quantization       *Quantization `json:"quantization,omitempty"`
+	// Float16 is set when the model holds this output in float16 (vitals
+	// computes it in float32). Float16OverflowFraction is the share of its
+	// values beyond ±65504 (Inf in float16), Float16SubnormalFraction the
+	// share of non-zero values below 2⁻¹⁴ ≈ 6.1e-5, the smallest normal float16.
+	Float16                  bool     `json:"float16,omitempty"`
+	Float16OverflowFraction  *float64 `json:"float16_overflow_fraction,omitempty"`
+	Float16SubnormalFraction *float64 `json:"float16_subnormal_fraction,omitempty"`
 }
 
 // Histogram has len(Counts) == len(Edges)-1 bins over [Edges[0], Edges[last]];

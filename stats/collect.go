@@ -203,6 +203,8 @@ type Collector struct {
 	dead          tensor.Deferred
 	// quant accumulates clipping and levels used of quantized tensors (quant.go); nil without quantizers.
 	quant *quantSet
+	// half counts float16 range problems of float16 activations (half.go); nil without float16.
+	half *halfSet
 }
 
 // AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
@@ -372,6 +374,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 		}
 	}
 	c.quant = newQuantSet(g, p)
+	c.half = newHalfSet(g, p)
 	for _, in := range g.Inputs {
 		c.inputs[in.Name] = &layerAcc{output: in.Name, mom: NewMoments()}
 		c.inputOrder = append(c.inputOrder, in.Name)
@@ -457,6 +460,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 			continue
 		}
 		c.quant.observe(n.Outputs[i], t)
+		c.half.observe(n.Outputs[i], t)
 		la := c.byOut[n.Outputs[i]]
 		if la == nil {
 			continue
@@ -472,6 +476,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
 	for name, t := range batch {
 		c.quant.observe(name, t)
+		c.half.observe(name, t)
 		if la := c.inputs[name]; la != nil {
 			c.queue(obsJob{la: la, t: t, isInput: true})
 		}

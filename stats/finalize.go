@@ -90,6 +90,9 @@ func (c *Collector) Finish(source string) *Collected {
 		is.ClippedFraction, is.LevelsUsedFraction, is.Quantization = c.quant.quantFor(name)
 		r.Input.PerInput = append(r.Input.PerInput, is)
 	}
+	if c.half != nil {
+		r.Model.Float16Weights = c.half.weights
+	}
 	col := &Collected{Report: r}
 	layerIdx := map[*layerAcc]int{}
 	for _, la := range c.layers {
@@ -128,6 +131,9 @@ func (c *Collector) Finish(source string) *Collected {
 			}
 		}
 		l.ClippedFraction, l.LevelsUsedFraction, l.Quantization = c.quant.quantFor(la.output)
+		if isHalf, over, sub := c.half.result(la.output); isHalf {
+			l.Float16, l.Float16OverflowFraction, l.Float16SubnormalFraction = true, report.Num(over), report.Num(sub)
+		}
 		layerIdx[la] = len(r.Layers)
 		r.Layers = append(r.Layers, l)
 		col.LayerKind = append(col.LayerKind, la.act.kind)

@@ -17,6 +17,9 @@ Writes testdata/quant/:
                      QLinearAdd, QLinearMul, QLinearConcat,
                      QLinearGlobalAveragePool, QGemm (quantized and float
                      output); every intermediate is a graph output
+  fp16.onnx          the float CNN in float16 (Cast, float16 weights) with one
+                     activation beyond 65504 and one below the smallest normal
+                     float16 in large shares
   reference.json     NumPy reference: per quantized activation of the QDQ
                      models the clipped share and the share of integer levels
                      used over the whole sample, and per layer the SQNR of the
@@ -361,6 +364,54 @@ def qop_ms_model(x, act_params):
     return m
 
 
+# ---------------------------------------------------------------- float16 model
+
+K_UP, K_TINY = np.float16(4000), np.float16(1e-5)
+
+
+def fp16_model():
+    """The float CNN in float16 (weights and activations), with two scalings
+    that are harmless in float32 but not in float16: relu1·4000 exceeds 65504
+    for relu1 > 16.4, and relu2·1e-5 falls below the smallest normal float16."""
+    F16 = TensorProto.FLOAT16
+    h = lambda a: np.asarray(a).astype(np.float16)
+    nodes = [
+        helper.make_node("Cast", ["input"], ["input_half"], name="to_half", to=F16),
+        helper.make_node("Conv", ["input_half", "W1", "B1"], ["conv1"], name="conv1", pads=[1, 1, 1, 1]),
+        helper.make_node("Relu", ["conv1"], ["relu1"], name="relu1"),
+        helper.make_node("Mul", ["relu1", "k_up"], ["boost"], name="boost"),
+        helper.make_node("Div", ["boost", "k_up"], ["unboost"], name="unboost"),
+        helper.make_node("Conv", ["unboost", "W2", "B2"], ["conv2"], name="conv2", pads=[1, 1, 1, 1], strides=[2, 2]),
+        helper.make_node("Relu", ["conv2"], ["relu2"], name="relu2"),
+        helper.make_node("Mul", ["relu2", "k_tiny"], ["tiny"], name="tiny"),
+        helper.make_node("Div", ["tiny", "k_tiny"], ["untiny"], name="untiny"),
+        helper.make_node("Flatten", ["untiny"], ["flat"], name="flat"),
+        helper.make_node("MatMul", ["flat", "W3"], ["fc"], name="fc"),
+        helper.make_node("Add", ["fc", "B3"], ["logits_half"], name="bias"),
+        helper.make_node("Cast", ["logits_half"], ["output"], name="to_float", to=TensorProto.FLOAT),
+    ]
+    inits = [init("W1", h(W1)), init("B1", h(B1)), init("W2", h(W2)), init("B2", h(B2)), init("W3", h(W3)), init("B3", h(B3)),
+             init("k_up", K_UP), init("k_tiny", K_TINY)]
+    g = helper.make_graph(nodes, "digits_cnn_half", [vi("input", TensorProto.FLOAT, ["N", 1, 8, 8])],
+                          [vi("output", TensorProto.FLOAT, ["N", 10])], inits)
+    return helper.make_model(g, opset_imports=[helper.make_opsetid("", 13)])
+
+
+def fp16_reference(x):
+    """The float16 model computed in float32 (float16 weights and input widened), as vitals runs it:
+    the share of boost's values beyond 65504 and of tiny's non-zero values below 2^-14."""
+    w = lambda a: a.astype(np.float16).astype(np.float32)
+    xi = w(x)
+    relu1 = np.maximum(conv2d(xi, w(W1), w(B1)).astype(np.float32), 0)
+    boost = relu1 * np.float32(K_UP)
+    relu2 = np.maximum(conv2d(boost / np.float32(K_UP), w(W2), w(B2), stride=2).astype(np.float32), 0)
+    tiny = relu2 * np.float32(K_TINY)
+    fmin = np.float32(2.0 ** -14)
+    return {"boost": {"float16_overflow_fraction": float(np.mean(np.abs(boost) > 65504))},
+            "tiny": {"float16_subnormal_fraction": float(np.mean((tiny != 0) & (np.abs(tiny) < fmin)))},
+            "source": "NumPy float32 forward of fp16.onnx with float16-rounded weights and input, all %d images" % len(x)}
+
+
 def main():
     OUT.mkdir(parents=True, exist_ok=True)
     x = np.load(SAMPLE).astype(np.float32)
@@ -378,6 +429,7 @@ def main():
     save(dynamic_model(), "dynamic.onnx")
     save(qop_model(params), "qop.onnx")
     save(qop_ms_model(x, params), "qop_ms.onnx")
+    save(fp16_model(), "fp16.onnx")
 
     ref = {"source": "NumPy %s (testdata/gen/quant_models.py); sample testdata/ref/digits_sample_nchw.npy, all %d images" % (np.__version__, len(x)),
            "clipped_definition": "share of values v with round_half_even(v/scale)+zero_point outside [0, 255]",
@@ -395,6 +447,7 @@ def main():
         for k in ["conv1", "relu1", "conv2", "relu2", "flat", "fc", "output"]:
             entry["sqnr_db"][k] = sqnr_db(ft[k], t[k])
         ref[name] = entry
+    ref["fp16"] = fp16_reference(x)
     with open(OUT / "reference.json", "w") as f:
         json.dump(ref, f, indent=1, sort_keys=True)
         f.write("\n")
