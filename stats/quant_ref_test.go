@@ -102,6 +102,11 @@ func TestQuantHealthAgainstNumPy(t *testing.T) {
 	for _, name := range []string{"qdq", "qdq_badscale"} {
 		ref := loadQuantRef(t, name)
 		rep := runSample(t, filepath.Join(quantDir, name+".onnx"), nil).Report
+		// counted by hand from quant_models.py: int8 weights 8·9 + 16·8·9 + 256·10 = 3784,
+		// float biases 8+16+10, per-channel weight scales 8+16+10, three activation scales
+		if rep.Model.Parameters != 3784+34+34+3 {
+			t.Errorf("%s: %d parameters, want 3855 (int8 weights counted)", name, rep.Model.Parameters)
+		}
 		for tensorName, want := range ref.Quant {
 			var clipped, levels *float64
 			var q *report.Quantization
