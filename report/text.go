@@ -142,6 +142,7 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 	if err := tw.Flush(); err != nil {
 		return err
 	}
+	writeQuantText(b, r)
 	fmt.Fprintln(b)
 	fmt.Fprintln(b, Caution)
 	_, err := io.WriteString(w, b.String())
