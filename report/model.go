@@ -74,7 +74,15 @@ type Quantization struct {
 	BlockSize   int       `json:"block_size,omitempty"`
 	Scale       []float64 `json:"scale,omitempty"`
 	ZeroPoint   []float64 `json:"zero_point,omitempty"`
-	// Clipped counts values with round(v/scale)+zero_point outside the type's range, of Count.
+	// Measured is "float input" when the float values the node quantizes were
+	// observed: Clipped counts those with round(v/scale)+zero_point outside
+	// the type's range; or "integer output" for the output of a QLinear*
+	// node (its float result is never materialised): Clipped then counts
+	// values at the ends of the range (the bottom end only when it is not the
+	// zero point), an upper bound of the values saturated in requantization.
+	// The layer's statistics are then those of the dequantized output.
+	Measured string `json:"measured"`
+	// Clipped counts the clipped values (see Measured), of Count.
 	Clipped int64 `json:"clipped"`
 	Count   int64 `json:"count"`
 	// Levels is the number of integer levels of the type (256 for 8 bits); 0 when not counted (32-bit types).

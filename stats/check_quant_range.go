@@ -12,6 +12,7 @@ import (
 var quantRangeCheck = &Check{
 	Name: "quant-range",
 	Doc: "A quantized tensor whose values clip at the ends of the integer range, or that uses few of its integer levels. " +
+		"For the integer output of a QLinear* node the values at the ends of the range are counted (an upper bound of the clipped ones). " +
 		"Clipped values lose their magnitude (a scale too small for the values, usually calibration on unrepresentative data); " +
 		"few levels used means coarse steps for the values that matter (a scale too large, often widened by a few outliers). " +
 		"Thresholds are common practice: more than 1% clipped or fewer than 10% of the levels used deserve a look, more than 5% clipped is an error.",
@@ -39,6 +40,13 @@ var quantRangeCheck = &Check{
 			if clipped != nil {
 				if sev, ok := sevFor(*clipped, p.T("clipped_warning"), p.T("clipped_error")); ok {
 					ev["warning_at"], ev["error_at"] = p.T("clipped_warning"), p.T("clipped_error")
+					if q.Measured == "integer output" {
+						p.Emit(sev, node, *clipped/p.T("clipped_warning"), ev,
+							"%s of the values of %q (%d of %d) sit at the ends of the integer range of %q (%s): "+
+								"values beyond the range saturate there when the result is requantized; the output scale is too small for these values",
+							pct(*clipped), tensor, q.Clipped, q.Count, q.Node, params)
+						return
+					}
 					p.Emit(sev, node, *clipped/p.T("clipped_warning"), ev,
 						"%s of the values of %q (%d of %d) fall outside the range of its quantizer %q (%s) and are clipped: "+
 							"the scale is too small for these values; recalibrate on data like this sample, or use a wider scale",

@@ -459,7 +459,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 		if t == nil || i >= len(n.Outputs) {
 			continue
 		}
-		c.quant.observe(n.Outputs[i], t)
+		t = c.quant.observe(n.Outputs[i], t) // a QLinear* output is observed dequantized
 		c.half.observe(n.Outputs[i], t)
 		la := c.byOut[n.Outputs[i]]
 		if la == nil {

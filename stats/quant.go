@@ -27,8 +27,9 @@ const levelSetsMax = 1 << 24
 
 type quantAcc struct {
 	node    *loader.Node
-	input   string // the float tensor quantized
+	input   string // the float tensor quantized (for intOut: the integer output)
 	dynamic bool
+	intOut  bool // the integer output of a QLinear* node, judged from its values
 	dt      tensor.DType
 	lo, hi  float64
 	scale   []float64
@@ -45,8 +46,15 @@ type quantAcc struct {
 type quantSet struct {
 	byInput map[string][]*quantAcc // float tensor → static quantizers reading it
 	byOut   map[string]*quantAcc   // integer output of a dynamic quantizer → its accumulator
+	byInt   map[string]*quantAcc   // integer output of a QLinear* node → its accumulator
 	all     []*quantAcc
 }
+
+// qlinearOutParams gives, for operators with a quantized output, the input
+// positions of its scale and zero point.
+var qlinearOutParams = map[string][2]int{"QLinearConv": {6, 7}, "QLinearMatMul": {6, 7}, "QGemm": {7, 8},
+	"QLinearAdd": {6, 7}, "QLinearMul": {6, 7}, "QLinearSigmoid": {3, 4}, "QLinearLeakyRelu": {3, 4},
+	"QLinearGlobalAveragePool": {3, 4}, "QLinearConcat": {0, 1}}
 
 func isQuantizer(n *loader.Node) bool {
 	return n.OpType == "QuantizeLinear" && (n.Domain == "" || n.Domain == "ai.onnx" || n.Domain == "com.microsoft") ||
@@ -56,9 +64,23 @@ func isQuantizer(n *loader.Node) bool {
 // newQuantSet finds the quantizers of a plan whose parameters are known
 // before the run (constant scale and zero point), and the dynamic ones.
 func newQuantSet(g *loader.Graph, p *probe.Plan) *quantSet {
-	qs := &quantSet{byInput: map[string][]*quantAcc{}, byOut: map[string]*quantAcc{}}
+	qs := &quantSet{byInput: map[string][]*quantAcc{}, byOut: map[string]*quantAcc{}, byInt: map[string]*quantAcc{}}
 	for _, s := range p.Steps {
 		n := s.Node
+		if pos, ok := qlinearOutParams[n.OpType]; ok && len(n.Inputs) > pos[1] && len(n.Outputs) > 0 && n.Outputs[0] != "" {
+			sc, ok1 := constValue(g, n.Inputs[pos[0]])
+			zp, ok2 := constValue(g, n.Inputs[pos[1]])
+			if ok1 && ok2 && sc.Size() == 1 && zp.Size() == 1 {
+				if lo, hi, ok := probe.QuantRange(zp.DType); ok && hi-lo < 1<<16 {
+					a := &quantAcc{node: n, input: n.Outputs[0], intOut: true, dt: zp.DType, lo: lo, hi: hi,
+						scale: []float64{float64(float32(sc.Float64At(0)))}, zp: []float64{zp.Float64At(0)}}
+					a.used = [][]bool{make([]bool, int(hi-lo+1))}
+					qs.byInt[a.input] = a
+					qs.all = append(qs.all, a)
+				}
+			}
+			continue
+		}
 		if !isQuantizer(n) || len(n.Inputs) == 0 || n.Inputs[0] == "" || len(n.Outputs) == 0 {
 			continue
 		}
@@ -120,10 +142,18 @@ func newQuantSet(g *loader.Graph, p *probe.Plan) *quantSet {
 }
 
 // observe takes one batch of a tensor: the float input of static quantizers,
-// or the integer output of a dynamic one.
-func (qs *quantSet) observe(name string, t *tensor.Tensor) {
+// or the integer output of a dynamic quantizer or a QLinear* node. For the
+// latter it returns the dequantized values, (q − zero_point)·scale in float32,
+// for the layer's statistics; otherwise t.
+func (qs *quantSet) observe(name string, t *tensor.Tensor) *tensor.Tensor {
 	if qs == nil || t == nil {
-		return
+		return t
+	}
+	if a := qs.byInt[name]; a != nil {
+		if _, _, ok := probe.QuantRange(t.DType); ok && t.DType == a.dt {
+			return a.observeInt(t)
+		}
+		return t
 	}
 	for _, a := range qs.byInput[name] {
 		a.observeFloat(t)
@@ -134,6 +164,26 @@ func (qs *quantSet) observe(name string, t *tensor.Tensor) {
 		}
 		a.count += int64(t.Size())
 	}
+	return t
+}
+
+// observeInt counts the levels an integer output takes and its values at the
+// ends of the range (the bottom end only when it is not the zero point: a
+// zero point at the bottom means a folded Relu, whose zeros sit there), and
+// returns the dequantized values.
+func (a *quantAcc) observeInt(t *tensor.Tensor) *tensor.Tensor {
+	out := make([]float32, t.Size())
+	s, z := float32(a.scale[0]), a.zp[0]
+	for i := range out {
+		q := t.Float64At(i)
+		a.used[0][int(q-a.lo)] = true
+		if q == a.hi || q == a.lo && z != a.lo {
+			a.clipped++
+		}
+		out[i] = float32(q-z) * s
+	}
+	a.count += int64(len(out))
+	return tensor.From(out, t.Shape...)
 }
 
 func (a *quantAcc) observeFloat(t *tensor.Tensor) {
@@ -166,7 +216,10 @@ func (a *quantAcc) observeFloat(t *tensor.Tensor) {
 // counted) and the report's description.
 func (a *quantAcc) result() (clipped, levels float64, q *report.Quantization) {
 	q = &report.Quantization{Node: a.node.Name, Op: a.node.OpType, Type: a.dt.String(), Granularity: "tensor",
-		Scale: a.scale, ZeroPoint: a.zp, Clipped: a.clipped, Count: a.count}
+		Scale: a.scale, ZeroPoint: a.zp, Clipped: a.clipped, Count: a.count, Measured: "float input"}
+	if a.intOut {
+		q.Measured = "integer output"
+	}
 	switch {
 	case a.dynamic:
 		q.Granularity = "dynamic"
@@ -214,6 +267,9 @@ func (qs *quantSet) quantFor(name string) (clipped, levels *float64, q *report.Q
 	}
 	var accs []*quantAcc
 	accs = append(accs, qs.byInput[name]...)
+	if a := qs.byInt[name]; a != nil {
+		accs = append(accs, a)
+	}
 	for _, a := range qs.all {
 		if a.dynamic && a.input == name {
 			accs = append(accs, a)

@@ -51,6 +51,12 @@ func loadQuantRef(t *testing.T, model string) quantModelRef {
 // the collector as hook; tap, when set, also sees every node output.
 func runSample(t *testing.T, path string, tap func(n *loader.Node, outs []*tensor.Tensor)) *stats.Collected {
 	t.Helper()
+	return runSampleN(t, path, 0, tap)
+}
+
+// runSampleN is runSample over the first limit images (0: all).
+func runSampleN(t *testing.T, path string, limit int, tap func(n *loader.Node, outs []*tensor.Tensor)) *stats.Collected {
+	t.Helper()
 	m, err := loader.LoadModel(path)
 	if err != nil {
 		t.Fatal(err)
@@ -71,8 +77,12 @@ func runSample(t *testing.T, path string, tap func(n *loader.Node, outs []*tenso
 		return c.Hook(n, outs)
 	}
 	per := x.Size() / x.Shape[0]
-	for lo := 0; lo < x.Shape[0]; lo += 64 {
-		hi := min(lo+64, x.Shape[0])
+	total := x.Shape[0]
+	if limit > 0 {
+		total = min(total, limit)
+	}
+	for lo := 0; lo < total; lo += 64 {
+		hi := min(lo+64, total)
 		in := map[string]*tensor.Tensor{"input": tensor.From(append([]float32{}, x.F32()[lo*per:hi*per]...), append([]int{hi - lo}, x.Shape[1:]...)...)}
 		c.AddInputs(in)
 		outs, err := p.Run(in, hook)
@@ -155,4 +165,43 @@ func layerByOutput(r *report.Report, out string) *report.Layer {
 		}
 	}
 	return nil
+}
+
+// The integer outputs of the operator-oriented model's QLinearConv and
+// QLinearMatMul nodes: levels used, the share at the ends of the range and
+// the mean of the dequantized values, against ONNX Runtime's integer outputs
+// for the same 64 images (testdata/quant/ort, written by quant_ort.js).
+func TestQuantIntegerOutputsAgainstOnnxRuntime(t *testing.T) {
+	rep := runSampleN(t, filepath.Join(quantDir, "qop.onnx"), 64, nil).Report
+	for _, out := range []string{"relu1_quantized", "relu2_quantized", "fc_quantized"} {
+		q, err := loader.ReadNpy(filepath.Join(quantDir, "ort", "qop."+out+".npy"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		l := layerByOutput(rep, out)
+		if l == nil || l.Quantization == nil || l.ClippedFraction == nil || l.LevelsUsedFraction == nil || l.Mean == nil {
+			t.Fatalf("%s: no layer with quantization statistics", out)
+		}
+		qq := l.Quantization
+		if qq.Measured != "integer output" || len(qq.Scale) != 1 {
+			t.Fatalf("%s: %+v", out, qq)
+		}
+		seen := map[float64]bool{}
+		ends, sum := 0, 0.0
+		for i := 0; i < q.Size(); i++ {
+			v := q.Float64At(i)
+			seen[v] = true
+			if v == 255 || v == 0 && qq.ZeroPoint[0] != 0 {
+				ends++
+			}
+			sum += float64(float32(v-qq.ZeroPoint[0]) * float32(qq.Scale[0]))
+		}
+		n := float64(q.Size())
+		if *l.LevelsUsedFraction != float64(len(seen))/256 || *l.ClippedFraction != float64(ends)/n {
+			t.Errorf("%s: levels %g clipped %g; from ONNX Runtime's output %g, %g", out, *l.LevelsUsedFraction, *l.ClippedFraction, float64(len(seen))/256, float64(ends)/n)
+		}
+		if math.Abs(*l.Mean-sum/n) > 1e-6*math.Max(1, math.Abs(sum/n)) {
+			t.Errorf("%s: mean of the dequantized values %g, from ONNX Runtime's output %g", out, *l.Mean, sum/n)
+		}
+	}
 }
