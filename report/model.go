@@ -244,8 +244,9 @@ type LayerDelta struct {
 	// SQNRdB is 10·log10(Σx²/Σ(x−x̂)²) over the whole sample, x OLD's tensor and
 	// x̂ NEW's (dequantized when it is an integer tensor); set when comparing a
 	// float model with a quantized or float16 one. SQNRMatch says how the
-	// layers were paired: "name" (same tensor name) or "order" (the k-th
-	// linear layer of each graph). Both omitted otherwise.
+	// layers were paired: "name" (same tensor name), "quantizer" (a
+	// DequantizeLinear against the tensor its QuantizeLinear reads) or
+	// "order" (the k-th linear layer of each graph). Both omitted otherwise.
 	SQNRdB    *float64 `json:"sqnr_db,omitempty"`
 	SQNRMatch string   `json:"sqnr_match,omitempty"`
 }

@@ -22,7 +22,10 @@ import (
 // constant scale and zero point when it is an integer tensor). Each 6.02 dB
 // is one bit of resolution. Matching: first by tensor name (a QDQ graph keeps
 // the float model's tensor names), then the remaining linear layers (Conv,
-// Gemm, MatMul and their quantized forms) pair up in execution order. A
+// Gemm, MatMul and their quantized forms) pair up in execution order; the
+// output of a QuantizeLinear→DequantizeLinear pair is compared with the
+// tensor it quantizes ("quantizer"), so a mis-scaled quantizer shows as the
+// drop at its DequantizeLinear. A
 // linear layer stands for its output after its bias Add (and, on the
 // quantized side, after Cast and the rescaling Mul of ConvInteger and
 // MatMulInteger); a quantized output whose zero point is the bottom of its
@@ -226,6 +229,23 @@ func NewSQNR(oldG, newG *loader.Graph, oldP, newP *probe.Plan) *SQNR {
 				s.add(&SQNRPair{Old: o, New: o, OldNode: n.Name, NewNode: np.Name, NewOp: np.OpType, By: "name"})
 				matchedOld[o], matchedNew[o] = true, true
 			}
+		}
+	}
+	// a Q→DQ pair of NEW reproduces the tensor it quantizes: its dequantized
+	// output is compared with that tensor in OLD (the noise of this quantizer
+	// plus what came before it)
+	for _, n := range ng.steps {
+		if n.OpType != "DequantizeLinear" || len(n.Inputs) == 0 || len(n.Outputs) == 0 || n.Outputs[0] == "" {
+			continue
+		}
+		q := ng.producer[n.Inputs[0]]
+		if q == nil || q.OpType != "QuantizeLinear" || len(q.Inputs) == 0 {
+			continue
+		}
+		src := q.Inputs[0]
+		if op := og.producer[src]; op != nil {
+			s.add(&SQNRPair{Old: src, New: n.Outputs[0], OldNode: op.Name, NewNode: n.Name, NewOp: n.OpType, By: "quantizer"})
+			matchedNew[n.Outputs[0]] = true
 		}
 	}
 	// linear layers left over, in execution order, paired within their kind

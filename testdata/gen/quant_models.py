@@ -446,6 +446,11 @@ def main():
             entry["quant"][a] = {"scale": float(s), "zero_point": int(z), "clipped_fraction": c, "levels_used_fraction": lv}
         for k in ["conv1", "relu1", "conv2", "relu2", "flat", "fc", "output"]:
             entry["sqnr_db"][k] = sqnr_db(ft[k], t[k])
+        # each Q/DQ pair's output against the float tensor it quantizes
+        _, qd = qdq_forward(x, p)
+        for a in ["relu1", "relu2"]:
+            s, z = p[a]
+            entry["sqnr_db"][a + "_dequantized"] = sqnr_db(ft[a], dequantize(qd[a], s, z))
         ref[name] = entry
     ref["fp16"] = fp16_reference(x)
     with open(OUT / "reference.json", "w") as f:
