@@ -114,6 +114,8 @@ func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
 				}
 			case n.OpType == "Identity" && len(n.Inputs) == 1:
 				next = n.Inputs[0]
+			case n.OpType == "DequantizeLinear": // quantized weights of a QDQ model (quant.go)
+				return dequantConst(g, n)
 			}
 			break
 		}

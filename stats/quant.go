@@ -287,3 +287,29 @@ func (qs *quantSet) quantFor(name string) (clipped, levels *float64, q *report.Q
 	}
 	return clipped, levels, q
 }
+
+// dequantConst evaluates a DequantizeLinear whose inputs are all constant (the
+// quantized weights of a QDQ model), so that weight statistics and weight
+// comparisons see the weights the model computes with.
+func dequantConst(g *loader.Graph, n *loader.Node) (*tensor.Tensor, bool) {
+	k, ok := probe.Lookup(n.Domain, n.OpType, 21)
+	if !ok || len(n.Inputs) < 2 || len(n.Outputs) == 0 {
+		return nil, false
+	}
+	in := make([]*tensor.Tensor, len(n.Inputs))
+	for i, name := range n.Inputs {
+		if name == "" {
+			continue
+		}
+		t, ok := g.Initializers[name]
+		if !ok {
+			return nil, false
+		}
+		in[i] = t
+	}
+	c := &probe.Call{Node: n, In: in, Out: make([]*tensor.Tensor, len(n.Outputs)), Opset: 21}
+	if err := k(c); err != nil || c.Out[0] == nil {
+		return nil, false
+	}
+	return c.Out[0], true
+}

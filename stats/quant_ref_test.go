@@ -27,7 +27,8 @@ type quantModelRef struct {
 		ClippedFraction    float64 `json:"clipped_fraction"`
 		LevelsUsedFraction float64 `json:"levels_used_fraction"`
 	} `json:"quant"`
-	SQNR map[string]float64 `json:"sqnr_db"`
+	SQNR        map[string]float64 `json:"sqnr_db"`
+	WeightDelta map[string]float64 `json:"weight_relative_change"`
 }
 
 func loadQuantRef(t *testing.T, model string) quantModelRef {

@@ -74,6 +74,18 @@ func TestSQNRAgainstNumPy(t *testing.T) {
 				t.Errorf("%s %s: SQNR %.4f dB (%s), NumPy %.4f dB", name, n, *d.SQNRdB, d.SQNRMatch, want)
 			}
 		}
+		// QDQ weights (int8 through DequantizeLinear) are folded to the values
+		// the model computes with: their change from the float weights is the
+		// weight quantization error, ‖W_q − W‖/‖W‖ (NumPy, same reference file)
+		for _, w := range rep.Compare.Weights {
+			want, ok := ref.WeightDelta[w.Name]
+			if !ok || w.RelativeChange == nil || math.Abs(*w.RelativeChange-want) > 1e-6*want {
+				t.Errorf("%s weight %s: relative change %v, NumPy %g", name, w.Name, report.Val(w.RelativeChange), want)
+			}
+		}
+		if len(rep.Compare.Weights) != len(ref.WeightDelta) {
+			t.Errorf("%s: %d weights compared, want %d", name, len(rep.Compare.Weights), len(ref.WeightDelta))
+		}
 		var noise *report.Finding
 		for i, f := range rep.Findings {
 			if f.Check == "quant-noise" {

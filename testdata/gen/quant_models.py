@@ -446,6 +446,12 @@ def main():
             entry["quant"][a] = {"scale": float(s), "zero_point": int(z), "clipped_fraction": c, "levels_used_fraction": lv}
         for k in ["conv1", "relu1", "conv2", "relu2", "flat", "fc", "output"]:
             entry["sqnr_db"][k] = sqnr_db(ft[k], t[k])
+        # ‖W_dequantized − W‖/‖W‖ of each per-channel int8 weight
+        entry["weight_relative_change"] = {}
+        for k, (q, sc, ax) in WEIGHTS.items():
+            wf = {"W1": W1, "W2": W2, "W3": W3}[k].astype(np.float64)
+            wd = dequantize(q.astype(np.float64), sc.reshape([-1 if i == ax else 1 for i in range(q.ndim)]), 0).astype(np.float64)
+            entry["weight_relative_change"][k] = float(np.linalg.norm(wd - wf) / np.linalg.norm(wf))
         # each Q/DQ pair's output against the float tensor it quantizes
         _, qd = qdq_forward(x, p)
         for a in ["relu1", "relu2"]:
