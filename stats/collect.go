@@ -47,6 +47,8 @@ func classify(n *loader.Node, g *loader.Graph) actInfo {
 		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + fmtG(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
 	case "PRelu":
 		return actInfo{kind: ActReLU, note: "PRelu: a dead unit still passes its learned negative slope"}
+	case "QLinearLeakyRelu", "QLinearSigmoid", "QLinearConv", "QLinearMatMul", "QGemm":
+		return classifyQuantized(n, g)
 	case "Tanh", "Softsign":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: -0.99, satHi: 0.99, strict: true}
 	case "Sigmoid":

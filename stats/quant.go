@@ -313,3 +313,29 @@ func dequantConst(g *loader.Graph, n *loader.Node) (*tensor.Tensor, bool) {
 	}
 	return c.Out[0], true
 }
+
+// classifyQuantized gives the activation kind of a quantized operator whose
+// output is observed dequantized: QLinearLeakyRelu and QLinearSigmoid as
+// their float forms, and a QLinearConv, QLinearMatMul or QGemm whose output
+// zero point is the bottom of its integer range as a ReLU (quantization
+// tools fold a following Relu into the output range that way).
+func classifyQuantized(n *loader.Node, g *loader.Graph) actInfo {
+	switch n.OpType {
+	case "QLinearLeakyRelu":
+		return classify(&loader.Node{OpType: "LeakyRelu", Attrs: n.Attrs}, g)
+	case "QLinearSigmoid":
+		return classify(&loader.Node{OpType: "Sigmoid"}, g)
+	}
+	pos, ok := qlinearOutParams[n.OpType]
+	if !ok || len(n.Inputs) <= pos[1] {
+		return actInfo{}
+	}
+	zp, ok := constValue(g, n.Inputs[pos[1]])
+	if !ok || zp.Size() != 1 {
+		return actInfo{}
+	}
+	if lo, _, ok := probe.QuantRange(zp.DType); ok && zp.Float64At(0) == lo {
+		return actInfo{kind: ActReLU, note: "Relu folded into the quantized output (zero point at the bottom of the range)"}
+	}
+	return actInfo{}
+}

@@ -204,5 +204,23 @@ func TestQuantIntegerOutputsAgainstOnnxRuntime(t *testing.T) {
 		if math.Abs(*l.Mean-sum/n) > 1e-6*math.Max(1, math.Abs(sum/n)) {
 			t.Errorf("%s: mean of the dequantized values %g, from ONNX Runtime's output %g", out, *l.Mean, sum/n)
 		}
+		// QLinearConv with zero point 0 holds Relu(x): a channel is dead when
+		// it never rises above the zero point
+		if q.Rank() == 4 {
+			ch, inner := q.Shape[1], q.Shape[2]*q.Shape[3]
+			alive := make([]bool, ch)
+			for i := 0; i < q.Size(); i++ {
+				alive[(i/inner)%ch] = alive[(i/inner)%ch] || q.Float64At(i) > qq.ZeroPoint[0]
+			}
+			dead := 0
+			for _, a := range alive {
+				if !a {
+					dead++
+				}
+			}
+			if l.Activation != "relu" || l.DeadFraction == nil || *l.DeadFraction != float64(dead)/float64(ch) {
+				t.Errorf("%s: activation %q dead %v; from ONNX Runtime's output %d of %d channels dead", out, l.Activation, report.Val(l.DeadFraction), dead, ch)
+			}
+		}
 	}
 }
