@@ -32,9 +32,16 @@ import (
 // range holds Relu(x), so it is compared with the Relu that follows on the
 // float side.
 
-// sqnrKeepMax bounds the bytes of OLD tensors kept for the comparison; later
-// batches are left out of the SQNR (the report says how many were used).
-const sqnrKeepMax = 1 << 30
+// sqnrKeepMax bounds the bytes of OLD tensors kept for the comparison (1 GiB,
+// at most a quarter of the memory budget); later batches are left out of the
+// SQNR.
+func sqnrKeepMax() int64 {
+	m := int64(1 << 30)
+	if b := tensor.MemoryBudget(); b > 0 {
+		m = min(m, b/4)
+	}
+	return m
+}
 
 // SQNRPair is one OLD tensor matched to a NEW tensor.
 type SQNRPair struct {
@@ -60,6 +67,7 @@ type SQNR struct {
 	kept      map[string][][]float32 // OLD tensor → its values per batch
 	depthNew  map[string]int
 	keptBytes int64
+	keepMax   int64
 	full      bool
 	// quantizers of NEW (QuantizeLinear, DynamicQuantizeLinear) and their depth
 	quantizers []quantizerAt
@@ -202,7 +210,7 @@ func (gi *graphInfo) qlinearOutParams(n *loader.Node) (scale, zp, lo float64, ok
 
 // NewSQNR matches OLD's layers to NEW's (see the package comment above).
 func NewSQNR(oldG, newG *loader.Graph, oldP, newP *probe.Plan) *SQNR {
-	s := &SQNR{byOld: map[string][]*SQNRPair{}, byNew: map[string][]*SQNRPair{}, kept: map[string][][]float32{}}
+	s := &SQNR{byOld: map[string][]*SQNRPair{}, byNew: map[string][]*SQNRPair{}, kept: map[string][][]float32{}, keepMax: sqnrKeepMax()}
 	og, ng := newGraphInfo(oldG, oldP), newGraphInfo(newG, newP)
 	s.depthNew = map[string]int{}
 	for o, i := range ng.outIdx {
@@ -302,6 +310,9 @@ func NewSQNR(oldG, newG *loader.Graph, oldP, newP *probe.Plan) *SQNR {
 	return s
 }
 
+// SetKeepLimit sets the bytes of OLD tensors kept for the comparison.
+func (s *SQNR) SetKeepLimit(bytes int64) { s.keepMax = bytes }
+
 func (s *SQNR) add(p *SQNRPair) {
 	p.depth = s.depthNew[p.New]
 	s.Pairs = append(s.Pairs, p)
@@ -321,7 +332,7 @@ func (s *SQNR) TapOld(n *loader.Node, outs []*tensor.Tensor) {
 			continue
 		}
 		name := n.Outputs[i]
-		if s.full || s.keptBytes+int64(len(x))*4 > sqnrKeepMax {
+		if s.full || s.keptBytes+int64(len(x))*4 > s.keepMax {
 			s.full = true
 			continue
 		}
@@ -495,11 +506,20 @@ func (s *SQNR) Apply(r *report.Report) {
 		}
 	}
 	ev := map[string]any{"ranked": list, "drop_warning_db": sqnrDropDB}
+	capped := ""
+	for _, x := range rs {
+		if x.p.batches < x.p.newBatchesSeen {
+			ev["batches_compared"], ev["batches"] = x.p.batches, x.p.newBatchesSeen
+			capped = fmt.Sprintf(" (SQNR over the first %d of %d batches: the float tensors kept for it reached %d MiB)",
+				x.p.batches, x.p.newBatchesSeen, s.keepMax>>20)
+			break
+		}
+	}
 	f := report.Finding{Check: "quant-noise", Severity: report.Info, Strength: 1, Evidence: ev}
 	if worst < 0 {
 		x := rs[0]
 		f.Node = x.p.NewNode
-		f.Message = fmt.Sprintf("SQNR of NEW against OLD: %.1f dB at %s (the only matched layer)", x.db, x.p.NewNode)
+		f.Message = fmt.Sprintf("SQNR of NEW against OLD: %.1f dB at %s (the only matched layer)", x.db, x.p.NewNode) + capped
 	} else {
 		prev, cur := rs[worst-1], rs[worst]
 		f.Node = cur.p.NewNode
@@ -519,7 +539,7 @@ func (s *SQNR) Apply(r *report.Report) {
 			where = "; quantized in between by " + strings.Join(between, ", ")
 		}
 		f.Message = fmt.Sprintf("the SQNR of NEW against OLD drops most at %s: %.1f dB after %.1f dB at %s (−%.1f dB, %.1f bits of resolution lost there%s); lowest first: %s",
-			cur.p.NewNode, cur.db, prev.db, prev.p.NewNode, drop, drop/sqnrDropDB, where, strings.Join(parts, ", "))
+			cur.p.NewNode, cur.db, prev.db, prev.p.NewNode, drop, drop/sqnrDropDB, where, strings.Join(parts, ", ")) + capped
 	}
 	r.Ranking, r.Findings = rank(r, append(r.Findings, f))
 }

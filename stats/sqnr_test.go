@@ -16,6 +16,12 @@ import (
 // sample as `vitals compare` does and returns NEW's report with the SQNR applied.
 func compareQuant(t *testing.T, newName string) *report.Report {
 	t.Helper()
+	return compareQuantCapped(t, newName, 0)
+}
+
+// compareQuantCapped is compareQuant keeping at most keep bytes of OLD's tensors (0: the default).
+func compareQuantCapped(t *testing.T, newName string, keep int64) *report.Report {
+	t.Helper()
 	load := func(name string) (*loader.Model, *probe.Plan) {
 		m, err := loader.LoadModel(filepath.Join(quantDir, name+".onnx"))
 		if err != nil {
@@ -33,6 +39,9 @@ func compareQuant(t *testing.T, newName string) *report.Report {
 		t.Fatalf("%s: float against quantized not recognised", newName)
 	}
 	s := stats.NewSQNR(om.Graph, nm.Graph, op, np)
+	if keep > 0 {
+		s.SetKeepLimit(keep)
+	}
 	oldCol := runSample(t, filepath.Join(quantDir, "fp32.onnx"), s.TapOld)
 	newCol := runSample(t, filepath.Join(quantDir, newName+".onnx"), s.TapNew)
 	stats.Compare(oldCol, newCol, om.Graph, nm.Graph, nil)
@@ -133,4 +142,19 @@ func TestSQNRMatchesByOrder(t *testing.T) {
 			t.Errorf("%s is paired but still listed as unmatched", u)
 		}
 	}
+}
+
+// With the memory for OLD's tensors capped, the SQNR covers the batches kept
+// and the finding says over how many of the batches.
+func TestSQNRCappedKeepSaysSo(t *testing.T) {
+	rep := compareQuantCapped(t, "qdq", 3*64*8*8*8*4) // room for a few batches of relu1 and its neighbours
+	for _, f := range rep.Findings {
+		if f.Check == "quant-noise" {
+			if f.Evidence["batches"] == nil || !strings.Contains(f.Message, "batches") {
+				t.Errorf("capped: %s %v", f.Message, f.Evidence)
+			}
+			return
+		}
+	}
+	t.Error("no quant-noise finding")
 }
