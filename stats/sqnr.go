@@ -497,15 +497,16 @@ func (s *SQNR) Apply(r *report.Report) {
 	}
 	ranked := append([]res(nil), rs...)
 	sort.SliceStable(ranked, func(i, j int) bool { return ranked[i].db < ranked[j].db })
-	var list []map[string]any
+	var list []string
 	var parts []string
 	for _, x := range ranked {
-		list = append(list, map[string]any{"node": x.p.NewNode, "old_node": x.p.OldNode, "sqnr_db": plainValue(sqnrNum(x.db))})
+		list = append(list, x.p.NewNode)
 		if len(parts) < 5 {
 			parts = append(parts, fmt.Sprintf("%s %.1f dB", x.p.NewNode, x.db))
 		}
 	}
-	ev := map[string]any{"ranked": list, "drop_warning_db": sqnrDropDB}
+	// the layers by SQNR, lowest first (each layer's value is its sqnr_db)
+	ev := map[string]any{"ranked_by_sqnr": list, "drop_warning_db": sqnrDropDB}
 	capped := ""
 	for _, x := range rs {
 		if x.p.batches < x.p.newBatchesSeen {
