@@ -192,11 +192,9 @@ func (gi *graphInfo) tail(out string) []string {
 // qlinearOutParams returns the constant output scale and zero point of a
 // quantized linear node and the low end of its type's range.
 func (gi *graphInfo) qlinearOutParams(n *loader.Node) (scale, zp, lo float64, ok bool) {
-	si, zi := 6, 7
-	if n.OpType == "QGemm" {
-		si, zi = 7, 8
-	}
-	if len(n.Inputs) <= zi {
+	pos, known := qlinearOutParams[n.OpType]
+	si, zi := pos[0], pos[1]
+	if !known || len(n.Inputs) <= zi {
 		return 0, 0, 0, false
 	}
 	s, ok1 := constValue(gi.g, n.Inputs[si])
@@ -234,7 +232,11 @@ func NewSQNR(oldG, newG *loader.Graph, oldP, newP *probe.Plan) *SQNR {
 				continue
 			}
 			if np := ng.producer[o]; np != nil {
-				s.add(&SQNRPair{Old: o, New: o, OldNode: n.Name, NewNode: np.Name, NewOp: np.OpType, By: "name"})
+				p := &SQNRPair{Old: o, New: o, OldNode: n.Name, NewNode: np.Name, NewOp: np.OpType, By: "name"}
+				if _, ok := qlinearOutParams[np.OpType]; ok { // an integer output under the float name
+					p.scale, p.zp, _, _ = ng.qlinearOutParams(np)
+				}
+				s.add(p)
 				matchedOld[o], matchedNew[o] = true, true
 			}
 		}
