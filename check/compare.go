@@ -23,6 +23,16 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 		return nil, err
 	}
 	budget := &tensor.Arena{Budget: o.MemoryBudget}
+	// float against quantized or float16: SQNR per matched layer
+	var sqnr *stats.SQNR
+	oldO, newO := o, o
+	if stats.WantSQNR(old.graph(), new.graph()) {
+		sqnr = stats.NewSQNR(old.graph(), new.graph(), old.plan, new.plan)
+		if b := o.MemoryBudget; b > 0 {
+			sqnr.SetKeepLimit(min(int64(1<<30), b/4))
+		}
+		oldO.tap, newO.tap = sqnr.TapOld, sqnr.TapNew
+	}
 	// OLD first: its outputs per batch are kept only as long as needed for agreement
 	oldFeed, err := openFeed(old.graph(), sample, budget)
 	if err != nil {
@@ -31,7 +41,7 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 	defer oldFeed.Close()
 	var oldOuts []*tensor.Tensor
 	oldName := firstOutput(old)
-	oldCol, err := analyse(ctx, old, oldFeed, o, func(outs map[string]*tensor.Tensor, k int) error {
+	oldCol, err := analyse(ctx, old, oldFeed, oldO, func(outs map[string]*tensor.Tensor, k int) error {
 		oldOuts = append(oldOuts, outs[oldName])
 		return nil
 	})
@@ -48,7 +58,7 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 	ag := &agreeAcc{}
 	newName := firstOutput(new)
 	batchIdx := 0
-	newCol, err := analyse(ctx, new, newFeed, o, func(outs map[string]*tensor.Tensor, k int) error {
+	newCol, err := analyse(ctx, new, newFeed, newO, func(outs map[string]*tensor.Tensor, k int) error {
 		if batchIdx < len(oldOuts) {
 			ag.add(oldOuts[batchIdx], outs[newName])
 			oldOuts[batchIdx] = nil
@@ -64,6 +74,9 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 	}
 	note(o, oldFeed, newFeed)
 	stats.Compare(oldCol, newCol, oldCol.Graph, newCol.Graph, ag.result(newName))
+	if sqnr != nil {
+		sqnr.Apply(newCol.Report)
+	}
 	annotateInputs(newCol.Report, newFeed)
 	return newCol.Report, nil
 }

@@ -10,6 +10,7 @@ import (
 	"sync/atomic"
 	"time"
 
+	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
 )
@@ -82,6 +83,9 @@ type Options struct {
 	// recycled, when set (by this package's tests), counts the values whose
 	// storage went back to the pool within a batch.
 	recycled *atomic.Int64
+	// tap, when set, also sees every node's outputs before the statistics
+	// do (compare's SQNR between float and quantized models, stats/sqnr.go)
+	tap func(n *loader.Node, outs []*tensor.Tensor)
 }
 
 // Progress is how far a run has come.

@@ -102,6 +102,9 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 				}
 			}
 		}
+		if o.tap != nil {
+			o.tap(n, outs)
+		}
 		return c.Hook(n, outs)
 	}
 	// the next batch is read (and decoded) on its own goroutine while the

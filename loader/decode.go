@@ -173,6 +173,12 @@ func (d *decoder) graph(gp *onnxpb.GraphProto) (*Graph, error) {
 			g.InitOrder = append(g.InitOrder, tp.GetName())
 		}
 		g.Initializers[tp.GetName()] = t
+		if dt := tensor.DType(tp.GetDataType()); dt == tensor.Float16 || dt == tensor.BFloat16 {
+			if g.Half == nil {
+				g.Half = map[string]tensor.DType{}
+			}
+			g.Half[tp.GetName()] = dt
+		}
 	}
 	for _, sp := range gp.GetSparseInitializer() {
 		t, err := d.sparse(sp)

@@ -35,6 +35,9 @@ type Graph struct {
 	Outputs       []ValueInfo
 	// ValueInfo holds declared types of intermediate values, by name.
 	ValueInfo map[string]ValueInfo
+	// Half names the initializers stored as float16 or bfloat16 in the file
+	// (held widened to float32 in Initializers), with their stored type.
+	Half map[string]tensor.DType
 }
 
 // ValueInfo is a named, typed value; Shape dims are -1 when unknown, with Symbols naming symbolic dims.

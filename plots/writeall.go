@@ -11,7 +11,8 @@ import (
 // WriteAll writes every figure of r into dir (which must exist) and returns
 // the file names written, in this order: depth-profile.png, unit-health.png,
 // histograms-NN.png, weights.png and, when r.Compare is set,
-// compare-histograms-NN.png and compare-depth-profile.png. A figure with
+// compare-histograms-NN.png, compare-depth-profile.png and (float against
+// quantized) compare-sqnr.png. A figure with
 // nothing to show (e.g. no activation layers, no weights) is skipped without
 // error. Each file is written to a temporary name and renamed into place.
 func WriteAll(dir string, r *report.Report) ([]string, error) {
@@ -43,6 +44,7 @@ func WriteAll(dir string, r *report.Report) ([]string, error) {
 	if c := CompareSpec(r); c != nil {
 		pages(c.Pages)
 		chart(c.Depth)
+		chart(SQNRSpec(r))
 	}
 	var names []string
 	for _, j := range jobs {

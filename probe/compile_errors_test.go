@@ -38,10 +38,13 @@ func TestCompileErrorsNameNodes(t *testing.T) {
 	b.Input("x", []int{1, 2}, true)
 	b.Node("Frobnicate", "f1", []string{"x"}, []string{"y"})
 	b.Node("Frobnicate", "f2", []string{"y"}, []string{"z"})
-	b.Output("z")
+	b.Node("Twiddle", "t1", []string{"z"}, []string{"w"})
+	b.Output("w")
 	_, _, err := compileBuilt(t, b)
-	if err == nil || !strings.Contains(err.Error(), `"f1"`) || !strings.Contains(err.Error(), `"f2"`) {
-		t.Errorf("unsupported operators must all be listed: %v", err)
+	// one line per operator type with the count and the first node (issue 17)
+	if err == nil || !strings.Contains(err.Error(), `Frobnicate (domain ai.onnx, opset 13): 2 nodes, first "f1"`) ||
+		!strings.Contains(err.Error(), `Twiddle (domain ai.onnx, opset 13): 1 node "t1"`) || strings.Count(err.Error(), "\n") != 2 {
+		t.Errorf("unsupported operators must be listed once per type: %v", err)
 	}
 }
 

@@ -132,6 +132,12 @@ func flatten(p *Plan) *Flat {
 	for k, v := range g.ValueInfo {
 		fg.ValueInfo[k] = v
 	}
+	if g.Half != nil {
+		fg.Half = make(map[string]tensor.DType, len(g.Half))
+		for k, dt := range g.Half {
+			fg.Half[k] = dt
+		}
+	}
 	f := &Flat{Graph: fg}
 	f.add(p, -1, 0, nil)
 	return f

@@ -54,11 +54,46 @@ type Step struct {
 	fuseWith int
 }
 
-// UnsupportedError lists every node whose operator has no kernel.
-type UnsupportedError struct{ Nodes []string }
+// UnsupportedError lists the operators that have no kernel, one entry per
+// node that uses one (subgraphs included), in schedule order.
+type UnsupportedError struct{ Uses []UnsupportedUse }
 
+// UnsupportedUse is one node whose operator has no kernel.
+type UnsupportedUse struct {
+	Node, Op, Domain string // Domain is "ai.onnx" for the default domain
+	Opset            int
+}
+
+// Error gives one line per operator type (domain, op, opset): how many nodes
+// use it and the first of them, so a model with a hundred uses of one
+// operator reads as one line.
 func (e *UnsupportedError) Error() string {
-	return fmt.Sprintf("%d unsupported operator use(s): %s", len(e.Nodes), strings.Join(e.Nodes, "; "))
+	type group struct {
+		first string
+		n     int
+	}
+	var order []UnsupportedUse
+	groups := map[UnsupportedUse]*group{}
+	for _, u := range e.Uses {
+		k := UnsupportedUse{Op: u.Op, Domain: u.Domain, Opset: u.Opset}
+		if g := groups[k]; g != nil {
+			g.n++
+			continue
+		}
+		groups[k] = &group{first: u.Node, n: 1}
+		order = append(order, k)
+	}
+	var b strings.Builder
+	fmt.Fprintf(&b, "%d unsupported operator type(s) in %d node(s):", len(order), len(e.Uses))
+	for _, k := range order {
+		g := groups[k]
+		nodes := "1 node"
+		if g.n > 1 {
+			nodes = fmt.Sprintf("%d nodes, first", g.n)
+		}
+		fmt.Fprintf(&b, "\n  %s (domain %s, opset %d): %s %q", k.Op, k.Domain, k.Opset, nodes, g.first)
+	}
+	return b.String()
 }
 
 // Compile orders the model's graph and picks kernels.
@@ -116,7 +151,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 			sweep = append(sweep, i)
 		}
 	}
-	var unsupported []string
+	var unsupported []UnsupportedUse
 	scheduled := make([]bool, len(g.Nodes))
 	for len(sweep) > 0 {
 		cursor := -1
@@ -141,7 +176,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 				if dom == "" {
 					dom = "ai.onnx"
 				}
-				unsupported = append(unsupported, fmt.Sprintf("node %q: %s (domain %s, opset %d)", n.Name, n.OpType, dom, opset))
+				unsupported = append(unsupported, UnsupportedUse{Node: n.Name, Op: n.OpType, Domain: dom, Opset: opset})
 			}
 			// Subgraphs see every value of this graph and of the outer scopes.
 			for _, a := range n.Attrs {
@@ -157,7 +192,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 					if err != nil {
 						var ue *UnsupportedError
 						if errors.As(err, &ue) {
-							unsupported = append(unsupported, ue.Nodes...)
+							unsupported = append(unsupported, ue.Uses...)
 							continue
 						}
 						return nil, fmt.Errorf("node %q (%s) subgraph %q: %w", n.Name, n.OpType, a.Name, err)
@@ -204,7 +239,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 		return nil, cycleError(pending, known, produced)
 	}
 	if len(unsupported) > 0 {
-		return nil, &UnsupportedError{Nodes: unsupported}
+		return nil, &UnsupportedError{Uses: unsupported}
 	}
 	for _, o := range g.Outputs {
 		if _, ok := known[o.Name]; !ok {

@@ -32,6 +32,8 @@ type Model struct {
 	Producer   string `json:"producer"`
 	Nodes      int    `json:"nodes"`
 	Parameters int64  `json:"parameters"`
+	// Float16Weights names the initializers stored as float16 in the file.
+	Float16Weights []string `json:"float16_weights,omitempty"`
 }
 
 // Coverage counts the nodes of the model, those inside If/Loop/Scan
@@ -87,6 +89,42 @@ type InputStat struct {
 	ChannelAxis *int      `json:"channel_axis,omitempty"`
 	ChannelMean []float64 `json:"channel_mean,omitempty"`
 	ChannelStd  []float64 `json:"channel_std,omitempty"`
+	// ClippedFraction, LevelsUsedFraction and Quantization are set when a
+	// quantizing node reads this input (see Layer).
+	ClippedFraction    *float64      `json:"clipped_fraction,omitempty"`
+	LevelsUsedFraction *float64      `json:"levels_used_fraction,omitempty"`
+	Quantization       *Quantization `json:"quantization,omitempty"`
+}
+
+// Quantization describes how a float tensor is quantized by the node that
+// reads it (QuantizeLinear or DynamicQuantizeLinear) and how its values fit
+// the integer grid over the whole sample. A value v maps to
+// q = saturate(round_half_even(v/scale) + zero_point).
+type Quantization struct {
+	Node string `json:"node"` // the quantizing node
+	Op   string `json:"op"`
+	Type string `json:"type"` // the integer type, e.g. "uint8"
+	// Granularity is "tensor", "axis" (one scale per index of Axis), "block"
+	// (one per BlockSize elements along Axis) or "dynamic" (computed from
+	// each batch's range by DynamicQuantizeLinear, so nothing clips).
+	Granularity string    `json:"granularity"`
+	Axis        *int      `json:"axis,omitempty"`
+	BlockSize   int       `json:"block_size,omitempty"`
+	Scale       []float64 `json:"scale,omitempty"`
+	ZeroPoint   []float64 `json:"zero_point,omitempty"`
+	// Measured is "float input" when the float values the node quantizes were
+	// observed: Clipped counts those with round(v/scale)+zero_point outside
+	// the type's range; or "integer output" for the output of a QLinear*
+	// node (its float result is never materialised): Clipped then counts
+	// values at the ends of the range (the bottom end only when it is not the
+	// zero point), an upper bound of the values saturated in requantization.
+	// The layer's statistics are then those of the dequantized output.
+	Measured string `json:"measured"`
+	// Clipped counts the clipped values (see Measured), of Count.
+	Clipped int64 `json:"clipped"`
+	Count   int64 `json:"count"`
+	// Levels is the number of integer levels of the type (256 for 8 bits); 0 when not counted (32-bit types).
+	Levels int `json:"levels"`
 }
 
 // Layer is the statistics of one node output over the whole sample.
@@ -118,6 +156,21 @@ type Layer struct {
 	Activation string `json:"activation,omitempty"`
 	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
 	Note string `json:"note,omitempty"`
+	// ClippedFraction is the share of this output's values that the node
+	// quantizing it clips (outside the integer range), over the whole sample;
+	// LevelsUsedFraction the share of integer levels the quantized values
+	// take (the mean over scales for per-axis quantization). Both nil unless a
+	// quantizing node reads this output.
+	ClippedFraction    *float64      `json:"clipped_fraction,omitempty"`
+	LevelsUsedFraction *float64      `json:"levels_used_fraction,omitempty"`
+	Quantization       *Quantization `json:"quantization,omitempty"`
+	// Float16 is set when the model holds this output in float16 (vitals
+	// computes it in float32). Float16OverflowFraction is the share of its
+	// values beyond ±65504 (Inf in float16), Float16SubnormalFraction the
+	// share of non-zero values below 2⁻¹⁴ ≈ 6.1e-5, the smallest normal float16.
+	Float16                  bool     `json:"float16,omitempty"`
+	Float16OverflowFraction  *float64 `json:"float16_overflow_fraction,omitempty"`
+	Float16SubnormalFraction *float64 `json:"float16_subnormal_fraction,omitempty"`
 }
 
 // Histogram has len(Counts) == len(Edges)-1 bins over [Edges[0], Edges[last]];
@@ -226,6 +279,14 @@ type LayerDelta struct {
 	SaturatedNew *float64 `json:"saturated_new"`
 	// HistogramDistance is the total-variation distance between the two histograms on a common grid (0..1).
 	HistogramDistance *float64 `json:"histogram_distance"`
+	// SQNRdB is 10·log10(Σx²/Σ(x−x̂)²) over the whole sample, x OLD's tensor and
+	// x̂ NEW's (dequantized when it is an integer tensor); set when comparing a
+	// float model with a quantized or float16 one. SQNRMatch says how the
+	// layers were paired: "name" (same tensor name), "quantizer" (a
+	// DequantizeLinear against the tensor its QuantizeLinear reads) or
+	// "order" (the k-th linear layer of each graph). Both omitted otherwise.
+	SQNRdB    *float64 `json:"sqnr_db,omitempty"`
+	SQNRMatch string   `json:"sqnr_match,omitempty"`
 }
 
 // WeightDelta is ‖W_new − W_old‖/‖W_old‖ for one weight tensor.

@@ -86,6 +86,9 @@ var reviewChecks = []reviewCheck{
 	{"batchnorm-drift", "The sample's mean/variance at a BatchNorm input differ from its stored running statistics.", "Check that the sample is preprocessed like the training data, or recalibrate the running statistics."},
 	{"input-scale", "The model input is not roughly zero-centred with unit scale.", "Check the preprocessing (normalisation constants, channel order, value range)."},
 	{"output-health", "Softmax output confidence and, with labels, accuracy and cross-entropy against ln(classes).", "Informational: compare with the team's own evaluation."},
+	{"quant-range", "A quantized tensor clips values outside its integer range, or uses few of its integer levels.", "Recalibrate the scale on data like the sample: a wider scale when values clip, percentile calibration or clipped outliers when few levels are used."},
+	{"float16-range", "A float16 activation exceeds 65504 (Inf in float16) or holds many values below the smallest normal float16.", "Keep that layer in float32, or rescale it."},
+	{"quant-noise", "Compare only: the layer where the SQNR of the quantized model against the float one drops most (6.02 dB per bit).", "Look at the quantizer before that layer (scale, granularity) or keep the layer in float."},
 }
 
 // reviewFigureCaptions describe each figure by its file name prefix.
@@ -96,6 +99,7 @@ var reviewFigureCaptions = []struct{ prefix, caption string }{
 	{"weights", "Weight gain against the Xavier and He references"},
 	{"compare-histograms-", "OLD vs NEW histograms of the layers that changed most"},
 	{"compare-depth-profile", "Activation std along depth, OLD vs NEW"},
+	{"compare-sqnr", "SQNR of NEW against OLD along depth"},
 }
 
 // reviewImageOrder sorts figure names in the order WriteAll produces them.

@@ -155,6 +155,7 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 			fmt.Fprintln(b, "    "+g)
 		}
 	}
+	writeQuantText(b, r)
 	fmt.Fprintln(b)
 	fmt.Fprintln(b, Caution)
 	_, err := io.WriteString(w, b.String())
@@ -176,6 +177,7 @@ func writeCompareText(b *strings.Builder, c *Comparison) {
 			P(d.DeadOld), P(d.DeadNew), P(d.SaturatedOld), P(d.SaturatedNew), F(d.HistogramDistance))
 	}
 	tw.Flush()
+	writeSQNRText(b, c)
 	if len(c.Weights) > 0 {
 		fmt.Fprintln(b, "  weight change ‖W_new − W_old‖/‖W_old‖:")
 		for _, w := range c.Weights {

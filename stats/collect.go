@@ -47,6 +47,8 @@ func classify(n *loader.Node, g *loader.Graph) actInfo {
 		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + fmtG(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
 	case "PRelu":
 		return actInfo{kind: ActReLU, note: "PRelu: a dead unit still passes its learned negative slope"}
+	case "QLinearLeakyRelu", "QLinearSigmoid", "QLinearConv", "QLinearMatMul", "QGemm":
+		return classifyQuantized(n, g)
 	case "Tanh", "Softsign":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: -0.99, satHi: 0.99, strict: true}
 	case "Sigmoid":
@@ -114,6 +116,8 @@ func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
 				}
 			case n.OpType == "Identity" && len(n.Inputs) == 1:
 				next = n.Inputs[0]
+			case n.OpType == "DequantizeLinear": // quantized weights of a QDQ model (quant.go)
+				return dequantConst(g, n)
 			}
 			break
 		}
@@ -211,6 +215,10 @@ type Collector struct {
 	// the worker passed them (AfterObserved).
 	sent, handled atomic.Int64
 	dead          tensor.Deferred
+	// quant accumulates clipping and levels used of quantized tensors (quant.go); nil without quantizers.
+	quant *quantSet
+	// half counts float16 range problems of float16 activations (half.go); nil without float16.
+	half *halfSet
 }
 
 // AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
@@ -392,6 +400,8 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			c.byOut[o] = la
 		}
 	}
+	c.quant = newQuantSet(g, p)
+	c.half = newHalfSet(g, p)
 	for _, in := range g.Inputs {
 		c.inputs[in.Name] = &layerAcc{output: in.Name, mom: NewMoments()}
 		c.inputOrder = append(c.inputOrder, in.Name)
@@ -486,6 +496,8 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 		if t == nil || i >= len(n.Outputs) {
 			continue
 		}
+		t = c.quant.observe(n.Outputs[i], t) // a QLinear* output is observed dequantized
+		c.half.observe(n.Outputs[i], t)
 		la := c.byOut[n.Outputs[i]]
 		if la == nil {
 			continue
@@ -500,6 +512,8 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 // AddInputs records the moments of one batch of model inputs (call before Run).
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
 	for name, t := range batch {
+		c.quant.observe(name, t)
+		c.half.observe(name, t)
 		if la := c.inputs[name]; la != nil {
 			c.queue(obsJob{la: la, t: t, isInput: true})
 		}

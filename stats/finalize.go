@@ -91,7 +91,11 @@ func (c *Collector) Finish(source string) *Collected {
 				is.ChannelStd = append(is.ChannelStd, m.Std())
 			}
 		}
+		is.ClippedFraction, is.LevelsUsedFraction, is.Quantization = c.quant.quantFor(name)
 		r.Input.PerInput = append(r.Input.PerInput, is)
+	}
+	if c.half != nil {
+		r.Model.Float16Weights = c.half.weights
 	}
 	col := &Collected{Report: r, Graph: g}
 	layerIdx := map[*layerAcc]int{}
@@ -129,6 +133,10 @@ func (c *Collector) Finish(source string) *Collected {
 			if la.act.hasSat && la.satN > 0 {
 				l.SaturatedFraction = report.Num(float64(la.sat) / float64(la.satN))
 			}
+		}
+		l.ClippedFraction, l.LevelsUsedFraction, l.Quantization = c.quant.quantFor(la.output)
+		if isHalf, over, sub := c.half.result(la.output); isHalf {
+			l.Float16, l.Float16OverflowFraction, l.Float16SubnormalFraction = true, report.Num(over), report.Num(sub)
 		}
 		layerIdx[la] = len(r.Layers)
 		r.Layers = append(r.Layers, l)

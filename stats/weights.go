@@ -158,14 +158,26 @@ func identicalRows(rows, rowLen int, row func(r int, buf []float32) []float32) (
 	return identical, zero
 }
 
-// ParameterCount sums the element counts of all float initializers and of
-// the float values held by Constant nodes (some exporters store every
-// weight that way). Given a flat graph (probe.Flat) it counts those of the
-// subgraphs too.
+// ParameterCount sums the element counts of all float initializers, of the
+// float values held by Constant nodes (some exporters store every weight
+// that way) and of the integer initializers that hold quantized weights or
+// biases: the data input of a DequantizeLinear, the weight (and bias) inputs
+// of QLinearConv, QLinearMatMul, QGemm, ConvInteger and MatMulInteger. Given
+// a flat graph (probe.Flat) it counts those of the subgraphs too.
 func ParameterCount(g *loader.Graph) int64 {
+	quant := map[string]bool{}
+	at := map[string][]int{"DequantizeLinear": {0}, "QLinearConv": {3, 8}, "QLinearMatMul": {0, 3}, "QGemm": {3, 6},
+		"ConvInteger": {1}, "MatMulInteger": {0, 1}}
+	for _, n := range g.Nodes {
+		for _, i := range at[n.OpType] {
+			if i < len(n.Inputs) && n.Inputs[i] != "" {
+				quant[n.Inputs[i]] = true
+			}
+		}
+	}
 	var n int64
-	for _, t := range g.Initializers {
-		if t.DType.IsFloat() {
+	for name, t := range g.Initializers {
+		if t.DType.IsFloat() || quant[name] {
 			n += int64(t.Size())
 		}
 	}

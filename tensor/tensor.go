@@ -33,6 +33,9 @@ var dtypeNames = map[DType]string{
 	Float32: "float32", Uint8: "uint8", Int8: "int8", Uint16: "uint16", Int16: "int16",
 	Int32: "int32", Int64: "int64", String: "string", Bool: "bool", Float16: "float16",
 	Float64: "float64", Uint32: "uint32", Uint64: "uint64", BFloat16: "bfloat16",
+	// ONNX types the executor does not compute in, named so that errors say which.
+	14: "complex64", 15: "complex128", 17: "float8e4m3fn", 18: "float8e4m3fnuz", 19: "float8e5m2",
+	20: "float8e5m2fnuz", 21: "uint4", 22: "int4", 23: "float4e2m1", 24: "float8e8m0", 25: "uint2", 26: "int2",
 }
 
 func (d DType) String() string {

@@ -171,7 +171,7 @@ func TestInputErrors(t *testing.T) {
 	if code != 2 || !strings.Contains(stderr, "notes.onnx") {
 		t.Errorf("not a model: exit %d, %q", code, stderr)
 	}
-	// unsupported operators are all listed with their node names
+	// unsupported operators are listed one line per type with a node name
 	b := modelbuild.New("odd", 13)
 	b.Input("x", []int{1, 4}, true)
 	b.Node("FancyOp", "first_fancy", []string{"x"}, []string{"y"})
@@ -182,7 +182,7 @@ func TestInputErrors(t *testing.T) {
 		t.Fatal(err)
 	}
 	code, _, stderr = runCLI(t, "check", odd)
-	if code != 2 || !strings.Contains(stderr, `"first_fancy": FancyOp`) || !strings.Contains(stderr, `"second_odd": OtherOp`) {
+	if code != 2 || !strings.Contains(stderr, `FancyOp (domain ai.onnx, opset 13): 1 node "first_fancy"`) || !strings.Contains(stderr, `OtherOp (domain ai.onnx, opset 13): 1 node "second_odd"`) {
 		t.Errorf("unsupported ops: exit %d, %q", code, stderr)
 	}
 	// a sample of the wrong shape names the input and both shapes
