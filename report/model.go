@@ -19,8 +19,18 @@ type Report struct {
 	Output *Output `json:"output,omitempty"`
 	// Compare is set by `vitals compare`: the old checkpoint's numbers and the differences.
 	Compare *Comparison `json:"compare,omitempty"`
+	// Checks are the checks that ran, each with its doc's summary and the
+	// rest of its doc (the "how to read this" of the review reports).
+	Checks []CheckDoc `json:"checks,omitempty"`
 	// Thresholds actually used (defaults merged with --config), for the plots and writers.
 	Thresholds map[string]float64 `json:"thresholds,omitempty"`
+}
+
+// CheckDoc is one check's name and doc: Summary its first sentence, Detail the rest.
+type CheckDoc struct {
+	Name    string `json:"name"`
+	Summary string `json:"summary"`
+	Detail  string `json:"detail"`
 }
 
 // Model describes the model file.

@@ -80,12 +80,53 @@ func DefaultThresholds() map[string]float64 {
 	return t
 }
 
-// HelpLine is the first sentence of a doc.
+// HelpLine is the first sentence of a doc: up to the first ". " that does
+// not end an abbreviation ("et al.", "e.g.", "i.e.", "cf.", "vs."); the
+// help, the report's "how to read this" and docs/checks.md print it whole.
 func HelpLine(doc string) string {
-	if i := strings.Index(doc, ". "); i >= 0 {
+	for i := 0; i < len(doc); i++ {
+		if doc[i] != '.' || (i+1 < len(doc) && doc[i+1] != ' ') {
+			continue
+		}
+		word := doc[:i]
+		if j := strings.LastIndexAny(word, " ("); j >= 0 {
+			word = word[j+1:]
+		}
+		switch word {
+		case "al", "e.g", "i.e", "cf", "vs", "eq", "Eq":
+			continue
+		}
 		return doc[:i+1]
 	}
 	return doc
+}
+
+// DocRest is the doc after its first sentence.
+func DocRest(doc string) string {
+	return strings.TrimSpace(strings.TrimPrefix(doc, HelpLine(doc)))
+}
+
+// Docs lists the checks' names with their summary and the rest of their
+// doc, for the report's "how to read this".
+func Docs(checks []*Check) []report.CheckDoc {
+	out := make([]report.CheckDoc, 0, len(checks))
+	for _, c := range checks {
+		out = append(out, report.CheckDoc{Name: c.Name, Summary: HelpLine(c.Doc), Detail: DocRest(c.Doc)})
+	}
+	return out
+}
+
+// ValidateThresholds rejects a threshold no check in Checks (or in extra,
+// e.g. compare's checks) knows, naming the known ones, or a value that is
+// not finite; call it before any batch runs.
+func ValidateThresholds(th map[string]float64, extra ...*Check) error {
+	known := DefaultThresholds()
+	for _, c := range extra {
+		for k, v := range c.Defaults {
+			known[k] = v
+		}
+	}
+	return validateAgainst(th, known)
 }
 
 // Run applies the checks with the given thresholds (nil: defaults), fills
@@ -95,10 +136,15 @@ func Run(col *Collected, checks []*Check, thresholds map[string]float64) error {
 		return err
 	}
 	th := DefaultThresholds()
-	for k, v := range thresholds {
-		if _, ok := th[k]; !ok {
-			return fmt.Errorf("unknown threshold %q (known: %s)", k, strings.Join(sortedKeys(th), ", "))
+	for _, c := range checks { // a list other than Checks (tests, compare) brings its own defaults
+		for k, v := range c.Defaults {
+			th[k] = v
 		}
+	}
+	if err := validateAgainst(thresholds, th); err != nil {
+		return err
+	}
+	for k, v := range thresholds {
 		th[k] = v
 	}
 	var all []report.Finding
@@ -109,7 +155,20 @@ func Run(col *Collected, checks []*Check, thresholds map[string]float64) error {
 	}
 	r := col.Report
 	r.Thresholds = th
+	r.Checks = Docs(checks)
 	r.Ranking, r.Findings = rank(r, all)
+	return nil
+}
+
+func validateAgainst(th, known map[string]float64) error {
+	for _, k := range sortedKeys(th) {
+		if _, ok := known[k]; !ok {
+			return fmt.Errorf("unknown threshold %q (known: %s)", k, strings.Join(sortedKeys(known), ", "))
+		}
+		if v := th[k]; math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("threshold %q: %v is not a finite number", k, v)
+		}
+	}
 	return nil
 }
 
@@ -207,3 +266,7 @@ func plainValue(v any) any {
 	}
 	return v
 }
+
+// CompareChecks are the findings `vitals compare` adds (see compare.go):
+// their thresholds are valid in --config like the others'.
+var CompareChecks = []*Check{}
