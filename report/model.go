@@ -88,6 +88,19 @@ type Layer struct {
 	P99 *float64 `json:"p99"`
 	// Activation is "relu", "saturating" or "" (what kind of unit statistics were taken).
 	Activation string `json:"activation,omitempty"`
+	// Role is what an activation is for, read from the graph: "hidden",
+	// "gate" (its output multiplies a larger tensor), "self-gate" (the
+	// sigmoid of x·σ(x)), "head" (a graph output, or reaching one only
+	// through shape and post-processing ops); "" for other layers.
+	Role string `json:"role,omitempty"`
+	// DeadAtHalf is the dead-unit count after the first half of the
+	// batches (ReLU family); a final count below it was still falling.
+	DeadAtHalf *int `json:"dead_at_half,omitempty"`
+	// GateOff and GateOn count a gate's channels that stayed at the lower
+	// or upper saturation bound on every sample (pruned in effect, or a
+	// gate that does nothing).
+	GateOff *int `json:"gate_off,omitempty"`
+	GateOn  *int `json:"gate_on,omitempty"`
 	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
 	Note string `json:"note,omitempty"`
 }

@@ -2,12 +2,14 @@ package stats
 
 var saturationCheck = &Check{
 	Name: "saturation",
-	Doc: "Share of tanh/sigmoid/softsign outputs pinned at their limits (tanh |y|>0.99; sigmoid y<0.01 or y>0.99; hard variants at their clip bounds). " +
-		"Saturated units pass almost no gradient (common practice). Usual causes: inputs not normalised, weights too large.",
+	Doc: "Share of outputs of hidden tanh/sigmoid/softsign activations pinned at their limits (tanh |y|>0.99; sigmoid y<0.01 or y>0.99; hard variants at their clip bounds). " +
+		"Saturated units pass almost no gradient (common practice). Usual causes: inputs not normalised, weights too large. " +
+		"Only hidden activations are judged, by their role in the graph: an output head (a graph output, or reaching one only through reshaping and post-processing) is meant to be confident; " +
+		"a gate (its output multiplies a larger tensor, as in squeeze-and-excitation) is judged by gate-constant; the sigmoid of x·σ(x) passes x or 0 when pinned, as a ReLU does.",
 	Defaults: map[string]float64{"saturation.warning": 0.2, "saturation.error": 0.5},
 	Run: func(p *Pass) {
 		for i, l := range p.Report.Layers {
-			if l.SaturatedFraction == nil || p.LayerKind[i] != ActSaturating {
+			if l.SaturatedFraction == nil || p.LayerKind[i] != ActSaturating || (l.Role != RoleHidden && l.Role != "") {
 				continue
 			}
 			f := *l.SaturatedFraction
@@ -15,8 +17,10 @@ var saturationCheck = &Check{
 			if !ok {
 				continue
 			}
-			p.Emit(sev, l.Node, f/p.T("warning"), map[string]any{"saturated_fraction": f, "mean": l.Mean, "std": l.Std,
-				"warning_at": p.T("warning"), "error_at": p.T("error")},
+			ev := map[string]any{"saturated_fraction": f, "mean": l.Mean, "std": l.Std, "role": l.Role,
+				"warning_at": p.T("warning"), "error_at": p.T("error")}
+			addFeed(p, i, ev)
+			p.Emit(sev, l.Node, f/p.T("warning"), ev,
 				"%s of %s outputs sit at the saturation limits, where the gradient is nearly zero. Usual fixes: normalise the inputs, smaller initial weights (Xavier), a normalisation layer before the activation",
 				pct(f), l.Op)
 		}

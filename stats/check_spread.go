@@ -60,3 +60,13 @@ func alsoText(f spreadFinding) string {
 	}
 	return fmt.Sprintf(" %d other layers downstream of %q cross the line too.", len(f.others), f.first.Node)
 }
+
+// stackWeightNames are the names of the weights along a stack, in order
+// (where weight-scale looks for a cause of a spread finding).
+func stackWeightNames(p *Pass, st Stack) []string {
+	out := []string{}
+	for _, wi := range st.Weights {
+		out = append(out, p.Report.Weights[wi].Name)
+	}
+	return out
+}

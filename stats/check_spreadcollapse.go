@@ -19,7 +19,7 @@ var spreadCollapseCheck = &Check{
 				sev = report.Error
 			}
 			p.Emit(sev, f.last.Node, math.Log10(p.T("warning")/math.Max(f.ratio, 1e-30)), map[string]any{"std_first": f.first.Std, "std_last": f.last.Std,
-				"ratio": f.ratio, "layers": len(f.st.Layers), "first": f.first.Node, "compound_gain": compoundGain(p, f.st), "also": f.others},
+				"ratio": f.ratio, "layers": len(f.st.Layers), "first": f.first.Node, "compound_gain": compoundGain(p, f.st), "also": f.others, "weights": stackWeightNames(p, f.st), "plain": !f.st.Merged},
 				"activation std falls from %.3g at %q to %.3g here over %d layers (ratio %.2g): the signal vanishes with depth.%s Usual fixes: Xavier/He initialisation for the activation used, normalisation layers",
 				report.Val(f.first.Std), f.first.Node, report.Val(f.last.Std), len(f.st.Layers), f.ratio, alsoText(f))
 		}

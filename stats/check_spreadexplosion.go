@@ -19,7 +19,7 @@ var spreadExplosionCheck = &Check{
 				sev = report.Error
 			}
 			p.Emit(sev, f.last.Node, math.Log10(f.ratio/p.T("warning"))+1, map[string]any{"std_first": f.first.Std, "std_last": f.last.Std,
-				"ratio": f.ratio, "layers": len(f.st.Layers), "first": f.first.Node, "compound_gain": compoundGain(p, f.st), "also": f.others},
+				"ratio": f.ratio, "layers": len(f.st.Layers), "first": f.first.Node, "compound_gain": compoundGain(p, f.st), "also": f.others, "weights": stackWeightNames(p, f.st), "plain": !f.st.Merged},
 				"activation std grows from %.3g at %q to %.3g here over %d layers (ratio %.3g): the signal explodes with depth.%s Usual fixes: smaller initial weights (Xavier/He), normalisation layers, gradient clipping",
 				report.Val(f.first.Std), f.first.Node, report.Val(f.last.Std), len(f.st.Layers), f.ratio, alsoText(f))
 		}

@@ -1,7 +1,9 @@
 package stats
 
 import (
+	"fmt"
 	"math"
+	"strings"
 
 	"github.com/vitals-health/vitals/report"
 )
@@ -63,63 +65,101 @@ func initRules(follow string, fanIn, fanOut int) []initRule {
 	return append(rules, initRule{"fan-out", math.Sqrt(in / out)}, initRule{"Glorot normalised", math.Sqrt(2 * in / (in + out))})
 }
 
+// weightJudgement is one weight's gain against the usual initialisation rules.
+type weightJudgement struct {
+	w       report.Weight
+	near    initRule
+	ratio   float64 // gain / the nearest rule's gain
+	fits    bool    // within [low, high]× some rule
+	forward float64 // gain / the forward rule's: the factor on the spread passing forward
+}
+
+// judgeWeights judges every weight with a gain and no normalisation after it, by name.
+func judgeWeights(p *Pass) map[string]weightJudgement {
+	out := map[string]weightJudgement{}
+	for _, w := range p.Report.Weights {
+		if w.FollowedBy == "normalization" || w.Gain == nil || *w.Gain == 0 {
+			continue
+		}
+		rules := initRules(w.FollowedBy, w.FanIn, w.FanOut)
+		j := weightJudgement{w: w, near: rules[0], ratio: *w.Gain / rules[0].gain, forward: *w.Gain / rules[0].gain}
+		for _, r := range rules {
+			q := *w.Gain / r.gain
+			j.fits = j.fits || (q >= p.T("low") && q <= p.T("high"))
+			if math.Abs(math.Log(q)) < math.Abs(math.Log(j.ratio)) {
+				j.near, j.ratio = r, q
+			}
+		}
+		out[w.Name] = j
+	}
+	return out
+}
+
+func (j weightJudgement) text() string {
+	s := fmt.Sprintf("weight %q has gain std·√fan_in = %.3g, %.2g× the nearest usual initialisation (%s, %.3g) for %s", j.w.Name, *j.w.Gain, j.ratio, j.near.name, j.near.gain, followName(j.w.FollowedBy))
+	// PyTorch's default for Conv and Linear, U(±1/√fan_in), gives g = 1/√3
+	// (a value from the framework's source, common practice)
+	if math.Abs(*j.w.Gain*math.Sqrt(3)-1) < 0.05 {
+		s += ", the framework default U(±1/√fan_in)"
+	}
+	return s
+}
+
 var weightScaleCheck = &Check{
 	Name: "weight-scale",
-	Doc: "Weight gain g = std·√fan_in against the gains the usual initialisation rules give for the activation that follows: Var = 2/fan_in or 2/fan_out for the ReLU family (He et al. 2015, forward and backward cases), " +
-		"1/fan_in, 1/fan_out or 2/(fan_in+fan_out) otherwise (Glorot & Bengio 2010); a warning when g is outside [low, high]× every one of them. " +
-		"Also the compound gain ∏(g/ref) along a stack, with ref the forward rule's √2 or 1, which predicts the spread ratio of a plain chain (He et al. 2015, eq. 10); not for stacks through a residual Add, a Concat or a gating Mul, whose other path adds its own variance. " +
+	Doc: "Names a weight as the likely cause inside a dead-units, saturation or spread finding downstream of it when its gain g = std·√fan_in is outside [low, high]× every usual initialisation rule for the activation that follows, in the direction that explains the finding. " +
+		"The rules: Var = 2/fan_in or 2/fan_out for the ReLU family (He et al. 2015, forward and backward cases), 1/fan_in, 1/fan_out or 2/(fan_in+fan_out) otherwise (Glorot & Bengio 2010). " +
+		"A trained network's weights legitimately leave the initialisation scale (BatchNorm folded into a convolution, fixed signal-processing bases, recurrent matrices, the last classifier layer), so a gain alone is evidence, shown in the weights table and plot, never a finding by itself; " +
+		"its consequences are: weights too large before dead or saturated units, the compound gain ∏(g/ref) along a plain chain predicting its spread ratio (He et al. 2015, eq. 10). " +
 		"Skipped where a normalisation layer follows, since it rescales the output.",
 	Defaults: map[string]float64{"weight-scale.low": 0.5, "weight-scale.high": 2, "weight-scale.compound_low": 0.1, "weight-scale.compound_high": 10},
 	Run: func(p *Pass) {
-		for _, w := range p.Report.Weights {
-			if w.FollowedBy == "normalization" || w.Gain == nil {
+		judged := judgeWeights(p)
+		for _, f := range p.Prior() {
+			var names []string
+			large := true // the direction that explains the finding
+			switch f.Check {
+			case "dead-units", "saturation":
+				if n, ok := f.Evidence["fed_by"].(string); ok {
+					names = []string{n}
+				}
+			case "spread-collapse", "spread-explosion":
+				names, _ = f.Evidence["weights"].([]string)
+				large = f.Check == "spread-explosion"
+			default:
 				continue
 			}
-			rules := initRules(w.FollowedBy, w.FanIn, w.FanOut)
-			near, ratio, fits := rules[0], *w.Gain/rules[0].gain, false
-			for _, r := range rules {
-				q := *w.Gain / r.gain
-				fits = fits || (q >= p.T("low") && q <= p.T("high"))
-				if math.Abs(math.Log(q)) < math.Abs(math.Log(ratio)) {
-					near, ratio = r, q
+			var causes []string
+			worst := 1.0
+			for _, n := range names {
+				j, ok := judged[n]
+				if !ok || j.fits || (j.ratio > 1) != large {
+					continue
+				}
+				causes = append(causes, j.text())
+				if math.Abs(math.Log(j.ratio)) > math.Abs(math.Log(worst)) {
+					worst = j.ratio
 				}
 			}
-			if fits {
+			// along a plain chain the compound gain predicts the spread ratio
+			if cg, ok := f.Evidence["compound_gain"].(float64); ok && f.Evidence["plain"] == true &&
+				((large && cg > p.T("compound_high")) || (!large && cg < p.T("compound_low"))) {
+				causes = append(causes, fmt.Sprintf("the product of the weight gains along this chain, ∏(g/ref) = %.3g, predicts that ratio", cg))
+				if math.Abs(math.Log(cg)) > math.Abs(math.Log(worst)) {
+					worst = cg
+				}
+			}
+			if len(causes) == 0 {
 				continue
 			}
-			if *w.Gain == 0 {
-				p.Emit(report.Warning, w.Node, 3, map[string]any{"weight": w.Name, "gain": 0.0, "std": w.Std, "fan_in": w.FanIn},
-					"every entry of weight %q has the same value (std 0): the layer cannot tell its inputs apart. Usual cause: constant or zero initialisation", w.Name)
-				continue
+			f.Evidence["likely_cause"] = causes
+			f.Evidence["cause_gain_ratio"] = worst
+			// f is a copy; its Evidence map is shared, its Message is set through the slice
+			for k := range *p.prior {
+				if (*p.prior)[k].Node == f.Node && (*p.prior)[k].Check == f.Check && (*p.prior)[k].Message == f.Message {
+					(*p.prior)[k].Message += ". Likely cause: " + strings.Join(causes, "; ") + " (He et al. 2015, eq. 10: each layer scales the spread by about its g/ref)"
+				}
 			}
-			strength := math.Max(ratio/p.T("high"), p.T("low")/math.Max(ratio, 1e-30))
-			// PyTorch's default for Conv and Linear, U(±1/√fan_in), gives
-			// g = 1/√3 (a value from the framework's source, common
-			// practice): usual, but not a scale-preserving rule before a ReLU
-			frameworkDefault := math.Abs(*w.Gain*math.Sqrt(3)-1) < 0.05
-			forward := *w.Gain / rules[0].gain // the forward rule's gain preserves the spread
-			note := ""
-			if frameworkDefault {
-				note = " This is the framework default U(±1/√fan_in) (gain 1/√3), which does not preserve the scale here."
-			}
-			p.Emit(report.Warning, w.Node, math.Min(strength, 3), map[string]any{"weight": w.Name, "gain": *w.Gain, "reference": near.gain, "rule": near.name,
-				"ratio": ratio, "fan_in": w.FanIn, "fan_out": w.FanOut, "std": w.Std, "followed_by": w.FollowedBy, "framework_default": frameworkDefault,
-				"forward_factor": forward},
-				"weight %q has gain std·√fan_in = %.3g, %.2g× the nearest usual initialisation (%s, %.3g) for %s; without normalisation it scales the spread of the signal passing forward by about %.2g× (He et al. 2015, eq. 10).%s",
-				w.Name, *w.Gain, ratio, near.name, near.gain, followName(w.FollowedBy), forward, note)
-		}
-		for _, st := range p.Stacks {
-			if st.Merged { // He et al. 2015 eq. 10 holds along a plain chain only
-				continue
-			}
-			cg := compoundGain(p, st)
-			if cg == nil || len(st.Weights) < 2 || (*cg >= p.T("compound_low") && *cg <= p.T("compound_high")) {
-				continue
-			}
-			last := p.Report.Layers[st.Layers[len(st.Layers)-1]]
-			p.Emit(report.Warning, last.Node, 1, map[string]any{"compound_gain": *cg, "weights": len(st.Weights)},
-				"the product of weight gains over the %d linear layers of this stack is %.3g× the reference: the spread is predicted to change that much with depth",
-				len(st.Weights), *cg)
 		}
 	},
 }

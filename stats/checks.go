@@ -25,7 +25,22 @@ type Pass struct {
 	check      *Check
 	Thresholds map[string]float64
 	findings   []report.Finding
+	prior      *[]report.Finding // the findings of the checks that ran before
 }
+
+// Prior is the findings of the checks that ran before this one; a check
+// may add evidence to them (weight-scale names a likely cause) but not
+// remove them.
+func (p *Pass) Prior() []report.Finding {
+	if p.prior == nil {
+		return nil
+	}
+	return *p.prior
+}
+
+// TOf returns another check's threshold "<check>.<param>" (the thresholds
+// of the checks that ran, merged with the defaults).
+func (p *Pass) TOf(check, param string) float64 { return p.Thresholds[check+"."+param] }
 
 // T returns the threshold "<check>.<param>".
 func (p *Pass) T(param string) float64 { return p.Thresholds[p.check.Name+"."+param] }
@@ -46,7 +61,7 @@ func (p *Pass) Emit(sev report.Severity, node string, strength float64, evidence
 }
 
 // Checks is the list of health checks, in the order they run.
-var Checks = []*Check{nonfiniteCheck, deadUnitsCheck, saturationCheck, spreadCollapseCheck, spreadExplosionCheck,
+var Checks = []*Check{nonfiniteCheck, deadUnitsCheck, saturationCheck, gateConstantCheck, spreadCollapseCheck, spreadExplosionCheck,
 	weightScaleCheck, symmetricUnitsCheck, batchnormDriftCheck, inputScaleCheck, outputHealthCheck}
 
 // Validate rejects an undocumented or duplicate check, or thresholds not named after their check.
@@ -149,7 +164,7 @@ func Run(col *Collected, checks []*Check, thresholds map[string]float64) error {
 	}
 	var all []report.Finding
 	for _, c := range checks {
-		p := &Pass{Collected: col, check: c, Thresholds: th}
+		p := &Pass{Collected: col, check: c, Thresholds: th, prior: &all}
 		c.Run(p)
 		all = append(all, p.findings...)
 	}

@@ -21,6 +21,10 @@ type Collected struct {
 	BatchNorms []BNStat
 	// LayerKind[i] is the activation kind of Report.Layers[i].
 	LayerKind []ActKind
+	// FeedWeight maps an activation layer (index into Report.Layers) to the
+	// weight (index into Report.Weights) of the linear layer that feeds it
+	// with no normalisation between them.
+	FeedWeight map[int]int
 }
 
 // Stack is a chain of activation layers and the weights of the linear layers between them.
@@ -107,6 +111,9 @@ func (c *Collector) Finish(source string) *Collected {
 				l.P01, l.P99 = report.Num(la.hist.Quantile(0.01)), report.Num(la.hist.Quantile(0.99))
 			}
 		}
+		if la.act.kind != ActNone && la.output == la.node.Outputs[0] {
+			l.Role = c.roleOf(la)
+		}
 		if la.act.kind != ActNone && len(la.everPos) > 0 {
 			l.Units = report.IntPtr(len(la.everPos))
 			l.UnitAxis = report.IntPtr(la.unitAxis)
@@ -119,11 +126,27 @@ func (c *Collector) Finish(source string) *Collected {
 					}
 				}
 				l.DeadFraction = report.Num(float64(dead) / float64(len(la.everPos)))
+				if n := len(la.deadTrail); n >= 2 {
+					l.DeadAtHalf = report.IntPtr(int(la.deadTrail[(n+1)/2-1]))
+				}
 			} else {
 				l.Activation = "saturating"
 			}
 			if la.act.hasSat && la.satN > 0 {
 				l.SaturatedFraction = report.Num(float64(la.sat) / float64(la.satN))
+			}
+			if l.Role == RoleGate && len(la.unitLo) > 0 {
+				lo, hi := la.act.satBounds() // NaN bounds (no rule) match nothing
+				off, on := 0, 0
+				for u := range la.unitLo {
+					if la.unitHi[u] <= lo {
+						off++
+					}
+					if la.unitLo[u] >= hi {
+						on++
+					}
+				}
+				l.GateOff, l.GateOn = report.IntPtr(off), report.IntPtr(on)
 			}
 		}
 		layerIdx[la] = len(r.Layers)
@@ -137,7 +160,7 @@ func (c *Collector) Finish(source string) *Collected {
 	if r.Layers == nil {
 		r.Layers = []report.Layer{}
 	}
-	col.Stacks = c.stacks(layerIdx, r)
+	col.Stacks, col.FeedWeight = c.stacks(layerIdx, r)
 	col.BatchNorms = c.batchNorms()
 	if c.out != nil && c.out.rows > 0 {
 		o := c.out
@@ -186,7 +209,7 @@ func (c *Collector) followerOf(n *loader.Node) string {
 // stacks builds chains of activation layers: the predecessor of an activation
 // is the nearest activation upstream along data inputs, unless a normalisation
 // node lies between them.
-func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack {
+func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stack, map[int]int) {
 	weightIdx := map[string]int{}
 	for i, w := range r.Weights {
 		weightIdx[w.Node] = i
@@ -197,6 +220,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		merged  bool
 	}
 	links := map[*layerAcc]link{}
+	feed := map[int]int{}
 	var acts []*layerAcc
 	for _, la := range c.layers {
 		if _, ok := layerIdx[la]; !ok || !activationOps[la.node.OpType] || la.output != la.node.Outputs[0] || c.isGate(la.output) {
@@ -233,6 +257,9 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 			cur = p
 		}
 		links[la] = lk
+		if len(lk.weights) > 0 {
+			feed[layerIdx[la]] = lk.weights[len(lk.weights)-1]
+		}
 	}
 	isPred := map[*layerAcc]bool{}
 	for _, lk := range links {
@@ -262,7 +289,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		}
 		out = append(out, st)
 	}
-	return out
+	return out, feed
 }
 
 // isGate reports whether a value only scales a larger one: every reader is

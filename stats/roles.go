@@ -1,0 +1,85 @@
+package stats
+
+import "github.com/vitals-health/vitals/loader"
+
+// Activation roles, read from the graph (see report.Layer.Role).
+const (
+	RoleHidden   = "hidden"
+	RoleGate     = "gate"
+	RoleSelfGate = "self-gate"
+	RoleHead     = "head"
+)
+
+// postOps only reshape, select, reorder, convert or resize values: an
+// activation that reaches the graph outputs through them alone is an output
+// head (its values are the model's answer, meant to be confident).
+var postOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true, "Unsqueeze": true, "Identity": true,
+	"Transpose": true, "Concat": true, "Slice": true, "Split": true, "Gather": true, "Cast": true, "ArgMax": true,
+	"TopK": true, "ReduceMax": true, "Resize": true, "Upsample": true, "Expand": true, "Tile": true, "DepthToSpace": true}
+
+// roleOf classifies an activation output:
+//   - gate: every reader is a Mul whose other data input holds more values
+//     (a squeeze-and-excitation gate [N, C, 1, 1] times its feature map);
+//   - self-gate: a Sigmoid/HardSigmoid whose only reader multiplies it by the
+//     activation's own input, x·σ(x) (SiLU, hard-swish written out), where a
+//     pinned σ means the unit acts as identity or zero, as a ReLU does;
+//   - head: the value is a graph output or reaches the outputs only through
+//     postOps;
+//   - hidden otherwise.
+func (c *Collector) roleOf(la *layerAcc) string {
+	switch {
+	case c.isGate(la.output):
+		return RoleGate
+	case c.isSelfGate(la.node):
+		return RoleSelfGate
+	case c.onlyToOutputs(la.output, 0):
+		return RoleHead
+	}
+	return RoleHidden
+}
+
+func (c *Collector) isSelfGate(n *loader.Node) bool {
+	if (n.OpType != "Sigmoid" && n.OpType != "HardSigmoid") || len(n.Inputs) == 0 || len(n.Outputs) == 0 {
+		return false
+	}
+	readers := c.consumer[n.Outputs[0]]
+	if len(readers) != 1 || readers[0].OpType != "Mul" || len(readers[0].Inputs) != 2 {
+		return false
+	}
+	m := readers[0]
+	return (m.Inputs[0] == n.Outputs[0] && m.Inputs[1] == n.Inputs[0]) || (m.Inputs[1] == n.Outputs[0] && m.Inputs[0] == n.Inputs[0])
+}
+
+// onlyToOutputs reports whether value reaches graph outputs, and only
+// through postOps (depth bounds the walk).
+func (c *Collector) onlyToOutputs(value string, depth int) bool {
+	if depth > 32 {
+		return false
+	}
+	isOut := false
+	for _, o := range c.Model.Graph.Outputs {
+		if o.Name == value {
+			isOut = true
+		}
+	}
+	readers := c.consumer[value]
+	if len(readers) == 0 {
+		return isOut
+	}
+	for _, n := range readers {
+		if !postOps[n.OpType] {
+			return false
+		}
+		// a post-processing op's data output; constant shape inputs do not matter
+		reaches := false
+		for _, o := range n.Outputs {
+			if o != "" && c.onlyToOutputs(o, depth+1) {
+				reaches = true
+			}
+		}
+		if !reaches {
+			return false
+		}
+	}
+	return true
+}
