@@ -51,14 +51,19 @@ type Input struct {
 
 // InputStat is the moments of one model input over the sample, overall and per channel.
 type InputStat struct {
-	Name        string    `json:"name"`
-	Path        string    `json:"path,omitempty"`
-	Shape       []int     `json:"shape"`
-	Mean        *float64  `json:"mean"`
-	Std         *float64  `json:"std"`
-	ChannelAxis *int      `json:"channel_axis,omitempty"`
-	ChannelMean []float64 `json:"channel_mean,omitempty"`
-	ChannelStd  []float64 `json:"channel_std,omitempty"`
+	Name  string   `json:"name"`
+	Path  string   `json:"path,omitempty"`
+	Shape []int    `json:"shape"`
+	Mean  *float64 `json:"mean"`
+	Std   *float64 `json:"std"`
+	Min   *float64 `json:"min,omitempty"`
+	Max   *float64 `json:"max,omitempty"`
+	// SelfNormalised: the graph normalises this input itself (its first
+	// operations are Sub/Div/Mul/Add by constants or a normalisation layer).
+	SelfNormalised bool      `json:"self_normalised,omitempty"`
+	ChannelAxis    *int      `json:"channel_axis,omitempty"`
+	ChannelMean    []float64 `json:"channel_mean,omitempty"`
+	ChannelStd     []float64 `json:"channel_std,omitempty"`
 }
 
 // Layer is the statistics of one node output over the whole sample.

@@ -8,50 +8,47 @@ import (
 
 var inputScaleCheck = &Check{
 	Name: "input-scale",
-	Doc: "Per-channel mean and std of each float model input. " +
-		"Zero-centred, unit-scale input is common practice; raw pixel values or unscaled sensor units saturate or kill the first layers.",
-	Defaults: map[string]float64{"input-scale.max_abs_mean": 1, "input-scale.std_low": 0.2, "input-scale.std_high": 5},
+	Doc: "Scale of each float model input judged as a whole: a warning only for values no common preprocessing produces (|mean| over raw_abs_mean or std over raw_std, such as raw 0–255 pixels or integer audio samples), otherwise information. " +
+		"Standardisation gives std 1, [0,1] or [−1,1] scaling keeps |x| ≤ 1, and ImageNet normalisation keeps x within [−2.12, 2.64] (its published per-channel mean and std); the raw lines sit far outside all of them (common practice). " +
+		"An input off zero-centred unit scale but within those lines (raw audio in [−1, 1] at speech amplitude, a page of mostly white paper after ImageNet normalisation, standardised tables with near-constant columns) is information, as are constant columns. " +
+		"Skipped when the graph normalises its own input (Sub/Div by constants, or a normalisation layer first), where batchnorm-drift compares the input with the stored statistics.",
+	Defaults: map[string]float64{"input-scale.max_abs_mean": 1, "input-scale.std_low": 0.2, "input-scale.std_high": 5,
+		"input-scale.raw_abs_mean": 10, "input-scale.raw_std": 10},
 	Run: func(p *Pass) {
 		if p.Report.Input.Source == "synthetic" {
 			return
 		}
 		for _, in := range p.Report.Input.PerInput {
-			if in.Mean == nil {
+			if in.Mean == nil || in.SelfNormalised {
 				continue
 			}
-			means, stds := in.ChannelMean, in.ChannelStd
-			if len(means) == 0 {
-				means, stds = []float64{*in.Mean}, []float64{report.Val(in.Std)}
-			}
-			bad, constant := 0, 0
-			worstMean, worstStd := 0.0, 1.0
-			for i := range means {
-				m, s := means[i], stds[i]
+			constant := 0
+			for _, s := range in.ChannelStd {
 				if s == 0 {
 					constant++ // a constant feature: no rescaling changes it
-					continue
-				}
-				if math.Abs(m) > p.T("max_abs_mean") || s < p.T("std_low") || s > p.T("std_high") {
-					bad++
-					if math.Abs(m) > math.Abs(worstMean) {
-						worstMean = m
-					}
-					if math.Abs(math.Log(s)) > math.Abs(math.Log(worstStd)) {
-						worstStd = s
-					}
 				}
 			}
 			if constant > 0 {
-				p.Emit(report.Info, in.Name, 1, map[string]any{"constant_channels": constant, "channels": len(means)},
-					"input %q: %d of %d channel(s) constant over the sample (std 0): they carry no information here", in.Name, constant, len(means))
+				p.Emit(report.Info, in.Name, 1, map[string]any{"constant_channels": constant, "channels": len(in.ChannelStd)},
+					"input %q: %d of %d channel(s) constant over the sample (std 0): they carry no information here", in.Name, constant, len(in.ChannelStd))
 			}
-			if bad == 0 {
+			m, s := *in.Mean, report.Val(in.Std)
+			ev := map[string]any{"mean": m, "std": s, "min": in.Min, "max": in.Max}
+			if math.Abs(m) > p.T("raw_abs_mean") || s > p.T("raw_std") {
+				hint := ""
+				if lo, hi := report.Val(in.Min), report.Val(in.Max); lo >= 0 && hi > 1 && hi <= 255 {
+					hint = " The range [0, 255] suggests raw 8-bit pixel values."
+				}
+				p.Emit(report.Warning, in.Name, math.Max(math.Abs(m)/p.T("raw_abs_mean"), s/p.T("raw_std")), ev,
+					"input %q has mean %.3g and std %.3g over the sample, values that no common preprocessing (standardisation, [0,1] or [−1,1] scaling, ImageNet normalisation) produces.%s Check that the sample was preprocessed exactly as in training",
+					in.Name, m, s, hint)
 				continue
 			}
-			p.Emit(report.Warning, in.Name, 1+float64(bad)/float64(len(means)), map[string]any{"channels_off_scale": bad, "channels": len(means),
-				"mean": in.Mean, "std": in.Std, "worst_channel_mean": worstMean, "worst_channel_std": worstStd},
-				"input %q: %d of %d channel(s) not zero-centred, unit-scale (among them: largest |mean| %.3g, std furthest from 1: %.3g). Check that the sample was preprocessed exactly as in training (scaling, mean/std normalisation)",
-				in.Name, bad, len(means), worstMean, worstStd)
+			if math.Abs(m) > p.T("max_abs_mean") || s < p.T("std_low") || s > p.T("std_high") {
+				p.Emit(report.Info, in.Name, 1, ev,
+					"input %q has mean %.3g and std %.3g over the sample: not zero-centred unit scale, but within what common preprocessing gives (for example [−1, 1] audio, mostly-white images after ImageNet normalisation); make sure it matches training",
+					in.Name, m, s)
+			}
 		}
 	},
 }

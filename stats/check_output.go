@@ -6,8 +6,9 @@ import (
 
 var outputHealthCheck = &Check{
 	Name: "output-health",
-	Doc: "The final output over the sample: mean top probability (overconfident or near-uniform), and with labels the accuracy and mean cross-entropy against ln C. " +
-		"Common practice: an untrained C-class softmax has loss ≈ ln C.",
+	Doc: "The first graph output, where it is a class distribution, over the sample: mean top probability (overconfident or near-uniform), and with labels the accuracy and mean cross-entropy against ln C. " +
+		"Common practice: an untrained C-class softmax has loss ≈ ln C. " +
+		"Judged only for class scores: [N, C] (probabilities or logits) or a Softmax/LogSoftmax over the last axis; a per-pixel map such as [N, 1, H, W] or a regression output gets plain statistics in the layers table.",
 	Defaults: map[string]float64{"output-health.overconfident": 0.99, "output-health.uniform_factor": 1.5},
 	Run: func(p *Pass) {
 		o := p.Report.Output

@@ -79,7 +79,10 @@ func (c *Collector) Finish(source string) *Collected {
 		is := report.InputStat{Name: name, Shape: la.shape, Mean: report.Num(la.mom.Mean), Std: report.Num(la.mom.Std())}
 		if la.mom.N == 0 {
 			is.Mean, is.Std = nil, nil
+		} else {
+			is.Min, is.Max = report.Num(la.mom.Min), report.Num(la.mom.Max)
 		}
+		is.SelfNormalised = c.selfNormalised(name)
 		if len(la.perChan) > 0 && len(la.shape) > 0 {
 			ax := 1
 			if len(la.shape) < 3 {
@@ -176,6 +179,32 @@ func (c *Collector) Finish(source string) *Collected {
 	r.Findings = []report.Finding{}
 	r.Ranking = []report.Rank{}
 	return col
+}
+
+// selfNormalised reports whether every reader of a graph input is a
+// normalisation layer or an elementwise Sub/Div/Mul/Add with a constant
+// (the graph does its own preprocessing, (x − mean)/std).
+func (c *Collector) selfNormalised(name string) bool {
+	readers := c.consumer[name]
+	if len(readers) == 0 {
+		return false
+	}
+	for _, n := range readers {
+		switch {
+		case normOps[n.OpType]:
+		case (n.OpType == "Sub" || n.OpType == "Div" || n.OpType == "Mul" || n.OpType == "Add") && len(n.Inputs) == 2:
+			other := n.Inputs[0]
+			if other == name {
+				other = n.Inputs[1]
+			}
+			if _, ok := constValue(c.Model.Graph, other); !ok {
+				return false
+			}
+		default:
+			return false
+		}
+	}
+	return true
 }
 
 // followerOf names what follows a linear node: an activation op type,
