@@ -2,6 +2,7 @@ package stats
 
 import (
 	"fmt"
+	"sort"
 
 	"github.com/vitals-health/vitals/report"
 )
@@ -18,3 +19,5 @@ func sevFor(v, warn, errT float64) (report.Severity, bool) {
 }
 
 func pct(x float64) string { return fmt.Sprintf("%.1f%%", 100*x) }
+
+func sortFloats(s []float64) { sort.Float64s(s) }

@@ -151,7 +151,7 @@ func Run(col *Collected, checks []*Check, thresholds map[string]float64) error {
 		return err
 	}
 	th := DefaultThresholds()
-	for _, c := range checks { // a list other than Checks (tests, compare) brings its own defaults
+	for _, c := range append(CompareChecks, checks...) { // a list other than Checks (tests, compare) brings its own defaults
 		for k, v := range c.Defaults {
 			th[k] = v
 		}
@@ -282,6 +282,6 @@ func plainValue(v any) any {
 	return v
 }
 
-// CompareChecks are the findings `vitals compare` adds (see compare.go):
-// their thresholds are valid in --config like the others'.
-var CompareChecks = []*Check{}
+// CompareChecks are the checks `vitals compare` adds, judging NEW against
+// OLD (see compare.go); their thresholds are valid in --config like the others'.
+var CompareChecks = []*Check{regressionCheck, frozenLayerCheck, outOfProportionCheck}

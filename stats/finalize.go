@@ -25,6 +25,13 @@ type Collected struct {
 	// weight (index into Report.Weights) of the linear layer that feeds it
 	// with no normalisation between them.
 	FeedWeight map[int]int
+	// Baseline is OLD's statistics when `vitals compare` judges NEW
+	// against it (nil otherwise), OldToNew maps OLD layer nodes to the
+	// matched NEW ones, and WeightChanges are the finite relative weight
+	// changes ‖W_new − W_old‖/‖W_old‖.
+	Baseline      *Collected
+	OldToNew      map[string]string
+	WeightChanges []float64
 }
 
 // Stack is a chain of activation layers and the weights of the linear layers between them.
