@@ -225,7 +225,7 @@ func TestCompareDemo(t *testing.T) {
 			Check, Node, Severity string
 			Evidence              map[string]any
 		}
-		Compare  struct {
+		Compare struct {
 			Layers []struct {
 				Node    string
 				DeadOld *float64 `json:"dead_old"`
