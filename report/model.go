@@ -60,7 +60,10 @@ type InputStat struct {
 	Max   *float64 `json:"max,omitempty"`
 	// SelfNormalised: the graph normalises this input itself (its first
 	// operations are Sub/Div/Mul/Add by constants or a normalisation layer).
-	SelfNormalised bool      `json:"self_normalised,omitempty"`
+	SelfNormalised bool `json:"self_normalised,omitempty"`
+	// RecurrentState: the input is the initial state of an LSTM/GRU/RNN
+	// (a streaming model's carried state), not data to be scaled.
+	RecurrentState bool      `json:"recurrent_state,omitempty"`
 	ChannelAxis    *int      `json:"channel_axis,omitempty"`
 	ChannelMean    []float64 `json:"channel_mean,omitempty"`
 	ChannelStd     []float64 `json:"channel_std,omitempty"`
@@ -96,7 +99,9 @@ type Layer struct {
 	// Role is what an activation is for, read from the graph: "hidden",
 	// "gate" (its output multiplies a larger tensor), "self-gate" (the
 	// sigmoid of x·σ(x)), "head" (a graph output, or reaching one only
-	// through shape and post-processing ops); "" for other layers.
+	// through shape and post-processing ops), "gate-branch" (feeds only a
+	// gate, as the bottleneck of a squeeze-and-excitation branch); "" for
+	// other layers.
 	Role string `json:"role,omitempty"`
 	// DeadAtHalf is the dead-unit count after the first half of the
 	// batches (ReLU family); a final count below it was still falling.

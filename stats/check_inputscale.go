@@ -11,7 +11,7 @@ var inputScaleCheck = &Check{
 	Doc: "Scale of each float model input judged as a whole: a warning only for values no common preprocessing produces (|mean| over raw_abs_mean or std over raw_std, such as raw 0–255 pixels or integer audio samples), otherwise information. " +
 		"Standardisation gives std 1, [0,1] or [−1,1] scaling keeps |x| ≤ 1, and ImageNet normalisation keeps x within [−2.12, 2.64] (its published per-channel mean and std); the raw lines sit far outside all of them (common practice). " +
 		"An input off zero-centred unit scale but within those lines (raw audio in [−1, 1] at speech amplitude, a page of mostly white paper after ImageNet normalisation, standardised tables with near-constant columns) is information, as are constant columns. " +
-		"Skipped when the graph normalises its own input (Sub/Div by constants, or a normalisation layer first), where batchnorm-drift compares the input with the stored statistics.",
+		"Skipped when the graph normalises its own input (Sub/Div by constants, or a normalisation layer first), where batchnorm-drift compares the input with the stored statistics, and for the initial state of a recurrent layer fed as an input.",
 	Defaults: map[string]float64{"input-scale.max_abs_mean": 1, "input-scale.std_low": 0.2, "input-scale.std_high": 5,
 		"input-scale.raw_abs_mean": 10, "input-scale.raw_std": 10},
 	Run: func(p *Pass) {
@@ -19,7 +19,7 @@ var inputScaleCheck = &Check{
 			return
 		}
 		for _, in := range p.Report.Input.PerInput {
-			if in.Mean == nil || in.SelfNormalised {
+			if in.Mean == nil || in.SelfNormalised || in.RecurrentState {
 				continue
 			}
 			constant := 0
@@ -33,6 +33,9 @@ var inputScaleCheck = &Check{
 					"input %q: %d of %d channel(s) constant over the sample (std 0): they carry no information here", in.Name, constant, len(in.ChannelStd))
 			}
 			m, s := *in.Mean, report.Val(in.Std)
+			if s == 0 {
+				continue // constant as a whole: said above per channel, or nothing to scale
+			}
 			ev := map[string]any{"mean": m, "std": s, "min": in.Min, "max": in.Max}
 			if math.Abs(m) > p.T("raw_abs_mean") || s > p.T("raw_std") {
 				hint := ""

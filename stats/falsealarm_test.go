@@ -174,7 +174,8 @@ func TestFalseAlarmTinyLayer(t *testing.T) {
 
 // A narrow sample: the first half of the batches excites none of 16 units,
 // the second half excites 7, so 9 (56%) stay dead but the count was still
-// falling fast → provisional, a warning that says so. The same 9 dead on
+// falling fast: projected another half-sample ahead it is 2 (12.5%), so the
+// verdict is provisional information that says so. The same 9 dead on
 // varied data from the start is an error.
 func TestFalseAlarmNarrowSample(t *testing.T) {
 	mk := func() *modelbuild.Builder {
@@ -197,8 +198,8 @@ func TestFalseAlarmNarrowSample(t *testing.T) {
 	}
 	narrow := append(batchesOf(rng, 4, silent), batchesOf(rng, 4, varied)...)
 	fs := findings(analyze(t, mk(), narrow...), "dead-units", "relu")
-	if len(fs) != 1 || fs[0].Severity != report.Warning || !strings.Contains(fs[0].Message, "Provisional") || fs[0].Evidence["dead_at_half"] != 16 {
-		t.Fatalf("narrow sample: %+v, want a provisional warning with 16 dead at half", fs)
+	if len(fs) != 1 || fs[0].Severity != report.Info || !strings.Contains(fs[0].Message, "Provisional") || fs[0].Evidence["dead_at_half"] != 16 {
+		t.Fatalf("narrow sample: %+v, want provisional information with 16 dead at half", fs)
 	}
 	fs = findings(analyze(t, mk(), batchesOf(rng, 8, varied)...), "dead-units", "relu")
 	if len(fs) != 1 || fs[0].Severity != report.Error {

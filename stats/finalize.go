@@ -90,6 +90,7 @@ func (c *Collector) Finish(source string) *Collected {
 			is.Min, is.Max = report.Num(la.mom.Min), report.Num(la.mom.Max)
 		}
 		is.SelfNormalised = c.selfNormalised(name)
+		is.RecurrentState = c.isRecurrentState(name, 0)
 		if len(la.perChan) > 0 && len(la.shape) > 0 {
 			ax := 1
 			if len(la.shape) < 3 {
@@ -205,6 +206,32 @@ func (c *Collector) selfNormalised(name string) bool {
 				other = n.Inputs[1]
 			}
 			if _, ok := constValue(c.Model.Graph, other); !ok {
+				return false
+			}
+		default:
+			return false
+		}
+	}
+	return true
+}
+
+// isRecurrentState reports whether value reaches an LSTM/GRU/RNN as its
+// initial state (input 5 or 6), through reshaping ops only.
+func (c *Collector) isRecurrentState(value string, depth int) bool {
+	readers := c.consumer[value]
+	if len(readers) == 0 || depth > 8 {
+		return false
+	}
+	for _, n := range readers {
+		switch {
+		case n.OpType == "LSTM" || n.OpType == "GRU" || n.OpType == "RNN":
+			for i, in := range n.Inputs {
+				if in == value && i < 5 {
+					return false
+				}
+			}
+		case sameValueOps[n.OpType] && len(n.Outputs) > 0 && len(n.Inputs) > 0 && n.Inputs[0] == value:
+			if !c.isRecurrentState(n.Outputs[0], depth+1) {
 				return false
 			}
 		default:

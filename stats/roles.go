@@ -8,6 +8,7 @@ const (
 	RoleGate     = "gate"
 	RoleSelfGate = "self-gate"
 	RoleHead     = "head"
+	RoleBranch   = "gate-branch"
 )
 
 // postOps only reshape, select, reorder, convert or resize values: an
@@ -25,6 +26,9 @@ var postOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true,
 //     pinned σ means the unit acts as identity or zero, as a ReLU does;
 //   - head: the value is a graph output or reaches the outputs only through
 //     postOps;
+//   - gate-branch: the value feeds, through single-reader nodes, only a
+//     gate (the bottleneck of a squeeze-and-excitation branch): its units
+//     only shape the gate, which gate-constant judges;
 //   - hidden otherwise.
 func (c *Collector) roleOf(la *layerAcc) string {
 	switch {
@@ -34,6 +38,8 @@ func (c *Collector) roleOf(la *layerAcc) string {
 		return RoleSelfGate
 	case c.onlyToOutputs(la.output, 0):
 		return RoleHead
+	case c.feedsGateOnly(la.output):
+		return RoleBranch
 	}
 	return RoleHidden
 }
@@ -82,4 +88,25 @@ func (c *Collector) onlyToOutputs(value string, depth int) bool {
 		}
 	}
 	return true
+}
+
+// feedsGateOnly follows value through nodes that are its only reader (at
+// most 6) and reports whether it reaches a gate activation's output.
+func (c *Collector) feedsGateOnly(value string) bool {
+	cur := value
+	for step := 0; step < 6; step++ {
+		readers := c.consumer[cur]
+		if len(readers) != 1 || len(readers[0].Outputs) == 0 {
+			return false
+		}
+		n := readers[0]
+		if (n.OpType == "Sigmoid" || n.OpType == "HardSigmoid") && c.isGate(n.Outputs[0]) {
+			return true
+		}
+		if n.OpType == "Mul" || n.OpType == "Concat" || (n.OpType == "Add" && c.dataDep[n.Inputs[0]] && len(n.Inputs) > 1 && c.dataDep[n.Inputs[1]]) {
+			return false // merges with another data path
+		}
+		cur = n.Outputs[0]
+	}
+	return false
 }
