@@ -100,8 +100,9 @@ type Layer struct {
 	// "gate" (its output multiplies a larger tensor), "self-gate" (the
 	// sigmoid of x·σ(x)), "head" (a graph output, or reaching one only
 	// through shape and post-processing ops), "gate-branch" (feeds only a
-	// gate, as the bottleneck of a squeeze-and-excitation branch); "" for
-	// other layers.
+	// gate, as the bottleneck of a squeeze-and-excitation branch),
+	// "cell-gate" (multiplies a data tensor of its own size: a recurrent
+	// cell's gates written out, a gated linear unit); "" for other layers.
 	Role string `json:"role,omitempty"`
 	// DeadAtHalf is the dead-unit count after the first half of the
 	// batches (ReLU family); a final count below it was still falling.

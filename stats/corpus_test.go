@@ -235,3 +235,46 @@ func TestCorpusTable(t *testing.T) {
 	}
 	t.Errorf("%s is stale: rerun `go test ./stats -run Corpus -update`", path)
 }
+
+// The corpus models' activations get the roles their graphs give them: the
+// SE gates of mobile_se are gates and their bottleneck ReLUs gate-branches,
+// the mask sigmoid of unet_pages and the speech sigmoid of vad_lstm are
+// heads, and vad_lstm's state inputs are recognised and not judged by
+// input-scale.
+func TestCorpusRoles(t *testing.T) {
+	want := map[string]map[string]string{
+		"mobile_se":  {"/b1/se/HardSigmoid": stats.RoleGate, "/b3/se/HardSigmoid": stats.RoleGate, "/b1/se/Relu": stats.RoleBranch},
+		"unet_pages": {"/Sigmoid": stats.RoleHead, "/enc1/enc1.2/Relu": stats.RoleHidden},
+		"vad_lstm":   {"/Sigmoid": stats.RoleHead, "/front/front.1/Relu": stats.RoleHidden},
+	}
+	for _, r := range corpusResults(t) {
+		w, ok := want[r.m.Name]
+		if !ok || r.rep == nil {
+			continue
+		}
+		for node, role := range w {
+			l := r.rep.LayerByNode(node)
+			if l == nil {
+				if role != "" {
+					t.Errorf("%s: no layer %s", r.m.Name, node)
+				}
+				continue
+			}
+			if l.Role != role {
+				t.Errorf("%s %s: role %q, want %q", r.m.Name, node, l.Role, role)
+			}
+		}
+		if r.m.Name == "vad_lstm" {
+			for _, in := range r.rep.Input.PerInput {
+				if state := in.Name == "h" || in.Name == "c"; state != in.RecurrentState {
+					t.Errorf("vad_lstm input %s: recurrent state %v", in.Name, in.RecurrentState)
+				}
+			}
+			for _, f := range r.rep.Findings {
+				if f.Check == "input-scale" && f.Node != "audio" {
+					t.Errorf("state input judged: %+v", f)
+				}
+			}
+		}
+	}
+}

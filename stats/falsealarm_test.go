@@ -13,6 +13,7 @@ import (
 
 	"github.com/vitals-health/vitals/internal/modelbuild"
 	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
 )
 
@@ -353,5 +354,61 @@ func TestBatchNormDriftSamplingError(t *testing.T) {
 	fs := run(64)
 	if len(fs) != 1 || fs[0].Severity != report.Warning || !strings.Contains(fs[0].Message, "the sample differs from the training data at this layer") {
 		t.Fatalf("64 samples: %+v, want a warning worded as a sample difference", fs)
+	}
+}
+
+// An LSTM-style cell written out as ops: c' = σ(f)·c + σ(i)·tanh(g), with
+// the forget gate pinned open (pre-activation +8, as trained forget gates
+// often are) — elementwise gates that open and close, not saturated hidden
+// units: no saturation finding. The same sigmoid feeding an Add instead is
+// hidden and is judged.
+func TestFalseAlarmRecurrentCellGate(t *testing.T) {
+	rng := rand.New(rand.NewPCG(30, 1))
+	mk := func(gated bool) *modelbuild.Builder {
+		b := modelbuild.New("cell", 13)
+		b.Input("x", []int{1, 16}, true)
+		b.Input("c", []int{1, 16}, true)
+		b.Init("fbias", []int{16}, []float32{8, 8, 8, 8, 8, 8, 8, 8, 8, 8, 8, 8, 8, 8, 8, 8})
+		b.Node("Add", "fpre", []string{"x", "fbias"}, []string{"fp"})
+		b.Node("Sigmoid", "forget", []string{"fp"}, []string{"f"})
+		if gated {
+			b.Node("Mul", "keep", []string{"f", "c"}, []string{"kept"})
+		} else {
+			b.Node("Add", "keep", []string{"f", "c"}, []string{"kept"})
+		}
+		b.Node("Sigmoid", "input_gate", []string{"x"}, []string{"i"})
+		b.Node("Tanh", "candidate", []string{"x"}, []string{"g"})
+		b.Node("Mul", "write", []string{"i", "g"}, []string{"w"})
+		b.Node("Add", "cell", []string{"kept", "w"}, []string{"y"})
+		b.Output("y")
+		return b
+	}
+	batches := batchesOf(rng, 8, func() *tensor.Tensor { return gaussian(rng, 1, 16, 16) })
+	run := func(gated bool) *report.Report {
+		m, p := stats.BuildPlan(t, mk(gated))
+		c := stats.NewCollector(m, p)
+		for _, x := range batches {
+			in := map[string]*tensor.Tensor{"x": x, "c": x}
+			c.AddInputs(in)
+			if _, err := p.Run(in, c.Hook); err != nil {
+				t.Fatal(err)
+			}
+			c.Samples += 16
+		}
+		col := c.Finish("file")
+		if err := stats.Run(col, stats.Checks, nil); err != nil {
+			t.Fatal(err)
+		}
+		return col.Report
+	}
+	r := run(true)
+	if l := r.LayerByNode("forget"); l.Role != "cell-gate" || *l.SaturatedFraction < 0.9 {
+		t.Fatalf("forget gate: role %q saturated %v, want a cell-gate pinned open", l.Role, *l.SaturatedFraction)
+	}
+	if fs := findings(r, "saturation", ""); len(fs) != 0 {
+		t.Fatalf("saturation on cell gates: %+v", fs)
+	}
+	if fs := findings(run(false), "saturation", "forget"); len(fs) != 1 || fs[0].Severity != report.Error {
+		t.Fatalf("the same sigmoid as a hidden unit: %+v, want an error", fs)
 	}
 }

@@ -9,6 +9,7 @@ const (
 	RoleSelfGate = "self-gate"
 	RoleHead     = "head"
 	RoleBranch   = "gate-branch"
+	RoleCellGate = "cell-gate"
 )
 
 // postOps only reshape, select, reorder, convert or resize values: an
@@ -24,6 +25,10 @@ var postOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true,
 //   - self-gate: a Sigmoid/HardSigmoid whose only reader multiplies it by the
 //     activation's own input, x·σ(x) (SiLU, hard-swish written out), where a
 //     pinned σ means the unit acts as identity or zero, as a ReLU does;
+//   - cell-gate: a Sigmoid/HardSigmoid/Tanh whose every reader is a Mul
+//     with another data input of as many values, not its own input (the
+//     gates and candidate of a recurrent cell written out as ops, a gated
+//     linear unit): elementwise gates are meant to open and close;
 //   - head: the value is a graph output or reaches the outputs only through
 //     postOps;
 //   - gate-branch: the value feeds, through single-reader nodes, only a
@@ -36,6 +41,8 @@ func (c *Collector) roleOf(la *layerAcc) string {
 		return RoleGate
 	case c.isSelfGate(la.node):
 		return RoleSelfGate
+	case c.isCellGate(la.node):
+		return RoleCellGate
 	case c.onlyToOutputs(la.output, 0):
 		return RoleHead
 	case c.feedsGateOnly(la.output):
@@ -109,4 +116,34 @@ func (c *Collector) feedsGateOnly(value string) bool {
 		cur = n.Outputs[0]
 	}
 	return false
+}
+
+func (c *Collector) isCellGate(n *loader.Node) bool {
+	switch n.OpType {
+	case "Sigmoid", "HardSigmoid", "Tanh":
+	default:
+		return false
+	}
+	if len(n.Inputs) == 0 || len(n.Outputs) == 0 {
+		return false
+	}
+	out := n.Outputs[0]
+	readers := c.consumer[out]
+	if len(readers) == 0 {
+		return false
+	}
+	own := c.valuesOf(out)
+	for _, m := range readers {
+		if m.OpType != "Mul" || len(m.Inputs) != 2 {
+			return false
+		}
+		other := m.Inputs[0]
+		if other == out {
+			other = m.Inputs[1]
+		}
+		if other == n.Inputs[0] || other == out || !c.dataDep[other] || c.valuesOf(other) != own {
+			return false
+		}
+	}
+	return true
 }
