@@ -63,10 +63,14 @@ type InputStat struct {
 	SelfNormalised bool `json:"self_normalised,omitempty"`
 	// RecurrentState: the input is the initial state of an LSTM/GRU/RNN
 	// (a streaming model's carried state), not data to be scaled.
-	RecurrentState bool      `json:"recurrent_state,omitempty"`
-	ChannelAxis    *int      `json:"channel_axis,omitempty"`
-	ChannelMean    []float64 `json:"channel_mean,omitempty"`
-	ChannelStd     []float64 `json:"channel_std,omitempty"`
+	RecurrentState bool `json:"recurrent_state,omitempty"`
+	// FirstNorm is the first BatchNormalization downstream of the input
+	// (at most 4 nodes away), whose running statistics are the training
+	// data's view of this input.
+	FirstNorm   string    `json:"first_norm,omitempty"`
+	ChannelAxis *int      `json:"channel_axis,omitempty"`
+	ChannelMean []float64 `json:"channel_mean,omitempty"`
+	ChannelStd  []float64 `json:"channel_std,omitempty"`
 }
 
 // Layer is the statistics of one node output over the whole sample.

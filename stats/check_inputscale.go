@@ -10,6 +10,7 @@ var inputScaleCheck = &Check{
 	Name: "input-scale",
 	Doc: "Scale of each float model input judged as a whole: a warning only for values no common preprocessing produces (|mean| over raw_abs_mean or std over raw_std, such as raw 0–255 pixels or integer audio samples), otherwise information. " +
 		"Standardisation gives std 1, [0,1] or [−1,1] scaling keeps |x| ≤ 1, and ImageNet normalisation keeps x within [−2.12, 2.64] (its published per-channel mean and std); the raw lines sit far outside all of them (common practice). " +
+		"An input off zero-centred unit scale is also a warning when the first BatchNorm after it drifts (batchnorm-drift): its running statistics are the training data's, the strongest evidence of a preprocessing mismatch. " +
 		"An input off zero-centred unit scale but within those lines (raw audio in [−1, 1] at speech amplitude, a page of mostly white paper after ImageNet normalisation, standardised tables with near-constant columns) is information, as are constant columns. " +
 		"Skipped when the graph normalises its own input (Sub/Div by constants, or a normalisation layer first), where batchnorm-drift compares the input with the stored statistics, and for the initial state of a recurrent layer fed as an input.",
 	Defaults: map[string]float64{"input-scale.max_abs_mean": 1, "input-scale.std_low": 0.2, "input-scale.std_high": 5,
@@ -48,10 +49,31 @@ var inputScaleCheck = &Check{
 				continue
 			}
 			if math.Abs(m) > p.T("max_abs_mean") || s < p.T("std_low") || s > p.T("std_high") {
+				if bn := confirmingNorm(p, in.FirstNorm); bn != nil {
+					ev["first_norm"] = in.FirstNorm
+					ev["drifting_channels"] = bn.Evidence["drifting_channels"]
+					p.Emit(report.Warning, in.Name, 2, ev,
+						"input %q has mean %.3g and std %.3g over the sample, and the running statistics of the first BatchNorm after it (%q), which hold the training data's view of this input, disagree with the sample there: the input is likely not preprocessed as in training",
+						in.Name, m, s, in.FirstNorm)
+					continue
+				}
 				p.Emit(report.Info, in.Name, 1, ev,
 					"input %q has mean %.3g and std %.3g over the sample: not zero-centred unit scale, but within what common preprocessing gives (for example [−1, 1] audio, mostly-white images after ImageNet normalisation); make sure it matches training",
 					in.Name, m, s)
 			}
 		}
 	},
+}
+
+// confirmingNorm is the batchnorm-drift warning or error on node, if any.
+func confirmingNorm(p *Pass, node string) *report.Finding {
+	if node == "" {
+		return nil
+	}
+	for _, f := range p.Prior() {
+		if f.Check == "batchnorm-drift" && f.Node == node && f.Severity != report.Info {
+			return &f
+		}
+	}
+	return nil
 }

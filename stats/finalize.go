@@ -91,6 +91,7 @@ func (c *Collector) Finish(source string) *Collected {
 		}
 		is.SelfNormalised = c.selfNormalised(name)
 		is.RecurrentState = c.isRecurrentState(name, 0)
+		is.FirstNorm = c.firstNorm(name)
 		if len(la.perChan) > 0 && len(la.shape) > 0 {
 			ax := 1
 			if len(la.shape) < 3 {
@@ -213,6 +214,31 @@ func (c *Collector) selfNormalised(name string) bool {
 		}
 	}
 	return true
+}
+
+// firstNorm is the nearest BatchNormalization downstream of value, at most
+// 4 nodes away, breadth first ("" if none).
+func (c *Collector) firstNorm(value string) string {
+	frontier := []string{value}
+	seen := map[string]bool{}
+	for depth := 0; depth < 4 && len(frontier) > 0; depth++ {
+		var next []string
+		for _, v := range frontier {
+			for _, n := range c.consumer[v] {
+				if n.OpType == "BatchNormalization" {
+					return n.Name
+				}
+				for _, o := range n.Outputs {
+					if o != "" && !seen[o] {
+						seen[o] = true
+						next = append(next, o)
+					}
+				}
+			}
+		}
+		frontier = next
+	}
+	return ""
 }
 
 // isRecurrentState reports whether value reaches an LSTM/GRU/RNN as its
