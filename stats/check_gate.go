@@ -4,7 +4,7 @@ import "github.com/vitals-health/vitals/report"
 
 var gateConstantCheck = &Check{
 	Name: "gate-constant",
-	Doc: "Gate channels that stayed at a saturation bound on every sample: a Sigmoid/HardSigmoid whose output multiplies a larger tensor (squeeze-and-excitation). " +
+	Doc: "Channels of a gate (a Sigmoid/HardSigmoid whose output multiplies a larger tensor, as in squeeze-and-excitation) that stayed at a bound on every sample. " +
 		"A channel whose gate is always ≈0 is pruned in effect; one always ≈1 passes through, the gate does nothing there. " +
 		"Both are legitimate outcomes of training, so counts are information; a warning only when the whole gate is constant on the sample, which leaves the block's gating unused.",
 	Run: func(p *Pass) {

@@ -8,7 +8,8 @@ import (
 
 var inputScaleCheck = &Check{
 	Name: "input-scale",
-	Doc: "Scale of each float model input judged as a whole: a warning only for values no common preprocessing produces (|mean| over raw_abs_mean or std over raw_std, such as raw 0–255 pixels or integer audio samples), otherwise information. " +
+	Doc: "Scale of each float model input as a whole: a warning only for values no common preprocessing produces, or when the first BatchNorm after the input confirms a mismatch; otherwise information. " +
+		"No common preprocessing produces |mean| over raw_abs_mean or std over raw_std (raw 0–255 pixels, integer audio samples). " +
 		"Standardisation gives std 1, [0,1] or [−1,1] scaling keeps |x| ≤ 1, and ImageNet normalisation keeps x within [−2.12, 2.64] (its published per-channel mean and std); the raw lines sit far outside all of them (common practice). " +
 		"An input off zero-centred unit scale is also a warning when the first BatchNorm after it drifts (batchnorm-drift): its running statistics are the training data's, the strongest evidence of a preprocessing mismatch. " +
 		"An input off zero-centred unit scale but within those lines (raw audio in [−1, 1] at speech amplitude, a page of mostly white paper after ImageNet normalisation, standardised tables with near-constant columns) is information, as are constant columns. " +

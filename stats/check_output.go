@@ -6,7 +6,8 @@ import (
 
 var outputHealthCheck = &Check{
 	Name: "output-health",
-	Doc: "The first graph output, where it is a class distribution, over the sample: mean top probability (overconfident or near-uniform), and with labels the accuracy and mean cross-entropy against ln C. " +
+	Doc: "Confidence of the first graph output where it holds class scores, and with labels its accuracy and cross-entropy against ln C. " +
+		"Reported: the mean top probability (overconfident or near-uniform), accuracy and mean cross-entropy. " +
 		"Common practice: an untrained C-class softmax has loss ≈ ln C. " +
 		"Judged only for class scores: [N, C] (probabilities or logits) or a Softmax/LogSoftmax over the last axis; a per-pixel map such as [N, 1, H, W] or a regression output gets plain statistics in the layers table.",
 	Defaults: map[string]float64{"output-health.overconfident": 0.99, "output-health.uniform_factor": 1.5},

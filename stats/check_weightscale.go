@@ -107,7 +107,8 @@ func (j weightJudgement) text() string {
 
 var weightScaleCheck = &Check{
 	Name: "weight-scale",
-	Doc: "Names a weight as the likely cause inside a dead-units, saturation or spread finding downstream of it when its gain g = std·√fan_in is outside [low, high]× every usual initialisation rule for the activation that follows, in the direction that explains the finding. " +
+	Doc: "A weight whose gain g = std·√fan_in is far from every usual initialisation rule, named as the likely cause inside the dead-units, saturation or spread finding it explains; never a finding by itself. " +
+		"Far means outside [low, high]× every rule for the activation that follows, in the direction that explains the finding (too large before dead or saturated units). " +
 		"The rules: Var = 2/fan_in or 2/fan_out for the ReLU family (He et al. 2015, forward and backward cases), 1/fan_in, 1/fan_out or 2/(fan_in+fan_out) otherwise (Glorot & Bengio 2010). " +
 		"A trained network's weights legitimately leave the initialisation scale (BatchNorm folded into a convolution, fixed signal-processing bases, recurrent matrices, the last classifier layer), so a gain alone is evidence, shown in the weights table and plot, never a finding by itself; " +
 		"its consequences are: weights too large before dead or saturated units, the compound gain ∏(g/ref) along a plain chain predicting its spread ratio (He et al. 2015, eq. 10). " +

@@ -27,7 +27,7 @@ func TestConfigUnknownNameFailsFirst(t *testing.T) {
 // summary the check's Doc starts with.
 func TestHelpPrintsWholeSummaries(t *testing.T) {
 	_, _, stderr := runCLI(t, "--help")
-	for _, c := range stats.Checks {
+	for _, c := range append(append([]*stats.Check{}, stats.Checks...), stats.CompareChecks...) {
 		s := stats.HelpLine(c.Doc)
 		if !strings.Contains(stderr, c.Name) || !strings.Contains(stderr, s) {
 			t.Errorf("help lacks %s: %q", c.Name, s)
