@@ -20,7 +20,7 @@ type spreadFinding struct {
 	others      []string // the last layers of other stacks from the same first layer that crossed it too
 }
 
-// spreadOutliers are the stacks of at least min_layers layers whose ratio
+// spreadOutliers are the plain stacks of at least min_layers layers whose ratio
 // last/first crosses the line (beyond(ratio) true), one per first layer:
 // the stacks of a network with branches (residual blocks end one stack per
 // branch) share their first layer, and one finding on the worst of them,
@@ -29,7 +29,10 @@ func spreadOutliers(p *Pass, beyond func(float64) bool, worse func(a, b float64)
 	byFirst := map[string]int{}
 	var out []spreadFinding
 	for _, st := range p.Stacks {
-		if len(st.Layers) < int(p.T("min_layers")) {
+		// plain chains only: a residual Add, a Concat or a gating Mul adds
+		// another path's variance, outside Glorot & Bengio 2010's and He et
+		// al. 2015's analysis, and a trained network's scale may change there
+		if st.Merged || len(st.Layers) < int(p.T("min_layers")) {
 			continue
 		}
 		first, last, ratio := stackSpread(p, st)

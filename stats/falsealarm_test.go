@@ -412,3 +412,25 @@ func TestFalseAlarmRecurrentCellGate(t *testing.T) {
 		t.Fatalf("the same sigmoid as a hidden unit: %+v, want an error", fs)
 	}
 }
+
+// A probability map scaled and thresholded by constants before the output
+// (post-processing: Mul by 255, Greater than 127) is still an output head.
+func TestHeadThroughPostProcessing(t *testing.T) {
+	rng := rand.New(rand.NewPCG(33, 1))
+	b := modelbuild.New("post", 13)
+	b.Input("x", []int{1, 1, 4, 4}, true)
+	b.Init("k", []int{1}, []float32{255})
+	b.Init("t", []int{1}, []float32{127})
+	b.Node("Sigmoid", "mask", []string{"x"}, []string{"p"})
+	b.Node("Mul", "to_bytes", []string{"p", "k"}, []string{"q"})
+	b.Node("Greater", "binarise", []string{"q", "t"}, []string{"y"})
+	b.Output("y")
+	b.Output("q")
+	r := analyze(t, b, batchesOf(rng, 4, func() *tensor.Tensor { return gaussian(rng, 10, 8, 1, 4, 4) })...)
+	if l := r.LayerByNode("mask"); l.Role != "head" {
+		t.Fatalf("mask role %q, want head", l.Role)
+	}
+	if fs := findings(r, "saturation", ""); len(fs) != 0 {
+		t.Fatalf("saturation on a post-processed head: %+v", fs)
+	}
+}

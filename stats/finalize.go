@@ -327,6 +327,9 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stac
 				if !c.dataDep[in] {
 					continue
 				}
+				if sg := c.producer[in]; sg != nil && c.isSelfGate(sg) {
+					continue // x·σ(x) is one path: the σ(x) of a SiLU/hard-swish written out
+				}
 				paths++
 				if n := c.valuesOf(in); n > most {
 					p, most = c.producer[in], n

@@ -30,7 +30,7 @@ var postOps = map[string]bool{"Reshape": true, "Flatten": true, "Squeeze": true,
 //     gates and candidate of a recurrent cell written out as ops, a gated
 //     linear unit): elementwise gates are meant to open and close;
 //   - head: the value is a graph output or reaches the outputs only through
-//     postOps;
+//     postOps and arithmetic or comparisons with constants;
 //   - gate-branch: the value feeds, through single-reader nodes, only a
 //     gate (the bottleneck of a squeeze-and-excitation branch): its units
 //     only shape the gate, which gate-constant judges;
@@ -63,6 +63,24 @@ func (c *Collector) isSelfGate(n *loader.Node) bool {
 	return (m.Inputs[0] == n.Outputs[0] && m.Inputs[1] == n.Inputs[0]) || (m.Inputs[1] == n.Outputs[0] && m.Inputs[0] == n.Inputs[0])
 }
 
+// constantArith reports whether n is elementwise arithmetic or a
+// comparison of one data value with constants (scaling a probability map,
+// thresholding it): post-processing, not a layer.
+func (c *Collector) constantArith(n *loader.Node) bool {
+	switch n.OpType {
+	case "Mul", "Add", "Sub", "Div", "Greater", "Less", "GreaterOrEqual", "LessOrEqual", "Equal", "Pow", "Round", "Floor", "Ceil", "Not":
+	default:
+		return false
+	}
+	data := 0
+	for _, in := range n.Inputs {
+		if c.dataDep[in] {
+			data++
+		}
+	}
+	return data == 1
+}
+
 // onlyToOutputs reports whether value reaches graph outputs, and only
 // through postOps (depth bounds the walk).
 func (c *Collector) onlyToOutputs(value string, depth int) bool {
@@ -80,7 +98,7 @@ func (c *Collector) onlyToOutputs(value string, depth int) bool {
 		return isOut
 	}
 	for _, n := range readers {
-		if !postOps[n.OpType] {
+		if !postOps[n.OpType] && !c.constantArith(n) {
 			return false
 		}
 		// a post-processing op's data output; constant shape inputs do not matter
