@@ -11,7 +11,7 @@ var deadUnitsCheck = &Check{
 	Name: "dead-units",
 	Doc: "ReLU-family units that never output a positive value over the whole sample, graded by both their share and their count. " +
 		"A dead unit passes no gradient and is wasted capacity. Common practice: trained ReLU nets often carry 10–20% dead units; far more points to a too-high learning rate, poor initialisation or badly scaled inputs. " +
-		"A warning needs at least min_dead dead units and an error at least min_dead_error, so that one unit of a 2-unit layer is never an error. " +
+		"A warning needs at least min_dead dead units and an error at least min_dead_error: if each unit were dead independently with the 20% typical of trained nets, half a layer would be dead by chance with probability 36% for 1 of 2 units, 5.6% for 4 of 8 and 0.7% for 8 of 16 (binomial), so one unit of a 2-unit layer is never an error. " +
 		"The dead count is also taken after the first half of the batches: if it was still falling in the second half fast enough that another half-sample falling as fast would give a milder verdict, the sample has not yet excited every unit: the verdict is provisional and graded as that projected count (information when it is under the warning line). " +
 		"Units in a layer that only feeds a gate (a squeeze-and-excitation bottleneck) are information: the gate they shape is judged by gate-constant. " +
 		"Below min_samples samples the verdict is at most a warning: a unit active on a share q of inputs is seen with probability 1−(1−q)^n, 95% for q = 3% only from n ≈ 100 on.",
