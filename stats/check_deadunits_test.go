@@ -35,3 +35,24 @@ func TestDeadUnitsThresholds(t *testing.T) {
 		}
 	}
 }
+
+// The dead count "at half the sample" is taken after the batch that
+// completes half the rows AddInputs saw, not half the batches: 64+16+16+16+16
+// rows reach half (64) after the first batch.
+func TestHalfBatchBySamples(t *testing.T) {
+	c := &Collector{batchRows: []int{64, 16, 16, 16, 16}}
+	if h := c.halfBatch(5); h != 0 {
+		t.Errorf("half after batch %d, want 0", h)
+	}
+	c.batchRows = []int{16, 16, 16, 16}
+	if h := c.halfBatch(4); h != 1 {
+		t.Errorf("equal batches: half after batch %d, want 1", h)
+	}
+	c.batchRows = []int{10, 100}
+	if h := c.halfBatch(2); h != 0 {
+		t.Errorf("half reached in the last batch: %d, want 0 (a second half must remain)", h)
+	}
+	if h := c.halfBatch(1); h != -1 {
+		t.Errorf("one batch: %d, want -1", h)
+	}
+}

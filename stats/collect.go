@@ -196,6 +196,9 @@ type Collector struct {
 	consumer      map[string][]*loader.Node // value → the nodes that read it
 	dataDep       map[string]bool
 	Samples       int
+	// batchRows is the sample count of each batch given to AddInputs, in
+	// order (the dead-unit trails are per batch; this places their middle).
+	batchRows []int
 	// jobs feeds the statistics worker: one goroutine takes node outputs in
 	// the order the hook saw them, so the statistics of one node overlap
 	// with the computation of the next while results stay deterministic.
@@ -473,6 +476,13 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 
 // AddInputs records the moments of one batch of model inputs (call before Run).
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
+	rows := 0
+	for _, t := range batch {
+		if t != nil && t.Rank() > 0 && (rows == 0 || t.Shape[0] < rows) {
+			rows = t.Shape[0]
+		}
+	}
+	c.batchRows = append(c.batchRows, rows)
 	for name, t := range batch {
 		if la := c.inputs[name]; la != nil {
 			c.queue(obsJob{la: la, t: t, isInput: true})

@@ -138,8 +138,8 @@ func (c *Collector) Finish(source string) *Collected {
 					}
 				}
 				l.DeadFraction = report.Num(float64(dead) / float64(len(la.everPos)))
-				if n := len(la.deadTrail); n >= 2 {
-					l.DeadAtHalf = report.IntPtr(int(la.deadTrail[(n+1)/2-1]))
+				if h := c.halfBatch(len(la.deadTrail)); h >= 0 {
+					l.DeadAtHalf = report.IntPtr(int(la.deadTrail[h]))
 				}
 			} else {
 				l.Activation = "saturating"
@@ -188,6 +188,29 @@ func (c *Collector) Finish(source string) *Collected {
 	r.Findings = []report.Finding{}
 	r.Ranking = []report.Rank{}
 	return col
+}
+
+// halfBatch is the index of the batch after which half the sample has been
+// seen (by the rows AddInputs counted, else by batches), for a trail of n
+// batches; −1 when there are fewer than 2.
+func (c *Collector) halfBatch(n int) int {
+	if n < 2 {
+		return -1
+	}
+	if len(c.batchRows) == n {
+		total := 0
+		for _, r := range c.batchRows {
+			total += r
+		}
+		cum := 0
+		for i, r := range c.batchRows {
+			cum += r
+			if 2*cum >= total {
+				return min(i, n-2) // never the last batch: the second half needs one
+			}
+		}
+	}
+	return (n+1)/2 - 1
 }
 
 // selfNormalised reports whether every reader of a graph input is a
