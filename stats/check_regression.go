@@ -36,7 +36,7 @@ var regressionCheck = &Check{
 			}
 		}
 		have := map[checkNode]bool{}
-		prior := *p.prior
+		prior := p.Prior()
 		for i := range prior {
 			f := &prior[i]
 			have[checkNode{f.Check, f.Node}] = true

@@ -116,7 +116,9 @@ var weightScaleCheck = &Check{
 	Defaults: map[string]float64{"weight-scale.low": 0.5, "weight-scale.high": 2, "weight-scale.compound_low": 0.1, "weight-scale.compound_high": 10},
 	Run: func(p *Pass) {
 		judged := judgeWeights(p)
-		for _, f := range p.Prior() {
+		prior := p.Prior()
+		for k := range prior {
+			f := &prior[k]
 			var names []string
 			large := true // the direction that explains the finding
 			switch f.Check {
@@ -155,12 +157,7 @@ var weightScaleCheck = &Check{
 			}
 			f.Evidence["likely_cause"] = causes
 			f.Evidence["cause_gain_ratio"] = worst
-			// f is a copy; its Evidence map is shared, its Message is set through the slice
-			for k := range *p.prior {
-				if (*p.prior)[k].Node == f.Node && (*p.prior)[k].Check == f.Check && (*p.prior)[k].Message == f.Message {
-					(*p.prior)[k].Message += ". Likely cause: " + strings.Join(causes, "; ") + " (He et al. 2015, eq. 10: each layer scales the spread by about its g/ref)"
-				}
-			}
+			f.Message += ". Likely cause: " + strings.Join(causes, "; ") + " (He et al. 2015, eq. 10: each layer scales the spread by about its g/ref)"
 		}
 	},
 }

@@ -28,9 +28,9 @@ type Pass struct {
 	prior      *[]report.Finding // the findings of the checks that ran before
 }
 
-// Prior is the findings of the checks that ran before this one; a check
-// may add evidence to them (weight-scale names a likely cause) but not
-// remove them.
+// Prior is the findings of the checks that ran before this one, in place:
+// a check may add to their evidence and message (weight-scale names a
+// likely cause, regression marks new/worse/unchanged) but not remove them.
 func (p *Pass) Prior() []report.Finding {
 	if p.prior == nil {
 		return nil
