@@ -6,7 +6,8 @@ var gateConstantCheck = &Check{
 	Name: "gate-constant",
 	Doc: "Channels of a gate (a Sigmoid/HardSigmoid whose output multiplies a larger tensor, as in squeeze-and-excitation) that stayed at a bound on every sample. " +
 		"A channel whose gate is always ≈0 is pruned in effect; one always ≈1 passes through, the gate does nothing there. " +
-		"Both are legitimate outcomes of training, so counts are information; a warning only when the whole gate is constant on the sample, which leaves the block's gating unused.",
+		"Both are legitimate outcomes of training, so counts are information; a warning only when the whole gate is constant on the sample, which leaves the block's gating unused. " +
+		"Judged for gates with one value per channel and sample ([N, C] or [N, C, 1, 1]).",
 	Run: func(p *Pass) {
 		for _, l := range p.Report.Layers {
 			if l.Role != RoleGate || l.GateOff == nil || l.GateOn == nil || l.Units == nil {

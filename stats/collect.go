@@ -576,7 +576,9 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 			la.notYet = everPositivePending(la.everPos, la.notYet, x, units, inner)
 			la.deadTrail = append(la.deadTrail, int32(len(la.notYet)))
 		}
-		if la.act.kind == ActSaturating {
+		// one value per unit and sample ([N, C], [N, C, 1, 1]: the shape of
+		// a squeeze-and-excitation gate); wider maps skip this extra pass
+		if la.act.kind == ActSaturating && inner == 1 {
 			la.unitLo, la.unitHi = unitRange(la.unitLo, la.unitHi, x, units, inner)
 		}
 	}

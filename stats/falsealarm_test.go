@@ -434,3 +434,27 @@ func TestHeadThroughPostProcessing(t *testing.T) {
 		t.Fatalf("saturation on a post-processed head: %+v", fs)
 	}
 }
+
+// Classes on the last axis of a rank-3 output [N, T, C] are recognised
+// when a Softmax over the last axis makes them; the same values without
+// it (a [N, C, L] feature map, say) are not read as classes.
+func TestOutputClassesLastAxis(t *testing.T) {
+	rng := rand.New(rand.NewPCG(34, 1))
+	mk := func(softmax bool) *report.Report {
+		b := modelbuild.New("seq", 13)
+		b.Input("x", []int{1, 6, 5}, true)
+		if softmax {
+			b.Node("Softmax", "probs", []string{"x"}, []string{"y"}, modelbuild.Attr{Name: "axis", Value: -1})
+		} else {
+			b.Node("Relu", "feat", []string{"x"}, []string{"y"})
+		}
+		b.Output("y")
+		return analyze(t, b, batchesOf(rng, 4, func() *tensor.Tensor { return gaussian(rng, 1, 8, 6, 5) })...)
+	}
+	if r := mk(true); r.Output == nil || r.Output.Classes != 5 || !r.Output.IsDistribution {
+		t.Fatalf("[N,T,C] softmax: %+v, want 5 classes", r.Output)
+	}
+	if r := mk(false); r.Output != nil {
+		t.Fatalf("[N,C,L] map read as classes: %+v", r.Output)
+	}
+}
