@@ -12,7 +12,7 @@ var batchnormDriftCheck = &Check{
 		"Inference normalises with the stored population statistics (Ioffe & Szegedy 2015), so when they do not match the data the layer shifts and rescales its output. " +
 		"A channel drifts when its mean shift exceeds mean_shift and z standard errors of the sample mean (σ_sample/√n in σ_run units, n the number of samples), or its variance ratio leaves [var_low, var_high] by more than z standard errors of a log sample variance (√(2/(n−1)), normal data). " +
 		"Running statistics still at BatchNorm's initial mean 0 and variance 1 are a broken model (an error on every such layer); trained running statistics that disagree mean the sample differs from the training data at this layer (preprocessing or data shift), " +
-		"reported once, on the first drifting layer in depth order, naming the layers after it that drift too.",
+		"reported once, on the first drifting layer in depth order, naming the layers after it that drift too (information on synthetic input, which no training data resembles).",
 	Defaults: map[string]float64{"batchnorm-drift.mean_shift": 1, "batchnorm-drift.var_low": 0.25, "batchnorm-drift.var_high": 4,
 		"batchnorm-drift.channel_share": 0.1, "batchnorm-drift.error_share": 0.5, "batchnorm-drift.z": 3},
 	Run: func(p *Pass) {
@@ -67,6 +67,12 @@ var batchnormDriftCheck = &Check{
 		}
 		if first != nil {
 			firstEv["also"] = also
+			if p.Report.Input.Source == "synthetic" {
+				// generated noise differs from any training data: information
+				p.Emit(report.Info, first.Node, 1, firstEv,
+					"%d of %d channels drift from the stored running statistics, as expected on synthetic input: rerun with --data to judge this layer", firstDrift, first.Channels)
+				return
+			}
 			msg := "%d of %d channels drift beyond the sampling error of %d samples (largest mean shift %.2gσ, worst variance ratio %.3g): the sample differs from the training data at this layer. " +
 				"The model's running statistics are trained values; check that the sample is preprocessed as in training and drawn from the same kind of data"
 			if len(also) > 0 {
