@@ -128,7 +128,7 @@ func (c *Collector) feedsGateOnly(value string) bool {
 		if (n.OpType == "Sigmoid" || n.OpType == "HardSigmoid") && c.isGate(n.Outputs[0]) {
 			return true
 		}
-		if n.OpType == "Mul" || n.OpType == "Concat" || (n.OpType == "Add" && c.dataDep[n.Inputs[0]] && len(n.Inputs) > 1 && c.dataDep[n.Inputs[1]]) {
+		if n.OpType == "Mul" || n.OpType == "Concat" || (n.OpType == "Add" && len(n.Inputs) > 1 && c.dataDep[n.Inputs[0]] && c.dataDep[n.Inputs[1]]) {
 			return false // merges with another data path
 		}
 		cur = n.Outputs[0]
