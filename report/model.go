@@ -21,8 +21,18 @@ type Report struct {
 	Output *Output `json:"output,omitempty"`
 	// Compare is set by `vitals compare`: the old checkpoint's numbers and the differences.
 	Compare *Comparison `json:"compare,omitempty"`
+	// Checks are the checks that ran, each with its doc's summary and the
+	// rest of its doc (the "how to read this" of the review reports).
+	Checks []CheckDoc `json:"checks,omitempty"`
 	// Thresholds actually used (defaults merged with --config), for the plots and writers.
 	Thresholds map[string]float64 `json:"thresholds,omitempty"`
+}
+
+// CheckDoc is one check's name and doc: Summary its first sentence, Detail the rest.
+type CheckDoc struct {
+	Name    string `json:"name"`
+	Summary string `json:"summary"`
+	Detail  string `json:"detail"`
 }
 
 // Model describes the model file.
@@ -81,11 +91,23 @@ type Input struct {
 
 // InputStat is the moments of one model input over the sample, overall and per channel.
 type InputStat struct {
-	Name        string    `json:"name"`
-	Path        string    `json:"path,omitempty"`
-	Shape       []int     `json:"shape"`
-	Mean        *float64  `json:"mean"`
-	Std         *float64  `json:"std"`
+	Name  string   `json:"name"`
+	Path  string   `json:"path,omitempty"`
+	Shape []int    `json:"shape"`
+	Mean  *float64 `json:"mean"`
+	Std   *float64 `json:"std"`
+	Min   *float64 `json:"min,omitempty"`
+	Max   *float64 `json:"max,omitempty"`
+	// SelfNormalised: the graph normalises this input itself (its first
+	// operations are Sub/Div/Mul/Add by constants or a normalisation layer).
+	SelfNormalised bool `json:"self_normalised,omitempty"`
+	// RecurrentState: the input is the initial state of an LSTM/GRU/RNN
+	// (a streaming model's carried state), not data to be scaled.
+	RecurrentState bool `json:"recurrent_state,omitempty"`
+	// FirstNorm is the first BatchNormalization downstream of the input
+	// (at most 4 nodes away), whose running statistics are the training
+	// data's view of this input.
+	FirstNorm   string    `json:"first_norm,omitempty"`
 	ChannelAxis *int      `json:"channel_axis,omitempty"`
 	ChannelMean []float64 `json:"channel_mean,omitempty"`
 	ChannelStd  []float64 `json:"channel_std,omitempty"`
@@ -154,6 +176,22 @@ type Layer struct {
 	P99 *float64 `json:"p99"`
 	// Activation is "relu", "saturating" or "" (what kind of unit statistics were taken).
 	Activation string `json:"activation,omitempty"`
+	// Role is what an activation is for, read from the graph: "hidden",
+	// "gate" (its output multiplies a larger tensor), "self-gate" (the
+	// sigmoid of x·σ(x)), "head" (a graph output, or reaching one only
+	// through shape and post-processing ops), "gate-branch" (feeds only a
+	// gate, as the bottleneck of a squeeze-and-excitation branch),
+	// "cell-gate" (multiplies a data tensor of its own size: a recurrent
+	// cell's gates written out, a gated linear unit); "" for other layers.
+	Role string `json:"role,omitempty"`
+	// DeadAtHalf is the dead-unit count after the first half of the
+	// batches (ReLU family); a final count below it was still falling.
+	DeadAtHalf *int `json:"dead_at_half,omitempty"`
+	// GateOff and GateOn count a gate's channels that stayed at the lower
+	// or upper saturation bound on every sample (pruned in effect, or a
+	// gate that does nothing).
+	GateOff *int `json:"gate_off,omitempty"`
+	GateOn  *int `json:"gate_on,omitempty"`
 	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
 	Note string `json:"note,omitempty"`
 	// ClippedFraction is the share of this output's values that the node

@@ -75,20 +75,14 @@ var (
 	reviewDeltaHeader  = []string{"node (NEW)", "node (OLD)", "op", "mean OLD → NEW", "std OLD → NEW", "dead % OLD → NEW", "saturated % OLD → NEW", "histogram distance"}
 )
 
-// reviewChecks is the one-line meaning of each check and what to do about it.
-var reviewChecks = []reviewCheck{
-	{"nonfinite", "NaN or ±Inf appeared in an activation or weight.", "Find the first layer in depth order that has them; look for overflow, log/sqrt of non-positive values or a bad weight file."},
-	{"dead-units", "ReLU-family units that were never positive on the whole sample.", "Check the bias and weight scale of the layer before; consider a leaky variant or re-initialising those units."},
-	{"saturation", "tanh/sigmoid units that sit at their limits, where the gradient is almost zero.", "Reduce the pre-activation scale (weight scale, normalisation before the activation)."},
-	{"spread-collapse / spread-explosion", "The activation std shrinks or grows by a large factor across a stack without normalisation.", "Compare each layer's weight gain with its reference; add normalisation or rescale the initialisation."},
-	{"weight-scale", "Gain std·√fan_in far from the reference for the following activation (√2 He for ReLU, 1 Xavier otherwise).", "Check the initialisation rule and whether training drove the weights there (weight decay, learning rate)."},
-	{"symmetric-units", "Identical rows or filters in one weight tensor: those units compute the same thing.", "Make sure the initialisation is random per unit; identical units never separate during training."},
-	{"batchnorm-drift", "The sample's mean/variance at a BatchNorm input differ from its stored running statistics.", "Check that the sample is preprocessed like the training data, or recalibrate the running statistics."},
-	{"input-scale", "The model input is not roughly zero-centred with unit scale.", "Check the preprocessing (normalisation constants, channel order, value range)."},
-	{"output-health", "Softmax output confidence and, with labels, accuracy and cross-entropy against ln(classes).", "Informational: compare with the team's own evaluation."},
-	{"quant-range", "A quantized tensor clips values outside its integer range, or uses few of its integer levels.", "Recalibrate the scale on data like the sample: a wider scale when values clip, percentile calibration or clipped outliers when few levels are used."},
-	{"float16-range", "A float16 activation exceeds 65504 (Inf in float16) or holds many values below the smallest normal float16.", "Keep that layer in float32, or rescale it."},
-	{"quant-noise", "Compare only: the layer where the SQNR of the quantized model against the float one drops most (6.02 dB per bit).", "Look at the quantizer before that layer (scale, granularity) or keep the layer in float."},
+// howTo is the "how to read this" list: each check that ran, its doc's
+// summary and the rest of its doc (the check's doc is the single source).
+func howTo(docs []CheckDoc) []reviewCheck {
+	out := make([]reviewCheck, 0, len(docs))
+	for _, d := range docs {
+		out = append(out, reviewCheck{Name: d.Name, Means: d.Summary, Do: d.Detail})
+	}
+	return out
 }
 
 // reviewFigureCaptions describe each figure by its file name prefix.
@@ -128,7 +122,7 @@ func reviewImageOrder(names []string) []reviewImage {
 
 // buildReview formats r for the review writers.
 func buildReview(r *Report, images []string) *review {
-	rv := &review{Synthetic: r.Input.Source == "synthetic", Caution: Caution, HowTo: reviewChecks,
+	rv := &review{Synthetic: r.Input.Source == "synthetic", Caution: Caution, HowTo: howTo(r.Checks),
 		Coverage: CoverageLine(r), CoverageWarning: CoverageWarning(r), Gaps: CoverageGaps(r)}
 	rv.Images = reviewImageOrder(images)
 	rank := map[string]int{}

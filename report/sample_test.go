@@ -187,6 +187,9 @@ func sampleCheckReport() *Report {
 			CrossEntropy: Num(0.41), LnClasses: Num(round4(math.Log(10))), Labeled: 512},
 		Thresholds: map[string]float64{"dead-units.warning": 0.25, "dead-units.error": 0.5,
 			"saturation.warning": 0.2, "saturation.error": 0.5},
+		// as stats.Docs fills it (TestReportCarriesCheckDocs in stats checks that)
+		Checks: []CheckDoc{{Name: "dead-units", Summary: "ReLU-family units that never output a positive value over the whole sample.", Detail: "A dead unit passes no gradient."},
+			{Name: "weight-scale", Summary: "Weight gain g = std·√fan_in against the usual initialisation rules.", Detail: "Evidence for the findings downstream."}},
 	}
 }
 

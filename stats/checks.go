@@ -25,7 +25,22 @@ type Pass struct {
 	check      *Check
 	Thresholds map[string]float64
 	findings   []report.Finding
+	prior      *[]report.Finding // the findings of the checks that ran before
 }
+
+// Prior is the findings of the checks that ran before this one, in place:
+// a check may add to their evidence and message (weight-scale names a
+// likely cause, regression marks new/worse/unchanged) but not remove them.
+func (p *Pass) Prior() []report.Finding {
+	if p.prior == nil {
+		return nil
+	}
+	return *p.prior
+}
+
+// TOf returns another check's threshold "<check>.<param>" (the thresholds
+// of the checks that ran, merged with the defaults).
+func (p *Pass) TOf(check, param string) float64 { return p.Thresholds[check+"."+param] }
 
 // T returns the threshold "<check>.<param>".
 func (p *Pass) T(param string) float64 { return p.Thresholds[p.check.Name+"."+param] }
@@ -46,7 +61,7 @@ func (p *Pass) Emit(sev report.Severity, node string, strength float64, evidence
 }
 
 // Checks is the list of health checks, in the order they run.
-var Checks = []*Check{nonfiniteCheck, deadUnitsCheck, saturationCheck, spreadCollapseCheck, spreadExplosionCheck,
+var Checks = []*Check{nonfiniteCheck, deadUnitsCheck, saturationCheck, gateConstantCheck, spreadCollapseCheck, spreadExplosionCheck,
 	weightScaleCheck, symmetricUnitsCheck, batchnormDriftCheck, inputScaleCheck, outputHealthCheck, quantRangeCheck, float16RangeCheck}
 
 // Validate rejects an undocumented or duplicate check, or thresholds not named after their check.
@@ -80,12 +95,53 @@ func DefaultThresholds() map[string]float64 {
 	return t
 }
 
-// HelpLine is the first sentence of a doc.
+// HelpLine is the first sentence of a doc: up to the first ". " that does
+// not end an abbreviation ("et al.", "e.g.", "i.e.", "cf.", "vs."); the
+// help, the report's "how to read this" and docs/checks.md print it whole.
 func HelpLine(doc string) string {
-	if i := strings.Index(doc, ". "); i >= 0 {
+	for i := 0; i < len(doc); i++ {
+		if doc[i] != '.' || (i+1 < len(doc) && doc[i+1] != ' ') {
+			continue
+		}
+		word := doc[:i]
+		if j := strings.LastIndexAny(word, " ("); j >= 0 {
+			word = word[j+1:]
+		}
+		switch word {
+		case "al", "e.g", "i.e", "cf", "vs", "eq", "Eq":
+			continue
+		}
 		return doc[:i+1]
 	}
 	return doc
+}
+
+// DocRest is the doc after its first sentence.
+func DocRest(doc string) string {
+	return strings.TrimSpace(strings.TrimPrefix(doc, HelpLine(doc)))
+}
+
+// Docs lists the checks' names with their summary and the rest of their
+// doc, for the report's "how to read this".
+func Docs(checks []*Check) []report.CheckDoc {
+	out := make([]report.CheckDoc, 0, len(checks))
+	for _, c := range checks {
+		out = append(out, report.CheckDoc{Name: c.Name, Summary: HelpLine(c.Doc), Detail: DocRest(c.Doc)})
+	}
+	return out
+}
+
+// ValidateThresholds rejects a threshold no check in Checks (or in extra,
+// e.g. compare's checks) knows, naming the known ones, or a value that is
+// not finite; call it before any batch runs.
+func ValidateThresholds(th map[string]float64, extra ...*Check) error {
+	known := DefaultThresholds()
+	for _, c := range extra {
+		for k, v := range c.Defaults {
+			known[k] = v
+		}
+	}
+	return validateAgainst(th, known)
 }
 
 // Run applies the checks with the given thresholds (nil: defaults), fills
@@ -95,21 +151,39 @@ func Run(col *Collected, checks []*Check, thresholds map[string]float64) error {
 		return err
 	}
 	th := DefaultThresholds()
-	for k, v := range thresholds {
-		if _, ok := th[k]; !ok {
-			return fmt.Errorf("unknown threshold %q (known: %s)", k, strings.Join(sortedKeys(th), ", "))
+	for _, c := range append(CompareChecks, checks...) { // a list other than Checks (tests, compare) brings its own defaults
+		for k, v := range c.Defaults {
+			th[k] = v
 		}
+	}
+	if err := validateAgainst(thresholds, th); err != nil {
+		return err
+	}
+	for k, v := range thresholds {
 		th[k] = v
 	}
 	var all []report.Finding
 	for _, c := range checks {
-		p := &Pass{Collected: col, check: c, Thresholds: th}
+		p := &Pass{Collected: col, check: c, Thresholds: th, prior: &all}
 		c.Run(p)
 		all = append(all, p.findings...)
 	}
 	r := col.Report
 	r.Thresholds = th
+	r.Checks = Docs(checks)
 	r.Ranking, r.Findings = rank(r, all)
+	return nil
+}
+
+func validateAgainst(th, known map[string]float64) error {
+	for _, k := range sortedKeys(th) {
+		if _, ok := known[k]; !ok {
+			return fmt.Errorf("unknown threshold %q (known: %s)", k, strings.Join(sortedKeys(known), ", "))
+		}
+		if v := th[k]; math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("threshold %q: %v is not a finite number", k, v)
+		}
+	}
 	return nil
 }
 
@@ -207,3 +281,7 @@ func plainValue(v any) any {
 	}
 	return v
 }
+
+// CompareChecks are the checks `vitals compare` adds, judging NEW against
+// OLD (see compare.go); their thresholds are valid in --config like the others'.
+var CompareChecks = []*Check{regressionCheck, frozenLayerCheck, outOfProportionCheck}

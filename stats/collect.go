@@ -142,8 +142,15 @@ type layerAcc struct {
 	unitAxis int
 	everPos  []bool
 	notYet   []int32 // units of everPos still false
-	sat      int64
-	satN     int64
+	// deadTrail is the number of units not yet seen positive after each
+	// batch (ReLU family), for the dead count at the half-way point.
+	deadTrail []int32
+	// unitLo and unitHi are each unit's smallest and largest value over
+	// the sample (saturating activations: a gate channel that never leaves
+	// a bound is constant).
+	unitLo, unitHi []float32
+	sat            int64
+	satN           int64
 	// per-channel moments along axis 1 (only for values feeding a BatchNormalization)
 	perChan []Moments
 	// sameAs is the observed data input of a node that passes its values on
@@ -203,6 +210,9 @@ type Collector struct {
 	consumer      map[string][]*loader.Node // value → the nodes that read it
 	dataDep       map[string]bool
 	Samples       int
+	// batchRows is the sample count of each batch given to AddInputs, in
+	// order (the dead-unit trails are per batch; this places their middle).
+	batchRows []int
 	// jobs feeds the statistics worker: one goroutine takes node outputs in
 	// the order the hook saw them, so the statistics of one node overlap
 	// with the computation of the next while results stay deterministic.
@@ -511,6 +521,13 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 
 // AddInputs records the moments of one batch of model inputs (call before Run).
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
+	rows := 0
+	for _, t := range batch {
+		if t != nil && t.Rank() > 0 && (rows == 0 || t.Shape[0] < rows) {
+			rows = t.Shape[0]
+		}
+	}
+	c.batchRows = append(c.batchRows, rows)
 	for name, t := range batch {
 		c.quant.observe(name, t)
 		c.half.observe(name, t)
@@ -604,6 +621,12 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 		}
 		if la.act.kind == ActReLU {
 			la.notYet = everPositivePending(la.everPos, la.notYet, x, units, inner)
+			la.deadTrail = append(la.deadTrail, int32(len(la.notYet)))
+		}
+		// one value per unit and sample ([N, C], [N, C, 1, 1]: the shape of
+		// a squeeze-and-excitation gate); wider maps skip this extra pass
+		if la.act.kind == ActSaturating && inner == 1 {
+			la.unitLo, la.unitHi = unitRange(la.unitLo, la.unitHi, x, units, inner)
 		}
 	}
 }
@@ -726,4 +749,24 @@ func (la *layerAcc) keepBatch(x []float32, b Moments, counts *[HistBins]int64) {
 	l.ok, l.seq, l.n, l.mom, l.counts = true, la.batches, len(x), b, *counts
 	l.hasFinite = la.hist.Counts != nil && !(math.IsInf(b.Min, 0) || math.IsInf(b.Max, 0) || b.Min > b.Max)
 	l.exp, l.start = la.hist.Exp, la.hist.Start
+}
+
+// unitRange folds x ([…, units, inner] row-major) into each unit's running
+// minimum and maximum (lo and hi are made on first use).
+func unitRange(lo, hi []float32, x []float32, units, inner int) ([]float32, []float32) {
+	if len(lo) != units {
+		lo, hi = make([]float32, units), make([]float32, units)
+		for u := range lo {
+			lo[u], hi[u] = float32(math.Inf(1)), float32(math.Inf(-1))
+		}
+	}
+	block := units * inner
+	for o := 0; o+block <= len(x); o += block {
+		for u := 0; u < units; u++ {
+			for _, v := range x[o+u*inner : o+(u+1)*inner] {
+				lo[u], hi[u] = min(lo[u], v), max(hi[u], v)
+			}
+		}
+	}
+	return lo, hi
 }

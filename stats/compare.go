@@ -1,9 +1,7 @@
 package stats
 
 import (
-	"fmt"
 	"math"
-	"sort"
 
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
@@ -158,59 +156,32 @@ func rebin(h *report.Histogram, lo, hi float64, bins int) []float64 {
 	return out
 }
 
+// compareFindings runs CompareChecks over NEW's report with OLD as the
+// baseline, with the thresholds NEW's run used, and re-ranks.
 func compareFindings(oldCol, newCol *Collected, match map[int]int, changes []float64) {
 	nr, or := newCol.Report, oldCol.Report
-	// the worst OLD severity per (check, node), under the NEW name of matched layers
-	newName := map[string]string{}
+	newCol.Baseline = oldCol
+	newCol.OldToNew = map[string]string{}
 	for i, j := range match {
-		newName[or.Layers[j].Node] = nr.Layers[i].Node
+		newCol.OldToNew[or.Layers[j].Node] = nr.Layers[i].Node
 	}
-	type checkNode struct{ check, node string }
-	oldSev := map[checkNode]report.Severity{}
-	for _, f := range or.Findings {
-		node := f.Node
-		if nn, ok := newName[node]; ok {
-			node = nn
-		}
-		k := checkNode{f.Check, node}
-		if f.Severity.Level() > oldSev[k].Level() {
-			oldSev[k] = f.Severity
+	newCol.WeightChanges = changes
+	all := nr.Findings
+	th := map[string]float64{}
+	for _, c := range CompareChecks {
+		for k, v := range c.Defaults {
+			th[k] = v
 		}
 	}
-	var add []report.Finding
-	for _, f := range nr.Findings {
-		if f.Severity == report.Info {
-			continue
-		}
-		if prev := oldSev[checkNode{f.Check, f.Node}]; prev.Level() < f.Severity.Level() {
-			before := "no finding"
-			if prev != "" {
-				before = string(prev)
-			}
-			add = append(add, report.Finding{Check: "regression", Severity: f.Severity, Node: f.Node, Strength: f.Strength + 1,
-				Evidence: map[string]any{"check": f.Check, "old": before, "new": string(f.Severity)},
-				Message:  fmt.Sprintf("%s went from %s in OLD to %s in NEW: %s", f.Check, before, f.Severity, f.Message)})
-		}
+	for k, v := range nr.Thresholds {
+		th[k] = v
 	}
-	if len(changes) >= 3 {
-		sorted := append([]float64{}, changes...)
-		sort.Float64s(sorted)
-		med := sorted[len(sorted)/2]
-		for _, wd := range nr.Compare.Weights {
-			if wd.RelativeChange == nil || med <= 0 {
-				continue
-			}
-			rc := *wd.RelativeChange
-			ev := map[string]any{"weight": wd.Name, "relative_change": rc, "median_relative_change": med}
-			switch {
-			case rc < med/100:
-				add = append(add, report.Finding{Check: "frozen-layer", Severity: report.Warning, Node: wd.Node, Strength: 1, Evidence: ev,
-					Message: fmt.Sprintf("weight %q moved by %.2g of its norm between the checkpoints, under 1/100 of the median layer's %.2g: the layer looks frozen (not trained, or its gradient vanished)", wd.Name, rc, med)})
-			case rc > med*10:
-				add = append(add, report.Finding{Check: "changed-out-of-proportion", Severity: report.Warning, Node: wd.Node, Strength: 1, Evidence: ev,
-					Message: fmt.Sprintf("weight %q moved by %.2g of its norm between the checkpoints, over 10× the median layer's %.2g: check this layer's learning rate and gradients", wd.Name, rc, med)})
-			}
-		}
+	for _, c := range CompareChecks {
+		p := &Pass{Collected: newCol, check: c, Thresholds: th, prior: &all}
+		c.Run(p)
+		all = append(all, p.findings...)
 	}
-	nr.Ranking, nr.Findings = rank(nr, append(nr.Findings, add...))
+	nr.Thresholds = th
+	nr.Checks = append(nr.Checks, Docs(CompareChecks)...)
+	nr.Ranking, nr.Findings = rank(nr, all)
 }

@@ -24,6 +24,17 @@ type Collected struct {
 	// Graph is the flat view of the model the layer and weight names refer
 	// to (probe.Flat): subgraph nodes and initializers under qualified names.
 	Graph *loader.Graph
+	// FeedWeight maps an activation layer (index into Report.Layers) to the
+	// weight (index into Report.Weights) of the linear layer that feeds it
+	// with no normalisation between them.
+	FeedWeight map[int]int
+	// Baseline is OLD's statistics when `vitals compare` judges NEW
+	// against it (nil otherwise), OldToNew maps OLD layer nodes to the
+	// matched NEW ones, and WeightChanges are the finite relative weight
+	// changes ‖W_new − W_old‖/‖W_old‖.
+	Baseline      *Collected
+	OldToNew      map[string]string
+	WeightChanges []float64
 }
 
 // Stack is a chain of activation layers and the weights of the linear layers between them.
@@ -79,7 +90,12 @@ func (c *Collector) Finish(source string) *Collected {
 		is := report.InputStat{Name: name, Shape: la.shape, Mean: report.Num(la.mom.Mean), Std: report.Num(la.mom.Std())}
 		if la.mom.N == 0 {
 			is.Mean, is.Std = nil, nil
+		} else {
+			is.Min, is.Max = report.Num(la.mom.Min), report.Num(la.mom.Max)
 		}
+		is.SelfNormalised = c.selfNormalised(name)
+		is.RecurrentState = c.isRecurrentState(name, 0)
+		is.FirstNorm = c.firstNorm(name)
 		if len(la.perChan) > 0 && len(la.shape) > 0 {
 			ax := 1
 			if len(la.shape) < 3 {
@@ -115,6 +131,9 @@ func (c *Collector) Finish(source string) *Collected {
 				l.P01, l.P99 = report.Num(la.hist.Quantile(0.01)), report.Num(la.hist.Quantile(0.99))
 			}
 		}
+		if la.act.kind != ActNone && la.output == la.node.Outputs[0] {
+			l.Role = c.roleOf(la)
+		}
 		if la.act.kind != ActNone && len(la.everPos) > 0 {
 			l.Units = report.IntPtr(len(la.everPos))
 			l.UnitAxis = report.IntPtr(la.unitAxis)
@@ -127,11 +146,27 @@ func (c *Collector) Finish(source string) *Collected {
 					}
 				}
 				l.DeadFraction = report.Num(float64(dead) / float64(len(la.everPos)))
+				if h := c.halfBatch(len(la.deadTrail)); h >= 0 {
+					l.DeadAtHalf = report.IntPtr(int(la.deadTrail[h]))
+				}
 			} else {
 				l.Activation = "saturating"
 			}
 			if la.act.hasSat && la.satN > 0 {
 				l.SaturatedFraction = report.Num(float64(la.sat) / float64(la.satN))
+			}
+			if l.Role == RoleGate && len(la.unitLo) > 0 {
+				lo, hi := la.act.satBounds() // NaN bounds (no rule) match nothing
+				off, on := 0, 0
+				for u := range la.unitLo {
+					if la.unitHi[u] <= lo {
+						off++
+					}
+					if la.unitLo[u] >= hi {
+						on++
+					}
+				}
+				l.GateOff, l.GateOn = report.IntPtr(off), report.IntPtr(on)
 			}
 		}
 		l.ClippedFraction, l.LevelsUsedFraction, l.Quantization = c.quant.quantFor(la.output)
@@ -149,7 +184,7 @@ func (c *Collector) Finish(source string) *Collected {
 	if r.Layers == nil {
 		r.Layers = []report.Layer{}
 	}
-	col.Stacks = c.stacks(layerIdx, r)
+	col.Stacks, col.FeedWeight = c.stacks(layerIdx, r)
 	col.BatchNorms = c.batchNorms()
 	if c.out != nil && c.out.rows > 0 {
 		o := c.out
@@ -165,6 +200,106 @@ func (c *Collector) Finish(source string) *Collected {
 	r.Findings = []report.Finding{}
 	r.Ranking = []report.Rank{}
 	return col
+}
+
+// halfBatch is the index of the batch after which half the sample has been
+// seen (by the rows AddInputs counted, else by batches), for a trail of n
+// batches; −1 when there are fewer than 2.
+func (c *Collector) halfBatch(n int) int {
+	if n < 2 {
+		return -1
+	}
+	if len(c.batchRows) == n {
+		total := 0
+		for _, r := range c.batchRows {
+			total += r
+		}
+		cum := 0
+		for i, r := range c.batchRows {
+			cum += r
+			if 2*cum >= total {
+				return min(i, n-2) // never the last batch: the second half needs one
+			}
+		}
+	}
+	return (n+1)/2 - 1
+}
+
+// selfNormalised reports whether every reader of a graph input is a
+// normalisation layer or an elementwise Sub/Div/Mul/Add with a constant
+// (the graph does its own preprocessing, (x − mean)/std).
+func (c *Collector) selfNormalised(name string) bool {
+	readers := c.consumer[name]
+	if len(readers) == 0 {
+		return false
+	}
+	for _, n := range readers {
+		switch {
+		case normOps[n.OpType]:
+		case (n.OpType == "Sub" || n.OpType == "Div" || n.OpType == "Mul" || n.OpType == "Add") && len(n.Inputs) == 2:
+			other := n.Inputs[0]
+			if other == name {
+				other = n.Inputs[1]
+			}
+			if _, ok := constValue(c.Model.Graph, other); !ok {
+				return false
+			}
+		default:
+			return false
+		}
+	}
+	return true
+}
+
+// firstNorm is the nearest BatchNormalization downstream of value, at most
+// 4 nodes away, breadth first ("" if none).
+func (c *Collector) firstNorm(value string) string {
+	frontier := []string{value}
+	seen := map[string]bool{}
+	for depth := 0; depth < 4 && len(frontier) > 0; depth++ {
+		var next []string
+		for _, v := range frontier {
+			for _, n := range c.consumer[v] {
+				if n.OpType == "BatchNormalization" {
+					return n.Name
+				}
+				for _, o := range n.Outputs {
+					if o != "" && !seen[o] {
+						seen[o] = true
+						next = append(next, o)
+					}
+				}
+			}
+		}
+		frontier = next
+	}
+	return ""
+}
+
+// isRecurrentState reports whether value reaches an LSTM/GRU/RNN as its
+// initial state (input 5 or 6), through reshaping ops only.
+func (c *Collector) isRecurrentState(value string, depth int) bool {
+	readers := c.consumer[value]
+	if len(readers) == 0 || depth > 8 {
+		return false
+	}
+	for _, n := range readers {
+		switch {
+		case n.OpType == "LSTM" || n.OpType == "GRU" || n.OpType == "RNN":
+			for i, in := range n.Inputs {
+				if in == value && i < 5 {
+					return false
+				}
+			}
+		case sameValueOps[n.OpType] && len(n.Outputs) > 0 && len(n.Inputs) > 0 && n.Inputs[0] == value:
+			if !c.isRecurrentState(n.Outputs[0], depth+1) {
+				return false
+			}
+		default:
+			return false
+		}
+	}
+	return true
 }
 
 // followerOf names what follows a linear node: an activation op type,
@@ -198,7 +333,7 @@ func (c *Collector) followerOf(n *loader.Node) string {
 // stacks builds chains of activation layers: the predecessor of an activation
 // is the nearest activation upstream along data inputs, unless a normalisation
 // node lies between them.
-func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack {
+func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stack, map[int]int) {
 	weightIdx := map[string]int{}
 	for i, w := range r.Weights {
 		weightIdx[w.Node] = i
@@ -209,6 +344,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		merged  bool
 	}
 	links := map[*layerAcc]link{}
+	feed := map[int]int{}
 	var acts []*layerAcc
 	for _, la := range c.layers {
 		if _, ok := layerIdx[la]; !ok || !activationOps[la.node.OpType] || la.output != la.node.Outputs[0] || c.isGate(la.output) {
@@ -225,6 +361,9 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 			for _, in := range cur.Inputs {
 				if !c.dataDep[in] {
 					continue
+				}
+				if sg := c.producer[in]; sg != nil && c.isSelfGate(sg) {
+					continue // x·σ(x) is one path: the σ(x) of a SiLU/hard-swish written out
 				}
 				paths++
 				if n := c.valuesOf(in); n > most {
@@ -245,6 +384,9 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 			cur = p
 		}
 		links[la] = lk
+		if len(lk.weights) > 0 {
+			feed[layerIdx[la]] = lk.weights[len(lk.weights)-1]
+		}
 	}
 	isPred := map[*layerAcc]bool{}
 	for _, lk := range links {
@@ -274,7 +416,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) []Stack
 		}
 		out = append(out, st)
 	}
-	return out
+	return out, feed
 }
 
 // isGate reports whether a value only scales a larger one: every reader is

@@ -41,7 +41,7 @@ func (c *Collector) AddOutputs(outs map[string]*tensor.Tensor, labels []int64) {
 	}
 	o := c.out
 	C := t.Shape[t.Rank()-1]
-	if C < 2 {
+	if C < 2 || !c.classesLast(name, t.Rank()) {
 		return
 	}
 	o.classes = C
@@ -100,4 +100,38 @@ func softmax64(row []float32, out []float64) {
 	for i := range out {
 		out[i] /= s
 	}
+}
+
+// classesLast reports whether an output of this rank holds class scores on
+// its last axis: [N, C] (probabilities or logits), or a higher rank made by
+// a Softmax/LogSoftmax over the last axis ([N, T, C] per-step classes). A
+// per-pixel map [N, 1, H, W] or another spatial or regression output is
+// not a class distribution.
+func (c *Collector) classesLast(name string, rank int) bool {
+	if rank == 2 {
+		return true
+	}
+	n := c.producer[name]
+	for hops := 0; n != nil && sameValueOps[n.OpType] && n.OpType != "Transpose" && n.OpType != "Flatten" && len(n.Inputs) > 0 && hops < 8; hops++ {
+		n = c.producer[n.Inputs[0]]
+	}
+	if n == nil || (n.OpType != "Softmax" && n.OpType != "LogSoftmax") {
+		return false
+	}
+	in := c.byOut[n.Inputs[0]]
+	if in == nil {
+		in = c.inputs[n.Inputs[0]]
+	}
+	r := rank
+	if in != nil && in.shape != nil {
+		r = len(in.shape)
+	}
+	axis := int64(-1) // opset 13 on
+	if c.Model.Opsets[""] < 13 {
+		axis = 1
+	}
+	if a := n.Attrs["axis"]; a != nil {
+		axis = a.I
+	}
+	return axis == -1 || axis == int64(r-1)
 }

@@ -66,3 +66,63 @@ func TestStackFollowsSignalPastGate(t *testing.T) {
 		t.Errorf("stacks %v: the gate's Sigmoid is in one", got)
 	}
 }
+
+// SiLU written out, x·σ(x), is one path: a chain of MatMul → Sigmoid → Mul
+// layers is a plain stack (not Merged), so spread-collapse judges it (the
+// Sigmoids are self-gates, in no stack; the chain runs through the Muls'
+// predecessors). Its spread shrinks with weights N(0, 0.05²) over 400
+// units (gain 1, well under the rules for a ReLU-like unit) and the plain
+// stack gets a spread-collapse finding; the same chain as a merged stack
+// would get none.
+func TestSiLUChainIsPlain(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	const units = 100
+	b := modelbuild.New("silu", 13)
+	b.Input("x", []int{1, units}, true)
+	in := "x"
+	for l := 0; l < 6; l++ {
+		s := string(rune('a' + l))
+		w := make([]float32, units*units)
+		for i := range w {
+			w[i] = float32(rng.NormFloat64() * 0.3 / 10)
+		}
+		b.Init("W"+s, []int{units, units}, w)
+		h := b.Node("MatMul", "fc"+s, []string{in, "W" + s}, []string{"h" + s})
+		g := b.Node("Sigmoid", "sig"+s, []string{h}, []string{"g" + s})
+		in = b.Node("Mul", "silu"+s, []string{h, g}, []string{"y" + s})
+		in = b.Node("Relu", "relu"+s, []string{in}, []string{"r" + s})
+	}
+	b.Output(in)
+	mod, plan := BuildPlan(t, b)
+	c := NewCollector(mod, plan)
+	x := tensor.New(tensor.Float32, []int{64, units})
+	for i := range x.F32() {
+		x.F32()[i] = float32(rng.NormFloat64())
+	}
+	in0 := map[string]*tensor.Tensor{"x": x}
+	c.AddInputs(in0)
+	if _, err := plan.Run(in0, c.Hook); err != nil {
+		t.Fatal(err)
+	}
+	c.Samples = 64
+	col := c.Finish("file")
+	plain := 0
+	for _, st := range col.Stacks {
+		if !st.Merged && len(st.Layers) >= 3 {
+			plain++
+		}
+	}
+	if plain == 0 {
+		t.Fatalf("no plain stack of 3+ layers through the SiLU chain: %+v", col.Stacks)
+	}
+	fs := checkOn(t, spreadCollapseCheck, col, nil)
+	if len(fs) != 1 {
+		t.Fatalf("spread-collapse on the plain SiLU chain: %+v, want one", fs)
+	}
+	for i := range col.Stacks {
+		col.Stacks[i].Merged = true
+	}
+	if fs := checkOn(t, spreadCollapseCheck, col, nil); len(fs) != 0 {
+		t.Fatalf("merged stacks judged: %+v", fs)
+	}
+}

@@ -212,7 +212,8 @@ func TestSyntheticFirstLine(t *testing.T) {
 	}
 }
 
-// compare names the layers whose units died and writes the overlay plots.
+// compare names the layers whose units died, once each, marked new against
+// OLD (no second "regression" line repeating them), and writes the overlay plots.
 func TestCompareDemo(t *testing.T) {
 	dir := t.TempDir()
 	code, out, stderr := runCLI(t, "compare", demoGood, demoBad, "--data", demoData, "--out", dir, "--format", "json")
@@ -220,8 +221,11 @@ func TestCompareDemo(t *testing.T) {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
 	var doc struct {
-		Findings []struct{ Check, Node, Severity string }
-		Compare  struct {
+		Findings []struct {
+			Check, Node, Severity string
+			Evidence              map[string]any
+		}
+		Compare struct {
 			Layers []struct {
 				Node    string
 				DeadOld *float64 `json:"dead_old"`
@@ -234,8 +238,14 @@ func TestCompareDemo(t *testing.T) {
 	}
 	regressed := map[string]bool{}
 	for _, f := range doc.Findings {
-		if f.Check == "regression" && f.Severity == "error" {
+		if f.Check == "dead-units" && f.Severity == "error" && f.Evidence["compare"] == "new" {
+			if regressed[f.Node] {
+				t.Errorf("%s reported twice", f.Node)
+			}
 			regressed[f.Node] = true
+		}
+		if f.Check == "regression" && (f.Node == "/relu2/Relu" || f.Node == "/relu3/Relu") {
+			t.Errorf("a second line for the same problem: %+v", f)
 		}
 	}
 	if !regressed["/relu2/Relu"] || !regressed["/relu3/Relu"] {

@@ -81,7 +81,11 @@ func run(args []string, stdout, stderr io.Writer) (code int) {
 	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
 		fmt.Fprint(stderr, usage)
 		for _, c := range stats.Checks {
-			fmt.Fprintf(stderr, "  %-18s %s\n", c.Name, stats.HelpLine(c.Doc))
+			fmt.Fprintf(stderr, "  %-26s %s\n", c.Name, stats.HelpLine(c.Doc))
+		}
+		fmt.Fprintln(stderr, "compare adds:")
+		for _, c := range stats.CompareChecks {
+			fmt.Fprintf(stderr, "  %-26s %s\n", c.Name, stats.HelpLine(c.Doc))
 		}
 		if len(args) == 0 {
 			return 2

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"github.com/vitals-health/vitals/stats"
 	"io"
 	"math"
 	"os"
@@ -157,6 +158,10 @@ func loadThresholds(path string) (map[string]float64, error) {
 		return nil, userErr("--config: %v", err)
 	}
 	th, err := ParseThresholds(b)
+	if err == nil {
+		// unknown names fail here, before a model is loaded or a batch runs
+		err = stats.ValidateThresholds(th, stats.CompareChecks...)
+	}
 	if err != nil {
 		return nil, userErr("--config %q: %v", path, err)
 	}
