@@ -57,7 +57,10 @@ type Subgraph struct {
 	// by the control-flow node at each run (Loop's iteration number,
 	// condition and carried values; Scan's states and slices).
 	Inputs []string
-	plan   *Plan
+	// Outputs are the qualified names of the subgraph's formal outputs, in
+	// order (an If branch's k-th output is the If node's k-th output).
+	Outputs []string
+	plan    *Plan
 }
 
 // Runs is how often the subgraph has been run since the model was compiled:
@@ -214,6 +217,9 @@ func (f *Flat) addSub(sp *Plan, owner *loader.Node, attr, label string, parent, 
 	sub := Subgraph{Owner: owner, Parent: parent, Attr: attr, Label: label, Prefix: prefix, plan: sp}
 	for _, in := range g.Inputs {
 		sub.Inputs = append(sub.Inputs, r.name(in.Name))
+	}
+	for _, o := range g.Outputs {
+		sub.Outputs = append(sub.Outputs, r.name(o.Name))
 	}
 	f.Subgraphs = append(f.Subgraphs, sub)
 	for _, n := range g.InitOrder {

@@ -95,6 +95,12 @@ func (c *Collector) onlyToOutputs(value string, depth int) bool {
 	}
 	readers := c.consumer[value]
 	if len(readers) == 0 {
+		if !isOut {
+			// an If branch's output is the If node's output at the same place
+			if o, ok := c.ifOutput(value); ok {
+				return c.onlyToOutputs(o, depth+1)
+			}
+		}
 		return isOut
 	}
 	for _, n := range readers {
@@ -164,4 +170,20 @@ func (c *Collector) isCellGate(n *loader.Node) bool {
 		}
 	}
 	return true
+}
+
+// ifOutput maps the formal output of an If branch (a qualified name in the
+// flat view) to the If node's output at the same position.
+func (c *Collector) ifOutput(value string) (string, bool) {
+	for _, sg := range c.flat.Subgraphs {
+		if sg.Owner.OpType != "If" {
+			continue
+		}
+		for k, o := range sg.Outputs {
+			if o == value && k < len(sg.Owner.Outputs) && sg.Owner.Outputs[k] != "" {
+				return sg.Owner.Outputs[k], true
+			}
+		}
+	}
+	return "", false
 }
