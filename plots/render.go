@@ -2,10 +2,7 @@ package plots
 
 import (
 	"bufio"
-	"fmt"
 	"io"
-	"os"
-	"path/filepath"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/font"
@@ -45,34 +42,6 @@ func writePNG(out io.Writer, wPx, hPx float64, drawFn func(draw.Canvas) error) e
 		return err
 	}
 	return bw.Flush()
-}
-
-// saveAtomic writes name in dir through a temporary file renamed into place,
-// so that a reader never sees a half-written image.
-func saveAtomic(dir, name string, write func(io.Writer) error) (err error) {
-	f, err := os.CreateTemp(dir, "."+name+".*.tmp")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", name, err)
-	}
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-		}
-	}()
-	if err = write(f); err != nil {
-		return fmt.Errorf("rendering %s: %w", name, err)
-	}
-	if err = f.Chmod(0o644); err != nil {
-		return fmt.Errorf("writing %s: %w", name, err)
-	}
-	if err = f.Close(); err != nil {
-		return fmt.Errorf("writing %s: %w", name, err)
-	}
-	if err = os.Rename(f.Name(), filepath.Join(dir, name)); err != nil {
-		return fmt.Errorf("writing %s: %w", name, err)
-	}
-	return nil
 }
 
 // dashes returns the dash pattern of a style.
