@@ -76,7 +76,10 @@ type Layer struct {
 	// P01 and P99 are the 1st and 99th percentiles, interpolated from the histogram.
 	P01 *float64 `json:"p01"`
 	P99 *float64 `json:"p99"`
-	// Activation is "relu", "saturating" or "" (what kind of unit statistics were taken).
+	// Activation is what kind of unit statistics were taken: "relu" (ReLU
+	// family: dead fraction), "relu-like" (smooth ReLU-like units such as
+	// GELU and SiLU, also when written as a subgraph: dead fraction),
+	// "saturating" (bounded units: saturated fraction) or "" (none).
 	Activation string `json:"activation,omitempty"`
 	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
 	Note string `json:"note,omitempty"`

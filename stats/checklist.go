@@ -1,6 +1,8 @@
 package stats
 
 import (
+	"github.com/vitals-health/vitals/internal/actkind"
+
 	"fmt"
 	"math"
 
@@ -199,9 +201,10 @@ var spreadExplosionCheck = &Check{
 	},
 }
 
-// referenceGain is √2 for the ReLU family (He et al. 2015) and 1 otherwise (Glorot & Bengio 2010).
+// referenceGain is √2 for the ReLU family and the ReLU-like units
+// (actkind.HeGain; He et al. 2015) and 1 otherwise (Glorot & Bengio 2010).
 func referenceGain(follow string) float64 {
-	if reluLike[follow] || follow == "Clip" {
+	if actkind.HeGain(follow) {
 		return math.Sqrt2
 	}
 	return 1

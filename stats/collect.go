@@ -6,6 +6,7 @@ import (
 	"sync"
 	"sync/atomic"
 
+	"github.com/vitals-health/vitals/internal/actkind"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/probe"
 	"github.com/vitals-health/vitals/tensor"
@@ -28,17 +29,28 @@ type actInfo struct {
 	satLo, satHi float64 // saturated when y <= satLo or y >= satHi (strict variants via eps)
 	strict       bool    // use < and > instead of <= and >=
 	hasSat       bool
+	smooth       bool // a smooth ReLU-like unit (actkind.Smooth)
 	note         string
 }
 
-// classify decides from op type and attributes what kind of activation a node is.
+// classify decides from op type and attributes what kind of activation a
+// node is, using the one list of activation operators (internal/actkind);
+// op is the node's op type, or the actkind name of the composite activation
+// (x·sigmoid(x), erf-GELU) the node ends.
 // Saturation limits: tanh |y|>0.99, sigmoid y<0.01 or y>0.99, softsign |y|>0.99
 // (common practice: the derivative there is under ~2% of its peak);
+// softplus y<0.01 (its derivative 1−e^(−y) is then under 1%, the same rule);
 // hard variants (HardSigmoid, HardTanh-style Clip) at their clip bounds.
-func classify(n *loader.Node, g *loader.Graph) actInfo {
-	switch n.OpType {
-	case "Relu", "ThresholdedRelu":
-		return actInfo{kind: ActReLU}
+// Smooth ReLU-like units (GELU, SiLU/Swish, Mish, ELU, CELU, SELU,
+// HardSwish) are > 0 exactly when their input is > 0, so "never > 0" is
+// counted as dead like a ReLU unit, with a note that they still pass a small
+// gradient.
+func classify(n *loader.Node, op string, g *loader.Graph) actInfo {
+	a, ok := actkind.Lookup(op)
+	if !ok {
+		return actInfo{}
+	}
+	switch op {
 	case "LeakyRelu":
 		alpha := float32(0.01)
 		if a := n.Attrs["alpha"]; a != nil {
@@ -51,6 +63,8 @@ func classify(n *loader.Node, g *loader.Graph) actInfo {
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: -0.99, satHi: 0.99, strict: true}
 	case "Sigmoid":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0.01, satHi: 0.99, strict: true}
+	case "Softplus":
+		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0.01, satHi: math.Inf(1), strict: true}
 	case "HardSigmoid":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0, satHi: 1}
 	case "Clip":
@@ -68,8 +82,42 @@ func classify(n *loader.Node, g *loader.Graph) actInfo {
 		if !math.IsInf(lo, -1) && !math.IsInf(hi, 1) {
 			return actInfo{kind: ActSaturating, hasSat: true, satLo: lo, satHi: hi, note: "Clip treated as hard tanh"}
 		}
+		return actInfo{}
+	}
+	switch a.Family {
+	case actkind.ReLU:
+		return actInfo{kind: ActReLU}
+	case actkind.Smooth:
+		name := op
+		if op != n.OpType {
+			name = compositeForm[op] + " read as " + op
+		}
+		note := name + ": > 0 only for inputs > 0; a dead unit still passes a small gradient"
+		return actInfo{kind: ActReLU, smooth: true, note: note}
 	}
 	return actInfo{}
+}
+
+// actOp is the activation a node is, by its actkind name ("" for none):
+// its op type when that is an activation operator, or the composite
+// activation it ends; a node inside a composite activation is none.
+func (c *Collector) actOp(n *loader.Node) string {
+	if name, ok := c.composite.top[n]; ok {
+		return name
+	}
+	if _, in := c.composite.inner[n]; in || !actkind.Is(n.OpType) {
+		return ""
+	}
+	return n.OpType
+}
+
+// classifyNode is classify for a node of the collector's graph.
+func (c *Collector) classifyNode(n *loader.Node) actInfo {
+	op := c.actOp(n)
+	if op == "" {
+		return actInfo{}
+	}
+	return classify(n, op, c.Model.Graph)
 }
 
 // clipBounds reads Clip's bounds from attributes (opset<11) or constant inputs.
@@ -188,6 +236,7 @@ type Collector struct {
 	producer      map[string]*loader.Node
 	consumer      map[string][]*loader.Node // value → the nodes that read it
 	dataDep       map[string]bool
+	composite     composite // activations written as subgraphs
 	Samples       int
 	// jobs feeds the statistics worker: one goroutine takes node outputs in
 	// the order the hook saw them, so the statistics of one node overlap
@@ -325,6 +374,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 	c := &Collector{Model: m, Plan: p, byOut: map[string]*layerAcc{}, perChanWanted: map[string]bool{},
 		inputs: map[string]*layerAcc{}, producer: map[string]*loader.Node{}, consumer: map[string][]*loader.Node{}, dataDep: map[string]bool{}}
 	g := m.Graph
+	c.composite = compositeActs(g)
 	for _, in := range g.Inputs {
 		c.dataDep[in.Name] = true
 	}
@@ -360,7 +410,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			if o == "" || !c.dataDep[o] {
 				continue
 			}
-			la := &layerAcc{node: s.Node, output: o, depth: p.Depth[i], mom: NewMoments(), act: classify(s.Node, g)}
+			la := &layerAcc{node: s.Node, output: o, depth: p.Depth[i], mom: NewMoments(), act: c.classifyNode(s.Node)}
 			if la.act.kind != ActNone {
 				la.unitKind = c.unitKindOf(s.Node)
 			}

@@ -336,12 +336,16 @@ func vitalsLayer(rep *report.Report, g goldenLayer) *report.Layer {
 	return nil
 }
 
-// reluFamily are the ops for which vitals reports a dead fraction. The golden
-// files also fill dead_fraction for SiLU (Mul), GELU (Mul) and Hardswish
-// modules; vitals does not treat those smooth units as ReLU-family (they pass
-// gradient for negative inputs) and reports null there, so dead fractions are
-// compared only where both sides define one.
-var reluFamily = map[string]bool{"Relu": true, "LeakyRelu": true, "PRelu": true, "Clip": true}
+// reluFamily are the ops for which vitals reports a dead fraction, and
+// smoothModules the torch modules of smooth ReLU-like units whose dead
+// fraction ("never > 0", the golden files' dead_definition) vitals reports
+// too: SiLU exported as Mul(x, Sigmoid(x)), GELU exported in erf form ending
+// in a Mul, and Hardswish. Where torch fills dead_fraction for one of these,
+// vitals must report the same fraction.
+var (
+	reluFamily    = map[string]bool{"Relu": true, "LeakyRelu": true, "PRelu": true, "Clip": true}
+	smoothModules = map[string]bool{"SiLU": true, "GELU": true, "Hardswish": true, "Mish": true, "ELU": true, "CELU": true, "SELU": true}
+)
 
 func compareLayer(r *refResult, g goldenLayer) {
 	id := fmt.Sprintf("%s (%s %s)", g.OnnxNode, g.ModuleType, g.Module)
@@ -389,7 +393,7 @@ func compareLayer(r *refResult, g goldenLayer) {
 	}
 	// Dead units: a count over units, so exact. Source: torch 1.13 forward
 	// hooks, "never > 0 over all samples and positions" along unit_axis.
-	if reluFamily[g.Op] && g.DeadFraction != nil {
+	if (reluFamily[g.Op] || smoothModules[g.ModuleType]) && g.DeadFraction != nil {
 		if l.DeadFraction == nil {
 			r.fail("%s: torch has dead fraction %.4g, vitals reports none", id, *g.DeadFraction)
 		} else {
