@@ -142,7 +142,9 @@ type Finding struct {
 	Node     string         `json:"node"`
 	Message  string         `json:"message"`
 	Evidence map[string]any `json:"evidence"`
-	// Strength ≥ 1 says how far past its threshold the value is (used for ranking).
+	// Strength says how far past its threshold the value is, for ranking:
+	// 1 + log₂(value/threshold), between 1 and 8 (stats.Pass.Emit); a
+	// compare regression adds 1 to the finding it repeats.
 	Strength float64 `json:"-"`
 }
 

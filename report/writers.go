@@ -48,12 +48,14 @@ type Format struct {
 	Files bool
 }
 
-// Formats is the one table of output formats, in the order the help lists them.
+// Formats is the one table of output formats, in the order the help lists
+// them. With --out, report.json and the plots are written whatever the
+// format.
 var Formats = []Format{
-	{Name: "text", Help: "ranked findings and a per-layer table for the terminal", Write: WriteText},
-	{Name: "json", Help: "the JSON contract, for CI (always written as report.json under --out)", File: "report.json", Write: WriteJSON},
-	{Name: "markdown", Help: "report.md beside the PNG plots, for a code review (needs --out)", File: "report.md", Write: WriteMarkdown, Files: true},
-	{Name: "html", Help: "one self-contained report.html with the plots embedded (needs --out)", File: "report.html", Write: WriteHTML, Files: true},
+	{Name: "text", Help: "ranked findings and a per-layer table, on stdout", Write: WriteText},
+	{Name: "json", Help: "the JSON contract for CI, on stdout", File: "report.json", Write: WriteJSON},
+	{Name: "markdown", Help: "report.md beside the PNG plots under --out for a code review, the text summary on stdout", File: "report.md", Write: WriteMarkdown, Files: true},
+	{Name: "html", Help: "one self-contained report.html with the plots embedded under --out, the text summary on stdout", File: "report.html", Write: WriteHTML, Files: true},
 }
 
 // LookupFormat returns the format called name.
@@ -75,14 +77,14 @@ func FormatNames() []string {
 	return n
 }
 
-// FormatHelp is the --format help text made from the table: the names, then
-// one "name: help" clause per format.
+// FormatHelp is the --format help text made from the table: each name with
+// its help in parentheses.
 func FormatHelp() string {
 	parts := make([]string, len(Formats))
 	for i, f := range Formats {
-		parts[i] = f.Name + ": " + f.Help
+		parts[i] = f.Name + " (" + f.Help + ")"
 	}
-	return "report format on stdout (and in --out): " + strings.Join(FormatNames(), "|") + " (" + strings.Join(parts, "; ") + ")"
+	return "report format: " + strings.Join(parts, ", ")
 }
 
 // WriteFileAtomic writes path through a temporary file in the same folder

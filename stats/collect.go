@@ -25,9 +25,12 @@ const (
 // actInfo describes one activation node: its kind and saturation rule.
 type actInfo struct {
 	kind ActKind
-	// sat reports whether y is saturated (nil: no saturation rule).
-	satLo, satHi float64 // saturated when y <= satLo or y >= satHi (strict variants via eps)
-	strict       bool    // use < and > instead of <= and >=
+	// With hasSat, a value y counts as saturated when y <= satLo or
+	// y >= satHi (y < satLo or y > satHi when strict; passParams turns a
+	// strict bound into the next float32 inward). Without it the node has
+	// no saturation rule and no saturated fraction.
+	satLo, satHi float64
+	strict       bool
 	hasSat       bool
 	smooth       bool // a smooth ReLU-like unit (actkind.Smooth)
 	note         string

@@ -141,7 +141,7 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.StringVar(&c.labels, "labels", "", "integer class ids (.npy), one per sample: adds accuracy and cross-entropy")
 	fs.IntVar(&c.samples, "samples", 0, "use at most N samples (0: all; 64 for synthetic input)")
 	fs.IntVar(&c.batch, "batch", 0, "samples per batch (default: the model's fixed batch size, or chosen from the size of its activations after one sample, 1 to 32)")
-	fs.StringVar(&c.out, "out", "", "write report.json, plots and the report of --format into this folder")
+	fs.StringVar(&c.out, "out", "", "write report.json, the PNG plots and, for --format markdown or html, report.md or report.html into this folder")
 	fs.StringVar(&c.format, "format", "text", report.FormatHelp())
 	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
 	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
