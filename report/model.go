@@ -1,5 +1,5 @@
 // Package report holds the one report model of a vitals run (the JSON
-// contract of design.md) and its writers: terminal text, JSON, Markdown and HTML.
+// contract of docs/design.md) and its writers: terminal text, JSON, Markdown and HTML.
 // Unknown values are nil pointers, encoded as JSON null, never made-up numbers.
 package report
 

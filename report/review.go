@@ -75,7 +75,7 @@ var (
 // reviewChecks is the one-line meaning of each check and what to do about it.
 var reviewChecks = []reviewCheck{
 	{"nonfinite", "NaN or ±Inf appeared in an activation or weight.", "Find the first layer in depth order that has them; look for overflow, log/sqrt of non-positive values or a bad weight file."},
-	{"dead-units", "ReLU-family units that were never positive on the whole sample.", "Check the bias and weight scale of the layer before; consider a leaky variant or re-initialising those units."},
+	{"dead-units", "ReLU-family and smooth ReLU-like units (GELU, SiLU) that were never positive on the whole sample.", "Check the bias and weight scale of the layer before; consider a leaky variant or re-initialising those units."},
 	{"saturation", "tanh/sigmoid units that sit at their limits, where the gradient is almost zero.", "Reduce the pre-activation scale (weight scale, normalisation before the activation)."},
 	{"spread-collapse / spread-explosion", "The activation std shrinks or grows by a large factor across a stack without normalisation.", "Compare each layer's weight gain with its reference; add normalisation or rescale the initialisation."},
 	{"weight-scale", "Gain std·√fan_in far from the reference for the following activation (√2 He for ReLU, 1 Xavier otherwise).", "Check the initialisation rule and whether training drove the weights there (weight decay, learning rate)."},

@@ -52,7 +52,7 @@ var nonfiniteCheck = &Check{
 
 var deadUnitsCheck = &Check{
 	Name: "dead-units",
-	Doc: "ReLU-family units that never output a positive value over the whole sample. " +
+	Doc: "ReLU-family and smooth ReLU-like units (GELU, SiLU/Swish, Mish, ELU, HardSwish) that never output a positive value over the whole sample. " +
 		"A dead unit passes no gradient and is wasted capacity. Common practice: trained ReLU nets often carry 10–20% dead units; far more points to a too-high learning rate, poor initialisation or badly scaled inputs.",
 	Defaults: map[string]float64{"dead-units.warning": 0.25, "dead-units.error": 0.5, "dead-units.min_samples": 32},
 	Run: func(p *Pass) {
@@ -86,7 +86,7 @@ var deadUnitsCheck = &Check{
 
 var saturationCheck = &Check{
 	Name: "saturation",
-	Doc: "Share of tanh/sigmoid/softsign outputs pinned at their limits (tanh |y|>0.99; sigmoid y<0.01 or y>0.99; hard variants at their clip bounds). " +
+	Doc: "Share of tanh/sigmoid/softsign/softplus outputs pinned at their limits (tanh |y|>0.99; sigmoid y<0.01 or y>0.99; softplus y<0.01; hard variants at their clip bounds). " +
 		"Saturated units pass almost no gradient (common practice). Usual causes: inputs not normalised, weights too large.",
 	Defaults: map[string]float64{"saturation.warning": 0.2, "saturation.error": 0.5},
 	Run: func(p *Pass) {

@@ -25,7 +25,7 @@ func reluLayer(node string, dead float64, units int) report.Layer {
 }
 
 // dead-units grades against its thresholds (defaults 25% / 50%, "common
-// practice" in design.md) and follows --config overrides.
+// practice" in docs/design.md) and follows --config overrides.
 func TestDeadUnitsThresholds(t *testing.T) {
 	mk := func() *Collected {
 		r := &report.Report{Input: report.Input{Samples: 500}, Layers: []report.Layer{

@@ -186,7 +186,7 @@ func allResults(t *testing.T) []*refResult {
 // evalRef loads, compiles and runs one model through the Collector path (the
 // numbers tested are the ones `vitals check` reports, activation storage
 // recycled as it does) and compares output and
-// golden layers. It records mismatches instead of failing, so the README table
+// golden layers. It records mismatches instead of failing, so the reference table (docs/reference-models.md)
 // and the per-model tests share one evaluation.
 func evalRef(m refModel) *refResult {
 	r := &refResult{model: m}
