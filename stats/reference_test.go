@@ -78,26 +78,6 @@ type golden struct {
 	Layers []goldenLayer `json:"layers"`
 }
 
-func readJSON(t testing.TB, path string, v any) {
-	t.Helper()
-	b, err := os.ReadFile(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := json.Unmarshal(b, v); err != nil {
-		t.Fatalf("%s: %v", path, err)
-	}
-}
-
-func loadRefIndex(t testing.TB) refIndex {
-	var idx refIndex
-	readJSON(t, filepath.Join(refDir, "index.json"), &idx)
-	if len(idx.Models) == 0 {
-		t.Fatal("index.json lists no models")
-	}
-	return idx
-}
-
 // Tolerances. Output: |got−want| ≤ atol + rtol·|want| elementwise.
 const (
 	outRtol = 1e-4
