@@ -2,6 +2,7 @@ package plots
 
 import (
 	"encoding/json"
+	"io"
 	"os"
 	"testing"
 
@@ -30,6 +31,24 @@ func BenchmarkRender(b *testing.B) {
 				}
 			}
 		})
+	}
+}
+
+// BenchmarkWriteReport measures what --out adds to a check: drawing the
+// figures and writing report.json and every format's output (to io.Discard,
+// so that disk speed is left out).
+func BenchmarkWriteReport(b *testing.B) {
+	r := benchReport(b)
+	for i := 0; i < b.N; i++ {
+		a, err := Render(r, Options{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		for _, f := range report.Formats {
+			if err := f.Write(io.Discard, r, a); err != nil {
+				b.Fatal(err)
+			}
+		}
 	}
 }
 
