@@ -4,8 +4,8 @@
 // layers are activation layers) and the executor's fusion of an activation
 // into the convolution that produces its input.
 //
-// It imports nothing, so every package can use it (tensor → loader → probe
-// → stats → report → plots → cmd). Activations that an exporter writes as a
+// It imports nothing, so every package can use it whatever its place in the
+// import order (docs/design.md). Activations that an exporter writes as a
 // small subgraph rather than one operator (GELU as x·½·(1+erf(x/√2)), SiLU as
 // x·sigmoid(x)) are recognised in the graph by the statistics and reported
 // under the names Gelu and Swish listed here.
