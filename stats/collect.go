@@ -9,6 +9,7 @@ import (
 	"github.com/vitals-health/vitals/internal/actkind"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/tensor"
 )
 
@@ -59,7 +60,7 @@ func classify(n *loader.Node, op string, g *loader.Graph) actInfo {
 		if a := n.Attrs["alpha"]; a != nil {
 			alpha = a.F
 		}
-		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + fmtG(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
+		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + report.FmtFloat(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
 	case "PRelu":
 		return actInfo{kind: ActReLU, note: "PRelu: a dead unit still passes its learned negative slope"}
 	case "Tanh", "Softsign":
@@ -76,11 +77,12 @@ func classify(n *loader.Node, op string, g *loader.Graph) actInfo {
 			return actInfo{}
 		}
 		if lo == 0 {
-			ai := actInfo{kind: ActReLU, note: "Clip(0, " + fmtG(hi) + ") treated as ReLU" + fmtG(hi)}
-			if !math.IsInf(hi, 1) {
-				ai.hasSat, ai.satLo, ai.satHi = true, math.Inf(-1), hi
+			if math.IsInf(hi, 1) {
+				return actInfo{kind: ActReLU, note: "Clip(0, ∞) treated as ReLU"}
 			}
-			return ai
+			h := report.FmtFloat(hi)
+			return actInfo{kind: ActReLU, note: "Clip(0, " + h + ") treated as ReLU" + h,
+				hasSat: true, satLo: math.Inf(-1), satHi: hi}
 		}
 		if !math.IsInf(lo, -1) && !math.IsInf(hi, 1) {
 			return actInfo{kind: ActSaturating, hasSat: true, satLo: lo, satHi: hi, note: "Clip treated as hard tanh"}

@@ -2,13 +2,10 @@ package stats
 
 import (
 	"math"
-	"strconv"
 
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
 )
-
-func fmtG(x float64) string { return strconv.FormatFloat(x, 'g', 4, 64) }
 
 // Collected is everything the checks read: the report's layers, weights,
 // inputs and output, plus the graph structure they need.
