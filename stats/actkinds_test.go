@@ -191,3 +191,38 @@ func TestWeightScaleSeesCompositeActivation(t *testing.T) {
 		t.Errorf("message does not name the activation: %s", fs[0].Message)
 	}
 }
+
+// The reference models PyTorch 1.13 exported with SiLU (as Mul(x,
+// Sigmoid(x))), GELU (in erf form) and Hardswish get activation layers for
+// every such torch module (module_type in the golden files), a depth profile
+// and a unit-health figure, where the plots used to have nothing to draw for
+// the erf-GELU model.
+func TestReferenceModelsWithSmoothUnitsAreDrawn(t *testing.T) {
+	want := map[string]string{"dwsep_silu": "SiLU", "vit_tiny": "GELU", "mobile_hardswish": "Hardswish"}
+	seen := 0
+	for _, r := range allResults(t) {
+		module, ok := want[r.model.Name]
+		if !ok {
+			continue
+		}
+		seen++
+		if r.err != nil {
+			t.Fatalf("%s: %v", r.model.Name, r.err)
+		}
+		for _, g := range r.golden.Layers {
+			if g.ModuleType != module {
+				continue
+			}
+			l := vitalsLayer(r.rep, g)
+			if l == nil || l.Activation != "relu-like" {
+				t.Errorf("%s: %s (%s) is not a relu-like activation layer: %+v", r.model.Name, g.OnnxNode, module, l)
+			}
+		}
+		if plots.DepthProfileSpec(r.rep) == nil || plots.UnitHealthSpec(r.rep) == nil {
+			t.Errorf("%s: a figure is missing", r.model.Name)
+		}
+	}
+	if seen != len(want) {
+		t.Errorf("found %d of the %d models in testdata/ref/index.json", seen, len(want))
+	}
+}
