@@ -34,7 +34,7 @@ func load(t *testing.T, path string) *check.Model {
 func jsonOf(t *testing.T, r *report.Report) string {
 	t.Helper()
 	var b bytes.Buffer
-	if err := report.WriteJSON(&b, r); err != nil {
+	if err := report.WriteJSON(&b, r, report.Assets{}); err != nil {
 		t.Fatal(err)
 	}
 	return b.String()

@@ -7,22 +7,22 @@ import (
 	"strings"
 	"unicode"
 
+	"github.com/vitals-health/vitals/internal/actkind"
 	"github.com/vitals-health/vitals/report"
 )
 
-// activationOps are the ONNX operators whose outputs count as activation
-// layers even when the statistics did not tag them (Layer.Activation == "").
-var activationOps = map[string]bool{
-	"Relu": true, "LeakyRelu": true, "PRelu": true, "Elu": true, "Selu": true,
-	"Celu": true, "Gelu": true, "ThresholdedRelu": true, "Softplus": true,
-	"Softsign": true, "Sigmoid": true, "HardSigmoid": true, "Tanh": true,
-	"HardSwish": true, "Mish": true, "Clip": true,
+// isActivation reports whether a layer is an activation layer: the
+// statistics tagged it (Layer.Activation, which also covers activations
+// exported as subgraphs such as x·sigmoid(x)) or its operator is in the one
+// list of activation operators (internal/actkind).
+func isActivation(l *report.Layer) bool {
+	return l.Activation != "" || actkind.Is(l.Op)
 }
 
-// isActivation reports whether a layer is an activation layer.
-func isActivation(l *report.Layer) bool {
-	return l.Activation != "" || activationOps[l.Op]
-}
+// activationListNote names the operators counted as activations, for the
+// notes on figures that have nothing to show.
+var activationListNote = "activation operators: " + strings.Join(actkind.Names(), ", ") +
+	"; GELU written as x·½·(1+erf(x/√2)) and SiLU as x·sigmoid(x) are recognised too"
 
 // activationLayers returns the activation layers in depth order (stable).
 func activationLayers(r *report.Report) []*report.Layer {

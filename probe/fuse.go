@@ -3,6 +3,7 @@ package probe
 import (
 	"math"
 
+	"github.com/vitals-health/vitals/internal/actkind"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/tensor"
 )
@@ -32,7 +33,8 @@ type fusedAct struct {
 // fuseProducers lists the operators whose kernels honour Call.fuse.
 var fuseProducers = map[string]bool{"Conv": true}
 
-// fusableActs maps an activation operator to the float32 function its own
+// fusableActs maps an activation operator (one marked Fusable in the one
+// list of activation operators, internal/actkind) to the float32 function its own
 // kernel applies elementwise (the very same function, so fused values are
 // bit-identical), given the activation node's call with its inputs resolved.
 // It reports false when the node's attributes or extra inputs are such that
@@ -111,7 +113,7 @@ func (p *Plan) markFusions() {
 		}
 		j := readers[v][0]
 		act := p.Steps[j].Node
-		if _, ok := fusableActs[act.OpType]; !ok || normDomain(act.Domain) != "" ||
+		if _, ok := fusableActs[act.OpType]; !ok || !actkind.Fusable(act.OpType) || normDomain(act.Domain) != "" ||
 			len(act.Inputs) == 0 || act.Inputs[0] != v || len(act.Outputs) != 1 || act.Outputs[0] == "" {
 			continue
 		}

@@ -6,6 +6,7 @@ import (
 	"math/rand"
 	"testing"
 
+	"github.com/vitals-health/vitals/internal/actkind"
 	"github.com/vitals-health/vitals/internal/modelbuild"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/tensor"
@@ -226,6 +227,32 @@ func TestFusionLargePlanes(t *testing.T) {
 					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, got, want)
 				}
 			}
+		}
+	}
+}
+
+// The fusion table and the one list of activation operators agree: every
+// operator with a fused float32 function is an activation marked Fusable,
+// and every activation marked Fusable has one, so that a change to either
+// shows up here.
+func TestFusableActsMatchActivationList(t *testing.T) {
+	for op := range fusableActs {
+		if !actkind.Is(op) || !actkind.Fusable(op) {
+			t.Errorf("fusableActs has %s, which internal/actkind does not mark Fusable", op)
+		}
+	}
+	for _, op := range actkind.Names() {
+		if _, ok := fusableActs[op]; actkind.Fusable(op) && !ok {
+			t.Errorf("internal/actkind marks %s Fusable but fusableActs has no function for it", op)
+		}
+	}
+}
+
+// Every activation operator in the list is one the executor runs.
+func TestActivationListIsRegistered(t *testing.T) {
+	for _, op := range actkind.Names() {
+		if len(registry[opKey{"", op}]) == 0 {
+			t.Errorf("internal/actkind lists %s but the executor has no kernel for it", op)
 		}
 	}
 }

@@ -20,12 +20,18 @@ type Hook func(n *loader.Node, outs []*tensor.Tensor) error
 // Plan is a compiled graph: nodes in topological order, each with its kernel,
 // and for every value the step after which it is no longer needed.
 type Plan struct {
-	Graph  *loader.Graph
+	// Graph is the graph the plan runs (the model's, or a subgraph's).
+	Graph *loader.Graph
+	// Opsets maps each operator domain ("" for the default) to the model's
+	// opset version, which chose each step's kernel.
 	Opsets map[string]int64
-	Steps  []Step
+	// Steps are the nodes in a topological order, each with its kernel:
+	// the order Run executes them and calls the hook.
+	Steps []Step
 	// Depth[i] is the longest path from a graph input to step i (in nodes).
 	Depth []int
-	// release[i] lists the values freed after step i.
+	// release[i] lists the values whose last reader is step i: Run drops
+	// them after that step and RunRecycled may hand their storage back.
 	release [][]string
 	sub     map[*loader.Graph]*Plan
 	// consts holds the initializer tensors: a kernel input that is one of

@@ -82,7 +82,9 @@ func Ops() []OpInfo {
 	return out
 }
 
-// Range renders the opset range as "7–21" style text (the newest version is open-ended).
+// Range renders the opsets the operator runs at as "7+": from its oldest
+// registered since-version on, open-ended (Lookup picks, for a model's
+// opset, the newest since-version not above it). Empty when none is registered.
 func (o OpInfo) Range() string {
 	if len(o.Versions) == 0 {
 		return ""

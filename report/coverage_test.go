@@ -47,7 +47,7 @@ func TestCoverageInEveryWriter(t *testing.T) {
 				t.Errorf("gaps %q, want %q", got, tc.gaps)
 			}
 			var text, md bytes.Buffer
-			if err := WriteText(&text, r, TextOptions{}); err != nil {
+			if err := WriteText(&text, r, Assets{}); err != nil {
 				t.Fatal(err)
 			}
 			lines := strings.Split(text.String(), "\n")
@@ -57,7 +57,7 @@ func TestCoverageInEveryWriter(t *testing.T) {
 			if tc.warn != "" && lines[1] != tc.warn {
 				t.Errorf("text line 2 %q, want the warning", lines[1])
 			}
-			if err := WriteMarkdown(&md, r, nil); err != nil {
+			if err := WriteMarkdown(&md, r, Assets{}); err != nil {
 				t.Fatal(err)
 			}
 			html := sampleHTML(t, r, nil)

@@ -5,20 +5,22 @@ import (
 	"encoding/base64"
 	"html/template"
 	"io"
-	"maps"
 	"math"
-	"slices"
 	"strconv"
 )
 
 // WriteHTML writes the review report as one self-contained HTML page: the
-// same content as WriteMarkdown, with images (file name → PNG bytes, e.g.
-// read back from the files plots.WriteAll wrote) embedded as data: URIs, an
+// same content as WriteMarkdown, with a.Figures (rendered in memory by
+// plots.Render) embedded as data: URIs, an
 // inline style sheet and a few lines of inline JavaScript that sort the layer
 // and weight tables when a column header is clicked (numbers numerically,
 // unknown values last). It makes no external request and works offline.
-func WriteHTML(w io.Writer, r *Report, images map[string][]byte) error {
-	rv := buildReview(r, slices.Collect(maps.Keys(images)))
+func WriteHTML(w io.Writer, r *Report, a Assets) error {
+	images := make(map[string][]byte, len(a.Figures))
+	for _, f := range a.Figures {
+		images[f.File] = f.PNG
+	}
+	rv := buildReview(r, a.figureNames())
 	type img struct {
 		Caption string
 		File    string
@@ -32,7 +34,7 @@ func WriteHTML(w io.Writer, r *Report, images map[string][]byte) error {
 	}
 	b := bufio.NewWriter(w)
 	err := htmlPage.Execute(b, map[string]any{
-		"R": r, "V": rv, "Images": imgs,
+		"R": r, "V": rv, "Images": imgs, "Notes": a.Notes,
 		"LayerHeader": reviewLayerHeader, "WeightHeader": reviewWeightHeader, "DeltaHeader": reviewDeltaHeader,
 	})
 	if err != nil {
@@ -100,8 +102,9 @@ figcaption { color: #525a6e; font-size: .9em; }
 </table>
 {{else}}<p>No findings.</p>
 {{end}}
-{{if .Images}}<h2>Figures</h2>
+{{if or .Images .Notes}}<h2>Figures</h2>
 {{range .Images}}<figure><img src="{{.Src}}" alt="{{.Caption}}"><figcaption>{{.Caption}} ({{.File}})</figcaption></figure>
+{{end}}{{if .Notes}}<ul class="notes">{{range .Notes}}<li>{{.}}</li>{{end}}</ul>
 {{end}}{{end}}
 {{if .V.Output}}<h2>Output</h2>
 <ul>{{range .V.Output}}<li>{{.}}</li>{{end}}</ul>

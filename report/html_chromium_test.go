@@ -91,19 +91,16 @@ func TestHTMLRendersInChromium(t *testing.T) {
 	if d := os.Getenv("VITALS_HTML_OUT"); d != "" {
 		dir = d
 	}
-	names, err := plots.WriteAll(dir, &r)
+	assets, err := plots.Render(&r, plots.Options{})
 	if err != nil {
 		t.Fatal(err)
 	}
-	images := map[string][]byte{}
-	for _, n := range names {
-		if images[n], err = os.ReadFile(filepath.Join(dir, n)); err != nil {
-			t.Fatal(err)
-		}
+	if err := plots.WriteFiles(dir, assets); err != nil {
+		t.Fatal(err)
 	}
 	page := filepath.Join(dir, "report.html")
 	var hb bytes.Buffer
-	if err := report.WriteHTML(&hb, &r, images); err != nil {
+	if err := report.WriteHTML(&hb, &r, assets); err != nil {
 		t.Fatal(err)
 	}
 	if err := os.WriteFile(page, hb.Bytes(), 0o644); err != nil {

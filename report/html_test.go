@@ -11,7 +11,11 @@ import (
 func sampleHTML(t *testing.T, r *Report, images map[string][]byte) string {
 	t.Helper()
 	var b bytes.Buffer
-	if err := WriteHTML(&b, r, images); err != nil {
+	var a Assets
+	for name, png := range images {
+		a.Figures = append(a.Figures, Figure{File: name, PNG: png})
+	}
+	if err := WriteHTML(&b, r, a); err != nil {
 		t.Fatal(err)
 	}
 	return b.String()

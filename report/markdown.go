@@ -9,11 +9,12 @@ import (
 // WriteMarkdown writes the review report as GitHub-flavoured Markdown: the
 // verdict first (preceded by a notice when the input was synthetic noise),
 // the ranked findings, links to the images (file names relative to the
-// Markdown file, in figure order), the per-layer table in depth order, the
+// Markdown file, in figure order; a.Figures' bytes are not read) and the
+// notes on figures not drawn, the per-layer table in depth order, the
 // weights table, for a comparison the OLD → NEW sections, a short "How to
 // read this" and the caution. Pipes in names are escaped.
-func WriteMarkdown(w io.Writer, r *Report, images []string) error {
-	rv := buildReview(r, images)
+func WriteMarkdown(w io.Writer, r *Report, a Assets) error {
+	rv := buildReview(r, a.figureNames())
 	b := bufio.NewWriter(w)
 	p := func(lines ...string) {
 		for _, l := range lines {
@@ -42,10 +43,16 @@ func WriteMarkdown(w io.Writer, r *Report, images []string) error {
 			return []string{f.Rank, mdCode(f.Node), f.Severity, f.Check, mdText(f.Message), mdText(f.Evidence)}
 		})
 	}
-	if len(rv.Images) > 0 {
+	if len(rv.Images)+len(a.Notes) > 0 {
 		p("## Figures", "")
 		for _, im := range rv.Images {
 			p("!["+mdText(im.Caption)+"]("+mdLink(im.File)+")", "")
+		}
+		for _, n := range a.Notes {
+			p("- " + mdText(n))
+		}
+		if len(a.Notes) > 0 {
+			p("")
 		}
 	}
 	if len(rv.Output) > 0 {

@@ -28,10 +28,20 @@ func mdCells(line string) int {
 	return strings.Count(strings.ReplaceAll(line, `\|`, ""), "|") - 1
 }
 
+// figureFiles is Assets with figures of these names and no bytes (the
+// Markdown writer links to the files and never reads the bytes).
+func figureFiles(names ...string) Assets {
+	var a Assets
+	for _, n := range names {
+		a.Figures = append(a.Figures, Figure{File: n})
+	}
+	return a
+}
+
 func TestWriteMarkdownCheck(t *testing.T) {
 	r := sampleCheckReport()
 	var b bytes.Buffer
-	if err := WriteMarkdown(&b, r, []string{"weights.png", "histograms-01.png", "depth-profile.png", "unit-health.png"}); err != nil {
+	if err := WriteMarkdown(&b, r, figureFiles("weights.png", "histograms-01.png", "depth-profile.png", "unit-health.png")); err != nil {
 		t.Fatal(err)
 	}
 	md := b.String()
@@ -98,7 +108,7 @@ func TestWriteMarkdownSyntheticAndClean(t *testing.T) {
 	r.Input.Source = "synthetic"
 	r.Findings, r.Ranking = nil, nil
 	var b bytes.Buffer
-	if err := WriteMarkdown(&b, r, nil); err != nil {
+	if err := WriteMarkdown(&b, r, Assets{}); err != nil {
 		t.Fatal(err)
 	}
 	lines := strings.Split(b.String(), "\n")
@@ -116,7 +126,7 @@ func TestWriteMarkdownSyntheticAndClean(t *testing.T) {
 func TestWriteMarkdownCompare(t *testing.T) {
 	r := sampleCompareReport()
 	var b bytes.Buffer
-	if err := WriteMarkdown(&b, r, []string{"compare-depth-profile.png", "compare-histograms-01.png"}); err != nil {
+	if err := WriteMarkdown(&b, r, figureFiles("compare-depth-profile.png", "compare-histograms-01.png")); err != nil {
 		t.Fatal(err)
 	}
 	md := b.String()

@@ -1,5 +1,5 @@
 // Package report holds the one report model of a vitals run (the JSON
-// contract of design.md) and its writers: terminal text, JSON, Markdown and HTML.
+// contract of docs/design.md) and its writers: terminal text, JSON, Markdown and HTML.
 // Unknown values are nil pointers, encoded as JSON null, never made-up numbers.
 package report
 
@@ -174,7 +174,10 @@ type Layer struct {
 	// P01 and P99 are the 1st and 99th percentiles, interpolated from the histogram.
 	P01 *float64 `json:"p01"`
 	P99 *float64 `json:"p99"`
-	// Activation is "relu", "saturating" or "" (what kind of unit statistics were taken).
+	// Activation is what kind of unit statistics were taken: "relu" (ReLU
+	// family: dead fraction), "relu-like" (smooth ReLU-like units such as
+	// GELU and SiLU, also when written as a subgraph: dead fraction),
+	// "saturating" (bounded units: saturated fraction) or "" (none).
 	Activation string `json:"activation,omitempty"`
 	// Role is what an activation is for, read from the graph: "hidden",
 	// "gate" (its output multiplies a larger tensor), "self-gate" (the
@@ -268,7 +271,9 @@ type Finding struct {
 	Node     string         `json:"node"`
 	Message  string         `json:"message"`
 	Evidence map[string]any `json:"evidence"`
-	// Strength ≥ 1 says how far past its threshold the value is (used for ranking).
+	// Strength says how far past its threshold the value is, for ranking:
+	// 1 + log₂(value/threshold), between 1 and 8 (stats.Pass.Emit); a
+	// compare regression adds 1 to the finding it repeats.
 	Strength float64 `json:"-"`
 }
 

@@ -45,7 +45,7 @@ func writeQuantText(b *strings.Builder, r *Report) {
 			case len(x.q.Scale) > 1:
 				sc, zp = fmt.Sprintf("%d values", len(x.q.Scale)), fmt.Sprintf("%d values", len(x.q.ZeroPoint))
 			}
-			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", x.tensor, x.q.Node, x.q.Type, x.q.Granularity, sc, zp, P(x.clipped), P(x.levels))
+			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", x.tensor, x.q.Node, x.q.Type, x.q.Granularity, sc, zp, FmtPercent(x.clipped), FmtPercent(x.levels))
 		}
 		tw.Flush()
 	}

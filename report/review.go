@@ -246,11 +246,11 @@ func reviewOutput(o *Output) []string {
 	}
 	out := []string{fmt.Sprintf("output %s: %d classes, softmax distribution: %v", o.Name, o.Classes, o.IsDistribution)}
 	if o.MeanMaxProb != nil {
-		out = append(out, "mean top-1 probability "+fmtNum(o.MeanMaxProb))
+		out = append(out, "mean top-1 probability "+FmtNum(o.MeanMaxProb))
 	}
 	if o.Labeled > 0 {
 		out = append(out, fmt.Sprintf("with %d labels: accuracy %s, mean cross-entropy %s (ln(classes) = %s)",
-			o.Labeled, pctText(o.Accuracy), fmtNum(o.CrossEntropy), fmtNum(o.LnClasses)))
+			o.Labeled, FmtPercent(o.Accuracy), FmtNum(o.CrossEntropy), FmtNum(o.LnClasses)))
 	}
 	return out
 }
@@ -265,19 +265,19 @@ func reviewComparison(c *Comparison) *reviewCompare {
 	}
 	for _, d := range c.Layers {
 		rc.Layers = append(rc.Layers, []string{d.Node, d.OldNode, d.Op,
-			arrow(fmtNum(d.MeanOld), fmtNum(d.MeanNew)), arrow(fmtNum(d.StdOld), fmtNum(d.StdNew)),
-			arrow(fmtPct(d.DeadOld), fmtPct(d.DeadNew)), arrow(fmtPct(d.SaturatedOld), fmtPct(d.SaturatedNew)),
-			fmtNum(d.HistogramDistance)})
+			arrow(FmtNum(d.MeanOld), FmtNum(d.MeanNew)), arrow(FmtNum(d.StdOld), FmtNum(d.StdNew)),
+			arrow(FmtPct(d.DeadOld), FmtPct(d.DeadNew)), arrow(FmtPct(d.SaturatedOld), FmtPct(d.SaturatedNew)),
+			FmtNum(d.HistogramDistance)})
 	}
 	for _, w := range c.Weights {
-		rc.Weights = append(rc.Weights, []string{w.Name, w.Node, fmtPct(w.RelativeChange)})
+		rc.Weights = append(rc.Weights, []string{w.Name, w.Node, FmtPct(w.RelativeChange)})
 	}
 	if a := c.Agreement; a != nil {
 		rc.Agreement = []string{
 			fmt.Sprintf("output %s over %d samples", a.Output, a.Samples),
-			"top-1 agreement " + pctText(a.Top1),
-			"mean KL divergence (OLD ‖ NEW) " + fmtNum(a.MeanKL),
-			"largest absolute output difference " + fmtNum(a.MaxAbsDiff),
+			"top-1 agreement " + FmtPercent(a.Top1),
+			"mean KL divergence (OLD ‖ NEW) " + FmtNum(a.MeanKL),
+			"largest absolute output difference " + FmtNum(a.MaxAbsDiff),
 		}
 	}
 	return rc
@@ -294,7 +294,7 @@ func reviewEvidence(ev map[string]any) string {
 		v := ev[k]
 		switch x := v.(type) {
 		case float64:
-			v = strconv.FormatFloat(x, 'g', 4, 64)
+			v = FmtFloat(x)
 		case []string: // e.g. the other layers of a spread finding: the first two and the count
 			if len(x) > 3 {
 				v = fmt.Sprintf("[%s … %d in all]", strings.Join(x[:2], " "), len(x))
@@ -316,34 +316,10 @@ func reviewShape(s []int) string {
 	return "[" + strings.Join(parts, "×") + "]"
 }
 
-// fmtNum formats a statistic with 4 significant digits, "—" when unknown.
-func fmtNum(p *float64) string {
-	if p == nil || math.IsNaN(*p) || math.IsInf(*p, 0) {
-		return "—"
-	}
-	return strconv.FormatFloat(*p, 'g', 4, 64)
-}
-
-// fmtPct formats a fraction as a percentage with one decimal, "—" when unknown.
-func fmtPct(p *float64) string {
-	if p == nil || math.IsNaN(*p) || math.IsInf(*p, 0) {
-		return "—"
-	}
-	return strconv.FormatFloat(100**p, 'f', 1, 64)
-}
-
-// pctText is fmtPct with a percent sign, for prose.
-func pctText(p *float64) string {
-	if s := fmtPct(p); s != "—" {
-		return s + "%"
-	}
-	return "—"
-}
-
-func numCell(p *float64) reviewCell { return reviewCell{fmtNum(p), Val(p)} }
+func numCell(p *float64) reviewCell { return reviewCell{FmtNum(p), Val(p)} }
 
 func pctCell(p *float64) reviewCell {
-	c := reviewCell{fmtPct(p), Val(p)}
+	c := reviewCell{FmtPct(p), Val(p)}
 	if p != nil {
 		c.Num = 100 * *p
 	}

@@ -4,19 +4,13 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"math"
 	"strings"
 	"text/tabwriter"
 )
 
-// TextOptions control the terminal writer.
-type TextOptions struct {
-	Color bool // ANSI colour for severities (only when stdout is a terminal)
-	All   bool // every ranked layer instead of the top 10
-}
-
-// WriteJSON writes the report as indented JSON (the design.md contract).
-func WriteJSON(w io.Writer, r *Report) error {
+// WriteJSON writes the report as indented JSON (the contract of
+// docs/design.md); the assets are not part of it.
+func WriteJSON(w io.Writer, r *Report, _ Assets) error {
 	enc := json.NewEncoder(w)
 	enc.SetIndent("", "  ")
 	return enc.Encode(r)
@@ -41,30 +35,6 @@ func SourceLine(r *Report) string {
 	return fmt.Sprintf("Statistics over %d samples (%s).", r.Input.Samples, strings.Join(names, "; "))
 }
 
-// F formats an optional number compactly ("–" when unknown).
-func F(p *float64) string {
-	if p == nil {
-		return "–"
-	}
-	v := *p
-	if v == 0 {
-		return "0"
-	}
-	a := math.Abs(v)
-	if a >= 1e4 || a < 1e-3 {
-		return fmt.Sprintf("%.2e", v)
-	}
-	return fmt.Sprintf("%.4g", v)
-}
-
-// P formats an optional fraction as a percentage ("–" when unknown).
-func P(p *float64) string {
-	if p == nil {
-		return "–"
-	}
-	return fmt.Sprintf("%.1f%%", 100**p)
-}
-
 func colour(on bool, s Severity, text string) string {
 	if !on {
 		return text
@@ -80,8 +50,9 @@ func colour(on bool, s Severity, text string) string {
 
 // WriteText writes the terminal report: source line, verdict, ranked
 // findings (top 10 layers unless All), output summary, the per-layer table in
-// depth order, and the caution.
-func WriteText(w io.Writer, r *Report, o TextOptions) error {
+// depth order, the notes on figures (when plots were drawn), and the caution.
+// a.Color adds ANSI colours; a.All lists every ranked layer.
+func WriteText(w io.Writer, r *Report, o Assets) error {
 	b := &strings.Builder{}
 	fmt.Fprintln(b, SourceLine(r))
 	if w := CoverageWarning(r); w != "" {
@@ -143,7 +114,7 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 	fmt.Fprintln(tw, "depth\tnode\top\tshape\tmean\tstd\tmin\tmax\tzero\tdead\tsaturated\tnon-finite\t")
 	for _, l := range r.Layers {
 		fmt.Fprintf(tw, "%d\t%s\t%s\t%v\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t\n", l.Depth, l.Node, l.Op, l.Shape,
-			F(l.Mean), F(l.Std), F(l.Min), F(l.Max), P(l.ZeroFraction), P(l.DeadFraction), P(l.SaturatedFraction), l.Nonfinite)
+			FmtNum(l.Mean), FmtNum(l.Std), FmtNum(l.Min), FmtNum(l.Max), FmtPercent(l.ZeroFraction), FmtPercent(l.DeadFraction), FmtPercent(l.SaturatedFraction), l.Nonfinite)
 	}
 	if err := tw.Flush(); err != nil {
 		return err
@@ -156,6 +127,13 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 		}
 	}
 	writeQuantText(b, r)
+	if len(o.Notes) > 0 {
+		fmt.Fprintln(b)
+		fmt.Fprintln(b, "Figures:")
+		for _, n := range o.Notes {
+			fmt.Fprintln(b, "    "+n)
+		}
+	}
 	fmt.Fprintln(b)
 	fmt.Fprintln(b, Caution)
 	_, err := io.WriteString(w, b.String())
@@ -168,20 +146,20 @@ func writeCompareText(b *strings.Builder, c *Comparison) {
 	fmt.Fprintln(b)
 	fmt.Fprintf(b, "Comparison: OLD %s → NEW %s\n", c.Old, c.New)
 	if a := c.Agreement; a != nil {
-		fmt.Fprintf(b, "  output %q over %d rows: top-1 agreement %s, mean KL(OLD‖NEW) %s, max |Δ| %s\n", a.Output, a.Samples, P(a.Top1), F(a.MeanKL), F(a.MaxAbsDiff))
+		fmt.Fprintf(b, "  output %q over %d rows: top-1 agreement %s, mean KL(OLD‖NEW) %s, max |Δ| %s\n", a.Output, a.Samples, FmtPercent(a.Top1), FmtNum(a.MeanKL), FmtNum(a.MaxAbsDiff))
 	}
 	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "  node\top\tmean OLD→NEW\tstd OLD→NEW\tdead OLD→NEW\tsaturated OLD→NEW\thistogram TV\t")
 	for _, d := range c.Layers {
-		fmt.Fprintf(tw, "  %s\t%s\t%s → %s\t%s → %s\t%s → %s\t%s → %s\t%s\t\n", d.Node, d.Op, F(d.MeanOld), F(d.MeanNew), F(d.StdOld), F(d.StdNew),
-			P(d.DeadOld), P(d.DeadNew), P(d.SaturatedOld), P(d.SaturatedNew), F(d.HistogramDistance))
+		fmt.Fprintf(tw, "  %s\t%s\t%s → %s\t%s → %s\t%s → %s\t%s → %s\t%s\t\n", d.Node, d.Op, FmtNum(d.MeanOld), FmtNum(d.MeanNew), FmtNum(d.StdOld), FmtNum(d.StdNew),
+			FmtPercent(d.DeadOld), FmtPercent(d.DeadNew), FmtPercent(d.SaturatedOld), FmtPercent(d.SaturatedNew), FmtNum(d.HistogramDistance))
 	}
 	tw.Flush()
 	writeSQNRText(b, c)
 	if len(c.Weights) > 0 {
 		fmt.Fprintln(b, "  weight change ‖W_new − W_old‖/‖W_old‖:")
 		for _, w := range c.Weights {
-			fmt.Fprintf(b, "    %-28s %s\n", w.Name, F(w.RelativeChange))
+			fmt.Fprintf(b, "    %-28s %s\n", w.Name, FmtNum(w.RelativeChange))
 		}
 	}
 	if len(c.Unmatched) > 0 {

@@ -1,6 +1,6 @@
 #!/bin/sh
 # measure-memory.sh: peak resident memory of `vitals check` (the figures in
-# README.md, section "Memory").
+# docs/memory.md).
 #   1. a large MLP (default 6 layers of 4096×4096 float32, about 400 MB) whose
 #      weights live in an external data file, on 64 synthetic samples;
 #   2. the small residual CNN testdata/ref/resnet_tiny.onnx on 1,000 and on

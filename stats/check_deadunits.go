@@ -9,7 +9,7 @@ import (
 
 var deadUnitsCheck = &Check{
 	Name: "dead-units",
-	Doc: "ReLU-family units that never output a positive value over the whole sample, graded by both their share and their count. " +
+	Doc: "ReLU-family and smooth ReLU-like units (GELU, SiLU/Swish, Mish, ELU, HardSwish) that never output a positive value over the whole sample, graded by both their share and their count. " +
 		"A dead unit passes no gradient and is wasted capacity. Common practice: trained ReLU nets often carry 10–20% dead units; far more points to a too-high learning rate, poor initialisation or badly scaled inputs. " +
 		"A warning needs at least min_dead dead units and an error at least min_dead_error: if each unit were dead independently with the 20% typical of trained nets, half a layer would be dead by chance with probability 36% for 1 of 2 units, 5.6% for 4 of 8 and 0.7% for 8 of 16 (binomial), so one unit of a 2-unit layer is never an error. " +
 		"The dead count is also taken after the first half of the batches: if it was still falling in the second half fast enough that another half-sample falling as fast would give a milder verdict, the sample has not yet excited every unit: the verdict is provisional and graded as that projected count (information when it is under the warning line). " +

@@ -2,6 +2,7 @@ package stats
 
 import (
 	"fmt"
+	"github.com/vitals-health/vitals/internal/actkind"
 	"math"
 	"strings"
 
@@ -10,7 +11,7 @@ import (
 
 // referenceGain is √2 for the ReLU family (He et al. 2015) and 1 otherwise (Glorot & Bengio 2010).
 func referenceGain(follow string) float64 {
-	if reluLike[follow] || follow == "Clip" {
+	if actkind.HeGain(follow) {
 		return math.Sqrt2
 	}
 	return 1

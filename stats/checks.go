@@ -200,7 +200,8 @@ func sortedKeys(m map[string]float64) []string {
 var severityWeight = map[report.Severity]float64{report.Error: 10, report.Warning: 3, report.Info: 0}
 
 // rank scores each node by Σ weight(severity)·strength over its findings
-// (strength = how far past its threshold, 1..5) and orders findings by that rank.
+// (strength = how far past its threshold, compressed by Emit to 1..8; compare's
+// regression findings add 1) and orders findings by that rank.
 func rank(r *report.Report, fs []report.Finding) ([]report.Rank, []report.Finding) {
 	depth := map[string]int{}
 	for _, l := range r.Layers {

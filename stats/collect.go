@@ -6,8 +6,10 @@ import (
 	"sync"
 	"sync/atomic"
 
+	"github.com/vitals-health/vitals/internal/actkind"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/tensor"
 )
 
@@ -24,35 +26,49 @@ const (
 // actInfo describes one activation node: its kind and saturation rule.
 type actInfo struct {
 	kind ActKind
-	// sat reports whether y is saturated (nil: no saturation rule).
-	satLo, satHi float64 // saturated when y <= satLo or y >= satHi (strict variants via eps)
-	strict       bool    // use < and > instead of <= and >=
+	// With hasSat, a value y counts as saturated when y <= satLo or
+	// y >= satHi (y < satLo or y > satHi when strict; passParams turns a
+	// strict bound into the next float32 inward). Without it the node has
+	// no saturation rule and no saturated fraction.
+	satLo, satHi float64
+	strict       bool
 	hasSat       bool
+	smooth       bool // a smooth ReLU-like unit (actkind.Smooth)
 	note         string
 }
 
-// classify decides from op type and attributes what kind of activation a node is.
+// classify decides from op type and attributes what kind of activation a
+// node is, using the one list of activation operators (internal/actkind);
+// op is the node's op type, or the actkind name of the composite activation
+// (x·sigmoid(x), erf-GELU) the node ends.
 // Saturation limits: tanh |y|>0.99, sigmoid y<0.01 or y>0.99, softsign |y|>0.99
 // (common practice: the derivative there is under ~2% of its peak);
+// softplus y<0.01 (its derivative 1−e^(−y) is then under 1%, the same rule);
 // hard variants (HardSigmoid, HardTanh-style Clip) at their clip bounds.
-func classify(n *loader.Node, g *loader.Graph) actInfo {
-	switch n.OpType {
-	case "Relu", "ThresholdedRelu":
-		return actInfo{kind: ActReLU}
+// Smooth ReLU-like units (GELU, SiLU/Swish, Mish, ELU, CELU, SELU,
+// HardSwish) are > 0 exactly when their input is > 0, so "never > 0" is
+// counted as dead like a ReLU unit, with a note that they still pass a small
+// gradient.
+func classify(n *loader.Node, op string, g *loader.Graph) actInfo {
+	a, ok := actkind.Lookup(op)
+	if !ok {
+		return actInfo{}
+	}
+	switch op {
 	case "LeakyRelu":
 		alpha := float32(0.01)
 		if a := n.Attrs["alpha"]; a != nil {
 			alpha = a.F
 		}
-		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + fmtG(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
+		return actInfo{kind: ActReLU, note: "LeakyRelu slope " + report.FmtFloat(float64(alpha)) + ": a dead unit still passes that share of the gradient"}
 	case "PRelu":
 		return actInfo{kind: ActReLU, note: "PRelu: a dead unit still passes its learned negative slope"}
-	case "QLinearLeakyRelu", "QLinearSigmoid", "QLinearConv", "QLinearMatMul", "QGemm":
-		return classifyQuantized(n, g)
 	case "Tanh", "Softsign":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: -0.99, satHi: 0.99, strict: true}
 	case "Sigmoid":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0.01, satHi: 0.99, strict: true}
+	case "Softplus":
+		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0.01, satHi: math.Inf(1), strict: true}
 	case "HardSigmoid":
 		return actInfo{kind: ActSaturating, hasSat: true, satLo: 0, satHi: 1}
 	case "Clip":
@@ -61,17 +77,59 @@ func classify(n *loader.Node, g *loader.Graph) actInfo {
 			return actInfo{}
 		}
 		if lo == 0 {
-			ai := actInfo{kind: ActReLU, note: "Clip(0, " + fmtG(hi) + ") treated as ReLU" + fmtG(hi)}
-			if !math.IsInf(hi, 1) {
-				ai.hasSat, ai.satLo, ai.satHi = true, math.Inf(-1), hi
+			if math.IsInf(hi, 1) {
+				return actInfo{kind: ActReLU, note: "Clip(0, ∞) treated as ReLU"}
 			}
-			return ai
+			h := report.FmtFloat(hi)
+			return actInfo{kind: ActReLU, note: "Clip(0, " + h + ") treated as ReLU" + h,
+				hasSat: true, satLo: math.Inf(-1), satHi: hi}
 		}
 		if !math.IsInf(lo, -1) && !math.IsInf(hi, 1) {
 			return actInfo{kind: ActSaturating, hasSat: true, satLo: lo, satHi: hi, note: "Clip treated as hard tanh"}
 		}
+		return actInfo{}
+	}
+	switch a.Family {
+	case actkind.ReLU:
+		return actInfo{kind: ActReLU}
+	case actkind.Smooth:
+		name := op
+		if op != n.OpType {
+			name = compositeForm[op] + " read as " + op
+		}
+		note := name + ": > 0 only for inputs > 0; a dead unit still passes a small gradient"
+		return actInfo{kind: ActReLU, smooth: true, note: note}
 	}
 	return actInfo{}
+}
+
+// actOp is the activation a node is, by its actkind name ("" for none):
+// its op type when that is an activation operator, or the composite
+// activation it ends; a node inside a composite activation is none.
+func (c *Collector) actOp(n *loader.Node) string {
+	if name, ok := c.composite.top[n]; ok {
+		return name
+	}
+	if _, in := c.composite.inner[n]; in || !actkind.Is(n.OpType) {
+		return ""
+	}
+	return n.OpType
+}
+
+// classifyNode is classify for a node of the collector's graph.
+// qlinearActs are the quantized operators whose dequantized output is
+// classified like an activation (classifyQuantized).
+var qlinearActs = map[string]bool{"QLinearLeakyRelu": true, "QLinearSigmoid": true, "QLinearConv": true, "QLinearMatMul": true, "QGemm": true}
+
+func (c *Collector) classifyNode(n *loader.Node) actInfo {
+	if _, ok := qlinearActs[n.OpType]; ok {
+		return classifyQuantized(n, c.flat.Graph)
+	}
+	op := c.actOp(n)
+	if op == "" {
+		return actInfo{}
+	}
+	return classify(n, op, c.flat.Graph)
 }
 
 // clipBounds reads Clip's bounds from attributes (opset<11) or constant inputs.
@@ -209,6 +267,7 @@ type Collector struct {
 	producer      map[string]*loader.Node
 	consumer      map[string][]*loader.Node // value → the nodes that read it
 	dataDep       map[string]bool
+	composite     composite // activations written as subgraphs
 	Samples       int
 	// batchRows is the sample count of each batch given to AddInputs, in
 	// order (the dead-unit trails are per batch; this places their middle).
@@ -360,6 +419,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 	// the flat graph: every node, subgraph nodes and initializers under
 	// qualified names, each subgraph's nodes before its control-flow node
 	g := f.Graph
+	c.composite = compositeActs(g)
 	for _, in := range g.Inputs {
 		c.dataDep[in.Name] = true
 	}
@@ -401,7 +461,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			if o == "" || !c.dataDep[o] {
 				continue
 			}
-			la := &layerAcc{node: n, output: o, depth: f.Depth[i], mom: NewMoments(), act: classify(n, g)}
+			la := &layerAcc{node: n, output: o, depth: f.Depth[i], mom: NewMoments(), act: c.classifyNode(n)}
 			if la.act.kind != ActNone {
 				la.unitKind = c.unitKindOf(n)
 			}

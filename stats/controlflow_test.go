@@ -15,6 +15,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
+	"os"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -413,4 +414,16 @@ func sliceRows(t *tensor.Tensor, lo, hi int) *tensor.Tensor {
 	out := tensor.New(t.DType, append([]int{hi - lo}, t.Shape[1:]...))
 	copy(out.F32(), t.F32()[lo*row:hi*row])
 	return out
+}
+
+// readJSON decodes the JSON file at path into v.
+func readJSON(t testing.TB, path string, v any) {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, v); err != nil {
+		t.Fatalf("%s: %v", path, err)
+	}
 }

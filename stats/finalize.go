@@ -2,13 +2,10 @@ package stats
 
 import (
 	"math"
-	"strconv"
 
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
 )
-
-func fmtG(x float64) string { return strconv.FormatFloat(x, 'g', 4, 64) }
 
 // Collected is everything the checks read: the report's layers, weights,
 // inputs and output, plus the graph structure they need.
@@ -59,15 +56,6 @@ type BNStat struct {
 	// values BatchNorm starts from: never updated by training, or reset.
 	Initial bool
 }
-
-// reluLike lists activations whose reference gain is √2 (He et al. 2015's
-// derivation is for ReLU; the smooth ReLU-like units are treated the same, common practice).
-var reluLike = map[string]bool{"Relu": true, "LeakyRelu": true, "PRelu": true, "ThresholdedRelu": true,
-	"HardSwish": true, "Gelu": true, "Mish": true, "Swish": true, "Elu": true, "Celu": true}
-
-var activationOps = map[string]bool{"Relu": true, "LeakyRelu": true, "PRelu": true, "ThresholdedRelu": true,
-	"HardSwish": true, "Gelu": true, "Mish": true, "Swish": true, "Elu": true, "Celu": true, "Selu": true,
-	"Tanh": true, "Sigmoid": true, "HardSigmoid": true, "Softsign": true, "Softplus": true, "Clip": true}
 
 var normOps = map[string]bool{"BatchNormalization": true, "LayerNormalization": true, "InstanceNormalization": true,
 	"GroupNormalization": true, "LRN": true, "MeanVarianceNormalization": true, "RMSNormalization": true,
@@ -139,6 +127,9 @@ func (c *Collector) Finish(source string) *Collected {
 			l.UnitAxis = report.IntPtr(la.unitAxis)
 			if la.act.kind == ActReLU {
 				l.Activation = "relu"
+				if la.act.smooth {
+					l.Activation = "relu-like"
+				}
 				dead := 0
 				for _, e := range la.everPos {
 					if !e {
@@ -302,7 +293,8 @@ func (c *Collector) isRecurrentState(value string, depth int) bool {
 	return true
 }
 
-// followerOf names what follows a linear node: an activation op type,
+// followerOf names what follows a linear node: an activation (its actkind
+// name, also for one written as a subgraph such as x·sigmoid(x)),
 // "normalization", or "none", looking through bias adds and reshapes.
 func (c *Collector) followerOf(n *loader.Node) string {
 	cons := c.consumer
@@ -312,13 +304,16 @@ func (c *Collector) followerOf(n *loader.Node) string {
 			return "none"
 		}
 		next := cons[cur.Outputs[0]]
+		if top := c.oneComposite(next); top != nil {
+			return c.composite.top[top]
+		}
 		if len(next) != 1 {
 			return "none"
 		}
 		nx := next[0]
 		switch {
-		case activationOps[nx.OpType]:
-			return nx.OpType
+		case c.actOp(nx) != "":
+			return c.actOp(nx)
 		case normOps[nx.OpType]:
 			return "normalization"
 		case nx.OpType == "Add" || nx.OpType == "Reshape" || nx.OpType == "Flatten" || nx.OpType == "Identity" || nx.OpType == "Squeeze" || nx.OpType == "Unsqueeze" || nx.OpType == "Transpose":
@@ -328,6 +323,24 @@ func (c *Collector) followerOf(n *loader.Node) string {
 		}
 	}
 	return "none"
+}
+
+// oneComposite returns the top of the composite activation when every node
+// in readers belongs to it (x·sigmoid(x) reads x in the Sigmoid and the
+// Mul), else nil.
+func (c *Collector) oneComposite(readers []*loader.Node) *loader.Node {
+	var top *loader.Node
+	for _, n := range readers {
+		t := c.composite.inner[n]
+		if _, ok := c.composite.top[n]; ok {
+			t = n
+		}
+		if t == nil || (top != nil && t != top) {
+			return nil
+		}
+		top = t
+	}
+	return top
 }
 
 // stacks builds chains of activation layers: the predecessor of an activation
@@ -347,7 +360,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stac
 	feed := map[int]int{}
 	var acts []*layerAcc
 	for _, la := range c.layers {
-		if _, ok := layerIdx[la]; !ok || !activationOps[la.node.OpType] || la.output != la.node.Outputs[0] || c.isGate(la.output) {
+		if _, ok := layerIdx[la]; !ok || c.actOp(la.node) == "" || la.output != la.node.Outputs[0] || c.isGate(la.output) {
 			continue
 		}
 		acts = append(acts, la)
@@ -377,7 +390,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stac
 			if wi, ok := weightIdx[p.Name]; ok {
 				lk.weights = append([]int{wi}, lk.weights...)
 			}
-			if activationOps[p.OpType] {
+			if c.actOp(p) != "" {
 				lk.pred = c.byOut[p.Outputs[0]]
 				break
 			}

@@ -322,9 +322,9 @@ func dequantConst(g *loader.Graph, n *loader.Node) (*tensor.Tensor, bool) {
 func classifyQuantized(n *loader.Node, g *loader.Graph) actInfo {
 	switch n.OpType {
 	case "QLinearLeakyRelu":
-		return classify(&loader.Node{OpType: "LeakyRelu", Attrs: n.Attrs}, g)
+		return classify(&loader.Node{OpType: "LeakyRelu", Attrs: n.Attrs}, "LeakyRelu", g)
 	case "QLinearSigmoid":
-		return classify(&loader.Node{OpType: "Sigmoid"}, g)
+		return classify(&loader.Node{OpType: "Sigmoid"}, "Sigmoid", g)
 	}
 	pos, ok := qlinearOutParams[n.OpType]
 	if !ok || len(n.Inputs) <= pos[1] {

@@ -78,26 +78,6 @@ type golden struct {
 	Layers []goldenLayer `json:"layers"`
 }
 
-func readJSON(t testing.TB, path string, v any) {
-	t.Helper()
-	b, err := os.ReadFile(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := json.Unmarshal(b, v); err != nil {
-		t.Fatalf("%s: %v", path, err)
-	}
-}
-
-func loadRefIndex(t testing.TB) refIndex {
-	var idx refIndex
-	readJSON(t, filepath.Join(refDir, "index.json"), &idx)
-	if len(idx.Models) == 0 {
-		t.Fatal("index.json lists no models")
-	}
-	return idx
-}
-
 // Tolerances. Output: |got−want| ≤ atol + rtol·|want| elementwise.
 const (
 	outRtol = 1e-4
@@ -185,7 +165,7 @@ func allResults(t *testing.T) []*refResult {
 // evalRef loads, compiles and runs one model through check.Check (the
 // numbers tested are the ones `vitals check` reports, activation storage
 // recycled as it does) and compares output and
-// golden layers. It records mismatches instead of failing, so the README table
+// golden layers. It records mismatches instead of failing, so the reference table (docs/reference-models.md)
 // and the per-model tests share one evaluation.
 func evalRef(m refModel) *refResult {
 	r := &refResult{model: m}
@@ -274,12 +254,16 @@ func vitalsLayer(rep *report.Report, g goldenLayer) *report.Layer {
 	return nil
 }
 
-// reluFamily are the ops for which vitals reports a dead fraction. The golden
-// files also fill dead_fraction for SiLU (Mul), GELU (Mul) and Hardswish
-// modules; vitals does not treat those smooth units as ReLU-family (they pass
-// gradient for negative inputs) and reports null there, so dead fractions are
-// compared only where both sides define one.
-var reluFamily = map[string]bool{"Relu": true, "LeakyRelu": true, "PRelu": true, "Clip": true}
+// reluFamily are the ops for which vitals reports a dead fraction, and
+// smoothModules the torch modules of smooth ReLU-like units whose dead
+// fraction ("never > 0", the golden files' dead_definition) vitals reports
+// too: SiLU exported as Mul(x, Sigmoid(x)), GELU exported in erf form ending
+// in a Mul, and Hardswish. Where torch fills dead_fraction for one of these,
+// vitals must report the same fraction.
+var (
+	reluFamily    = map[string]bool{"Relu": true, "LeakyRelu": true, "PRelu": true, "Clip": true}
+	smoothModules = map[string]bool{"SiLU": true, "GELU": true, "Hardswish": true, "Mish": true, "ELU": true, "CELU": true, "SELU": true}
+)
 
 func compareLayer(r *refResult, g goldenLayer) {
 	id := fmt.Sprintf("%s (%s %s)", g.OnnxNode, g.ModuleType, g.Module)
@@ -327,7 +311,7 @@ func compareLayer(r *refResult, g goldenLayer) {
 	}
 	// Dead units: a count over units, so exact. Source: torch 1.13 forward
 	// hooks, "never > 0 over all samples and positions" along unit_axis.
-	if reluFamily[g.Op] && g.DeadFraction != nil {
+	if (reluFamily[g.Op] || smoothModules[g.ModuleType]) && g.DeadFraction != nil {
 		if l.DeadFraction == nil {
 			r.fail("%s: torch has dead fraction %.4g, vitals reports none", id, *g.DeadFraction)
 		} else {

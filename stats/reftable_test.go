@@ -10,14 +10,15 @@ import (
 	"github.com/vitals-health/vitals/report"
 )
 
-// The README's "Reference architectures" table is generated from the reference
-// run, never typed by hand. `go test ./stats -run ReferenceTable -update` (or
-// VITALS_UPDATE_README=1) rewrites it; without that the test fails when the
-// README no longer matches what vitals currently does on testdata/ref.
-var updateReadme = flag.Bool("update", false, "rewrite the reference table in README.md")
+// The reference-model table of docs/reference-models.md is generated from the
+// reference run, never typed by hand. `go test ./stats -run ReferenceTable
+// -update` (or VITALS_UPDATE_README=1) rewrites it; without that the test
+// fails when the document no longer matches what vitals currently does on
+// testdata/ref.
+var updateReadme = flag.Bool("update", false, "rewrite the reference table in docs/reference-models.md")
 
 const (
-	readmePath  = "../README.md"
+	readmePath  = "../docs/reference-models.md"
 	tableStart  = "<!-- reference-table:start -->"
 	tableEnd    = "<!-- reference-table:end -->"
 	updateHint  = "go test ./stats -run ReferenceTable -update"
@@ -40,7 +41,7 @@ func TestReferenceTable(t *testing.T) {
 	doc := string(raw)
 	i, j := strings.Index(doc, tableStart), strings.Index(doc, tableEnd)
 	if i < 0 || j < i {
-		t.Fatalf("README.md has no %s … %s markers", tableStart, tableEnd)
+		t.Fatalf("%s has no %s … %s markers", readmePath, tableStart, tableEnd)
 	}
 	current := strings.TrimSpace(doc[i+len(tableStart) : j])
 	if current == strings.TrimSpace(table) {
@@ -51,10 +52,10 @@ func TestReferenceTable(t *testing.T) {
 		if err := os.WriteFile(readmePath, []byte(doc), 0o644); err != nil {
 			t.Fatal(err)
 		}
-		t.Log("README.md reference table rewritten")
+		t.Log(readmePath + " reference table rewritten")
 		return
 	}
-	t.Errorf("README.md's reference table differs from the current results; rerun `%s` and review the diff.\nwant:\n%s\nhave:\n%s", updateHint, table, current)
+	t.Errorf(readmePath+"'s reference table differs from the current results; rerun `%s` and review the diff.\nwant:\n%s\nhave:\n%s", updateHint, table, current)
 }
 
 func cell(s string) string { return strings.ReplaceAll(s, "|", "\\|") }

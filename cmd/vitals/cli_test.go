@@ -27,7 +27,7 @@ func runCLI(t *testing.T, args ...string) (int, string, string) {
 	return code, out.String(), errb.String()
 }
 
-// The JSON output follows the contract of design.md: every key present with
+// The JSON output follows the contract of docs/design.md: every key present with
 // the right JSON type; unknown values are null, never made up.
 func TestJSONContract(t *testing.T) {
 	code, out, stderr := runCLI(t, "check", demoBad, "--data", demoData, "--labels", demoLab, "--format", "json")

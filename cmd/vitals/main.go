@@ -161,11 +161,11 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.StringVar(&c.labels, "labels", "", "integer class ids (.npy), one per sample: adds accuracy and cross-entropy")
 	fs.IntVar(&c.samples, "samples", 0, "use at most N samples (0: all; 64 for synthetic input)")
 	fs.IntVar(&c.batch, "batch", 0, "samples per batch (default: the model's fixed batch size, or chosen from the size of its activations after one sample, 1 to 32)")
-	fs.StringVar(&c.out, "out", "", "write report.json, plots and the report of --format into this folder")
-	fs.StringVar(&c.format, "format", "text", "report format on stdout (and in --out): "+strings.Join(formatNames(), "|"))
+	fs.StringVar(&c.out, "out", "", "write report.json, the PNG plots and, for --format markdown or html, report.md or report.html into this folder")
+	fs.StringVar(&c.format, "format", "text", report.FormatHelp())
 	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
 	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
-	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10")
+	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10, and draw a histogram page for every layer under --out")
 	fs.StringVar(&c.mean, "mean", "", "per-channel mean subtracted from images scaled to [0,1], e.g. 0.485,0.456,0.406")
 	fs.StringVar(&c.std, "std", "", "per-channel std images are divided by, e.g. 0.229,0.224,0.225")
 	fs.StringVar(&c.layout, "layout", "nchw", "image tensor layout the model wants: nchw|nhwc")
@@ -235,7 +235,7 @@ func (c *common) validate() error {
 	if c.failOn != "warning" && c.failOn != "error" {
 		return userErr("--fail-on must be warning or error, got %q", c.failOn)
 	}
-	if (c.format == "markdown" || c.format == "html") && c.out == "" {
+	if writers[c.format].Files && c.out == "" {
 		return userErr("--format %s writes files next to its plots: give --out DIR", c.format)
 	}
 	if c.out != "" {

@@ -10,7 +10,6 @@ import (
 	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"strconv"
 	"strings"
 
@@ -18,50 +17,16 @@ import (
 	"github.com/vitals-health/vitals/report"
 )
 
-// writer renders the report in one format; dir is the --out folder ("" if none)
-// and images the plot files written there.
-type writer struct {
-	help  string
-	write func(w io.Writer, r *report.Report, c *common, dir string, images []string) error
-	file  string // file name under --out
-}
-
-// writers is the one table of output formats; it also produces the --format help.
-var writers = map[string]writer{
-	"text": {help: "ranked findings and a per-layer table for the terminal", file: "",
-		write: func(w io.Writer, r *report.Report, c *common, _ string, _ []string) error {
-			return report.WriteText(w, r, report.TextOptions{Color: isTerminal(w), All: c.all})
-		}},
-	"json": {help: "the JSON contract, for CI", file: "report.json",
-		write: func(w io.Writer, r *report.Report, _ *common, _ string, _ []string) error {
-			return report.WriteJSON(w, r)
-		}},
-	"markdown": {help: "report.md with links to the PNG plots, for a code review", file: "report.md",
-		write: func(w io.Writer, r *report.Report, _ *common, _ string, images []string) error {
-			return report.WriteMarkdown(w, r, images)
-		}},
-	"html": {help: "one self-contained report.html with the plots embedded", file: "report.html",
-		write: func(w io.Writer, r *report.Report, _ *common, dir string, images []string) error {
-			data := map[string][]byte{}
-			for _, im := range images {
-				b, err := os.ReadFile(filepath.Join(dir, im))
-				if err != nil {
-					return err
-				}
-				data[im] = b
-			}
-			return report.WriteHTML(w, r, data)
-		}},
-}
-
-func formatNames() []string {
-	var n []string
-	for k := range writers {
-		n = append(n, k)
+// writers is the one table of output formats (report.Formats), by name.
+var writers = func() map[string]report.Format {
+	m := map[string]report.Format{}
+	for _, f := range report.Formats {
+		m[f.Name] = f
 	}
-	sort.Strings(n)
-	return n
-}
+	return m
+}()
+
+func formatNames() []string { return report.FormatNames() }
 
 func isTerminal(w io.Writer) bool {
 	f, ok := w.(*os.File)
@@ -86,62 +51,38 @@ func prepareOut(dir string) error {
 	return os.Remove(name)
 }
 
-// writeAtomic writes a file via a temporary file in the same folder and a rename,
-// so an interrupted run never leaves a half-written report.
-func writeAtomic(path string, fill func(w io.Writer) error) error {
-	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
-	if err != nil {
-		return err
-	}
-	tmp := f.Name()
-	if err := fill(f); err != nil {
-		f.Close()
-		os.Remove(tmp)
-		return err
-	}
-	if err := f.Close(); err != nil {
-		os.Remove(tmp)
-		return err
-	}
-	if err := os.Chmod(tmp, 0o644); err != nil {
-		os.Remove(tmp)
-		return err
-	}
-	return os.Rename(tmp, path)
-}
-
 // emit writes the report to stdout in --format and, with --out, report.json,
 // the plots and the chosen format's file.
 func emit(r *report.Report, c *common, stdout io.Writer) error {
 	wr := writers[c.format]
-	var images []string
+	a := report.Assets{Color: isTerminal(stdout), All: c.all}
 	if c.out != "" {
 		var err error
-		images, err = plots.WriteAll(c.out, r)
-		if err != nil {
+		if a, err = plots.Render(r, plots.Options{All: c.all}); err != nil {
+			return err
+		}
+		a.Color, a.All = isTerminal(stdout), c.all
+		if err := plots.WriteFiles(c.out, a); err != nil {
 			return fmt.Errorf("writing plots to %q: %w", c.out, err)
 		}
-		if err := writeAtomic(filepath.Join(c.out, "report.json"), func(w io.Writer) error { return report.WriteJSON(w, r) }); err != nil {
-			return fmt.Errorf("writing %q: %w", c.out, err)
+		if err := report.WriteFileAtomic(filepath.Join(c.out, "report.json"), func(w io.Writer) error { return report.WriteJSON(w, r, a) }); err != nil {
+			return err
 		}
-		if wr.file != "" && wr.file != "report.json" {
-			if err := writeAtomic(filepath.Join(c.out, wr.file), func(w io.Writer) error { return wr.write(w, r, c, c.out, images) }); err != nil {
-				return fmt.Errorf("writing %s: %w", wr.file, err)
+		if wr.File != "" && wr.File != "report.json" {
+			if err := report.WriteFileAtomic(filepath.Join(c.out, wr.File), func(w io.Writer) error { return wr.Write(w, r, a) }); err != nil {
+				return err
 			}
 		}
 	}
 	var buf bytes.Buffer
-	switch c.format {
-	case "markdown", "html":
+	if wr.Files {
 		// the file is under --out; stdout gets the terminal summary
-		if err := report.WriteText(&buf, r, report.TextOptions{Color: isTerminal(stdout), All: c.all}); err != nil {
+		if err := report.WriteText(&buf, r, a); err != nil {
 			return err
 		}
-		fmt.Fprintf(&buf, "\nReport written to %s\n", filepath.Join(c.out, wr.file))
-	default:
-		if err := wr.write(&buf, r, c, c.out, images); err != nil {
-			return err
-		}
+		fmt.Fprintf(&buf, "\nReport written to %s\n", filepath.Join(c.out, wr.File))
+	} else if err := wr.Write(&buf, r, a); err != nil {
+		return err
 	}
 	_, err := stdout.Write(buf.Bytes())
 	return err

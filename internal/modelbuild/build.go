@@ -14,7 +14,6 @@ import (
 type Builder struct {
 	g     *onnxpb.GraphProto
 	opset int64
-	n     int
 }
 
 // New starts a model with the given default-domain opset.

@@ -1,0 +1,153 @@
+package stats
+
+import (
+	"math"
+
+	"github.com/vitals-health/vitals/loader"
+)
+
+// Activations that exporters write as a small subgraph instead of one
+// operator. PyTorch 1.13 exports nn.SiLU as Mul(x, Sigmoid(x)) and nn.GELU
+// as Mul(Mul(x, Add(Erf(Div(x, √2)), 1)), 0.5) (opsets before 20 have no
+// Gelu); other exporters order the factors differently or write x/√2 as
+// x·(1/√2). The node whose output is the activation ("top") is reported as
+// an activation layer under the actkind name; the nodes inside the pattern
+// (the Sigmoid, the Erf and its helpers) are parts of it and get no unit
+// statistics of their own.
+
+// compositeForm is how each composite activation is written, for messages.
+var compositeForm = map[string]string{"Swish": "x·sigmoid(x)", "Gelu": "x·½·(1+erf(x/√2))"}
+
+// composite is what compositeActs found.
+type composite struct {
+	top   map[*loader.Node]string       // node → "Swish" or "Gelu"
+	inner map[*loader.Node]*loader.Node // node inside a pattern → its top
+}
+
+// compositeActs finds the SiLU/Swish and erf-GELU patterns in g.
+func compositeActs(g *loader.Graph) composite {
+	cp := composite{top: map[*loader.Node]string{}, inner: map[*loader.Node]*loader.Node{}}
+	producer := map[string]*loader.Node{}
+	readers := map[string]int{}
+	for _, n := range g.Nodes {
+		for _, o := range n.Outputs {
+			producer[o] = n
+		}
+		for _, in := range n.Inputs {
+			readers[in]++
+		}
+	}
+	for _, o := range g.Outputs {
+		readers[o.Name]++
+	}
+	// only reports whether name is read by one node (so it may be folded
+	// into a pattern without hiding a value someone else uses)
+	only := func(name string) bool { return readers[name] == 1 }
+	scalar := func(name string, want, tol float64) bool {
+		t, ok := constValue(g, name)
+		return ok && t.Size() == 1 && math.Abs(t.Float64At(0)-want) <= tol
+	}
+	for _, m := range g.Nodes {
+		if m.OpType != "Mul" || m.Domain != "" || len(m.Inputs) != 2 || len(m.Outputs) != 1 {
+			continue
+		}
+		if s := swish(m, producer, only); s != nil {
+			cp.top[m] = "Swish"
+			cp.inner[s] = m
+			continue
+		}
+		if parts := gelu(m, producer, only, scalar); parts != nil {
+			cp.top[m] = "Gelu"
+			for _, p := range parts {
+				cp.inner[p] = m
+			}
+		}
+	}
+	// a top that is itself inside another pattern (cannot happen with the
+	// two patterns above, but keeps the two maps disjoint)
+	for n := range cp.inner {
+		delete(cp.top, n)
+	}
+	return cp
+}
+
+// swish matches m = Mul(x, Sigmoid(x)) in either order and returns the
+// Sigmoid node (nil when m does not match).
+func swish(m *loader.Node, producer map[string]*loader.Node, only func(string) bool) *loader.Node {
+	for i := 0; i < 2; i++ {
+		x, sg := m.Inputs[i], m.Inputs[1-i]
+		s := producer[sg]
+		if s != nil && s.OpType == "Sigmoid" && s.Domain == "" && len(s.Inputs) == 1 && s.Inputs[0] == x && only(sg) {
+			return s
+		}
+	}
+	return nil
+}
+
+// gelu matches the erf form of GELU, x·½·(1 + erf(x/√2)), ending at m:
+// the factors of m (through nested Mul nodes read only by the pattern) must
+// be x, the constant 0.5 and Add(Erf(x/√2), 1), where x/√2 is Div(x, √2) or
+// Mul(x, 1/√2). It returns the nodes inside the pattern, nil when m does not
+// match. Constants are compared with a tolerance of 1e-6 (float32 rounding of
+// √2 and 1/√2 is about 6e-8 relative).
+func gelu(m *loader.Node, producer map[string]*loader.Node, only func(string) bool,
+	scalar func(name string, want, tol float64) bool) []*loader.Node {
+	const tol = 1e-6
+	var leaves []string
+	var parts []*loader.Node
+	var flatten func(n *loader.Node, depth int)
+	flatten = func(n *loader.Node, depth int) {
+		for _, in := range n.Inputs {
+			if p := producer[in]; p != nil && p.OpType == "Mul" && p.Domain == "" && len(p.Inputs) == 2 && depth < 2 && only(in) {
+				parts = append(parts, p)
+				flatten(p, depth+1)
+				continue
+			}
+			leaves = append(leaves, in)
+		}
+	}
+	flatten(m, 0)
+	if len(leaves) != 3 {
+		return nil
+	}
+	var x, half, add string
+	for _, l := range leaves {
+		switch p := producer[l]; {
+		case scalar(l, 0.5, tol):
+			half = l
+		case p != nil && p.OpType == "Add" && len(p.Inputs) == 2 && only(l):
+			add = l
+		default:
+			x = l
+		}
+	}
+	if x == "" || half == "" || add == "" {
+		return nil
+	}
+	a := producer[add]
+	var erfOut string
+	switch {
+	case scalar(a.Inputs[1], 1, tol):
+		erfOut = a.Inputs[0]
+	case scalar(a.Inputs[0], 1, tol):
+		erfOut = a.Inputs[1]
+	default:
+		return nil
+	}
+	e := producer[erfOut]
+	if e == nil || e.OpType != "Erf" || len(e.Inputs) != 1 || !only(erfOut) {
+		return nil
+	}
+	d := producer[e.Inputs[0]]
+	if d == nil || len(d.Inputs) != 2 || !only(e.Inputs[0]) {
+		return nil
+	}
+	switch {
+	case d.OpType == "Div" && d.Inputs[0] == x && scalar(d.Inputs[1], math.Sqrt2, tol):
+	case d.OpType == "Mul" && d.Inputs[0] == x && scalar(d.Inputs[1], 1/math.Sqrt2, tol):
+	case d.OpType == "Mul" && d.Inputs[1] == x && scalar(d.Inputs[0], 1/math.Sqrt2, tol):
+	default:
+		return nil
+	}
+	return append(parts, a, e, d)
+}
