@@ -1,6 +1,7 @@
 package stats_test
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -11,8 +12,8 @@ import (
 	"sync"
 	"testing"
 
+	"github.com/vitals-health/vitals/check"
 	"github.com/vitals-health/vitals/loader"
-	"github.com/vitals-health/vitals/probe"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
@@ -84,65 +85,39 @@ func corpusResults(t *testing.T) []*corpusResult {
 
 func runCorpus(m corpusModel) *corpusResult {
 	r := &corpusResult{m: m}
-	mod, err := loader.LoadModel(filepath.Join(corpusDir, m.Model))
+	// the path `vitals check` runs (check.Check), in batches of refBatch
+	model, err := check.Load(filepath.Join(corpusDir, m.Model), check.LoadOptions{})
 	if err != nil {
 		r.err = err
 		return r
 	}
-	plan, err := probe.Compile(mod)
-	if err != nil {
-		r.err = err
-		return r
+	sample := check.Sample{Batch: refBatch}
+	var names []string
+	for name := range m.Inputs {
+		names = append(names, name)
 	}
-	ins := map[string]*tensor.Tensor{}
-	n := -1
-	for name, file := range m.Inputs {
-		x, err := loader.ReadNpy(filepath.Join(corpusDir, file))
-		if err != nil {
-			r.err = err
-			return r
-		}
-		ins[name] = x
-		n = x.Shape[0]
+	sort.Strings(names)
+	for _, name := range names {
+		sample.Data = append(sample.Data, name+"="+filepath.Join(corpusDir, m.Inputs[name]))
+	}
+	if m.Labels != "" {
+		sample.Labels = filepath.Join(corpusDir, m.Labels)
 	}
 	want, err := loader.ReadNpy(filepath.Join(corpusDir, m.Output))
 	if err != nil {
 		r.err = err
 		return r
 	}
-	var labels []int64
-	if m.Labels != "" {
-		lt, err := loader.ReadNpy(filepath.Join(corpusDir, m.Labels))
-		if err != nil {
-			r.err = err
-			return r
-		}
-		for _, v := range lt.Ints() {
-			labels = append(labels, int64(v))
-		}
-	}
-	outName := mod.Graph.Outputs[0].Name
-	c := stats.NewCollector(mod, plan)
+	outName := model.Outputs()[0].Name
 	var got []float32
-	for lo := 0; lo < n; lo += refBatch {
-		hi := min(lo+refBatch, n)
-		in := map[string]*tensor.Tensor{}
-		for name, x := range ins {
-			in[name] = sliceRows(x, lo, hi)
-		}
-		c.AddInputs(in)
-		outs, err := plan.Run(in, c.Hook)
-		if err != nil {
-			r.err = fmt.Errorf("samples %d–%d: %w", lo, hi-1, err)
-			return r
-		}
-		var lb []int64
-		if labels != nil {
-			lb = labels[lo:hi]
-		}
-		c.AddOutputs(outs, lb)
-		c.Samples += hi - lo
-		got = append(got, outs[outName].F32()...)
+	rep, err := check.Check(context.Background(), model, sample, check.Options{
+		Outputs: func(outs map[string]*tensor.Tensor, _ int) error {
+			got = append(got, outs[outName].F32()...)
+			return nil
+		}})
+	if err != nil {
+		r.err = err
+		return r
 	}
 	w := want.F32()
 	if len(w) != len(got) {
@@ -152,12 +127,7 @@ func runCorpus(m corpusModel) *corpusResult {
 	for i := range w {
 		r.outDiff = math.Max(r.outDiff, math.Abs(float64(got[i]-w[i])))
 	}
-	col := c.Finish("file")
-	if err := stats.Run(col, stats.Checks, nil); err != nil {
-		r.err = err
-		return r
-	}
-	r.rep = col.Report
+	r.rep = rep
 	return r
 }
 
