@@ -31,19 +31,7 @@ func TestChecksDoc(t *testing.T) {
 	for _, c := range all {
 		fmt.Fprintf(&b, "\n### %s\n\n%s\n", c.Name, c.Doc)
 	}
-	want := b.String()
-	const path = "../docs/checks.md"
-	have, _ := os.ReadFile(path)
-	if string(have) == want {
-		return
-	}
-	if *updateReadme {
-		if err := os.WriteFile(path, []byte(want), 0o644); err != nil {
-			t.Fatal(err)
-		}
-		return
-	}
-	t.Errorf("%s is stale: rerun `go test ./stats -run ChecksDoc -update`", path)
+	generated(t, "../docs/checks.md", b.String(), "go test ./stats -run ChecksDoc -update")
 }
 
 // readmeChecksTable: the README's checks table (between its checks:start and checks:end
@@ -71,7 +59,14 @@ func readmeChecksTable(t *testing.T) {
 	if i < 0 || j < i {
 		t.Fatalf("%s has no checks:start/checks:end markers", path)
 	}
-	want := string(have[:i]) + b.String() + string(have[j:])
+	generated(t, path, string(have[:i])+b.String()+string(have[j:]), "go test ./stats -run ChecksDoc -update")
+}
+// generated compares the generated text want with the file at path: with
+// -update it rewrites the file, otherwise a difference fails the test with
+// the command that regenerates it.
+func generated(t *testing.T, path, want, how string) {
+	t.Helper()
+	have, _ := os.ReadFile(path)
 	if string(have) == want {
 		return
 	}
@@ -81,5 +76,6 @@ func readmeChecksTable(t *testing.T) {
 		}
 		return
 	}
-	t.Errorf("%s's checks table is stale: rerun `go test ./stats -run ChecksDoc -update`", path)
+	t.Errorf("%s is stale: rerun `%s`", path, how)
 }
+

@@ -191,19 +191,7 @@ func TestCorpusTable(t *testing.T) {
 	for _, n := range notes {
 		b.WriteString(n + "\n")
 	}
-	want := b.String()
-	const path = "../docs/corpus.md"
-	have, _ := os.ReadFile(path)
-	if string(have) == want {
-		return
-	}
-	if *updateReadme {
-		if err := os.WriteFile(path, []byte(want), 0o644); err != nil {
-			t.Fatal(err)
-		}
-		return
-	}
-	t.Errorf("%s is stale: rerun `go test ./stats -run Corpus -update`", path)
+	generated(t, "../docs/corpus.md", b.String(), "go test ./stats -run Corpus -update")
 }
 
 // The corpus models' activations get the roles their graphs give them: the
