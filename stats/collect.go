@@ -211,6 +211,8 @@ type Collector struct {
 	// the worker passed them (AfterObserved).
 	sent, handled atomic.Int64
 	dead          tensor.Deferred
+	// tf observes attention and residual-stream tensors (transformer_obs.go); nil without any.
+	tf *tfObserver
 }
 
 // AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
@@ -409,6 +411,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			la.sameAs, src.keepLast = src, true
 		}
 	}
+	c.tf = newTFObserver(c)
 	return c
 }
 
@@ -481,6 +484,9 @@ func (c *Collector) InSubgraph(n *loader.Node) bool {
 func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 	if i, ok := c.nodeIdx[n]; ok {
 		c.hits[i]++
+	}
+	if c.tf != nil {
+		c.tf.hook(n, outs)
 	}
 	for i, t := range outs {
 		if t == nil || i >= len(n.Outputs) {
