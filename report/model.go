@@ -128,9 +128,12 @@ type Transformer struct {
 	// way into an attention Softmax, where −inf is a mask), "residual-stream"
 	// or "normalisation (<kind>)".
 	Role string `json:"role,omitempty"`
-	// Block is the attention block (attention-probabilities, 0-based in depth
-	// order) or the position in the residual stream (residual-stream, 0-based).
+	// Block is the attention block (0-based in depth order) of an
+	// attention-probabilities entry, or for a residual-stream entry the last
+	// attention block before it (0 before the first).
 	Block *int `json:"block,omitempty"`
+	// ResidualIndex is a residual-stream entry's position in the stream (0-based, depth order).
+	ResidualIndex *int `json:"residual_index,omitempty"`
 	// AttentionEntropy[h] is head h's mean over query rows with K > 1 of
 	// H/ln K, H = −Σ p ln p over the K keys with non-zero probability.
 	AttentionEntropy []float64 `json:"attention_entropy,omitempty"`

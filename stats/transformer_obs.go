@@ -128,7 +128,14 @@ func (o *tfObserver) finish(col *Collected) {
 		l := &r.Layers[rf.i]
 		a := o.resid[l.Output]
 		l.Role = "residual-stream"
-		l.Block = report.IntPtr(b)
+		l.ResidualIndex = report.IntPtr(b)
+		blk := 0
+		for k, at := range attn {
+			if at.depth < rf.depth {
+				blk = k
+			}
+		}
+		l.Block = report.IntPtr(blk)
 		med := a.median()
 		if !math.IsNaN(med) {
 			l.MedianAbs = report.Num(med)

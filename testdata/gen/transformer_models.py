@@ -13,7 +13,7 @@ sensors; a reading of all zeros is a gap (padding). Models (d 16, 4 heads of
 - encoder_padding: 3 post-norm blocks (LayerNormalization), keys of gap
   readings masked with -inf (the mask computed from the input);
 - collapsed_head: 3 pre-norm blocks, no mask; block 1 head 2's query weights
-  scaled by 40 so that its attention is nearly one-hot;
+  scaled by 100 so that its attention is nearly one-hot;
 - massive_activation: the decoder with block 1's MLP output bias on feature 5
   set to 3000, a massive value carried by the residual stream from there on.
 
@@ -180,8 +180,8 @@ def build(name, prenorm, norm, mask, gaps, tweak=None):
 def collapse(net):
     with torch.no_grad():
         w = net.blocks[1].q.weight
-        w[2 * (D // H):3 * (D // H)] *= 40
-        net.blocks[1].q.bias[2 * (D // H):3 * (D // H)] *= 40
+        w[2 * (D // H):3 * (D // H)] *= 100
+        net.blocks[1].q.bias[2 * (D // H):3 * (D // H)] *= 100
 
 
 def massive(net):
