@@ -308,6 +308,9 @@ func (c *Collector) process(j obsJob) {
 		}
 	}()
 	c.observe(j.la, j.t)
+	if c.tf != nil && !j.isInput {
+		c.tf.observe(j.la.output, j.t)
+	}
 	if j.isInput && j.t.Rank() >= 2 {
 		j.la.perChan = perChannel(j.la.perChan, j.t, channelAxis(j.t))
 	}
@@ -505,6 +508,9 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 
 // AddInputs records the moments of one batch of model inputs (call before Run).
 func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
+	if c.tf != nil {
+		c.tf.inputs(batch)
+	}
 	for name, t := range batch {
 		if la := c.inputs[name]; la != nil {
 			c.queue(obsJob{la: la, t: t, isInput: true})

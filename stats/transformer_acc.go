@@ -36,7 +36,10 @@ func newAttnAcc(h int) *attnAcc {
 		rows: make([]int64, h), oneHot: make([]int64, h)}
 }
 
-// observe adds one batch; false when the tensor's shape has changed head count.
+// observe adds one batch of a (…, Sq, K) tensor whose leading slices are
+// (batch, head) pairs with the head varying fastest: slice n is head
+// n mod heads (rank 4: (B, H, Sq, K); a rank-3 (B·H, Sq, K) tensor as the
+// PyTorch exporter writes it). ln p comes from fastLn (below 1e-9 relative).
 func (a *attnAcc) observe(t *tensor.Tensor) bool {
 	x, ok := t.Data.([]float32)
 	if !ok || t.Rank() < 2 {
@@ -44,20 +47,14 @@ func (a *attnAcc) observe(t *tensor.Tensor) bool {
 	}
 	r := t.Rank()
 	K, Sq := t.Shape[r-1], t.Shape[r-2]
-	h := 1
-	if r == 4 {
-		h = t.Shape[1]
-	}
-	if h != a.heads || K == 0 {
+	if K == 0 || Sq == 0 {
 		return false
 	}
+	h := a.heads
 	rows := len(x) / K
 	for row := 0; row < rows; row++ {
 		p := x[row*K : (row+1)*K]
-		head := 0
-		if r == 4 {
-			head = (row / Sq) % h
-		}
+		head := (row / Sq) % h
 		i := row % Sq
 		var ent float64
 		var mx float32
@@ -66,22 +63,22 @@ func (a *attnAcc) observe(t *tensor.Tensor) bool {
 		for j, v := range p {
 			if v > 0 {
 				nz++
-				ent -= float64(v) * math.Log(float64(v))
+				ent -= float64(v) * fastLn(v)
 				if j > i {
 					causal = false
 				}
+				if v > mx {
+					mx = v
+				}
 			} else if j <= i {
 				causal = false
-			}
-			if v > mx {
-				mx = v
 			}
 		}
 		a.rows[head]++
 		a.maxSum[head] += float64(mx)
 		switch {
 		case nz > 1:
-			a.entSum[head] += ent / math.Log(float64(nz))
+			a.entSum[head] += ent / lnInt(nz)
 			a.entN[head]++
 		case nz == 1:
 			a.oneHot[head]++
@@ -98,6 +95,45 @@ func (a *attnAcc) observe(t *tensor.Tensor) bool {
 		}
 	}
 	return true
+}
+
+// lnTable[k] = ln(1 + k/1024).
+var lnTable = func() (t [1025]float64) {
+	for k := range t {
+		t[k] = math.Log1p(float64(k) / 1024)
+	}
+	return
+}()
+
+// fastLn is ln v for a positive finite float32: v = 2^e·(1+f), f = k/1024 + δ
+// (0 ≤ δ < 1/1024), ln v = e·ln2 + ln(1+k/1024) + ln(1+u), u = δ/(1+k/1024),
+// ln(1+u) ≈ u − u²/2 + u³/3 (|u| < 1/1024: error below 1e-12 absolute).
+func fastLn(v float32) float64 {
+	b := math.Float32bits(v)
+	e := int(b>>23) - 127
+	m := b & 0x7fffff
+	if e == -127 { // subnormal
+		return math.Log(float64(v))
+	}
+	k := m >> 13
+	fk := 1 + float64(k)/1024
+	d := float64(m&0x1fff) / (1 << 23)
+	u := d / fk
+	return float64(e)*math.Ln2 + lnTable[k] + u*(1-u*(0.5-u/3))
+}
+
+var lnInts = func() (t [4096]float64) {
+	for i := range t {
+		t[i] = math.Log(float64(i))
+	}
+	return
+}()
+
+func lnInt(n int) float64 {
+	if n < len(lnInts) {
+		return lnInts[n]
+	}
+	return math.Log(float64(n))
 }
 
 func (a *attnAcc) merge(b *attnAcc) {
@@ -135,15 +171,12 @@ func (a *attnAcc) maxProb() []float64 {
 	return out
 }
 
-// absBinsPerOctave sets the resolution of the |x| histogram: bin k holds
-// 2^(k/32) ≤ |x| < 2^((k+1)/32), so a median read from it (the bin's
-// geometric centre) is within 2^(1/64) − 1 ≈ 1.1% of the exact median.
-const (
-	absBinsPerOctave = 32
-	absMinExp        = -40 // |x| < 2^−40 (zeros included) go to bin 0
-	absMaxExp        = 40  // |x| ≥ 2^40 go to the last bin
-	absBins          = (absMaxExp-absMinExp)*absBinsPerOctave + 2
-)
+// The |x| histogram has one bin per value of the top 14 bits of |x|'s
+// float32 pattern (8 exponent bits, 6 mantissa bits): bin k holds
+// 2^e·(1 + m/64) ≤ |x| < 2^e·(1 + (m+1)/64), so a median read from it (the
+// bin's centre) is within 1/128 ≈ 0.8% of the exact median; zero and
+// subnormals fall in the lowest bins.
+const absBins = 1 << 14
 
 // residAcc accumulates one residual-stream tensor (…, D), D the last axis:
 // max |x|, a log-spaced histogram of |x| (median), per feature d the number
@@ -166,37 +199,38 @@ func newResidAcc(d int) *residAcc {
 	return &residAcc{dim: d, hist: make([]int64, absBins), over6: make([]int64, d)}
 }
 
-func absBin(a float64) int {
-	if !(a >= math.Ldexp(1, absMinExp)) {
-		return 0
-	}
-	k := int(math.Floor(math.Log2(a)*absBinsPerOctave)) - absMinExp*absBinsPerOctave + 1
-	if k >= absBins {
-		return absBins - 1
-	}
-	return k
-}
-
 func (r *residAcc) observe(t *tensor.Tensor) bool {
 	x, ok := t.Data.([]float32)
 	if !ok || t.Rank() < 2 || t.Shape[t.Rank()-1] != r.dim || r.dim == 0 {
 		return false
 	}
 	D := r.dim
-	for i, v := range x {
-		a := math.Abs(float64(v))
-		if math.IsNaN(a) || math.IsInf(a, 0) {
-			continue
-		}
-		r.n++
-		r.hist[absBin(a)]++
-		if a > r.maxAbs {
-			r.maxAbs = a
-		}
-		if a >= 6 {
-			r.over6[i%D]++
+	var mx uint32
+	hist := r.hist
+	for i := 0; i+D <= len(x); i += D {
+		row, over := x[i:i+D], r.over6[:D]
+		for d, v := range row {
+			b := math.Float32bits(v) & 0x7fffffff
+			if b >= 0x7f800000 {
+				continue // NaN, ±Inf
+			}
+			hist[b>>17]++
+			if b > mx {
+				mx = b
+			}
+			if b >= six32 {
+				over[d]++
+			}
 		}
 	}
+	var nan int64
+	for _, v := range x {
+		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
+			nan++
+		}
+	}
+	r.n += int64(len(x)) - nan
+	r.maxAbs = math.Max(r.maxAbs, float64(math.Float32frombits(mx)))
 	r.positions += int64(len(x) / D)
 	if t.Rank() == 3 {
 		S := t.Shape[1]
@@ -247,7 +281,7 @@ func (r *residAcc) merge(b *residAcc) {
 	r.simN += b.simN
 }
 
-// median is the geometric centre of the bin holding the ⌈n/2⌉-th smallest |x| (0 for bin 0).
+// median is the centre of the bin holding the ⌈n/2⌉-th smallest |x| (0 in the zero bin).
 func (r *residAcc) median() float64 {
 	if r.n == 0 {
 		return math.NaN()
@@ -260,12 +294,16 @@ func (r *residAcc) median() float64 {
 			if k == 0 {
 				return 0
 			}
-			e := float64(k-1)/absBinsPerOctave + absMinExp
-			return math.Exp2(e + 0.5/absBinsPerOctave)
+			lo := float64(math.Float32frombits(uint32(k) << 17))
+			hi := float64(math.Float32frombits(uint32(k+1) << 17))
+			return (lo + hi) / 2
 		}
 	}
 	return r.maxAbs
 }
+
+// six32 is the float32 bit pattern of 6: |x| ≥ 6 ⇔ bits(|x|) ≥ six32.
+var six32 = math.Float32bits(6)
 
 // outlierDims lists the features with |x| ≥ 6 at ≥ share of positions.
 func (r *residAcc) outlierDims(share float64) []int {

@@ -10,13 +10,28 @@ import (
 	"github.com/vitals-health/vitals/tensor"
 )
 
-// tfObserver feeds the transformer accumulators from the collector's hook
-// and writes their results into the layer entries at Finish.
+// tfObserver feeds the transformer accumulators and writes their results
+// into the layer entries at Finish. The map of entries is built before the
+// run and only read after; an entry is touched only by the observation jobs
+// of its own layer (like the layer's own accumulator), on the statistics
+// worker or inline (Collector.process).
 type tfObserver struct {
-	s      *tfStructure
-	attn   map[string]*attnAcc
-	resid  map[string]*residAcc
-	scores map[string]*scoreAcc
+	s       *tfStructure
+	entries map[string]*tfEntry
+	// batch is the leading dimension of the current batch's inputs (set by
+	// AddInputs, read by the hook on the same goroutine).
+	batch int
+}
+
+type tfEntry struct {
+	softmax, residual, score bool
+	// heads of a probability tensor: axis 1 of a rank-4 tensor; for a rank-3
+	// (B·H, Sq, K) tensor its first dimension over the batch size. Set by
+	// the hook at the first batch, before the tensor is queued.
+	heads int
+	attn  *attnAcc
+	resid *residAcc
+	sc    scoreAcc
 }
 
 // OutlierShare is the share of positions at which a feature must reach
@@ -29,48 +44,79 @@ func newTFObserver(c *Collector) *tfObserver {
 	if len(s.softmax) == 0 && len(s.residual) == 0 && len(s.fused) == 0 && len(s.norm) == 0 {
 		return nil
 	}
-	return &tfObserver{s: s, attn: map[string]*attnAcc{}, resid: map[string]*residAcc{}, scores: map[string]*scoreAcc{}}
+	o := &tfObserver{s: s, entries: map[string]*tfEntry{}}
+	get := func(v string) *tfEntry {
+		e := o.entries[v]
+		if e == nil {
+			e = &tfEntry{}
+			o.entries[v] = e
+		}
+		return e
+	}
+	for v := range s.softmax {
+		get(v).softmax = true
+	}
+	for v := range s.residual {
+		get(v).residual = true
+	}
+	for v := range s.scores {
+		get(v).score = true
+	}
+	return o
 }
 
-// hook observes the transformer tensors among a node's outputs (on the
-// executor's goroutine: they are read before the hook returns).
+// inputs records the batch size of the batch about to run.
+func (o *tfObserver) inputs(batch map[string]*tensor.Tensor) {
+	for _, t := range batch {
+		if t != nil && t.Rank() > 0 {
+			o.batch = t.Shape[0]
+			return
+		}
+	}
+}
+
+// hook fixes the head count of a probability tensor at its first batch (on
+// the executor's goroutine, before the tensor is queued).
 func (o *tfObserver) hook(n *loader.Node, outs []*tensor.Tensor) {
 	for i, t := range outs {
 		if t == nil || i >= len(n.Outputs) {
 			continue
 		}
-		v := n.Outputs[i]
+		e := o.entries[n.Outputs[i]]
+		if e == nil || !e.softmax || e.heads > 0 {
+			continue
+		}
 		switch {
-		case o.s.softmax[v]:
-			h := 1
-			if t.Rank() == 4 {
-				h = t.Shape[1]
-			}
-			a := o.attn[v]
-			if a == nil {
-				a = newAttnAcc(h)
-				o.attn[v] = a
-			}
-			a.observe(t)
-		case o.s.residual[v]:
-			if t.Rank() < 2 {
-				continue
-			}
-			r := o.resid[v]
-			if r == nil {
-				r = newResidAcc(t.Shape[t.Rank()-1])
-				o.resid[v] = r
-			}
-			r.observe(t)
+		case t.Rank() == 4:
+			e.heads = t.Shape[1]
+		case t.Rank() == 3 && o.batch > 0 && t.Shape[0]%o.batch == 0:
+			e.heads = t.Shape[0] / o.batch
+		default:
+			e.heads = 1
 		}
-		if _, ok := o.s.scores[v]; ok {
-			sc := o.scores[v]
-			if sc == nil {
-				sc = &scoreAcc{}
-				o.scores[v] = sc
-			}
-			sc.observe(t)
+	}
+}
+
+// observe takes one batch of value v (Collector.process).
+func (o *tfObserver) observe(v string, t *tensor.Tensor) {
+	e := o.entries[v]
+	if e == nil {
+		return
+	}
+	if e.softmax && e.heads > 0 {
+		if e.attn == nil {
+			e.attn = newAttnAcc(e.heads)
 		}
+		e.attn.observe(t)
+	}
+	if e.residual && t.Rank() >= 2 {
+		if e.resid == nil {
+			e.resid = newResidAcc(t.Shape[t.Rank()-1])
+		}
+		e.resid.observe(t)
+	}
+	if e.score {
+		e.sc.observe(t)
 	}
 }
 
@@ -88,7 +134,11 @@ func (o *tfObserver) finish(col *Collected) {
 		if k := o.s.norm[v]; k != "" {
 			l.Role = "normalisation (" + k + ")"
 		}
-		if sc := o.scores[v]; sc != nil {
+		e := o.entries[v]
+		if e == nil {
+			continue
+		}
+		if sc := &e.sc; e.score {
 			l.Role = "attention-scores"
 			if sc.negInf > 0 {
 				l.MaskedValues = sc.negInf
@@ -96,10 +146,10 @@ func (o *tfObserver) finish(col *Collected) {
 				l.AttentionMask = fmt.Sprintf("%d −inf values reach the attention Softmax %s: a mask, not counted as non-finite", sc.negInf, o.s.scores[v])
 			}
 		}
-		if o.attn[v] != nil {
+		if e.attn != nil {
 			attn = append(attn, ref{i, l.Depth})
 		}
-		if o.resid[v] != nil {
+		if e.resid != nil {
 			resid = append(resid, ref{i, l.Depth})
 		}
 	}
@@ -110,7 +160,7 @@ func (o *tfObserver) finish(col *Collected) {
 	byDepth(resid)
 	for b, rf := range attn {
 		l := &r.Layers[rf.i]
-		a := o.attn[l.Output]
+		a := o.entries[l.Output].attn
 		l.Role = "attention-probabilities"
 		l.Block = report.IntPtr(b)
 		ent := a.entropy()
@@ -126,7 +176,7 @@ func (o *tfObserver) finish(col *Collected) {
 	}
 	for b, rf := range resid {
 		l := &r.Layers[rf.i]
-		a := o.resid[l.Output]
+		a := o.entries[l.Output].resid
 		l.Role = "residual-stream"
 		l.ResidualIndex = report.IntPtr(b)
 		blk := 0
