@@ -61,7 +61,7 @@ func tfRole(r *report.Report, role string) []report.Layer {
 // from the 32-bins-per-octave histogram) within 1.5%, outlier dims exactly,
 // token similarity within 1e-4.
 func TestTransformerStatsMatchGolden(t *testing.T) {
-	for _, name := range []string{"decoder_causal", "encoder_padding", "collapsed_head", "massive_activation"} {
+	for _, name := range []string{"decoder_causal", "encoder_padding", "collapsed_head", "massive_activation", "torch_encoder"} {
 		t.Run(name, func(t *testing.T) {
 			var g tfGolden
 			b, err := os.ReadFile("../testdata/transformer/" + name + ".golden.json")
@@ -197,9 +197,18 @@ func TestTransformerFindingsAtRankOne(t *testing.T) {
 	}
 }
 
-// Mergeable: the statistics do not depend on how the sample is split into batches.
+// Mergeable: the statistics do not depend on how the sample is split into
+// batches; torch_encoder's probabilities are one (B·H, S, S) tensor, whose
+// heads are found from the batch size whatever it is.
 func TestTransformerStatsBatchIndependent(t *testing.T) {
-	a, b := runTF(t, "encoder_padding", 24), runTF(t, "encoder_padding", 5)
+	for _, name := range []string{"encoder_padding", "torch_encoder"} {
+		tfSameStats(t, runTF(t, name, 24), runTF(t, name, 5))
+		tfSameStats(t, runTF(t, name, 1), runTF(t, name, 8))
+	}
+}
+
+func tfSameStats(t *testing.T, a, b *report.Report) {
+	t.Helper()
 	for i, l := range a.Layers {
 		m := b.Layers[i]
 		for h := range l.AttentionEntropy {

@@ -15,7 +15,11 @@ sensors; a reading of all zeros is a gap (padding). Models (d 16, 4 heads of
 - collapsed_head: 3 pre-norm blocks, no mask; block 1 head 2's query weights
   scaled by 100 so that its attention is nearly one-hot;
 - massive_activation: the decoder with block 1's MLP output bias on feature 5
-  set to 3000, a massive value carried by the residual stream from there on.
+  set to 3000, a massive value carried by the residual stream from there on;
+- torch_encoder: two nn.TransformerEncoderLayer (post-norm, 4 heads), whose
+  export writes the probabilities as one (B·H, S, S) tensor; the goldens
+  come from nn.MultiheadAttention's own per-head weights
+  (need_weights=True, average_attn_weights=False).
 
 Golden statistics are computed here with NumPy from the tensors the eager
 torch model exposes (the attention probabilities and every residual-stream
@@ -189,8 +193,49 @@ def massive(net):
         net.blocks[1].fc2.bias[5] = 3000.0
 
 
+class TorchEncoder(nn.Module):
+    def __init__(self):
+        super().__init__()
+        self.layers = nn.ModuleList(nn.TransformerEncoderLayer(D, H, MLP, dropout=0.0, batch_first=True) for _ in range(2))
+        self.head = nn.Linear(D, 4)
+
+    def forward(self, x):
+        for l in self.layers:
+            x = l(x)
+        return self.head(x.mean(1))
+
+
+def build_torch_encoder():
+    torch.manual_seed(5)
+    net = TorchEncoder().eval()
+    x = sample(np.random.default_rng(13), False)
+    blocks = []
+    h = torch.from_numpy(x)
+    with torch.no_grad():
+        for i, l in enumerate(net.layers):
+            _, p = l.self_attn(h, h, h, need_weights=True, average_attn_weights=False)
+            ent, mx, onehot = head_stats(p.numpy())
+            r1 = h + l.self_attn(h, h, h, need_weights=False)[0]
+            h1 = l.norm1(r1)
+            r2 = h1 + l.linear2(l.activation(l.linear1(h1)))
+            blocks.append({"block": i, "attention_entropy": ent, "attention_max_prob": mx, "one_hot_rows": onehot,
+                           "residual": [resid_stats(r1.numpy()), resid_stats(r2.numpy())]})
+            h = l.norm2(r2)
+    # grad enabled: under no_grad the layer takes a fused path with no ONNX export
+    torch.onnx.export(net, torch.from_numpy(x[:2]), str(OUT / "torch_encoder.onnx"), opset_version=17,
+                      input_names=["readings"], output_names=["scores"],
+                      dynamic_axes={"readings": {0: "batch"}, "scores": {0: "batch"}})
+    np.save(OUT / "torch_encoder.input.npy", x)
+    golden = {"model": "torch_encoder", "source": "torch %s nn.MultiheadAttention per-head weights, statistics in NumPy %s" % (torch.__version__, np.__version__),
+              "samples": int(x.shape[0]), "blocks": blocks}
+    (OUT / "torch_encoder.golden.json").write_text(json.dumps(golden, indent=1) + "\n")
+    return golden
+
+
 def main():
     OUT.mkdir(parents=True, exist_ok=True)
+    g = build_torch_encoder()
+    print("torch_encoder entropy", [["%.3f" % e for e in b["attention_entropy"]] for b in g["blocks"]])
     g = build("decoder_causal", True, "rms", "causal", False)
     print("decoder_causal entropy", [["%.3f" % e for e in b["attention_entropy"]] for b in g["blocks"]])
     g = build("encoder_padding", False, "ln", "padding", True)
