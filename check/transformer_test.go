@@ -9,12 +9,15 @@ import (
 	"encoding/json"
 	"math"
 	"os"
+	"path/filepath"
 	"reflect"
 	"strings"
 	"testing"
 
 	"github.com/vitals-health/vitals/check"
+	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 type tfGolden struct {
@@ -222,5 +225,63 @@ func tfSameStats(t *testing.T, a, b *report.Report) {
 		if l.MedianAbs != nil && *l.MedianAbs != *m.MedianAbs {
 			t.Errorf("%s: median differs between batch sizes", l.Node)
 		}
+	}
+}
+
+// A fused ONNX Attention node (is_causal, 4 query heads over 2 kv heads)
+// hands its probabilities to the statistics: with Q = 0 every query attends
+// uniformly to the keys the causal mask leaves it, so each head's
+// normalised entropy is exactly 1 (known answer: H = ln K for a uniform
+// row) and the first row of each sequence (K = 1) is a one-hot row.
+func TestFusedAttentionHeads(t *testing.T) {
+	dir := t.TempDir()
+	rnd := func(n int) []float32 {
+		x := make([]float32, n)
+		s := uint32(7)
+		for i := range x {
+			s = s*1664525 + 1013904223
+			x[i] = float32(s>>8)/float32(1<<24) - 0.5
+		}
+		return x
+	}
+	write := func(name string, x *tensor.Tensor) string {
+		p := filepath.Join(dir, name+".npy")
+		f, err := os.Create(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		if err := loader.WriteNpy(f, x); err != nil {
+			t.Fatal(err)
+		}
+		return name + "=" + p
+	}
+	data := []string{write("Q", tensor.New(tensor.Float32, []int{6, 4, 5, 8})),
+		write("K", tensor.From(rnd(6*2*5*8), 6, 2, 5, 8)), write("V", tensor.From(rnd(6*2*5*8), 6, 2, 5, 8))}
+	m, err := check.Load("../testdata/transformer/ops/attention_4d_causal_gqa.onnx", check.LoadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err := check.Check(context.Background(), m, check.Sample{Data: data, Batch: 2}, check.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var found bool
+	for _, l := range r.Layers {
+		if l.Role != "attention (fused)" {
+			continue
+		}
+		found = true
+		if len(l.AttentionEntropy) != 4 || !strings.HasPrefix(l.AttentionMask, "causal") {
+			t.Fatalf("%s: entropy %v, mask %q", l.Node, l.AttentionEntropy, l.AttentionMask)
+		}
+		for h, e := range l.AttentionEntropy {
+			if math.Abs(e-1) > 1e-6 || l.AttentionOneHotRows[h] != 6 {
+				t.Errorf("head %d: entropy %.8f (want 1), one-hot rows %d (want 6)", h, e, l.AttentionOneHotRows[h])
+			}
+		}
+	}
+	if !found {
+		t.Fatal("no fused attention entry in the report")
 	}
 }

@@ -40,7 +40,7 @@ func AttentionEntropySpec(r *report.Report) *Heat {
 	var bs []blk
 	heads := 0
 	for _, l := range r.Layers {
-		if l.Role == "attention-probabilities" && l.Block != nil && len(l.AttentionEntropy) > 0 {
+		if (l.Role == "attention-probabilities" || l.Role == "attention (fused)") && l.Block != nil && len(l.AttentionEntropy) > 0 {
 			bs = append(bs, blk{*l.Block, l.Node, l.AttentionEntropy})
 			heads = max(heads, len(l.AttentionEntropy))
 		}

@@ -2,6 +2,8 @@ package probe
 
 import (
 	"math"
+
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Scaled dot-product attention shared by the fused attention operators
@@ -52,6 +54,17 @@ type attnSpec struct {
 	// QKStage: 0 after softcap, 1 after the mask, 2 after the softmax.
 	QK      []float32
 	QKStage int
+}
+
+// observe makes run keep the probabilities for the hook when the run has
+// one (Call.Observe): a (B, Hq, Sq, T) tensor after the node's outputs,
+// where statistics of the fused operator's heads can see them.
+func (a *attnSpec) observe(c *Call) {
+	if c.Observing() && a.Probs == nil {
+		t := tensor.New(tensor.Float32, []int{a.B, a.Hq, a.Sq, a.T})
+		a.Probs = t.F32()
+		c.Observe(t)
+	}
 }
 
 // run computes Y (and Probs/QK when asked).

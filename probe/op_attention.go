@@ -125,6 +125,7 @@ func onnxAttentionKernel(c *Call) error {
 			return fmt.Errorf("qk_matmul_output_mode %d is not 0–3", mode)
 		}
 	}
+	spec.observe(c)
 	spec.run()
 	c.Set(0, y)
 	c.Set(1, presentK)

@@ -195,6 +195,7 @@ func msAttentionKernel(c *Call) error {
 	spec := attnSpec{B: B, Hq: N, Hkv: N, Sq: S, T: T, D: D, Dv: Dv,
 		Q: viewBSHD(qkv, S, tot, D, 0), K: viewBHSD(kd, N, T, D), V: viewBHSD(vd, N, T, Dv),
 		Y: viewBSHD(y.F32(), S, N*Dv, Dv, 0), Scale: msScale(c, D), Bias: maskFn}
+	spec.observe(c)
 	spec.run()
 	c.Set(0, y)
 	if present != nil {
@@ -299,6 +300,7 @@ func msMHAKernel(c *Call) error {
 	spec := attnSpec{B: B, Hq: N, Hkv: N, Sq: S, T: T, D: D, Dv: Dv,
 		Q: viewBSHD(qd, S, N*D, D, 0), K: viewBHSD(kd, N, T, D), V: viewBHSD(vd, N, T, Dv),
 		Y: viewBSHD(y.F32(), S, N*Dv, Dv, 0), Scale: msScale(c, D), Bias: maskFn}
+	spec.observe(c)
 	spec.run()
 	c.Set(0, y)
 	c.Set(1, presentK)
@@ -472,6 +474,7 @@ func msGQAKernel(c *Call) error {
 				}
 			}
 		}}
+	spec.observe(c)
 	spec.run()
 	c.Set(0, y)
 	c.Set(1, presentK)

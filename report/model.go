@@ -124,7 +124,9 @@ type Layer struct {
 // Transformer holds the transformer-structure fields of a layer entry
 // (docs/transformers.md); all empty for other layers.
 type Transformer struct {
-	// Role is "attention-probabilities", "attention-scores" (a tensor on the
+	// Role is "attention-probabilities", "attention (fused)" (the first output
+	// of a fused attention node, which carries its heads' statistics),
+	// "attention-scores" (a tensor on the
 	// way into an attention Softmax, where −inf is a mask), "residual-stream"
 	// or "normalisation (<kind>)".
 	Role string `json:"role,omitempty"`

@@ -6,11 +6,12 @@ import (
 	"github.com/vitals-health/vitals/report"
 )
 
-// tfLayers returns the indices of the layers with the given role, in block order.
+// tfLayers returns the indices of the layers with the given role, in block
+// order; "attention-probabilities" includes the fused attention nodes.
 func tfLayers(r *report.Report, role string) []int {
 	var idx []int
 	for i, l := range r.Layers {
-		if l.Role == role && l.Block != nil {
+		if (l.Role == role || (role == "attention-probabilities" && l.Role == "attention (fused)")) && l.Block != nil {
 			idx = append(idx, i)
 		}
 	}

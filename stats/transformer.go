@@ -14,8 +14,9 @@ import (
 //     first input of a MatMul (through Cast/Identity/Dropout) and whose input
 //     comes from a MatMul through elementwise nodes (the scale, the mask Add,
 //     a softcap); fused attention operators (Attention, MultiHeadAttention,
-//     GroupQueryAttention) are blocks too, observed when they expose their
-//     probabilities (ONNX Attention, qk_matmul_output_mode 3);
+//     GroupQueryAttention) are blocks too: their kernels hand the
+//     probabilities to the hook after the node's outputs (probe Call.Observe),
+//     and the statistics go on the entry of the node's first output;
 //   - heads: axis 1 of a rank-4 probability tensor (B, H, Sq, K); a rank-3
 //     tensor counts as one head per slice;
 //   - attention scores: the tensors on the way from the MatMul into the
@@ -58,11 +59,6 @@ func findTransformer(g *loader.Graph, producer map[string]*loader.Node, consumer
 			}
 		case fusedAttnOps[n.OpType]:
 			s.fused = append(s.fused, n)
-			if n.OpType == "Attention" && n.Domain == "" && len(n.Outputs) > 3 && n.Outputs[3] != "" {
-				if a := n.Attrs["qk_matmul_output_mode"]; a != nil && a.I == 3 {
-					s.softmax[n.Outputs[3]] = true
-				}
-			}
 		case layerNormOps[n.OpType] != "":
 			if len(n.Outputs) > 0 {
 				s.norm[n.Outputs[0]] = layerNormOps[n.OpType]

@@ -18,6 +18,9 @@ import (
 type tfObserver struct {
 	s       *tfStructure
 	entries map[string]*tfEntry
+	// fused holds the fused attention nodes by name; their probabilities
+	// come after the node's outputs in the hook and are observed there.
+	fused map[string]*tfEntry
 	// batch is the leading dimension of the current batch's inputs (set by
 	// AddInputs, read by the hook on the same goroutine).
 	batch int
@@ -29,6 +32,7 @@ type tfEntry struct {
 	// (B·H, Sq, K) tensor its first dimension over the batch size. Set by
 	// the hook at the first batch, before the tensor is queued.
 	heads int
+	node  string // a fused node whose entry got the statistics (finish)
 	attn  *attnAcc
 	resid *residAcc
 	sc    scoreAcc
@@ -44,7 +48,10 @@ func newTFObserver(c *Collector) *tfObserver {
 	if len(s.softmax) == 0 && len(s.residual) == 0 && len(s.fused) == 0 && len(s.norm) == 0 {
 		return nil
 	}
-	o := &tfObserver{s: s, entries: map[string]*tfEntry{}}
+	o := &tfObserver{s: s, entries: map[string]*tfEntry{}, fused: map[string]*tfEntry{}}
+	for _, n := range s.fused {
+		o.fused[n.Name] = &tfEntry{softmax: true}
+	}
 	get := func(v string) *tfEntry {
 		e := o.entries[v]
 		if e == nil {
@@ -78,6 +85,16 @@ func (o *tfObserver) inputs(batch map[string]*tensor.Tensor) {
 // hook fixes the head count of a probability tensor at its first batch (on
 // the executor's goroutine, before the tensor is queued).
 func (o *tfObserver) hook(n *loader.Node, outs []*tensor.Tensor) {
+	if e := o.fused[n.Name]; e != nil && len(outs) > len(n.Outputs) {
+		if t := outs[len(n.Outputs)]; t != nil && t.Rank() == 4 {
+			if e.attn == nil {
+				e.heads = t.Shape[1]
+				e.attn = newAttnAcc(e.heads)
+			}
+			e.attn.observe(t) // the kernel's own tensor: read here, on the executor's goroutine
+		}
+		return
+	}
 	for i, t := range outs {
 		if t == nil || i >= len(n.Outputs) {
 			continue
@@ -134,6 +151,11 @@ func (o *tfObserver) finish(col *Collected) {
 		if k := o.s.norm[v]; k != "" {
 			l.Role = "normalisation (" + k + ")"
 		}
+		if fe := o.fused[l.Node]; fe != nil && fe.attn != nil && fe.node == "" {
+			fe.node = l.Node // the fused node's first output entry
+			attn = append(attn, ref{i, l.Depth})
+			continue
+		}
 		e := o.entries[v]
 		if e == nil {
 			continue
@@ -160,8 +182,14 @@ func (o *tfObserver) finish(col *Collected) {
 	byDepth(resid)
 	for b, rf := range attn {
 		l := &r.Layers[rf.i]
-		a := o.entries[l.Output].attn
-		l.Role = "attention-probabilities"
+		var a *attnAcc
+		if e := o.entries[l.Output]; e != nil && e.attn != nil {
+			a = e.attn
+			l.Role = "attention-probabilities"
+		} else {
+			a = o.fused[l.Node].attn
+			l.Role = "attention (fused)"
+		}
 		l.Block = report.IntPtr(b)
 		ent := a.entropy()
 		for h := range ent {
