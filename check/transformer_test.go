@@ -38,11 +38,17 @@ type tfGolden struct {
 
 func runTF(t *testing.T, name string, batch int) *report.Report {
 	t.Helper()
-	m, err := check.Load("../testdata/transformer/"+name+".onnx", check.LoadOptions{})
+	return runTFOn(t, name, name, batch)
+}
+
+// runTFOn checks testdata/transformer/model.onnx on sample.input.npy.
+func runTFOn(t *testing.T, model, sample string, batch int) *report.Report {
+	t.Helper()
+	m, err := check.Load("../testdata/transformer/"+model+".onnx", check.LoadOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
-	r, err := check.Check(context.Background(), m, check.Sample{Data: []string{"../testdata/transformer/" + name + ".input.npy"}, Batch: batch}, check.Options{})
+	r, err := check.Check(context.Background(), m, check.Sample{Data: []string{"../testdata/transformer/" + sample + ".input.npy"}, Batch: batch}, check.Options{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -155,6 +161,22 @@ func TestTransformerStructure(t *testing.T) {
 	}
 	if n := len(tfRole(enc, "normalisation (LayerNormalization)")); n != 6 {
 		t.Errorf("encoder: %d LayerNormalization layers, want 6", n)
+	}
+	// the same network exported at opset 15: LayerNorm written out, same heads
+	old := runTFOn(t, "encoder_padding_opset15", "encoder_padding", 0)
+	if n := len(tfRole(old, "normalisation (decomposed LayerNorm)")); n != 6 {
+		t.Errorf("encoder at opset 15: %d decomposed LayerNorms, want 6", n)
+	}
+	a, b := tfRole(enc, "attention-probabilities"), tfRole(old, "attention-probabilities")
+	if len(a) != 3 || len(b) != 3 {
+		t.Fatalf("attention blocks: %d at opset 17, %d at opset 15", len(a), len(b))
+	}
+	for i := range a {
+		for h := range a[i].AttentionEntropy {
+			if math.Abs(a[i].AttentionEntropy[h]-b[i].AttentionEntropy[h]) > 1e-4 {
+				t.Errorf("block %d head %d: entropy %.6f at opset 17, %.6f at opset 15", i, h, a[i].AttentionEntropy[h], b[i].AttentionEntropy[h])
+			}
+		}
 	}
 	for _, f := range enc.Findings {
 		if f.Severity != report.Info {

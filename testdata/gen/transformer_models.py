@@ -11,7 +11,9 @@ sensors; a reading of all zeros is a gap (padding). Models (d 16, 4 heads of
 - decoder_causal: 3 pre-norm blocks, RMS normalisation written out (decomposed
   in the graph), an additive causal mask of 0 / -inf;
 - encoder_padding: 3 post-norm blocks (LayerNormalization), keys of gap
-  readings masked with -inf (the mask computed from the input);
+  readings masked with -inf (the mask computed from the input); also
+  exported at opset 15 (encoder_padding_opset15.onnx), where LayerNorm is
+  written out as ReduceMean/Sub/Pow/Sqrt/Div;
 - collapsed_head: 3 pre-norm blocks, no mask; block 1 head 2's query weights
   scaled by 100 so that its attention is nearly one-hot;
 - massive_activation: the decoder with block 1's MLP output bias on feature 5
@@ -157,7 +159,7 @@ def resid_stats(x):
             "token_similarity": float(np.mean(sims))}
 
 
-def build(name, prenorm, norm, mask, gaps, tweak=None):
+def build(name, prenorm, norm, mask, gaps, tweak=None, also_opset=None):
     torch.manual_seed(7)
     net = Net(prenorm, norm, mask).eval()
     if tweak:
@@ -174,6 +176,11 @@ def build(name, prenorm, norm, mask, gaps, tweak=None):
     torch.onnx.export(net, torch.from_numpy(x[:2]), str(OUT / (name + ".onnx")), opset_version=17,
                       input_names=["readings"], output_names=["scores"],
                       dynamic_axes={"readings": {0: "batch"}, "scores": {0: "batch"}})
+    if also_opset:
+        # the same network before LayerNormalization existed (opset < 17): decomposed
+        torch.onnx.export(net, torch.from_numpy(x[:2]), str(OUT / ("%s_opset%d.onnx" % (name, also_opset))),
+                          opset_version=also_opset, input_names=["readings"], output_names=["scores"],
+                          dynamic_axes={"readings": {0: "batch"}, "scores": {0: "batch"}})
     np.save(OUT / (name + ".input.npy"), x)
     golden = {"model": name, "source": "torch %s eager forward, statistics in NumPy %s" % (torch.__version__, np.__version__),
               "samples": int(x.shape[0]), "blocks": blocks}
@@ -238,7 +245,7 @@ def main():
     print("torch_encoder entropy", [["%.3f" % e for e in b["attention_entropy"]] for b in g["blocks"]])
     g = build("decoder_causal", True, "rms", "causal", False)
     print("decoder_causal entropy", [["%.3f" % e for e in b["attention_entropy"]] for b in g["blocks"]])
-    g = build("encoder_padding", False, "ln", "padding", True)
+    g = build("encoder_padding", False, "ln", "padding", True, also_opset=15)
     print("encoder_padding entropy", [["%.3f" % e for e in b["attention_entropy"]] for b in g["blocks"]])
     g = build("collapsed_head", True, "ln", None, False, collapse)
     e = g["blocks"][1]["attention_entropy"]
