@@ -109,6 +109,14 @@ def main(out):
           ("seqlens_k", np.array([6, 6], dtype=np.int32)), ("total_sequence_length", np.array(7, dtype=np.int32)),
           ("cos_cache", r(16, 8)), ("sin_cache", r(16, 8))],
          ["output", "present_key", "present_value"], domain=ms, num_heads=4, kv_num_heads=2, do_rotary=1)
+    case(out, "ms_gqa_window_softcap", "GroupQueryAttention",
+         [("query", r(1, 6, 64, scale=2)), ("key", r(1, 6, 32, scale=2)), ("value", r(1, 6, 32)), ("past_key", None), ("past_value", None),
+          ("seqlens_k", np.array([5], dtype=np.int32)), ("total_sequence_length", np.array(6, dtype=np.int32))],
+         ["output", "present_key", "present_value"], domain=ms, num_heads=4, kv_num_heads=2, local_window_size=3, softcap=5.0)
+    case(out, "ms_mha_bias_causal", "MultiHeadAttention",
+         [("query", r(1, 4, 16)), ("key", r(1, 4, 16)), ("value", r(1, 4, 16)), ("bias", None),
+          ("key_padding_mask", None), ("attention_bias", r(1, 2, 4, 4))],
+         ["output"], domain=ms, num_heads=2, unidirectional=1)
     h = 8
     case(out, "ms_skip_layernorm", "SkipLayerNormalization",
          [("input", r(2, 3, h)), ("skip", r(2, 3, h)), ("gamma", r(h)), ("beta", r(h)), ("bias", r(h))],
