@@ -1,9 +1,6 @@
 package stats
 
 import (
-	"fmt"
-	"sort"
-
 	"github.com/vitals-health/vitals/loader"
 )
 
@@ -30,6 +27,7 @@ import (
 //     ReduceMean, RMS otherwise.
 type tfStructure struct {
 	softmax  map[string]bool   // attention-probability values (Softmax outputs)
+	axis     map[string]int    // a softmax value's non-negative axis attribute
 	scores   map[string]string // value → the attention Softmax it feeds
 	residual map[string]bool
 	norm     map[string]string // value → normalisation kind
@@ -45,16 +43,22 @@ var layerNormOps = map[string]string{"LayerNormalization": "LayerNormalization",
 	"SimplifiedLayerNormalization": "RMS (SimplifiedLayerNormalization)", "SkipLayerNormalization": "LayerNormalization (SkipLayerNormalization)",
 	"SkipSimplifiedLayerNormalization": "RMS (SkipSimplifiedLayerNormalization)", "EmbedLayerNormalization": "LayerNormalization (EmbedLayerNormalization)"}
 
-func findTransformer(g *loader.Graph, producer map[string]*loader.Node, consumer map[string][]*loader.Node, dataDep map[string]bool) *tfStructure {
-	s := &tfStructure{softmax: map[string]bool{}, scores: map[string]string{}, residual: map[string]bool{}, norm: map[string]string{}}
+// findTransformer reads the structure of g; opset is the default domain's
+// (before 13 a Softmax without an axis attribute works along axis 1).
+func findTransformer(g *loader.Graph, opset int, producer map[string]*loader.Node, consumer map[string][]*loader.Node, dataDep map[string]bool) *tfStructure {
+	s := &tfStructure{softmax: map[string]bool{}, axis: map[string]int{}, scores: map[string]string{}, residual: map[string]bool{}, norm: map[string]string{}}
 	for _, n := range g.Nodes {
 		switch {
 		case n.OpType == "Softmax" && len(n.Inputs) == 1 && len(n.Outputs) == 1:
-			if ax := n.Attrs["axis"]; ax != nil && ax.I != -1 && ax.I < 2 {
+			ax := n.Attrs["axis"]
+			if (ax == nil && opset < 13) || (ax != nil && ax.I != -1 && ax.I < 2) {
 				continue // not along the key axis of a (…, Sq, K) tensor
 			}
 			if feedsMatMul(n.Outputs[0], consumer, 0) && fromMatMul(n.Inputs[0], producer, 0) {
 				s.softmax[n.Outputs[0]] = true
+				if ax != nil && ax.I >= 0 {
+					s.axis[n.Outputs[0]] = int(ax.I) // checked against the rank when observed
+				}
 				s.markScores(n.Inputs[0], n.Name, producer, dataDep, 0)
 			}
 		case fusedAttnOps[n.OpType]:
@@ -198,14 +202,4 @@ func decomposedNorm(n *loader.Node, producer map[string]*loader.Node) string {
 		}
 	}
 	return "decomposed RMS"
-}
-
-// describe is a one-line summary for notes and tests.
-func (s *tfStructure) describe() string {
-	var norms []string
-	for v, k := range s.norm {
-		norms = append(norms, v+"="+k)
-	}
-	sort.Strings(norms)
-	return fmt.Sprintf("%d attention softmax, %d fused attention, %d residual, %d norm", len(s.softmax), len(s.fused), len(s.residual), len(norms))
 }

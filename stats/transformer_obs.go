@@ -44,7 +44,7 @@ type tfEntry struct {
 const OutlierShare = 0.06
 
 func newTFObserver(c *Collector) *tfObserver {
-	s := findTransformer(c.flat.Graph, c.producer, c.consumer, c.dataDep)
+	s := findTransformer(c.flat.Graph, int(c.Model.Opsets[""]), c.producer, c.consumer, c.dataDep)
 	if len(s.softmax) == 0 && len(s.residual) == 0 && len(s.fused) == 0 && len(s.norm) == 0 {
 		return nil
 	}
@@ -100,7 +100,11 @@ func (o *tfObserver) hook(n *loader.Node, outs []*tensor.Tensor) {
 			continue
 		}
 		e := o.entries[n.Outputs[i]]
-		if e == nil || !e.softmax || e.heads > 0 {
+		if e == nil || !e.softmax || e.heads != 0 {
+			continue
+		}
+		if ax, ok := o.s.axis[n.Outputs[i]]; ok && ax != t.Rank()-1 {
+			e.heads = -1 // a Softmax across another axis: not attention probabilities
 			continue
 		}
 		switch {
