@@ -77,6 +77,11 @@ func Render(r *report.Report, o Options) (report.Assets, error) {
 	chart(WeightsSpec(r), func() string {
 		return "No weight-scale figure: no weight tensor with a finite gain std·√fan_in (the model has no Conv, Gemm or MatMul weights the statistics recognised)."
 	})
+	// transformers: residual stream max/median along depth, attention entropy per block and head
+	chart(ResidualRatioSpec(r), nil)
+	if h := AttentionEntropySpec(r); h != nil {
+		jobs = append(jobs, job{h.File, func(w io.Writer) error { return RenderHeat(w, h) }})
+	}
 	if c := CompareSpec(r); c != nil {
 		pages(c.Pages)
 		chart(c.Depth, func() string {

@@ -22,7 +22,19 @@ type Call struct {
 	// fuse, when not nil, is the activation node that alone consumes output
 	// 0: a kernel that can may compute it too and store it in fuse.out (see fuse.go).
 	fuse *fusedAct
+	// observed are tensors the kernel computed internally for the hook
+	// (Observe): the hook gets them after the node's outputs.
+	observed []*tensor.Tensor
 }
+
+// Observing reports whether the run has a hook, so that a kernel may hand it
+// an internal tensor with Observe (fused attention: the probabilities).
+func (c *Call) Observing() bool { return c.run != nil && c.run.hook != nil }
+
+// Observe passes an internal tensor to the hook: it follows the node's
+// outputs in the hook's outs (outs[len(Node.Outputs):]), is never stored
+// in the run and must not be changed after the call.
+func (c *Call) Observe(t *tensor.Tensor) { c.observed = append(c.observed, t) }
 
 // Arena is the memory of the run this call belongs to: kernels allocate
 // their outputs and buffers from it (nil: the process default budget, no pool).

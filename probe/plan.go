@@ -474,7 +474,11 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 			if p.view != nil {
 				node = p.view[i]
 			}
-			if err := hook(node, c.Out); err != nil {
+			outs := c.Out
+			if len(c.observed) > 0 { // a kernel's internal tensors (Call.Observe) after the outputs
+				outs = append(append(make([]*tensor.Tensor, 0, len(c.Out)+len(c.observed)), c.Out...), c.observed...)
+			}
+			if err := hook(node, outs); err != nil {
 				return nil, fmt.Errorf("node %q (%s): %w", node.Name, s.Node.OpType, err)
 			}
 		}

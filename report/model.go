@@ -212,6 +212,46 @@ type Layer struct {
 	Float16                  bool     `json:"float16,omitempty"`
 	Float16OverflowFraction  *float64 `json:"float16_overflow_fraction,omitempty"`
 	Float16SubnormalFraction *float64 `json:"float16_subnormal_fraction,omitempty"`
+	Transformer
+}
+
+// Transformer holds the transformer-structure fields of a layer entry
+// (docs/transformers.md); all empty for other layers.
+type Transformer struct {
+	// Structure is "attention-probabilities", "attention (fused)" (the first output
+	// of a fused attention node, which carries its heads' statistics),
+	// "attention-scores" (a tensor on the
+	// way into an attention Softmax, where −inf is a mask), "residual-stream"
+	// or "normalisation (<kind>)".
+	Structure string `json:"structure,omitempty"`
+	// Block is the attention block (0-based in depth order) of an
+	// attention-probabilities entry, or for a residual-stream entry the last
+	// attention block before it (0 before the first).
+	Block *int `json:"block,omitempty"`
+	// ResidualIndex is a residual-stream entry's position in the stream (0-based, depth order).
+	ResidualIndex *int `json:"residual_index,omitempty"`
+	// AttentionEntropy[h] is head h's mean over query rows with K > 1 of
+	// H/ln K, H = −Σ p ln p over the K keys with non-zero probability.
+	AttentionEntropy []float64 `json:"attention_entropy,omitempty"`
+	// AttentionMaxProb[h] is head h's mean over all rows of max_j p_j.
+	AttentionMaxProb []float64 `json:"attention_max_prob,omitempty"`
+	// AttentionOneHotRows[h] counts head h's rows with K = 1 (left out of the entropy).
+	AttentionOneHotRows []int64 `json:"attention_one_hot_rows,omitempty"`
+	// AttentionMask says how masked keys were detected.
+	AttentionMask string `json:"attention_mask,omitempty"`
+	// MaskedValues counts the −inf values of an attention-scores tensor (a
+	// mask, not counted in Nonfinite).
+	MaskedValues int64 `json:"masked_values,omitempty"`
+	// MedianAbs is the median of |x| from a log-spaced histogram (32 bins per
+	// octave); MaxOverMedian = max|x| / MedianAbs.
+	MedianAbs     *float64 `json:"median_abs,omitempty"`
+	MaxOverMedian *float64 `json:"max_over_median,omitempty"`
+	// OutlierDims are the feature indices (last axis) with |x| ≥ 6 at ≥ 6% of
+	// positions (Dettmers et al. 2022).
+	OutlierDims *[]int `json:"outlier_dims,omitempty"`
+	// TokenSimilarity is the mean over sequences of the mean pairwise cosine
+	// similarity of the token vectors (rank-3 tensors (B, S, D)).
+	TokenSimilarity *float64 `json:"token_similarity,omitempty"`
 }
 
 // Histogram has len(Counts) == len(Edges)-1 bins over [Edges[0], Edges[last]];

@@ -75,12 +75,20 @@ var (
 	reviewDeltaHeader  = []string{"node (NEW)", "node (OLD)", "op", "mean OLD → NEW", "std OLD → NEW", "dead % OLD → NEW", "saturated % OLD → NEW", "histogram distance"}
 )
 
-// howTo is the "how to read this" list: each check that ran, its doc's
-// summary and the rest of its doc (the check's doc is the single source).
-func howTo(docs []CheckDoc) []reviewCheck {
+// howTo is the "how to read this" list: each check that reported on this
+// model (a finding of any severity), its doc's summary and the rest of its
+// doc (the check's doc is the single source). Checks with nothing to say
+// about this model are left out: docs/checks.md lists every one.
+func howTo(docs []CheckDoc, findings []Finding) []reviewCheck {
+	used := map[string]bool{}
+	for _, f := range findings {
+		used[f.Check] = true
+	}
 	out := make([]reviewCheck, 0, len(docs))
 	for _, d := range docs {
-		out = append(out, reviewCheck{Name: d.Name, Means: d.Summary, Do: d.Detail})
+		if used[d.Name] {
+			out = append(out, reviewCheck{Name: d.Name, Means: d.Summary, Do: d.Detail})
+		}
 	}
 	return out
 }
@@ -122,7 +130,7 @@ func reviewImageOrder(names []string) []reviewImage {
 
 // buildReview formats r for the review writers.
 func buildReview(r *Report, images []string) *review {
-	rv := &review{Synthetic: r.Input.Source == "synthetic", Caution: Caution, HowTo: howTo(r.Checks),
+	rv := &review{Synthetic: r.Input.Source == "synthetic", Caution: Caution, HowTo: howTo(r.Checks, r.Findings),
 		Coverage: CoverageLine(r), CoverageWarning: CoverageWarning(r), Gaps: CoverageGaps(r)}
 	rv.Images = reviewImageOrder(images)
 	rank := map[string]int{}

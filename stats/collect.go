@@ -288,6 +288,8 @@ type Collector struct {
 	quant *quantSet
 	// half counts float16 range problems of float16 activations (half.go); nil without float16.
 	half *halfSet
+	// tf observes attention and residual-stream tensors (transformer_obs.go); nil without any.
+	tf *tfObserver
 }
 
 // AfterObserved returns a function for probe.Plan.RunRecycled: it passes a
@@ -383,6 +385,9 @@ func (c *Collector) process(j obsJob) {
 		}
 	}()
 	c.observe(j.la, j.t)
+	if c.tf != nil && !j.isInput {
+		c.tf.observe(j.la.output, j.t)
+	}
 	if j.isInput && j.t.Rank() >= 2 {
 		j.la.perChan = perChannel(j.la.perChan, j.t, channelAxis(j.t))
 	}
@@ -489,6 +494,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			la.sameAs, src.keepLast = src, true
 		}
 	}
+	c.tf = newTFObserver(c)
 	return c
 }
 
@@ -562,6 +568,9 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 	if i, ok := c.nodeIdx[n]; ok {
 		c.hits[i]++
 	}
+	if c.tf != nil {
+		c.tf.hook(n, outs)
+	}
 	for i, t := range outs {
 		if t == nil || i >= len(n.Outputs) {
 			continue
@@ -588,6 +597,9 @@ func (c *Collector) AddInputs(batch map[string]*tensor.Tensor) {
 		}
 	}
 	c.batchRows = append(c.batchRows, rows)
+	if c.tf != nil {
+		c.tf.inputs(batch)
+	}
 	for name, t := range batch {
 		c.quant.observe(name, t)
 		c.half.observe(name, t)

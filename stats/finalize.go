@@ -190,6 +190,9 @@ func (c *Collector) Finish(source string) *Collected {
 	}
 	r.Findings = []report.Finding{}
 	r.Ranking = []report.Rank{}
+	if c.tf != nil {
+		c.tf.finish(col)
+	}
 	return col
 }
 

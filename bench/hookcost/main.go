@@ -84,12 +84,19 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	}
 	samples = min(samples, x.Shape[0])
 	item := x.Size() / x.Shape[0]
-	xd := x.F32()
+	// rows lo…hi−1 of the sample as a new tensor (float32 data, or int64 token ids)
+	rows := func(lo, hi int) *tensor.Tensor {
+		shape := append([]int{hi - lo}, x.Shape[1:]...)
+		switch d := x.Data.(type) {
+		case []int64:
+			return tensor.From(append([]int64{}, d[lo*item:hi*item]...), shape...)
+		default:
+			return tensor.From(append([]float32{}, x.F32()[lo*item:hi*item]...), shape...)
+		}
+	}
 	var batches []map[string]*tensor.Tensor
 	for s := 0; s+batch <= samples; s += batch {
-		shape := append([]int{batch}, x.Shape[1:]...)
-		t := tensor.From(append([]float32{}, xd[s*item:(s+batch)*item]...), shape...)
-		batches = append(batches, map[string]*tensor.Tensor{m.Graph.Inputs[0].Name: t})
+		batches = append(batches, map[string]*tensor.Tensor{m.Graph.Inputs[0].Name: rows(s, s+batch)})
 	}
 	if len(batches) == 0 {
 		return fmt.Errorf("fewer than %d samples", batch)
@@ -101,7 +108,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		return err
 	}
 	// the sample check.Check reads: the same n items, cut at the same size
-	sample := check.Sample{Arrays: map[string]*tensor.Tensor{m.Graph.Inputs[0].Name: tensor.From(xd[:n*item], append([]int{n}, x.Shape[1:]...)...)}, Batch: batch}
+	sample := check.Sample{Arrays: map[string]*tensor.Tensor{m.Graph.Inputs[0].Name: rows(0, n)}, Batch: batch}
 	timeIt := func(mode int) (time.Duration, error) {
 		timed := n
 		if len(batches) > 1 {

@@ -2,7 +2,7 @@
 //
 //   node run.js MODEL.onnx INPUT.npy BATCH SAMPLES THREADS REPS
 //
-// Runs the model over the first SAMPLES items of the .npy (float32, C order)
+// Runs the model over the first SAMPLES items of the .npy (float32 or int64, C order)
 // in batches of BATCH with THREADS intra-op threads (sequential execution,
 // all graph optimisations), after one warm-up batch, REPS times; prints the
 // best total time per item in milliseconds as "ort_ms_per_item=X".
@@ -17,13 +17,15 @@ function readNpy(path) {
   const hlen = major === 1 ? buf.readUInt16LE(8) : buf.readUInt32LE(8);
   const start = major === 1 ? 10 : 12;
   const header = buf.toString('latin1', start, start + hlen);
-  if (!/'descr':\s*'<f4'/.test(header) || /'fortran_order':\s*True/.test(header)) {
-    throw new Error(path + ': need little-endian float32 in C order, got ' + header);
+  const i64 = /'descr':\s*'<i8'/.test(header);
+  if ((!/'descr':\s*'<f4'/.test(header) && !i64) || /'fortran_order':\s*True/.test(header)) {
+    throw new Error(path + ': need little-endian float32 or int64 in C order, got ' + header);
   }
   const shape = header.match(/'shape':\s*\(([^)]*)\)/)[1].split(',').filter((s) => s.trim() !== '').map(Number);
   const off = start + hlen;
-  const data = new Float32Array(buf.buffer.slice(buf.byteOffset + off, buf.byteOffset + buf.length));
-  return { shape, data };
+  const bytes = buf.buffer.slice(buf.byteOffset + off, buf.byteOffset + buf.length);
+  const data = i64 ? new BigInt64Array(bytes) : new Float32Array(bytes);
+  return { shape, data, type: i64 ? 'int64' : 'float32' };
 }
 
 async function main() {
@@ -43,7 +45,7 @@ async function main() {
   const batches = [];
   for (let s = 0; s + batch <= samples; s += batch) {
     const d = x.data.slice(s * item, (s + batch) * item);
-    batches.push(new ort.Tensor('float32', d, [batch, ...x.shape.slice(1)]));
+    batches.push(new ort.Tensor(x.type, d, [batch, ...x.shape.slice(1)]));
   }
   await session.run({ [name]: batches[0] }); // warm-up
   let best = Infinity;

@@ -1,0 +1,333 @@
+package stats
+
+import (
+	"math"
+
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// Streaming, mergeable transformer statistics (docs/transformers.md). Every
+// accumulator is a set of sums and counts, so two accumulators of the same
+// tensor merge by adding them field by field (Merge), and batches may be
+// split in any way.
+
+// attnAcc accumulates one attention-probability tensor (…, H, Sq, K), K the
+// last axis, H axis 1 of a rank-4 tensor (one head otherwise). For each query
+// row with K' = #{j: p_j > 0}:
+//
+//	H_row = −Σ_{p_j>0} p_j ln p_j,   e_row = H_row / ln K'   (rows with K' > 1)
+//
+// head h's entropy is Σ e_row / #rows(K'>1) and its max probability
+// Σ max_j p_j / #rows; rows with K' = 1 are counted in oneHot.
+type attnAcc struct {
+	heads  int
+	entSum []float64
+	entN   []int64
+	maxSum []float64
+	rows   []int64
+	oneHot []int64
+	// mask detection: rows with some p = 0, and of them the rows whose zero
+	// keys are exactly j > i (causal), over square (Sq = K) tensors.
+	maskedRows, causalRows, squareRows, totalRows int64
+}
+
+func newAttnAcc(h int) *attnAcc {
+	return &attnAcc{heads: h, entSum: make([]float64, h), entN: make([]int64, h), maxSum: make([]float64, h),
+		rows: make([]int64, h), oneHot: make([]int64, h)}
+}
+
+// observe adds one batch of a (…, Sq, K) tensor whose leading slices are
+// (batch, head) pairs with the head varying fastest: slice n is head
+// n mod heads (rank 4: (B, H, Sq, K); a rank-3 (B·H, Sq, K) tensor as the
+// PyTorch exporter writes it). ln p comes from fastLn (below 1e-9 relative).
+func (a *attnAcc) observe(t *tensor.Tensor) bool {
+	x, ok := t.Data.([]float32)
+	if !ok || t.Rank() < 2 {
+		return false
+	}
+	r := t.Rank()
+	K, Sq := t.Shape[r-1], t.Shape[r-2]
+	if K == 0 || Sq == 0 {
+		return false
+	}
+	h := a.heads
+	rows := len(x) / K
+	for row := 0; row < rows; row++ {
+		p := x[row*K : (row+1)*K]
+		head := (row / Sq) % h
+		i := row % Sq
+		var ent float64
+		var mx float32
+		nz := 0
+		causal := true
+		for j, v := range p {
+			if v > 0 {
+				nz++
+				ent -= float64(v) * fastLn(v)
+				if j > i {
+					causal = false
+				}
+				if v > mx {
+					mx = v
+				}
+			} else if j <= i {
+				causal = false
+			}
+		}
+		a.rows[head]++
+		a.maxSum[head] += float64(mx)
+		switch {
+		case nz > 1:
+			a.entSum[head] += ent / lnInt(nz)
+			a.entN[head]++
+		case nz == 1:
+			a.oneHot[head]++
+		}
+		a.totalRows++
+		if nz < K {
+			a.maskedRows++
+		}
+		if Sq == K {
+			a.squareRows++
+			if causal {
+				a.causalRows++
+			}
+		}
+	}
+	return true
+}
+
+// lnTable[k] = ln(1 + k/1024).
+var lnTable = func() (t [1025]float64) {
+	for k := range t {
+		t[k] = math.Log1p(float64(k) / 1024)
+	}
+	return
+}()
+
+// fastLn is ln v for a positive finite float32: v = 2^e·(1+f), f = k/1024 + δ
+// (0 ≤ δ < 1/1024), ln v = e·ln2 + ln(1+k/1024) + ln(1+u), u = δ/(1+k/1024),
+// ln(1+u) ≈ u − u²/2 + u³/3 (|u| < 1/1024: error below 1e-12 absolute).
+func fastLn(v float32) float64 {
+	b := math.Float32bits(v)
+	e := int(b>>23) - 127
+	m := b & 0x7fffff
+	if e == -127 { // subnormal
+		return math.Log(float64(v))
+	}
+	k := m >> 13
+	fk := 1 + float64(k)/1024
+	d := float64(m&0x1fff) / (1 << 23)
+	u := d / fk
+	return float64(e)*math.Ln2 + lnTable[k] + u*(1-u*(0.5-u/3))
+}
+
+var lnInts = func() (t [4096]float64) {
+	for i := range t {
+		t[i] = math.Log(float64(i))
+	}
+	return
+}()
+
+func lnInt(n int) float64 {
+	if n < len(lnInts) {
+		return lnInts[n]
+	}
+	return math.Log(float64(n))
+}
+
+func (a *attnAcc) merge(b *attnAcc) {
+	for h := range a.entSum {
+		a.entSum[h] += b.entSum[h]
+		a.entN[h] += b.entN[h]
+		a.maxSum[h] += b.maxSum[h]
+		a.rows[h] += b.rows[h]
+		a.oneHot[h] += b.oneHot[h]
+	}
+	a.maskedRows += b.maskedRows
+	a.causalRows += b.causalRows
+	a.squareRows += b.squareRows
+	a.totalRows += b.totalRows
+}
+
+func (a *attnAcc) entropy() []float64 {
+	out := make([]float64, a.heads)
+	for h := range out {
+		out[h] = math.NaN()
+		if a.entN[h] > 0 {
+			out[h] = a.entSum[h] / float64(a.entN[h])
+		}
+	}
+	return out
+}
+
+func (a *attnAcc) maxProb() []float64 {
+	out := make([]float64, a.heads)
+	for h := range out {
+		if a.rows[h] > 0 {
+			out[h] = a.maxSum[h] / float64(a.rows[h])
+		}
+	}
+	return out
+}
+
+// The |x| histogram has one bin per value of the top 14 bits of |x|'s
+// float32 pattern (8 exponent bits, 6 mantissa bits): bin k holds
+// 2^e·(1 + m/64) ≤ |x| < 2^e·(1 + (m+1)/64), so a median read from it (the
+// bin's centre) is within 1/128 ≈ 0.8% of the exact median; zero and
+// subnormals fall in the lowest bins.
+const absBins = 1 << 14
+
+// residAcc accumulates one residual-stream tensor (…, D), D the last axis:
+// max |x|, a log-spaced histogram of |x| (median), per feature d the number
+// of positions with |x_d| ≥ 6, and for rank-3 (B, S, D) tensors per
+// sequence the mean pairwise cosine similarity of its S token vectors,
+//
+//	sim = (|Σ_i x̂_i|² − S') / (S'(S'−1)),  x̂_i = x_i/|x_i| over the S' ≥ 2 non-zero tokens.
+type residAcc struct {
+	dim       int
+	maxAbs    float64
+	n         int64
+	hist      []int64
+	over6     []int64
+	positions int64
+	simSum    float64
+	simN      int64
+}
+
+func newResidAcc(d int) *residAcc {
+	return &residAcc{dim: d, hist: make([]int64, absBins), over6: make([]int64, d)}
+}
+
+func (r *residAcc) observe(t *tensor.Tensor) bool {
+	x, ok := t.Data.([]float32)
+	if !ok || t.Rank() < 2 || t.Shape[t.Rank()-1] != r.dim || r.dim == 0 {
+		return false
+	}
+	D := r.dim
+	var mx uint32
+	hist := r.hist
+	for i := 0; i+D <= len(x); i += D {
+		row, over := x[i:i+D], r.over6[:D]
+		for d, v := range row {
+			b := math.Float32bits(v) & 0x7fffffff
+			if b >= 0x7f800000 {
+				continue // NaN, ±Inf
+			}
+			hist[b>>17]++
+			if b > mx {
+				mx = b
+			}
+			if b >= six32 {
+				over[d]++
+			}
+		}
+	}
+	var nan int64
+	for _, v := range x {
+		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
+			nan++
+		}
+	}
+	r.n += int64(len(x)) - nan
+	r.maxAbs = math.Max(r.maxAbs, float64(math.Float32frombits(mx)))
+	r.positions += int64(len(x) / D)
+	if t.Rank() == 3 {
+		S := t.Shape[1]
+		u := make([]float64, D)
+		for b := 0; b < t.Shape[0]; b++ {
+			clear(u)
+			cnt := 0
+			for s := 0; s < S; s++ {
+				row := x[(b*S+s)*D : (b*S+s+1)*D]
+				var q float64
+				for _, v := range row {
+					q += float64(v) * float64(v)
+				}
+				if q == 0 || math.IsNaN(q) || math.IsInf(q, 0) {
+					continue
+				}
+				inv := 1 / math.Sqrt(q)
+				for d, v := range row {
+					u[d] += float64(v) * inv
+				}
+				cnt++
+			}
+			if cnt < 2 {
+				continue
+			}
+			var uu float64
+			for _, v := range u {
+				uu += v * v
+			}
+			r.simSum += (uu - float64(cnt)) / float64(cnt*(cnt-1))
+			r.simN++
+		}
+	}
+	return true
+}
+
+func (r *residAcc) merge(b *residAcc) {
+	r.maxAbs = math.Max(r.maxAbs, b.maxAbs)
+	r.n += b.n
+	for i := range r.hist {
+		r.hist[i] += b.hist[i]
+	}
+	for i := range r.over6 {
+		r.over6[i] += b.over6[i]
+	}
+	r.positions += b.positions
+	r.simSum += b.simSum
+	r.simN += b.simN
+}
+
+// median is the centre of the bin holding the ⌈n/2⌉-th smallest |x| (0 in the zero bin).
+func (r *residAcc) median() float64 {
+	if r.n == 0 {
+		return math.NaN()
+	}
+	half := (r.n + 1) / 2
+	var c int64
+	for k, v := range r.hist {
+		c += v
+		if c >= half {
+			if k == 0 {
+				return 0
+			}
+			lo := float64(math.Float32frombits(uint32(k) << 17))
+			hi := float64(math.Float32frombits(uint32(k+1) << 17))
+			return (lo + hi) / 2
+		}
+	}
+	return r.maxAbs
+}
+
+// six32 is the float32 bit pattern of 6: |x| ≥ 6 ⇔ bits(|x|) ≥ six32.
+var six32 = math.Float32bits(6)
+
+// outlierDims lists the features with |x| ≥ 6 at ≥ share of positions.
+func (r *residAcc) outlierDims(share float64) []int {
+	out := []int{}
+	if r.positions == 0 {
+		return out
+	}
+	for d, c := range r.over6 {
+		if float64(c)/float64(r.positions) >= share {
+			out = append(out, d)
+		}
+	}
+	return out
+}
+
+// scoreAcc counts the −inf values of an attention-scores tensor (the mask).
+type scoreAcc struct{ negInf int64 }
+
+func (s *scoreAcc) observe(t *tensor.Tensor) {
+	if x, ok := t.Data.([]float32); ok {
+		for _, v := range x {
+			if math.IsInf(float64(v), -1) {
+				s.negInf++
+			}
+		}
+	}
+}
