@@ -61,6 +61,7 @@ func readmeChecksTable(t *testing.T) {
 	}
 	generated(t, path, string(have[:i])+b.String()+string(have[j:]), "go test ./stats -run ChecksDoc -update")
 }
+
 // generated compares the generated text want with the file at path: with
 // -update it rewrites the file, otherwise a difference fails the test with
 // the command that regenerates it.
@@ -78,4 +79,3 @@ func generated(t *testing.T, path, want, how string) {
 	}
 	t.Errorf("%s is stale: rerun `%s`", path, how)
 }
-
