@@ -47,25 +47,9 @@ const mergeUsage = "vitals merge FILE... [--partial OUT | --format FORMAT --out 
 // cmdMerge combines partial states (check --shard ... --partial) into one
 // report, or with --partial into one state for a later merge.
 func cmdMerge(args []string, stdout, stderr io.Writer) (int, error) {
-	c := &common{fs: flag.NewFlagSet("merge", flag.ContinueOnError)}
+	c, mf := mergeFlags(stderr)
 	fs := c.fs
-	fs.SetOutput(stderr)
-	var allowGaps bool
-	var modelPath string
-	fs.StringVar(&c.partial, "partial", "", "write the merged state to OUT (for a later merge) instead of a report")
-	fs.BoolVar(&allowGaps, "allow-gaps", false, "merge even when samples are missing; the report says which")
-	fs.StringVar(&modelPath, "model", "", "the model file, when it is no longer at the path the partials recorded (its SHA-256 must match)")
-	fs.StringVar(&c.out, "out", "", "write report.json, the PNG plots and, for --format markdown or html, report.md or report.html into this folder")
-	fs.StringVar(&c.format, "format", "text", "report format (as for vitals check)")
-	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
-	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
-	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10")
-	fs.StringVar(&c.maxMem, "max-memory", "", "memory budget in bytes for loading the model (default: half the physical memory; 0: none)")
-	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: "+mergeUsage)
-		fs.PrintDefaults()
-	}
+	allowGaps, modelPath := &mf.allowGaps, &mf.model
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
 			return 0, nil
@@ -94,17 +78,17 @@ func cmdMerge(args []string, stdout, stderr io.Writer) (int, error) {
 		}
 		states = append(states, st)
 	}
-	if modelPath == "" {
-		modelPath = states[0].ModelPath
+	if *modelPath == "" {
+		*modelPath = states[0].ModelPath
 	}
-	if _, err := os.Stat(modelPath); err != nil {
+	if _, err := os.Stat(*modelPath); err != nil {
 		return 2, userErr("merge needs the model the partials were made with: %v (give --model PATH)", err)
 	}
-	ms, err := loadModels(c, modelPath)
+	ms, err := loadModels(c, *modelPath)
 	if err != nil {
 		return 2, err
 	}
-	merged, err := check.Merge(ms[0], states, fs.Args(), check.MergeOptions{AllowGaps: allowGaps})
+	merged, err := check.Merge(ms[0], states, fs.Args(), check.MergeOptions{AllowGaps: *allowGaps})
 	if err != nil {
 		return 2, inputErr{err}
 	}
@@ -124,4 +108,33 @@ func cmdMerge(args []string, stdout, stderr io.Writer) (int, error) {
 		return 2, err
 	}
 	return exitCode(r, c.failOn), nil
+}
+
+// mergeOnly are the flags merge has beyond the report flags of common.
+type mergeOnly struct {
+	allowGaps bool
+	model     string
+}
+
+// mergeFlags is merge's flag set.
+func mergeFlags(stderr io.Writer) (*common, *mergeOnly) {
+	c := &common{fs: flag.NewFlagSet("merge", flag.ContinueOnError)}
+	mf := &mergeOnly{}
+	fs := c.fs
+	fs.SetOutput(stderr)
+	fs.StringVar(&c.partial, "partial", "", "write the merged state to OUT (for a later merge) instead of a report")
+	fs.BoolVar(&mf.allowGaps, "allow-gaps", false, "merge even when samples are missing; the report says which")
+	fs.StringVar(&mf.model, "model", "", "the model file, when it is no longer at the path the partials recorded (its SHA-256 must match)")
+	fs.StringVar(&c.out, "out", "", "write report.json, the PNG plots and, for --format markdown or html, report.md or report.html into this folder")
+	fs.StringVar(&c.format, "format", "text", "report format (as for vitals check)")
+	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
+	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
+	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10")
+	fs.StringVar(&c.maxMem, "max-memory", "", "memory budget in bytes for loading the model (default: half the physical memory; 0: none)")
+	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "Usage: "+mergeUsage)
+		fs.PrintDefaults()
+	}
+	return c, mf
 }
