@@ -329,6 +329,15 @@ func short(s string) string {
 // Report runs the health checks on a (merged) state and returns the report
 // one run over its samples would have given. model must be the state's.
 func (s *State) Report(model *Model, o Options) (*report.Report, error) {
+	col, err := s.collected(model, o)
+	if err != nil {
+		return nil, err
+	}
+	return col.Report, nil
+}
+
+// collected rebuilds the statistics of a state and runs the checks on them.
+func (s *State) collected(model *Model, o Options) (*stats.Collected, error) {
 	if err := o.Validate(); err != nil {
 		return nil, err
 	}
@@ -370,7 +379,33 @@ func (s *State) Report(model *Model, o Options) (*report.Report, error) {
 	if s.Gaps {
 		r.Input.Note = fmt.Sprintf("merged with samples missing (--allow-gaps): %d of %d samples, ranges %s", s.Samples(), s.Total, rangesText(s.Ranges))
 	}
-	return r, nil
+	return col, nil
+}
+
+// CompareStates is Compare for two states (each merged from the shards of
+// one model over the same sample): the same per-layer shifts, weight
+// changes and compare findings as Compare over the whole sample. What
+// needs both models' outputs for the same batch side by side is left out:
+// the output agreement (top-1, KL, max |Δ|) and the SQNR of a quantized
+// model (the report shows the agreement as not measured). The states must have the
+// same options, input files, sample size and batch size.
+func CompareStates(old, new *Model, olds, news *State, o Options) (*report.Report, error) {
+	if olds.Options != news.Options || strings.Join(olds.Inputs, "; ") != strings.Join(news.Inputs, "; ") || olds.Total != news.Total || olds.Batch != news.Batch {
+		return nil, fmt.Errorf("OLD and NEW states are of different samples or options: compare needs both models run on the same sample")
+	}
+	if olds.Version != news.Version {
+		return nil, fmt.Errorf("OLD and NEW states come from different vitals versions (%s, %s)", olds.Version, news.Version)
+	}
+	oldCol, err := olds.collected(old, o)
+	if err != nil {
+		return nil, fmt.Errorf("OLD: %w", err)
+	}
+	newCol, err := news.collected(new, o)
+	if err != nil {
+		return nil, fmt.Errorf("NEW: %w", err)
+	}
+	stats.Compare(oldCol, newCol, oldCol.Graph, newCol.Graph, nil)
+	return newCol.Report, nil
 }
 
 func rangesText(rs []Range) string {

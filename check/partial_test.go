@@ -259,3 +259,42 @@ func TestMergeRefusesMismatch(t *testing.T) {
 		t.Errorf("too many shards: %v", err)
 	}
 }
+
+// Compare of two merged states (each model's shards merged) equals Compare
+// over the whole sample, except the output agreement, which needs both
+// models' outputs side by side and is not measured from states.
+func TestCompareStatesMatchesCompare(t *testing.T) {
+	old, new := load(t, "../testdata/demo/spindle-healthy.onnx"), load(t, demoModel)
+	s := check.Sample{Data: []string{demoData}, Labels: "../testdata/demo/conditions.npy", Batch: 64}
+	want, err := check.Compare(context.Background(), old, new, s, check.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want.Compare == nil || want.Compare.Agreement == nil {
+		t.Fatal("Compare measured no agreement")
+	}
+	want.Compare.Agreement = nil
+	merged := func(m *check.Model, n int) *check.State {
+		st, err := check.Merge(m, partials(t, m, s, n), nil, check.MergeOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return st
+	}
+	got, err := check.CompareStates(old, new, merged(old, 3), merged(new, 7), check.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sameReport(t, want, got)
+	s2 := s
+	s2.Samples = 1000
+	if _, err := check.CompareStates(old, new, merged(old, 3), func() *check.State {
+		st, err := check.Merge(new, partials(t, new, s2, 2), nil, check.MergeOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return st
+	}(), check.Options{}); err == nil || !strings.Contains(err.Error(), "different samples") {
+		t.Errorf("different samples: %v", err)
+	}
+}

@@ -40,6 +40,7 @@ Usage:
   vitals compare OLD.onnx NEW.onnx --data PATH [flags]
   vitals check MODEL.onnx --data PATH --batch B --shard K/N --partial FILE
   vitals merge FILE... [--partial OUT | --format ... --out DIR] [flags]
+  vitals compare OLD.part NEW.part [flags]   (two merged partial states)
   vitals ops [--model FILE]
 
 Run "vitals check --help" for the flags. Checks:

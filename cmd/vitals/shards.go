@@ -138,3 +138,41 @@ func mergeFlags(stderr io.Writer) (*common, *mergeOnly) {
 	}
 	return c, mf
 }
+
+// isState reports whether path is a partial state file (by its magic bytes).
+func isState(path string) bool {
+	f, err := os.Open(path)
+	if err != nil {
+		return false
+	}
+	defer f.Close()
+	b := make([]byte, 8)
+	n, _ := io.ReadFull(f, b)
+	return n == 8 && string(b) == "VTLSTATE"
+}
+
+// compareStates is `vitals compare OLD.part NEW.part`: two merged states,
+// each with the model it recorded.
+func compareStates(c *common, th map[string]float64, stdout io.Writer) (int, error) {
+	var states []*check.State
+	for _, p := range []string{c.fs.Arg(0), c.fs.Arg(1)} {
+		st, err := check.ReadState(p)
+		if err != nil {
+			return 2, inputErr{fmt.Errorf("compare takes two models or two partial states: %w", err)}
+		}
+		states = append(states, st)
+	}
+	ms, err := loadModels(c, states[0].ModelPath, states[1].ModelPath)
+	if err != nil {
+		return 2, err
+	}
+	r, err := check.CompareStates(ms[0], ms[1], states[0], states[1], check.Options{Thresholds: th})
+	if err != nil {
+		return 2, inputErr{err}
+	}
+	r.Version = version
+	if err := emit(r, c, stdout); err != nil {
+		return 2, err
+	}
+	return exitCode(r, c.failOn), nil
+}

@@ -162,6 +162,26 @@ func TestShardProcessesMergeToSingleRun(t *testing.T) {
 	if msg := string(run(2, "merge", p0, p0)); !strings.Contains(msg, "overlaps") {
 		t.Errorf("overlap: %s", msg)
 	}
+	// compare of two merged states: the healthy model's 3 shards against the
+	// overdriven model's 7, each merged first
+	var hp []string
+	for k := 0; k < 3; k++ {
+		p := filepath.Join(dir, fmt.Sprintf("h%d.part", k))
+		run(0, "check", "../../testdata/demo/spindle-healthy.onnx", "--data", demoData, "--labels", demoLabels, "--batch", "64", "--shard", fmt.Sprintf("%d/3", k), "--partial", p)
+		hp = append(hp, p)
+	}
+	oldState, newState := filepath.Join(dir, "old.part"), filepath.Join(dir, "new.part")
+	run(0, append([]string{"merge", "--partial", oldState}, hp...)...)
+	var n7 []string
+	for k := 0; k < 7; k++ {
+		n7 = append(n7, filepath.Join(dir, fmt.Sprintf("n7-%d.part", k)))
+	}
+	run(0, append([]string{"merge", "--partial", newState}, n7...)...)
+	cmp := decodeJSON(t, run(1, "compare", oldState, newState, "--format", "json")).(map[string]any)
+	layers := cmp["compare"].(map[string]any)["layers"].([]any)
+	if len(layers) != 7 || cmp["compare"].(map[string]any)["agreement"] != nil {
+		t.Errorf("compare of states: %d matched layers (want 7), agreement %v (want none)", len(layers), cmp["compare"].(map[string]any)["agreement"])
+	}
 	bad := filepath.Join(dir, "bad.part")
 	os.WriteFile(bad, []byte("not a partial"), 0o644)
 	if msg := string(run(2, "merge", bad)); !strings.Contains(msg, bad) {
