@@ -13,6 +13,7 @@ import (
 	"sort"
 	"strings"
 
+	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
 )
@@ -130,13 +131,21 @@ func Partial(ctx context.Context, model *Model, sample Sample, shard Shard, o Op
 	return st, nil
 }
 
-// restrict makes the feed read samples [start, end) only: the samples
-// before start are read and dropped (sources read sequentially).
+// restrict makes the feed read samples [start, end) only: a source that
+// can (loader.Skipper: .npy files seek, image folders skip files) passes
+// over the samples before start, others read and drop them.
 func (f *sampleFeed) restrict(start, end int) error {
 	for _, name := range f.order {
+		src := f.sources[name]
+		if sk, ok := src.(loader.Skipper); ok && start > 0 {
+			if err := sk.Skip(start); err != nil {
+				return fmt.Errorf("input %q: skipping to sample %d: %v", name, start, err)
+			}
+			continue
+		}
 		for left := start; left > 0; {
 			k := min(left, 256)
-			t, err := f.sources[name].Next(k)
+			t, err := src.Next(k)
 			if err != nil {
 				return fmt.Errorf("input %q: skipping to sample %d: %v", name, start, err)
 			}

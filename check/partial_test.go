@@ -36,10 +36,15 @@ func sameReport(t *testing.T, want, got *report.Report) {
 			t.Fatal(err)
 		}
 	}
+	maxRel = 0
 	if err := sameJSON("", a, b); err != nil {
 		t.Fatal(err)
 	}
+	t.Logf("largest relative difference of a float: %.3g", maxRel)
 }
+
+// maxRel is the largest relative difference sameJSON let through.
+var maxRel float64
 
 func sameJSON(path string, a, b any) error {
 	switch x := a.(type) {
@@ -78,6 +83,7 @@ func sameJSON(path string, a, b any) error {
 		}
 		fx, _ := x.Float64()
 		fy, _ := y.Float64()
+		maxRel = math.Max(maxRel, math.Abs(fx-fy)/math.Max(math.Abs(fx), math.Abs(fy)))
 		if math.Abs(fx-fy) > 1e-12*math.Max(math.Abs(fx), math.Abs(fy)) {
 			return fmt.Errorf("%s: %v vs %v (relative %.3g)", path, x, y, math.Abs(fx-fy)/math.Max(math.Abs(fx), math.Abs(fy)))
 		}
