@@ -10,12 +10,15 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"reflect"
 	"sort"
 	"strings"
+	"unsafe"
 
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Shard is the K-th (from 0) of N contiguous parts of a sample. The sample
@@ -87,11 +90,11 @@ func Partial(ctx context.Context, model *Model, sample Sample, shard Shard, o Op
 	if len(sample.Carry) > 0 {
 		return nil, fmt.Errorf("--shard: --carry feeds each sample's output to the next, across any cut; run it whole")
 	}
-	hash, err := fileHash(model.Path())
+	hash, err := modelHash(model)
 	if err != nil {
 		return nil, err
 	}
-	feed, err := openFeed(model.graph(), sample, nil)
+	feed, err := openFeed(model.graph(), sample, &tensor.Arena{Budget: o.MemoryBudget})
 	if err != nil {
 		return nil, err
 	}
@@ -194,7 +197,11 @@ func inputFiles(f *sampleFeed) ([]string, error) {
 	return out, nil
 }
 
-func fileHash(path string) (string, error) {
+// modelHash identifies a model: SHA-256 of its file, then of every
+// initializer of the main graph (name, type, shape, values) in name order,
+// which covers weights kept in external data files beside it.
+func modelHash(m *Model) (string, error) {
+	path := m.Path()
 	f, err := os.Open(path)
 	if err != nil {
 		return "", fmt.Errorf("hashing model %q: %w", path, err)
@@ -203,6 +210,26 @@ func fileHash(path string) (string, error) {
 	h := sha256.New()
 	if _, err := io.Copy(h, f); err != nil {
 		return "", fmt.Errorf("hashing model %q: %w", path, err)
+	}
+	g := m.graph()
+	names := make([]string, 0, len(g.Initializers))
+	for n := range g.Initializers {
+		names = append(names, n)
+	}
+	sort.Strings(names)
+	for _, n := range names {
+		t := g.Initializers[n]
+		fmt.Fprintf(h, "\x00%s\x00%v%v\x00", n, t.DType, t.Shape)
+		if ss, ok := t.Data.([]string); ok {
+			for _, x := range ss {
+				fmt.Fprintf(h, "%d:%s", len(x), x)
+			}
+			continue
+		}
+		v := reflect.ValueOf(t.Data)
+		if v.Kind() == reflect.Slice && v.Len() > 0 {
+			h.Write(unsafe.Slice((*byte)(v.UnsafePointer()), v.Len()*int(v.Type().Elem().Size())))
+		}
 	}
 	return hex.EncodeToString(h.Sum(nil)), nil
 }
@@ -241,7 +268,7 @@ func Merge(model *Model, states []*State, names []string, mo MergeOptions) (*Sta
 			return nil, fmt.Errorf("%s and %s come from different runs: %d samples in batches of %d vs %d in batches of %d", name(0), name(i), first.Total, first.Batch, s.Total, s.Batch)
 		}
 	}
-	if h, err := fileHash(model.Path()); err != nil {
+	if h, err := modelHash(model); err != nil {
 		return nil, err
 	} else if h != first.ModelHash {
 		return nil, fmt.Errorf("model %q is not the model %s was made with (%s): its SHA-256 differs", model.Path(), name(0), first.ModelPath)
@@ -350,7 +377,7 @@ func (s *State) collected(model *Model, o Options) (*stats.Collected, error) {
 	if err := o.Validate(); err != nil {
 		return nil, err
 	}
-	if h, err := fileHash(model.Path()); err != nil {
+	if h, err := modelHash(model); err != nil {
 		return nil, err
 	} else if h != s.ModelHash {
 		return nil, fmt.Errorf("model %q is not the model the partial was made with (%s): its SHA-256 differs", model.Path(), s.ModelPath)

@@ -11,7 +11,10 @@ import (
 	"strings"
 	"testing"
 
+	"google.golang.org/protobuf/proto"
+
 	"github.com/vitals-health/vitals/check"
+	"github.com/vitals-health/vitals/loader/onnxpb"
 	"github.com/vitals-health/vitals/report"
 )
 
@@ -302,5 +305,56 @@ func TestCompareStatesMatchesCompare(t *testing.T) {
 		return st
 	}(), check.Options{}); err == nil || !strings.Contains(err.Error(), "different samples") {
 		t.Errorf("different samples: %v", err)
+	}
+}
+
+// A model whose weights live in an external data file: a partial made with
+// one version of the weights is refused against the model with the file
+// changed (the .onnx file itself unchanged), naming the model.
+func TestMergeRefusesChangedExternalWeights(t *testing.T) {
+	b, err := os.ReadFile(demoModel)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var mp onnxpb.ModelProto
+	if err := proto.Unmarshal(b, &mp); err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	var raw []byte
+	for _, tp := range mp.Graph.Initializer {
+		if tp.GetName() == "fc2.weight" {
+			raw = tp.RawData
+			if raw == nil {
+				t.Skip("fc2.weight is not stored as raw data")
+			}
+			tp.RawData = nil
+			tp.DataLocation = onnxpb.TensorProto_EXTERNAL.Enum()
+			tp.ExternalData = []*onnxpb.StringStringEntryProto{{Key: proto.String("location"), Value: proto.String("weights.bin")},
+				{Key: proto.String("offset"), Value: proto.String("0")}, {Key: proto.String("length"), Value: proto.String(fmt.Sprint(len(raw)))}}
+		}
+	}
+	if raw == nil {
+		t.Fatal("no fc2.weight in the demo model")
+	}
+	out, err := proto.Marshal(&mp)
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(dir, "m.onnx")
+	os.WriteFile(path, out, 0o644)
+	os.WriteFile(filepath.Join(dir, "weights.bin"), raw, 0o644)
+	m := load(t, path)
+	s := check.Sample{Data: []string{demoData}, Batch: 64}
+	parts := partials(t, m, s, 2)
+	if _, err := check.Merge(m, parts, nil, check.MergeOptions{}); err != nil {
+		t.Fatalf("same weights: %v", err)
+	}
+	changed := append([]byte(nil), raw...)
+	changed[0] ^= 0x40
+	os.WriteFile(filepath.Join(dir, "weights.bin"), changed, 0o644)
+	m2 := load(t, path)
+	if _, err := check.Merge(m2, parts, nil, check.MergeOptions{}); err == nil || !strings.Contains(err.Error(), "SHA-256 differs") || !strings.Contains(err.Error(), path) {
+		t.Errorf("changed external weights: %v", err)
 	}
 }
