@@ -62,8 +62,22 @@ func annotateInputs(r *report.Report, f *sampleFeed) {
 // arena: the memory budget of o and a buffer pool that lives as long as
 // the run.
 func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each func(outs map[string]*tensor.Tensor, k int) error) (*stats.Collected, error) {
-	if err := ctx.Err(); err != nil {
+	c, src, err := collect(ctx, m, feed, o, each)
+	if err != nil {
 		return nil, err
+	}
+	col := c.Finish(src)
+	if err := stats.Run(col, stats.Checks, o.Thresholds); err != nil {
+		return nil, err
+	}
+	return col, nil
+}
+
+// collect runs one model over the feed and returns the collector holding
+// its statistics, and the sample's source ("file" or "synthetic").
+func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each func(outs map[string]*tensor.Tensor, k int) error) (*stats.Collector, string, error) {
+	if err := ctx.Err(); err != nil {
+		return nil, "", err
 	}
 	c := stats.NewCollector(m.model, m.plan)
 	start := time.Now()
@@ -160,13 +174,13 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 	for {
 		select {
 		case <-done:
-			return nil, ctx.Err()
+			return nil, "", ctx.Err()
 		default:
 		}
 		f := <-ahead
 		batch, labels, err := f.batch, f.labels, f.err
 		if err != nil {
-			return nil, err
+			return nil, "", err
 		}
 		if batch == nil {
 			break
@@ -176,17 +190,17 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		c.AddInputs(batch)
 		outs, released, err := m.plan.RunRecycled(arena, feed.runInputs(batch, carried), hook, dead)
 		if ctx.Err() != nil && errors.Is(err, ctx.Err()) {
-			return nil, ctx.Err()
+			return nil, "", ctx.Err()
 		}
 		if err != nil {
-			return nil, fmt.Errorf("running %q on samples %d–%d: %w", m.Path(), samples-k, samples-1, err)
+			return nil, "", fmt.Errorf("running %q on samples %d–%d: %w", m.Path(), samples-k, samples-1, err)
 		}
 		c.AddOutputs(outs, labels)
 		c.Samples += k
 		for _, pair := range feed.carry {
 			t := outs[pair[0]]
 			if want := feed.consts[pair[1]].at(k); !tensor.SameShape(t.Shape, want.Shape) || t.DType != want.DType {
-				return nil, fmt.Errorf("--carry %s=%s: output %q is %v%v, input %q takes %v%v", pair[0], pair[1], pair[0], t.DType, t.Shape, pair[1], want.DType, want.Shape)
+				return nil, "", fmt.Errorf("--carry %s=%s: output %q is %v%v, input %q takes %v%v", pair[0], pair[1], pair[0], t.DType, t.Shape, pair[1], want.DType, want.Shape)
 			}
 			carried[pair[1]] = t.Clone() // a copy: the output's storage may be reused
 		}
@@ -197,12 +211,12 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 		if each != nil {
 			if err := each(outs, k); err != nil {
-				return nil, err
+				return nil, "", err
 			}
 		}
 		// the batch's released activations become the next batch's storage
 		if err := c.Sync(); err != nil {
-			return nil, err
+			return nil, "", err
 		}
 		keep := make([]*tensor.Tensor, 0, len(outs)+len(batch))
 		for _, t := range outs {
@@ -229,23 +243,19 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 	}
 	if err := c.Wait(); err != nil {
-		return nil, err
+		return nil, "", err
 	}
 	if c.Samples == 0 && feed.dropped > 0 {
-		return nil, fmt.Errorf("the model fixes the batch size to %d, and the sample has only %d samples", feed.fixed, feed.dropped)
+		return nil, "", fmt.Errorf("the model fixes the batch size to %d, and the sample has only %d samples", feed.fixed, feed.dropped)
 	}
 	if c.Samples == 0 {
-		return nil, fmt.Errorf("the sample is empty: no batches to run")
+		return nil, "", fmt.Errorf("the sample is empty: no batches to run")
 	}
 	src := "file"
 	if feed.synthetic {
 		src = "synthetic"
 	}
-	col := c.Finish(src)
-	if err := stats.Run(col, stats.Checks, o.Thresholds); err != nil {
-		return nil, err
-	}
-	return col, nil
+	return c, src, nil
 }
 
 func batchLen(b map[string]*tensor.Tensor) int {

@@ -87,6 +87,9 @@ type Input struct {
 	Source   string      `json:"source"` // "file" or "synthetic"
 	Samples  int         `json:"samples"`
 	PerInput []InputStat `json:"per_input"`
+	// Note says how the sample was cut short, e.g. a merge of partial
+	// states that leaves samples out (vitals merge --allow-gaps).
+	Note string `json:"note,omitempty"`
 }
 
 // InputStat is the moments of one model input over the sample, overall and per channel.

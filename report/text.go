@@ -32,7 +32,11 @@ func SourceLine(r *Report) string {
 		}
 		names = append(names, n)
 	}
-	return fmt.Sprintf("Statistics over %d samples (%s).", r.Input.Samples, strings.Join(names, "; "))
+	line := fmt.Sprintf("Statistics over %d samples (%s).", r.Input.Samples, strings.Join(names, "; "))
+	if r.Input.Note != "" {
+		line += " NOTE: " + r.Input.Note + "."
+	}
+	return line
 }
 
 func colour(on bool, s Severity, text string) string {

@@ -203,6 +203,12 @@ type layerAcc struct {
 	// deadTrail is the number of units not yet seen positive after each
 	// batch (ReLU family), for the dead count at the half-way point.
 	deadTrail []int32
+	// firstObs is, for each unit, the index into deadTrail of the
+	// observation in which the unit was first > 0 (−1: not yet); it lets
+	// partial states of consecutive sample ranges rebuild the trail of the
+	// whole sample (partial.go).
+	firstObs []int32
+	pendBuf  []int32
 	// unitLo and unitHi are each unit's smallest and largest value over
 	// the sample (saturating activations: a gate channel that never leaves
 	// a bound is constant).
@@ -692,7 +698,9 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 			inner *= d
 		}
 		if la.act.kind == ActReLU {
+			la.pendBuf = append(la.pendBuf[:0], la.notYet...)
 			la.notYet = everPositivePending(la.everPos, la.notYet, x, units, inner)
+			la.markFirst(la.pendBuf, int32(len(la.deadTrail)))
 			la.deadTrail = append(la.deadTrail, int32(len(la.notYet)))
 		}
 		// one value per unit and sample ([N, C], [N, C, 1, 1]: the shape of

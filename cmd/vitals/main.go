@@ -3,6 +3,8 @@
 //
 //	vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]
 //	vitals compare OLD.onnx NEW.onnx --data PATH [flags]
+//	vitals check MODEL.onnx --data PATH --batch B --shard K/N --partial FILE
+//	vitals merge FILE... [--partial OUT] [flags]
 //	vitals ops [--model FILE]
 //
 // Exit codes: 0 healthy (or findings below --fail-on), 1 findings at or above
@@ -36,6 +38,9 @@ const usage = `vitals: layer-by-layer health of a trained ONNX model on real dat
 Usage:
   vitals check MODEL.onnx [--data PATH | --data INPUT=PATH ...] [flags]
   vitals compare OLD.onnx NEW.onnx --data PATH [flags]
+  vitals check MODEL.onnx --data PATH --batch B --shard K/N --partial FILE
+  vitals merge FILE... [--partial OUT | --format ... --out DIR] [flags]
+  vitals compare OLD.part NEW.part [flags]   (two merged partial states)
   vitals ops [--model FILE]
 
 Run "vitals check --help" for the flags. Checks:
@@ -98,13 +103,15 @@ func run(args []string, stdout, stderr io.Writer) (code int) {
 		code, err = cmdCheck(args[1:], stdout, stderr)
 	case "compare":
 		code, err = cmdCompare(args[1:], stdout, stderr)
+	case "merge":
+		code, err = cmdMerge(args[1:], stdout, stderr)
 	case "ops":
 		code, err = cmdOps(args[1:], stdout, stderr)
 	case "version", "--version":
 		fmt.Fprintln(stdout, "vitals", version)
 		return 0
 	default:
-		fmt.Fprintf(stderr, "vitals: unknown command %q (want check, compare or ops)\n", args[0])
+		fmt.Fprintf(stderr, "vitals: unknown command %q (want check, compare, merge or ops)\n", args[0])
 		return 2
 	}
 	if err != nil {
@@ -142,6 +149,8 @@ type common struct {
 	debug   bool
 	maxMem  string
 	budget  int64 // --max-memory in bytes, after validate
+	// check only: --shard K/N and --partial FILE (shards.go)
+	shard, partial string
 }
 
 // inputErr marks errors caused by the user's files or flags (exit code 2).
@@ -172,6 +181,10 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.Int64Var(&c.seed, "seed", 1, "seed of the synthetic Gaussian input")
 	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
 	fs.StringVar(&c.maxMem, "max-memory", "", "memory budget in bytes, e.g. 512M or 8G (default: half the physical memory; 0: none); tensors that would exceed it are refused with an error")
+	if name == "check" {
+		fs.StringVar(&c.shard, "shard", "", "K/N: run only the K-th (from 0) of N contiguous parts of the sample, cut at batch boundaries (needs --batch and --partial)")
+		fs.StringVar(&c.partial, "partial", "", "write the mergeable state of the run to FILE instead of a report (vitals merge combines such files)")
+	}
 	return c
 }
 
@@ -307,6 +320,9 @@ func cmdCheck(args []string, stdout, stderr io.Writer) (int, error) {
 	m, err := loadModels(c, c.fs.Arg(0))
 	if err != nil {
 		return 2, err
+	}
+	if c.partial != "" || c.shard != "" {
+		return checkPartial(ctx, c, m[0], o, th, stderr)
 	}
 	pg := newProgress(stderr)
 	r, err := check.Check(ctx, m[0], o, c.options(th, pg))
