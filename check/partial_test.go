@@ -119,6 +119,9 @@ var shardCases = []shardCase{
 	{"loop_rnn", "../testdata/controlflow/loop_rnn.onnx", "../testdata/controlflow/loop_rnn.input.npy", 3},
 	{"qop", "../testdata/quant/qop.onnx", "", 4},
 	{"fp16", "../testdata/quant/fp16.onnx", "", 5},
+	// attention entropy, residual-stream histograms and outlier counts (partTransformer)
+	{"decoder_causal", "../testdata/transformer/decoder_causal.onnx", "../testdata/transformer/decoder_causal.input.npy", 5},
+	{"massive_activation", "../testdata/transformer/massive_activation.onnx", "../testdata/transformer/massive_activation.input.npy", 4},
 }
 
 // partials runs every shard of n in process and returns their states.

@@ -36,7 +36,7 @@ type Part interface {
 
 // Parts lists every kind of accumulator a partial state carries, in file
 // order. A branch adding an accumulator adds one entry here.
-var Parts = []Part{partBatches{}, partLayers{}, partInputs{}, partOutput{}, partQuant{}, partHalf{}, partCoverage{}}
+var Parts = []Part{partBatches{}, partLayers{}, partInputs{}, partOutput{}, partQuant{}, partHalf{}, partCoverage{}, partTransformer{}}
 
 // SaveState writes every Part's section of c, in Parts order: a count,
 // then per section its name and its length-prefixed bytes.
