@@ -99,6 +99,8 @@ var reviewFigureCaptions = []struct{ prefix, caption string }{
 	{"unit-health", "Dead and saturated units per activation layer"},
 	{"histograms-", "Per-layer activation histograms, worst-ranked first"},
 	{"weights", "Weight gain against the Xavier and He references"},
+	{"residual-stream", "Residual stream: max |x| over median |x| along depth"},
+	{"attention-entropy", "Attention entropy per block and head (0 one-hot, 1 uniform)"},
 	{"compare-histograms-", "OLD vs NEW histograms of the layers that changed most"},
 	{"compare-depth-profile", "Activation std along depth, OLD vs NEW"},
 	{"compare-sqnr", "SQNR of NEW against OLD along depth"},
