@@ -28,8 +28,7 @@ var deadUnitsCheck = &Check{
 			if !ok || float64(dead) < p.T("min_dead") {
 				continue
 			}
-			msg := fmt.Sprintf("%d of %d units (%s) never output a positive value on %d samples; dead units pass no gradient. "+
-				"Usual fixes: lower the learning rate, He initialisation, LeakyRelu, check the input scale",
+			msg := fmt.Sprintf("%d of %d units (%s) never output a positive value on %d samples; dead units pass no gradient",
 				dead, *l.Units, pct(f), p.Report.Input.Samples)
 			if l.Note != "" {
 				msg += " (" + l.Note + ")"
@@ -63,6 +62,10 @@ var deadUnitsCheck = &Check{
 			if l.Role == RoleBranch {
 				sev = report.Info
 				why = append(why, "this layer only feeds a gate (the bottleneck of a squeeze-and-excitation branch): its dead units narrow what the gate can express, and gate-constant judges the gate itself")
+			}
+			if sev != report.Info {
+				// what to do, only where the verdict asks for action
+				msg += ". Usual fixes: lower the learning rate, He initialisation, LeakyRelu, check the input scale"
 			}
 			for _, w := range why {
 				msg += ". " + upperFirst(w)
