@@ -1,0 +1,208 @@
+package grad
+
+import (
+	"fmt"
+	"sort"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// Tape holds every value of one batch of a plan's main graph: the graph
+// inputs, the initializers and each node's outputs, recorded by Record from
+// the run's hook. The values must stay unchanged until Backward returns (a
+// run without buffer recycling, or one whose recycling waits for it).
+type Tape struct {
+	plan *probe.Plan
+	vals map[string]*tensor.Tensor
+	// step[n] is the main-graph step of node n (subgraph nodes are not recorded).
+	step map[*loader.Node]int
+}
+
+// NewTape prepares a tape for batches of plan p.
+func NewTape(p *probe.Plan) *Tape {
+	t := &Tape{plan: p, step: map[*loader.Node]int{}}
+	for i, s := range p.Steps {
+		t.step[s.Node] = i
+	}
+	t.Reset(nil)
+	return t
+}
+
+// Reset starts a new batch with these graph inputs.
+func (t *Tape) Reset(inputs map[string]*tensor.Tensor) {
+	t.vals = make(map[string]*tensor.Tensor, len(t.plan.Graph.Initializers)+len(t.plan.Steps)+len(inputs))
+	for name, v := range t.plan.Graph.Initializers {
+		t.vals[name] = v
+	}
+	for name, v := range inputs {
+		t.vals[name] = v
+	}
+}
+
+// Record stores a node's outputs; it has the signature of a probe.Hook's
+// body and ignores nodes of subgraphs.
+func (t *Tape) Record(n *loader.Node, outs []*tensor.Tensor) {
+	if _, ok := t.step[n]; !ok {
+		return
+	}
+	for j, name := range n.Outputs {
+		if name != "" && j < len(outs) && outs[j] != nil {
+			t.vals[name] = outs[j]
+		}
+	}
+}
+
+// Value returns a recorded value.
+func (t *Tape) Value(name string) *tensor.Tensor { return t.vals[name] }
+
+// Result is what one backward pass produced.
+type Result struct {
+	// Params are dL/dW for every float initializer a gradient reached.
+	Params map[string][]float64
+	// Inputs are dL/dx for the float graph inputs.
+	Inputs map[string][]float64
+	// Missing lists, by operator type, the nodes a gradient reached that
+	// have no VJP: nothing flows past them.
+	Missing map[string][]string
+}
+
+// MissingLines is one line per operator type without a VJP, naming its nodes.
+func (r *Result) MissingLines() []string {
+	var out []string
+	for op, nodes := range r.Missing {
+		q := make([]string, len(nodes))
+		for i, n := range nodes {
+			q[i] = fmt.Sprintf("%q", n)
+		}
+		if len(q) > 5 {
+			q = append(q[:5], fmt.Sprintf("and %d more", len(nodes)-5))
+		}
+		out = append(out, fmt.Sprintf("%s (no gradient rule): %d node(s): %v", op, len(nodes), q))
+	}
+	sort.Strings(out)
+	return out
+}
+
+// Backward propagates seed (dL/dv for some values, graph outputs usually)
+// through the recorded batch in reverse step order. value, when not nil, is
+// called once with the final gradient of every node output a gradient
+// reached (before the step that produced it runs its VJP), with that step's
+// index; the slice is only valid during the call.
+func (t *Tape) Backward(seed map[string][]float64, value func(step int, name string, g []float64)) (*Result, error) {
+	p := t.plan
+	// a value wants a gradient when it is float and depends on an
+	// initializer or a graph input
+	wants := map[string]bool{}
+	for name, v := range t.vals {
+		if _, init := p.Graph.Initializers[name]; init && isFloat(v) {
+			wants[name] = true
+		}
+	}
+	for _, in := range p.Graph.Inputs {
+		if v := t.vals[in.Name]; v != nil && isFloat(v) {
+			wants[in.Name] = true
+		}
+	}
+	for _, s := range p.Steps {
+		dep := false
+		for _, in := range s.Node.Inputs {
+			dep = dep || (in != "" && wants[in])
+		}
+		if !dep {
+			continue
+		}
+		for _, o := range s.Node.Outputs {
+			if v := t.vals[o]; o != "" && v != nil && isFloat(v) {
+				wants[o] = true
+			}
+		}
+	}
+	grads := map[string][]float64{}
+	for name, g := range seed {
+		v := t.vals[name]
+		if v == nil {
+			return nil, fmt.Errorf("gradient seed for %q: no such value in the batch", name)
+		}
+		if len(g) != v.Size() {
+			return nil, fmt.Errorf("gradient seed for %q has %d elements, the value %v has %d", name, len(g), v.Shape, v.Size())
+		}
+		grads[name] = append([]float64(nil), g...)
+	}
+	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
+	for i := len(p.Steps) - 1; i >= 0; i-- {
+		s := &p.Steps[i]
+		n := s.Node
+		gOut := make([][]float64, len(n.Outputs))
+		any := false
+		for j, o := range n.Outputs {
+			if g, ok := grads[o]; ok && o != "" {
+				gOut[j] = g
+				any = true
+				if value != nil {
+					value(i, o, g)
+				}
+				delete(grads, o)
+			}
+		}
+		if !any {
+			continue
+		}
+		need := make([]bool, len(n.Inputs))
+		needAny := false
+		in := make([]*tensor.Tensor, len(n.Inputs))
+		for j, name := range n.Inputs {
+			if name == "" {
+				continue
+			}
+			in[j] = t.vals[name]
+			if in[j] == nil {
+				if v, ok := p.Graph.Initializers[name]; ok {
+					in[j] = v
+				}
+			}
+			need[j] = wants[name] && in[j] != nil
+			needAny = needAny || need[j]
+		}
+		if !needAny {
+			continue
+		}
+		f, ok := Lookup(n.Domain, n.OpType)
+		if !ok {
+			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
+			continue
+		}
+		out := make([]*tensor.Tensor, len(n.Outputs))
+		for j, name := range n.Outputs {
+			if name != "" {
+				out[j] = t.vals[name]
+			}
+		}
+		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
+		if err := f(op); err != nil {
+			return nil, fmt.Errorf("gradient of node %q (%s): %w", n.Name, n.OpType, err)
+		}
+		for j, name := range n.Inputs {
+			g := op.GIn[j]
+			if g == nil || name == "" {
+				continue
+			}
+			if acc, ok := grads[name]; ok {
+				for k, v := range g {
+					acc[k] += v
+				}
+			} else {
+				grads[name] = g
+			}
+		}
+	}
+	for name, g := range grads {
+		if _, init := p.Graph.Initializers[name]; init {
+			res.Params[name] = g
+		} else {
+			res.Inputs[name] = g
+		}
+	}
+	return res, nil
+}
