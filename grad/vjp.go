@@ -19,9 +19,9 @@ type Op struct {
 	// no gradient (absent, not float, or not depending on a parameter).
 	GIn [][]float64
 	// need[i] reports whether input i wants a gradient.
-	need  []bool
-	xs    map[int][]float64
-	ys    map[int][]float64
+	need []bool
+	xs   map[int][]float64
+	ys   map[int][]float64
 }
 
 // VJP computes the gradients of one operator: it reads o.GOut and the

@@ -1,0 +1,120 @@
+package grad
+
+import (
+	"fmt"
+	"math"
+)
+
+// Normalisation.
+//
+// BatchNormalization, inference mode: y = s·(x − μ)/√(σ² + ε) + b per
+// channel (axis 1) with the running μ, σ² (constants here: no gradient).
+// dL/dx = G·s/√(σ²+ε), dL/ds = Σ G·(x − μ)/√(σ²+ε), dL/db = Σ G.
+//
+// LayerNormalization over the axes from axis on: x̂ = (x − mean)/√(var + ε),
+// y = s·x̂ + b; with ĝ = G·s, dL/dx = (ĝ − mean(ĝ) − x̂·mean(ĝ·x̂))/√(var + ε).
+
+func init() {
+	register("BatchNormalization", batchNormVJP)
+	register("LayerNormalization", layerNormVJP)
+}
+
+func batchNormVJP(o *Op) error {
+	if err := o.Need(5); err != nil {
+		return err
+	}
+	if o.Int("training_mode", 0) != 0 {
+		return fmt.Errorf("BatchNormalization in training mode has no gradient rule here")
+	}
+	X := o.In[0]
+	if X.Rank() < 2 {
+		return fmt.Errorf("BatchNormalization input %v has no channel axis", X.Shape)
+	}
+	N, C := X.Shape[0], X.Shape[1]
+	I := prod(X.Shape[2:])
+	eps := float64(o.Float("epsilon", 1e-5))
+	s, mean, vr := o.X(1), o.X(3), o.X(4)
+	g := o.G(0)
+	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	var x []float64
+	if gs != nil {
+		x = o.X(0)
+	}
+	for c := 0; c < C; c++ {
+		inv := 1 / math.Sqrt(vr[c]+eps)
+		for n := 0; n < N; n++ {
+			lo := (n*C + c) * I
+			for i := lo; i < lo+I; i++ {
+				if gx != nil {
+					gx[i] = g[i] * s[c] * inv
+				}
+				if gs != nil {
+					gs[c] += g[i] * (x[i] - mean[c]) * inv
+				}
+				if gb != nil {
+					gb[c] += g[i]
+				}
+			}
+		}
+	}
+	return nil
+}
+
+func layerNormVJP(o *Op) error {
+	if err := o.Need(2); err != nil {
+		return err
+	}
+	X := o.In[0]
+	axis := int(o.Int("axis", -1))
+	if axis < 0 {
+		axis += X.Rank()
+	}
+	if axis < 0 || axis >= X.Rank() {
+		return fmt.Errorf("LayerNormalization axis %d out of range for %v", o.Int("axis", -1), X.Shape)
+	}
+	D := prod(X.Shape[axis:])
+	rows := X.Size() / max(D, 1)
+	eps := float64(o.Float("epsilon", 1e-5))
+	if o.In[1].Size() != D || (o.Input(2) != nil && o.In[2].Size() != D) {
+		return fmt.Errorf("LayerNormalization scale %v or bias does not cover the normalised shape %v", o.In[1].Shape, X.Shape[axis:])
+	}
+	x, s, g := o.X(0), o.X(1), o.G(0)
+	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	xh := make([]float64, D)
+	gh := make([]float64, D)
+	for r := 0; r < rows; r++ {
+		xr, gr := x[r*D:(r+1)*D], g[r*D:(r+1)*D]
+		m := 0.0
+		for _, v := range xr {
+			m += v
+		}
+		m /= float64(D)
+		v := 0.0
+		for _, e := range xr {
+			v += (e - m) * (e - m)
+		}
+		v /= float64(D)
+		inv := 1 / math.Sqrt(v+eps)
+		mg, mgx := 0.0, 0.0
+		for i := range xr {
+			xh[i] = (xr[i] - m) * inv
+			gh[i] = gr[i] * s[i]
+			mg += gh[i]
+			mgx += gh[i] * xh[i]
+			if gs != nil {
+				gs[i] += gr[i] * xh[i]
+			}
+			if gb != nil {
+				gb[i] += gr[i]
+			}
+		}
+		mg /= float64(D)
+		mgx /= float64(D)
+		if gx != nil {
+			for i := range xr {
+				gx[r*D+i] = (gh[i] - mg - xh[i]*mgx) * inv
+			}
+		}
+	}
+	return nil
+}

@@ -1,0 +1,116 @@
+package grad
+
+import (
+	"fmt"
+
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// window is the spatial geometry of a sliding-window operator (Conv and the
+// pools) recovered from the recorded input and output shapes and the
+// node's attributes: tap t of output position p reads input position
+// p·stride − padBegin + t·dilation along each spatial axis.
+type window struct {
+	in, k, out, stride, dil, padBeg []int
+	// taps[p*K+t] is the flat spatial input offset of tap t at output
+	// position p, −1 where it falls into the padding.
+	taps []int
+	K    int // taps per window
+	P    int // output positions
+	I    int // input positions
+}
+
+// windowOf reads kernel_shape (default kshape), strides, dilations, pads and
+// auto_pad for input x [N, C, in...] and output y [N, M, out...].
+func windowOf(o *Op, x, y *tensor.Tensor, kshape []int) (*window, error) {
+	if x.Rank() < 3 || y.Rank() != x.Rank() {
+		return nil, fmt.Errorf("window operator needs input and output of the same rank ≥ 3, got %v and %v", x.Shape, y.Shape)
+	}
+	nd := x.Rank() - 2
+	w := &window{in: x.Shape[2:], out: y.Shape[2:], k: kshape}
+	if ks := o.Ints("kernel_shape"); ks != nil {
+		w.k = ks
+	}
+	w.stride, w.dil = o.Ints("strides"), o.Ints("dilations")
+	if w.stride == nil {
+		w.stride = ones(nd)
+	}
+	if w.dil == nil {
+		w.dil = ones(nd)
+	}
+	pads := o.Ints("pads")
+	if pads == nil {
+		pads = make([]int, 2*nd)
+	}
+	if len(w.k) != nd || len(w.stride) != nd || len(w.dil) != nd || len(pads) != 2*nd {
+		return nil, fmt.Errorf("kernel_shape %v, strides %v, dilations %v, pads %v do not fit %d spatial axes", w.k, w.stride, w.dil, pads, nd)
+	}
+	w.padBeg = make([]int, nd)
+	auto := o.Str("auto_pad", "NOTSET")
+	for d := 0; d < nd; d++ {
+		switch auto {
+		case "SAME_UPPER", "SAME_LOWER":
+			span := (w.k[d]-1)*w.dil[d] + 1
+			total := max(0, (w.out[d]-1)*w.stride[d]+span-w.in[d])
+			w.padBeg[d] = total / 2
+			if auto == "SAME_LOWER" {
+				w.padBeg[d] = total - total/2
+			}
+		case "VALID":
+		default:
+			w.padBeg[d] = pads[d]
+		}
+	}
+	w.K, w.P, w.I = prod(w.k), prod(w.out), prod(w.in)
+	w.taps = make([]int, w.P*w.K)
+	op := make([]int, nd)
+	kk := make([]int, nd)
+	inStr := tensor.Strides(w.in)
+	for p := 0; p < w.P; p++ {
+		for i := range kk {
+			kk[i] = 0
+		}
+		for t := 0; t < w.K; t++ {
+			off := 0
+			for d := 0; d < nd && off >= 0; d++ {
+				c := op[d]*w.stride[d] - w.padBeg[d] + kk[d]*w.dil[d]
+				if c < 0 || c >= w.in[d] {
+					off = -1
+				} else {
+					off += c * inStr[d]
+				}
+			}
+			w.taps[p*w.K+t] = off
+			incr(kk, w.k)
+		}
+		incr(op, w.out)
+	}
+	return w, nil
+}
+
+// incr advances a multi-index in row-major order.
+func incr(idx, shape []int) {
+	for a := len(idx) - 1; a >= 0; a-- {
+		idx[a]++
+		if idx[a] < shape[a] {
+			return
+		}
+		idx[a] = 0
+	}
+}
+
+func ones(n int) []int {
+	s := make([]int, n)
+	for i := range s {
+		s[i] = 1
+	}
+	return s
+}
+
+func prod(s []int) int {
+	n := 1
+	for _, d := range s {
+		n *= d
+	}
+	return n
+}
