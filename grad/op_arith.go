@@ -12,11 +12,11 @@ import (
 // repeated that input's element at.
 
 func init() {
-	binary("Add", func(_, _, _ float64) (float64, float64) { return 1, 1 })
-	binary("Sub", func(_, _, _ float64) (float64, float64) { return 1, -1 })
-	binary("Mul", func(a, b, _ float64) (float64, float64) { return b, a })
-	binary("Div", func(a, b, _ float64) (float64, float64) { return 1 / b, -a / (b * b) })
-	binary("Pow", func(a, b, y float64) (float64, float64) { // y = aᵇ
+	binaryOp("Add", func(_, _, _ float64) (float64, float64) { return 1, 1 })
+	binaryOp("Sub", func(_, _, _ float64) (float64, float64) { return 1, -1 })
+	binaryOp("Mul", func(a, b, _ float64) (float64, float64) { return b, a })
+	binaryOp("Div", func(a, b, _ float64) (float64, float64) { return 1 / b, -a / (b * b) })
+	binaryOp("Pow", func(a, b, y float64) (float64, float64) { // y = aᵇ
 		da := b * math.Pow(a, b-1)
 		db := 0.0
 		if a > 0 {
@@ -24,7 +24,7 @@ func init() {
 		}
 		return da, db
 	})
-	binary("PRelu", func(a, s, _ float64) (float64, float64) { // y = a (a > 0), s·a
+	binaryOp("PRelu", func(a, s, _ float64) (float64, float64) { // y = a (a > 0), s·a
 		if a > 0 {
 			return 1, 0
 		}
@@ -35,8 +35,8 @@ func init() {
 	register("Where", whereVJP)
 }
 
-// binary registers y = f(a, b) with partial derivatives d(a, b, y).
-func binary(name string, d func(a, b, y float64) (float64, float64)) {
+// binaryOp registers y = f(a, b) with partial derivatives d(a, b, y).
+func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 	register(name, func(o *Op) error {
 		if err := o.Need(2); err != nil {
 			return err

@@ -1,0 +1,253 @@
+package grad
+
+import (
+	"archive/zip"
+	"encoding/binary"
+	"encoding/json"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strconv"
+	"strings"
+	"testing"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// readNpz reads every member of an .npz written by NumPy (little-endian
+// float32, float64 or int64, C order) as float64 values.
+func readNpz(t *testing.T, path string) map[string][]float64 {
+	t.Helper()
+	z, err := zip.OpenReader(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer z.Close()
+	out := map[string][]float64{}
+	descr := regexp.MustCompile(`'descr':\s*'([<|]?)([fi])(\d)'`)
+	for _, f := range z.File {
+		r, err := f.Open()
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, err := io.ReadAll(r)
+		r.Close()
+		if err != nil {
+			t.Fatal(err)
+		}
+		hl := int(binary.LittleEndian.Uint16(b[8:10]))
+		hdr, data := string(b[10:10+hl]), b[10+hl:]
+		if strings.Contains(hdr, "'fortran_order': True") {
+			t.Fatalf("%s: %s is Fortran order", path, f.Name)
+		}
+		m := descr.FindStringSubmatch(hdr)
+		if m == nil {
+			t.Fatalf("%s: %s: unsupported header %s", path, f.Name, hdr)
+		}
+		size, _ := strconv.Atoi(m[3])
+		vals := make([]float64, len(data)/size)
+		for i := range vals {
+			e := data[i*size : (i+1)*size]
+			switch m[2] + m[3] {
+			case "f4":
+				vals[i] = float64(math.Float32frombits(binary.LittleEndian.Uint32(e)))
+			case "f8":
+				vals[i] = math.Float64frombits(binary.LittleEndian.Uint64(e))
+			case "i8":
+				vals[i] = float64(int64(binary.LittleEndian.Uint64(e)))
+			default:
+				t.Fatalf("%s: %s: dtype %s", path, f.Name, m[2]+m[3])
+			}
+		}
+		out[strings.TrimSuffix(f.Name, ".npy")] = vals
+	}
+	return out
+}
+
+func refDir(t *testing.T) string {
+	d := filepath.Join("..", "testdata", "ref")
+	if _, err := os.Stat(d); err != nil {
+		t.Skip("testdata/ref not found")
+	}
+	return d
+}
+
+type refModel struct {
+	Name  string
+	Kind  string
+	Files map[string]string
+}
+
+// runBatch runs a model on one batch, records it and returns the tape and
+// the graph output.
+func runBatch(t *testing.T, m *loader.Model, x *tensor.Tensor) (*Tape, *tensor.Tensor) {
+	t.Helper()
+	p, err := probe.Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tape := NewTape(p)
+	in := map[string]*tensor.Tensor{m.Graph.Inputs[0].Name: x}
+	tape.Reset(in)
+	outs, err := p.Run(in, func(n *loader.Node, o []*tensor.Tensor) error { tape.Record(n, o); return nil })
+	if err != nil {
+		t.Fatal(err)
+	}
+	return tape, outs[m.Graph.Outputs[0].Name]
+}
+
+// TestAgainstTorchAutograd: dL/dW for every weight of the reference
+// architectures and the digits models against PyTorch 1.13 autograd in
+// float64 (testdata/gen/grad_golden.py writes <name>.grad.npz), L the mean
+// cross-entropy over the sample; relative error ‖g − g_torch‖/‖g_torch‖
+// ≤ 1e-4. The activation-gradient RMS of every node output is checked the
+// same way. Recurrent models (no VJP for LSTM/GRU) must list the missing
+// operators instead.
+func TestAgainstTorchAutograd(t *testing.T) {
+	dir := refDir(t)
+	var index struct{ Models []refModel }
+	b, err := os.ReadFile(filepath.Join(dir, "index.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, &index); err != nil {
+		t.Fatal(err)
+	}
+	tested := 0
+	for _, rm := range index.Models {
+		t.Run(rm.Name, func(t *testing.T) {
+			m, err := loader.LoadModel(filepath.Join(dir, rm.Files["model"]))
+			if err != nil {
+				t.Fatal(err)
+			}
+			x, err := loader.ReadNpy(filepath.Join(dir, rm.Files["input"]))
+			if err != nil {
+				t.Fatal(err)
+			}
+			tape, out := runBatch(t, m, x)
+			golden := filepath.Join(dir, rm.Name+".grad.npz")
+			if _, err := os.Stat(golden); err != nil {
+				// no golden: the recurrent models; they must name what is missing
+				labels := TopClass(out)
+				loss, seed, err := CrossEntropy(out, labels, false)
+				if err != nil {
+					t.Fatal(err)
+				}
+				acc := NewAccumulator()
+				if err := acc.Add(tape, m.Graph.Outputs[0].Name, loss, seed, x.Shape[0]); err != nil {
+					t.Fatal(err)
+				}
+				miss := acc.Missing()
+				if len(miss) == 0 {
+					t.Fatalf("no golden file and nothing missing")
+				}
+				t.Logf("missing: %v", miss)
+				return
+			}
+			want := readNpz(t, golden)
+			labels := make([]int64, len(want["labels"]))
+			for i, v := range want["labels"] {
+				labels[i] = int64(v)
+			}
+			loss, seed, err := CrossEntropy(out, labels, false)
+			if err != nil {
+				t.Fatal(err)
+			}
+			acc := NewAccumulator()
+			if err := acc.Add(tape, m.Graph.Outputs[0].Name, loss, seed, x.Shape[0]); err != nil {
+				t.Fatal(err)
+			}
+			if len(acc.Missing()) > 0 {
+				t.Fatalf("missing VJPs: %v", acc.Missing())
+			}
+			if l := acc.Loss(); math.Abs(l-want["loss"][0]) > 1e-5*math.Abs(want["loss"][0]) {
+				t.Errorf("loss %.8g, torch %.8g", l, want["loss"][0])
+			}
+			// floor: a gradient that is zero in exact arithmetic (the key
+			// bias of attention: softmax does not change when a row is
+			// shifted) comes out as float32 rounding of the forward pass
+			// here and as float64 rounding in torch; such weights are
+			// compared against 1e-4 of the model's largest weight gradient.
+			floor := 0.0
+			for key, ref := range want {
+				if strings.HasPrefix(key, "w/") {
+					floor = max(floor, 1e-4*norm(ref))
+				}
+			}
+			weights, worst := 0, 0.0
+			for key, ref := range want {
+				name, ok := strings.CutPrefix(key, "w/")
+				if !ok {
+					continue
+				}
+				got := acc.Param(name)
+				if got == nil {
+					t.Errorf("%s: no gradient", name)
+					continue
+				}
+				e := relErr(got, ref, floor)
+				worst = max(worst, e)
+				if e > 1e-4 {
+					t.Errorf("dL/d%s: relative error %.2e (‖g‖ %.4g, torch %.4g)", name, e, norm(got), norm(ref))
+				}
+				weights++
+			}
+			acts, worstRMS := 0, 0.0
+			for key, ref := range want {
+				name, ok := strings.CutPrefix(key, "rms/")
+				if !ok {
+					continue
+				}
+				got, ok := acc.RMS(name)
+				if !ok {
+					t.Errorf("%s: no activation gradient", name)
+					continue
+				}
+				e := math.Abs(got-ref[0]) / math.Max(ref[0], 1e-30)
+				if ref[0] == 0 {
+					e = got
+				}
+				worstRMS = max(worstRMS, e)
+				if e > 1e-4 {
+					t.Errorf("grad_rms(%s) = %.6g, torch %.6g", name, got, ref[0])
+				}
+				acts++
+			}
+			if weights == 0 {
+				t.Fatal("golden file has no weights")
+			}
+			t.Logf("%d weights (worst relative error %.1e), %d activations (worst %.1e)", weights, worst, acts, worstRMS)
+			tested++
+		})
+	}
+	if tested < 10 {
+		t.Errorf("only %d models checked against torch", tested)
+	}
+}
+
+func norm(x []float64) float64 {
+	s := 0.0
+	for _, v := range x {
+		s += v * v
+	}
+	return math.Sqrt(s)
+}
+
+// relErr is ‖a − b‖/max(‖b‖, floor).
+func relErr(a, b []float64, floor float64) float64 {
+	if len(a) != len(b) {
+		return math.Inf(1)
+	}
+	d := make([]float64, len(a))
+	for i := range a {
+		d[i] = a[i] - b[i]
+	}
+	if nb := max(norm(b), floor); nb > 0 {
+		return norm(d) / nb
+	}
+	return norm(d)
+}
