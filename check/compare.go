@@ -31,6 +31,7 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 	defer oldFeed.Close()
 	var oldOuts []*tensor.Tensor
 	oldName := firstOutput(old)
+	o.Gradients = nil // a backward pass is for Check only
 	oldCol, err := analyse(ctx, old, oldFeed, o, func(outs map[string]*tensor.Tensor, k int) error {
 		oldOuts = append(oldOuts, outs[oldName])
 		return nil

@@ -72,6 +72,15 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		return nil, err
 	}
 	c := stats.NewCollector(m.model, m.plan)
+	// the backward pass, when asked for: it keeps each batch's values until
+	// its pass is done (no recycling within a batch) and sizes batches for that
+	var gr *gradRun
+	if o.Gradients != nil {
+		var err error
+		if gr, err = newGradRun(m, o.Gradients, feed.labels != nil); err != nil {
+			return nil, err
+		}
+	}
 	start := time.Now()
 	// activation storage is reused from batch to batch (at most a quarter of
 	// the memory budget, 1 GiB without one)
@@ -88,6 +97,9 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		put = func(t *tensor.Tensor) { o.recycled.Add(1); pool.Put(t) }
 	}
 	dead := c.AfterObserved(put)
+	if gr != nil {
+		dead = nil
+	}
 	// without Sample.Batch, the first batch (one sample) measures the node
 	// outputs per sample, from which the batch size is chosen
 	var outBytes int64
@@ -107,6 +119,9 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 					outBytes += int64(t.Size()) * 4
 				}
 			}
+		}
+		if gr != nil {
+			gr.record(n, outs)
 		}
 		return c.Hook(n, outs)
 	}
@@ -177,7 +192,11 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		k := batchLen(batch)
 		samples += k
 		c.AddInputs(batch)
-		outs, released, err := m.plan.RunRecycled(arena, feed.runInputs(batch, carried), hook, dead)
+		in := feed.runInputs(batch, carried)
+		if gr != nil {
+			gr.start(in)
+		}
+		outs, released, err := m.plan.RunRecycled(arena, in, hook, dead)
 		if ctx.Err() != nil && errors.Is(err, ctx.Err()) {
 			return nil, ctx.Err()
 		}
@@ -186,6 +205,9 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 		c.AddOutputs(outs, labels)
 		c.Samples += k
+		if gr != nil {
+			gr.batch(outs, labels, k)
+		}
 		for _, pair := range feed.carry {
 			t := outs[pair[0]]
 			if want := feed.consts[pair[1]].at(k); !tensor.SameShape(t.Shape, want.Shape) || t.DType != want.DType {
@@ -194,7 +216,11 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 			carried[pair[1]] = t.Clone() // a copy: the output's storage may be reused
 		}
 		if feed.auto {
-			feed.batch.Store(int64(chooseBatch(outBytes/int64(k), o.MemoryBudget)))
+			perSample := outBytes / int64(k)
+			if gr != nil {
+				perSample *= gradMemoryFactor
+			}
+			feed.batch.Store(int64(chooseBatch(perSample, o.MemoryBudget)))
 			feed.auto = false
 			close(sized)
 		}
@@ -245,6 +271,9 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		src = "synthetic"
 	}
 	col := c.Finish(src)
+	if gr != nil {
+		gr.fill(col.Report)
+	}
 	if err := stats.Run(col, stats.Checks, o.Thresholds); err != nil {
 		return nil, err
 	}

@@ -23,6 +23,8 @@ type Report struct {
 	Compare *Comparison `json:"compare,omitempty"`
 	// Thresholds actually used (defaults merged with --config), for the plots and writers.
 	Thresholds map[string]float64 `json:"thresholds,omitempty"`
+	// Gradients says how the backward pass was run (gradients.go); nil without one.
+	Gradients *Gradients `json:"gradients,omitempty"`
 }
 
 // Model describes the model file.
@@ -118,6 +120,10 @@ type Layer struct {
 	Activation string `json:"activation,omitempty"`
 	// Note explains something particular about the layer (e.g. "LeakyRelu slope 0.01").
 	Note string `json:"note,omitempty"`
+	// GradRMS is √(mean of (dL/dy)²) over every element of the output over
+	// the sample (backward pass only; nil without one or where no gradient
+	// reaches the layer).
+	GradRMS *float64 `json:"grad_rms"`
 }
 
 // Histogram has len(Counts) == len(Edges)-1 bins over [Edges[0], Edges[last]];
@@ -147,6 +153,13 @@ type Weight struct {
 	Nonfinite     int64    `json:"nonfinite"`
 	// FollowedBy is the activation (or normalisation) that follows the layer, which sets the reference gain.
 	FollowedBy string `json:"followed_by,omitempty"`
+	// Backward pass only (nil otherwise): GradNorm is the Frobenius norm
+	// ‖dL/dW‖_F, Norm is ‖W‖_F, GradToWeight their ratio, UpdateRatio the
+	// plain-SGD step lr·‖dL/dW‖/‖W‖ (with a learning rate).
+	GradNorm     *float64 `json:"grad_norm"`
+	Norm         *float64 `json:"norm"`
+	GradToWeight *float64 `json:"grad_to_weight"`
+	UpdateRatio  *float64 `json:"update_ratio"`
 }
 
 // Severity of a finding.
