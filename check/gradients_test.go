@@ -46,7 +46,7 @@ func TestGradientsMatchTorchOverBatches(t *testing.T) {
 			t.Errorf("%s grad_norm %v, torch %.6g", w.Name, w.GradNorm, math.Sqrt(s))
 			continue
 		}
-		if w.UpdateRatio == nil || math.Abs(*w.UpdateRatio-0.1**w.GradToWeight) > 1e-15 || math.Abs(*w.GradToWeight-*w.GradNorm / *w.Norm) > 1e-15 {
+		if w.UpdateRatio == nil || math.Abs(*w.UpdateRatio-0.1**w.GradToWeight) > 1e-15 || math.Abs(*w.GradToWeight - *w.GradNorm / *w.Norm) > 1e-15 {
 			t.Errorf("%s: update ratio %v, grad_to_weight %v", w.Name, w.UpdateRatio, w.GradToWeight)
 		}
 		n++
