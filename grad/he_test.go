@@ -85,4 +85,3 @@ func meanSquare(g []float64) float64 {
 	}
 	return s / float64(len(g))
 }
-
