@@ -47,7 +47,8 @@ func (p *Pass) Emit(sev report.Severity, node string, strength float64, evidence
 
 // Checks is the list of health checks, in the order they run.
 var Checks = []*Check{nonfiniteCheck, deadUnitsCheck, saturationCheck, spreadCollapseCheck, spreadExplosionCheck,
-	weightScaleCheck, symmetricUnitsCheck, batchnormDriftCheck, inputScaleCheck, outputHealthCheck}
+	weightScaleCheck, symmetricUnitsCheck, batchnormDriftCheck, inputScaleCheck, outputHealthCheck,
+	gradVanishingCheck, gradExplosionCheck, gradZeroCheck, updateRatioCheck}
 
 // Validate rejects an undocumented or duplicate check, or thresholds not named after their check.
 func Validate(checks []*Check) error {
