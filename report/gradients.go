@@ -1,5 +1,11 @@
 package report
 
+import (
+	"fmt"
+	"strings"
+	"text/tabwriter"
+)
+
 // Gradients describes the backward pass of a check: the loss, how the sample
 // was batched, and what it could not differentiate.
 type Gradients struct {
@@ -26,4 +32,85 @@ type Gradients struct {
 	// Stopped, when set, says why the backward pass stopped early (the rest
 	// of the report is unaffected).
 	Stopped string `json:"stopped,omitempty"`
+}
+
+// GradientSummary is the backward pass in sentences (nil without one): the
+// loss and its target, how the sample was batched, the mode, and what was
+// not differentiated.
+func GradientSummary(r *Report) []string {
+	g := r.Gradients
+	if g == nil {
+		return nil
+	}
+	target := map[string]string{"labels": "the labels", "pseudo-labels": "the model's own top class as pseudo-label (no labels given)", "targets": "the targets file"}[g.Target]
+	lines := []string{fmt.Sprintf("Loss: mean %s against %s over %d samples, L = %s; gradients summed over %d batch(es) of up to %d samples and scaled by 1/%d.",
+		g.Loss, target, g.Samples, F(g.Value), g.Batches, g.Batch, g.Samples)}
+	if g.LR != nil {
+		lines = append(lines, fmt.Sprintf("Update ratios are for plain SGD at learning rate %g (rule of thumb about 1e-3 per step; common practice).", *g.LR))
+	}
+	lines = append(lines, "Mode: "+g.Mode+".")
+	for _, m := range g.Missing {
+		lines = append(lines, "No gradient past: "+m+".")
+	}
+	if g.Stopped != "" {
+		lines = append(lines, "Backward pass stopped: "+g.Stopped+".")
+	}
+	return lines
+}
+
+// GradientLayerHeader and GradientLayerRows: the activation-gradient RMS of
+// every layer a gradient reached, in depth order.
+var GradientLayerHeader = []string{"node", "op", "depth", "grad RMS"}
+
+// GradientLayerRows are the rows of GradientLayerHeader.
+func GradientLayerRows(r *Report) [][]string {
+	var rows [][]string
+	for _, l := range r.Layers {
+		if l.GradRMS != nil {
+			rows = append(rows, []string{l.Node, l.Op, fmt.Sprint(l.Depth), F(l.GradRMS)})
+		}
+	}
+	return rows
+}
+
+// GradientWeightHeader and GradientWeightRows: gradient and update size per weight.
+var GradientWeightHeader = []string{"weight", "node", "‖dL/dW‖", "‖W‖", "‖dL/dW‖/‖W‖", "SGD update ratio"}
+
+// GradientWeightRows are the rows of GradientWeightHeader.
+func GradientWeightRows(r *Report) [][]string {
+	var rows [][]string
+	for _, w := range r.Weights {
+		if w.GradNorm != nil {
+			rows = append(rows, []string{w.Name, w.Node, F(w.GradNorm), F(w.Norm), F(w.GradToWeight), F(w.UpdateRatio)})
+		}
+	}
+	return rows
+}
+
+// writeGradientsText is the text writer's gradient section.
+func writeGradientsText(b *strings.Builder, r *Report) {
+	lines := GradientSummary(r)
+	if lines == nil {
+		return
+	}
+	fmt.Fprintln(b)
+	fmt.Fprintln(b, "Gradients (backward pass):")
+	for _, l := range lines {
+		fmt.Fprintln(b, "  "+l)
+	}
+	for _, t := range []struct {
+		h    []string
+		rows [][]string
+	}{{GradientLayerHeader, GradientLayerRows(r)}, {GradientWeightHeader, GradientWeightRows(r)}} {
+		if len(t.rows) == 0 {
+			continue
+		}
+		fmt.Fprintln(b)
+		tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
+		fmt.Fprintln(tw, "  "+strings.Join(t.h, "\t")+"\t")
+		for _, row := range t.rows {
+			fmt.Fprintln(tw, "  "+strings.Join(row, "\t")+"\t")
+		}
+		tw.Flush()
+	}
 }

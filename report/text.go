@@ -148,6 +148,7 @@ func WriteText(w io.Writer, r *Report, o TextOptions) error {
 	if err := tw.Flush(); err != nil {
 		return err
 	}
+	writeGradientsText(b, r)
 	if gaps := CoverageGaps(r); len(gaps) > 0 {
 		fmt.Fprintln(b)
 		fmt.Fprintln(b, "Not observed:")
