@@ -45,7 +45,32 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 		if _, err := probe.Broadcast(A.Shape, B.Shape); err != nil {
 			return err
 		}
-		a, b, y, g := o.X(0), o.X(1), o.Y(0), o.G(0)
+		g := o.G(0)
+		if name == "Add" || name == "Sub" { // ∂/∂a = 1, ∂/∂b = ±1: no forward values needed
+			sgn := 1.0
+			if name == "Sub" {
+				sgn = -1
+			}
+			for i, sh := range [][]int{A.Shape, B.Shape} {
+				gi := o.Grad(i)
+				if gi == nil {
+					continue
+				}
+				s := []float64{1, sgn}[i]
+				if sameShape(sh, Y.Shape) {
+					for k, v := range g {
+						gi[k] = s * v
+					}
+					continue
+				}
+				m := bcastMap(sh, Y.Shape)
+				for k, v := range g {
+					gi[m[k]] += s * v
+				}
+			}
+			return nil
+		}
+		a, b, y := o.X(0), o.X(1), o.Y(0)
 		ma, mb := bcastMap(A.Shape, Y.Shape), bcastMap(B.Shape, Y.Shape)
 		ga, gb := o.Grad(0), o.Grad(1)
 		for k := range g {

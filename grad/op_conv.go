@@ -9,6 +9,9 @@ import "fmt"
 
 func init() { register("Conv", convVJP) }
 
+// forceF64 sends float32 convolutions through the float64 path (tests).
+var forceF64 = false
+
 func convVJP(o *Op) error {
 	if err := o.Need(2); err != nil {
 		return err
@@ -41,6 +44,12 @@ func convVJP(o *Op) error {
 		}
 	}
 	if gx == nil && gw == nil {
+		return nil
+	}
+	x32, ok1 := X.Data.([]float32)
+	w32, ok2 := W.Data.([]float32)
+	if ok1 && ok2 && !forceF64 {
+		convF32(o, win, N, C, M, G, x32, w32, g, gx, gw)
 		return nil
 	}
 	x, w := o.X(0), o.X(1)

@@ -7,7 +7,7 @@ import "math"
 // one PyTorch's autograd uses (ReLU: 0 at x = 0; Clip: 1 on the bounds).
 
 func init() {
-	unary("Relu", func(x, _ float64, _ *Op) float64 { return step(x > 0) })
+	register("Relu", reluVJP)
 	unary("LeakyRelu", func(x, _ float64, o *Op) float64 {
 		if x > 0 {
 			return 1
@@ -143,6 +143,29 @@ func clipVJP(o *Op) error {
 				ghi[0] += g[i]
 			}
 		case gx != nil:
+			gx[i] = g[i]
+		}
+	}
+	return nil
+}
+
+// reluVJP: dL/dx = G where x > 0 (read in the model's own precision).
+func reluVJP(o *Op) error {
+	gx := o.Grad(0)
+	if gx == nil {
+		return nil
+	}
+	g := o.G(0)
+	if x, ok := o.In[0].Data.([]float32); ok {
+		for i, v := range x {
+			if v > 0 {
+				gx[i] = g[i]
+			}
+		}
+		return nil
+	}
+	for i, v := range o.X(0) {
+		if v > 0 {
 			gx[i] = g[i]
 		}
 	}

@@ -15,7 +15,9 @@ type window struct {
 	// taps[p*K+t] is the flat spatial input offset of tap t at output
 	// position p, −1 where it falls into the padding.
 	taps []int
-	K    int // taps per window
+	// tapsT[t*P+p] is taps[p*K+t]: tap-major, for the unrolling loops
+	tapsT []int
+	K     int // taps per window
 	P    int // output positions
 	I    int // input positions
 }
@@ -84,6 +86,12 @@ func windowOf(o *Op, x, y *tensor.Tensor, kshape []int) (*window, error) {
 			incr(kk, w.k)
 		}
 		incr(op, w.out)
+	}
+	w.tapsT = make([]int, len(w.taps))
+	for p := 0; p < w.P; p++ {
+		for t := 0; t < w.K; t++ {
+			w.tapsT[t*w.P+p] = w.taps[p*w.K+t]
+		}
 	}
 	return w, nil
 }

@@ -1,0 +1,114 @@
+package grad
+
+import (
+	"sync"
+
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/internal/par"
+)
+
+// convF32 is Conv's VJP for float32 models: the same products as convVJP,
+// over chunks of samples at once (columns [C/G·K, samples·P]) with the
+// float32 SGEMM of package gemm, the gradients still summed in float64.
+// The float32 products add a relative error of order √k·2⁻²⁴ for sums of
+// length k, far below the 1e-4 the torch comparison allows; float64 models
+// (the finite-difference tests) take convVJP's float64 path.
+func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []float64) {
+	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
+	// samples per chunk: the column buffer stays below 256 Ki elements
+	// (1 MiB, cache-sized; buffers are reused between calls)
+	nc := max(1, (256<<10)/max(Cg*K*P, 1))
+	nc = min(nc, N)
+	ld := nc * P
+	cols := scratch(Cg * K * ld)
+	defer release(cols)
+	gc := scratch(Mg * ld)
+	defer release(gc)
+	var dcols, dw, wt []float32
+	if gx != nil {
+		dcols = scratch(Cg * K * ld)
+		defer release(dcols)
+	}
+	if gw != nil {
+		dw = scratch(Mg * Cg * K)
+		defer release(dw)
+	}
+	workers := max(1, min(2, Cg)) // the unrolling loops, split over channels
+	for n0 := 0; n0 < N; n0 += nc {
+		n1 := min(N, n0+nc)
+		cur := (n1 - n0) * P
+		for grp := 0; grp < G; grp++ {
+			for m := 0; m < Mg; m++ {
+				for n := n0; n < n1; n++ {
+					src := g[(n*M+grp*Mg+m)*P : (n*M+grp*Mg+m+1)*P]
+					dst := gc[m*ld+(n-n0)*P : m*ld+(n-n0+1)*P]
+					for p, v := range src {
+						dst[p] = float32(v)
+					}
+				}
+			}
+			if gw != nil {
+				par.Do(workers, func(part int) {
+					for c := part; c < Cg; c += workers {
+						for n := n0; n < n1; n++ {
+							xc := x[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+							for t := 0; t < K; t++ {
+								row := cols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
+								taps := win.tapsT[t*P : (t+1)*P]
+								for p, off := range taps {
+									if off >= 0 {
+										row[p] = xc[off]
+									} else {
+										row[p] = 0
+									}
+								}
+							}
+						}
+					}
+				})
+				// dW_g = G·colsᵀ  [Mg, Cg·K]
+				gemm.Sgemm(false, true, Mg, Cg*K, cur, 1, gc, ld, cols, ld, 0, dw, Cg*K)
+				acc := gw[grp*Mg*Cg*K : (grp+1)*Mg*Cg*K]
+				for i, v := range dw {
+					acc[i] += float64(v)
+				}
+			}
+			if gx != nil {
+				if wt == nil {
+					wt = w
+				}
+				// dcols = W_gᵀ·G  [Cg·K, cur]
+				gemm.Sgemm(true, false, Cg*K, cur, Mg, 1, wt[grp*Mg*Cg*K:(grp+1)*Mg*Cg*K], Cg*K, gc, ld, 0, dcols, ld)
+				par.Do(workers, func(part int) {
+					for c := part; c < Cg; c += workers {
+						for n := n0; n < n1; n++ {
+							dx := gx[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+							for t := 0; t < K; t++ {
+								row := dcols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
+								taps := win.tapsT[t*P : (t+1)*P]
+								for p, off := range taps {
+									if off >= 0 {
+										dx[off] += float64(row[p])
+									}
+								}
+							}
+						}
+					}
+				})
+			}
+		}
+	}
+}
+
+// scratchPool keeps float32 buffers of the convolution VJP between calls
+// (contents undefined: every use writes before it reads).
+var scratchPool sync.Pool
+
+func scratch(n int) []float32 {
+	if b, ok := scratchPool.Get().(*[]float32); ok && cap(*b) >= n {
+		return (*b)[:n]
+	}
+	return make([]float32, n)
+}
+
+func release(b []float32) { scratchPool.Put(&b) }
