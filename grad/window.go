@@ -18,8 +18,8 @@ type window struct {
 	// tapsT[t*P+p] is taps[p*K+t]: tap-major, for the unrolling loops
 	tapsT []int
 	K     int // taps per window
-	P    int // output positions
-	I    int // input positions
+	P     int // output positions
+	I     int // input positions
 }
 
 // windowOf reads kernel_shape (default kshape), strides, dilations, pads and
