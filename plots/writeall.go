@@ -10,7 +10,8 @@ import (
 
 // WriteAll writes every figure of r into dir (which must exist) and returns
 // the file names written, in this order: depth-profile.png, unit-health.png,
-// histograms-NN.png, weights.png and, when r.Compare is set,
+// histograms-NN.png, weights.png, with a backward pass gradient-depth.png
+// and (with a learning rate) update-ratio.png, and, when r.Compare is set,
 // compare-histograms-NN.png and compare-depth-profile.png. A figure with
 // nothing to show (e.g. no activation layers, no weights) is skipped without
 // error. Each file is written to a temporary name and renamed into place.
@@ -40,6 +41,8 @@ func WriteAll(dir string, r *report.Report) ([]string, error) {
 	chart(UnitHealthSpec(r))
 	pages(HistogramPagesSpec(r))
 	chart(WeightsSpec(r))
+	chart(GradientDepthSpec(r))
+	chart(UpdateRatioSpec(r))
 	if c := CompareSpec(r); c != nil {
 		pages(c.Pages)
 		chart(c.Depth)

@@ -86,6 +86,10 @@ var reviewChecks = []reviewCheck{
 	{"batchnorm-drift", "The sample's mean/variance at a BatchNorm input differ from its stored running statistics.", "Check that the sample is preprocessed like the training data, or recalibrate the running statistics."},
 	{"input-scale", "The model input is not roughly zero-centred with unit scale.", "Check the preprocessing (normalisation constants, channel order, value range)."},
 	{"output-health", "Softmax output confidence and, with labels, accuracy and cross-entropy against ln(classes).", "Informational: compare with the team's own evaluation."},
+	{"gradient-vanishing", "With a backward pass: the gradient reaching the first layers of a plain stack is orders of magnitude smaller than at its last layer.", "Look at the saturated or dead layers it names; non-saturating activations, He/Xavier initialisation, normalisation or residual paths."},
+	{"gradient-explosion", "With a backward pass: the gradient grows by orders of magnitude towards the input.", "Smaller initial weights, normalisation layers, gradient clipping."},
+	{"gradient-zero", "With a backward pass: a weight's gradient is exactly zero over the sample, so it would not learn.", "Look at the dead or saturated layers downstream that it names."},
+	{"update-ratio", "With --lr: one plain-SGD step would change a weight by far less or far more than about 1e-3 of its norm.", "Adjust the learning rate (or per-layer rates) for fine-tuning."},
 }
 
 // reviewFigureCaptions describe each figure by its file name prefix.
@@ -94,6 +98,8 @@ var reviewFigureCaptions = []struct{ prefix, caption string }{
 	{"unit-health", "Dead and saturated units per activation layer"},
 	{"histograms-", "Per-layer activation histograms, worst-ranked first"},
 	{"weights", "Weight gain against the Xavier and He references"},
+	{"gradient-depth", "Gradient RMS and activation spread along depth (backward pass)"},
+	{"update-ratio", "Predicted SGD update ratio per weight against the 1e-3 rule of thumb"},
 	{"compare-histograms-", "OLD vs NEW histograms of the layers that changed most"},
 	{"compare-depth-profile", "Activation std along depth, OLD vs NEW"},
 }
