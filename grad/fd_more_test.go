@@ -58,6 +58,14 @@ func moreCases(r *rand.Rand) []fdCase {
 		{name: "pad-reflect", op: "Pad", opset: 13, attrs: A(sa("mode", "reflect")), in: T(rnd(r, 2, 4), i64(0, 2, 0, 1))},
 		{name: "expand", op: "Expand", in: T(rnd(r, 3, 1), i64(2, 3, 4))},
 		{name: "tile", op: "Tile", in: T(rnd(r, 2, 3), i64(2, 2))},
+		{name: "reducemin", op: "ReduceMin", opset: 18, in: T(rnd(r, 3, 4), i64(1))},
+		{name: "sin", op: "Sin", in: T(rnd(r, 3, 4))},
+		{name: "dropout-inference", op: "Dropout", opset: 13, in: T(rnd(r, 3, 4))},
+		{name: "cos", op: "Cos", in: T(rnd(r, 3, 4))},
+		{name: "depthtospace", op: "DepthToSpace", attrs: A(ia("blocksize", 2), sa("mode", "CRD")), in: T(rnd(r, 1, 8, 2, 3))},
+		{name: "spacetodepth", op: "SpaceToDepth", attrs: A(ia("blocksize", 2)), in: T(rnd(r, 1, 2, 4, 2))},
+		{name: "gatherelements", op: "GatherElements", attrs: A(ia("axis", 1)), in: T(rnd(r, 3, 4), tensor.From([]int64{0, 3, 3, 1, 2, 2}, 3, 2))},
+		{name: "gathernd", op: "GatherND", in: T(rnd(r, 3, 4), tensor.From([]int64{2, 1, 0, 3, 2, 1}, 3, 2))},
 		{name: "where", op: "Where", in: T(tensor.From([]bool{true, false, false, true, true, false}, 2, 3), rnd(r, 2, 3), rnd(r, 3))},
 	}
 }

@@ -214,8 +214,16 @@ func TestVJPFiniteDifferences(t *testing.T) {
 		{name: "matmul-vec", op: "MatMul", in: []*tensor.Tensor{rnd(r, 2, 3, 4), rnd(r, 4)}},
 	}
 	cases = append(cases, moreCases(r)...)
+	covered := map[string]bool{}
 	for _, c := range cases {
+		covered[c.op] = true
 		t.Run(c.name, func(t *testing.T) { runFD(t, c) })
+	}
+	// every registered VJP has a case
+	for _, op := range Ops() {
+		if !covered[op] {
+			t.Errorf("VJP of %s has no finite-difference case", op)
+		}
 	}
 }
 
