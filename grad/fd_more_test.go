@@ -22,6 +22,7 @@ func moreCases(r *rand.Rand) []fdCase {
 			in: T(rnd(r, 2, 3, 4, 4), rnd(r, 3, 1, 3, 3), rnd(r, 3))},
 		{name: "conv1d-dilated", op: "Conv", attrs: A(ias("dilations", 2), ias("pads", 2, 2)),
 			in: T(rnd(r, 2, 2, 7), rnd(r, 3, 2, 3), rnd(r, 3))},
+		{name: "conv3d", op: "Conv", attrs: A(ias("pads", 1, 0, 0, 0, 1, 0), ias("strides", 1, 2, 1)), in: T(rnd(r, 1, 2, 3, 4, 3), rnd(r, 2, 2, 2, 2, 2), rnd(r, 2))},
 		{name: "maxpool2d", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 3, 2), ias("strides", 2, 1), ias("pads", 1, 0, 1, 1)),
 			in: T(rnd(r, 2, 2, 5, 4))},
 		{name: "maxpool1d-ceil", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 2), ias("strides", 2), ia("ceil_mode", 1)),
