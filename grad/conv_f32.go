@@ -17,7 +17,7 @@ func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []flo
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	// samples per chunk: the column buffer stays below 256 Ki elements
 	// (1 MiB, cache-sized; buffers are reused between calls)
-	nc := max(1, (256<<10)/max(Cg*K*P, 1))
+	nc := max(1, (convChunk)/max(Cg*K*P, 1))
 	nc = min(nc, N)
 	ld := nc * P
 	cols := scratch(Cg * K * ld)
@@ -54,12 +54,11 @@ func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []flo
 							xc := x[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
 							for t := 0; t < K; t++ {
 								row := cols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
-								taps := win.tapsT[t*P : (t+1)*P]
-								for p, off := range taps {
-									if off >= 0 {
-										row[p] = xc[off]
+								for _, r := range win.runs[t] {
+									if r.off >= 0 {
+										copy(row[r.p:r.p+r.n], xc[r.off:r.off+r.n])
 									} else {
-										row[p] = 0
+										clear(row[r.p : r.p+r.n])
 									}
 								}
 							}
@@ -85,10 +84,13 @@ func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []flo
 							dx := gx[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
 							for t := 0; t < K; t++ {
 								row := dcols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
-								taps := win.tapsT[t*P : (t+1)*P]
-								for p, off := range taps {
-									if off >= 0 {
-										dx[off] += float64(row[p])
+								for _, r := range win.runs[t] {
+									if r.off < 0 {
+										continue
+									}
+									d, src := dx[r.off:r.off+r.n], row[r.p:r.p+r.n]
+									for i, v := range src {
+										d[i] += float64(v)
 									}
 								}
 							}
@@ -112,3 +114,6 @@ func scratch(n int) []float32 {
 }
 
 func release(b []float32) { scratchPool.Put(&b) }
+
+// convChunk bounds the column buffer of one chunk of samples (elements).
+var convChunk = 1 << 21

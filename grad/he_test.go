@@ -55,6 +55,7 @@ func TestHeBackwardVariance(t *testing.T) {
 				x[i] = float32(r.NormFloat64())
 			}
 			tape, out := runBatch(t, m, tensor.From(x, N, widths[0]))
+			tape.InputGrads = true
 			seed := make([]float64, out.Size())
 			for i := range seed {
 				seed[i] = r.NormFloat64()

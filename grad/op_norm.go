@@ -36,25 +36,41 @@ func batchNormVJP(o *Op) error {
 	s, mean, vr := o.X(1), o.X(3), o.X(4)
 	g := o.G(0)
 	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	x32, _ := X.Data.([]float32)
 	var x []float64
-	if gs != nil {
+	if gs != nil && x32 == nil {
 		x = o.X(0)
 	}
 	for c := 0; c < C; c++ {
 		inv := 1 / math.Sqrt(vr[c]+eps)
+		k := s[c] * inv
+		var sg, sgx float64 // Σ G and Σ G·x over the channel
 		for n := 0; n < N; n++ {
 			lo := (n*C + c) * I
-			for i := lo; i < lo+I; i++ {
-				if gx != nil {
-					gx[i] = g[i] * s[c] * inv
-				}
-				if gs != nil {
-					gs[c] += g[i] * (x[i] - mean[c]) * inv
-				}
-				if gb != nil {
-					gb[c] += g[i]
+			gr := g[lo : lo+I]
+			if gx != nil {
+				d := gx[lo : lo+I]
+				for i, v := range gr {
+					d[i] = v * k
 				}
 			}
+			if gs == nil && gb == nil {
+				continue
+			}
+			for i, v := range gr {
+				sg += v
+				if x32 != nil {
+					sgx += v * float64(x32[lo+i])
+				} else if x != nil {
+					sgx += v * x[lo+i]
+				}
+			}
+		}
+		if gs != nil { // Σ G·(x − μ)/√(σ²+ε)
+			gs[c] += (sgx - mean[c]*sg) * inv
+		}
+		if gb != nil {
+			gb[c] += sg
 		}
 	}
 	return nil

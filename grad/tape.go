@@ -14,7 +14,10 @@ import (
 // the run's hook. The values must stay unchanged until Backward returns (a
 // run without buffer recycling, or one whose recycling waits for it).
 type Tape struct {
-	plan *probe.Plan
+	// InputGrads asks Backward for dL/dx of the graph inputs too (off: the
+	// first layers skip that product).
+	InputGrads bool
+	plan       *probe.Plan
 	vals map[string]*tensor.Tensor
 	// step[n] is the main-graph step of node n (subgraph nodes are not recorded).
 	step map[*loader.Node]int
@@ -61,7 +64,7 @@ func (t *Tape) Value(name string) *tensor.Tensor { return t.vals[name] }
 type Result struct {
 	// Params are dL/dW for every float initializer a gradient reached.
 	Params map[string][]float64
-	// Inputs are dL/dx for the float graph inputs.
+	// Inputs are dL/dx for the float graph inputs (with Tape.InputGrads).
 	Inputs map[string][]float64
 	// Missing lists, by operator type, the nodes a gradient reached that
 	// have no VJP: nothing flows past them.
@@ -93,7 +96,7 @@ func (r *Result) MissingLines() []string {
 func (t *Tape) Backward(seed map[string][]float64, value func(step int, name string, g []float64)) (*Result, error) {
 	p := t.plan
 	// a value wants a gradient when it is float and depends on an
-	// initializer or a graph input
+	// initializer (or a graph input, with InputGrads)
 	wants := map[string]bool{}
 	for name, v := range t.vals {
 		if _, init := p.Graph.Initializers[name]; init && isFloat(v) {
@@ -101,7 +104,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		}
 	}
 	for _, in := range p.Graph.Inputs {
-		if v := t.vals[in.Name]; v != nil && isFloat(v) {
+		if v := t.vals[in.Name]; v != nil && isFloat(v) && t.InputGrads {
 			wants[in.Name] = true
 		}
 	}

@@ -17,7 +17,10 @@ type window struct {
 	taps []int
 	// tapsT[t*P+p] is taps[p*K+t]: tap-major, for the unrolling loops
 	tapsT []int
-	K     int // taps per window
+	// runs[t] cuts tap t's output positions into runs whose input offsets
+	// are consecutive (off, off+1, …) or all padding (off −1)
+	runs [][]run
+	K    int // taps per window
 	P     int // output positions
 	I     int // input positions
 }
@@ -93,8 +96,24 @@ func windowOf(o *Op, x, y *tensor.Tensor, kshape []int) (*window, error) {
 			w.tapsT[t*w.P+p] = w.taps[p*w.K+t]
 		}
 	}
+	w.runs = make([][]run, w.K)
+	for t := 0; t < w.K; t++ {
+		offs := w.tapsT[t*w.P : (t+1)*w.P]
+		for p := 0; p < w.P; {
+			r := run{p: p, off: offs[p], n: 1}
+			for p+r.n < w.P && ((r.off < 0 && offs[p+r.n] < 0) || (r.off >= 0 && offs[p+r.n] == r.off+r.n)) {
+				r.n++
+			}
+			w.runs[t] = append(w.runs[t], r)
+			p += r.n
+		}
+	}
 	return w, nil
 }
+
+// run is a stretch of n output positions from p whose taps read the input
+// offsets off, off+1, … (off −1: padding).
+type run struct{ p, off, n int }
 
 // incr advances a multi-index in row-major order.
 func incr(idx, shape []int) {
