@@ -134,6 +134,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		grads[name] = append([]float64(nil), g...)
 	}
 	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
+	free := &freeList{byLen: map[int][][]float64{}}
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
@@ -183,8 +184,15 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 			}
 		}
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
+		op.alloc = free.get
 		if err := f(op); err != nil {
 			return nil, fmt.Errorf("gradient of node %q (%s): %w", n.Name, n.OpType, err)
+		}
+		// the outputs' gradients are used up: their storage serves later steps
+		for _, g := range gOut {
+			if g != nil && !aliases(g, op.GIn) {
+				free.put(g)
+			}
 		}
 		for j, name := range n.Inputs {
 			g := op.GIn[j]
@@ -208,4 +216,29 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		}
 	}
 	return res, nil
+}
+
+// freeList recycles gradient buffers within one backward pass, by length.
+type freeList struct{ byLen map[int][][]float64 }
+
+func (f *freeList) get(n int) []float64 {
+	if l := f.byLen[n]; len(l) > 0 {
+		b := l[len(l)-1]
+		f.byLen[n] = l[:len(l)-1]
+		clear(b)
+		return b
+	}
+	return make([]float64, n)
+}
+
+func (f *freeList) put(b []float64) { f.byLen[len(b)] = append(f.byLen[len(b)], b) }
+
+// aliases reports whether g is (the start of) one of the buffers in gs.
+func aliases(g []float64, gs [][]float64) bool {
+	for _, x := range gs {
+		if len(x) > 0 && len(g) > 0 && &x[0] == &g[0] {
+			return true
+		}
+	}
+	return false
 }

@@ -22,6 +22,8 @@ type Op struct {
 	need []bool
 	xs   map[int][]float64
 	ys   map[int][]float64
+	// alloc, when set, returns a zeroed buffer (the tape's recycled ones).
+	alloc func(n int) []float64
 }
 
 // VJP computes the gradients of one operator: it reads o.GOut and the
@@ -82,7 +84,11 @@ func (o *Op) Grad(i int) []float64 {
 		return nil
 	}
 	if o.GIn[i] == nil {
-		o.GIn[i] = make([]float64, o.In[i].Size())
+		if o.alloc != nil {
+			o.GIn[i] = o.alloc(o.In[i].Size())
+		} else {
+			o.GIn[i] = make([]float64, o.In[i].Size())
+		}
 	}
 	return o.GIn[i]
 }
