@@ -18,7 +18,7 @@ type Tape struct {
 	// first layers skip that product).
 	InputGrads bool
 	plan       *probe.Plan
-	vals map[string]*tensor.Tensor
+	vals       map[string]*tensor.Tensor
 	// step[n] is the main-graph step of node n (subgraph nodes are not recorded).
 	step map[*loader.Node]int
 }

@@ -21,8 +21,8 @@ type window struct {
 	// are consecutive (off, off+1, …) or all padding (off −1)
 	runs [][]run
 	K    int // taps per window
-	P     int // output positions
-	I     int // input positions
+	P    int // output positions
+	I    int // input positions
 }
 
 // windowOf reads kernel_shape (default kshape), strides, dilations, pads and
