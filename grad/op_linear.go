@@ -73,9 +73,18 @@ func gemmVJP(o *Op) error {
 		}
 	}
 	if gc := o.Grad(2); gc != nil {
-		m := bcastMap(o.In[2].Shape, o.Out[0].Shape)
-		for k := range g {
-			gc[m[k]] += beta * g[k]
+		switch {
+		case len(gc) == N && (o.In[2].Rank() == 1 || o.In[2].Shape[0] == 1): // a bias row: column sums
+			for i := 0; i < M; i++ {
+				for j, v := range g[i*N : (i+1)*N] {
+					gc[j] += beta * v
+				}
+			}
+		default:
+			m := bcastMap(o.In[2].Shape, o.Out[0].Shape)
+			for k := range g {
+				gc[m[k]] += beta * g[k]
+			}
 		}
 	}
 	return nil
