@@ -58,9 +58,11 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 				}
 				s := []float64{1, sgn}[i]
 				if sameShape(sh, Y.Shape) {
-					for k, v := range g {
-						gi[k] = s * v
-					}
+					split(len(g), func(lo, hi int) {
+						for k := lo; k < hi; k++ {
+							gi[k] = s * g[k]
+						}
+					})
 					continue
 				}
 				m := bcastMap(sh, Y.Shape)

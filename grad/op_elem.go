@@ -108,9 +108,11 @@ func unary(name string, d func(x, y float64, o *Op) float64) {
 			return nil
 		}
 		x, y, g := o.X(0), o.Y(0), o.G(0)
-		for i := range gx {
-			gx[i] = g[i] * d(x[i], y[i], o)
-		}
+		split(len(gx), func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				gx[i] = g[i] * d(x[i], y[i], o)
+			}
+		})
 		return nil
 	})
 }
@@ -157,11 +159,13 @@ func reluVJP(o *Op) error {
 	}
 	g := o.G(0)
 	if x, ok := o.In[0].Data.([]float32); ok {
-		for i, v := range x {
-			if v > 0 {
-				gx[i] = g[i]
+		split(len(x), func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				if x[i] > 0 {
+					gx[i] = g[i]
+				}
 			}
-		}
+		})
 		return nil
 	}
 	for i, v := range o.X(0) {

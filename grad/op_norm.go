@@ -41,15 +41,18 @@ func batchNormVJP(o *Op) error {
 	if gs != nil && x32 == nil {
 		x = o.X(0)
 	}
-	for c := 0; c < C; c++ {
-		inv := 1 / math.Sqrt(vr[c]+eps)
-		k := s[c] * inv
-		var sg, sgx float64 // Σ G and Σ G·x over the channel
-		for n := 0; n < N; n++ {
-			lo := (n*C + c) * I
-			gr := g[lo : lo+I]
+	// per plane (sample n, channel c): Σ G and Σ G·x, then summed per channel
+	sg, sgx := make([]float64, N*C), make([]float64, N*C)
+	split(N*C*I, func(lo, hi int) {
+		for pl := lo / max(I, 1); pl < N*C && pl*I < hi; pl++ {
+			if pl*I < lo {
+				continue // the plane belongs to the part that holds its start
+			}
+			c := pl % C
+			gr := g[pl*I : (pl+1)*I]
 			if gx != nil {
-				d := gx[lo : lo+I]
+				k := s[c] / math.Sqrt(vr[c]+eps)
+				d := gx[pl*I : (pl+1)*I]
 				for i, v := range gr {
 					d[i] = v * k
 				}
@@ -57,20 +60,30 @@ func batchNormVJP(o *Op) error {
 			if gs == nil && gb == nil {
 				continue
 			}
+			var a, b float64
 			for i, v := range gr {
-				sg += v
+				a += v
 				if x32 != nil {
-					sgx += v * float64(x32[lo+i])
+					b += v * float64(x32[pl*I+i])
 				} else if x != nil {
-					sgx += v * x[lo+i]
+					b += v * x[pl*I+i]
 				}
 			}
+			sg[pl], sgx[pl] = a, b
+		}
+	})
+	for c := 0; c < C; c++ {
+		inv := 1 / math.Sqrt(vr[c]+eps)
+		var a, b float64
+		for n := 0; n < N; n++ {
+			a += sg[n*C+c]
+			b += sgx[n*C+c]
 		}
 		if gs != nil { // Σ G·(x − μ)/√(σ²+ε)
-			gs[c] += (sgx - mean[c]*sg) * inv
+			gs[c] += (b - mean[c]*a) * inv
 		}
 		if gb != nil {
-			gb[c] += sg
+			gb[c] += a
 		}
 	}
 	return nil
