@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -12,7 +13,9 @@ import (
 	"github.com/vitals-health/vitals/check"
 	"github.com/vitals-health/vitals/internal/modelbuild"
 	"github.com/vitals-health/vitals/internal/modeltest"
+	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/report"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // TestGradientsMatchTorchOverBatches: the whole backward pass of Check on
@@ -200,5 +203,68 @@ func TestSaturatedStackVanishes(t *testing.T) {
 			t.Errorf("%d saturated layers, %d named as cause: %s", len(saturated), named, v.Message)
 		}
 		t.Log(v.Message)
+	}
+}
+
+// TestGradientsMSE: --loss mse against targets equal to the model's own
+// outputs has L = 0 and every gradient exactly 0 (a known answer), which
+// the gradient-zero check reports for every weight; a targets file of the
+// wrong width stops the backward pass with a message and keeps the report.
+func TestGradientsMSE(t *testing.T) {
+	m := load(t, "../testdata/ref/mlp_healthy.onnx")
+	sample := check.Sample{Data: []string{"../testdata/ref/digits_sample.npy"}, Samples: 100, Batch: 32}
+	var rows []float32
+	_, err := check.Check(context.Background(), m, sample, check.Options{Outputs: func(outs map[string]*tensor.Tensor, k int) error {
+		rows = append(rows, outs["output"].F32()...)
+		return nil
+	}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	write := func(name string, v []float32, shape ...int) string {
+		p := filepath.Join(dir, name)
+		f, err := os.Create(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		if err := loader.WriteNpy(f, tensor.From(v, shape...)); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	same := write("same.npy", rows, 100, len(rows)/100)
+	r, err := check.Check(context.Background(), m, sample, check.Options{Gradients: &check.Gradients{Loss: "mse", Targets: same}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if g := r.Gradients; g.Loss != "mse" || g.Target != "targets" || *g.Value != 0 || g.Samples != 100 {
+		t.Fatalf("gradients %+v", g)
+	}
+	zero := 0
+	for _, f := range r.Findings {
+		if f.Check == "gradient-zero" {
+			zero++
+		}
+	}
+	for _, w := range r.Weights {
+		if w.GradNorm == nil || *w.GradNorm != 0 {
+			t.Errorf("%s: grad_norm %v, want 0", w.Name, w.GradNorm)
+		}
+	}
+	if zero != len(r.Weights) {
+		t.Errorf("%d gradient-zero findings for %d weights", zero, len(r.Weights))
+	}
+	narrow := write("narrow.npy", rows[:300], 100, 3)
+	r, err = check.Check(context.Background(), m, sample, check.Options{Gradients: &check.Gradients{Loss: "mse", Targets: narrow}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(r.Gradients.Stopped, "narrow.npy") || len(r.Layers) == 0 {
+		t.Errorf("stopped %q", r.Gradients.Stopped)
+	}
+	if _, err := check.Check(context.Background(), m, sample, check.Options{Gradients: &check.Gradients{Loss: "mse", Targets: filepath.Join(dir, "missing.npy")}}); err == nil || !strings.Contains(err.Error(), "missing.npy") {
+		t.Errorf("missing targets file: %v", err)
 	}
 }
