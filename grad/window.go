@@ -66,30 +66,7 @@ func windowOf(o *Op, x, y *tensor.Tensor, kshape []int) (*window, error) {
 			w.padBeg[d] = pads[d]
 		}
 	}
-	w.K, w.P, w.I = prod(w.k), prod(w.out), prod(w.in)
-	w.taps = make([]int, w.P*w.K)
-	op := make([]int, nd)
-	kk := make([]int, nd)
-	inStr := tensor.Strides(w.in)
-	for p := 0; p < w.P; p++ {
-		for i := range kk {
-			kk[i] = 0
-		}
-		for t := 0; t < w.K; t++ {
-			off := 0
-			for d := 0; d < nd && off >= 0; d++ {
-				c := op[d]*w.stride[d] - w.padBeg[d] + kk[d]*w.dil[d]
-				if c < 0 || c >= w.in[d] {
-					off = -1
-				} else {
-					off += c * inStr[d]
-				}
-			}
-			w.taps[p*w.K+t] = off
-			incr(kk, w.k)
-		}
-		incr(op, w.out)
-	}
+	fillTaps(w)
 	w.tapsT = make([]int, len(w.taps))
 	for p := 0; p < w.P; p++ {
 		for t := 0; t < w.K; t++ {
