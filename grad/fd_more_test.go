@@ -1,9 +1,12 @@
 package grad
 
 import (
+	"errors"
 	"math/rand"
+	"testing"
 
 	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
 	"github.com/vitals-health/vitals/tensor"
 )
 
@@ -73,6 +76,24 @@ func moreCases(r *rand.Rand) []fdCase {
 		{name: "spacetodepth", op: "SpaceToDepth", attrs: A(ia("blocksize", 2)), in: T(rnd(r, 1, 2, 4, 2))},
 		{name: "gatherelements", op: "GatherElements", attrs: A(ia("axis", 1)), in: T(rnd(r, 3, 4), tensor.From([]int64{0, 3, 3, 1, 2, 2}, 3, 2))},
 		{name: "gathernd", op: "GatherND", in: T(rnd(r, 3, 4), tensor.From([]int64{2, 1, 0, 3, 2, 1}, 3, 2))},
+		{name: "resize-nearest", op: "Resize", opset: 13, in: T(rnd(r, 1, 2, 3, 2), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
+		{name: "upsample-nearest", op: "Upsample", opset: 9, in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2}, 4))},
 		{name: "where", op: "Where", in: T(tensor.From([]bool{true, false, false, true, true, false}, 2, 3), rnd(r, 2, 3), rnd(r, 3))},
+	}
+}
+
+// TestNoRuleVariant: Resize in linear mode has no rule; the VJP says so with
+// NoRule (Backward then lists the node as missing instead of failing).
+func TestNoRuleVariant(t *testing.T) {
+	r := rand.New(rand.NewSource(4))
+	c := fdCase{name: "resize-linear", op: "Resize", opset: 13, attrs: []*loader.Attr{sa("mode", "linear")},
+		in: []*tensor.Tensor{rnd(r, 1, 1, 2, 2), nil, tensor.From([]float32{1, 1, 2, 2}, 4)}}
+	n := c.node()
+	outs := c.forward(t, n, c.in)
+	f, _ := Lookup("", "Resize")
+	err := f(NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 13}, [][]float64{make([]float64, outs[0].Size())}, nil))
+	var nr *noRuleError
+	if !errors.As(err, &nr) || nr.detail != "mode linear" {
+		t.Fatalf("got %v", err)
 	}
 }

@@ -24,8 +24,20 @@ func init() {
 		"Expand": {0}, "Tile": {0}, "Pad": {0}, "DepthToSpace": {0}, "SpaceToDepth": {0},
 		"Split": {0}, "Concat": nil,
 	} {
-		register(op, routeVJP(routed))
+		register(op, routeVJP(routed, false))
 	}
+	register("Resize", resizeVJP)
+	register("Upsample", resizeVJP)
+}
+
+// resizeVJP: nearest-neighbour resizing only copies elements and is traced
+// like the others (its scales, sizes and roi kept); the interpolating modes
+// have no rule here.
+func resizeVJP(o *Op) error {
+	if mode := o.Str("mode", "nearest"); mode != "nearest" {
+		return NoRule("mode " + mode)
+	}
+	return routeVJP([]int{0}, true)(o)
 }
 
 func sameOrder(o *Op) error {
@@ -35,8 +47,10 @@ func sameOrder(o *Op) error {
 	return nil
 }
 
-// routeVJP traces the inputs routed (nil: every float input).
-func routeVJP(routed []int) VJP {
+// routeVJP traces the inputs routed (nil: every float input); the other
+// float inputs are fed zeros, or their own values with keep (Resize's
+// scales).
+func routeVJP(routed []int, keep bool) VJP {
 	return func(o *Op) error {
 		k, ok := probe.Lookup(o.Node.Domain, o.Node.OpType, o.Opset)
 		if !ok {
@@ -72,7 +86,7 @@ func routeVJP(routed []int) VJP {
 				}
 				next += len(lab)
 				in[i] = tensor.From(lab, t.Shape...)
-			case isFloat(t): // e.g. Pad's constant value: 0 marks "no input element"
+			case isFloat(t) && !keep: // e.g. Pad's constant value: 0 marks "no input element"
 				in[i] = tensor.From(make([]float64, t.Size()), t.Shape...)
 			}
 		}

@@ -1,6 +1,7 @@
 package grad
 
 import (
+	"errors"
 	"fmt"
 	"sort"
 
@@ -186,6 +187,12 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc = free.get
 		if err := f(op); err != nil {
+			var nr *noRuleError
+			if errors.As(err, &nr) {
+				key := n.OpType + " " + nr.detail
+				res.Missing[key] = append(res.Missing[key], n.Name)
+				continue
+			}
 			return nil, fmt.Errorf("gradient of node %q (%s): %w", n.Name, n.OpType, err)
 		}
 		// the outputs' gradients are used up: their storage serves later steps

@@ -26,6 +26,14 @@ type Op struct {
 	alloc func(n int) []float64
 }
 
+// NoRule is the error of a VJP for an operator variant it has no rule for
+// (Resize in linear mode): Backward lists the node as missing, "Op (detail)".
+func NoRule(detail string) error { return &noRuleError{detail} }
+
+type noRuleError struct{ detail string }
+
+func (e *noRuleError) Error() string { return "no gradient rule for " + e.detail }
+
 // VJP computes the gradients of one operator: it reads o.GOut and the
 // forward values and fills the buffers o.Grad(i) returns.
 type VJP func(o *Op) error
