@@ -65,10 +65,11 @@ type gradRun struct {
 	targets *tensor.Tensor
 	done    int // samples seen (offset into targets)
 	off     bool
+	budget  int64 // Options.MemoryBudget (0: none)
 }
 
-func newGradRun(m *Model, o *Gradients, labels bool) (*gradRun, error) {
-	g := &gradRun{o: o, m: m, tape: grad.NewTape(m.plan), acc: grad.NewAccumulator()}
+func newGradRun(m *Model, o *Gradients, labels bool, budget int64) (*gradRun, error) {
+	g := &gradRun{o: o, m: m, tape: grad.NewTape(m.plan), acc: grad.NewAccumulator(), budget: budget}
 	g.info = report.Gradients{Loss: "cross-entropy", Target: "pseudo-labels", Missing: []string{},
 		Mode: "inference mode: BatchNormalization uses its running mean and variance (no gradient into them), Dropout is the identity; every float initializer is a trainable parameter"}
 	if labels {
@@ -152,6 +153,10 @@ func (g *gradRun) batch(outs map[string]*tensor.Tensor, labels []int64, k int) {
 	}
 	if err != nil {
 		g.stop("loss on samples %d–%d: %v", g.done, g.done+k-1, err)
+		return
+	}
+	if b := g.tape.Bytes(); g.budget > 0 && b > g.budget {
+		g.stop("the backward pass of a batch of %d samples needs about %d MiB of gradients, over the memory budget of %d MiB: use a smaller --batch or a larger --max-memory", k, b>>20, g.budget>>20)
 		return
 	}
 	if err := g.acc.Add(g.tape, name, loss, seed, k); err != nil {

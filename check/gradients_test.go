@@ -267,4 +267,14 @@ func TestGradientsMSE(t *testing.T) {
 	if _, err := check.Check(context.Background(), m, sample, check.Options{Gradients: &check.Gradients{Loss: "mse", Targets: filepath.Join(dir, "missing.npy")}}); err == nil || !strings.Contains(err.Error(), "missing.npy") {
 		t.Errorf("missing targets file: %v", err)
 	}
+	// 20 KiB: every tensor of the forward pass fits (the largest, the
+	// input batch, is 32·64·4 = 8 KiB), the float64 gradients of all the
+	// batch's values (the input alone 16 KiB) do not
+	r, err = check.Check(context.Background(), m, sample, check.Options{MemoryBudget: 20 << 10, Gradients: &check.Gradients{}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(r.Gradients.Stopped, "memory budget") {
+		t.Errorf("over budget: stopped %q", r.Gradients.Stopped)
+	}
 }

@@ -77,7 +77,7 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 	var gr *gradRun
 	if o.Gradients != nil {
 		var err error
-		if gr, err = newGradRun(m, o.Gradients, feed.labels != nil); err != nil {
+		if gr, err = newGradRun(m, o.Gradients, feed.labels != nil, o.MemoryBudget); err != nil {
 			return nil, err
 		}
 	}

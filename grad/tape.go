@@ -58,6 +58,19 @@ func (t *Tape) Record(n *loader.Node, outs []*tensor.Tensor) {
 	}
 }
 
+// Bytes estimates the memory a backward pass over the recorded batch needs
+// beyond the batch itself: a float64 gradient for every float value (an
+// upper bound; gradients are freed as the pass goes down).
+func (t *Tape) Bytes() int64 {
+	var n int64
+	for name, v := range t.vals {
+		if _, init := t.plan.Graph.Initializers[name]; !init && isFloat(v) {
+			n += int64(v.Size()) * 8
+		}
+	}
+	return n
+}
+
 // Value returns a recorded value.
 func (t *Tape) Value(name string) *tensor.Tensor { return t.vals[name] }
 
