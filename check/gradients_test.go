@@ -278,3 +278,81 @@ func TestGradientsMSE(t *testing.T) {
 		t.Errorf("over budget: stopped %q", r.Gradients.Stopped)
 	}
 }
+
+// deepRelu writes 9 Gemm+Relu layers of width 128 (no bias) on 128 inputs
+// and a 10-class head, weights with Var[w] = gain/fan_out.
+func deepRelu(t *testing.T, gain float64) string {
+	r := rand.New(rand.NewSource(9))
+	b := modelbuild.New("deep_relu", 13)
+	b.Input("x", []int{1, 128}, true)
+	prev := "x"
+	for l := 1; l <= 10; l++ {
+		out := 128
+		if l == 10 {
+			out = 10
+		}
+		w := make([]float32, out*128)
+		for i := range w {
+			w[i] = float32(r.NormFloat64() * math.Sqrt(gain/float64(out)))
+		}
+		b.Init(fmt.Sprintf("w%d", l), []int{out, 128}, w)
+		prev = b.Node("Gemm", fmt.Sprintf("/fc%d/Gemm", l), []string{prev, fmt.Sprintf("w%d", l)}, []string{fmt.Sprintf("z%d", l)}, modelbuild.Attr{Name: "transB", Value: int64(1)})
+		if l < 10 {
+			prev = b.Node("Relu", fmt.Sprintf("/act%d/Relu", l), []string{prev}, []string{fmt.Sprintf("h%d", l)})
+		}
+	}
+	b.Output(prev)
+	path := filepath.Join(t.TempDir(), "deep_relu.onnx")
+	if err := b.Write(path); err != nil {
+		t.Fatal(err)
+	}
+	return path
+}
+
+// TestReluStackGradientRatio: He et al. 2015 (§2.2, backward case) predict
+// the activation-gradient RMS of a ReLU stack to change by √(½·n̂·Var[w])
+// per layer: with Var[w] = 8/fan_out that is ×2 per layer towards the input,
+// 2⁸ = 256 over the 8 steps between the first and the ninth ReLU (past
+// gradient-explosion's 1e2, which names the stack's spread-explosion as the
+// forward-pass cause: fan_in = fan_out, the activations grow alike); with
+// 0.5/fan_out it is 1/256 (gradient-vanishing, under 1e-2); with He's
+// 2/fan_out neither fires. The measured ratio is within a factor 2 of 2⁸.
+func TestReluStackGradientRatio(t *testing.T) {
+	for _, c := range []struct {
+		gain  float64
+		check string
+		want  float64
+	}{{8, "gradient-explosion", 256}, {0.5, "gradient-vanishing", 1.0 / 256}, {2, "", 1}} {
+		m := load(t, deepRelu(t, c.gain))
+		r, err := check.Check(context.Background(), m, check.Sample{Samples: 256}, check.Options{Gradients: &check.Gradients{}})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var got *report.Finding
+		for i, f := range r.Findings {
+			if f.Check == "gradient-explosion" || f.Check == "gradient-vanishing" {
+				if got != nil {
+					t.Errorf("gain %g: two gradient findings", c.gain)
+				}
+				got = &r.Findings[i]
+			}
+		}
+		if c.check == "" {
+			if got != nil {
+				t.Errorf("gain 2: unexpected %s: %s", got.Check, got.Message)
+			}
+			continue
+		}
+		if got == nil || got.Check != c.check || got.Node != "/act1/Relu" {
+			t.Fatalf("gain %g: finding %+v, want %s at /act1/Relu", c.gain, got, c.check)
+		}
+		ratio := got.Evidence["ratio"].(float64)
+		if ratio < c.want/2 || ratio > c.want*2 {
+			t.Errorf("gain %g: ratio %.4g, He et al. predict %.4g", c.gain, ratio, c.want)
+		}
+		if c.gain == 8 && !strings.Contains(got.Message, "spread-explosion") {
+			t.Errorf("explosion does not name the forward spread: %s", got.Message)
+		}
+		t.Logf("gain %g: %s", c.gain, got.Message)
+	}
+}

@@ -27,11 +27,12 @@ var gradExplosionCheck = &Check{
 			if ratio > p.T("error") {
 				sev = report.Error
 			}
+			cs := spreadCause(p, s.st, false)
 			p.Emit(sev, s.first.Node, math.Log10(ratio/p.T("warning"))+1, map[string]any{
 				"grad_rms_first": lo, "grad_rms_last": hi, "ratio": ratio, "layers": len(s.st.Layers),
-				"last": s.last.Node, "warning_at": p.T("warning"), "error_at": p.T("error")},
-				"activation gradient RMS grows from %.3g at %q to %.3g here over %d layers (ratio %.3g): the gradient explodes with depth. Usual fixes: smaller initial weights (He/Xavier), normalisation layers, gradient clipping",
-				hi, s.last.Node, lo, len(s.st.Layers), ratio)
+				"last": s.last.Node, "explained_by": causesJSON(cs), "warning_at": p.T("warning"), "error_at": p.T("error")},
+				"activation gradient RMS grows from %.3g at %q to %.3g here over %d layers (ratio %.3g): the gradient explodes with depth.%s Usual fixes: smaller initial weights (He/Xavier), normalisation layers, gradient clipping",
+				hi, s.last.Node, lo, len(s.st.Layers), ratio, causeText(cs))
 		}
 	},
 }

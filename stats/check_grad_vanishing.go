@@ -31,7 +31,7 @@ var gradVanishingCheck = &Check{
 			if ratio < p.T("error") {
 				sev = report.Error
 			}
-			cs := causesAmong(p, s.st.Layers)
+			cs := append(causesAmong(p, s.st.Layers), spreadCause(p, s.st, true)...)
 			p.Emit(sev, s.first.Node, math.Log10(p.T("warning")/ratio)+1, map[string]any{
 				"grad_rms_first": lo, "grad_rms_last": hi, "ratio": ratio, "layers": len(s.st.Layers),
 				"last": s.last.Node, "explained_by": causesJSON(cs), "warning_at": p.T("warning"), "error_at": p.T("error")},

@@ -32,6 +32,25 @@ func causesAmong(p *Pass, layers []int) []gradCause {
 	return out
 }
 
+// spreadCause is the stack's own spread-collapse (collapse true) or
+// spread-explosion finding, when its activation std ratio last/first is past
+// that check's warning threshold: the forward signal shrinking or growing
+// along the same layers.
+func spreadCause(p *Pass, st Stack, collapse bool) []gradCause {
+	first, last := p.Report.Layers[st.Layers[0]], p.Report.Layers[st.Layers[len(st.Layers)-1]]
+	if first.Std == nil || last.Std == nil || *first.Std <= 0 {
+		return nil
+	}
+	r := *last.Std / *first.Std
+	if collapse && r < p.Thresholds["spread-collapse.warning"] {
+		return []gradCause{{"spread-collapse", last.Node, r}}
+	}
+	if !collapse && r > p.Thresholds["spread-explosion.warning"] {
+		return []gradCause{{"spread-explosion", last.Node, r}}
+	}
+	return nil
+}
+
 // causeText is the sentence naming the causes ("" without any).
 func causeText(cs []gradCause) string {
 	if len(cs) == 0 {
@@ -43,13 +62,16 @@ func causeText(cs []gradCause) string {
 			parts = append(parts, fmt.Sprintf("and %d more", len(cs)-4))
 			break
 		}
-		what := "dead"
-		if c.Check == "saturation" {
-			what = "saturated"
+		switch c.Check {
+		case "spread-collapse", "spread-explosion":
+			parts = append(parts, fmt.Sprintf("the activation std ratio %.2g along the same layers (%s at %q)", c.Share, c.Check, c.Node))
+		case "saturation":
+			parts = append(parts, fmt.Sprintf("%q (%s saturated)", c.Node, pct(c.Share)))
+		default:
+			parts = append(parts, fmt.Sprintf("%q (%s dead)", c.Node, pct(c.Share)))
 		}
-		parts = append(parts, fmt.Sprintf("%q (%s %s)", c.Node, pct(c.Share), what))
 	}
-	return " Explained by the forward pass: " + strings.Join(parts, ", ") + " (see their " + cs[0].Check + " findings) pass almost no gradient."
+	return " Explained by the forward pass (see those findings): " + strings.Join(parts, ", ") + "."
 }
 
 // gradStacks are the stacks whose every layer has a gradient RMS, at
