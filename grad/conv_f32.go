@@ -55,10 +55,16 @@ func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []flo
 							for t := 0; t < K; t++ {
 								row := cols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
 								for _, r := range win.runs[t] {
-									if r.off >= 0 {
-										copy(row[r.p:r.p+r.n], xc[r.off:r.off+r.n])
-									} else {
+									switch {
+									case r.off < 0:
 										clear(row[r.p : r.p+r.n])
+									case r.step == 1:
+										copy(row[r.p:r.p+r.n], xc[r.off:r.off+r.n])
+									default:
+										d := row[r.p : r.p+r.n]
+										for i := range d {
+											d[i] = xc[r.off+i*r.step]
+										}
 									}
 								}
 							}
@@ -88,9 +94,16 @@ func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []flo
 									if r.off < 0 {
 										continue
 									}
-									d, src := dx[r.off:r.off+r.n], row[r.p:r.p+r.n]
+									src := row[r.p : r.p+r.n]
+									if r.step == 1 {
+										d := dx[r.off : r.off+r.n]
+										for i, v := range src {
+											d[i] += float64(v)
+										}
+										continue
+									}
 									for i, v := range src {
-										d[i] += float64(v)
+										dx[r.off+i*r.step] += float64(v)
 									}
 								}
 							}

@@ -18,7 +18,7 @@ type window struct {
 	// tapsT[t*P+p] is taps[p*K+t]: tap-major, for the unrolling loops
 	tapsT []int
 	// runs[t] cuts tap t's output positions into runs whose input offsets
-	// are consecutive (off, off+1, …) or all padding (off −1)
+	// step evenly (off, off+step, …; the stride) or are all padding (off −1)
 	runs [][]run
 	K    int // taps per window
 	P    int // output positions
@@ -77,8 +77,11 @@ func windowOf(o *Op, x, y *tensor.Tensor, kshape []int) (*window, error) {
 	for t := 0; t < w.K; t++ {
 		offs := w.tapsT[t*w.P : (t+1)*w.P]
 		for p := 0; p < w.P; {
-			r := run{p: p, off: offs[p], n: 1}
-			for p+r.n < w.P && ((r.off < 0 && offs[p+r.n] < 0) || (r.off >= 0 && offs[p+r.n] == r.off+r.n)) {
+			r := run{p: p, off: offs[p], n: 1, step: 1}
+			if r.off >= 0 && p+1 < w.P && offs[p+1] > r.off {
+				r.step = offs[p+1] - r.off
+			}
+			for p+r.n < w.P && ((r.off < 0 && offs[p+r.n] < 0) || (r.off >= 0 && offs[p+r.n] == r.off+r.n*r.step)) {
 				r.n++
 			}
 			w.runs[t] = append(w.runs[t], r)
@@ -89,8 +92,8 @@ func windowOf(o *Op, x, y *tensor.Tensor, kshape []int) (*window, error) {
 }
 
 // run is a stretch of n output positions from p whose taps read the input
-// offsets off, off+1, … (off −1: padding).
-type run struct{ p, off, n int }
+// offsets off, off+step, off+2·step, … (off −1: padding).
+type run struct{ p, off, n, step int }
 
 // incr advances a multi-index in row-major order.
 func incr(idx, shape []int) {
