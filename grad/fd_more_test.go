@@ -78,6 +78,15 @@ func moreCases(r *rand.Rand) []fdCase {
 		{name: "gathernd", op: "GatherND", in: T(rnd(r, 3, 4), tensor.From([]int64{2, 1, 0, 3, 2, 1}, 3, 2))},
 		{name: "resize-nearest", op: "Resize", opset: 13, in: T(rnd(r, 1, 2, 3, 2), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
 		{name: "upsample-nearest", op: "Upsample", opset: 9, in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2}, 4))},
+		{name: "lstm-peephole-bias-state", op: "LSTM", opset: 14, nOut: 3, f32: true, attrs: A(ia("hidden_size", 3)),
+			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 24), 0.5), nil,
+				scaled(rnd(r, 1, 2, 3), 0.5), scaled(rnd(r, 1, 2, 3), 0.5), scaled(rnd(r, 1, 9), 0.5))},
+		{name: "lstm-bidirectional", op: "LSTM", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 2), sa("direction", "bidirectional")),
+			in: T(scaled(rnd(r, 3, 2, 2), 0.5), scaled(rnd(r, 2, 8, 2), 0.5), scaled(rnd(r, 2, 8, 2), 0.5), scaled(rnd(r, 2, 16), 0.5))},
+		{name: "gru-state-bias", op: "GRU", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 3)),
+			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 9, 3), 0.5), scaled(rnd(r, 1, 9, 3), 0.5), scaled(rnd(r, 1, 18), 0.5), nil, scaled(rnd(r, 1, 2, 3), 0.5))},
+		{name: "gru-bidirectional-lbr", op: "GRU", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 2), sa("direction", "bidirectional"), ia("linear_before_reset", 1)),
+			in: T(scaled(rnd(r, 3, 2, 2), 0.5), scaled(rnd(r, 2, 6, 2), 0.5), scaled(rnd(r, 2, 6, 2), 0.5), scaled(rnd(r, 2, 12), 0.5), nil, scaled(rnd(r, 2, 2, 2), 0.5))},
 		{name: "where", op: "Where", in: T(tensor.From([]bool{true, false, false, true, true, false}, 2, 3), rnd(r, 2, 3), rnd(r, 3))},
 	}
 }

@@ -66,6 +66,52 @@ def pool(x, a, kind):
     return {1: F.avg_pool1d, 2: F.avg_pool2d}[nd](x, k, s)
 
 
+def onnx_rnn(kind, i, a, H):
+    """ONNX LSTM (gates i o f c) or GRU (gates z r h), default activations,
+    any direction; returns the node's outputs (Y [T, dirs, B, H], Y_h, Y_c)."""
+    X, W, R = i[0], i[1], i[2]
+    B_ = i[3] if len(i) > 3 and i[3] is not None else None
+    h0 = i[5] if len(i) > 5 and i[5] is not None else None
+    c0 = i[6] if len(i) > 6 and i[6] is not None else None
+    T, N = X.shape[0], X.shape[1]
+    direction = a.get("direction", b"forward")
+    direction = direction.decode() if isinstance(direction, bytes) else direction
+    revs = {"forward": [False], "reverse": [True], "bidirectional": [False, True]}[direction]
+    G = W.shape[1]
+    ys, hs, cs = [], [], []
+    for d, rev in enumerate(revs):
+        Wb = B_[d, :G] if B_ is not None else 0
+        Rb = B_[d, G:] if B_ is not None else 0
+        h = h0[d] if h0 is not None else torch.zeros(N, H, dtype=torch.float64)
+        c = c0[d] if c0 is not None else torch.zeros(N, H, dtype=torch.float64)
+        out = [None] * T
+        for t in (reversed(range(T)) if rev else range(T)):
+            if kind == "LSTM":
+                g = X[t] @ W[d].t() + h @ R[d].t() + Wb + Rb
+                gi, go, gf, gc = g.split(H, dim=1)
+                c = torch.sigmoid(gf) * c + torch.sigmoid(gi) * torch.tanh(gc)
+                h = torch.sigmoid(go) * torch.tanh(c)
+            else:
+                xw = X[t] @ W[d].t() + Wb
+                Wbh = Wb[2 * H:] if B_ is not None else 0
+                Rbh = Rb[2 * H:] if B_ is not None else 0
+                xz, xr, xh = xw.split(H, dim=1)
+                hz = h @ R[d][:H].t() + (Rb[:H] if B_ is not None else 0)
+                hr = h @ R[d][H:2 * H].t() + (Rb[H:2 * H] if B_ is not None else 0)
+                z, r = torch.sigmoid(xz + hz), torch.sigmoid(xr + hr)
+                if a.get("linear_before_reset", 0):
+                    hh = torch.tanh(xh + r * (h @ R[d][2 * H:].t() + Rbh))
+                else:
+                    hh = torch.tanh(xh + (r * h) @ R[d][2 * H:].t() + Rbh)
+                h = (1 - z) * hh + z * h
+            out[t] = h
+        ys.append(torch.stack(out))
+        hs.append(h)
+        cs.append(c)
+    Y = torch.stack(ys, dim=1)
+    return [Y, torch.stack(hs), torch.stack(cs)]
+
+
 def run_graph(model, x, keep):
     g = model.graph
     env = {}
@@ -79,6 +125,7 @@ def run_graph(model, x, keep):
             t = torch.tensor(arr)
         env[init.name] = t
     env[g.input[0].name] = x
+    opset = model.opset_import[0].version
     for n in g.node:
         a = attrs(n)
         i = [env[v] if v else None for v in n.input]
@@ -87,6 +134,33 @@ def run_graph(model, x, keep):
             y = torch.tensor(onnx.numpy_helper.to_array(a["value"]))
             if y.dtype == torch.float32:
                 y = y.double()
+        elif op in ("LSTM", "GRU"):
+            outs = onnx_rnn(op, i, a, a["hidden_size"])
+            for name, v in zip(n.output, outs):
+                if name:
+                    v.retain_grad()
+                    keep[name] = v
+                    env[name] = v
+            continue
+        elif op == "Gather":
+            ax = a.get("axis", 0)
+            idx = i[1].long()
+            flat = i[0].index_select(ax, idx.reshape(-1) % i[0].shape[ax])
+            y = flat.reshape(tuple(i[0].shape[:ax]) + tuple(idx.shape) + tuple(i[0].shape[ax + 1:]))
+        elif op == "Shape":
+            y = torch.tensor(list(i[0].shape), dtype=torch.int64)
+        elif op == "ConstantOfShape":
+            y = torch.zeros([int(v) for v in i[0].tolist()], dtype=torch.float64)
+        elif op == "Unsqueeze":
+            axes = a["axes"] if opset < 13 else [int(v) for v in i[1].tolist()]
+            y = i[0]
+            for ax in sorted(axes):
+                y = y.unsqueeze(ax)
+        elif op == "Squeeze":
+            axes = a.get("axes") if opset < 13 else ([int(v) for v in i[1].tolist()] if len(i) > 1 else None)
+            y = i[0]
+            for ax in sorted(axes, reverse=True):
+                y = y.squeeze(ax)
         elif op == "Conv":
             y = conv(i[0], i[1], i[2] if len(i) > 2 else None, a)
         elif op == "Gemm":
@@ -167,12 +241,8 @@ def main():
     index = json.loads((REF / "index.json").read_text())
     for m in index["models"]:
         model = onnx.load(str(REF / m["files"]["model"]))
-        ops = {n.op_type for n in model.graph.node}
-        if ops & {"LSTM", "GRU", "Gather", "Shape", "ConstantOfShape"}:
-            print("skip", m["name"], "(recurrent)")
-            continue
         x = np.load(REF / m["files"]["input"])
-        xt = torch.tensor(x.astype(np.float64))
+        xt = torch.tensor(x.astype(np.float64) if x.dtype.kind == "f" else x.astype(np.int64))
         keep = {}
         out, params = run_graph(model, xt, keep)
         ref = np.load(REF / m["files"]["output"])
