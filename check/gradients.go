@@ -71,7 +71,7 @@ type gradRun struct {
 func newGradRun(m *Model, o *Gradients, labels bool, budget int64) (*gradRun, error) {
 	g := &gradRun{o: o, m: m, tape: grad.NewTape(m.plan), acc: grad.NewAccumulator(), budget: budget}
 	g.info = report.Gradients{Loss: "cross-entropy", Target: "pseudo-labels", Missing: []string{},
-		Mode: "inference mode: BatchNormalization uses its running mean and variance (no gradient into them), Dropout is the identity; every float initializer is a trainable parameter"}
+		Mode: "inference mode: BatchNormalization uses its running mean and variance (no gradient into them), Dropout is the identity; every float initializer and Constant-node float tensor is a trainable parameter"}
 	if labels {
 		g.info.Target = "labels"
 	}
@@ -183,11 +183,19 @@ func (g *gradRun) fill(r *report.Report) {
 			r.Layers[i].GradRMS = &v
 		}
 	}
-	inits := g.m.model.Graph.Initializers
+	params := map[string]*tensor.Tensor{}
+	for name, t := range g.m.model.Graph.Initializers {
+		params[name] = t
+	}
+	for _, n := range g.m.model.Graph.Nodes { // weights given as Constant nodes
+		if t := grad.ConstantParam(n); t != nil && len(n.Outputs) > 0 {
+			params[n.Outputs[0]] = t
+		}
+	}
 	for i := range r.Weights {
 		w := &r.Weights[i]
 		gn, ok := g.acc.ParamNorm(w.Name)
-		t := inits[w.Name]
+		t := params[w.Name]
 		if !ok || t == nil {
 			continue
 		}

@@ -369,3 +369,38 @@ func TestReluStackGradientRatio(t *testing.T) {
 		t.Logf("gain %g: %s", c.gain, got.Message)
 	}
 }
+
+// TestGradientsControlFlow: a Loop (loop_rnn) and an If (if_guard) read
+// weights through their bodies, which have no gradient rule: each is listed
+// as missing, the head above the Loop still has its gradient, and the
+// weights given as Constant nodes (const_weights) are trainable parameters.
+func TestGradientsControlFlow(t *testing.T) {
+	for _, c := range []struct {
+		model, missing string
+		withGrad       []string
+	}{
+		{"loop_rnn", "Loop ", []string{"/head.weight"}},
+		{"if_guard", "If ", nil},
+		{"const_weights", "", []string{"fc1.weight", "fc2.weight"}},
+	} {
+		dir := "../testdata/controlflow/"
+		r, err := check.Check(context.Background(), load(t, dir+c.model+".onnx"),
+			check.Sample{Data: []string{dir + c.model + ".input.npy"}}, check.Options{Gradients: &check.Gradients{}})
+		if err != nil {
+			t.Fatal(err)
+		}
+		g := r.Gradients
+		if c.missing == "" && len(g.Missing) != 0 || c.missing != "" && (len(g.Missing) != 1 || !strings.HasPrefix(g.Missing[0], c.missing)) {
+			t.Errorf("%s: missing %q", c.model, g.Missing)
+		}
+		has := map[string]bool{}
+		for _, w := range r.Weights {
+			has[w.Name] = w.GradNorm != nil && *w.GradNorm > 0 && w.Norm != nil && *w.Norm > 0
+		}
+		for _, w := range c.withGrad {
+			if !has[w] {
+				t.Errorf("%s: %s has no gradient (weights %v)", c.model, w, has)
+			}
+		}
+	}
+}

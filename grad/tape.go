@@ -76,7 +76,8 @@ func (t *Tape) Value(name string) *tensor.Tensor { return t.vals[name] }
 
 // Result is what one backward pass produced.
 type Result struct {
-	// Params are dL/dW for every float initializer a gradient reached.
+	// Params are dL/dW for every float initializer (and float Constant node
+	// tensor, by output name) a gradient reached.
 	Params map[string][]float64
 	// Inputs are dL/dx for the float graph inputs (with Tape.InputGrads).
 	Inputs map[string][]float64
@@ -110,7 +111,9 @@ func (r *Result) MissingLines() []string {
 func (t *Tape) Backward(seed map[string][]float64, value func(step int, name string, g []float64)) (*Result, error) {
 	p := t.plan
 	// a value wants a gradient when it is float and depends on an
-	// initializer (or a graph input, with InputGrads)
+	// initializer or a Constant node's float tensor (parameters too), or a
+	// graph input with InputGrads; a node with subgraphs (If, Loop, Scan)
+	// may read parameters through its bodies, so its outputs want one too
 	wants := map[string]bool{}
 	for name, v := range t.vals {
 		if _, init := p.Graph.Initializers[name]; init && isFloat(v) {
@@ -123,7 +126,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		}
 	}
 	for _, s := range p.Steps {
-		dep := false
+		dep := isParamNode(s.Node) || hasSubgraph(s.Node)
 		for _, in := range s.Node.Inputs {
 			dep = dep || (in != "" && wants[in])
 		}
@@ -165,6 +168,18 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 			}
 		}
 		if !any {
+			continue
+		}
+		if isParamNode(n) { // a weight given as a Constant node
+			for j, o := range n.Outputs {
+				if gOut[j] != nil {
+					res.Params[o] = gOut[j]
+				}
+			}
+			continue
+		}
+		if hasSubgraph(n) { // no rule through bodies
+			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
 			continue
 		}
 		need := make([]bool, len(n.Inputs))
@@ -257,6 +272,35 @@ func (f *freeList) put(b []float64) { f.byLen[len(b)] = append(f.byLen[len(b)], 
 func aliases(g []float64, gs [][]float64) bool {
 	for _, x := range gs {
 		if len(x) > 0 && len(g) > 0 && &x[0] == &g[0] {
+			return true
+		}
+	}
+	return false
+}
+
+// isParamNode reports a Constant node holding a float tensor of rank ≥ 1: a
+// weight stored as a node (its gradient is reported like an initializer's).
+func isParamNode(n *loader.Node) bool { return ConstantParam(n) != nil }
+
+// ConstantParam is the float tensor of rank ≥ 1 a Constant node holds
+// (attribute value or value_floats), nil for any other node.
+func ConstantParam(n *loader.Node) *tensor.Tensor {
+	if n.OpType != "Constant" || (n.Domain != "" && n.Domain != "ai.onnx") {
+		return nil
+	}
+	if a := n.Attrs["value"]; a != nil && a.T != nil && isFloat(a.T) && a.T.Rank() >= 1 {
+		return a.T
+	}
+	if a := n.Attrs["value_floats"]; a != nil {
+		return tensor.From(a.Floats, len(a.Floats))
+	}
+	return nil
+}
+
+// hasSubgraph reports a node with a graph attribute (If, Loop, Scan).
+func hasSubgraph(n *loader.Node) bool {
+	for _, a := range n.Attrs {
+		if a.G != nil || len(a.Graphs) > 0 {
 			return true
 		}
 	}
