@@ -1,9 +1,10 @@
 #!/bin/sh
 # Time of `check` with the backward pass against without it (issue 18's
-# target: at most 3x), on the demo MLP (2,000 samples) and on resnet_tiny and
-# vgg_bn (64 synthetic samples). Runs BenchmarkCheckGradients COUNT times
-# (default 5) and prints, per model, the fastest run of each and their ratio
-# (the fastest run is the one least disturbed by other processes).
+# target: at most 3x), on the demo MLP (2,000 samples) and on resnet_tiny,
+# vgg_bn and mobile_hardswish (64 synthetic samples). Runs
+# BenchmarkCheckGradients COUNT times (default 5) and prints, per model, the
+# fastest run of each and their ratio (the fastest run is the one least
+# disturbed by other processes).
 set -e
 cd "$(dirname "$0")/.."
 COUNT=${COUNT:-5}
@@ -18,6 +19,6 @@ go test ./check -run '^$' -bench CheckGradients -benchtime 5x -count "$COUNT" | 
 END {
 	for (m in models) {
 		f = best[m " forward"]; g = best[m " gradients"]
-		printf "%-12s forward %8.1f ms  with gradients %8.1f ms  ratio %.2fx\n", m, f / 1e6, g / 1e6, g / f
+		printf "%-17s forward %8.1f ms  with gradients %8.1f ms  ratio %.2fx\n", m, f / 1e6, g / 1e6, g / f
 	}
 }'

@@ -9,8 +9,9 @@ import (
 
 // BenchmarkCheckGradients: the time of a check with the backward pass
 // against the same check without it (target: at most 3×), on the demo MLP
-// (2,000 samples from the file) and on resnet_tiny and vgg_bn (64 synthetic
-// samples, conv layers). Run:
+// (2,000 samples from the file) and on resnet_tiny, vgg_bn and
+// mobile_hardswish (64 synthetic samples; convolutions, depthwise in the
+// last). Run:
 //
 //	go test ./check -run '^$' -bench CheckGradients -benchtime 5x
 func BenchmarkCheckGradients(b *testing.B) {
@@ -22,6 +23,7 @@ func BenchmarkCheckGradients(b *testing.B) {
 		{"demo", demoModel, check.Sample{Data: []string{demoData}, Labels: "../testdata/demo/conditions.npy"}},
 		{"resnet_tiny", refModel, check.Sample{Samples: 64}},
 		{"vgg_bn", "../testdata/ref/vgg_bn.onnx", check.Sample{Samples: 64}},
+		{"mobile_hardswish", "../testdata/ref/mobile_hardswish.onnx", check.Sample{Samples: 64}},
 	} {
 		m, err := check.Load(c.model, check.LoadOptions{})
 		if err != nil {

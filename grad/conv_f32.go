@@ -15,6 +15,10 @@ import (
 // (the finite-difference tests) take convVJP's float64 path.
 func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []float64) {
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
+	if Cg == 1 && Mg == 1 {
+		depthwiseF32(win, N, C, x, w, g, gx, gw)
+		return
+	}
 	// samples per chunk: the column buffer stays below 256 Ki elements
 	// (1 MiB, cache-sized; buffers are reused between calls)
 	nc := max(1, (convChunk)/max(Cg*K*P, 1))
@@ -130,3 +134,48 @@ func release(b []float32) { scratchPool.Put(&b) }
 
 // convChunk bounds the column buffer of one chunk of samples (elements).
 var convChunk = 1 << 21
+
+// depthwiseF32 is the VJP of a depthwise convolution (one input and one
+// output channel per group), where a product per group would be a 1-row
+// GEMM: direct loops over the taps' runs, channels split over the workers.
+//
+//	dW[c, t] = Σ_n Σ_p G[n, c, p]·x[n, c, tap(p, t)],  dX[n, c, tap(p, t)] += W[c, t]·G[n, c, p]
+func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
+	K, P, I := win.K, win.P, win.I
+	split(C*P*K*N, func(lo, hi int) {
+		per := P * K * N
+		for c := lo / per; c < C && c*per < hi; c++ {
+			if c*per < lo {
+				continue // the channel belongs to the part that holds its start
+			}
+			for n := 0; n < N; n++ {
+				gp := g[(n*C+c)*P : (n*C+c+1)*P]
+				xc := x[(n*C+c)*I : (n*C+c+1)*I]
+				var dx []float64
+				if gx != nil {
+					dx = gx[(n*C+c)*I : (n*C+c+1)*I]
+				}
+				for t := 0; t < K; t++ {
+					wt := float64(w[c*K+t])
+					s := 0.0
+					for _, r := range win.runs[t] {
+						if r.off < 0 {
+							continue
+						}
+						gr := gp[r.p : r.p+r.n]
+						for i, v := range gr {
+							j := r.off + i*r.step
+							s += v * float64(xc[j])
+							if dx != nil {
+								dx[j] += wt * v
+							}
+						}
+					}
+					if gw != nil {
+						gw[c*K+t] += s
+					}
+				}
+			}
+		}
+	})
+}

@@ -30,6 +30,7 @@ func TestConvF32MatchesF64(t *testing.T) {
 	for _, c := range []fdCase{
 		{name: "stride2-pad", attrs: []*loader.Attr{ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(5, 4, 9, 8), f32(6, 4, 3, 3), f32(6)}},
 		{name: "groups-dilated", attrs: []*loader.Attr{ia("group", 2), ias("dilations", 2, 1), ias("pads", 0, 1, 2, 0)}, in: []*tensor.Tensor{f32(3, 4, 7, 6), f32(4, 2, 2, 3), f32(4)}},
+		{name: "depthwise", attrs: []*loader.Attr{ia("group", 6), ias("strides", 2, 1), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3, 6, 7, 6), f32(6, 1, 3, 3), f32(6)}},
 		{name: "conv1d", attrs: []*loader.Attr{ias("strides", 3)}, in: []*tensor.Tensor{f32(4, 3, 20), f32(2, 3, 4)}},
 	} {
 		c.op, c.opset = "Conv", 11
