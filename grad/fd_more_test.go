@@ -46,6 +46,7 @@ func moreCases(r *rand.Rand) []fdCase {
 			in: T(rnd(r, 2, 3, 2, 2), rnd(r, 3), rnd(r, 3), rnd(r, 3), bnVar), fixed: []int{3, 4}},
 		{name: "layernorm", op: "LayerNormalization", attrs: A(ia("axis", -2)),
 			in: T(rnd(r, 2, 3, 4), rnd(r, 3, 4), rnd(r, 3, 4))},
+		{name: "instancenorm", op: "InstanceNormalization", attrs: A(fa("epsilon", 1e-3)), in: T(rnd(r, 2, 3, 4, 2), rnd(r, 3), rnd(r, 3))},
 		{name: "softmax13", op: "Softmax", opset: 13, attrs: A(ia("axis", 1)), in: T(rnd(r, 2, 3, 4))},
 		{name: "softmax11", op: "Softmax", opset: 11, attrs: A(ia("axis", 1)), in: T(rnd(r, 2, 3, 4))},
 		{name: "logsoftmax", op: "LogSoftmax", opset: 13, in: T(rnd(r, 3, 5))},

@@ -17,6 +17,61 @@ import (
 func init() {
 	register("BatchNormalization", batchNormVJP)
 	register("LayerNormalization", layerNormVJP)
+	register("InstanceNormalization", instanceNormVJP)
+}
+
+// instanceNormVJP: each (sample, channel) plane is normalised over its
+// spatial positions, y = s[c]·x̂ + b[c]; per plane, with ĝ = G·s[c],
+// dL/dx = (ĝ − mean(ĝ) − x̂·mean(ĝ·x̂))/√(var + ε) (LayerNormalization's
+// rule), dL/ds[c] = Σ G·x̂, dL/db[c] = Σ G.
+func instanceNormVJP(o *Op) error {
+	if err := o.Need(3); err != nil {
+		return err
+	}
+	X := o.In[0]
+	if X.Rank() < 3 {
+		return fmt.Errorf("InstanceNormalization input %v has no spatial axis", X.Shape)
+	}
+	N, C, D := X.Shape[0], X.Shape[1], prod(X.Shape[2:])
+	eps := float64(o.Float("epsilon", 1e-5))
+	x, s, g := o.X(0), o.X(1), o.G(0)
+	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	xh := make([]float64, D)
+	for pl := 0; pl < N*C; pl++ {
+		c := pl % C
+		xr, gr := x[pl*D:(pl+1)*D], g[pl*D:(pl+1)*D]
+		m := 0.0
+		for _, v := range xr {
+			m += v
+		}
+		m /= float64(D)
+		vr := 0.0
+		for _, v := range xr {
+			vr += (v - m) * (v - m)
+		}
+		vr /= float64(D)
+		inv := 1 / math.Sqrt(vr+eps)
+		mg, mgx := 0.0, 0.0
+		for i, v := range xr {
+			xh[i] = (v - m) * inv
+			mg += gr[i] * s[c]
+			mgx += gr[i] * s[c] * xh[i]
+			if gs != nil {
+				gs[c] += gr[i] * xh[i]
+			}
+			if gb != nil {
+				gb[c] += gr[i]
+			}
+		}
+		mg /= float64(D)
+		mgx /= float64(D)
+		if gx != nil {
+			for i := range xr {
+				gx[pl*D+i] = (gr[i]*s[c] - mg - xh[i]*mgx) * inv
+			}
+		}
+	}
+	return nil
 }
 
 func batchNormVJP(o *Op) error {
