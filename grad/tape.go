@@ -214,7 +214,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		}
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc = free.get
-		if err := f(op); err != nil {
+		if err := callVJP(f, op); err != nil {
 			var nr *noRuleError
 			if errors.As(err, &nr) {
 				key := n.OpType + " " + nr.detail
@@ -305,4 +305,15 @@ func hasSubgraph(n *loader.Node) bool {
 		}
 	}
 	return false
+}
+
+// callVJP runs a VJP, turning a panic (a shape it did not expect) into an
+// error naming the operator, so that the rest of the report survives.
+func callVJP(f VJP, o *Op) (err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("internal error: %v", r)
+		}
+	}()
+	return f(o)
 }
