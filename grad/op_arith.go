@@ -52,17 +52,21 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 				sgn = -1
 			}
 			for i, sh := range [][]int{A.Shape, B.Shape} {
-				gi := o.Grad(i)
-				if gi == nil {
-					continue
-				}
 				s := []float64{1, sgn}[i]
 				if sameShape(sh, Y.Shape) {
+					gi := o.GradFull(i)
+					if gi == nil {
+						continue
+					}
 					split(len(g), func(lo, hi int) {
 						for k := lo; k < hi; k++ {
 							gi[k] = s * g[k]
 						}
 					})
+					continue
+				}
+				gi := o.Grad(i)
+				if gi == nil {
 					continue
 				}
 				m := bcastMap(sh, Y.Shape)

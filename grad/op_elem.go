@@ -103,7 +103,7 @@ func sign(x float64) float64 {
 // unary registers an element-wise operator whose derivative is d(x, y).
 func unary(name string, d func(x, y float64, o *Op) float64) {
 	register(name, func(o *Op) error {
-		gx := o.Grad(0)
+		gx := o.GradFull(0)
 		if gx == nil {
 			return nil
 		}
@@ -153,7 +153,7 @@ func clipVJP(o *Op) error {
 
 // reluVJP: dL/dx = G where x > 0 (read in the model's own precision).
 func reluVJP(o *Op) error {
-	gx := o.Grad(0)
+	gx := o.GradFull(0)
 	if gx == nil {
 		return nil
 	}
@@ -163,12 +163,15 @@ func reluVJP(o *Op) error {
 			for i := lo; i < hi; i++ {
 				if x[i] > 0 {
 					gx[i] = g[i]
+				} else {
+					gx[i] = 0
 				}
 			}
 		})
 		return nil
 	}
 	for i, v := range o.X(0) {
+		gx[i] = 0
 		if v > 0 {
 			gx[i] = g[i]
 		}

@@ -90,7 +90,7 @@ func batchNormVJP(o *Op) error {
 	eps := float64(o.Float("epsilon", 1e-5))
 	s, mean, vr := o.X(1), o.X(3), o.X(4)
 	g := o.G(0)
-	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	gx, gs, gb := o.GradFull(0), o.Grad(1), o.Grad(2) // gx: every element written
 	x32, _ := X.Data.([]float32)
 	var x []float64
 	if gs != nil && x32 == nil {

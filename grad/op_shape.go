@@ -41,7 +41,7 @@ func resizeVJP(o *Op) error {
 }
 
 func sameOrder(o *Op) error {
-	if gx := o.Grad(0); gx != nil {
+	if gx := o.GradFull(0); gx != nil {
 		copy(gx, o.G(0))
 	}
 	return nil

@@ -213,7 +213,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 			}
 		}
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
-		op.alloc = free.get
+		op.alloc, op.allocRaw = free.get, free.getRaw
 		if err := callVJP(f, op); err != nil {
 			var nr *noRuleError
 			if errors.As(err, &nr) {
@@ -261,6 +261,16 @@ func (f *freeList) get(n int) []float64 {
 		b := l[len(l)-1]
 		f.byLen[n] = l[:len(l)-1]
 		clear(b)
+		return b
+	}
+	return make([]float64, n)
+}
+
+// getRaw is get without clearing a recycled buffer.
+func (f *freeList) getRaw(n int) []float64 {
+	if l := f.byLen[n]; len(l) > 0 {
+		b := l[len(l)-1]
+		f.byLen[n] = l[:len(l)-1]
 		return b
 	}
 	return make([]float64, n)

@@ -22,8 +22,9 @@ type Op struct {
 	need []bool
 	xs   map[int][]float64
 	ys   map[int][]float64
-	// alloc, when set, returns a zeroed buffer (the tape's recycled ones).
-	alloc func(n int) []float64
+	// alloc, when set, returns a zeroed buffer (the tape's recycled ones);
+	// allocRaw one with undefined contents.
+	alloc, allocRaw func(n int) []float64
 }
 
 // NoRule is the error of a VJP for an operator variant it has no rule for
@@ -94,6 +95,22 @@ func (o *Op) Grad(i int) []float64 {
 	if o.GIn[i] == nil {
 		if o.alloc != nil {
 			o.GIn[i] = o.alloc(o.In[i].Size())
+		} else {
+			o.GIn[i] = make([]float64, o.In[i].Size())
+		}
+	}
+	return o.GIn[i]
+}
+
+// GradFull is Grad for a VJP that writes every element of the buffer: its
+// contents on return are undefined (a recycled buffer is not cleared).
+func (o *Op) GradFull(i int) []float64 {
+	if !o.Needs(i) {
+		return nil
+	}
+	if o.GIn[i] == nil {
+		if o.allocRaw != nil {
+			o.GIn[i] = o.allocRaw(o.In[i].Size())
 		} else {
 			o.GIn[i] = make([]float64, o.In[i].Size())
 		}
