@@ -57,3 +57,48 @@ func TestConvF32MatchesF64(t *testing.T) {
 		}
 	}
 }
+
+// TestGemmF32MatchesF64: Gemm's float32 SGEMM path against its float64
+// path (checked by finite differences) for every transA/transB and alpha:
+// relative error of dA, dB and dC ≤ 1e-5.
+func TestGemmF32MatchesF64(t *testing.T) {
+	r := rand.New(rand.NewSource(12))
+	f32 := func(shape ...int) *tensor.Tensor {
+		x := F64(rnd(r, shape...))
+		y := make([]float32, len(x))
+		for i, v := range x {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	for _, tr := range [][2]int64{{0, 0}, {0, 1}, {1, 0}, {1, 1}} {
+		M, K, N := 7, 5, 6
+		as, bs := []int{M, K}, []int{K, N}
+		if tr[0] == 1 {
+			as = []int{K, M}
+		}
+		if tr[1] == 1 {
+			bs = []int{N, K}
+		}
+		c := fdCase{name: "gemm", op: "Gemm", opset: 13, attrs: []*loader.Attr{ia("transA", tr[0]), ia("transB", tr[1]), fa("alpha", 0.7)},
+			in: []*tensor.Tensor{f32(as...), f32(bs...), f32(N)}}
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		g := F64(rnd(r, outs[0].Size()))
+		run := func(f64 bool) [][]float64 {
+			forceF64 = f64
+			defer func() { forceF64 = false }()
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 13}, [][]float64{g}, nil)
+			if err := gemmVJP(o); err != nil {
+				t.Fatal(err)
+			}
+			return o.GIn
+		}
+		fast, ref := run(false), run(true)
+		for i := range ref {
+			if e := relErr(fast[i], ref[i], 0); ref[i] == nil || e > 1e-5 || math.IsNaN(e) {
+				t.Errorf("trans %v: input %d: relative error %.2e", tr, i, e)
+			}
+		}
+	}
+}

@@ -3,6 +3,8 @@ package grad
 import (
 	"fmt"
 
+	"github.com/vitals-health/vitals/gemm"
+
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
 )
@@ -56,7 +58,11 @@ func gemmVJP(o *Op) error {
 	g := o.G(0)
 	M, N := o.Out[0].Shape[0], o.Out[0].Shape[1]
 	ar, ac, br, bc := A.Shape[0], A.Shape[1], B.Shape[0], B.Shape[1]
-	if ga := o.Grad(0); ga != nil {
+	a32, ok1 := A.Data.([]float32)
+	b32, ok2 := B.Data.([]float32)
+	if ok1 && ok2 && !forceF64 {
+		gemmF32(o, tA, tB, float32(alpha), g, M, N, a32, ar, ac, b32, br, bc)
+	} else if ga := o.Grad(0); ga != nil {
 		b := o.X(1)
 		if !tA { // dA = α·G·op(B)ᵀ
 			mm(false, !tB, alpha, g, M, N, b, br, bc, ga)
@@ -64,7 +70,7 @@ func gemmVJP(o *Op) error {
 			mm(tB, true, alpha, b, br, bc, g, M, N, ga)
 		}
 	}
-	if gb := o.Grad(1); gb != nil {
+	if gb := o.Grad(1); gb != nil && !(ok1 && ok2 && !forceF64) {
 		a := o.X(0)
 		if !tB { // dB = α·op(A)ᵀ·G
 			mm(!tA, false, alpha, a, ar, ac, g, M, N, gb)
@@ -147,4 +153,63 @@ func matmulVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// gemmF32 is Gemm's dA and dB for float32 operands, with the float32 SGEMM
+// of package gemm (the products' float32 rounding is far below the 1e-4 of
+// the torch comparison), added into the float64 gradients.
+func gemmF32(o *Op, tA, tB bool, alpha float32, g []float64, M, N int, a []float32, ar, ac int, b []float32, br, bc int) {
+	ga, gb := o.Grad(0), o.Grad(1)
+	if ga == nil && gb == nil {
+		return
+	}
+	g32 := scratch(len(g))
+	defer release(g32)
+	for i, v := range g {
+		g32[i] = float32(v)
+	}
+	if ga != nil {
+		out := scratch(len(ga))
+		defer release(out)
+		if !tA { // dA [M,K] = α·G·op(B)ᵀ
+			K := ac
+			if !tB { // B [K,N]
+				gemm.Sgemm(false, true, M, K, N, alpha, g32, N, b, bc, 0, out, K)
+			} else { // B [N,K]
+				gemm.Sgemm(false, false, M, K, N, alpha, g32, N, b, bc, 0, out, K)
+			}
+		} else { // A [K,M]: dA = α·op(B)·Gᵀ [K,M]
+			K := ar
+			if !tB {
+				gemm.Sgemm(false, true, K, M, N, alpha, b, bc, g32, N, 0, out, M)
+			} else {
+				gemm.Sgemm(true, true, K, M, N, alpha, b, bc, g32, N, 0, out, M)
+			}
+		}
+		for i, v := range out {
+			ga[i] += float64(v)
+		}
+	}
+	if gb != nil {
+		out := scratch(len(gb))
+		defer release(out)
+		if !tB { // B [K,N]: dB = α·op(A)ᵀ·G
+			K := br
+			if !tA { // A [M,K]
+				gemm.Sgemm(true, false, K, N, M, alpha, a, ac, g32, N, 0, out, N)
+			} else { // A [K,M]
+				gemm.Sgemm(false, false, K, N, M, alpha, a, ac, g32, N, 0, out, N)
+			}
+		} else { // B [N,K]: dB = α·Gᵀ·op(A)
+			K := bc
+			if !tA {
+				gemm.Sgemm(true, false, N, K, M, alpha, g32, N, a, ac, 0, out, K)
+			} else {
+				gemm.Sgemm(true, true, N, K, M, alpha, g32, N, a, ac, 0, out, K)
+			}
+		}
+		for i, v := range out {
+			gb[i] += float64(v)
+		}
+	}
 }
