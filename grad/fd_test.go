@@ -139,7 +139,11 @@ func runFD(t *testing.T, c fdCase) {
 	if !ok {
 		t.Fatalf("%s: no VJP for %s", c.name, c.op)
 	}
-	op := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: c.opset}, w, nil)
+	gOut := make([][]float64, len(w)) // a copy: VJPs may overwrite GOut (InPlace)
+	for j := range w {
+		gOut[j] = append([]float64(nil), w[j]...)
+	}
+	op := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: c.opset}, gOut, nil)
 	if err := f(op); err != nil {
 		t.Fatalf("%s VJP: %v", c.name, err)
 	}

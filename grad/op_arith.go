@@ -54,7 +54,14 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 			for i, sh := range [][]int{A.Shape, B.Shape} {
 				s := []float64{1, sgn}[i]
 				if sameShape(sh, Y.Shape) {
-					gi := o.GradFull(i)
+					// input 0 (factor 1) may take G itself; input 1 reads
+					// G after, unchanged by it
+					var gi []float64
+					if i == 0 {
+						gi = o.InPlace(0)
+					} else {
+						gi = o.GradFull(i)
+					}
 					if gi == nil {
 						continue
 					}

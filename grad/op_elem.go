@@ -103,11 +103,12 @@ func sign(x float64) float64 {
 // unary registers an element-wise operator whose derivative is d(x, y).
 func unary(name string, d func(x, y float64, o *Op) float64) {
 	register(name, func(o *Op) error {
-		gx := o.GradFull(0)
+		g := o.G(0)
+		gx := o.InPlace(0)
 		if gx == nil {
 			return nil
 		}
-		x, y, g := o.X(0), o.Y(0), o.G(0)
+		x, y := o.X(0), o.Y(0)
 		split(len(gx), func(lo, hi int) {
 			for i := lo; i < hi; i++ {
 				gx[i] = g[i] * d(x[i], y[i], o)
@@ -153,11 +154,11 @@ func clipVJP(o *Op) error {
 
 // reluVJP: dL/dx = G where x > 0 (read in the model's own precision).
 func reluVJP(o *Op) error {
-	gx := o.GradFull(0)
+	g := o.G(0)
+	gx := o.InPlace(0)
 	if gx == nil {
 		return nil
 	}
-	g := o.G(0)
 	if x, ok := o.In[0].Data.([]float32); ok {
 		split(len(x), func(lo, hi int) {
 			for i := lo; i < hi; i++ {
@@ -171,9 +172,10 @@ func reluVJP(o *Op) error {
 		return nil
 	}
 	for i, v := range o.X(0) {
-		gx[i] = 0
 		if v > 0 {
 			gx[i] = g[i]
+		} else {
+			gx[i] = 0
 		}
 	}
 	return nil

@@ -90,7 +90,8 @@ func batchNormVJP(o *Op) error {
 	eps := float64(o.Float("epsilon", 1e-5))
 	s, mean, vr := o.X(1), o.X(3), o.X(4)
 	g := o.G(0)
-	gx, gs, gb := o.GradFull(0), o.Grad(1), o.Grad(2) // gx: every element written
+	// gx may be G itself: each plane's sums are taken before it is overwritten
+	gx, gs, gb := o.InPlace(0), o.Grad(1), o.Grad(2)
 	x32, _ := X.Data.([]float32)
 	var x []float64
 	if gs != nil && x32 == nil {
@@ -105,6 +106,18 @@ func batchNormVJP(o *Op) error {
 			}
 			c := pl % C
 			gr := g[pl*I : (pl+1)*I]
+			if gs != nil || gb != nil { // the sums first: gx may overwrite G
+				var a, b float64
+				for i, v := range gr {
+					a += v
+					if x32 != nil {
+						b += v * float64(x32[pl*I+i])
+					} else if x != nil {
+						b += v * x[pl*I+i]
+					}
+				}
+				sg[pl], sgx[pl] = a, b
+			}
 			if gx != nil {
 				k := s[c] / math.Sqrt(vr[c]+eps)
 				d := gx[pl*I : (pl+1)*I]
@@ -112,19 +125,6 @@ func batchNormVJP(o *Op) error {
 					d[i] = v * k
 				}
 			}
-			if gs == nil && gb == nil {
-				continue
-			}
-			var a, b float64
-			for i, v := range gr {
-				a += v
-				if x32 != nil {
-					b += v * float64(x32[pl*I+i])
-				} else if x != nil {
-					b += v * x[pl*I+i]
-				}
-			}
-			sg[pl], sgx[pl] = a, b
 		}
 	})
 	for c := 0; c < C; c++ {

@@ -41,8 +41,9 @@ func resizeVJP(o *Op) error {
 }
 
 func sameOrder(o *Op) error {
-	if gx := o.GradFull(0); gx != nil {
-		copy(gx, o.G(0))
+	g := o.G(0)
+	if gx := o.InPlace(0); gx != nil {
+		copy(gx, g) // nothing to move when gx is G itself
 	}
 	return nil
 }

@@ -22,6 +22,8 @@ type Op struct {
 	need []bool
 	xs   map[int][]float64
 	ys   map[int][]float64
+	// gaveOut: GOut[0] is some GIn's buffer already (InPlace)
+	gaveOut bool
 	// alloc, when set, returns a zeroed buffer (the tape's recycled ones);
 	// allocRaw one with undefined contents.
 	alloc, allocRaw func(n int) []float64
@@ -116,6 +118,23 @@ func (o *Op) GradFull(i int) []float64 {
 		}
 	}
 	return o.GIn[i]
+}
+
+// InPlace is GradFull for a VJP that computes dL/d(input i) element by
+// element from dL/d(output 0) of the same size: it hands out output 0's
+// gradient buffer itself (the VJP owns GOut, which the pass does not read
+// again), so the VJP overwrites G in place, reading each element before
+// writing it. Otherwise it is GradFull.
+func (o *Op) InPlace(i int) []float64 {
+	if !o.Needs(i) {
+		return nil
+	}
+	if o.GIn[i] == nil && len(o.GOut) > 0 && o.GOut[0] != nil && len(o.GOut[0]) == o.In[i].Size() && !o.gaveOut {
+		o.GIn[i] = o.GOut[0]
+		o.gaveOut = true
+		return o.GIn[i]
+	}
+	return o.GradFull(i)
 }
 
 // X is forward input i as float64 (shared with the tensor when it is float64).
