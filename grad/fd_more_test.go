@@ -88,6 +88,8 @@ func moreCases(r *rand.Rand) []fdCase {
 			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 9, 3), 0.5), scaled(rnd(r, 1, 9, 3), 0.5), scaled(rnd(r, 1, 18), 0.5), nil, scaled(rnd(r, 1, 2, 3), 0.5))},
 		{name: "gru-bidirectional-lbr", op: "GRU", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 2), sa("direction", "bidirectional"), ia("linear_before_reset", 1)),
 			in: T(scaled(rnd(r, 3, 2, 2), 0.5), scaled(rnd(r, 2, 6, 2), 0.5), scaled(rnd(r, 2, 6, 2), 0.5), scaled(rnd(r, 2, 12), 0.5), nil, scaled(rnd(r, 2, 2, 2), 0.5))},
+		{name: "rnn-bidirectional", op: "RNN", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 3), sa("direction", "bidirectional")),
+			in: T(scaled(rnd(r, 4, 2, 2), 0.5), scaled(rnd(r, 2, 3, 2), 0.5), scaled(rnd(r, 2, 3, 3), 0.5), scaled(rnd(r, 2, 6), 0.5), nil, scaled(rnd(r, 2, 2, 3), 0.5))},
 		{name: "where", op: "Where", in: T(tensor.From([]bool{true, false, false, true, true, false}, 2, 3), rnd(r, 2, 3), rnd(r, 3))},
 	}
 }
