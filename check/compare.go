@@ -41,6 +41,7 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 	defer oldFeed.Close()
 	var oldOuts []*tensor.Tensor
 	oldName := firstOutput(old)
+	oldO.Gradients, newO.Gradients = nil, nil // a backward pass is for Check only
 	oldCol, err := analyse(ctx, old, oldFeed, oldO, func(outs map[string]*tensor.Tensor, k int) error {
 		oldOuts = append(oldOuts, outs[oldName])
 		return nil

@@ -19,6 +19,13 @@
 // plots) renders. Compare runs two models over the same batches and diffs
 // their statistics into the newer one's report.
 //
+// With Options.Gradients, Check also runs the backward pass (package grad)
+// after each batch: the hook records the batch's values on a tape (no
+// storage is recycled within the batch), the loss's gradient at the first
+// output is propagated back to every weight and activation, and the sums
+// over batches (scaled by 1/N) become grad_rms, grad_norm and the update
+// ratios on the report, before the checks run (docs/gradients.md).
+//
 // A run keeps all of its state (buffer pool, memory budget, progress,
 // cancellation through its context) to itself, so several runs may go side
 // by side in one process. Processor threads are shared: kernels split work

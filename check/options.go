@@ -79,6 +79,9 @@ type Options struct {
 	// during the call only) and the batch's sample count, after the batch
 	// has run; an error stops the run. Compare calls it for NEW's batches.
 	Outputs func(outs map[string]*tensor.Tensor, samples int) error
+	// Gradients, when set, adds a backward pass to Check (gradients.go);
+	// Compare ignores it.
+	Gradients *Gradients
 
 	// recycled, when set (by this package's tests), counts the values whose
 	// storage went back to the pool within a batch.
@@ -102,6 +105,11 @@ type Progress struct {
 func (o *Options) Validate() error {
 	if o.MemoryBudget < 0 {
 		return fmt.Errorf("memory budget %d is negative", o.MemoryBudget)
+	}
+	if o.Gradients != nil {
+		if err := o.Gradients.validate(); err != nil {
+			return err
+		}
 	}
 	return validThresholds(o.Thresholds)
 }

@@ -122,7 +122,8 @@ func Partial(ctx context.Context, model *Model, sample Sample, shard Shard, o Op
 	if err := feed.restrict(r.Start, r.End); err != nil {
 		return nil, err
 	}
-	c, _, err := collect(ctx, model, feed, o, nil)
+	o.Gradients = nil // gradient sums are not part of a partial state (docs/shards.md)
+	c, _, _, err := collect(ctx, model, feed, o, nil)
 	if err != nil {
 		return nil, err
 	}

@@ -62,11 +62,14 @@ func annotateInputs(r *report.Report, f *sampleFeed) {
 // arena: the memory budget of o and a buffer pool that lives as long as
 // the run.
 func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each func(outs map[string]*tensor.Tensor, k int) error) (*stats.Collected, error) {
-	c, src, err := collect(ctx, m, feed, o, each)
+	c, gr, src, err := collect(ctx, m, feed, o, each)
 	if err != nil {
 		return nil, err
 	}
 	col := c.Finish(src)
+	if gr != nil {
+		gr.fill(col.Report)
+	}
 	if err := stats.Run(col, stats.Checks, o.Thresholds); err != nil {
 		return nil, err
 	}
@@ -74,12 +77,22 @@ func analyse(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 }
 
 // collect runs one model over the feed and returns the collector holding
-// its statistics, and the sample's source ("file" or "synthetic").
-func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each func(outs map[string]*tensor.Tensor, k int) error) (*stats.Collector, string, error) {
+// its statistics, the backward pass's accumulators (nil without
+// o.Gradients) and the sample's source ("file" or "synthetic").
+func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each func(outs map[string]*tensor.Tensor, k int) error) (*stats.Collector, *gradRun, string, error) {
 	if err := ctx.Err(); err != nil {
-		return nil, "", err
+		return nil, nil, "", err
 	}
 	c := stats.NewCollector(m.model, m.plan)
+	// the backward pass, when asked for: it keeps each batch's values until
+	// its pass is done (no recycling within a batch) and sizes batches for that
+	var gr *gradRun
+	if o.Gradients != nil {
+		var err error
+		if gr, err = newGradRun(m, o.Gradients, feed.labels != nil, o.MemoryBudget); err != nil {
+			return nil, nil, "", err
+		}
+	}
 	start := time.Now()
 	// activation storage is reused from batch to batch (at most a quarter of
 	// the memory budget, 1 GiB without one)
@@ -96,6 +109,9 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		put = func(t *tensor.Tensor) { o.recycled.Add(1); pool.Put(t) }
 	}
 	dead := c.AfterObserved(put)
+	if gr != nil {
+		dead = nil
+	}
 	// without Sample.Batch, the first batch (one sample) measures the node
 	// outputs per sample, from which the batch size is chosen
 	var outBytes int64
@@ -118,6 +134,9 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 		if o.tap != nil {
 			o.tap(n, outs)
+		}
+		if gr != nil {
+			gr.record(n, outs)
 		}
 		return c.Hook(n, outs)
 	}
@@ -174,13 +193,13 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 	for {
 		select {
 		case <-done:
-			return nil, "", ctx.Err()
+			return nil, nil, "", ctx.Err()
 		default:
 		}
 		f := <-ahead
 		batch, labels, err := f.batch, f.labels, f.err
 		if err != nil {
-			return nil, "", err
+			return nil, nil, "", err
 		}
 		if batch == nil {
 			break
@@ -188,35 +207,46 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		k := batchLen(batch)
 		samples += k
 		c.AddInputs(batch)
-		outs, released, err := m.plan.RunRecycled(arena, feed.runInputs(batch, carried), hook, dead)
+		in := feed.runInputs(batch, carried)
+		if gr != nil {
+			gr.start(in)
+		}
+		outs, released, err := m.plan.RunRecycled(arena, in, hook, dead)
 		if ctx.Err() != nil && errors.Is(err, ctx.Err()) {
-			return nil, "", ctx.Err()
+			return nil, nil, "", ctx.Err()
 		}
 		if err != nil {
-			return nil, "", fmt.Errorf("running %q on samples %d–%d: %w", m.Path(), samples-k, samples-1, err)
+			return nil, nil, "", fmt.Errorf("running %q on samples %d–%d: %w", m.Path(), samples-k, samples-1, err)
 		}
 		c.AddOutputs(outs, labels)
 		c.Samples += k
+		if gr != nil {
+			gr.batch(outs, labels, k)
+		}
 		for _, pair := range feed.carry {
 			t := outs[pair[0]]
 			if want := feed.consts[pair[1]].at(k); !tensor.SameShape(t.Shape, want.Shape) || t.DType != want.DType {
-				return nil, "", fmt.Errorf("--carry %s=%s: output %q is %v%v, input %q takes %v%v", pair[0], pair[1], pair[0], t.DType, t.Shape, pair[1], want.DType, want.Shape)
+				return nil, nil, "", fmt.Errorf("--carry %s=%s: output %q is %v%v, input %q takes %v%v", pair[0], pair[1], pair[0], t.DType, t.Shape, pair[1], want.DType, want.Shape)
 			}
 			carried[pair[1]] = t.Clone() // a copy: the output's storage may be reused
 		}
 		if feed.auto {
-			feed.batch.Store(int64(chooseBatch(outBytes/int64(k), o.MemoryBudget)))
+			perSample := outBytes / int64(k)
+			if gr != nil {
+				perSample *= gradMemoryFactor
+			}
+			feed.batch.Store(int64(chooseBatch(perSample, o.MemoryBudget)))
 			feed.auto = false
 			close(sized)
 		}
 		if each != nil {
 			if err := each(outs, k); err != nil {
-				return nil, "", err
+				return nil, nil, "", err
 			}
 		}
 		// the batch's released activations become the next batch's storage
 		if err := c.Sync(); err != nil {
-			return nil, "", err
+			return nil, nil, "", err
 		}
 		keep := make([]*tensor.Tensor, 0, len(outs)+len(batch))
 		for _, t := range outs {
@@ -243,19 +273,19 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		}
 	}
 	if err := c.Wait(); err != nil {
-		return nil, "", err
+		return nil, nil, "", err
 	}
 	if c.Samples == 0 && feed.dropped > 0 {
-		return nil, "", fmt.Errorf("the model fixes the batch size to %d, and the sample has only %d samples", feed.fixed, feed.dropped)
+		return nil, nil, "", fmt.Errorf("the model fixes the batch size to %d, and the sample has only %d samples", feed.fixed, feed.dropped)
 	}
 	if c.Samples == 0 {
-		return nil, "", fmt.Errorf("the sample is empty: no batches to run")
+		return nil, nil, "", fmt.Errorf("the sample is empty: no batches to run")
 	}
 	src := "file"
 	if feed.synthetic {
 		src = "synthetic"
 	}
-	return c, src, nil
+	return c, gr, src, nil
 }
 
 func batchLen(b map[string]*tensor.Tensor) int {

@@ -82,6 +82,9 @@ func Render(r *report.Report, o Options) (report.Assets, error) {
 	if h := AttentionEntropySpec(r); h != nil {
 		jobs = append(jobs, job{h.File, func(w io.Writer) error { return RenderHeat(w, h) }})
 	}
+	// the backward pass: gradient RMS along depth, update ratio per weight
+	chart(GradientDepthSpec(r), nil)
+	chart(UpdateRatioSpec(r), nil)
 	if c := CompareSpec(r); c != nil {
 		pages(c.Pages)
 		chart(c.Depth, func() string {

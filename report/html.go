@@ -35,6 +35,7 @@ func WriteHTML(w io.Writer, r *Report, a Assets) error {
 	b := bufio.NewWriter(w)
 	err := htmlPage.Execute(b, map[string]any{
 		"R": r, "V": rv, "Images": imgs, "Notes": a.Notes,
+		"Grad":        htmlGradients(r),
 		"LayerHeader": reviewLayerHeader, "WeightHeader": reviewWeightHeader, "DeltaHeader": reviewDeltaHeader,
 	})
 	if err != nil {
@@ -125,6 +126,15 @@ figcaption { color: #525a6e; font-size: .9em; }
 {{end}}</tbody>
 </table>
 {{end}}
+{{with .Grad}}<h2>Gradients (backward pass)</h2>
+<ul>{{range .Summary}}<li>{{.}}</li>{{end}}</ul>
+{{range .Tables}}{{if .Rows}}<table class="sortable">
+<thead><tr>{{range .Header}}<th>{{.}}</th>{{end}}</tr></thead>
+<tbody>
+{{range .Rows}}<tr>{{range $i, $c := .}}{{if lt $i 2}}<td><code>{{$c}}</code></td>{{else}}<td class="n">{{$c}}</td>{{end}}{{end}}</tr>
+{{end}}</tbody>
+</table>
+{{end}}{{end}}{{end}}
 {{with .V.Compare}}<h2>Comparison: OLD <code>{{.Old}}</code> → NEW <code>{{.New}}</code></h2>
 <h3>Matched layers</h3>
 <table id="deltas">
@@ -195,3 +205,17 @@ figcaption { color: #525a6e; font-size: .9em; }
 </body>
 </html>
 `
+
+// htmlGradients is the gradient section of the HTML page (nil without a backward pass).
+func htmlGradients(r *Report) any {
+	lines := GradientSummary(r)
+	if lines == nil {
+		return nil
+	}
+	type table struct {
+		Header []string
+		Rows   [][]string
+	}
+	return map[string]any{"Summary": lines, "Tables": []table{
+		{GradientLayerHeader, GradientLayerRows(r)}, {GradientWeightHeader, GradientWeightRows(r)}}}
+}

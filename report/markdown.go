@@ -74,6 +74,30 @@ func WriteMarkdown(w io.Writer, r *Report, a Assets) error {
 			return append([]string{mdCode(wr.Name), mdCode(wr.Node), wr.Shape}, cellTexts(wr.Cells)...)
 		})
 	}
+	if lines := GradientSummary(r); lines != nil {
+		p("## Gradients (backward pass)", "")
+		for _, l := range lines {
+			p("- " + mdText(l))
+		}
+		p("")
+		for _, t := range []struct {
+			h    []string
+			code int // columns in code font
+			rows [][]string
+		}{{GradientLayerHeader, 1, GradientLayerRows(r)}, {GradientWeightHeader, 2, GradientWeightRows(r)}} {
+			if len(t.rows) == 0 {
+				continue
+			}
+			align := "ll" + strings.Repeat("r", len(t.h)-2)
+			mdTable(b, t.h, align, len(t.rows), func(i int) []string {
+				row := append([]string(nil), t.rows[i]...)
+				for k := 0; k < t.code; k++ {
+					row[k] = mdCode(row[k])
+				}
+				return row
+			})
+		}
+	}
 	if c := rv.Compare; c != nil {
 		p("## Comparison: OLD "+mdCode(c.Old)+" → NEW "+mdCode(c.New), "")
 		p("### Matched layers", "")

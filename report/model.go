@@ -26,6 +26,8 @@ type Report struct {
 	Checks []CheckDoc `json:"checks,omitempty"`
 	// Thresholds actually used (defaults merged with --config), for the plots and writers.
 	Thresholds map[string]float64 `json:"thresholds,omitempty"`
+	// Gradients says how the backward pass was run (gradients.go); nil without one.
+	Gradients *Gradients `json:"gradients,omitempty"`
 }
 
 // CheckDoc is one check's name and doc: Summary its first sentence, Detail the rest.
@@ -215,6 +217,10 @@ type Layer struct {
 	Float16                  bool     `json:"float16,omitempty"`
 	Float16OverflowFraction  *float64 `json:"float16_overflow_fraction,omitempty"`
 	Float16SubnormalFraction *float64 `json:"float16_subnormal_fraction,omitempty"`
+	// GradRMS is √(mean of (dL/dy)²) over every element of the output over
+	// the sample (backward pass only; nil without one or where no gradient
+	// reaches the layer).
+	GradRMS *float64 `json:"grad_rms"`
 	Transformer
 }
 
@@ -284,6 +290,13 @@ type Weight struct {
 	Nonfinite     int64    `json:"nonfinite"`
 	// FollowedBy is the activation (or normalisation) that follows the layer, which sets the reference gain.
 	FollowedBy string `json:"followed_by,omitempty"`
+	// Backward pass only (nil otherwise): GradNorm is the Frobenius norm
+	// ‖dL/dW‖_F, Norm is ‖W‖_F, GradToWeight their ratio, UpdateRatio the
+	// plain-SGD step lr·‖dL/dW‖/‖W‖ (with a learning rate).
+	GradNorm     *float64 `json:"grad_norm"`
+	Norm         *float64 `json:"norm"`
+	GradToWeight *float64 `json:"grad_to_weight"`
+	UpdateRatio  *float64 `json:"update_ratio"`
 }
 
 // Severity of a finding.

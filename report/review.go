@@ -101,6 +101,8 @@ var reviewFigureCaptions = []struct{ prefix, caption string }{
 	{"weights", "Weight gain against the Xavier and He references"},
 	{"residual-stream", "Residual stream: max |x| over median |x| along depth"},
 	{"attention-entropy", "Attention entropy per block and head (0 one-hot, 1 uniform)"},
+	{"gradient-depth", "Gradient RMS and activation spread along depth (backward pass)"},
+	{"update-ratio", "Predicted SGD update ratio per weight against the 1e-3 rule of thumb"},
 	{"compare-histograms-", "OLD vs NEW histograms of the layers that changed most"},
 	{"compare-depth-profile", "Activation std along depth, OLD vs NEW"},
 	{"compare-sqnr", "SQNR of NEW against OLD along depth"},

@@ -123,6 +123,7 @@ func WriteText(w io.Writer, r *Report, o Assets) error {
 	if err := tw.Flush(); err != nil {
 		return err
 	}
+	writeGradientsText(b, r)
 	if gaps := CoverageGaps(r); len(gaps) > 0 {
 		fmt.Fprintln(b)
 		fmt.Fprintln(b, "Not observed:")

@@ -63,7 +63,8 @@ func (p *Pass) Emit(sev report.Severity, node string, strength float64, evidence
 // Checks is the list of health checks, in the order they run.
 var Checks = []*Check{nonfiniteCheck, deadUnitsCheck, saturationCheck, gateConstantCheck, spreadCollapseCheck, spreadExplosionCheck,
 	weightScaleCheck, symmetricUnitsCheck, batchnormDriftCheck, inputScaleCheck, outputHealthCheck, quantRangeCheck, float16RangeCheck,
-	attentionCollapseCheck, attentionUniformCheck, massiveActivationsCheck, outlierFeaturesCheck, tokenSimilarityCheck}
+	attentionCollapseCheck, attentionUniformCheck, massiveActivationsCheck, outlierFeaturesCheck, tokenSimilarityCheck,
+	gradVanishingCheck, gradExplosionCheck, gradZeroCheck, updateRatioCheck}
 
 // Validate rejects an undocumented or duplicate check, or thresholds not named after their check.
 func Validate(checks []*Check) error {

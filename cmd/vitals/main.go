@@ -151,6 +151,11 @@ type common struct {
 	budget  int64 // --max-memory in bytes, after validate
 	// check only: --shard K/N and --partial FILE (shards.go)
 	shard, partial string
+	// check only: the backward pass (--gradients, --loss, --targets, --lr)
+	gradients bool
+	loss      string
+	targets   string
+	lr        float64
 }
 
 // inputErr marks errors caused by the user's files or flags (exit code 2).
@@ -180,6 +185,12 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.StringVar(&c.layout, "layout", "nchw", "image tensor layout the model wants: nchw|nhwc")
 	fs.Int64Var(&c.seed, "seed", 1, "seed of the synthetic Gaussian input")
 	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
+	if name == "check" {
+		fs.BoolVar(&c.gradients, "gradients", false, "add a backward pass: gradient RMS per layer, gradient and update size per weight (on by default with --labels, --loss, --targets or --lr; --gradients=false turns it off)")
+		fs.StringVar(&c.loss, "loss", "cross-entropy", "loss of the backward pass: cross-entropy (against --labels, or the model's own top class) or mse (against --targets)")
+		fs.StringVar(&c.targets, "targets", "", "target outputs (.npy, one row per sample) for --loss mse")
+		fs.Float64Var(&c.lr, "lr", 0, "learning rate: predicts each weight's plain-SGD update ratio lr·‖dL/dW‖/‖W‖ (rule of thumb about 1e-3)")
+	}
 	fs.StringVar(&c.maxMem, "max-memory", "", "memory budget in bytes, e.g. 512M or 8G (default: half the physical memory; 0: none); tensors that would exceed it are refused with an error")
 	if name == "check" {
 		fs.StringVar(&c.shard, "shard", "", "K/N: run only the K-th (from 0) of N contiguous parts of the sample, cut at batch boundaries (needs --batch and --partial)")
@@ -234,11 +245,33 @@ func (c *common) options(th map[string]float64, pg *progress) check.Options {
 		MemoryBudget: c.budget,
 		Progress:     pg.update,
 		Note:         func(n string) { pg.finish(); fmt.Fprintf(pg.w, "vitals: %s\n", n) },
+		Gradients:    c.gradientOptions(),
 	}
+}
+
+// gradientOptions is the backward pass the check flags ask for (nil: none):
+// on with --gradients, or when --labels, --loss, --targets or --lr is given
+// and --gradients is not set to false. A shard (--shard) runs no backward
+// pass unless asked: gradient sums are not part of a partial state.
+func (c *common) gradientOptions() *check.Gradients {
+	if c.fs.Lookup("gradients") == nil {
+		return nil
+	}
+	on := c.gradients
+	if !c.fs.Changed("gradients") && c.shard == "" {
+		on = c.labels != "" || c.fs.Changed("loss") || c.targets != "" || c.lr != 0
+	}
+	if !on {
+		return nil
+	}
+	return &check.Gradients{Loss: c.loss, Targets: c.targets, LR: c.lr}
 }
 
 func (c *common) validate() error {
 	var err error
+	if c.shard != "" && c.gradients {
+		return userErr("--gradients cannot be combined with --shard: gradient sums are not part of a partial state; run the backward pass on one machine (see docs/shards.md)")
+	}
 	if c.budget, err = memoryBudget(c.maxMem); err != nil {
 		return err
 	}
@@ -303,6 +336,9 @@ func parseCommand(name, usage string, nArgs int, args []string, stderr io.Writer
 	// unknown threshold names are refused here, before any model is loaded
 	if err = (&check.Options{Thresholds: th}).Validate(); err != nil {
 		return c, o, nil, false, userErr("--config %q: %v", c.config, err)
+	}
+	if err = (&check.Options{Gradients: c.gradientOptions()}).Validate(); err != nil {
+		return c, o, nil, false, userErr("%v", err)
 	}
 	return c, o, th, false, nil
 }

@@ -1,0 +1,181 @@
+package grad
+
+import (
+	"sync"
+
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/internal/par"
+)
+
+// convF32 is Conv's VJP for float32 models: the same products as convVJP,
+// over chunks of samples at once (columns [C/G·K, samples·P]) with the
+// float32 SGEMM of package gemm, the gradients still summed in float64.
+// The float32 products add a relative error of order √k·2⁻²⁴ for sums of
+// length k, far below the 1e-4 the torch comparison allows; float64 models
+// (the finite-difference tests) take convVJP's float64 path.
+func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []float64) {
+	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
+	if Cg == 1 && Mg == 1 {
+		depthwiseF32(win, N, C, x, w, g, gx, gw)
+		return
+	}
+	// samples per chunk: the column buffer stays below 256 Ki elements
+	// (1 MiB, cache-sized; buffers are reused between calls)
+	nc := max(1, (convChunk)/max(Cg*K*P, 1))
+	nc = min(nc, N)
+	ld := nc * P
+	cols := scratch(Cg * K * ld)
+	defer release(cols)
+	gc := scratch(Mg * ld)
+	defer release(gc)
+	var dcols, dw, wt []float32
+	if gx != nil {
+		dcols = scratch(Cg * K * ld)
+		defer release(dcols)
+	}
+	if gw != nil {
+		dw = scratch(Mg * Cg * K)
+		defer release(dw)
+	}
+	workers := max(1, min(2, Cg)) // the unrolling loops, split over channels
+	for n0 := 0; n0 < N; n0 += nc {
+		n1 := min(N, n0+nc)
+		cur := (n1 - n0) * P
+		for grp := 0; grp < G; grp++ {
+			for m := 0; m < Mg; m++ {
+				for n := n0; n < n1; n++ {
+					src := g[(n*M+grp*Mg+m)*P : (n*M+grp*Mg+m+1)*P]
+					dst := gc[m*ld+(n-n0)*P : m*ld+(n-n0+1)*P]
+					for p, v := range src {
+						dst[p] = float32(v)
+					}
+				}
+			}
+			if gw != nil {
+				par.Do(workers, func(part int) {
+					for c := part; c < Cg; c += workers {
+						for n := n0; n < n1; n++ {
+							xc := x[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+							for t := 0; t < K; t++ {
+								row := cols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
+								for _, r := range win.runs[t] {
+									switch {
+									case r.off < 0:
+										clear(row[r.p : r.p+r.n])
+									case r.step == 1:
+										copy(row[r.p:r.p+r.n], xc[r.off:r.off+r.n])
+									default:
+										d := row[r.p : r.p+r.n]
+										for i := range d {
+											d[i] = xc[r.off+i*r.step]
+										}
+									}
+								}
+							}
+						}
+					}
+				})
+				// dW_g = G·colsᵀ  [Mg, Cg·K]
+				gemm.Sgemm(false, true, Mg, Cg*K, cur, 1, gc, ld, cols, ld, 0, dw, Cg*K)
+				acc := gw[grp*Mg*Cg*K : (grp+1)*Mg*Cg*K]
+				for i, v := range dw {
+					acc[i] += float64(v)
+				}
+			}
+			if gx != nil {
+				if wt == nil {
+					wt = w
+				}
+				// dcols = W_gᵀ·G  [Cg·K, cur]
+				gemm.Sgemm(true, false, Cg*K, cur, Mg, 1, wt[grp*Mg*Cg*K:(grp+1)*Mg*Cg*K], Cg*K, gc, ld, 0, dcols, ld)
+				par.Do(workers, func(part int) {
+					for c := part; c < Cg; c += workers {
+						for n := n0; n < n1; n++ {
+							dx := gx[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+							for t := 0; t < K; t++ {
+								row := dcols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
+								for _, r := range win.runs[t] {
+									if r.off < 0 {
+										continue
+									}
+									src := row[r.p : r.p+r.n]
+									if r.step == 1 {
+										d := dx[r.off : r.off+r.n]
+										for i, v := range src {
+											d[i] += float64(v)
+										}
+										continue
+									}
+									for i, v := range src {
+										dx[r.off+i*r.step] += float64(v)
+									}
+								}
+							}
+						}
+					}
+				})
+			}
+		}
+	}
+}
+
+// scratchPool keeps float32 buffers of the convolution VJP between calls
+// (contents undefined: every use writes before it reads).
+var scratchPool sync.Pool
+
+func scratch(n int) []float32 {
+	if b, ok := scratchPool.Get().(*[]float32); ok && cap(*b) >= n {
+		return (*b)[:n]
+	}
+	return make([]float32, n)
+}
+
+func release(b []float32) { scratchPool.Put(&b) }
+
+// convChunk bounds the column buffer of one chunk of samples (elements).
+var convChunk = 1 << 21
+
+// depthwiseF32 is the VJP of a depthwise convolution (one input and one
+// output channel per group), where a product per group would be a 1-row
+// GEMM: direct loops over the taps' runs, channels split over the workers.
+//
+//	dW[c, t] = Σ_n Σ_p G[n, c, p]·x[n, c, tap(p, t)],  dX[n, c, tap(p, t)] += W[c, t]·G[n, c, p]
+func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
+	K, P, I := win.K, win.P, win.I
+	split(C*P*K*N, func(lo, hi int) {
+		per := P * K * N
+		for c := lo / per; c < C && c*per < hi; c++ {
+			if c*per < lo {
+				continue // the channel belongs to the part that holds its start
+			}
+			for n := 0; n < N; n++ {
+				gp := g[(n*C+c)*P : (n*C+c+1)*P]
+				xc := x[(n*C+c)*I : (n*C+c+1)*I]
+				var dx []float64
+				if gx != nil {
+					dx = gx[(n*C+c)*I : (n*C+c+1)*I]
+				}
+				for t := 0; t < K; t++ {
+					wt := float64(w[c*K+t])
+					s := 0.0
+					for _, r := range win.runs[t] {
+						if r.off < 0 {
+							continue
+						}
+						gr := gp[r.p : r.p+r.n]
+						for i, v := range gr {
+							j := r.off + i*r.step
+							s += v * float64(xc[j])
+							if dx != nil {
+								dx[j] += wt * v
+							}
+						}
+					}
+					if gw != nil {
+						gw[c*K+t] += s
+					}
+				}
+			}
+		}
+	})
+}

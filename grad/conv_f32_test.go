@@ -1,0 +1,104 @@
+package grad
+
+import (
+	"math"
+	"math/rand"
+	"testing"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// TestConvF32MatchesF64: the float32 SGEMM path of Conv's VJP (real
+// models) against its float64 path (checked by finite differences), on
+// float32 inputs with strides, padding, dilation and groups, over more
+// samples than one chunk holds: relative error of each gradient ≤ 1e-5
+// (float32 sums: √k·2⁻²⁴ ≈ 1e-6 here).
+func TestConvF32MatchesF64(t *testing.T) {
+	r := rand.New(rand.NewSource(11))
+	f32 := func(shape ...int) *tensor.Tensor {
+		x := F64(rnd(r, shape...))
+		y := make([]float32, len(x))
+		for i, v := range x {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	defer func(c int) { convChunk = c }(convChunk)
+	convChunk = 1024 // one or two samples a chunk
+	for _, c := range []fdCase{
+		{name: "stride2-pad", attrs: []*loader.Attr{ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(5, 4, 9, 8), f32(6, 4, 3, 3), f32(6)}},
+		{name: "groups-dilated", attrs: []*loader.Attr{ia("group", 2), ias("dilations", 2, 1), ias("pads", 0, 1, 2, 0)}, in: []*tensor.Tensor{f32(3, 4, 7, 6), f32(4, 2, 2, 3), f32(4)}},
+		{name: "depthwise", attrs: []*loader.Attr{ia("group", 6), ias("strides", 2, 1), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3, 6, 7, 6), f32(6, 1, 3, 3), f32(6)}},
+		{name: "conv1d", attrs: []*loader.Attr{ias("strides", 3)}, in: []*tensor.Tensor{f32(4, 3, 20), f32(2, 3, 4)}},
+	} {
+		c.op, c.opset = "Conv", 11
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		g := F64(rnd(r, outs[0].Size()))
+		run := func(f64 bool) [][]float64 {
+			forceF64 = f64
+			defer func() { forceF64 = false }()
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, [][]float64{g}, nil)
+			if err := convVJP(o); err != nil {
+				t.Fatal(err)
+			}
+			return o.GIn
+		}
+		fast, ref := run(false), run(true)
+		for i := range ref {
+			if ref[i] == nil {
+				continue
+			}
+			if e := relErr(fast[i], ref[i], 0); e > 1e-5 || math.IsNaN(e) {
+				t.Errorf("%s: input %d: relative error %.2e", c.name, i, e)
+			}
+		}
+	}
+}
+
+// TestGemmF32MatchesF64: Gemm's float32 SGEMM path against its float64
+// path (checked by finite differences) for every transA/transB and alpha:
+// relative error of dA, dB and dC ≤ 1e-5.
+func TestGemmF32MatchesF64(t *testing.T) {
+	r := rand.New(rand.NewSource(12))
+	f32 := func(shape ...int) *tensor.Tensor {
+		x := F64(rnd(r, shape...))
+		y := make([]float32, len(x))
+		for i, v := range x {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	for _, tr := range [][2]int64{{0, 0}, {0, 1}, {1, 0}, {1, 1}} {
+		M, K, N := 7, 5, 6
+		as, bs := []int{M, K}, []int{K, N}
+		if tr[0] == 1 {
+			as = []int{K, M}
+		}
+		if tr[1] == 1 {
+			bs = []int{N, K}
+		}
+		c := fdCase{name: "gemm", op: "Gemm", opset: 13, attrs: []*loader.Attr{ia("transA", tr[0]), ia("transB", tr[1]), fa("alpha", 0.7)},
+			in: []*tensor.Tensor{f32(as...), f32(bs...), f32(N)}}
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		g := F64(rnd(r, outs[0].Size()))
+		run := func(f64 bool) [][]float64 {
+			forceF64 = f64
+			defer func() { forceF64 = false }()
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 13}, [][]float64{g}, nil)
+			if err := gemmVJP(o); err != nil {
+				t.Fatal(err)
+			}
+			return o.GIn
+		}
+		fast, ref := run(false), run(true)
+		for i := range ref {
+			if e := relErr(fast[i], ref[i], 0); ref[i] == nil || e > 1e-5 || math.IsNaN(e) {
+				t.Errorf("trans %v: input %d: relative error %.2e", tr, i, e)
+			}
+		}
+	}
+}

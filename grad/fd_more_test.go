@@ -1,0 +1,111 @@
+package grad
+
+import (
+	"errors"
+	"math/rand"
+	"testing"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// moreCases are the finite-difference cases of the window, normalisation,
+// softmax, reduction and data-movement operators.
+func moreCases(r *rand.Rand) []fdCase {
+	A := func(a ...*loader.Attr) []*loader.Attr { return a }
+	T := func(t ...*tensor.Tensor) []*tensor.Tensor { return t }
+	bnVar := pos(r, 3)
+	return []fdCase{
+		{name: "conv2d-pad-stride", op: "Conv", attrs: A(ias("pads", 1, 0, 1, 1), ias("strides", 2, 1)),
+			in: T(rnd(r, 2, 3, 5, 4), rnd(r, 4, 3, 3, 2), rnd(r, 4))},
+		{name: "conv2d-dilated-groups", op: "Conv", attrs: A(ias("dilations", 2, 1), ia("group", 2), sa("auto_pad", "SAME_UPPER")),
+			in: T(rnd(r, 1, 4, 6, 5), rnd(r, 6, 2, 2, 3))},
+		{name: "conv2d-depthwise", op: "Conv", attrs: A(ia("group", 3), ias("pads", 1, 1, 1, 1)),
+			in: T(rnd(r, 2, 3, 4, 4), rnd(r, 3, 1, 3, 3), rnd(r, 3))},
+		{name: "conv1d-dilated", op: "Conv", attrs: A(ias("dilations", 2), ias("pads", 2, 2)),
+			in: T(rnd(r, 2, 2, 7), rnd(r, 3, 2, 3), rnd(r, 3))},
+		{name: "conv3d", op: "Conv", attrs: A(ias("pads", 1, 0, 0, 0, 1, 0), ias("strides", 1, 2, 1)), in: T(rnd(r, 1, 2, 3, 4, 3), rnd(r, 2, 2, 2, 2, 2), rnd(r, 2))},
+		{name: "convtranspose-stride-pad", op: "ConvTranspose", attrs: A(ias("strides", 2, 1), ias("pads", 1, 0, 0, 1), ias("output_padding", 1, 0)),
+			in: T(rnd(r, 2, 2, 3, 3), rnd(r, 2, 3, 3, 2), rnd(r, 3))},
+		{name: "convtranspose-groups-dilated", op: "ConvTranspose", attrs: A(ia("group", 2), ias("dilations", 2)),
+			in: T(rnd(r, 1, 4, 4), rnd(r, 4, 1, 3), rnd(r, 2))},
+		{name: "convtranspose-output-shape", op: "ConvTranspose", attrs: A(ias("strides", 2, 2), ias("output_shape", 6, 5), sa("auto_pad", "SAME_UPPER")),
+			in: T(rnd(r, 1, 2, 3, 3), rnd(r, 2, 2, 3, 3))},
+		{name: "maxpool2d", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 3, 2), ias("strides", 2, 1), ias("pads", 1, 0, 1, 1)),
+			in: T(rnd(r, 2, 2, 5, 4))},
+		{name: "maxpool1d-ceil", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 2), ias("strides", 2), ia("ceil_mode", 1)),
+			in: T(rnd(r, 1, 3, 7))},
+		{name: "avgpool-excl", op: "AveragePool", attrs: A(ias("kernel_shape", 3, 3), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)),
+			in: T(rnd(r, 2, 2, 5, 5))},
+		{name: "avgpool-incl", op: "AveragePool", attrs: A(ias("kernel_shape", 2, 3), ias("pads", 1, 1, 0, 1), ia("count_include_pad", 1)),
+			in: T(rnd(r, 1, 2, 4, 5))},
+		{name: "globalavg", op: "GlobalAveragePool", in: T(rnd(r, 2, 3, 4, 2))},
+		{name: "globalmax", op: "GlobalMaxPool", in: T(rnd(r, 2, 3, 5))},
+		{name: "batchnorm", op: "BatchNormalization", attrs: A(fa("epsilon", 1e-3)),
+			in: T(rnd(r, 2, 3, 2, 2), rnd(r, 3), rnd(r, 3), rnd(r, 3), bnVar), fixed: []int{3, 4}},
+		{name: "layernorm", op: "LayerNormalization", attrs: A(ia("axis", -2)),
+			in: T(rnd(r, 2, 3, 4), rnd(r, 3, 4), rnd(r, 3, 4))},
+		{name: "instancenorm", op: "InstanceNormalization", attrs: A(fa("epsilon", 1e-3)), in: T(rnd(r, 2, 3, 4, 2), rnd(r, 3), rnd(r, 3))},
+		{name: "softmax13", op: "Softmax", opset: 13, attrs: A(ia("axis", 1)), in: T(rnd(r, 2, 3, 4))},
+		{name: "softmax11", op: "Softmax", opset: 11, attrs: A(ia("axis", 1)), in: T(rnd(r, 2, 3, 4))},
+		{name: "logsoftmax", op: "LogSoftmax", opset: 13, in: T(rnd(r, 3, 5))},
+		{name: "reducemean-attr", op: "ReduceMean", opset: 13, attrs: A(ias("axes", -1)), in: T(rnd(r, 2, 3, 4))},
+		{name: "reducemean-input", op: "ReduceMean", opset: 18, attrs: A(ia("keepdims", 0)), in: T(rnd(r, 2, 3, 4), i64(0, 2))},
+		{name: "reducesum", op: "ReduceSum", opset: 13, in: T(rnd(r, 2, 3, 4), i64(1))},
+		{name: "reducesum-all", op: "ReduceSum", opset: 11, attrs: A(ia("keepdims", 0)), in: T(rnd(r, 2, 3))},
+		{name: "reducesumsquare", op: "ReduceSumSquare", opset: 13, attrs: A(ias("axes", 1)), in: T(rnd(r, 2, 3, 4))},
+		{name: "reducemax", op: "ReduceMax", opset: 13, attrs: A(ias("axes", 0)), in: T(rnd(r, 3, 4))},
+		{name: "reshape", op: "Reshape", opset: 14, in: T(rnd(r, 2, 3, 4), i64(4, -1))},
+		{name: "flatten", op: "Flatten", in: T(rnd(r, 2, 3, 4))},
+		{name: "squeeze", op: "Squeeze", opset: 13, in: T(rnd(r, 2, 1, 4), i64(1))},
+		{name: "unsqueeze", op: "Unsqueeze", opset: 13, in: T(rnd(r, 2, 4), i64(0, 3))},
+		{name: "transpose", op: "Transpose", attrs: A(ias("perm", 2, 0, 1)), in: T(rnd(r, 2, 3, 4))},
+		{name: "concat", op: "Concat", attrs: A(ia("axis", 1)), in: T(rnd(r, 2, 3, 2), rnd(r, 2, 1, 2), rnd(r, 2, 2, 2))},
+		{name: "split", op: "Split", opset: 13, nOut: 2, attrs: A(ia("axis", 1)), in: T(rnd(r, 2, 5), i64(2, 3))},
+		{name: "slice", op: "Slice", opset: 13, in: T(rnd(r, 4, 6), i64(1, 5), i64(4, 0), i64(0, 1), i64(2, -2))},
+		{name: "gather-rows", op: "Gather", in: T(rnd(r, 5, 3), tensor.From([]int64{4, 0, 4, 2}, 2, 2))},
+		{name: "pad-constant", op: "Pad", opset: 13, in: T(rnd(r, 2, 3), i64(1, 0, 0, 2), tensor.From([]float64{0.7}))},
+		{name: "pad-reflect", op: "Pad", opset: 13, attrs: A(sa("mode", "reflect")), in: T(rnd(r, 2, 4), i64(0, 2, 0, 1))},
+		{name: "expand", op: "Expand", in: T(rnd(r, 3, 1), i64(2, 3, 4))},
+		{name: "tile", op: "Tile", in: T(rnd(r, 2, 3), i64(2, 2))},
+		{name: "reducemin", op: "ReduceMin", opset: 18, in: T(rnd(r, 3, 4), i64(1))},
+		{name: "sin", op: "Sin", in: T(rnd(r, 3, 4))},
+		{name: "dropout-inference", op: "Dropout", opset: 13, in: T(rnd(r, 3, 4))},
+		{name: "cos", op: "Cos", in: T(rnd(r, 3, 4))},
+		{name: "depthtospace", op: "DepthToSpace", attrs: A(ia("blocksize", 2), sa("mode", "CRD")), in: T(rnd(r, 1, 8, 2, 3))},
+		{name: "spacetodepth", op: "SpaceToDepth", attrs: A(ia("blocksize", 2)), in: T(rnd(r, 1, 2, 4, 2))},
+		{name: "gatherelements", op: "GatherElements", attrs: A(ia("axis", 1)), in: T(rnd(r, 3, 4), tensor.From([]int64{0, 3, 3, 1, 2, 2}, 3, 2))},
+		{name: "gathernd", op: "GatherND", in: T(rnd(r, 3, 4), tensor.From([]int64{2, 1, 0, 3, 2, 1}, 3, 2))},
+		{name: "resize-nearest", op: "Resize", opset: 13, in: T(rnd(r, 1, 2, 3, 2), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
+		{name: "upsample-nearest", op: "Upsample", opset: 9, in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2}, 4))},
+		{name: "lstm-peephole-bias-state", op: "LSTM", opset: 14, nOut: 3, f32: true, attrs: A(ia("hidden_size", 3)),
+			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 24), 0.5), nil,
+				scaled(rnd(r, 1, 2, 3), 0.5), scaled(rnd(r, 1, 2, 3), 0.5), scaled(rnd(r, 1, 9), 0.5))},
+		{name: "lstm-bidirectional", op: "LSTM", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 2), sa("direction", "bidirectional")),
+			in: T(scaled(rnd(r, 3, 2, 2), 0.5), scaled(rnd(r, 2, 8, 2), 0.5), scaled(rnd(r, 2, 8, 2), 0.5), scaled(rnd(r, 2, 16), 0.5))},
+		{name: "gru-state-bias", op: "GRU", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 3)),
+			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 9, 3), 0.5), scaled(rnd(r, 1, 9, 3), 0.5), scaled(rnd(r, 1, 18), 0.5), nil, scaled(rnd(r, 1, 2, 3), 0.5))},
+		{name: "gru-bidirectional-lbr", op: "GRU", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 2), sa("direction", "bidirectional"), ia("linear_before_reset", 1)),
+			in: T(scaled(rnd(r, 3, 2, 2), 0.5), scaled(rnd(r, 2, 6, 2), 0.5), scaled(rnd(r, 2, 6, 2), 0.5), scaled(rnd(r, 2, 12), 0.5), nil, scaled(rnd(r, 2, 2, 2), 0.5))},
+		{name: "rnn-bidirectional", op: "RNN", opset: 14, nOut: 2, f32: true, attrs: A(ia("hidden_size", 3), sa("direction", "bidirectional")),
+			in: T(scaled(rnd(r, 4, 2, 2), 0.5), scaled(rnd(r, 2, 3, 2), 0.5), scaled(rnd(r, 2, 3, 3), 0.5), scaled(rnd(r, 2, 6), 0.5), nil, scaled(rnd(r, 2, 2, 3), 0.5))},
+		{name: "where", op: "Where", in: T(tensor.From([]bool{true, false, false, true, true, false}, 2, 3), rnd(r, 2, 3), rnd(r, 3))},
+	}
+}
+
+// TestNoRuleVariant: Resize in linear mode has no rule; the VJP says so with
+// NoRule (Backward then lists the node as missing instead of failing).
+func TestNoRuleVariant(t *testing.T) {
+	r := rand.New(rand.NewSource(4))
+	c := fdCase{name: "resize-linear", op: "Resize", opset: 13, attrs: []*loader.Attr{sa("mode", "linear")},
+		in: []*tensor.Tensor{rnd(r, 1, 1, 2, 2), nil, tensor.From([]float32{1, 1, 2, 2}, 4)}}
+	n := c.node()
+	outs := c.forward(t, n, c.in)
+	f, _ := Lookup("", "Resize")
+	err := f(NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 13}, [][]float64{make([]float64, outs[0].Size())}, nil))
+	var nr *noRuleError
+	if !errors.As(err, &nr) || nr.detail != "mode linear" {
+		t.Fatalf("got %v", err)
+	}
+}

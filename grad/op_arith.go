@@ -1,0 +1,151 @@
+package grad
+
+import (
+	"fmt"
+	"math"
+
+	"github.com/vitals-health/vitals/probe"
+)
+
+// Binary arithmetic with numpy broadcasting. For y = f(a, b) the gradient of
+// each input sums dL/dy · ∂f/∂input over the positions broadcasting
+// repeated that input's element at.
+
+func init() {
+	binaryOp("Add", func(_, _, _ float64) (float64, float64) { return 1, 1 })
+	binaryOp("Sub", func(_, _, _ float64) (float64, float64) { return 1, -1 })
+	binaryOp("Mul", func(a, b, _ float64) (float64, float64) { return b, a })
+	binaryOp("Div", func(a, b, _ float64) (float64, float64) { return 1 / b, -a / (b * b) })
+	binaryOp("Pow", func(a, b, y float64) (float64, float64) { // y = aᵇ
+		da := b * math.Pow(a, b-1)
+		db := 0.0
+		if a > 0 {
+			db = y * math.Log(a)
+		}
+		return da, db
+	})
+	binaryOp("PRelu", func(a, s, _ float64) (float64, float64) { // y = a (a > 0), s·a
+		if a > 0 {
+			return 1, 0
+		}
+		return s, a
+	})
+	register("Sum", variadic(1))
+	register("Mean", variadic(0))
+	register("Where", whereVJP)
+}
+
+// binaryOp registers y = f(a, b) with partial derivatives d(a, b, y).
+func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
+	register(name, func(o *Op) error {
+		if err := o.Need(2); err != nil {
+			return err
+		}
+		A, B, Y := o.Input(0), o.Input(1), o.Out[0]
+		if _, err := probe.Broadcast(A.Shape, B.Shape); err != nil {
+			return err
+		}
+		g := o.G(0)
+		if name == "Add" || name == "Sub" { // ∂/∂a = 1, ∂/∂b = ±1: no forward values needed
+			sgn := 1.0
+			if name == "Sub" {
+				sgn = -1
+			}
+			for i, sh := range [][]int{A.Shape, B.Shape} {
+				s := []float64{1, sgn}[i]
+				if sameShape(sh, Y.Shape) {
+					// input 0 (factor 1) may take G itself; input 1 reads
+					// G after, unchanged by it
+					var gi []float64
+					if i == 0 {
+						gi = o.InPlace(0)
+					} else {
+						gi = o.GradFull(i)
+					}
+					if gi == nil {
+						continue
+					}
+					split(len(g), func(lo, hi int) {
+						for k := lo; k < hi; k++ {
+							gi[k] = s * g[k]
+						}
+					})
+					continue
+				}
+				gi := o.Grad(i)
+				if gi == nil {
+					continue
+				}
+				m := bcastMap(sh, Y.Shape)
+				for k, v := range g {
+					gi[m[k]] += s * v
+				}
+			}
+			return nil
+		}
+		a, b, y := o.X(0), o.X(1), o.Y(0)
+		ma, mb := bcastMap(A.Shape, Y.Shape), bcastMap(B.Shape, Y.Shape)
+		ga, gb := o.Grad(0), o.Grad(1)
+		for k := range g {
+			da, db := d(a[ma[k]], b[mb[k]], y[k])
+			if ga != nil {
+				ga[ma[k]] += g[k] * da
+			}
+			if gb != nil {
+				gb[mb[k]] += g[k] * db
+			}
+		}
+		return nil
+	})
+}
+
+// variadic is Sum (scale 1) and Mean (scale 0: 1/number of inputs) with
+// broadcasting.
+func variadic(scale float64) VJP {
+	return func(o *Op) error {
+		n := o.NIn()
+		s := scale
+		if s == 0 {
+			s = 1 / float64(n)
+		}
+		g := o.G(0)
+		for i := 0; i < n; i++ {
+			gi := o.Grad(i)
+			if gi == nil {
+				continue
+			}
+			m := bcastMap(o.In[i].Shape, o.Out[0].Shape)
+			for k := range g {
+				gi[m[k]] += s * g[k]
+			}
+		}
+		return nil
+	}
+}
+
+// whereVJP: y = cond ? a : b.
+func whereVJP(o *Op) error {
+	if err := o.Need(3); err != nil {
+		return err
+	}
+	cond, ok := o.In[0].Data.([]bool)
+	if !ok {
+		return fmt.Errorf("Where condition is %v, not bool", o.In[0].DType)
+	}
+	Y := o.Out[0]
+	mc := bcastMap(o.In[0].Shape, Y.Shape)
+	g := o.G(0)
+	for i, pick := range []bool{true, false} {
+		gi := o.Grad(i + 1)
+		if gi == nil {
+			continue
+		}
+		m := bcastMap(o.In[i+1].Shape, Y.Shape)
+		for k := range g {
+			if cond[mc[k]] == pick {
+				gi[m[k]] += g[k]
+			}
+		}
+	}
+	return nil
+}

@@ -1,0 +1,96 @@
+package grad
+
+import "fmt"
+
+// Conv: y[n, m, p] = b[m] + Σ_{c,t} w[m, c, t]·x[n, g·C/G + c, tap(p, t)]
+// within group g. With the input unrolled into columns (cols[c·K+t, p]),
+// per sample and group: dL/dW += G·colsᵀ, dL/dcols = Wᵀ·G folded back onto
+// the input taps, dL/db = Σ G over samples and positions.
+
+func init() { register("Conv", convVJP) }
+
+// forceF64 sends float32 convolutions through the float64 path (tests).
+var forceF64 = false
+
+func convVJP(o *Op) error {
+	if err := o.Need(2); err != nil {
+		return err
+	}
+	X, W, Y := o.In[0], o.In[1], o.Out[0]
+	if W.Rank() != X.Rank() {
+		return fmt.Errorf("Conv weight %v does not fit input %v", W.Shape, X.Shape)
+	}
+	win, err := windowOf(o, X, Y, W.Shape[2:])
+	if err != nil {
+		return err
+	}
+	N, C, M := X.Shape[0], X.Shape[1], W.Shape[0]
+	G := int(o.Int("group", 1))
+	if G < 1 || C%G != 0 || M%G != 0 || W.Shape[1] != C/G {
+		return fmt.Errorf("Conv group %d does not fit input %v and weight %v", G, X.Shape, W.Shape)
+	}
+	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
+	g := o.G(0)
+	gx, gw, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	if gb != nil {
+		for n := 0; n < N; n++ {
+			for m := 0; m < M; m++ {
+				s := 0.0
+				for _, v := range g[(n*M+m)*P : (n*M+m+1)*P] {
+					s += v
+				}
+				gb[m] += s
+			}
+		}
+	}
+	if gx == nil && gw == nil {
+		return nil
+	}
+	x32, ok1 := X.Data.([]float32)
+	w32, ok2 := W.Data.([]float32)
+	if ok1 && ok2 && !forceF64 {
+		convF32(o, win, N, C, M, G, x32, w32, g, gx, gw)
+		return nil
+	}
+	x, w := o.X(0), o.X(1)
+	cols := make([]float64, Cg*K*P)
+	dcols := make([]float64, Cg*K*P)
+	for n := 0; n < N; n++ {
+		for grp := 0; grp < G; grp++ {
+			gy := g[(n*M+grp*Mg)*P : (n*M+(grp+1)*Mg)*P]
+			wg := w[grp*Mg*Cg*K : (grp+1)*Mg*Cg*K]
+			if gw != nil {
+				for c := 0; c < Cg; c++ {
+					xc := x[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+					for t := 0; t < K; t++ {
+						row := cols[(c*K+t)*P : (c*K+t+1)*P]
+						for p := range row {
+							if off := win.taps[p*K+t]; off >= 0 {
+								row[p] = xc[off]
+							} else {
+								row[p] = 0
+							}
+						}
+					}
+				}
+				mm(false, true, 1, gy, Mg, P, cols, Cg*K, P, gw[grp*Mg*Cg*K:(grp+1)*Mg*Cg*K])
+			}
+			if gx != nil {
+				clear(dcols)
+				mm(true, false, 1, wg, Mg, Cg*K, gy, Mg, P, dcols)
+				for c := 0; c < Cg; c++ {
+					dx := gx[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+					for t := 0; t < K; t++ {
+						row := dcols[(c*K+t)*P : (c*K+t+1)*P]
+						for p, v := range row {
+							if off := win.taps[p*K+t]; off >= 0 {
+								dx[off] += v
+							}
+						}
+					}
+				}
+			}
+		}
+	}
+	return nil
+}

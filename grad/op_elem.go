@@ -1,0 +1,182 @@
+package grad
+
+import "math"
+
+// Element-wise operators: dL/dx = dL/dy · f'(x), with f' written from the
+// input x or, where shorter, the output y. At kinks the derivative is the
+// one PyTorch's autograd uses (ReLU: 0 at x = 0; Clip: 1 on the bounds).
+
+func init() {
+	register("Relu", reluVJP)
+	unary("LeakyRelu", func(x, _ float64, o *Op) float64 {
+		if x > 0 {
+			return 1
+		}
+		return float64(o.Float("alpha", 0.01))
+	})
+	unary("Elu", func(x, y float64, o *Op) float64 { // y = α(eˣ − 1) below 0: f' = y + α
+		if x > 0 {
+			return 1
+		}
+		return y + float64(o.Float("alpha", 1))
+	})
+	unary("Selu", func(x, _ float64, o *Op) float64 {
+		g := float64(o.Float("gamma", 1.05070102214813232421875))
+		if x > 0 {
+			return g
+		}
+		return g * float64(o.Float("alpha", 1.67326319217681884765625)) * math.Exp(x)
+	})
+	unary("Celu", func(x, _ float64, o *Op) float64 {
+		if x > 0 {
+			return 1
+		}
+		return math.Exp(x / float64(o.Float("alpha", 1)))
+	})
+	unary("Sigmoid", func(_, y float64, _ *Op) float64 { return y * (1 - y) })
+	unary("Tanh", func(_, y float64, _ *Op) float64 { return 1 - y*y })
+	unary("HardSigmoid", func(x, _ float64, o *Op) float64 { // y = max(0, min(1, αx + β))
+		a, b := float64(o.Float("alpha", 0.2)), float64(o.Float("beta", 0.5))
+		v := a*x + b
+		if v > 0 && v < 1 {
+			return a
+		}
+		return 0
+	})
+	unary("HardSwish", func(x, _ float64, _ *Op) float64 { // y = x·max(0, min(1, x/6 + 1/2))
+		switch {
+		case x < -3:
+			return 0
+		case x <= 3:
+			return x/3 + 0.5
+		}
+		return 1
+	})
+	unary("Softplus", func(x, _ float64, _ *Op) float64 { return 1 / (1 + math.Exp(-x)) })
+	unary("Softsign", func(x, _ float64, _ *Op) float64 { d := 1 + math.Abs(x); return 1 / (d * d) })
+	unary("Mish", func(x, _ float64, _ *Op) float64 { // y = x·tanh(softplus(x))
+		sp := math.Log1p(math.Exp(x))
+		t := math.Tanh(sp)
+		return t + x*(1-t*t)/(1+math.Exp(-x))
+	})
+	unary("Gelu", func(x, _ float64, o *Op) float64 {
+		if o.Str("approximate", "none") == "tanh" { // y = x/2·(1 + tanh(√(2/π)(x + 0.044715x³)))
+			c := math.Sqrt(2 / math.Pi)
+			u := c * (x + 0.044715*x*x*x)
+			t := math.Tanh(u)
+			return 0.5*(1+t) + 0.5*x*(1-t*t)*c*(1+3*0.044715*x*x)
+		}
+		// y = x·Φ(x): Φ(x) + x·φ(x)
+		return 0.5*(1+math.Erf(x/math.Sqrt2)) + x*math.Exp(-x*x/2)/math.Sqrt(2*math.Pi)
+	})
+	unary("Erf", func(x, _ float64, _ *Op) float64 { return 2 / math.Sqrt(math.Pi) * math.Exp(-x*x) })
+	unary("Exp", func(_, y float64, _ *Op) float64 { return y })
+	unary("Log", func(x, _ float64, _ *Op) float64 { return 1 / x })
+	unary("Sqrt", func(_, y float64, _ *Op) float64 { return 0.5 / y })
+	unary("Reciprocal", func(_, y float64, _ *Op) float64 { return -y * y })
+	unary("Neg", func(_, _ float64, _ *Op) float64 { return -1 })
+	unary("Abs", func(x, _ float64, _ *Op) float64 { return sign(x) })
+	unary("Sin", func(x, _ float64, _ *Op) float64 { return math.Cos(x) })
+	unary("Cos", func(x, _ float64, _ *Op) float64 { return -math.Sin(x) })
+	unary("Identity", func(_, _ float64, _ *Op) float64 { return 1 })
+	unary("Dropout", func(_, _ float64, _ *Op) float64 { return 1 }) // inference: the identity
+	register("Clip", clipVJP)
+}
+
+func step(b bool) float64 {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+func sign(x float64) float64 {
+	switch {
+	case x > 0:
+		return 1
+	case x < 0:
+		return -1
+	}
+	return 0
+}
+
+// unary registers an element-wise operator whose derivative is d(x, y).
+func unary(name string, d func(x, y float64, o *Op) float64) {
+	register(name, func(o *Op) error {
+		g := o.G(0)
+		gx := o.InPlace(0)
+		if gx == nil {
+			return nil
+		}
+		x, y := o.X(0), o.Y(0)
+		split(len(gx), func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				gx[i] = g[i] * d(x[i], y[i], o)
+			}
+		})
+		return nil
+	})
+}
+
+// clipVJP: y = min(max(x, lo), hi); the gradient passes where lo ≤ x ≤ hi
+// (bounds from inputs 1 and 2 from opset 11, attributes before); a bound
+// input gets the gradient of the elements clipped to it.
+func clipVJP(o *Op) error {
+	lo, hi := math.Inf(-1), math.Inf(1)
+	if o.Opset < 11 {
+		lo, hi = float64(o.Float("min", float32(math.Inf(-1)))), float64(o.Float("max", float32(math.Inf(1))))
+	} else {
+		if t := o.Input(1); t != nil {
+			lo = F64(t)[0]
+		}
+		if t := o.Input(2); t != nil {
+			hi = F64(t)[0]
+		}
+	}
+	gx, glo, ghi := o.Grad(0), o.Grad(1), o.Grad(2)
+	x, g := o.X(0), o.G(0)
+	for i := range x {
+		switch {
+		case x[i] < lo: // y = lo
+			if glo != nil {
+				glo[0] += g[i]
+			}
+		case x[i] > hi:
+			if ghi != nil {
+				ghi[0] += g[i]
+			}
+		case gx != nil:
+			gx[i] = g[i]
+		}
+	}
+	return nil
+}
+
+// reluVJP: dL/dx = G where x > 0 (read in the model's own precision).
+func reluVJP(o *Op) error {
+	g := o.G(0)
+	gx := o.InPlace(0)
+	if gx == nil {
+		return nil
+	}
+	if x, ok := o.In[0].Data.([]float32); ok {
+		split(len(x), func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				if x[i] > 0 {
+					gx[i] = g[i]
+				} else {
+					gx[i] = 0
+				}
+			}
+		})
+		return nil
+	}
+	for i, v := range o.X(0) {
+		if v > 0 {
+			gx[i] = g[i]
+		} else {
+			gx[i] = 0
+		}
+	}
+	return nil
+}

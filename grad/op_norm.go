@@ -1,0 +1,204 @@
+package grad
+
+import (
+	"fmt"
+	"math"
+)
+
+// Normalisation.
+//
+// BatchNormalization, inference mode: y = s·(x − μ)/√(σ² + ε) + b per
+// channel (axis 1) with the running μ, σ² (constants here: no gradient).
+// dL/dx = G·s/√(σ²+ε), dL/ds = Σ G·(x − μ)/√(σ²+ε), dL/db = Σ G.
+//
+// LayerNormalization over the axes from axis on: x̂ = (x − mean)/√(var + ε),
+// y = s·x̂ + b; with ĝ = G·s, dL/dx = (ĝ − mean(ĝ) − x̂·mean(ĝ·x̂))/√(var + ε).
+
+func init() {
+	register("BatchNormalization", batchNormVJP)
+	register("LayerNormalization", layerNormVJP)
+	register("InstanceNormalization", instanceNormVJP)
+}
+
+// instanceNormVJP: each (sample, channel) plane is normalised over its
+// spatial positions, y = s[c]·x̂ + b[c]; per plane, with ĝ = G·s[c],
+// dL/dx = (ĝ − mean(ĝ) − x̂·mean(ĝ·x̂))/√(var + ε) (LayerNormalization's
+// rule), dL/ds[c] = Σ G·x̂, dL/db[c] = Σ G.
+func instanceNormVJP(o *Op) error {
+	if err := o.Need(3); err != nil {
+		return err
+	}
+	X := o.In[0]
+	if X.Rank() < 3 {
+		return fmt.Errorf("InstanceNormalization input %v has no spatial axis", X.Shape)
+	}
+	N, C, D := X.Shape[0], X.Shape[1], prod(X.Shape[2:])
+	eps := float64(o.Float("epsilon", 1e-5))
+	x, s, g := o.X(0), o.X(1), o.G(0)
+	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	xh := make([]float64, D)
+	for pl := 0; pl < N*C; pl++ {
+		c := pl % C
+		xr, gr := x[pl*D:(pl+1)*D], g[pl*D:(pl+1)*D]
+		m := 0.0
+		for _, v := range xr {
+			m += v
+		}
+		m /= float64(D)
+		vr := 0.0
+		for _, v := range xr {
+			vr += (v - m) * (v - m)
+		}
+		vr /= float64(D)
+		inv := 1 / math.Sqrt(vr+eps)
+		mg, mgx := 0.0, 0.0
+		for i, v := range xr {
+			xh[i] = (v - m) * inv
+			mg += gr[i] * s[c]
+			mgx += gr[i] * s[c] * xh[i]
+			if gs != nil {
+				gs[c] += gr[i] * xh[i]
+			}
+			if gb != nil {
+				gb[c] += gr[i]
+			}
+		}
+		mg /= float64(D)
+		mgx /= float64(D)
+		if gx != nil {
+			for i := range xr {
+				gx[pl*D+i] = (gr[i]*s[c] - mg - xh[i]*mgx) * inv
+			}
+		}
+	}
+	return nil
+}
+
+func batchNormVJP(o *Op) error {
+	if err := o.Need(5); err != nil {
+		return err
+	}
+	if o.Int("training_mode", 0) != 0 {
+		return fmt.Errorf("BatchNormalization in training mode has no gradient rule here")
+	}
+	X := o.In[0]
+	if X.Rank() < 2 {
+		return fmt.Errorf("BatchNormalization input %v has no channel axis", X.Shape)
+	}
+	N, C := X.Shape[0], X.Shape[1]
+	I := prod(X.Shape[2:])
+	eps := float64(o.Float("epsilon", 1e-5))
+	s, mean, vr := o.X(1), o.X(3), o.X(4)
+	g := o.G(0)
+	// gx may be G itself: each plane's sums are taken before it is overwritten
+	gx, gs, gb := o.InPlace(0), o.Grad(1), o.Grad(2)
+	x32, _ := X.Data.([]float32)
+	var x []float64
+	if gs != nil && x32 == nil {
+		x = o.X(0)
+	}
+	// per plane (sample n, channel c): Σ G and Σ G·x, then summed per channel
+	sg, sgx := make([]float64, N*C), make([]float64, N*C)
+	split(N*C*I, func(lo, hi int) {
+		for pl := lo / max(I, 1); pl < N*C && pl*I < hi; pl++ {
+			if pl*I < lo {
+				continue // the plane belongs to the part that holds its start
+			}
+			c := pl % C
+			gr := g[pl*I : (pl+1)*I]
+			if gs != nil || gb != nil { // the sums first: gx may overwrite G
+				var a, b float64
+				for i, v := range gr {
+					a += v
+					if x32 != nil {
+						b += v * float64(x32[pl*I+i])
+					} else if x != nil {
+						b += v * x[pl*I+i]
+					}
+				}
+				sg[pl], sgx[pl] = a, b
+			}
+			if gx != nil {
+				k := s[c] / math.Sqrt(vr[c]+eps)
+				d := gx[pl*I : (pl+1)*I]
+				for i, v := range gr {
+					d[i] = v * k
+				}
+			}
+		}
+	})
+	for c := 0; c < C; c++ {
+		inv := 1 / math.Sqrt(vr[c]+eps)
+		var a, b float64
+		for n := 0; n < N; n++ {
+			a += sg[n*C+c]
+			b += sgx[n*C+c]
+		}
+		if gs != nil { // Σ G·(x − μ)/√(σ²+ε)
+			gs[c] += (b - mean[c]*a) * inv
+		}
+		if gb != nil {
+			gb[c] += a
+		}
+	}
+	return nil
+}
+
+func layerNormVJP(o *Op) error {
+	if err := o.Need(2); err != nil {
+		return err
+	}
+	X := o.In[0]
+	axis := int(o.Int("axis", -1))
+	if axis < 0 {
+		axis += X.Rank()
+	}
+	if axis < 0 || axis >= X.Rank() {
+		return fmt.Errorf("LayerNormalization axis %d out of range for %v", o.Int("axis", -1), X.Shape)
+	}
+	D := prod(X.Shape[axis:])
+	rows := X.Size() / max(D, 1)
+	eps := float64(o.Float("epsilon", 1e-5))
+	if o.In[1].Size() != D || (o.Input(2) != nil && o.In[2].Size() != D) {
+		return fmt.Errorf("LayerNormalization scale %v or bias does not cover the normalised shape %v", o.In[1].Shape, X.Shape[axis:])
+	}
+	x, s, g := o.X(0), o.X(1), o.G(0)
+	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	xh := make([]float64, D)
+	gh := make([]float64, D)
+	for r := 0; r < rows; r++ {
+		xr, gr := x[r*D:(r+1)*D], g[r*D:(r+1)*D]
+		m := 0.0
+		for _, v := range xr {
+			m += v
+		}
+		m /= float64(D)
+		v := 0.0
+		for _, e := range xr {
+			v += (e - m) * (e - m)
+		}
+		v /= float64(D)
+		inv := 1 / math.Sqrt(v+eps)
+		mg, mgx := 0.0, 0.0
+		for i := range xr {
+			xh[i] = (xr[i] - m) * inv
+			gh[i] = gr[i] * s[i]
+			mg += gh[i]
+			mgx += gh[i] * xh[i]
+			if gs != nil {
+				gs[i] += gr[i] * xh[i]
+			}
+			if gb != nil {
+				gb[i] += gr[i]
+			}
+		}
+		mg /= float64(D)
+		mgx /= float64(D)
+		if gx != nil {
+			for i := range xr {
+				gx[r*D+i] = (gh[i] - mg - xh[i]*mgx) * inv
+			}
+		}
+	}
+	return nil
+}

@@ -1,0 +1,329 @@
+package grad
+
+import (
+	"errors"
+	"fmt"
+	"sort"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// Tape holds every value of one batch of a plan's main graph: the graph
+// inputs, the initializers and each node's outputs, recorded by Record from
+// the run's hook. The values must stay unchanged until Backward returns (a
+// run without buffer recycling, or one whose recycling waits for it).
+type Tape struct {
+	// InputGrads asks Backward for dL/dx of the graph inputs too (off: the
+	// first layers skip that product).
+	InputGrads bool
+	plan       *probe.Plan
+	vals       map[string]*tensor.Tensor
+	// step[n] is the main-graph step of node n (subgraph nodes are not recorded).
+	step map[*loader.Node]int
+}
+
+// NewTape prepares a tape for batches of plan p.
+func NewTape(p *probe.Plan) *Tape {
+	t := &Tape{plan: p, step: map[*loader.Node]int{}}
+	for i, s := range p.Steps {
+		t.step[s.Node] = i
+	}
+	t.Reset(nil)
+	return t
+}
+
+// Reset starts a new batch with these graph inputs.
+func (t *Tape) Reset(inputs map[string]*tensor.Tensor) {
+	t.vals = make(map[string]*tensor.Tensor, len(t.plan.Graph.Initializers)+len(t.plan.Steps)+len(inputs))
+	for name, v := range t.plan.Graph.Initializers {
+		t.vals[name] = v
+	}
+	for name, v := range inputs {
+		t.vals[name] = v
+	}
+}
+
+// Record stores a node's outputs; it has the signature of a probe.Hook's
+// body and ignores nodes of subgraphs.
+func (t *Tape) Record(n *loader.Node, outs []*tensor.Tensor) {
+	if _, ok := t.step[n]; !ok {
+		return
+	}
+	for j, name := range n.Outputs {
+		if name != "" && j < len(outs) && outs[j] != nil {
+			t.vals[name] = outs[j]
+		}
+	}
+}
+
+// Bytes estimates the memory a backward pass over the recorded batch needs
+// beyond the batch itself: a float64 gradient for every float value (an
+// upper bound; gradients are freed as the pass goes down).
+func (t *Tape) Bytes() int64 {
+	var n int64
+	for name, v := range t.vals {
+		if _, init := t.plan.Graph.Initializers[name]; !init && isFloat(v) {
+			n += int64(v.Size()) * 8
+		}
+	}
+	return n
+}
+
+// Value returns a recorded value.
+func (t *Tape) Value(name string) *tensor.Tensor { return t.vals[name] }
+
+// Result is what one backward pass produced.
+type Result struct {
+	// Params are dL/dW for every float initializer (and float Constant node
+	// tensor, by output name) a gradient reached.
+	Params map[string][]float64
+	// Inputs are dL/dx for the float graph inputs (with Tape.InputGrads).
+	Inputs map[string][]float64
+	// Missing lists, by operator type, the nodes a gradient reached that
+	// have no VJP: nothing flows past them.
+	Missing map[string][]string
+}
+
+// MissingLines is one line per operator type without a VJP, naming its nodes.
+func (r *Result) MissingLines() []string {
+	var out []string
+	for op, nodes := range r.Missing {
+		q := make([]string, len(nodes))
+		for i, n := range nodes {
+			q[i] = fmt.Sprintf("%q", n)
+		}
+		if len(q) > 5 {
+			q = append(q[:5], fmt.Sprintf("and %d more", len(nodes)-5))
+		}
+		out = append(out, fmt.Sprintf("%s (no gradient rule): %d node(s): %v", op, len(nodes), q))
+	}
+	sort.Strings(out)
+	return out
+}
+
+// Backward propagates seed (dL/dv for some values, graph outputs usually)
+// through the recorded batch in reverse step order. value, when not nil, is
+// called once with the final gradient of every node output a gradient
+// reached (before the step that produced it runs its VJP), with that step's
+// index; the slice is only valid during the call.
+func (t *Tape) Backward(seed map[string][]float64, value func(step int, name string, g []float64)) (*Result, error) {
+	p := t.plan
+	// a value wants a gradient when it is float and depends on an
+	// initializer or a Constant node's float tensor (parameters too), or a
+	// graph input with InputGrads; a node with subgraphs (If, Loop, Scan)
+	// may read parameters through its bodies, so its outputs want one too
+	wants := map[string]bool{}
+	for name, v := range t.vals {
+		if _, init := p.Graph.Initializers[name]; init && isFloat(v) {
+			wants[name] = true
+		}
+	}
+	for _, in := range p.Graph.Inputs {
+		if v := t.vals[in.Name]; v != nil && isFloat(v) && t.InputGrads {
+			wants[in.Name] = true
+		}
+	}
+	for _, s := range p.Steps {
+		dep := isParamNode(s.Node) || hasSubgraph(s.Node)
+		for _, in := range s.Node.Inputs {
+			dep = dep || (in != "" && wants[in])
+		}
+		if !dep {
+			continue
+		}
+		for _, o := range s.Node.Outputs {
+			if v := t.vals[o]; o != "" && v != nil && isFloat(v) {
+				wants[o] = true
+			}
+		}
+	}
+	grads := map[string][]float64{}
+	for name, g := range seed {
+		v := t.vals[name]
+		if v == nil {
+			return nil, fmt.Errorf("gradient seed for %q: no such value in the batch", name)
+		}
+		if len(g) != v.Size() {
+			return nil, fmt.Errorf("gradient seed for %q has %d elements, the value %v has %d", name, len(g), v.Shape, v.Size())
+		}
+		grads[name] = append([]float64(nil), g...)
+	}
+	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
+	free := &freeList{byLen: map[int][][]float64{}}
+	for i := len(p.Steps) - 1; i >= 0; i-- {
+		s := &p.Steps[i]
+		n := s.Node
+		gOut := make([][]float64, len(n.Outputs))
+		any := false
+		for j, o := range n.Outputs {
+			if g, ok := grads[o]; ok && o != "" {
+				gOut[j] = g
+				any = true
+				if value != nil {
+					value(i, o, g)
+				}
+				delete(grads, o)
+			}
+		}
+		if !any {
+			continue
+		}
+		if isParamNode(n) { // a weight given as a Constant node
+			for j, o := range n.Outputs {
+				if gOut[j] != nil {
+					res.Params[o] = gOut[j]
+				}
+			}
+			continue
+		}
+		if hasSubgraph(n) { // no rule through bodies
+			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
+			continue
+		}
+		need := make([]bool, len(n.Inputs))
+		needAny := false
+		in := make([]*tensor.Tensor, len(n.Inputs))
+		for j, name := range n.Inputs {
+			if name == "" {
+				continue
+			}
+			in[j] = t.vals[name]
+			if in[j] == nil {
+				if v, ok := p.Graph.Initializers[name]; ok {
+					in[j] = v
+				}
+			}
+			need[j] = wants[name] && in[j] != nil
+			needAny = needAny || need[j]
+		}
+		if !needAny {
+			continue
+		}
+		f, ok := Lookup(n.Domain, n.OpType)
+		if !ok {
+			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
+			continue
+		}
+		out := make([]*tensor.Tensor, len(n.Outputs))
+		for j, name := range n.Outputs {
+			if name != "" {
+				out[j] = t.vals[name]
+			}
+		}
+		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
+		op.alloc, op.allocRaw = free.get, free.getRaw
+		if err := callVJP(f, op); err != nil {
+			var nr *noRuleError
+			if errors.As(err, &nr) {
+				key := n.OpType + " " + nr.detail
+				res.Missing[key] = append(res.Missing[key], n.Name)
+				continue
+			}
+			return nil, fmt.Errorf("gradient of node %q (%s): %w", n.Name, n.OpType, err)
+		}
+		// the outputs' gradients are used up: their storage serves later steps
+		for _, g := range gOut {
+			if g != nil && !aliases(g, op.GIn) {
+				free.put(g)
+			}
+		}
+		for j, name := range n.Inputs {
+			g := op.GIn[j]
+			if g == nil || name == "" {
+				continue
+			}
+			if acc, ok := grads[name]; ok {
+				for k, v := range g {
+					acc[k] += v
+				}
+			} else {
+				grads[name] = g
+			}
+		}
+	}
+	for name, g := range grads {
+		if _, init := p.Graph.Initializers[name]; init {
+			res.Params[name] = g
+		} else {
+			res.Inputs[name] = g
+		}
+	}
+	return res, nil
+}
+
+// freeList recycles gradient buffers within one backward pass, by length.
+type freeList struct{ byLen map[int][][]float64 }
+
+func (f *freeList) get(n int) []float64 {
+	if l := f.byLen[n]; len(l) > 0 {
+		b := l[len(l)-1]
+		f.byLen[n] = l[:len(l)-1]
+		clear(b)
+		return b
+	}
+	return make([]float64, n)
+}
+
+// getRaw is get without clearing a recycled buffer.
+func (f *freeList) getRaw(n int) []float64 {
+	if l := f.byLen[n]; len(l) > 0 {
+		b := l[len(l)-1]
+		f.byLen[n] = l[:len(l)-1]
+		return b
+	}
+	return make([]float64, n)
+}
+
+func (f *freeList) put(b []float64) { f.byLen[len(b)] = append(f.byLen[len(b)], b) }
+
+// aliases reports whether g is (the start of) one of the buffers in gs.
+func aliases(g []float64, gs [][]float64) bool {
+	for _, x := range gs {
+		if len(x) > 0 && len(g) > 0 && &x[0] == &g[0] {
+			return true
+		}
+	}
+	return false
+}
+
+// isParamNode reports a Constant node holding a float tensor of rank ≥ 1: a
+// weight stored as a node (its gradient is reported like an initializer's).
+func isParamNode(n *loader.Node) bool { return ConstantParam(n) != nil }
+
+// ConstantParam is the float tensor of rank ≥ 1 a Constant node holds
+// (attribute value or value_floats), nil for any other node.
+func ConstantParam(n *loader.Node) *tensor.Tensor {
+	if n.OpType != "Constant" || (n.Domain != "" && n.Domain != "ai.onnx") {
+		return nil
+	}
+	if a := n.Attrs["value"]; a != nil && a.T != nil && isFloat(a.T) && a.T.Rank() >= 1 {
+		return a.T
+	}
+	if a := n.Attrs["value_floats"]; a != nil {
+		return tensor.From(a.Floats, len(a.Floats))
+	}
+	return nil
+}
+
+// hasSubgraph reports a node with a graph attribute (If, Loop, Scan).
+func hasSubgraph(n *loader.Node) bool {
+	for _, a := range n.Attrs {
+		if a.G != nil || len(a.Graphs) > 0 {
+			return true
+		}
+	}
+	return false
+}
+
+// callVJP runs a VJP, turning a panic (a shape it did not expect) into an
+// error naming the operator, so that the rest of the report survives.
+func callVJP(f VJP, o *Op) (err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("internal error: %v", r)
+		}
+	}()
+	return f(o)
+}

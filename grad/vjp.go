@@ -1,0 +1,243 @@
+package grad
+
+import (
+	"fmt"
+	"sort"
+
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// Op is one node seen backwards: the forward call (node, inputs, outputs,
+// attribute helpers of probe.Call), the gradient of L with respect to each
+// output (nil: zero) and the gradients the VJP produces for the inputs.
+type Op struct {
+	*probe.Call
+	// GOut[j] is dL/d(output j), nil when no gradient reaches it.
+	GOut [][]float64
+	// GIn[i] is dL/d(input i), allocated by Grad; nil for inputs that take
+	// no gradient (absent, not float, or not depending on a parameter).
+	GIn [][]float64
+	// need[i] reports whether input i wants a gradient.
+	need []bool
+	xs   map[int][]float64
+	ys   map[int][]float64
+	// gaveOut: GOut[0] is some GIn's buffer already (InPlace)
+	gaveOut bool
+	// alloc, when set, returns a zeroed buffer (the tape's recycled ones);
+	// allocRaw one with undefined contents.
+	alloc, allocRaw func(n int) []float64
+}
+
+// NoRule is the error of a VJP for an operator variant it has no rule for
+// (Resize in linear mode): Backward lists the node as missing, "Op (detail)".
+func NoRule(detail string) error { return &noRuleError{detail} }
+
+type noRuleError struct{ detail string }
+
+func (e *noRuleError) Error() string { return "no gradient rule for " + e.detail }
+
+// VJP computes the gradients of one operator: it reads o.GOut and the
+// forward values and fills the buffers o.Grad(i) returns.
+type VJP func(o *Op) error
+
+var vjps = map[string]VJP{}
+
+// register adds the VJP of a default-domain operator (every opset).
+func register(op string, f VJP) {
+	if _, dup := vjps[op]; dup {
+		panic("grad: VJP registered twice for " + op)
+	}
+	vjps[op] = f
+}
+
+// Lookup returns the VJP of an operator of the default domain.
+func Lookup(domain, op string) (VJP, bool) {
+	if domain != "" && domain != "ai.onnx" {
+		return nil, false
+	}
+	f, ok := vjps[op]
+	return f, ok
+}
+
+// Ops lists the operator types that have a VJP, sorted.
+func Ops() []string {
+	out := make([]string, 0, len(vjps))
+	for k := range vjps {
+		out = append(out, k)
+	}
+	sort.Strings(out)
+	return out
+}
+
+// NewOp prepares a node for its VJP: forward inputs and outputs, the output
+// gradients, and which inputs want a gradient (nil need: every float input).
+func NewOp(c *probe.Call, gOut [][]float64, need []bool) *Op {
+	o := &Op{Call: c, GOut: gOut, GIn: make([][]float64, len(c.In)), need: need}
+	if o.need == nil {
+		o.need = make([]bool, len(c.In))
+		for i, t := range c.In {
+			o.need[i] = t != nil && isFloat(t)
+		}
+	}
+	return o
+}
+
+func isFloat(t *tensor.Tensor) bool { return t.DType == tensor.Float32 || t.DType == tensor.Float64 }
+
+// Needs reports whether input i wants a gradient.
+func (o *Op) Needs(i int) bool { return i < len(o.need) && o.need[i] && o.Input(i) != nil }
+
+// Grad returns the zeroed buffer for dL/d(input i) (allocated on first use),
+// or nil when input i takes no gradient.
+func (o *Op) Grad(i int) []float64 {
+	if !o.Needs(i) {
+		return nil
+	}
+	if o.GIn[i] == nil {
+		if o.alloc != nil {
+			o.GIn[i] = o.alloc(o.In[i].Size())
+		} else {
+			o.GIn[i] = make([]float64, o.In[i].Size())
+		}
+	}
+	return o.GIn[i]
+}
+
+// GradFull is Grad for a VJP that writes every element of the buffer: its
+// contents on return are undefined (a recycled buffer is not cleared).
+func (o *Op) GradFull(i int) []float64 {
+	if !o.Needs(i) {
+		return nil
+	}
+	if o.GIn[i] == nil {
+		if o.allocRaw != nil {
+			o.GIn[i] = o.allocRaw(o.In[i].Size())
+		} else {
+			o.GIn[i] = make([]float64, o.In[i].Size())
+		}
+	}
+	return o.GIn[i]
+}
+
+// InPlace is GradFull for a VJP that computes dL/d(input i) element by
+// element from dL/d(output 0) of the same size: it hands out output 0's
+// gradient buffer itself (the VJP owns GOut, which the pass does not read
+// again), so the VJP overwrites G in place, reading each element before
+// writing it. Otherwise it is GradFull.
+func (o *Op) InPlace(i int) []float64 {
+	if !o.Needs(i) {
+		return nil
+	}
+	if o.GIn[i] == nil && len(o.GOut) > 0 && o.GOut[0] != nil && len(o.GOut[0]) == o.In[i].Size() && !o.gaveOut {
+		o.GIn[i] = o.GOut[0]
+		o.gaveOut = true
+		return o.GIn[i]
+	}
+	return o.GradFull(i)
+}
+
+// X is forward input i as float64 (shared with the tensor when it is float64).
+func (o *Op) X(i int) []float64 {
+	if v, ok := o.xs[i]; ok {
+		return v
+	}
+	if o.xs == nil {
+		o.xs = map[int][]float64{}
+	}
+	v := F64(o.Input(i))
+	o.xs[i] = v
+	return v
+}
+
+// Y is forward output j as float64.
+func (o *Op) Y(j int) []float64 {
+	if v, ok := o.ys[j]; ok {
+		return v
+	}
+	if o.ys == nil {
+		o.ys = map[int][]float64{}
+	}
+	v := F64(o.Out[j])
+	o.ys[j] = v
+	return v
+}
+
+// G is dL/d(output j); a zero slice of the output's size when no gradient
+// reached it.
+func (o *Op) G(j int) []float64 {
+	if j < len(o.GOut) && o.GOut[j] != nil {
+		return o.GOut[j]
+	}
+	return make([]float64, o.Out[j].Size())
+}
+
+// F64 returns a float tensor's elements as float64 (nil for other types).
+func F64(t *tensor.Tensor) []float64 {
+	if t == nil {
+		return nil
+	}
+	switch d := t.Data.(type) {
+	case []float64:
+		return d
+	case []float32:
+		out := make([]float64, len(d))
+		for i, v := range d {
+			out[i] = float64(v)
+		}
+		return out
+	}
+	return nil
+}
+
+// Ints returns an integer tensor's elements (shape inputs such as Reshape's).
+func Ints(t *tensor.Tensor) ([]int, error) {
+	if t == nil {
+		return nil, nil
+	}
+	switch d := t.Data.(type) {
+	case []int64:
+		out := make([]int, len(d))
+		for i, v := range d {
+			out[i] = int(v)
+		}
+		return out, nil
+	case []int32:
+		out := make([]int, len(d))
+		for i, v := range d {
+			out[i] = int(v)
+		}
+		return out, nil
+	}
+	return nil, fmt.Errorf("expected an integer tensor, got %v", t.DType)
+}
+
+// bcastMap maps every flat index of outShape to the flat index of the
+// element of a tensor of shape in that numpy broadcasting reads there.
+func bcastMap(in, outShape []int) []int {
+	n := 1
+	for _, d := range outShape {
+		n *= d
+	}
+	m := make([]int, n)
+	strides := probe.BroadcastStrides(in, outShape)
+	r := len(outShape)
+	idx := make([]int, r)
+	off := 0
+	for k := 0; k < n; k++ {
+		m[k] = off
+		for a := r - 1; a >= 0; a-- {
+			idx[a]++
+			off += strides[a]
+			if idx[a] < outShape[a] {
+				break
+			}
+			off -= strides[a] * outShape[a]
+			idx[a] = 0
+		}
+	}
+	return m
+}
+
+// sameShape reports equal shapes.
+func sameShape(a, b []int) bool { return tensor.SameShape(a, b) }
