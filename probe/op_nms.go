@@ -63,7 +63,9 @@ func nmsKernel(c *Call) error {
 		if t.DType.IsFloat() || t.DType == tensor.Bool || t.DType == tensor.String {
 			return fmt.Errorf("max_output_boxes_per_class must be an integer tensor, got %v", t.DType)
 		}
-		maxOut = max(int64(t.Float64At(0)), 0)
+		// read exactly: exporters write INT64_MAX for "no limit", which
+		// through float64 becomes 2^63 and converts to a negative count
+		maxOut = max(t.Int64At(0), 0)
 	}
 	iou, hasScore, scoreThr := 0.0, false, 0.0
 	if t, err := nmsScalar(c, 3, "iou_threshold"); err != nil {
