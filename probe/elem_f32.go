@@ -61,20 +61,6 @@ func clipScalar(dst, src []float32, lo, hi float32) {
 	}
 }
 
-func sigmoidF32(dst, src []float32) {
-	dst = dst[:len(src)]
-	for i, v := range src {
-		dst[i] = float32(elemSigmoid(float64(v)))
-	}
-}
-
-func tanhF32(dst, src []float32) {
-	dst = dst[:len(src)]
-	for i, v := range src {
-		dst[i] = float32(math.Tanh(float64(v)))
-	}
-}
-
 // unaryF32Kernel is a float kernel whose float32 case runs the slice kernel
 // k32 (which must compute exactly float32(g(float64(x)))) and whose other
 // cases go through mapFloat with g.
