@@ -1,7 +1,5 @@
 package probe
 
-import "github.com/vitals-health/vitals/tensor"
-
 // Float32 depthwise (channel-wise) 2-D convolution: every output channel m
 // reads only input channel m/Mg (Cg == 1), so each output plane is
 //
@@ -243,7 +241,7 @@ func convF32WithAct(a *convF32Args, shape []int) {
 		convFastF32(a)
 		return
 	}
-	f.out = tensor.NewUninit(tensor.Float32, shape) // every element written below
+	f.alloc(shape) // every element written below
 	if convIsDepthwise(a) {
 		convFastF32(a) // convDepthwise2D applies f per plane
 		return
