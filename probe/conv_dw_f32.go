@@ -44,7 +44,7 @@ func convDepthwise2D(a *convF32Args) {
 			scratch = getF32(dwFlatScratch(OH, OW))
 			defer putF32(scratch)
 		} else if taps {
-			scratch = getF32(dwTapsScratch(H, W, g.strides[1]))
+			scratch = getF32(dwTapsScratch(g))
 			defer putF32(scratch)
 		}
 		for p := p0; p < p1; p++ {

@@ -3,93 +3,86 @@ package probe
 import "unsafe"
 
 // Depthwise planes of any window up to dwMaxTaps taps (5×5, 7×7, …), any
-// stride, dilation and padding, as rows of tap sums:
+// stride, dilation and padding, as one long row of tap sums:
 //
 //	y[oh, ow] = bias + Σ_{kh,kw} w[kh,kw] · x[oh·sh − pt + kh·dh, ow·sw − pl + kw·dw]
 //
-// For the interior columns (every tap inside the row) and each output row,
-// each tap is a stride-1 run of inputs: with sw = 1 a slice of the input
-// row; with sw > 1 a slice of one of sw phase planes (column c of the input
-// goes to phase c mod sw at index ⌊c/sw⌋), copied once per plane. dwTaps
-// then sums the runs, 64 outputs at a time in registers (AVX-512) or in Go;
-// the border columns and rows leave out the taps outside the image.
+// The plane is copied once, zero-padded and split into sh·sw phase planes
+// (padded row r, column c goes to phase (r mod sh, c mod sw) at
+// (⌊r/sh⌋, ⌊c/sw⌋)), each Hq × Wq. Output (oh, ow) then reads, for tap
+// (kh, kw), phase ((kh·dh) mod sh, (kw·dw) mod sw) at (oh + ⌊kh·dh/sh⌋,
+// ow + ⌊kw·dw/sw⌋): flattened with row pitch Wq, every tap is one stride-1
+// run over all outputs at once (with Wq − OW unused values between rows).
+// dwTaps sums the runs, 64 outputs at a time in registers (AVX-512) or in
+// Go, and the rows are copied out. Taps in the padding add w·0.
 
-// dwMaxTaps bounds the taps of one output row (7×7).
+// dwMaxTaps bounds the taps of one window (7×7).
 const dwMaxTaps = 49
 
-// dwTapsScratch is the per-worker scratch of dwTapsPlane: the phase planes
-// (none for sw = 1).
-func dwTapsScratch(H, W, sw int) int {
-	if sw == 1 {
-		return 0
-	}
-	return sw * H * ((W + sw - 1) / sw)
+// dwTapsDims returns the phase plane size Hq × Wq of dwTapsPlane.
+func dwTapsDims(g *convGeom) (Hq, Wq int) {
+	Hq = g.out[0] + (g.k[0]-1)*g.dil[0]/g.strides[0] + 1
+	Wq = g.out[1] + (g.k[1]-1)*g.dil[1]/g.strides[1] + 1
+	return
+}
+
+// dwTapsScratch is the per-worker scratch of dwTapsPlane: the phase planes,
+// then the flat output.
+func dwTapsScratch(g *convGeom) int {
+	Hq, Wq := dwTapsDims(g)
+	return g.strides[0]*g.strides[1]*Hq*Wq + g.out[0]*Wq
 }
 
 // dwTapsPlane writes one output plane (see above); scratch holds
-// dwTapsScratch(H, W, sw) values.
+// dwTapsScratch(g) values.
 func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW, KH, KW int, g *convGeom, scratch []float32) {
 	sh, sw := g.strides[0], g.strides[1]
 	dh, dw := g.dil[0], g.dil[1]
 	pt, pl := g.padBeg[0], g.padBeg[1]
-	clo, chi := convValidRange(OW, sw, -pl, W-(KW-1)*dw)
-	Wq := (W + sw - 1) / sw
-	if sw > 1 && clo < chi {
-		for r := 0; r < H; r++ {
-			row := x[r*W : (r+1)*W]
-			for c, v := range row {
-				scratch[((c%sw)*H+r)*Wq+c/sw] = v
+	Hq, Wq := dwTapsDims(g)
+	plane := Hq * Wq
+	phases := scratch[:sh*sw*plane]
+	clear(phases)
+	for ih := 0; ih < H; ih++ {
+		r := ih + pt
+		if r/sh >= Hq {
+			break
+		}
+		row := x[ih*W : (ih+1)*W]
+		for ph := 0; ph < sw; ph++ {
+			// columns c = iw + pl ≡ ph (mod sw), from the first such iw ≥ 0
+			iw := ((ph-pl)%sw + sw) % sw
+			base := ((r%sh)*sw+ph)*plane + (r/sh)*Wq + (iw+pl)/sw
+			n := min((W-iw+sw-1)/sw, Wq-(iw+pl)/sw)
+			if n <= 0 {
+				continue // (pads wider than the window) no column of this phase is read
+			}
+			if sw == 1 {
+				copy(phases[base:base+n], row[iw:iw+n])
+				continue
+			}
+			dst := phases[base : base+n]
+			for k := range dst {
+				dst[k] = row[iw+k*sw]
 			}
 		}
 	}
+	n := (OH-1)*Wq + OW
+	out := scratch[sh*sw*plane : sh*sw*plane+n]
 	var srcs [dwMaxTaps][]float32
-	var ws [dwMaxTaps]float32
 	var ptrs [dwMaxTaps]unsafe.Pointer
+	taps := 0
+	for kh := 0; kh < KH; kh++ {
+		for kw := 0; kw < KW; kw++ {
+			a, b := kh*dh, kw*dw
+			at := ((a%sh)*sw+b%sw)*plane + (a/sh)*Wq + b/sw
+			srcs[taps] = phases[at : at+n]
+			taps++
+		}
+	}
+	dwTaps(out, srcs[:taps], w[:taps], bias, ptrs[:taps])
 	for oh := 0; oh < OH; oh++ {
-		dst := y[oh*OW : (oh+1)*OW]
-		ih0 := oh*sh - pt
-		// border columns, tap by tap
-		for ow := 0; ow < OW; ow++ {
-			if ow == clo && clo < chi {
-				ow = chi - 1
-				continue
-			}
-			s := bias
-			for kh := 0; kh < KH; kh++ {
-				ih := ih0 + kh*dh
-				if ih < 0 || ih >= H {
-					continue
-				}
-				for kw := 0; kw < KW; kw++ {
-					if iw := ow*sw - pl + kw*dw; iw >= 0 && iw < W {
-						s += w[kh*KW+kw] * x[ih*W+iw]
-					}
-				}
-			}
-			dst[ow] = s
-		}
-		if clo >= chi {
-			continue
-		}
-		n := 0
-		for kh := 0; kh < KH; kh++ {
-			ih := ih0 + kh*dh
-			if ih < 0 || ih >= H {
-				continue
-			}
-			for kw := 0; kw < KW; kw++ {
-				c0 := clo*sw - pl + kw*dw // input column of output clo, ≥ 0
-				if sw == 1 {
-					srcs[n] = x[ih*W+c0 : ih*W+c0+chi-clo]
-				} else {
-					at := ((c0%sw)*H+ih)*Wq + c0/sw
-					srcs[n] = scratch[at : at+chi-clo]
-				}
-				ws[n] = w[kh*KW+kw]
-				n++
-			}
-		}
-		dwTaps(dst[clo:chi], srcs[:n], ws[:n], bias, ptrs[:n])
+		copy(y[oh*OW:(oh+1)*OW], out[oh*Wq:oh*Wq+OW])
 	}
 }
 

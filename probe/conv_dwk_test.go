@@ -94,3 +94,36 @@ func TestDwTapsVecMatchesGo(t *testing.T) {
 		}
 	}
 }
+
+// benchDWTaps times one depthwise K×K Conv plane set (batch 8, EfficientNet
+// and ConvNeXt sizes) through dwTapsPlane, or through the tap-by-tap
+// dwGenericPlane it replaced (generic=true).
+func benchDWTaps(b *testing.B, C, H, K, s int, generic bool) {
+	r := rand.New(rand.NewSource(1))
+	x, w := linRand(r, 8, C, H, H), linRand(r, C, 1, K, K)
+	p := K / 2
+	g := convGeom{in: []int{H, H}, k: []int{K, K}, strides: []int{s, s}, dil: []int{1, 1}, padBeg: []int{p, p}, padEnd: []int{p, p}}
+	OH := (H+2*p-K)/s + 1
+	g.out = []int{OH, OH}
+	y := make([]float32, OH*OH)
+	scratch := make([]float32, dwTapsScratch(&g))
+	b.SetBytes(int64(4 * x.Size()))
+	for b.Loop() {
+		for pl := 0; pl < 8*C; pl++ {
+			xp, wp := x.F32()[pl*H*H:(pl+1)*H*H], w.F32()[pl%C*K*K:(pl%C+1)*K*K]
+			if generic {
+				clear(y)
+				dwGenericPlane(y, xp, wp, H, H, OH, OH, K, K, &g, 0, OH, 0, OH)
+			} else {
+				dwTapsPlane(y, xp, wp, 0, H, H, OH, OH, K, K, &g, scratch)
+			}
+		}
+	}
+}
+
+func BenchmarkDWTaps5x5s1(b *testing.B)        { benchDWTaps(b, 240, 28, 5, 1, false) }
+func BenchmarkDWTaps5x5s1Generic(b *testing.B) { benchDWTaps(b, 240, 28, 5, 1, true) }
+func BenchmarkDWTaps5x5s2(b *testing.B)        { benchDWTaps(b, 144, 56, 5, 2, false) }
+func BenchmarkDWTaps5x5s2Generic(b *testing.B) { benchDWTaps(b, 144, 56, 5, 2, true) }
+func BenchmarkDWTaps7x7s1(b *testing.B)        { benchDWTaps(b, 96, 56, 7, 1, false) }
+func BenchmarkDWTaps7x7s1Generic(b *testing.B) { benchDWTaps(b, 96, 56, 7, 1, true) }
