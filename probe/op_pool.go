@@ -246,13 +246,23 @@ func avgPoolKernel(c *Call) error {
 		return err
 	}
 	x := c.In[0]
+	incl := c.Int("count_include_pad", 0) != 0
+	if xf, ok := x.Data.([]float32); ok && x.Rank() == 4 {
+		g, err := poolGeometry(c, x, c.Opset >= 10)
+		if err != nil {
+			return err
+		}
+		out := tensor.New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
+		poolAvg2DF32(out.F32(), xf, x.Shape[0]*x.Shape[1], &g, incl) // no window table needed
+		c.Set(0, out)
+		return nil
+	}
 	g, w, err := poolPrepare(c, x, c.Opset >= 10)
 	if err != nil {
 		return err
 	}
 	out := tensor.New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
 	planes := x.Shape[0] * x.Shape[1]
-	incl := c.Int("count_include_pad", 0) != 0
 	switch xd := x.Data.(type) {
 	case []float32:
 		poolAvgRun(out.F32(), xd, planes, w, incl)

@@ -11,8 +11,9 @@ size of a real check), 8192 for the MLP, whose items take 0.2 ms each.
 --breadth writes the architectures of bench/breadth.sh (torchvision 0.14
 constructors, untrained weights as constructed: speed does not depend on
 training) with BREADTH_ITEMS seeded Gaussian items each, 224×224 but for
-SSDLite (320×320, one image per run, no batch axis: torchvision's detection
-models take a list of images). All exist in torchvision 0.14, ConvNeXt-Tiny
+SSDLite (320×320 uniform [0, 1] images, one per run, no batch axis:
+torchvision's detection models take a list of images; its convolutions
+He-initialised so that the detection scores differ). All exist in torchvision 0.14, ConvNeXt-Tiny
 and Swin-T included.
 """
 import os
@@ -145,6 +146,9 @@ def breadth(out, names):
         if name.startswith("deeplab"):
             model = DeepLabOut(model)
         if not batched:
+            # He-initialised convolutions keep the activations' scale through
+            # the untrained backbone, so that scores differ and NMS has work
+            he_init(model)
             model = DetectOut(model)
         model.eval()
         g = torch.Generator().manual_seed(1)
