@@ -1,8 +1,9 @@
 // Command detectcheck compares a model's outputs on vitals' executor with
-// ONNX Runtime's, item by item: the number of rows of every output (for a
-// detection model, the number of detections) must be equal and every value
-// within a tolerance (-atol plus -rtol times the largest magnitude of that
-// output). The reference outputs come from bench/ort/outputs.js, which
+// ONNX Runtime's, item by item: the shape of every output (for a detection
+// model, the number of detections) must be equal, and every row (a
+// detection: its box, score and label) must have a partner row on the other
+// side with every value within a tolerance (-atol plus -rtol times the
+// largest magnitude of that output), in any order. The reference outputs come from bench/ort/outputs.js, which
 // feeds each item alone (models without a batch axis, such as torchvision's
 // detection exports).
 //
@@ -79,28 +80,100 @@ func run(modelPath, dataPath, ortPath string, items int, atol, rtol float64) (in
 		if err != nil {
 			return 0, fmt.Errorf("item %d: %w", i, err)
 		}
+		var cols []column
 		for _, o := range m.Graph.Outputs {
 			got, want := outs[o.Name], ref.Items[i][o.Name]
 			scale := 0.0
 			for _, v := range want.Data {
 				scale = max(scale, math.Abs(v))
 			}
-			worst := 0.0
-			n := got.Size()
-			if n == len(want.Data) {
-				for k := 0; k < n; k++ {
-					worst = max(worst, math.Abs(valueAt(got, k)-want.Data[k]))
-				}
+			c := column{name: o.Name, got: got, want: want, tol: atol + rtol*scale}
+			same := fmt.Sprint(got.Shape) == fmt.Sprint(want.Dims)
+			fmt.Printf("item %d %-8s vitals %v ORT %v  %s\n", i, o.Name, got.Shape, want.Dims,
+				map[bool]string{true: "same shape", false: "SHAPES DIFFER"}[same])
+			if !same {
+				bad++
+				continue
 			}
-			ok := fmt.Sprint(got.Shape) == fmt.Sprint(want.Dims) && worst <= atol+rtol*scale
-			if !ok {
+			cols = append(cols, c)
+		}
+		if len(cols) == len(m.Graph.Outputs) {
+			unmatched, worst := matchRows(cols)
+			fmt.Printf("item %d rows unmatched: %d; largest difference of matched values, per output:", i, unmatched)
+			for k, c := range cols {
+				fmt.Printf(" %s %.3g (tolerance %.3g)", c.name, worst[k], c.tol)
+			}
+			fmt.Println()
+			if unmatched > 0 {
 				bad++
 			}
-			fmt.Printf("item %d %-8s vitals %v ORT %v  max |diff| %.3g (tolerance %.3g)  %s\n",
-				i, o.Name, got.Shape, want.Dims, worst, atol+rtol*scale, map[bool]string{true: "ok", false: "DIFFERS"}[ok])
 		}
 	}
 	return bad, nil
+}
+
+// column is one output of one item on both sides.
+type column struct {
+	name string
+	got  *tensor.Tensor
+	want ortOut
+	tol  float64
+}
+
+// matchRows pairs the rows (index along axis 0, across every output: for a
+// detection model one detection's box, score and label) of vitals' outputs
+// with ORT's, each with the first unpaired ORT row whose values all lie
+// within the outputs' tolerances: detections of nearly equal score may come
+// in another order from two executors. It returns how many rows found no
+// partner and, per output, the largest difference within the pairs.
+func matchRows(cols []column) (int, []float64) {
+	worst := make([]float64, len(cols))
+	rows := -1
+	for _, c := range cols {
+		r := 1
+		if len(c.want.Dims) > 0 {
+			r = c.want.Dims[0]
+		}
+		if rows >= 0 && r != rows {
+			rows = -2
+		}
+		if rows != -2 {
+			rows = r
+		}
+	}
+	if rows < 0 {
+		rows = 1 // outputs of different lengths: compare as one row
+	}
+	used := make([]bool, rows)
+	unmatched := 0
+	for a := 0; a < rows; a++ {
+		found := false
+		for b := 0; b < rows && !found; b++ {
+			if used[b] {
+				continue
+			}
+			ok := true
+			for _, c := range cols {
+				w := len(c.want.Data) / rows
+				for k := 0; k < w && ok; k++ {
+					ok = math.Abs(valueAt(c.got, a*w+k)-c.want.Data[b*w+k]) <= c.tol
+				}
+			}
+			if ok {
+				found, used[b] = true, true
+				for ci, c := range cols {
+					w := len(c.want.Data) / rows
+					for k := 0; k < w; k++ {
+						worst[ci] = max(worst[ci], math.Abs(valueAt(c.got, a*w+k)-c.want.Data[b*w+k]))
+					}
+				}
+			}
+		}
+		if !found {
+			unmatched++
+		}
+	}
+	return unmatched, worst
 }
 
 // valueAt reads element k of a float or integer tensor as float64 (integers
