@@ -14,7 +14,9 @@
 # compared with ONNX Runtime's on its first 4 images (bench/detectcheck).
 #
 # Usage: bench/breadth.sh [model ...]   (default: all twelve)
-# Environment: A, B (sample counts, default 8 and 40), REPS (best of, default 2).
+# Environment: A, B (sample counts, default 8 and 40), REPS (best of, default
+# 2), VITALS (a vitals binary to time instead of building this tree's, e.g.
+# an older build for a before/after table).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 A=${A:-8}
@@ -38,7 +40,11 @@ fi
 if [ ! -d bench/ort/node_modules/onnxruntime-node ]; then
 	(cd bench/ort && ONNXRUNTIME_NODE_INSTALL=skip npm install --no-audit --no-fund --silent)
 fi
-go build -o /tmp/vitals-breadth-vitals ./cmd/vitals
+if [ -n "${VITALS:-}" ]; then
+	cp "$VITALS" /tmp/vitals-breadth-vitals
+else
+	go build -o /tmp/vitals-breadth-vitals ./cmd/vitals
+fi
 go build -o /tmp/vitals-breadth-detectcheck ./bench/detectcheck
 
 # seconds of one whole `vitals check` over the first $2 items of model $1

@@ -41,17 +41,56 @@ var actTable = func() (t [24]float64) {
 	return t
 }()
 
-// haveActVec is true where actAVX512 runs (tests clear it to compare with
-// the Go reference).
-var haveActVec = cpu.X86.HasAVX512F && cpu.X86.HasAVX512DQ
+// actAVX2 is actAVX512 four values at a time with AVX2 and FMA (n a
+// multiple of 4), its constants broadcast in actTable4.
+//
+//go:noescape
+func actAVX2(dst, src *float32, n int, op int, table *[26][4]float64, p *[3][4]float64)
 
-// actVec applies op to the leading multiple of 8 values and returns how many
-// it did (0 without AVX-512).
-func actVec(dst, src []float32, op actOp, p *[3]float64) int {
-	n := min(len(dst), len(src)) &^ 7
-	if !haveActVec || n == 0 {
-		return 0
+// actTable4 is actTable with every entry broadcast to four lanes, then the
+// sign bit and the exponent bias 1023 (as integer bits).
+var actTable4 = func() (t [26][4]float64) {
+	for i, v := range actTable {
+		t[i] = [4]float64{v, v, v, v}
 	}
-	actAVX512(&dst[0], &src[0], n, int(op), &actTable, p)
-	return n
+	s, b := math.Float64frombits(1<<63), math.Float64frombits(1023)
+	t[23] = [4]float64{s, s, s, s}
+	t[24] = [4]float64{b, b, b, b}
+	return t
+}()
+
+// actVecLevel picks the kernel: 2 AVX-512, 1 AVX2 + FMA, 0 none (the Go
+// reference). Tests lower it to check each level.
+var actVecLevel = func() int {
+	switch {
+	case cpu.X86.HasAVX512F && cpu.X86.HasAVX512DQ:
+		return 2
+	case cpu.X86.HasAVX2 && cpu.X86.HasFMA:
+		return 1
+	}
+	return 0
+}()
+
+// actVec applies op to the leading multiple of 8 (AVX-512) or 4 (AVX2)
+// values and returns how many it did (0 without either).
+func actVec(dst, src []float32, op actOp, p *[3]float64) int {
+	switch actVecLevel {
+	case 2:
+		n := min(len(dst), len(src)) &^ 7
+		if n > 0 {
+			actAVX512(&dst[0], &src[0], n, int(op), &actTable, p)
+		}
+		return n
+	case 1:
+		n := min(len(dst), len(src)) &^ 3
+		if n > 0 {
+			var p4 [3][4]float64
+			for i, v := range p {
+				p4[i] = [4]float64{v, v, v, v}
+			}
+			actAVX2(&dst[0], &src[0], n, int(op), &actTable4, &p4)
+		}
+		return n
+	}
+	return 0
 }

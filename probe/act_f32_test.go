@@ -1,6 +1,7 @@
 package probe
 
 import (
+	"fmt"
 	"math"
 	"testing"
 )
@@ -9,7 +10,8 @@ import (
 // reference: float32(g(float64(x))) with g the operator's formula in
 // math.Exp/Expm1/Tanh/Log1p). Every float32 bit pattern with a stride of 251
 // (17 million values, both signs, subnormals, ±Inf and NaN included) is
-// checked on the vector path where the CPU has it.
+// checked on the widest vector path the CPU has, and every 1021st on each
+// narrower one (AVX2, then the Go path).
 //
 // Tolerance: 1 float32 ulp, counted on the ordered bit patterns, and at
 // most one value in 10^5 off by that ulp. Why: the vector kernel evaluates
@@ -82,7 +84,19 @@ func ulpDiff(a, b float32) uint32 {
 }
 
 func TestActivationsMatchMath(t *testing.T) {
-	const stride = 251
+	saved := actVecLevel
+	defer func() { actVecLevel = saved }()
+	for level := saved; level >= 0; level-- {
+		actVecLevel = level
+		stride := uint64(251)
+		if level < saved {
+			stride = 1021
+		}
+		activationSweep(t, stride)
+	}
+}
+
+func activationSweep(t *testing.T, stride uint64) {
 	x := make([]float32, 0, (1<<32)/stride+1)
 	for b := uint64(0); b < 1<<32; b += stride {
 		x = append(x, math.Float32frombits(uint32(b)))
@@ -105,18 +119,18 @@ func TestActivationsMatchMath(t *testing.T) {
 			}
 		}
 		if bad > 0 || off > len(x)/100000 {
-			t.Errorf("%s: %d values more than 1 ulp off, %d off by 1 ulp of %d", tc.name, bad, off, len(x))
+			t.Errorf("%s (vector level %d): %d values more than 1 ulp off, %d off by 1 ulp of %d", tc.name, actVecLevel, bad, off, len(x))
 		} else {
-			t.Logf("%s: %d of %d values 1 ulp off (vector=%v)", tc.name, off, len(x), haveActVec)
+			t.Logf("%s: %d of %d values 1 ulp off (vector level %d)", tc.name, off, len(x), actVecLevel)
 		}
 	}
 }
 
 // The Go path alone (what runs without AVX-512) is the reference itself.
 func TestActivationsGoPath(t *testing.T) {
-	saved := haveActVec
-	defer func() { haveActVec = saved }()
-	haveActVec = false
+	saved := actVecLevel
+	defer func() { actVecLevel = saved }()
+	actVecLevel = 0
 	x := []float32{-100, -3, -1, -0.5, 0, 0.25, 1, 3, 100, float32(math.Inf(1))}
 	got := make([]float32, len(x))
 	for _, tc := range actCases() {
@@ -129,26 +143,25 @@ func TestActivationsGoPath(t *testing.T) {
 	}
 }
 
+// BenchmarkActivations times each activation at every vector level this CPU
+// has (2 AVX-512, 1 AVX2, 0 the Go reference loop) on 64K values.
 func BenchmarkActivations(b *testing.B) {
 	x := make([]float32, 1<<16)
 	for i := range x {
 		x[i] = float32(i-len(x)/2) / 4096
 	}
 	y := make([]float32, len(x))
+	saved := actVecLevel
+	defer func() { actVecLevel = saved }()
 	for _, tc := range actCases() {
-		b.Run(tc.name, func(b *testing.B) {
-			b.SetBytes(int64(4 * len(x)))
-			for b.Loop() {
-				tc.k(y, x)
-			}
-		})
-		b.Run(tc.name+"/float64-math", func(b *testing.B) {
-			b.SetBytes(int64(4 * len(x)))
-			for b.Loop() {
-				for i, v := range x {
-					y[i] = float32(tc.ref(float64(v)))
+		for level := saved; level >= 0; level-- {
+			b.Run(fmt.Sprintf("%s/level%d", tc.name, level), func(b *testing.B) {
+				actVecLevel = level
+				b.SetBytes(int64(4 * len(x)))
+				for b.Loop() {
+					tc.k(y, x)
 				}
-			}
-		})
+			})
+		}
 	}
 }

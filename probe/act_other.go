@@ -2,6 +2,6 @@
 
 package probe
 
-var haveActVec = false
+var actVecLevel = 0
 
 func actVec(dst, src []float32, op actOp, p *[3]float64) int { return 0 }
