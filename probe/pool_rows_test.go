@@ -83,3 +83,30 @@ func TestPoolRowsMatchWindowTable(t *testing.T) {
 		}
 	}
 }
+
+// GlobalAveragePool's float32 path (eight float64 accumulators, planes
+// across cores) against the sequential float64 sum of poolGlobalRun on
+// planes of 0 to 3000 values and on many small planes; they may differ only
+// by a rounding of the float32 result (1 ulp), and NaN and Inf propagate.
+func TestPoolGlobalAvgMatchesSequential(t *testing.T) {
+	r := rand.New(rand.NewSource(62))
+	for _, dims := range [][2]int{{3, 0}, {5, 1}, {7, 9}, {64, 49}, {4, 3000}, {960, 7}} {
+		planes, size := dims[0], dims[1]
+		x := linRand(r, planes*size+1).F32()[:planes*size]
+		if size > 2 {
+			x[size+1] = float32(math.NaN())
+			x[2*size+2] = float32(math.Inf(1))
+		}
+		want := make([]float32, planes)
+		got := make([]float32, planes)
+		if size > 0 {
+			poolGlobalRun(want, x, planes, poolAvg, 2)
+			poolGlobalAvgF32(got, x, planes)
+		}
+		for i := range want {
+			if ulpDiff(got[i], want[i]) > 1 {
+				t.Fatalf("planes %d size %d: plane %d = %g, sequential %g", planes, size, i, got[i], want[i])
+			}
+		}
+	}
+}
