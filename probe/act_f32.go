@@ -20,13 +20,25 @@ const (
 	actMish                     // x·tanh(ln(1 + e^x)) = x·n/(n + 2), n = e^x·(e^x + 2)
 )
 
-// actF32 returns the float32 slice kernel of op with parameters p, whose
-// values outside the vector groups (and every value without AVX-512) come
-// from ref.
+// actF32 returns the float32 slice kernel of op with parameters p. Where a
+// vector kernel runs, it computes every value, the last partial group
+// through a small buffer, so that a value does not depend on where a slice
+// starts (a Conv applies the kernel to other spans than the activation's own
+// step, and the hook must see the same values either way); elsewhere every
+// value comes from ref.
 func actF32(op actOp, p [3]float64, ref func(float64) float64) func(dst, src []float32) {
 	return func(dst, src []float32) {
 		dst = dst[:len(src)]
-		for i := actVec(dst, src, op, &p); i < len(src); i++ {
+		i := actVec(dst, src, op, &p)
+		if i < len(src) && actVecLevel > 0 {
+			var in, out [8]float32
+			n := copy(in[:], src[i:])
+			if actVec(out[:], in[:], op, &p) == len(in) {
+				copy(dst[i:], out[:n])
+				return
+			}
+		}
+		for ; i < len(src); i++ {
 			dst[i] = float32(ref(float64(src[i])))
 		}
 	}

@@ -165,3 +165,35 @@ func BenchmarkActivations(b *testing.B) {
 		}
 	}
 }
+
+// A value's activation does not depend on where the slice holding it starts
+// (the vector kernel computes the partial last group too): every span of a
+// random vector gives the values of the whole-vector call, bit for bit, at
+// every vector level.
+func TestActivationsIndependentOfSpan(t *testing.T) {
+	saved := actVecLevel
+	defer func() { actVecLevel = saved }()
+	x := make([]float32, 101)
+	for i := range x {
+		x[i] = float32(i-50) / 7
+	}
+	x[13] = float32(math.NaN())
+	for level := saved; level >= 0; level-- {
+		actVecLevel = level
+		for _, tc := range actCases() {
+			whole := make([]float32, len(x))
+			tc.k(whole, x)
+			for lo := 0; lo < 12; lo++ {
+				for hi := lo; hi <= len(x); hi += 1 + hi%5 {
+					part := make([]float32, hi-lo)
+					tc.k(part, x[lo:hi])
+					for j, v := range part {
+						if math.Float32bits(v) != math.Float32bits(whole[lo+j]) {
+							t.Fatalf("level %d %s: x[%d] in span [%d, %d) = %g, whole call %g", level, tc.name, lo+j, lo, hi, v, whole[lo+j])
+						}
+					}
+				}
+			}
+		}
+	}
+}
