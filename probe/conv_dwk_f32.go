@@ -42,6 +42,51 @@ func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW, KH, KW int, g *c
 	Hq, Wq := dwTapsDims(g)
 	plane := Hq * Wq
 	phases := scratch[:sh*sw*plane]
+	if sh == 1 && sw == 1 {
+		dwPadPlane(phases, x, H, W, Hq, Wq, pt, pl)
+	} else {
+		dwPhasePlanes(phases, x, H, W, Hq, Wq, sh, sw, pt, pl)
+	}
+	n := (OH-1)*Wq + OW
+	out := scratch[sh*sw*plane : sh*sw*plane+n]
+	var srcs [dwMaxTaps][]float32
+	var ptrs [dwMaxTaps]unsafe.Pointer
+	taps := 0
+	for kh := 0; kh < KH; kh++ {
+		for kw := 0; kw < KW; kw++ {
+			a, b := kh*dh, kw*dw
+			at := ((a%sh)*sw+b%sw)*plane + (a/sh)*Wq + b/sw
+			srcs[taps] = phases[at : at+n]
+			taps++
+		}
+	}
+	dwTaps(out, srcs[:taps], w[:taps], bias, ptrs[:taps])
+	for oh := 0; oh < OH; oh++ {
+		copy(y[oh*OW:(oh+1)*OW], out[oh*Wq:oh*Wq+OW])
+	}
+}
+
+// dwPadPlane writes the zero-padded Hq × Wq copy of the H × W plane x
+// (unit strides: one phase), every value once.
+func dwPadPlane(pad, x []float32, H, W, Hq, Wq, pt, pl int) {
+	for r := 0; r < Hq; r++ {
+		row := pad[r*Wq : (r+1)*Wq]
+		ih := r - pt
+		if ih < 0 || ih >= H {
+			clear(row)
+			continue
+		}
+		c0 := min(pl, Wq)
+		clear(row[:c0])
+		n := copy(row[c0:], x[ih*W:(ih+1)*W])
+		clear(row[c0+n:])
+	}
+}
+
+// dwPhasePlanes writes the sh·sw zero-padded phase planes of the plane x
+// (see above).
+func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int) {
+	plane := Hq * Wq
 	clear(phases)
 	for ih := 0; ih < H; ih++ {
 		r := ih + pt
@@ -66,23 +111,6 @@ func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW, KH, KW int, g *c
 				dst[k] = row[iw+k*sw]
 			}
 		}
-	}
-	n := (OH-1)*Wq + OW
-	out := scratch[sh*sw*plane : sh*sw*plane+n]
-	var srcs [dwMaxTaps][]float32
-	var ptrs [dwMaxTaps]unsafe.Pointer
-	taps := 0
-	for kh := 0; kh < KH; kh++ {
-		for kw := 0; kw < KW; kw++ {
-			a, b := kh*dh, kw*dw
-			at := ((a%sh)*sw+b%sw)*plane + (a/sh)*Wq + b/sw
-			srcs[taps] = phases[at : at+n]
-			taps++
-		}
-	}
-	dwTaps(out, srcs[:taps], w[:taps], bias, ptrs[:taps])
-	for oh := 0; oh < OH; oh++ {
-		copy(y[oh*OW:(oh+1)*OW], out[oh*Wq:oh*Wq+OW])
 	}
 }
 
