@@ -1,7 +1,5 @@
 package probe
 
-import "github.com/vitals-health/vitals/tensor"
-
 // Float32 depthwise (channel-wise) 2-D convolution: every output channel m
 // reads only input channel m/Mg (Cg == 1), so each output plane is
 //
@@ -39,10 +37,14 @@ func convDepthwise2D(a *convF32Args) {
 	}
 	row3 := KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 && (g.strides[1] == 1 || g.strides[1] == 2) && W <= len(dwZeroRow)
 	flat := row3 && g.strides[0] == 1 && g.strides[1] == 1 && OW < dwFlatWidth
+	taps := !row3 && KH*KW <= dwMaxTaps
 	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
 		var scratch *[]float32
 		if flat {
 			scratch = getF32(dwFlatScratch(OH, OW))
+			defer putF32(scratch)
+		} else if taps {
+			scratch = getF32(dwTapsScratch(g))
 			defer putF32(scratch)
 		}
 		for p := p0; p < p1; p++ {
@@ -59,6 +61,8 @@ func convDepthwise2D(a *convF32Args) {
 				dw3x3FlatPlane(y, x, w, bias, H, W, OH, OW, g.padBeg[0], g.padBeg[1], *scratch)
 			} else if row3 {
 				dw3x3Plane(y, x, w, bias, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
+			} else if taps {
+				dwTapsPlane(y, x, w, bias, H, W, OH, OW, KH, KW, g, *scratch)
 			} else {
 				for i := range y {
 					y[i] = bias
@@ -243,7 +247,7 @@ func convF32WithAct(a *convF32Args, shape []int) {
 		convFastF32(a)
 		return
 	}
-	f.out = a.c.Arena().NewUninit(tensor.Float32, shape) // every element written below
+	f.alloc(a.c.Arena(), shape) // every element written below
 	if convIsDepthwise(a) {
 		convFastF32(a) // convDepthwise2D applies f per plane
 		return

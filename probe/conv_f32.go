@@ -28,6 +28,7 @@ type convF32Args struct {
 	c              *Call
 	w              *tensor.Tensor
 	xd, wd, bd, yd []float32
+	wConst         bool // w is an initializer, or cropped from one once (its packings can be cached)
 	N, C, M, group int
 	Cg, Mg, K, P   int
 	inSize         int
@@ -64,7 +65,7 @@ func convFastF32(a *convF32Args) {
 	}
 	kg := a.Cg * a.K
 	var packs []*gemm.PackedA
-	if a.c.isInitializer(1) && kg > 0 && packRoom(a.w) {
+	if a.wConst && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
 	}
 	if a.direct {

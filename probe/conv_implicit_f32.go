@@ -199,7 +199,7 @@ func convImplicit2D(a *convF32Args) {
 	q := newIm2colPanels(g, a.C, a.Cg)
 	var packs []*gemm.PackedA
 	switch {
-	case !a.c.isInitializer(1) || kg == 0 || !packRoom(a.w):
+	case !a.wConst || kg == 0 || !packRoom(a.w):
 	case a.bd != nil && a.c.isInitializer(2):
 		// the bias rides in the product as a column of A times a row of ones
 		packs = packedConvWeightsBias(a.w, a.c.In[2], a.wd, a.bd, a.group, a.Mg, kg)

@@ -61,20 +61,6 @@ func clipScalar(dst, src []float32, lo, hi float32) {
 	}
 }
 
-func sigmoidF32(dst, src []float32) {
-	dst = dst[:len(src)]
-	for i, v := range src {
-		dst[i] = float32(elemSigmoid(float64(v)))
-	}
-}
-
-func tanhF32(dst, src []float32) {
-	dst = dst[:len(src)]
-	for i, v := range src {
-		dst[i] = float32(math.Tanh(float64(v)))
-	}
-}
-
 // unaryF32Kernel is a float kernel whose float32 case runs the slice kernel
 // k32 (which must compute exactly float32(g(float64(x)))) and whose other
 // cases go through mapFloat with g.
@@ -243,6 +229,103 @@ func arithF32Fast(op opID, out []float32, os []int, a []float32, as []int, b []f
 	return true
 }
 
+// poolMaxColsS1 sets, for column stride 1, the outputs whose window lies in
+// the row: yr[ow] = max_kw tmp[ow − pl + kw·dw] for ow in [lo, hi), one
+// shifted row at a time (maxRowsVec, then Go for the rest), and returns
+// [lo, hi).
+func poolMaxColsS1(yr, tmp []float32, KW, dw, pl int) (lo, hi int) {
+	lo, hi = convValidRange(len(yr), 1, -pl, len(tmp)-(KW-1)*dw)
+	if hi-lo < 16 {
+		return 0, 0 // short rows: the tap loop
+	}
+	dst := yr[lo:hi]
+	copy(dst, tmp[lo-pl:])
+	for kw := 1; kw < KW; kw++ {
+		src := tmp[lo-pl+kw*dw:][:len(dst)]
+		for i := maxRowsVec(dst, dst, src); i < len(dst); i++ {
+			dst[i] = max(dst[i], src[i])
+		}
+	}
+	return lo, hi
+}
+
+// poolAvg2DF32 is poolAvgRun for 2-D float32 windows, separably: for each
+// output row the sum of the window's input rows inside the image (vector
+// adds), then for each output column the sum of that row's taps inside the
+// image, divided by their count (or, with count_include_pad, the count of
+// taps inside the padded input, as poolWindowsOf counts them); a window
+// with no tap gives NaN, as in poolAvgRun. The sums are taken in another
+// order than poolAvgRun's, so results agree to float32 rounding.
+func poolAvg2DF32(y, x []float32, planes int, g *convGeom, includePad bool) {
+	H, W := g.in[0], g.in[1]
+	OH, OW := g.out[0], g.out[1]
+	KH, KW := g.k[0], g.k[1]
+	sh, sw, dh, dw := g.strides[0], g.strides[1], g.dil[0], g.dil[1]
+	pt, pl := g.padBeg[0], g.padBeg[1]
+	// per output column: taps inside the image and inside the padded extent
+	colIn, colPad := make([]int, OW), make([]int, OW)
+	for ow := range colIn {
+		for kw := 0; kw < KW; kw++ {
+			iw := ow*sw - pl + kw*dw
+			if iw >= 0 && iw < W {
+				colIn[ow]++
+			}
+			if iw < W+g.padEnd[1] {
+				colPad[ow]++
+			}
+		}
+	}
+	parFor(planes, max(1, elemChunk/max(1, OH*OW*4)), func(p0, p1 int) {
+		tmp := make([]float32, W)
+		for pl0 := p0; pl0 < p1; pl0++ {
+			xp := x[pl0*H*W : (pl0+1)*H*W]
+			yp := y[pl0*OH*OW : (pl0+1)*OH*OW]
+			for oh := 0; oh < OH; oh++ {
+				rows, rowsPad := 0, 0
+				for kh := 0; kh < KH; kh++ {
+					ih := oh*sh - pt + kh*dh
+					if ih < H+g.padEnd[0] {
+						rowsPad++
+					}
+					if ih < 0 || ih >= H {
+						continue
+					}
+					src := xp[ih*W : (ih+1)*W]
+					if rows == 0 {
+						copy(tmp, src)
+					} else {
+						vvF32(addT, tmp, tmp, src)
+					}
+					rows++
+				}
+				yr := yp[oh*OW : (oh+1)*OW]
+				for ow := range yr {
+					n := rows * colIn[ow]
+					if includePad {
+						n = rowsPad * colPad[ow]
+					}
+					if rows == 0 || colIn[ow] == 0 || n == 0 {
+						if n == 0 {
+							yr[ow] = float32(math.NaN())
+						} else {
+							yr[ow] = 0 // only padding in the window: a sum of nothing
+						}
+						continue
+					}
+					var s float32
+					base := ow*sw - pl
+					for kw := 0; kw < KW; kw++ {
+						if iw := base + kw*dw; iw >= 0 && iw < W {
+							s += tmp[iw]
+						}
+					}
+					yr[ow] = s / float32(n)
+				}
+			}
+		}
+	})
+}
+
 // poolMaxF32 is poolMaxRun for float32 without indices, planes split across
 // cores. The maximum propagates NaN as poolMaxRun does.
 // poolMax2DF32 is poolMaxF32 for 2-D windows, separably: for each output
@@ -287,6 +370,8 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 				if KW == 3 && sw == 2 && dw == 1 && pl == 1 {
 					vec0 = 1
 					vec1 = 1 + maxCols3s2Vec(yr, tmp)
+				} else if sw == 1 {
+					vec0, vec1 = poolMaxColsS1(yr, tmp, KW, dw, pl)
 				}
 				for ow := range yr {
 					if ow >= vec0 && ow < vec1 {

@@ -23,11 +23,44 @@ import (
 // merely exists from the producer's step on).
 
 // fusedAct is an activation a producing kernel computes alongside its own
-// output 0. The kernel fills out (same shape as output 0) with f32 applied to
-// it; a kernel that cannot leaves out nil and the activation step runs as usual.
+// output 0. The kernel allocates out (alloc) and fills it with f32 applied to
+// output 0, always passing dst as a subslice of out's data and src as the
+// subslice of output 0 at the same offset; a kernel that cannot leaves out
+// nil and the activation step runs as usual.
+//
+// SiLU/Swish, exported as s = Sigmoid(x), y = Mul(x, s) with x read by both,
+// is one more output: f32 then also writes mul = x·s (the float32 product
+// the Mul kernel computes, element for element), and the plan hands mul to
+// the Mul step as it hands out to the Sigmoid step.
 type fusedAct struct {
-	f32 func(dst, src []float32)
-	out *tensor.Tensor
+	f32  func(dst, src []float32)
+	out  *tensor.Tensor
+	silu bool
+	mul  *tensor.Tensor
+	// sigFirst: the Mul reads the sigmoid first (Mul(s, x)); the operands keep
+	// their order so that even a NaN's payload is the Mul kernel's
+	sigFirst bool
+}
+
+// alloc creates the fused outputs for a producer output of the given shape
+// (uninitialised: the kernel writes every element).
+func (f *fusedAct) alloc(ar *tensor.Arena, shape []int) {
+	f.out = ar.NewUninit(tensor.Float32, shape)
+	if f.silu {
+		f.mul = ar.NewUninit(tensor.Float32, shape)
+	}
+}
+
+// siluF32 is the f32 of a fused SiLU: dst = sigmoid(src), and the same span
+// of mul = src·dst. dst is out.F32()[o : o+len(dst)], so o = cap(out) − cap(dst).
+func (f *fusedAct) siluF32(dst, src []float32) {
+	sigmoidF32(dst, src)
+	o := cap(f.out.F32()) - cap(dst)
+	if f.sigFirst {
+		vvF32(mulT, f.mul.F32()[o:o+len(dst)], dst, src)
+	} else {
+		vvF32(mulT, f.mul.F32()[o:o+len(dst)], src, dst)
+	}
 }
 
 // fuseProducers lists the operators whose kernels honour Call.fuse.
@@ -45,6 +78,13 @@ var fusableActs = map[string]func(c *Call) (func(dst, src []float32), bool){
 	"LeakyRelu": func(c *Call) (func(dst, src []float32), bool) {
 		a := c.Float("alpha", 0.01)
 		return func(dst, src []float32) { leakyReluF32(dst, src, a) }, true
+	},
+	"Sigmoid":   func(*Call) (func(dst, src []float32), bool) { return sigmoidF32, true },
+	"Tanh":      func(*Call) (func(dst, src []float32), bool) { return tanhF32, true },
+	"HardSwish": func(*Call) (func(dst, src []float32), bool) { return hardSwishF32, true },
+	"HardSigmoid": func(c *Call) (func(dst, src []float32), bool) {
+		a, b := float64(c.Float("alpha", 0.2)), float64(c.Float("beta", 0.5))
+		return actF32(actHardSigmoid, [3]float64{a, b}, hardSigmoid(a, b)), true
 	},
 }
 
@@ -100,7 +140,7 @@ func (p *Plan) markFusions() {
 		}
 	}
 	for i := range p.Steps {
-		p.Steps[i].fuseWith = -1
+		p.Steps[i].fuseWith, p.Steps[i].fuseMul = -1, -1
 	}
 	for i := range p.Steps {
 		s := &p.Steps[i]
@@ -108,7 +148,14 @@ func (p *Plan) markFusions() {
 			continue
 		}
 		v := s.Node.Outputs[0]
-		if v == "" || producedAt[v] != i || len(readers[v]) != 1 || readers[v][0] <= i {
+		if v == "" || producedAt[v] != i {
+			continue
+		}
+		if j, k, ok := p.siluAfter(v, i, readers); ok {
+			s.fuseWith, s.fuseMul = j, k
+			continue
+		}
+		if len(readers[v]) != 1 || readers[v][0] <= i {
 			continue
 		}
 		j := readers[v][0]
@@ -129,12 +176,40 @@ func (p *Plan) markFusions() {
 	}
 }
 
+// siluAfter finds a SiLU reading value v of step i: v's only readers are a
+// Sigmoid step j (its input 0) and, after it, a Mul step k of v and j's
+// output (either order), both in the default domain with one output, and k
+// is not in a subgraph. Then step i may compute both (fusedAct).
+func (p *Plan) siluAfter(v string, i int, readers map[string][]int) (j, k int, ok bool) {
+	r := readers[v]
+	if len(r) != 2 || r[0] <= i || r[1] <= r[0] {
+		return 0, 0, false
+	}
+	j, k = r[0], r[1]
+	sig, mul := p.Steps[j].Node, p.Steps[k].Node
+	if sig.OpType != "Sigmoid" || normDomain(sig.Domain) != "" || len(sig.Inputs) != 1 || sig.Inputs[0] != v ||
+		len(sig.Outputs) != 1 || sig.Outputs[0] == "" {
+		return 0, 0, false
+	}
+	s := sig.Outputs[0]
+	if mul.OpType != "Mul" || normDomain(mul.Domain) != "" || len(mul.Inputs) != 2 || len(mul.Outputs) != 1 || mul.Outputs[0] == "" ||
+		!(mul.Inputs[0] == v && mul.Inputs[1] == s || mul.Inputs[0] == s && mul.Inputs[1] == v) {
+		return 0, 0, false
+	}
+	return j, k, true
+}
+
 // fuseFor prepares the fusion of step i's activation (nil when there is
 // none or its kernel must run): its call with inputs resolved from env.
 func (p *Plan) fuseFor(i int, env *Scope, parent *Call) *fusedAct {
 	j := p.Steps[i].fuseWith
 	if j < 0 {
 		return nil
+	}
+	if p.Steps[i].fuseMul >= 0 {
+		f := &fusedAct{silu: true, sigFirst: p.Steps[p.Steps[i].fuseMul].Node.Inputs[0] != p.Steps[i].Node.Outputs[0]}
+		f.f32 = f.siluF32
+		return f
 	}
 	s := &p.Steps[j]
 	c := &Call{Node: s.Node, Opset: s.Opset, Scope: env, sub: parent.sub, run: parent.run}

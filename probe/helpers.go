@@ -262,10 +262,11 @@ func ToFloat32(t *tensor.Tensor) []float32 {
 // shapeOf returns a copy of t's shape.
 func shapeOf(t *tensor.Tensor) []int { return append([]int{}, t.Shape...) }
 
-// ScalarInt reads a scalar/1-element integer tensor.
+// ScalarInt reads a scalar/1-element integer tensor exactly (never through
+// float64, which would turn INT64_MAX into an out-of-range 2^63).
 func ScalarInt(t *tensor.Tensor) (int, error) {
 	if t.Size() < 1 {
 		return 0, fmt.Errorf("expects a scalar, got shape %v", t.Shape)
 	}
-	return int(t.Float64At(0)), nil
+	return int(t.Int64At(0)), nil
 }

@@ -21,12 +21,12 @@ func init() {
 	reg("ThresholdedRelu", elemThresholdedRelu, 10)
 	reg("Sigmoid", unaryF32Kernel(elemSigmoid, sigmoidF32), 1, 6, 13)
 	reg("HardSigmoid", elemHardSigmoid, 1, 6)
-	reg("HardSwish", elemFloatKernel(elemHardSwish), 14)
+	reg("HardSwish", unaryF32Kernel(elemHardSwish, hardSwishF32), 14)
 	reg("Tanh", unaryF32Kernel(math.Tanh, tanhF32), 1, 6, 13)
-	reg("Softplus", elemFloatKernel(elemSoftplus), 1)
+	reg("Softplus", unaryF32Kernel(elemSoftplus, softplusF32), 1)
 	reg("Softsign", elemFloatKernel(func(x float64) float64 { return x / (1 + math.Abs(x)) }), 1)
 	reg("Gelu", elemGelu, 20)
-	reg("Mish", elemFloatKernel(func(x float64) float64 { return x * math.Tanh(elemSoftplus(x)) }), 18)
+	reg("Mish", unaryF32Kernel(elemMish, mishF32), 18)
 	reg("Swish", elemSwish, 24)
 	reg("Shrink", elemShrink, 9)
 	reg("Clip", elemClip, 1, 6, 11, 12, 13)
@@ -78,38 +78,37 @@ func elemLeakyRelu(c *Call) error {
 	}, func(dst, src []float32) { leakyReluF32(dst, src, alpha) })(c)
 }
 
-// Elu: y = x for x >= 0, alpha*(e^x - 1) otherwise (alpha default 1).
+// Elu: y = x for x > 0, alpha*(e^x - 1) otherwise (alpha default 1).
 func elemElu(c *Call) error {
-	a := float64(c.Float("alpha", 1))
-	return elemFloatMap(c, func(x float64) float64 {
-		if x < 0 {
-			return a * math.Expm1(x)
-		}
-		return x
-	})
+	return eluKernel(1, float64(c.Float("alpha", 1)), 1)(c)
 }
 
 // Selu: y = gamma*x for x > 0, gamma*alpha*(e^x - 1) otherwise.
 func elemSelu(c *Call) error {
 	a := float64(c.Float("alpha", 1.67326319217681884765625))
 	g := float64(c.Float("gamma", 1.05070102214813232421875))
-	return elemFloatMap(c, func(x float64) float64 {
-		if x > 0 {
-			return g * x
-		}
-		return g * a * math.Expm1(x)
-	})
+	return eluKernel(g, g*a, 1)(c)
 }
 
-// Celu: y = max(0, x) + min(0, alpha*(e^(x/alpha) - 1)) (alpha default 1).
+// Celu: y = max(0, x) + min(0, alpha*(e^(x/alpha) - 1)) (alpha default 1);
+// for alpha > 0 that is x for x > 0 and alpha*(e^(x/alpha) - 1) otherwise.
 func elemCelu(c *Call) error {
 	a := float64(c.Float("alpha", 1))
 	if a == 0 {
 		return fmt.Errorf("alpha must not be 0")
 	}
+	if a > 0 {
+		return eluKernel(1, a, a)(c)
+	}
 	return elemFloatMap(c, func(x float64) float64 {
 		return math.Max(0, x) + math.Min(0, a*math.Expm1(x/a))
 	})
+}
+
+// eluKernel runs eluLike(p, q, d), with the vector kernel on float32.
+func eluKernel(p, q, d float64) Kernel {
+	g := eluLike(p, q, d)
+	return unaryF32Kernel(g, actF32(actElu, [3]float64{p, q, d}, g))
 }
 
 // ThresholdedRelu: y = x for x > alpha, 0 otherwise (alpha default 1).
@@ -127,7 +126,8 @@ func elemThresholdedRelu(c *Call) error {
 func elemHardSigmoid(c *Call) error {
 	a := float64(c.Float("alpha", 0.2))
 	b := float64(c.Float("beta", 0.5))
-	return elemFloatMap(c, func(x float64) float64 { return math.Max(0, math.Min(1, a*x+b)) })
+	g := hardSigmoid(a, b)
+	return unaryF32Kernel(g, actF32(actHardSigmoid, [3]float64{a, b}, g))(c)
 }
 
 // Gelu: approximate="none": y = x/2 * (1 + erf(x/sqrt 2));

@@ -113,6 +113,9 @@ func (g *convGeom) clonePads() {
 	g.padEnd = append([]int{}, g.padEnd...)
 }
 
+// convCropOn enables convCropTaps (tests turn it off for a reference).
+var convCropOn = true
+
 // convUseReference routes float32 convolutions through the generic path
 // below (im2col + linGemmT) instead of convFastF32; tests flip it.
 var convUseReference = false
@@ -287,6 +290,12 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 	} else {
 		out = c.Arena().New(x.DType, outShape)
 	}
+	wConst := c.isInitializer(1)
+	if isF32 && convCropOn {
+		if ng, nw, ok := convCropTaps(c, w, &g); ok {
+			g, w = ng, nw
+		}
+	}
 	xd, wd, yd := x.Data.([]T), w.Data.([]T), out.Data.([]T)
 	Cg, Mg := C/group, M/group
 	K, P, inSize := 1, 1, 1
@@ -305,7 +314,7 @@ func convRun[T Float](c *Call, x, w, b *tensor.Tensor) (*tensor.Tensor, error) {
 		if b != nil {
 			bd = b.F32()
 		}
-		convF32WithAct(&convF32Args{c: c, w: w, xd: xf, wd: any(wd).([]float32), bd: bd, yd: any(yd).([]float32),
+		convF32WithAct(&convF32Args{c: c, w: w, wConst: wConst, xd: xf, wd: any(wd).([]float32), bd: bd, yd: any(yd).([]float32),
 			N: N, C: C, M: M, group: group, Cg: Cg, Mg: Mg, K: K, P: P, inSize: inSize, g: &g, direct: direct}, outShape)
 		return out, nil
 	}

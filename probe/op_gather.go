@@ -342,9 +342,9 @@ func oneHotKernel(c *Call) error {
 	if dt.Size() != 1 {
 		return fmt.Errorf("depth must be a scalar, has shape %v", dt.Shape)
 	}
-	depth := int(dt.Float64At(0))
-	if depth < 1 {
-		return fmt.Errorf("depth %d must be positive", depth)
+	depth := int(dt.Int64At(0)) // exact for integer depths; a float depth truncates
+	if depth < 1 || depth > tensor.MaxElements {
+		return fmt.Errorf("depth %d must be in [1, %d]", depth, tensor.MaxElements)
 	}
 	r := it.Rank() + 1
 	axis := int(c.Int("axis", -1))

@@ -3,6 +3,7 @@ package probe
 import (
 	"cmp"
 	"fmt"
+	"math"
 	"slices"
 
 	"github.com/vitals-health/vitals/tensor"
@@ -63,7 +64,9 @@ func nmsKernel(c *Call) error {
 		if t.DType.IsFloat() || t.DType == tensor.Bool || t.DType == tensor.String {
 			return fmt.Errorf("max_output_boxes_per_class must be an integer tensor, got %v", t.DType)
 		}
-		maxOut = max(int64(t.Float64At(0)), 0)
+		// read exactly: exporters write INT64_MAX for "no limit", which
+		// through float64 becomes 2^63 and converts to a negative count
+		maxOut = max(t.Int64At(0), 0)
 	}
 	iou, hasScore, scoreThr := 0.0, false, 0.0
 	if t, err := nmsScalar(c, 3, "iou_threshold"); err != nil {
@@ -147,26 +150,117 @@ func nmsRun[T Float](p nmsParams, boxes, scores []T, iouThr, scoreThr T) []int64
 			// descending score (cmp.Compare ranks NaN lowest, so NaN comes last);
 			// the stable sort keeps equal scores in index order
 			slices.SortStableFunc(order, func(i, j int) int { return cmp.Compare(s[j], s[i]) })
-			kept = kept[:0]
-			for _, i := range order {
-				if int64(len(kept)) >= p.maxOut {
-					break
-				}
-				keep := true
-				for _, j := range kept {
-					if nmsOverlaps(geo, i, j, iouThr) {
-						keep = false
-						break
-					}
-				}
-				if keep {
-					kept = append(kept, i)
-					sel = append(sel, int64(b), int64(k), int64(i))
-				}
+			if len(order) > nmsGridMin {
+				kept = nmsSelectGrid(kept[:0], order, geo, iouThr, p.maxOut)
+			} else {
+				kept = nmsSelect(kept[:0], order, geo, iouThr, p.maxOut)
+			}
+			for _, i := range kept {
+				sel = append(sel, int64(b), int64(k), int64(i))
 			}
 		}
 	}
 	return sel
+}
+
+// nmsSelect is the greedy selection: in score order, a box is kept unless
+// it overlaps (IoU > thr) a box kept before it, up to maxOut boxes.
+func nmsSelect[T Float](kept, order []int, geo []T, thr T, maxOut int64) []int {
+	for _, i := range order {
+		if int64(len(kept)) >= maxOut {
+			break
+		}
+		keep := true
+		for _, j := range kept {
+			if nmsOverlaps(geo, i, j, thr) {
+				keep = false
+				break
+			}
+		}
+		if keep {
+			kept = append(kept, i)
+		}
+	}
+	return kept
+}
+
+// nmsGridMin: candidate lists longer than this go through nmsSelectGrid.
+const nmsGridMin = 256
+
+// nmsSelectGrid is nmsSelect with the kept boxes filed in a uniform grid
+// over the candidates' extent, so that a candidate is compared only with
+// the kept boxes sharing a cell with it. Two boxes overlap only if their
+// closed extents share a point, hence a cell, so the kept set is the same
+// (detection exports put every class in one call with boxes offset by class,
+// thousands of candidates that mostly lie far apart: the plain loop compares
+// each with every kept box). Boxes without positive area (or with NaN
+// corners) overlap nothing in nmsOverlaps: they are kept and not filed.
+// Boxes spanning many cells go to a list every candidate is compared with.
+// Non-finite extents fall back to nmsSelect.
+func nmsSelectGrid[T Float](kept, order []int, geo []T, thr T, maxOut int64) []int {
+	const cellsPerAxis = 128
+	const wideCells = 64
+	x0, y0 := math.Inf(1), math.Inf(1)
+	x1, y1 := math.Inf(-1), math.Inf(-1)
+	for _, i := range order {
+		g := geo[5*i : 5*i+5]
+		if !(g[4] > 0) {
+			continue // never overlaps anything (nmsOverlaps)
+		}
+		x0, y0 = min(x0, float64(g[0])), min(y0, float64(g[1]))
+		x1, y1 = max(x1, float64(g[2])), max(y1, float64(g[3]))
+	}
+	if math.IsInf(x0, 0) || math.IsInf(x1, 0) || math.IsInf(y0, 0) || math.IsInf(y1, 0) || x0 != x0 || y0 != y0 || x1 != x1 || y1 != y1 {
+		return nmsSelect(kept, order, geo, thr, maxOut)
+	}
+	sx := float64(cellsPerAxis) / max(x1-x0, 1e-30)
+	sy := float64(cellsPerAxis) / max(y1-y0, 1e-30)
+	cell := func(v, lo, s float64) int { return min(max(int((v-lo)*s), 0), cellsPerAxis-1) }
+	grid := make([][]int32, cellsPerAxis*cellsPerAxis)
+	var wide []int
+	for _, i := range order {
+		if int64(len(kept)) >= maxOut {
+			break
+		}
+		g := geo[5*i : 5*i+5]
+		if !(g[4] > 0) {
+			kept = append(kept, i) // overlaps no box, is overlapped by none
+			continue
+		}
+		cx0, cx1 := cell(float64(g[0]), x0, sx), cell(float64(g[2]), x0, sx)
+		cy0, cy1 := cell(float64(g[1]), y0, sy), cell(float64(g[3]), y0, sy)
+		keep := true
+		for _, j := range wide {
+			if nmsOverlaps(geo, i, j, thr) {
+				keep = false
+				break
+			}
+		}
+		for cy := cy0; cy <= cy1 && keep; cy++ {
+			for cx := cx0; cx <= cx1 && keep; cx++ {
+				for _, j := range grid[cy*cellsPerAxis+cx] {
+					if nmsOverlaps(geo, i, int(j), thr) {
+						keep = false
+						break
+					}
+				}
+			}
+		}
+		if !keep {
+			continue
+		}
+		kept = append(kept, i)
+		if (cx1-cx0+1)*(cy1-cy0+1) > wideCells {
+			wide = append(wide, i)
+			continue
+		}
+		for cy := cy0; cy <= cy1; cy++ {
+			for cx := cx0; cx <= cx1; cx++ {
+				grid[cy*cellsPerAxis+cx] = append(grid[cy*cellsPerAxis+cx], int32(i))
+			}
+		}
+	}
+	return kept
 }
 
 // nmsCorners fills geo with (x_min, y_min, x_max, y_max, area) for each box.

@@ -246,13 +246,23 @@ func avgPoolKernel(c *Call) error {
 		return err
 	}
 	x := c.In[0]
+	incl := c.Int("count_include_pad", 0) != 0
+	if xf, ok := x.Data.([]float32); ok && x.Rank() == 4 {
+		g, err := poolGeometry(c, x, c.Opset >= 10)
+		if err != nil {
+			return err
+		}
+		out := c.Arena().New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
+		poolAvg2DF32(out.F32(), xf, x.Shape[0]*x.Shape[1], &g, incl) // no window table needed
+		c.Set(0, out)
+		return nil
+	}
 	g, w, err := poolPrepare(c, x, c.Opset >= 10)
 	if err != nil {
 		return err
 	}
 	out := c.Arena().New(x.DType, append([]int{x.Shape[0], x.Shape[1]}, g.out...))
 	planes := x.Shape[0] * x.Shape[1]
-	incl := c.Int("count_include_pad", 0) != 0
 	switch xd := x.Data.(type) {
 	case []float32:
 		poolAvgRun(out.F32(), xd, planes, w, incl)
@@ -365,6 +375,10 @@ func globalPoolKernel(kind poolKind) Kernel {
 		}
 		switch xd := x.Data.(type) {
 		case []float32:
+			if kind == poolAvg {
+				poolGlobalAvgF32(out.F32(), xd, planes)
+				break
+			}
 			poolGlobalRun(out.F32(), xd, planes, kind, p)
 		case []float64:
 			poolGlobalRun(out.F64(), xd, planes, kind, p)
@@ -374,6 +388,42 @@ func globalPoolKernel(kind poolKind) Kernel {
 		c.Set(0, out)
 		return nil
 	}
+}
+
+// poolGlobalAvgF32 is poolGlobalRun's average for float32, planes split
+// across cores, each plane summed in float64 with eight interleaved
+// accumulators (independent addition chains) added pairwise at the end:
+// another order than the sequential sum, as exact or better (the float64
+// sum of float32 values errs by about n·1e-16 relative either way), so the
+// float32 result agrees with it but within that of a rounding boundary.
+func poolGlobalAvgF32(y, x []float32, planes int) {
+	if planes == 0 {
+		return
+	}
+	size := len(x) / planes
+	parFor(planes, max(1, elemChunk/max(1, size)), func(p0, p1 int) {
+		for pl := p0; pl < p1; pl++ {
+			xp := x[pl*size : (pl+1)*size]
+			var a [8]float64
+			i := 0
+			for ; i+8 <= len(xp); i += 8 {
+				v := xp[i : i+8 : i+8]
+				a[0] += float64(v[0])
+				a[1] += float64(v[1])
+				a[2] += float64(v[2])
+				a[3] += float64(v[3])
+				a[4] += float64(v[4])
+				a[5] += float64(v[5])
+				a[6] += float64(v[6])
+				a[7] += float64(v[7])
+			}
+			for ; i < len(xp); i++ {
+				a[0] += float64(xp[i])
+			}
+			s := ((a[0] + a[1]) + (a[2] + a[3])) + ((a[4] + a[5]) + (a[6] + a[7]))
+			y[pl] = float32(s / float64(size))
+		}
+	})
 }
 
 func poolGlobalRun[T Float](y, x []T, planes int, kind poolKind, p float64) {

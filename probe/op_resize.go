@@ -425,6 +425,10 @@ func resizeApply(ar *tensor.Arena, x *tensor.Tensor, ax, n int, t *resizeAxis, e
 }
 
 func resizeAxisRun[T Float](y, x []T, outer, in, inner, n int, t *resizeAxis, extrap T) {
+	if inner == 1 {
+		resizeLastAxis(y, x, outer, in, n, t, extrap)
+		return
+	}
 	for o := 0; o < outer; o++ {
 		src := x[o*in*inner : (o+1)*in*inner]
 		for j := 0; j < n; j++ {
@@ -447,6 +451,38 @@ func resizeAxisRun[T Float](y, x []T, outer, in, inner, n int, t *resizeAxis, ex
 			}
 		}
 	}
+}
+
+// resizeLastAxis is resizeAxisRun for the innermost axis (inner = 1), where
+// every output value is a short dot product of its taps: the table is
+// converted to T once and the rows are split across cores. The sum starts
+// at 0 and adds the non-zero taps in order, as resizeAxisRun does, so the
+// values are the same bit for bit.
+func resizeLastAxis[T Float](y, x []T, outer, in, n int, t *resizeAxis, extrap T) {
+	w := make([]T, len(t.w))
+	for i, v := range t.w {
+		w[i] = T(v)
+	}
+	idx, taps := t.idx, t.n
+	parFor(outer, max(1, elemChunk/max(1, n*taps)), func(o0, o1 int) {
+		for o := o0; o < o1; o++ {
+			src := x[o*in : (o+1)*in]
+			dst := y[o*n : (o+1)*n]
+			for j := range dst {
+				if t.extrap[j] {
+					dst[j] = extrap
+					continue
+				}
+				var s T
+				for q := j * taps; q < (j+1)*taps; q++ {
+					if w[q] != 0 {
+						s += w[q] * src[idx[q]]
+					}
+				}
+				dst[j] = s
+			}
+		}
+	})
 }
 
 // resizeAxisInt computes integer data in float64 and rounds (saturating).

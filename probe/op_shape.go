@@ -81,6 +81,10 @@ func shapeResolve(in, want []int, allowZero bool) ([]int, error) {
 			return nil, fmt.Errorf("shape %v has invalid dimension %d", want, d)
 		}
 		out[i] = d
+		if d != 0 && known > tensor.MaxElements/d {
+			// a product that would wrap (INT64_MAX dims) must not come back as a valid count
+			return nil, fmt.Errorf("shape %v has more than %d elements", want, tensor.MaxElements)
+		}
 		known *= d
 	}
 	if infer >= 0 {
@@ -288,6 +292,9 @@ func tileKernel(c *Call) error {
 		if n < 0 {
 			return fmt.Errorf("negative repeat %d", n)
 		}
+		if n != 0 && x.Shape[i] > tensor.MaxElements/n {
+			return fmt.Errorf("repeats %v make axis %d of size %d longer than %d", reps, i, x.Shape[i], tensor.MaxElements)
+		}
 		shape[i] = x.Shape[i] * n
 	}
 	out, err := shapeNew(c.Arena(), x.DType, shape)
@@ -423,13 +430,42 @@ func rangeKernel(c *Call) error {
 	case []float64:
 		return rangeFill(c, v[0], l.F64()[0], d.F64()[0])
 	case []int64:
-		return rangeFill(c, v[0], l.I64()[0], d.I64()[0])
+		return rangeFillInt(c, v[0], l.I64()[0], d.I64()[0])
 	case []int32:
-		return rangeFill(c, v[0], l.Data.([]int32)[0], d.Data.([]int32)[0])
+		return rangeFillInt(c, v[0], l.Data.([]int32)[0], d.Data.([]int32)[0])
 	case []int16:
-		return rangeFill(c, v[0], l.Data.([]int16)[0], d.Data.([]int16)[0])
+		return rangeFillInt(c, v[0], l.Data.([]int16)[0], d.Data.([]int16)[0])
 	}
 	return fmt.Errorf("unsupported type %v", s.DType)
+}
+
+// rangeFillInt is Range for integer types, counted exactly in unsigned
+// 64-bit arithmetic: n = ⌊(|limit-start|-1)/|delta|⌋+1 when delta points from
+// start toward limit, else 0. Through float64, int64 bounds beyond 2^53
+// (INT64_MAX, INT64_MIN) would round and give a wrong length.
+func rangeFillInt[T int64 | int32 | int16](c *Call, start, limit, delta T) error {
+	if delta == 0 {
+		return fmt.Errorf("delta is zero")
+	}
+	var n uint64
+	s, l, d := int64(start), int64(limit), int64(delta)
+	switch {
+	case d > 0 && l > s:
+		n = (uint64(l)-uint64(s)-1)/uint64(d) + 1
+	case d < 0 && l < s:
+		n = (uint64(s)-uint64(l)-1)/(-uint64(d)) + 1
+	}
+	if n > tensor.MaxElements {
+		return fmt.Errorf("range from %v to %v by %v has %d elements, more than %d", start, limit, delta, n, uint64(tensor.MaxElements))
+	}
+	out := makeChecked[T](c.Arena(), int(n))
+	v := start
+	for i := range out {
+		out[i] = v
+		v += delta // wraps only after the last element, which is never stored
+	}
+	c.Set(0, tensor.From(out, len(out)))
+	return nil
 }
 
 func rangeFill[T Number](c *Call, start, limit, delta T) error {

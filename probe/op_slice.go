@@ -120,6 +120,10 @@ func splitKernel(c *Call) error {
 		if p < 0 {
 			return fmt.Errorf("negative part size in %v", parts)
 		}
+		if p > dim {
+			// also keeps the sum from wrapping around with INT64_MAX sizes
+			return fmt.Errorf("part size %d in %v exceeds axis %d of size %d", p, parts, axis, dim)
+		}
 		sum += p
 	}
 	if sum != dim {
@@ -203,14 +207,19 @@ func sliceKernel(c *Call) error {
 			return fmt.Errorf("step is zero on axis %d", a)
 		}
 		s, e := sliceBound(starts[i], d, step, false), sliceBound(ends[i], d, step, true)
+		// n = ⌈|e-s|/|step|⌉ written as ⌊(|e-s|-1)/|step|⌋+1 so that steps of
+		// INT64_MAX and INT64_MIN (allowed by the spec) cannot overflow
 		n := 0
 		if step > 0 && e > s {
-			n = (e - s + step - 1) / step
+			n = int(uint64(e-s-1)/uint64(step)) + 1
 		} else if step < 0 && s > e {
-			n = (s - e - step - 1) / -step
+			n = int(uint64(s-e-1)/-uint64(step)) + 1
 		}
 		dims[a] = n
-		src[a] = st[a] * step
+		src[a] = 0 // one element or none: the stride is never used
+		if n > 1 {
+			src[a] = st[a] * step
+		}
 		if n > 0 {
 			off += s * st[a]
 		}
@@ -298,6 +307,12 @@ func padKernel(c *Call) error {
 	before, after := make([]int, r), make([]int, r)
 	for i, a := range axes {
 		before[a], after[a] = pads[i], pads[i+len(axes)]
+		// bound each pad so the sums below cannot wrap (INT64_MAX, INT64_MIN)
+		for _, p := range []int{before[a], after[a]} {
+			if p > tensor.MaxElements || p < -tensor.MaxElements {
+				return fmt.Errorf("pad %d on axis %d is beyond ±%d", p, a, tensor.MaxElements)
+			}
+		}
 	}
 	// Crop first (negative pads), then pad with the non-negative parts.
 	ist := tensor.Strides(x.Shape)

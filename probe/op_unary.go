@@ -11,10 +11,10 @@ import (
 
 func init() {
 	f := func(g func(float64) float64) Kernel { return unaryFloat(elemVia64(g), g) }
-	reg("Sqrt", f(math.Sqrt), 1, 6, 13)
-	reg("Exp", f(math.Exp), 1, 6, 13)
-	reg("Log", f(math.Log), 1, 6, 13)
-	reg("Reciprocal", f(func(x float64) float64 { return 1 / x }), 1, 6, 13)
+	reg("Sqrt", unaryF32Kernel(math.Sqrt, sqrtF32), 1, 6, 13)
+	reg("Exp", unaryF32Kernel(math.Exp, expF32), 1, 6, 13)
+	reg("Log", unaryF32Kernel(math.Log, logF32), 1, 6, 13)
+	reg("Reciprocal", unaryF32Kernel(func(x float64) float64 { return 1 / x }, reciprocalF32), 1, 6, 13)
 	reg("Floor", f(math.Floor), 1, 6, 13)
 	reg("Ceil", f(math.Ceil), 1, 6, 13)
 	reg("Round", f(math.RoundToEven), 11) // halves round to even

@@ -58,6 +58,9 @@ type Step struct {
 	Opset  int
 	// fuseWith is the activation step this step may compute too (fuse.go), or −1.
 	fuseWith int
+	// fuseMul is the Mul step of a SiLU (x·sigmoid(x), fuseWith being the
+	// Sigmoid) this step may compute too, or −1.
+	fuseMul int
 }
 
 // UnsupportedError lists the operators that have no kernel, one entry per
@@ -209,7 +212,7 @@ func compileGraph(g *loader.Graph, opsets map[string]int64, outer map[string]boo
 					}
 				}
 			}
-			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset, fuseWith: -1})
+			p.Steps = append(p.Steps, Step{Node: n, Kernel: k, Opset: opset, fuseWith: -1, fuseMul: -1})
 			p.Depth = append(p.Depth, depth+1)
 			for _, o := range n.Outputs {
 				if o == "" {
@@ -452,6 +455,9 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 					fused = map[int]*tensor.Tensor{}
 				}
 				fused[s.fuseWith] = c.fuse.out
+				if c.fuse.mul != nil {
+					fused[s.fuseMul] = c.fuse.mul
+				}
 			}
 		}
 		for j, name := range s.Node.Outputs {

@@ -282,7 +282,54 @@ func (t *Tensor) Float64At(i int) float64 {
 	return math.NaN()
 }
 
-// Ints returns the elements as []int (for shape, axes and index tensors).
+// Int64At reads element i as int64 without passing integers through float64
+// (which rounds beyond 2^53 and turns INT64_MAX into 2^63, out of range):
+// integer types convert exactly (uint64 above INT64_MAX saturates to
+// INT64_MAX), floats truncate toward zero and saturate at the int64 limits,
+// NaN reads as 0. For shape, count and index tensors.
+func (t *Tensor) Int64At(i int) int64 {
+	switch d := t.Data.(type) {
+	case []int64:
+		return d[i]
+	case []int32:
+		return int64(d[i])
+	case []int16:
+		return int64(d[i])
+	case []int8:
+		return int64(d[i])
+	case []uint8:
+		return int64(d[i])
+	case []uint16:
+		return int64(d[i])
+	case []uint32:
+		return int64(d[i])
+	case []uint64:
+		return int64(min(d[i], math.MaxInt64))
+	case []bool:
+		if d[i] {
+			return 1
+		}
+		return 0
+	}
+	return floatToInt64(t.Float64At(i))
+}
+
+// floatToInt64 truncates f toward zero, saturating at the int64 limits
+// (2^63 itself is out of range: float64(math.MaxInt64) rounds up to it); NaN is 0.
+func floatToInt64(f float64) int64 {
+	switch {
+	case f != f:
+		return 0
+	case f >= 1<<63:
+		return math.MaxInt64
+	case f <= -(1 << 63):
+		return math.MinInt64
+	}
+	return int64(f)
+}
+
+// Ints returns the elements as []int (for shape, axes and index tensors),
+// read exactly through Int64At.
 func (t *Tensor) Ints() []int {
 	n := t.Size()
 	out := make([]int, n)
@@ -297,7 +344,7 @@ func (t *Tensor) Ints() []int {
 		}
 	default:
 		for i := range out {
-			out[i] = int(t.Float64At(i))
+			out[i] = int(t.Int64At(i))
 		}
 	}
 	return out

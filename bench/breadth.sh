@@ -1,0 +1,98 @@
+#!/usr/bin/env bash
+# vitals against ONNX Runtime (CPU) on a breadth of standard architectures,
+# in one run: time per image of `vitals check` (every statistics hook on,
+# the whole command) with the load time cancelled by differencing two sample
+# counts, (t(B items) − t(A items)) / (B − A), against ONNX Runtime's
+# inference time per image (onnxruntime-node pinned in bench/ort, 2 intra-op
+# threads, all graph optimisations, session creation left out).
+#
+# Models: bench/gen/export.py --breadth (torchvision 0.14, untrained
+# weights, 224×224 but SSDLite at 320×320), exported into $VITALS_BREADTH_DIR
+# (default /tmp/vitals-breadth, outside the repository) when missing. Batch
+# 8, except SSDLite, whose export takes one image a run (no batch axis).
+# At the end, SSDLite's outputs (detections: boxes, scores, labels) are
+# compared with ONNX Runtime's on its first 4 images (bench/detectcheck).
+#
+# Usage: bench/breadth.sh [model ...]   (default: all twelve)
+# Environment: A, B (sample counts, default 8 and 40), REPS (best of, default
+# 2), VITALS (a vitals binary to time instead of building this tree's, e.g.
+# an older build for a before/after table).
+set -euo pipefail
+cd "$(dirname "$0")/.."
+A=${A:-8}
+B=${B:-40}
+REPS=${REPS:-2}
+BATCH=8
+DIR=${VITALS_BREADTH_DIR:-/tmp/vitals-breadth}
+PY=/usr/bin/python3
+all=(efficientnet_b0 mobilenet_v3_large mnasnet1_0 deeplabv3_mobilenet_v3 regnet_y_800mf densenet121
+	convnext_tiny swin_t googlenet inception_v3 resnet50 ssdlite)
+models=("$@")
+[ ${#models[@]} -eq 0 ] && models=("${all[@]}")
+
+missing=()
+for m in "${models[@]}"; do
+	[ -f "$DIR/$m.onnx" ] && [ -f "$DIR/$m.npy" ] || missing+=("$m")
+done
+if [ ${#missing[@]} -gt 0 ]; then
+	"$PY" bench/gen/export.py --breadth "$DIR" "${missing[@]}"
+fi
+if [ ! -d bench/ort/node_modules/onnxruntime-node ]; then
+	(cd bench/ort && ONNXRUNTIME_NODE_INSTALL=skip npm install --no-audit --no-fund --silent)
+fi
+if [ -n "${VITALS:-}" ]; then
+	cp "$VITALS" /tmp/vitals-breadth-vitals
+else
+	go build -o /tmp/vitals-breadth-vitals ./cmd/vitals
+fi
+go build -o /tmp/vitals-breadth-detectcheck ./bench/detectcheck
+
+# seconds of one whole `vitals check` over the first $2 items of model $1
+vitals_time() {
+	local m=$1 n=$2 batch=(--batch $BATCH) t0 t1 rc
+	[ "$m" = ssdlite ] && batch=()
+	t0=$(date +%s.%N)
+	set +e
+	/tmp/vitals-breadth-vitals check "$DIR/$m.onnx" --data "$DIR/$m.npy" "${batch[@]}" --samples "$n" --format json >/dev/null 2>/tmp/vitals-breadth-err.txt
+	rc=$?
+	set -e
+	t1=$(date +%s.%N)
+	if [ $rc -gt 1 ]; then
+		echo "vitals check failed on $m:" >&2
+		cat /tmp/vitals-breadth-err.txt >&2
+		exit 1
+	fi
+	awk -v a="$t0" -v b="$t1" 'BEGIN {printf "%.4f", b - a}'
+}
+
+echo "machine: $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2- | sed 's/^ //'), $(nproc) cores"
+echo "load average before: $(cut -d' ' -f1-3 /proc/loadavg)"
+echo "batch $BATCH (SSDLite 1), vitals: (t($B) − t($A)) / $((B - A)) images, best of $REPS"
+echo
+echo "| model | vitals check ms/image | ONNX Runtime ms/image | vitals / ORT |"
+echo "|---|---|---|---|"
+for m in "${models[@]}"; do
+	best_v=1e18
+	best_o=1e18
+	mode=()
+	[ "$m" = ssdlite ] && mode=(item)
+	for r in $(seq "$REPS"); do
+		ta=$(vitals_time "$m" "$A")
+		tb=$(vitals_time "$m" "$B")
+		v=$(awk -v a="$ta" -v b="$tb" -v n=$((B - A)) 'BEGIN {printf "%.2f", (b - a) * 1000 / n}')
+		o=$(cd bench/ort && node run.js "$DIR/$m.onnx" "$DIR/$m.npy" $BATCH "$B" 2 1 "${mode[@]}" | sed 's/.*=//')
+		best_v=$(awk -v a="$best_v" -v b="$v" 'BEGIN {print (b < a) ? b : a}')
+		best_o=$(awk -v a="$best_o" -v b="$o" 'BEGIN {print (b < a) ? b : a}')
+	done
+	printf '| %s | %s | %s | %s |\n' "$m" "$best_v" "$best_o" "$(awk -v a="$best_v" -v b="$best_o" 'BEGIN {printf "%.2f×", a / b}')"
+done
+echo "load average after: $(cut -d' ' -f1-3 /proc/loadavg)"
+
+for m in "${models[@]}"; do
+	if [ "$m" = ssdlite ]; then
+		echo
+		echo "SSDLite outputs against ONNX Runtime (first 4 images):"
+		(cd bench/ort && node outputs.js "$DIR/ssdlite.onnx" "$DIR/ssdlite.npy" 4 /tmp/vitals-breadth-ort.json)
+		/tmp/vitals-breadth-detectcheck -model "$DIR/ssdlite.onnx" -data "$DIR/ssdlite.npy" -ort /tmp/vitals-breadth-ort.json -items 4
+	fi
+done

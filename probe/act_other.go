@@ -1,0 +1,7 @@
+//go:build !amd64
+
+package probe
+
+var actVecLevel = 0
+
+func actVec(dst, src []float32, op actOp, p *[3]float64) int { return 0 }

@@ -1,0 +1,11 @@
+//go:build !amd64
+
+package probe
+
+import "unsafe"
+
+var haveDwTapsVec = false
+
+func dwTapsVec(dst []float32, srcs [][]float32, w []float32, bias float32, ptrs []unsafe.Pointer) bool {
+	return false
+}

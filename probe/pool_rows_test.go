@@ -1,0 +1,112 @@
+package probe
+
+import (
+	"fmt"
+	"math"
+	"math/rand"
+	"testing"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// The separable float32 pooling paths (poolAvg2DF32, and poolMax2DF32 with
+// its stride-1 row kernel) against the window-table loops poolAvgRun and
+// poolMaxRun over random shapes: windows 1–7, strides 1–3, dilations 1–2,
+// paddings up to the window, ceil_mode, count_include_pad, NaN inputs.
+// MaxPool must agree exactly (max is order-free); AveragePool to 1e-6
+// relative (float32 sums of ≤ 49 values in another order; common practice).
+func TestPoolRowsMatchWindowTable(t *testing.T) {
+	r := rand.New(rand.NewSource(61))
+	saved := havePoolVec
+	defer func() { havePoolVec = saved }()
+	for trial := 0; trial < 300; trial++ {
+		K := []int{1 + r.Intn(7), 1 + r.Intn(7)}
+		s := []int{1 + r.Intn(3), 1 + r.Intn(3)}
+		if trial%2 == 0 {
+			s[1] = 1 // the row kernel's case
+		}
+		d := []int{1 + r.Intn(2), 1 + r.Intn(2)}
+		if trial%3 == 0 {
+			d = []int{1, 1}
+		}
+		H, W := 1+r.Intn(30), 1+r.Intn(70)
+		pads := []int{r.Intn(K[0]), r.Intn(K[1]), r.Intn(K[0]), r.Intn(K[1])}
+		if H+pads[0]+pads[2] < (K[0]-1)*d[0]+1 || W+pads[1]+pads[3] < (K[1]-1)*d[1]+1 {
+			continue
+		}
+		ceil, incl := int64(r.Intn(2)), int64(r.Intn(2))
+		x := linRand(r, 2, 3, H, W)
+		if trial%5 == 0 {
+			x.F32()[r.Intn(x.Size())] = float32(math.NaN())
+		}
+		attrs := map[string]*loader.Attr{
+			"kernel_shape":      linInts("kernel_shape", int64(K[0]), int64(K[1])),
+			"strides":           linInts("strides", int64(s[0]), int64(s[1])),
+			"pads":              linInts("pads", int64(pads[0]), int64(pads[1]), int64(pads[2]), int64(pads[3])),
+			"ceil_mode":         {Name: "ceil_mode", Kind: loader.AttrInt, I: ceil},
+			"count_include_pad": {Name: "count_include_pad", Kind: loader.AttrInt, I: incl},
+		}
+		what := fmt.Sprintf("trial %d K %v s %v d %v %dx%d pads %v ceil %d incl %d", trial, K, s, d, H, W, pads, ceil, incl)
+		for _, dil := range []bool{false, true} {
+			if dil {
+				attrs["dilations"] = linInts("dilations", int64(d[0]), int64(d[1]))
+			}
+			c := &Call{Node: &loader.Node{Attrs: attrs}, In: []*tensor.Tensor{x}, Opset: 19}
+			g, w, err := poolPrepare(c, x, true)
+			if err != nil {
+				continue // e.g. an output of size 0
+			}
+			planes := 6
+			wantAvg := make([]float32, planes*w.outSize)
+			poolAvgRun(wantAvg, x.F32(), planes, w, incl == 1)
+			gotAvg := make([]float32, len(wantAvg))
+			poolAvg2DF32(gotAvg, x.F32(), planes, &g, incl == 1)
+			for i := range wantAvg {
+				a, b := float64(gotAvg[i]), float64(wantAvg[i])
+				if !(math.IsNaN(a) && math.IsNaN(b)) && math.Abs(a-b) > 1e-6*(1+math.Abs(b)) {
+					t.Fatalf("%s dil=%v: AveragePool element %d = %g, window table %g", what, dil, i, a, b)
+				}
+			}
+			wantMax := make([]float32, planes*w.outSize)
+			poolMaxRun(wantMax, nil, x.F32(), planes, w)
+			for _, vec := range []bool{saved, false} {
+				havePoolVec = vec
+				gotMax := make([]float32, len(wantMax))
+				poolMax2DF32(gotMax, x.F32(), planes, &g)
+				for i := range wantMax {
+					if math.Float32bits(gotMax[i]) != math.Float32bits(wantMax[i]) && !(gotMax[i] != gotMax[i] && wantMax[i] != wantMax[i]) {
+						t.Fatalf("%s dil=%v vector=%v: MaxPool element %d = %g, window table %g", what, dil, vec, i, gotMax[i], wantMax[i])
+					}
+				}
+			}
+		}
+	}
+}
+
+// GlobalAveragePool's float32 path (eight float64 accumulators, planes
+// across cores) against the sequential float64 sum of poolGlobalRun on
+// planes of 0 to 3000 values and on many small planes; they may differ only
+// by a rounding of the float32 result (1 ulp), and NaN and Inf propagate.
+func TestPoolGlobalAvgMatchesSequential(t *testing.T) {
+	r := rand.New(rand.NewSource(62))
+	for _, dims := range [][2]int{{3, 0}, {5, 1}, {7, 9}, {64, 49}, {4, 3000}, {960, 7}} {
+		planes, size := dims[0], dims[1]
+		x := linRand(r, planes*size+1).F32()[:planes*size]
+		if size > 2 {
+			x[size+1] = float32(math.NaN())
+			x[2*size+2] = float32(math.Inf(1))
+		}
+		want := make([]float32, planes)
+		got := make([]float32, planes)
+		if size > 0 {
+			poolGlobalRun(want, x, planes, poolAvg, 2)
+			poolGlobalAvgF32(got, x, planes)
+		}
+		for i := range want {
+			if ulpDiff(got[i], want[i]) > 1 {
+				t.Fatalf("planes %d size %d: plane %d = %g, sequential %g", planes, size, i, got[i], want[i])
+			}
+		}
+	}
+}
