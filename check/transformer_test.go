@@ -308,7 +308,7 @@ func TestFusedAttentionHeads(t *testing.T) {
 	}
 }
 
-// The attention and outlier-feature findings of every generated model are
+// The attention, outlier-feature and token-similarity findings of every generated model are
 // the ones its NumPy golden statistics (testdata/gen/transformer_models.py)
 // predict under the checks' default thresholds: attention-collapse for each
 // head whose mean normalised entropy is under 0.2 (error under 0.1; common
@@ -316,7 +316,11 @@ func TestFusedAttentionHeads(t *testing.T) {
 // head at or above 0.99 (common practice), and outlier-features for each
 // feature dimension with |x| ≥ 6 at ≥ 6% of positions in ≥ 25% of the
 // residual tensors (Dettmers et al. 2022), reported on the first tensor that
-// has it. A head within 1e-3 of a line is not predicted either way.
+// has it; token-similarity when the last residual tensor's mean token cosine
+// is ≥ 0.9 (error ≥ 0.99) and ≥ 0.2 above the first (common practice after
+// Dong et al. 2021), as information when that tensor carries massive
+// activations (max/median ≥ 1000, Sun et al. 2024). A value within 1e-3 of
+// a line is not predicted either way.
 func TestTransformerFindingsPredictedByGolden(t *testing.T) {
 	type key struct {
 		check    string
@@ -373,14 +377,36 @@ func TestTransformerFindingsPredictedByGolden(t *testing.T) {
 				wantDims[first[d]] = append(wantDims[first[d]], d)
 			}
 		}
+		// token similarity: the first and the last residual tensor
+		type simAt struct {
+			index    int
+			severity report.Severity
+		}
+		var wantSim []simAt
+		const simWarn, simErr, simRise, massive = 0.9, 0.99, 0.2, 1000
+		res := g.Blocks[len(g.Blocks)-1].Residual
+		a, last := g.Blocks[0].Residual[0].TokenSimilarity, res[len(res)-1]
+		if bb := last.TokenSimilarity; !near(bb, simWarn) && !near(bb, simErr) && !near(bb-a, simRise) && bb >= simWarn && bb-a >= simRise {
+			sev := report.Warning
+			if bb >= simErr {
+				sev = report.Error
+			}
+			if last.MaxOverMedian >= massive {
+				sev = report.Info
+			}
+			wantSim = append(wantSim, simAt{len(dimsAt) - 1, sev})
+		}
 		r := runTF(t, name, 0)
 		resIdx := map[string]int{}
 		for _, l := range tfRole(r, "residual-stream") {
 			resIdx[l.Node] = *l.ResidualIndex
 		}
 		got, gotDims := map[key]bool{}, map[int][]int{}
+		var gotSim []simAt
 		for _, f := range r.Findings {
 			switch f.Check {
+			case "token-similarity":
+				gotSim = append(gotSim, simAt{resIdx[f.Node], f.Severity})
 			case "attention-collapse", "attention-uniform":
 				k := key{f.Check, f.Evidence["block"].(int), f.Evidence["head"].(int), f.Severity}
 				if !skip[key{f.Check, k.block, k.head, ""}] {
@@ -400,13 +426,17 @@ func TestTransformerFindingsPredictedByGolden(t *testing.T) {
 		if len(gotDims) != len(wantDims) || (len(wantDims) > 0 && !reflect.DeepEqual(gotDims, wantDims)) {
 			t.Errorf("%s: outlier-features dims by residual tensor %v, the golden outlier dims predict %v", name, gotDims, wantDims)
 		}
+		if !reflect.DeepEqual(gotSim, wantSim) {
+			t.Errorf("%s: token-similarity (residual index, severity) %v, the golden similarities predict %v", name, gotSim, wantSim)
+		}
 		for k := range want {
 			total[k.check]++
 		}
 		total["outlier-features"] += len(wantDims)
+		total["token-similarity"] += len(wantSim)
 	}
 	// the models were generated so that each check has something to find
-	for _, c := range []string{"attention-collapse", "attention-uniform", "outlier-features"} {
+	for _, c := range []string{"attention-collapse", "attention-uniform", "outlier-features", "token-similarity"} {
 		if total[c] == 0 {
 			t.Errorf("no model's golden predicts %s: the test would not notice the check missing", c)
 		}
