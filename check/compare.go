@@ -74,10 +74,8 @@ func Compare(ctx context.Context, old, new *Model, sample Sample, o Options) (*r
 		return nil, err
 	}
 	note(o, oldFeed, newFeed)
+	newCol.SQNR = sqnr // its sqnr_db and the quant-noise check run inside Compare
 	stats.Compare(oldCol, newCol, oldCol.Graph, newCol.Graph, ag.result(newName))
-	if sqnr != nil {
-		sqnr.Apply(newCol.Report)
-	}
 	annotateInputs(newCol.Report, newFeed)
 	return newCol.Report, nil
 }

@@ -4,7 +4,6 @@ import (
 	"bufio"
 	"fmt"
 	"os"
-	"sort"
 	"strconv"
 	"strings"
 	"sync/atomic"
@@ -114,20 +113,11 @@ func (o *Options) Validate() error {
 	return validThresholds(o.Thresholds)
 }
 
-// validThresholds rejects names no check has, before any batch runs.
+// validThresholds rejects names no check has (compare's checks included:
+// their thresholds are valid for Check and Compare alike, as in --config),
+// and values that are not finite, before any batch runs.
 func validThresholds(th map[string]float64) error {
-	def := stats.DefaultThresholds()
-	for k := range th {
-		if _, ok := def[k]; !ok {
-			known := make([]string, 0, len(def))
-			for n := range def {
-				known = append(known, n)
-			}
-			sort.Strings(known)
-			return fmt.Errorf("unknown threshold %q (known: %s)", k, strings.Join(known, ", "))
-		}
-	}
-	return nil
+	return stats.ValidateThresholds(th, stats.CompareChecks...)
 }
 
 // validate checks the sample description and fills in defaults.

@@ -307,3 +307,154 @@ func TestFusedAttentionHeads(t *testing.T) {
 		t.Fatal("no fused attention entry in the report")
 	}
 }
+
+// The attention, outlier-feature and token-similarity findings of every generated model are
+// the ones its NumPy golden statistics (testdata/gen/transformer_models.py)
+// predict under the checks' default thresholds: attention-collapse for each
+// head whose mean normalised entropy is under 0.2 (error under 0.1; common
+// practice, Zhai et al. 2023 give no fixed line), attention-uniform for each
+// head at or above 0.99 (common practice), and outlier-features for each
+// feature dimension with |x| ≥ 6 at ≥ 6% of positions in ≥ 25% of the
+// residual tensors (Dettmers et al. 2022), reported on the first tensor that
+// has it; token-similarity when the last residual tensor's mean token cosine
+// is ≥ 0.9 (error ≥ 0.99) and ≥ 0.2 above the first (common practice after
+// Dong et al. 2021), as information when that tensor carries massive
+// activations (max/median ≥ 1000, Sun et al. 2024). A value within 1e-3 of
+// a line is not predicted either way.
+func TestTransformerFindingsPredictedByGolden(t *testing.T) {
+	type key struct {
+		check    string
+		block    int
+		head     int
+		severity report.Severity
+	}
+	const collapseWarn, collapseErr, uniform, layerShare = 0.2, 0.1, 0.99, 0.25
+	near := func(x, line float64) bool { return math.Abs(x-line) < 1e-3 }
+	total := map[string]int{}
+	for _, name := range []string{"decoder_causal", "encoder_padding", "collapsed_head", "massive_activation", "torch_encoder"} {
+		var g tfGolden
+		b, err := os.ReadFile("../testdata/transformer/" + name + ".golden.json")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := json.Unmarshal(b, &g); err != nil {
+			t.Fatal(err)
+		}
+		want, skip := map[key]bool{}, map[key]bool{}
+		for _, gb := range g.Blocks {
+			for h, e := range gb.AttentionEntropy {
+				switch {
+				case near(e, collapseWarn) || near(e, collapseErr) || near(e, uniform):
+					skip[key{"attention-collapse", gb.Block, h, ""}], skip[key{"attention-uniform", gb.Block, h, ""}] = true, true
+				case e < collapseErr:
+					want[key{"attention-collapse", gb.Block, h, report.Error}] = true
+				case e < collapseWarn:
+					want[key{"attention-collapse", gb.Block, h, report.Warning}] = true
+				case e >= uniform:
+					want[key{"attention-uniform", gb.Block, h, report.Info}] = true
+				}
+			}
+		}
+		// outlier dims: residual tensors in order (two per block), dims shared by ≥ 25% of them
+		var dimsAt [][]int
+		for _, gb := range g.Blocks {
+			for _, gr := range gb.Residual {
+				dimsAt = append(dimsAt, gr.OutlierDims)
+			}
+		}
+		layers, first := map[int]int{}, map[int]int{}
+		for i, ds := range dimsAt {
+			for _, d := range ds {
+				if layers[d] == 0 {
+					first[d] = i
+				}
+				layers[d]++
+			}
+		}
+		wantDims := map[int][]int{} // residual index → dims reported there
+		for d, n := range layers {
+			if float64(n)/float64(len(dimsAt)) >= layerShare {
+				wantDims[first[d]] = append(wantDims[first[d]], d)
+			}
+		}
+		// token similarity: the first and the last residual tensor
+		type simAt struct {
+			index    int
+			severity report.Severity
+		}
+		var wantSim []simAt
+		const simWarn, simErr, simRise, massive = 0.9, 0.99, 0.2, 1000
+		res := g.Blocks[len(g.Blocks)-1].Residual
+		a, last := g.Blocks[0].Residual[0].TokenSimilarity, res[len(res)-1]
+		if bb := last.TokenSimilarity; !near(bb, simWarn) && !near(bb, simErr) && !near(bb-a, simRise) && bb >= simWarn && bb-a >= simRise {
+			sev := report.Warning
+			if bb >= simErr {
+				sev = report.Error
+			}
+			if last.MaxOverMedian >= massive {
+				sev = report.Info
+			}
+			wantSim = append(wantSim, simAt{len(dimsAt) - 1, sev})
+		}
+		r := runTF(t, name, 0)
+		resIdx := map[string]int{}
+		for _, l := range tfRole(r, "residual-stream") {
+			resIdx[l.Node] = *l.ResidualIndex
+		}
+		got, gotDims := map[key]bool{}, map[int][]int{}
+		var gotSim []simAt
+		for _, f := range r.Findings {
+			switch f.Check {
+			case "token-similarity":
+				gotSim = append(gotSim, simAt{resIdx[f.Node], f.Severity})
+			case "attention-collapse", "attention-uniform":
+				k := key{f.Check, f.Evidence["block"].(int), f.Evidence["head"].(int), f.Severity}
+				if !skip[key{f.Check, k.block, k.head, ""}] {
+					got[k] = true
+				}
+			case "outlier-features":
+				dims := append([]int(nil), f.Evidence["dims"].([]int)...)
+				gotDims[resIdx[f.Node]] = dims
+			}
+		}
+		if !reflect.DeepEqual(got, want) {
+			t.Errorf("%s: attention findings (check, block, head, severity) %v, the golden entropies predict %v", name, keys(got), keys(want))
+		}
+		for i := range wantDims {
+			sortInts(wantDims[i])
+		}
+		if len(gotDims) != len(wantDims) || (len(wantDims) > 0 && !reflect.DeepEqual(gotDims, wantDims)) {
+			t.Errorf("%s: outlier-features dims by residual tensor %v, the golden outlier dims predict %v", name, gotDims, wantDims)
+		}
+		if !reflect.DeepEqual(gotSim, wantSim) {
+			t.Errorf("%s: token-similarity (residual index, severity) %v, the golden similarities predict %v", name, gotSim, wantSim)
+		}
+		for k := range want {
+			total[k.check]++
+		}
+		total["outlier-features"] += len(wantDims)
+		total["token-similarity"] += len(wantSim)
+	}
+	// the models were generated so that each check has something to find
+	for _, c := range []string{"attention-collapse", "attention-uniform", "outlier-features", "token-similarity"} {
+		if total[c] == 0 {
+			t.Errorf("no model's golden predicts %s: the test would not notice the check missing", c)
+		}
+	}
+}
+
+func keys[K comparable](m map[K]bool) []K {
+	var out []K
+	for k := range m {
+		out = append(out, k)
+	}
+	return out
+}
+
+func sortInts(s []int) {
+	for i := 1; i < len(s); i++ {
+		for j := i; j > 0 && s[j] < s[j-1]; j-- {
+			s[j], s[j-1] = s[j-1], s[j]
+		}
+	}
+}

@@ -287,4 +287,4 @@ func plainValue(v any) any {
 
 // CompareChecks are the checks `vitals compare` adds, judging NEW against
 // OLD (see compare.go); their thresholds are valid in --config like the others'.
-var CompareChecks = []*Check{regressionCheck, frozenLayerCheck, outOfProportionCheck}
+var CompareChecks = []*Check{regressionCheck, frozenLayerCheck, outOfProportionCheck, quantNoiseCheck}

@@ -11,8 +11,10 @@ import (
 // Compare diffs the OLD checkpoint's statistics into the NEW one's report:
 // it matches layers (by node name, then by position among layers of the same
 // op type), records per-layer and per-weight changes and the output agreement,
-// and adds findings for regressions (a check firing, or firing harder, in NEW
-// than in OLD), frozen weights and weights that changed out of proportion.
+// and the SQNR of each matched pair when newCol.SQNR is set, and runs
+// CompareChecks: regressions (a check firing, or firing harder, in NEW than
+// in OLD), frozen weights, weights that changed out of proportion and the
+// layer where the SQNR drops most.
 func Compare(oldCol, newCol *Collected, oldG, newG *loader.Graph, agree *report.Agreement) {
 	nr, or := newCol.Report, oldCol.Report
 	cmp := &report.Comparison{Old: or.Model.Path, New: nr.Model.Path, OldLayers: or.Layers, Agreement: agree,
@@ -55,6 +57,9 @@ func Compare(oldCol, newCol *Collected, oldG, newG *loader.Graph, agree *report.
 		}
 	}
 	nr.Compare = cmp
+	if newCol.SQNR != nil {
+		newCol.SQNR.applyLayers(nr)
+	}
 	compareFindings(oldCol, newCol, match, changes)
 }
 

@@ -32,6 +32,10 @@ type Collected struct {
 	Baseline      *Collected
 	OldToNew      map[string]string
 	WeightChanges []float64
+	// SQNR is the float-against-quantized comparison of OLD and NEW (nil
+	// otherwise); set it on NEW before Compare, which writes its sqnr_db
+	// onto the compare layers before the compare checks read it.
+	SQNR *SQNR
 }
 
 // Stack is a chain of activation layers and the weights of the linear layers between them.

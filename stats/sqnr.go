@@ -1,7 +1,6 @@
 package stats
 
 import (
-	"fmt"
 	"math"
 	"sort"
 	"strings"
@@ -416,31 +415,26 @@ func (p *SQNRPair) DB() float64 {
 	return 10 * math.Log10(p.sumX2/p.sumErr)
 }
 
-// sqnrDropBits: a layer whose SQNR falls by more than one bit of resolution
-// (6.02 dB) below the layer before it gets a warning (common practice).
-const sqnrDropDB = 6.02
+// dbPerBit is the SQNR of one bit of resolution: a uniform quantizer's
+// SQNR grows by 20·log10(2) ≈ 6.02 dB per bit (the standard
+// quantization-noise relation).
+const dbPerBit = 6.02
 
-// Apply writes sqnr_db onto the matched layers of NEW's comparison (adding
-// an entry for a pair whose NEW tensor is an integer tensor without a layer
-// of its own) and adds one finding naming the layer where the SQNR drops
-// most along depth, with the layers ranked by SQNR in its evidence. Call it
-// after Compare.
-func (s *SQNR) Apply(r *report.Report) {
+// applyLayers writes sqnr_db onto the matched layers of NEW's comparison
+// (adding an entry for a pair whose NEW tensor is an integer tensor without
+// a layer of its own) and takes the layers it pairs off the unmatched list.
+// Compare calls it before the compare checks run, so that quant-noise
+// (check_quant_noise.go) reads the SQNR from the Pass.
+func (s *SQNR) applyLayers(r *report.Report) {
 	if r.Compare == nil {
 		return
 	}
-	type res struct {
-		p  *SQNRPair
-		db float64
-	}
-	var rs []res
 	matchedOld, matchedNew := map[string]bool{}, map[string]bool{}
 	for _, p := range s.Pairs {
 		db := p.DB()
 		if math.IsNaN(db) {
 			continue
 		}
-		rs = append(rs, res{p, db})
 		matchedOld[p.OldNode] = true
 		found := false
 		for i := range r.Compare.Layers {
@@ -486,66 +480,44 @@ func (s *SQNR) Apply(r *report.Report) {
 		keep = append(keep, u)
 	}
 	r.Compare.Unmatched = keep
-	if len(rs) == 0 {
-		return
-	}
-	// in depth order of NEW
-	sort.SliceStable(rs, func(i, j int) bool { return rs[i].p.depth < rs[j].p.depth })
-	worst, drop := -1, math.Inf(-1)
-	for i := 1; i < len(rs); i++ {
-		if d := rs[i-1].db - rs[i].db; !math.IsNaN(d) && d > drop {
-			worst, drop = i, d
-		}
-	}
-	ranked := append([]res(nil), rs...)
-	sort.SliceStable(ranked, func(i, j int) bool { return ranked[i].db < ranked[j].db })
-	var list []string
-	var parts []string
-	for _, x := range ranked {
-		list = append(list, x.p.NewNode)
-		if len(parts) < 5 {
-			parts = append(parts, fmt.Sprintf("%s %.1f dB", x.p.NewNode, x.db))
-		}
-	}
-	// the layers by SQNR, lowest first (each layer's value is its sqnr_db)
-	ev := map[string]any{"ranked_by_sqnr": list, "drop_warning_db": sqnrDropDB}
-	capped := ""
-	for _, x := range rs {
-		if x.p.batches < x.p.newBatchesSeen {
-			ev["batches_compared"], ev["batches"] = x.p.batches, x.p.newBatchesSeen
-			capped = fmt.Sprintf(" (SQNR over the first %d of %d batches: the float tensors kept for it reached %d MiB)",
-				x.p.batches, x.p.newBatchesSeen, s.keepMax>>20)
-			break
-		}
-	}
-	f := report.Finding{Check: "quant-noise", Severity: report.Info, Strength: 1, Evidence: ev}
-	if worst < 0 {
-		x := rs[0]
-		f.Node = x.p.NewNode
-		f.Message = fmt.Sprintf("SQNR of NEW against OLD: %.1f dB at %s (the only matched layer)", x.db, x.p.NewNode) + capped
-	} else {
-		prev, cur := rs[worst-1], rs[worst]
-		f.Node = cur.p.NewNode
-		ev["sqnr_db"], ev["previous_sqnr_db"], ev["previous_node"], ev["drop_db"] = plainValue(sqnrNum(cur.db)), plainValue(sqnrNum(prev.db)), prev.p.NewNode, drop
-		if drop >= sqnrDropDB {
-			f.Severity, f.Strength = report.Warning, math.Min(1+math.Log2(drop/sqnrDropDB), 8)
-		}
-		var between []string
-		for _, q := range s.quantizers {
-			if q.depth > prev.p.depth && q.depth < cur.p.depth {
-				between = append(between, q.name)
-			}
-		}
-		where := ""
-		if len(between) > 0 {
-			ev["quantizers_between"] = between
-			where = "; quantized in between by " + strings.Join(between, ", ")
-		}
-		f.Message = fmt.Sprintf("the SQNR of NEW against OLD drops most at %s: %.1f dB after %.1f dB at %s (−%.1f dB, %.1f bits of resolution lost there%s); lowest first: %s",
-			cur.p.NewNode, cur.db, prev.db, prev.p.NewNode, drop, drop/sqnrDropDB, where, strings.Join(parts, ", ")) + capped
-	}
-	r.Ranking, r.Findings = rank(r, append(r.Findings, f))
 }
+
+// SQNRResult is one matched pair's SQNR over the sample, for the checks.
+type SQNRResult struct {
+	*SQNRPair
+	DB    float64 // SQNR in dB (+Inf: identical tensors)
+	Depth int     // depth of the NEW tensor in NEW's plan
+	// Batches is the number of batches compared, of Seen batches of NEW
+	// (fewer when the OLD tensors kept for it reached the keep limit).
+	Batches, Seen int
+}
+
+// Results are the pairs with an SQNR, in NEW's depth order.
+func (s *SQNR) Results() []SQNRResult {
+	var rs []SQNRResult
+	for _, p := range s.Pairs {
+		if db := p.DB(); !math.IsNaN(db) {
+			rs = append(rs, SQNRResult{SQNRPair: p, DB: db, Depth: p.depth, Batches: p.batches, Seen: p.newBatchesSeen})
+		}
+	}
+	sort.SliceStable(rs, func(i, j int) bool { return rs[i].Depth < rs[j].Depth })
+	return rs
+}
+
+// QuantizersBetween names NEW's quantizers (QuantizeLinear,
+// DynamicQuantizeLinear) deeper than lo and shallower than hi.
+func (s *SQNR) QuantizersBetween(lo, hi int) []string {
+	var out []string
+	for _, q := range s.quantizers {
+		if q.depth > lo && q.depth < hi {
+			out = append(out, q.name)
+		}
+	}
+	return out
+}
+
+// KeepLimit is the bytes of OLD tensors kept for the comparison.
+func (s *SQNR) KeepLimit() int64 { return s.keepMax }
 
 // sqnrNum is the JSON value of an SQNR: nil for NaN and for +Inf (identical tensors).
 func sqnrNum(db float64) *float64 { return report.Num(db) }

@@ -44,8 +44,8 @@ func compareQuantCapped(t *testing.T, newName string, keep int64) *report.Report
 	}
 	oldCol := runSample(t, filepath.Join(quantDir, "fp32.onnx"), s.TapOld)
 	newCol := runSample(t, filepath.Join(quantDir, newName+".onnx"), s.TapNew)
+	newCol.SQNR = s
 	stats.Compare(oldCol, newCol, om.Graph, nm.Graph, nil)
-	s.Apply(newCol.Report)
 	return newCol.Report
 }
 

@@ -2,8 +2,11 @@ package main
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
+	"path/filepath"
+	"strings"
 	"testing"
 )
 
@@ -89,5 +92,66 @@ func TestQuantCompareAndCheckJSON(t *testing.T) {
 		if l.Output == "relu2" && (l.Clipped == nil || l.Levels == nil || math.Abs(*l.Clipped-bad.Quant["relu2"].Clipped) > 1e-12) {
 			t.Errorf("relu2: clipped_fraction %v levels_used_fraction %v", l.Clipped, l.Levels)
 		}
+	}
+}
+
+// quant-noise is a compare check with its threshold in --config: the
+// mis-scaled quantizer of relu2 (testdata/gen/quant_models.py) drops the SQNR
+// by more than one bit (6.02 dB per bit, the standard quantization-noise
+// relation) at relu2_DequantizeLinear, a warning by default; with
+// quant-noise.drop_db raised above that drop the same finding is information
+// and its evidence carries the threshold in force; a misspelt name is exit 2.
+func TestQuantNoiseThresholdFromConfig(t *testing.T) {
+	data := "../../testdata/ref/digits_sample_nchw.npy"
+	noise := func(cfg string) (sev string, ev map[string]any) {
+		t.Helper()
+		args := []string{"compare", "../../testdata/quant/fp32.onnx", "../../testdata/quant/qdq_badscale.onnx", "--data", data, "--format", "json"}
+		if cfg != "" {
+			path := filepath.Join(t.TempDir(), "th.yaml")
+			if err := os.WriteFile(path, []byte(cfg), 0o644); err != nil {
+				t.Fatal(err)
+			}
+			args = append(args, "--config", path)
+		}
+		code, out, stderr := runCLI(t, args...)
+		if code == 2 {
+			t.Fatalf("compare %q: exit 2: %s", cfg, stderr)
+		}
+		var r struct {
+			Findings []struct {
+				Check, Node, Severity string
+				Evidence              map[string]any
+			} `json:"findings"`
+		}
+		if err := json.Unmarshal([]byte(out), &r); err != nil {
+			t.Fatal(err)
+		}
+		for _, f := range r.Findings {
+			if f.Check == "quant-noise" {
+				if f.Node != "relu2_DequantizeLinear" {
+					t.Errorf("quant-noise on %s, want relu2_DequantizeLinear", f.Node)
+				}
+				return f.Severity, f.Evidence
+			}
+		}
+		t.Fatalf("compare %q: no quant-noise finding", cfg)
+		return "", nil
+	}
+	sev, ev := noise("")
+	drop, _ := ev["drop_db"].(float64)
+	if sev != "warning" || drop < 6.02 || ev["drop_warning_db"] != 6.02 {
+		t.Fatalf("default: %s, drop %v dB, threshold %v; want a warning past 6.02 dB", sev, ev["drop_db"], ev["drop_warning_db"])
+	}
+	limit := math.Ceil(drop + 1)
+	sev, ev = noise(fmt.Sprintf("quant-noise.drop_db: %g\n", limit))
+	if sev != "info" || ev["drop_warning_db"] != limit {
+		t.Errorf("drop_db %g (above the %.1f dB drop): %s, threshold %v; want information", limit, drop, sev, ev["drop_warning_db"])
+	}
+	path := filepath.Join(t.TempDir(), "bad.yaml")
+	if err := os.WriteFile(path, []byte("quant-noise.drop: 3\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if code, _, stderr := runCLI(t, "compare", "../../testdata/quant/fp32.onnx", "../../testdata/quant/qdq_badscale.onnx", "--data", data, "--config", path); code != 2 || !strings.Contains(stderr, "quant-noise.drop_db") {
+		t.Errorf("misspelt quant-noise threshold: exit %d, %q; want 2 naming quant-noise.drop_db among the known", code, stderr)
 	}
 }
