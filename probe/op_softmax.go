@@ -68,7 +68,7 @@ func softmaxKernel(kind smKind) Kernel {
 		switch d := x.Data.(type) {
 		case []float32:
 			yd := y.F32()
-			if kind == smSoftmax && inner == 1 {
+			if kind == smSoftmax && inner == 1 && m > 0 {
 				// contiguous rows (attention probabilities over the key axis)
 				parFor(outer, minRows, func(lo, hi int) {
 					for r := lo; r < hi; r++ {
