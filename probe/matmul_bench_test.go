@@ -1,6 +1,9 @@
 package probe
 
 import (
+	"fmt"
+
+	"github.com/vitals-health/vitals/gemm"
 	"math/rand"
 	"testing"
 
@@ -53,5 +56,45 @@ func BenchmarkMatMulEncoder(b *testing.B) {
 			}
 			b.ReportMetric(flops*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
 		})
+	}
+}
+
+// A constant right operand is packed and kept only when gemm.PackAhead says
+// the product gains from it (a GPT-2-sized model at 128 rows would otherwise
+// hold its MatMul weights twice); either way the product matches the gonum
+// reference SGEMM.
+func TestMatMulPackAheadRows(t *testing.T) {
+	rng := rand.New(rand.NewSource(7))
+	fill := func(shape ...int) *tensor.Tensor {
+		n := 1
+		for _, d := range shape {
+			n *= d
+		}
+		v := make([]float32, n)
+		for i := range v {
+			v[i] = float32(rng.NormFloat64())
+		}
+		return tensor.From(v, shape...)
+	}
+	for _, shape := range [][]int{{2, 4, 33}, {2, 64, 33}, {1, 129, 33}, {8, 128, 33}} {
+		a, w := fill(shape...), fill(33, 71)
+		rows := len(a.F32()) / 33
+		c := fastCall("MatMul", nil, 13, []string{"a", "w"}, map[string]bool{"w": true}, a, w)
+		if err := matMulKernel(c); err != nil {
+			t.Fatal(err)
+		}
+		got := c.Out[0].F32()
+		var want []float32
+		withReference(func() {
+			r := fastCall("MatMul", nil, 13, []string{"a", "w"}, map[string]bool{"w": true}, a, w)
+			if err := matMulKernel(r); err != nil {
+				t.Fatal(err)
+			}
+			want = r.Out[0].F32()
+		})
+		closeF32(t, fmt.Sprint("MatMul ", shape), got, want, 1e-5)
+		if packed := packCached(w); packed != gemm.PackAhead(rows) {
+			t.Errorf("A %v (%d rows): packed copy kept = %v, gemm.PackAhead = %v", shape, rows, packed, gemm.PackAhead(rows))
+		}
 	}
 }
