@@ -208,6 +208,23 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 // worth it).
 const minPackParallel = 1 << 20
 
+// PackAhead reports whether packing a weight once with PackB, and keeping
+// the packed copy, saves time over Sgemm for products whose op(A) has m
+// rows. With m in (maxMStream, maxMDirect] of a kernel that reads B in place
+// (the strided AVX-512 kernel: 16 < m ≤ 128) it does not: a non-transposed
+// B is then read straight from the caller's matrix as often as a packed one
+// would be, and a transposed B is packed per call at one move per 2m ≥ 34
+// multiply-adds; a packed copy would only cost memory (as much as the
+// weight again). Outside that range (few rows: the prefetching kernel
+// streams packed B; many rows: B is packed per mc block) it does.
+func PackAhead(m int) bool {
+	kern := active.Load()
+	if kern.fnStrided == nil {
+		return true
+	}
+	return m <= kern.maxMStream || m > kern.maxMDirect
+}
+
 // SgemmPackedA computes C = alpha·A·op(B) + beta·C with A packed by PackA
 // (m×k taken from pa). B and C are as in Sgemm.
 func SgemmPackedA(n int, alpha float32, pa *PackedA, transB bool, b []float32, ldb int, beta float32, c []float32, ldc int) {

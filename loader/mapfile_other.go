@@ -12,3 +12,6 @@ func withFileBytes(path string, use func([]byte) error) error {
 	}
 	return use(b)
 }
+
+// releaseRead does nothing where files are read into memory, not mapped.
+func releaseRead(p []byte) {}

@@ -168,6 +168,7 @@ func parallelCopy(dsts, srcs [][]byte, total int) {
 			a, b := max(lo-at, 0), min(hi-at, len(d))
 			if a < b {
 				copy(d[a:b], srcs[i][a:b])
+				releaseRead(srcs[i][a:b]) // copied: a mapped file's pages may go
 			}
 			at += len(d)
 		}

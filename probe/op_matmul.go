@@ -306,7 +306,7 @@ func gemmKernel(c *Call) error {
 		beta = 0
 	}
 	lda, ldb := max(a.Shape[1], 1), max(b.Shape[1], 1)
-	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference && packRoom(b) {
+	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference && gemm.PackAhead(m) && packRoom(b) {
 		pb := packedRight(b, b.F32(), tB, k, n, ldb)
 		gemm.SgemmPackedB(tA, m, alpha, av, lda, pb, beta, out.F32(), n)
 		c.Set(0, out)
@@ -350,7 +350,7 @@ func matMulPackedB(ar *tensor.Arena, a *tensor.Tensor, ad []float32, b *tensor.T
 	out := res.F32()
 	switch {
 	case rows == 0:
-	case packRoom(b):
+	case gemm.PackAhead(rows) && packRoom(b):
 		pb := packedRight(b, b.F32(), false, k, n, n)
 		gemm.SgemmPackedB(false, rows, 1, ad, k, pb, 0, out, n)
 	default:

@@ -270,16 +270,9 @@ func normRows[T Float](y, x []T, m int, scale, bias []float64, eps float64, rms 
 		xs, ys := x[r*m:(r+1)*m], y[r*m:(r+1)*m]
 		var mu float64
 		if !rms {
-			for _, v := range xs {
-				mu += float64(v)
-			}
-			mu /= float64(m)
+			mu = normSum(xs, 0, false) / float64(m)
 		}
-		var q float64
-		for _, v := range xs {
-			d := float64(v) - mu
-			q += d * d
-		}
+		q := normSum(xs, mu, true)
 		rs := 1 / math.Sqrt(q/float64(m)+eps)
 		if bias != nil {
 			for j, v := range xs {
@@ -297,6 +290,61 @@ func normRows[T Float](y, x []T, m int, scale, bias []float64, eps float64, rms 
 			inv[r] = rs
 		}
 	}
+}
+
+// normSum returns Σ x_j (sq false) or Σ (x_j − mu)² (sq true) in float64,
+// in four interleaved partial sums (j mod 4, then added as (s0+s1)+(s2+s3))
+// so that the additions do not wait on each other: the float64 rounding
+// differs from a left-to-right sum only in the last bits, far below the
+// float32 output's.
+func normSum[T Float](xs []T, mu float64, sq bool) float64 {
+	var s0, s1, s2, s3 float64
+	j := 0
+	if sq {
+		for ; j+4 <= len(xs); j += 4 {
+			v := xs[j : j+4 : j+4]
+			d0, d1, d2, d3 := float64(v[0])-mu, float64(v[1])-mu, float64(v[2])-mu, float64(v[3])-mu
+			s0 += d0 * d0
+			s1 += d1 * d1
+			s2 += d2 * d2
+			s3 += d3 * d3
+		}
+		for ; j < len(xs); j++ {
+			d := float64(xs[j]) - mu
+			s0 += d * d
+		}
+		return (s0 + s1) + (s2 + s3)
+	}
+	for ; j+4 <= len(xs); j += 4 {
+		v := xs[j : j+4 : j+4]
+		s0 += float64(v[0])
+		s1 += float64(v[1])
+		s2 += float64(v[2])
+		s3 += float64(v[3])
+	}
+	for ; j < len(xs); j++ {
+		s0 += float64(xs[j])
+	}
+	return (s0 + s1) + (s2 + s3)
+}
+
+// normRowsPar is normRows with the rows split across cores (parFor): each
+// row is computed by one worker exactly as a serial run would, so the
+// results do not depend on the split.
+func normRowsPar[T Float](y, x []T, rows, m int, scale, bias []float64, eps float64, rms bool, means, inv []float64) {
+	if m == 0 || rows == 0 {
+		return
+	}
+	parFor(rows, max(1, elemChunk/m), func(lo, hi int) {
+		var mu, iv []float64
+		if means != nil {
+			mu = means[lo:hi]
+		}
+		if inv != nil {
+			iv = inv[lo:hi]
+		}
+		normRows(y[lo*m:hi*m], x[lo*m:hi*m], m, scale, bias, eps, rms, mu, iv)
+	})
 }
 
 // layerLike implements LayerNormalization and RMSNormalization: statistics over axes [axis, rank).
@@ -336,12 +384,12 @@ func layerLike(c *Call, rms bool) error {
 	if c.WantOut(1) || c.WantOut(2) {
 		means, inv = make([]float64, rows), make([]float64, rows)
 	}
-	y := c.Arena().New(x.DType, x.Shape)
+	y := c.Arena().NewUninit(x.DType, x.Shape) // normRows writes every element
 	switch d := x.Data.(type) {
 	case []float32:
-		normRows(y.F32(), d, m, scale, bias, eps, rms, means, inv)
+		normRowsPar(y.F32(), d, rows, m, scale, bias, eps, rms, means, inv)
 	case []float64:
-		normRows(y.F64(), d, m, scale, bias, eps, rms, means, inv)
+		normRowsPar(y.F64(), d, rows, m, scale, bias, eps, rms, means, inv)
 	}
 	c.Set(0, y)
 	if means != nil {

@@ -68,6 +68,15 @@ func softmaxKernel(kind smKind) Kernel {
 		switch d := x.Data.(type) {
 		case []float32:
 			yd := y.F32()
+			if kind == smSoftmax && inner == 1 && m > 0 {
+				// contiguous rows (attention probabilities over the key axis)
+				parFor(outer, minRows, func(lo, hi int) {
+					for r := lo; r < hi; r++ {
+						softmaxRowF32(yd[r*m:(r+1)*m], d[r*m:(r+1)*m])
+					}
+				})
+				break
+			}
 			parFor(outer, minRows, func(lo, hi int) {
 				smLoop(kind, yd[lo*m*inner:hi*m*inner], d[lo*m*inner:hi*m*inner], hi-lo, m, inner)
 			})
@@ -135,5 +144,39 @@ func smLoop[T Float](kind smKind, y, x []T, outer, m, inner int) {
 				}
 			}
 		}
+	}
+}
+
+// softmaxRowF32 is smLoop's Softmax on one contiguous float32 row (len ≥ 1),
+// with the same arithmetic and so the same bits: mx = max x (the first
+// value if it is NaN, later NaNs ignored: the order-free part of smLoop's
+// scan), y_k = float32(e_k / Σ e) with e_k = expNonPos(x_k − mx) computed in
+// float64 (vector lanes for the leading multiple of 8, as smLoop), the sum
+// in float64, and the scaling by 1/Σ in float64. Without smLoop's strided
+// generic indexing, and with the max and the scaling in vector lanes too
+// (softmaxMaxVec, softmaxScaleVec; the same comparisons and roundings).
+func softmaxRowF32(y, x []float32) {
+	n := len(x)
+	y = y[:n]
+	mx := x[0]
+	if mx == mx { // not NaN: the largest value (NaNs compare false)
+		k, m := softmaxMaxVec(x[1:], mx)
+		for _, v := range x[1+k:] {
+			if v > m {
+				m = v
+			}
+		}
+		mx = m
+	}
+	k0, s := softmaxExpVec(y, x, mx)
+	for k := k0; k < n; k++ {
+		e := expNonPos(float64(x[k] - mx))
+		y[k] = float32(e)
+		s += e
+	}
+	r := 1 / s
+	k := softmaxScaleVec(y, r)
+	for i, v := range y[k:] {
+		y[k+i] = float32(float64(v) * r)
 	}
 }

@@ -94,3 +94,60 @@ sum:
 	VZEROUPPER
 	MOVSD X0, ret+48(FP)
 	RET
+
+// func softmaxMaxAVX512(x *float32, n int, m float32) float32
+//
+// For n a multiple of 16: the running maximum m ← (x[i] > m) ? x[i] : m over
+// x[0:n], in 16 lanes started at m and then folded by the same rule, so
+// NaNs in x are skipped as by smLoop's scalar scan (VMAXPS returns its
+// second source when the comparison is unordered).
+TEXT ·softmaxMaxAVX512(SB), NOSPLIT, $0-28
+	MOVQ x+0(FP), SI
+	MOVQ n+8(FP), CX
+	VBROADCASTSS m+16(FP), Z0
+	SHRQ $4, CX
+	JZ   fold
+
+mloop:
+	VMOVUPS (SI), Z1
+	VMAXPS  Z0, Z1, Z0           // Z0 = Z1 > Z0 ? Z1 : Z0
+	ADDQ    $64, SI
+	DECQ    CX
+	JNZ     mloop
+
+fold:
+	VEXTRACTF32X8 $1, Z0, Y1
+	VMAXPS        Y0, Y1, Y0
+	VEXTRACTF128  $1, Y0, X1
+	VMAXPS        X0, X1, X0
+	VPERMILPS     $0x4E, X0, X1
+	VMAXPS        X0, X1, X0
+	VPERMILPS     $0xB1, X0, X1
+	VMAXPS        X0, X1, X0
+	MOVSS         X0, ret+24(FP)
+	VZEROUPPER
+	RET
+
+// func softmaxScaleAVX512(y *float32, n int, r float64)
+//
+// For n a multiple of 8: y[i] = float32(float64(y[i])·r), the float64
+// product rounded once to float32, as smLoop's scalar loop.
+TEXT ·softmaxScaleAVX512(SB), NOSPLIT, $0-24
+	MOVQ y+0(FP), DI
+	MOVQ n+8(FP), CX
+	VBROADCASTSD r+16(FP), Z2
+	SHRQ $3, CX
+	JZ   sdone
+
+sloop:
+	VCVTPS2PD (DI), Z1
+	VMULPD    Z2, Z1, Z1
+	VCVTPD2PS Z1, Y1
+	VMOVUPS   Y1, (DI)
+	ADDQ      $32, DI
+	DECQ      CX
+	JNZ       sloop
+
+sdone:
+	VZEROUPPER
+	RET
