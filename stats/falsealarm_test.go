@@ -312,6 +312,30 @@ func TestFalseAlarmMaskOutput(t *testing.T) {
 	}
 }
 
+// A segmentation head's per-pixel class map [N,21,H,W], logits or a
+// Softmax over the class axis 1 (the ONNX layout NCHW puts classes on axis 1,
+// not the last axis), is not read as W-class rows: no output summary, no
+// output-health finding, and no per-pixel softmax computed for it (the
+// output-health pass once spent a quarter of a 21-class 224×224 model's run
+// on exactly that).
+func TestFalseAlarmSegmentationOutput(t *testing.T) {
+	rng := rand.New(rand.NewPCG(30, 1))
+	for _, softmax := range []bool{false, true} {
+		b := modelbuild.New("seg", 13)
+		b.Input("x", []int{1, 21, 4, 4}, true)
+		if softmax {
+			b.Node("Softmax", "probs", []string{"x"}, []string{"y"}, modelbuild.Attr{Name: "axis", Value: 1})
+		} else {
+			b.Node("Identity", "logits", []string{"x"}, []string{"y"})
+		}
+		b.Output("y")
+		r := analyze(t, b, batchesOf(rng, 2, func() *tensor.Tensor { return gaussian(rng, 1, 8, 21, 4, 4) })...)
+		if r.Output != nil || len(findings(r, "output-health", "")) != 0 {
+			t.Fatalf("softmax %v: per-pixel map read as classes: %+v %+v", softmax, r.Output, findings(r, "output-health", ""))
+		}
+	}
+}
+
 // BatchNorm drift against its sampling error (the standard error of the
 // sample mean, σ/√n): a 1.5σ shift of a trained running mean on 2 samples
 // is within 3 standard errors (3·√(1/2) = 2.1σ) and no finding; on 64
