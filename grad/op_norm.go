@@ -36,26 +36,13 @@ func instanceNormVJP(o *Op) error {
 	eps := float64(o.Float("epsilon", 1e-5))
 	x, s, g := o.X(0), o.X(1), o.G(0)
 	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
-	xh := make([]float64, D)
+	xh, gh := make([]float64, D), make([]float64, D)
 	for pl := 0; pl < N*C; pl++ {
 		c := pl % C
 		xr, gr := x[pl*D:(pl+1)*D], g[pl*D:(pl+1)*D]
-		m := 0.0
-		for _, v := range xr {
-			m += v
-		}
-		m /= float64(D)
-		vr := 0.0
-		for _, v := range xr {
-			vr += (v - m) * (v - m)
-		}
-		vr /= float64(D)
-		inv := 1 / math.Sqrt(vr+eps)
-		mg, mgx := 0.0, 0.0
-		for i, v := range xr {
-			xh[i] = (v - m) * inv
-			mg += gr[i] * s[c]
-			mgx += gr[i] * s[c] * xh[i]
+		inv := normalise(xr, xh, eps)
+		for i := range xr {
+			gh[i] = gr[i] * s[c]
 			if gs != nil {
 				gs[c] += gr[i] * xh[i]
 			}
@@ -63,15 +50,46 @@ func instanceNormVJP(o *Op) error {
 				gb[c] += gr[i]
 			}
 		}
-		mg /= float64(D)
-		mgx /= float64(D)
 		if gx != nil {
-			for i := range xr {
-				gx[pl*D+i] = (gr[i]*s[c] - mg - xh[i]*mgx) * inv
-			}
+			normalisedDX(gh, xh, gx[pl*D:(pl+1)*D], inv)
 		}
 	}
 	return nil
+}
+
+// normalise writes x̂ = (x − mean)/√(var + ε) of the row xr into xh
+// (population variance) and returns 1/√(var + ε).
+func normalise(xr, xh []float64, eps float64) float64 {
+	m := 0.0
+	for _, v := range xr {
+		m += v
+	}
+	m /= float64(len(xr))
+	vr := 0.0
+	for _, v := range xr {
+		vr += (v - m) * (v - m)
+	}
+	vr /= float64(len(xr))
+	inv := 1 / math.Sqrt(vr+eps)
+	for i, v := range xr {
+		xh[i] = (v - m) * inv
+	}
+	return inv
+}
+
+// normalisedDX is the gradient through x̂ of one normalised row:
+// dst = (ĝ − mean(ĝ) − x̂·mean(ĝ·x̂))·inv, ĝ the gradient reaching x̂.
+func normalisedDX(gh, xh, dst []float64, inv float64) {
+	mg, mgx := 0.0, 0.0
+	for i := range gh {
+		mg += gh[i]
+		mgx += gh[i] * xh[i]
+	}
+	mg /= float64(len(gh))
+	mgx /= float64(len(gh))
+	for i := range gh {
+		dst[i] = (gh[i] - mg - xh[i]*mgx) * inv
+	}
 }
 
 func batchNormVJP(o *Op) error {
@@ -164,27 +182,12 @@ func layerNormVJP(o *Op) error {
 	}
 	x, s, g := o.X(0), o.X(1), o.G(0)
 	gx, gs, gb := o.Grad(0), o.Grad(1), o.Grad(2)
-	xh := make([]float64, D)
-	gh := make([]float64, D)
+	xh, gh := make([]float64, D), make([]float64, D)
 	for r := 0; r < rows; r++ {
 		xr, gr := x[r*D:(r+1)*D], g[r*D:(r+1)*D]
-		m := 0.0
-		for _, v := range xr {
-			m += v
-		}
-		m /= float64(D)
-		v := 0.0
-		for _, e := range xr {
-			v += (e - m) * (e - m)
-		}
-		v /= float64(D)
-		inv := 1 / math.Sqrt(v+eps)
-		mg, mgx := 0.0, 0.0
+		inv := normalise(xr, xh, eps)
 		for i := range xr {
-			xh[i] = (xr[i] - m) * inv
 			gh[i] = gr[i] * s[i]
-			mg += gh[i]
-			mgx += gh[i] * xh[i]
 			if gs != nil {
 				gs[i] += gr[i] * xh[i]
 			}
@@ -192,12 +195,8 @@ func layerNormVJP(o *Op) error {
 				gb[i] += gr[i]
 			}
 		}
-		mg /= float64(D)
-		mgx /= float64(D)
 		if gx != nil {
-			for i := range xr {
-				gx[r*D+i] = (gh[i] - mg - xh[i]*mgx) * inv
-			}
+			normalisedDX(gh, xh, gx[r*D:(r+1)*D], inv)
 		}
 	}
 	return nil
