@@ -22,7 +22,6 @@ import (
 	"testing"
 
 	"github.com/vitals-health/vitals/loader"
-	"github.com/vitals-health/vitals/probe"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
@@ -79,14 +78,7 @@ type ctlGolden struct {
 // vitals check does, and returns the report and the first output's values.
 func ctlRun(t *testing.T, path string, g ctlGolden, scalars []int64) (*report.Report, []float32) {
 	t.Helper()
-	mod, err := loader.LoadModel(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	plan, err := probe.Compile(mod)
-	if err != nil {
-		t.Fatal(err)
-	}
+	mod, plan := stats.LoadPlan(t, path)
 	x, err := loader.ReadNpy(filepath.Join(ctlDir, g.Input))
 	if err != nil {
 		t.Fatal(err)
@@ -302,14 +294,7 @@ func TestIfBranchEqualsBranchModel(t *testing.T) {
 		}
 		own := g
 		own.Input, own.ScalarInput = "", ""
-		mod, err := loader.LoadModel(filepath.Join(ctlDir, file))
-		if err != nil {
-			t.Fatal(err)
-		}
-		plan, err := probe.Compile(mod)
-		if err != nil {
-			t.Fatal(err)
-		}
+		mod, plan := stats.LoadPlan(t, filepath.Join(ctlDir, file))
 		c := stats.NewCollector(mod, plan)
 		for _, b := range rows {
 			in := map[string]*tensor.Tensor{"input": b}
@@ -369,14 +354,7 @@ func TestIfBranchNeverTaken(t *testing.T) {
 // opens with a warning.
 func TestCoverageReportsUnobservedNodes(t *testing.T) {
 	g := readCtlGolden(t, "loop_rnn")
-	mod, err := loader.LoadModel(filepath.Join(ctlDir, g.Model))
-	if err != nil {
-		t.Fatal(err)
-	}
-	plan, err := probe.Compile(mod)
-	if err != nil {
-		t.Fatal(err)
-	}
+	mod, plan := stats.LoadPlan(t, filepath.Join(ctlDir, g.Model))
 	x, err := loader.ReadNpy(filepath.Join(ctlDir, g.Input))
 	if err != nil {
 		t.Fatal(err)

@@ -8,7 +8,6 @@ import (
 	"testing"
 
 	"github.com/vitals-health/vitals/loader"
-	"github.com/vitals-health/vitals/probe"
 	"github.com/vitals-health/vitals/report"
 	"github.com/vitals-health/vitals/stats"
 	"github.com/vitals-health/vitals/tensor"
@@ -58,14 +57,7 @@ func runSample(t *testing.T, path string, tap func(n *loader.Node, outs []*tenso
 // runSampleN is runSample over the first limit images (0: all).
 func runSampleN(t *testing.T, path string, limit int, tap func(n *loader.Node, outs []*tensor.Tensor)) *stats.Collected {
 	t.Helper()
-	m, err := loader.LoadModel(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := probe.Compile(m)
-	if err != nil {
-		t.Fatal(err)
-	}
+	m, p := stats.LoadPlan(t, path)
 	x, err := loader.ReadNpy("../testdata/ref/digits_sample_nchw.npy")
 	if err != nil {
 		t.Fatal(err)

@@ -91,3 +91,18 @@ func BuildPlan(t testing.TB, b *modelbuild.Builder) (*loader.Model, *probe.Plan)
 	}
 	return m, p
 }
+
+// LoadPlan loads and compiles the model file at path, failing the test on an
+// error (exported for the package's external tests too).
+func LoadPlan(t testing.TB, path string) (*loader.Model, *probe.Plan) {
+	t.Helper()
+	m, err := loader.LoadModel(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := probe.Compile(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return m, p
+}

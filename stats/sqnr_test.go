@@ -23,15 +23,7 @@ func compareQuant(t *testing.T, newName string) *report.Report {
 func compareQuantCapped(t *testing.T, newName string, keep int64) *report.Report {
 	t.Helper()
 	load := func(name string) (*loader.Model, *probe.Plan) {
-		m, err := loader.LoadModel(filepath.Join(quantDir, name+".onnx"))
-		if err != nil {
-			t.Fatal(err)
-		}
-		p, err := probe.Compile(m)
-		if err != nil {
-			t.Fatal(err)
-		}
-		return m, p
+		return stats.LoadPlan(t, filepath.Join(quantDir, name+".onnx"))
 	}
 	om, op := load("fp32")
 	nm, np := load(newName)
