@@ -3,9 +3,7 @@ package check_test
 import (
 	"bytes"
 	"context"
-	"encoding/json"
 	"fmt"
-	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -14,6 +12,7 @@ import (
 	"google.golang.org/protobuf/proto"
 
 	"github.com/vitals-health/vitals/check"
+	"github.com/vitals-health/vitals/internal/modeltest"
 	"github.com/vitals-health/vitals/loader/onnxpb"
 	"github.com/vitals-health/vitals/report"
 )
@@ -24,86 +23,19 @@ import (
 // the tolerance the shard design asks for). It names the first difference.
 func sameReport(t *testing.T, want, got *report.Report) {
 	t.Helper()
-	var a, b any
-	for _, p := range []struct {
-		r   *report.Report
-		dst *any
-	}{{want, &a}, {got, &b}} {
+	var docs [2]any
+	for i, r := range []*report.Report{want, got} {
 		var buf bytes.Buffer
-		if err := report.WriteJSON(&buf, p.r, report.Assets{}); err != nil {
+		if err := report.WriteJSON(&buf, r, report.Assets{}); err != nil {
 			t.Fatal(err)
 		}
-		d := json.NewDecoder(&buf)
-		d.UseNumber()
-		if err := d.Decode(p.dst); err != nil {
-			t.Fatal(err)
-		}
+		docs[i] = modeltest.DecodeJSON(t, buf.Bytes())
 	}
-	maxRel = 0
-	if err := sameJSON("", a, b); err != nil {
+	maxRel, err := modeltest.SameJSON(docs[0], docs[1], 1e-12)
+	if err != nil {
 		t.Fatal(err)
 	}
 	t.Logf("largest relative difference of a float: %.3g", maxRel)
-}
-
-// maxRel is the largest relative difference sameJSON let through.
-var maxRel float64
-
-func sameJSON(path string, a, b any) error {
-	switch x := a.(type) {
-	case map[string]any:
-		y, ok := b.(map[string]any)
-		if !ok || len(x) != len(y) {
-			return fmt.Errorf("%s: %v vs %v", path, short(a), short(b))
-		}
-		for k := range x {
-			if err := sameJSON(path+"."+k, x[k], y[k]); err != nil {
-				return err
-			}
-		}
-	case []any:
-		y, ok := b.([]any)
-		if !ok || len(x) != len(y) {
-			return fmt.Errorf("%s: %d items vs %v", path, len(x), short(b))
-		}
-		for i := range x {
-			if err := sameJSON(fmt.Sprintf("%s[%d]", path, i), x[i], y[i]); err != nil {
-				return err
-			}
-		}
-	case json.Number:
-		y, ok := b.(json.Number)
-		if !ok {
-			return fmt.Errorf("%s: %v vs %v", path, a, b)
-		}
-		if x == y {
-			return nil
-		}
-		_, e1 := x.Int64()
-		_, e2 := y.Int64()
-		if e1 == nil || e2 == nil {
-			return fmt.Errorf("%s: %v vs %v (integers differ)", path, x, y)
-		}
-		fx, _ := x.Float64()
-		fy, _ := y.Float64()
-		maxRel = math.Max(maxRel, math.Abs(fx-fy)/math.Max(math.Abs(fx), math.Abs(fy)))
-		if math.Abs(fx-fy) > 1e-12*math.Max(math.Abs(fx), math.Abs(fy)) {
-			return fmt.Errorf("%s: %v vs %v (relative %.3g)", path, x, y, math.Abs(fx-fy)/math.Max(math.Abs(fx), math.Abs(fy)))
-		}
-	default:
-		if a != b {
-			return fmt.Errorf("%s: %v vs %v", path, a, b)
-		}
-	}
-	return nil
-}
-
-func short(v any) string {
-	s := fmt.Sprint(v)
-	if len(s) > 120 {
-		s = s[:120] + "..."
-	}
-	return s
 }
 
 type shardCase struct {

@@ -2,14 +2,14 @@ package main
 
 import (
 	"bytes"
-	"encoding/json"
 	"fmt"
-	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"github.com/vitals-health/vitals/internal/modeltest"
 )
 
 const demoLabels = "../../testdata/demo/conditions.npy"
@@ -17,61 +17,11 @@ const demoLabels = "../../testdata/demo/conditions.npy"
 // sameJSON compares two decoded JSON reports: strings, bools and integers
 // exactly (counts, histogram counts, unit flags, findings), other numbers
 // to 1e-12 relative (sums taken in another order); it names the first difference.
-func sameJSON(path string, a, b any) error {
-	switch x := a.(type) {
-	case map[string]any:
-		y, ok := b.(map[string]any)
-		if !ok || len(x) != len(y) {
-			return fmt.Errorf("%s: different objects", path)
-		}
-		for k := range x {
-			if err := sameJSON(path+"."+k, x[k], y[k]); err != nil {
-				return err
-			}
-		}
-	case []any:
-		y, ok := b.([]any)
-		if !ok || len(x) != len(y) {
-			return fmt.Errorf("%s: different lists", path)
-		}
-		for i := range x {
-			if err := sameJSON(fmt.Sprintf("%s[%d]", path, i), x[i], y[i]); err != nil {
-				return err
-			}
-		}
-	case json.Number:
-		y, ok := b.(json.Number)
-		if !ok {
-			return fmt.Errorf("%s: %v vs %v", path, a, b)
-		}
-		if x == y {
-			return nil
-		}
-		_, e1 := x.Int64()
-		_, e2 := y.Int64()
-		fx, _ := x.Float64()
-		fy, _ := y.Float64()
-		if e1 == nil || e2 == nil || math.Abs(fx-fy) > 1e-12*math.Max(math.Abs(fx), math.Abs(fy)) {
-			return fmt.Errorf("%s: %v vs %v", path, x, y)
-		}
-	default:
-		if a != b {
-			return fmt.Errorf("%s: %v vs %v", path, a, b)
-		}
-	}
-	return nil
+func sameJSON(a, b any) error {
+	_, err := modeltest.SameJSON(a, b, 1e-12)
+	return err
 }
 
-func decodeJSON(t *testing.T, b []byte) any {
-	t.Helper()
-	var v any
-	d := json.NewDecoder(bytes.NewReader(b))
-	d.UseNumber()
-	if err := d.Decode(&v); err != nil {
-		t.Fatalf("%v\n%s", err, b)
-	}
-	return v
-}
 
 // Shards as separate processes: `check --shard k/N --partial` for N = 1, 3
 // and 7 over the demo sample (2000 samples in 32 batches of 64: N = 3 and
@@ -109,7 +59,7 @@ func TestShardProcessesMergeToSingleRun(t *testing.T) {
 	}
 	// the demo's overdriven model has dead-unit errors: exit 1; no backward
 	// pass (on by default with --labels), which shards do not run
-	single := decodeJSON(t, run(1, append([]string{"check"}, append(common, "--format", "json", "--gradients=false")...)...))
+	single := modeltest.DecodeJSON(t, run(1, append([]string{"check"}, append(common, "--format", "json", "--gradients=false")...)...))
 	for _, n := range []int{1, 3, 7} {
 		var parts []string
 		for k := 0; k < n; k++ {
@@ -127,7 +77,7 @@ func TestShardProcessesMergeToSingleRun(t *testing.T) {
 			t.Fatal("no report")
 		}
 		stdoutJSON := out[:bytes.LastIndexByte(out, '}')+1]
-		if err := sameJSON("", single, decodeJSON(t, stdoutJSON)); err != nil {
+		if err := sameJSON(single, modeltest.DecodeJSON(t, stdoutJSON)); err != nil {
 			t.Errorf("N=%d, merged at once: %v", n, err)
 		}
 		// in stages: neighbours in pairs, then the pairs
@@ -142,7 +92,7 @@ func TestShardProcessesMergeToSingleRun(t *testing.T) {
 			stage = append(stage, p)
 		}
 		out = run(1, append([]string{"merge", "--format", "json"}, stage...)...)
-		if err := sameJSON("", single, decodeJSON(t, out[:bytes.LastIndexByte(out, '}')+1])); err != nil {
+		if err := sameJSON(single, modeltest.DecodeJSON(t, out[:bytes.LastIndexByte(out, '}')+1])); err != nil {
 			t.Errorf("N=%d, merged in stages: %v", n, err)
 		}
 	}
@@ -178,7 +128,7 @@ func TestShardProcessesMergeToSingleRun(t *testing.T) {
 		n7 = append(n7, filepath.Join(dir, fmt.Sprintf("n7-%d.part", k)))
 	}
 	run(0, append([]string{"merge", "--partial", newState}, n7...)...)
-	cmp := decodeJSON(t, run(1, "compare", oldState, newState, "--format", "json")).(map[string]any)
+	cmp := modeltest.DecodeJSON(t, run(1, "compare", oldState, newState, "--format", "json")).(map[string]any)
 	layers := cmp["compare"].(map[string]any)["layers"].([]any)
 	if len(layers) != 7 || cmp["compare"].(map[string]any)["agreement"] != nil {
 		t.Errorf("compare of states: %d matched layers (want 7), agreement %v (want none)", len(layers), cmp["compare"].(map[string]any)["agreement"])
