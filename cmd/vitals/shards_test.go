@@ -22,7 +22,6 @@ func sameJSON(a, b any) error {
 	return err
 }
 
-
 // Shards as separate processes: `check --shard k/N --partial` for N = 1, 3
 // and 7 over the demo sample (2000 samples in 32 batches of 64: N = 3 and
 // 7 do not divide it), merged at once and in stages (pairs merged into
