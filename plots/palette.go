@@ -21,7 +21,28 @@ var (
 	histFill   = color.RGBA{R: 120, G: 150, B: 200, A: 255}
 	oldGrey    = color.RGBA{R: 90, G: 90, B: 90, A: 255}
 	newMagenta = color.RGBA{R: 176, G: 40, B: 110, A: 255}
+	paleTint   = color.RGBA{R: 236, G: 241, B: 250, A: 255}
 )
+
+// ramp is a single-hue sequential palette of n colours from `from` (the
+// heat map's minimum) to `to` (its maximum), interpolated linearly in RGB:
+// one hue reads as "more or less of one thing", which a two-hue diverging
+// scale (with a meaningless midpoint) does not.
+type ramp struct {
+	from, to color.RGBA
+	n        int
+}
+
+// Colors implements gonum's palette.Palette.
+func (r ramp) Colors() []color.Color {
+	out := make([]color.Color, r.n)
+	mix := func(a, b uint8, t float64) uint8 { return uint8(float64(a) + t*(float64(b)-float64(a)) + 0.5) }
+	for i := range out {
+		t := float64(i) / float64(r.n-1)
+		out[i] = color.RGBA{R: mix(r.from.R, r.to.R, t), G: mix(r.from.G, r.to.G, t), B: mix(r.from.B, r.to.B, t), A: 255}
+	}
+	return out
+}
 
 func itoa(i int) string { return strconv.Itoa(i) }
 

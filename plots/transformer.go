@@ -7,7 +7,6 @@ import (
 	"sort"
 
 	"gonum.org/v1/plot"
-	"gonum.org/v1/plot/palette/moreland"
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
@@ -49,7 +48,7 @@ func AttentionEntropySpec(r *report.Report) *Heat {
 		return nil
 	}
 	sort.Slice(bs, func(i, j int) bool { return bs[i].b < bs[j].b })
-	h := &Heat{File: "attention-entropy.png", Title: "Attention entropy per head: H/ln K (0 = one-hot, 1 = uniform)",
+	h := &Heat{File: "attention-entropy.png", Title: "Attention entropy per head: H/ln K (dark 0 = one-hot, pale 1 = uniform)",
 		XLabel: "head", YLabel: "attention block", Min: 0, Max: 1}
 	for _, b := range bs {
 		row := make([]float64, heads)
@@ -128,21 +127,20 @@ func RenderHeat(w io.Writer, h *Heat) error {
 	}
 	p := plot.New()
 	styleAxes(p, h.Title, h.XLabel, h.YLabel, 15, 13, 11)
-	pal := moreland.SmoothBlueRed()
-	pal.SetMin(h.Min)
-	pal.SetMax(h.Max)
-	hm := plotter.NewHeatMap(heatGrid{h}, pal.Palette(64))
+	hm := plotter.NewHeatMap(heatGrid{h}, ramp{from: inkNavy, to: paleTint, n: 64})
 	hm.Min, hm.Max = h.Min, h.Max
 	hm.NaN = white
 	p.Add(hm)
 	cols, rows := heatGrid{h}.Dims()
 	var xys plotter.XYs
 	var labels []string
+	var dark []bool // the cell's fill is in the dark half of the ramp
 	for r := 0; r < rows; r++ {
 		for c := 0; c < cols; c++ {
 			if v := h.Values[r][c]; !math.IsNaN(v) {
 				xys = append(xys, plotter.XY{X: float64(c), Y: float64(rows - 1 - r)})
 				labels = append(labels, fmt.Sprintf("%.3f", v))
+				dark = append(dark, (v-h.Min) < 0.5*(h.Max-h.Min))
 			}
 		}
 	}
@@ -154,6 +152,9 @@ func RenderHeat(w io.Writer, h *Heat) error {
 		for i := range lb.TextStyle {
 			lb.TextStyle[i] = sans(10)
 			lb.TextStyle[i].XAlign, lb.TextStyle[i].YAlign = draw.XCenter, draw.YCenter
+			if dark[i] {
+				lb.TextStyle[i].Color = white
+			}
 		}
 		p.Add(lb)
 	}
