@@ -36,7 +36,7 @@ func WriteHTML(w io.Writer, r *Report, a Assets) error {
 	err := htmlPage.Execute(b, map[string]any{
 		"R": r, "V": rv, "Images": imgs, "Notes": a.Notes,
 		"Grad":        htmlGradients(r),
-		"LayerHeader": reviewLayerHeader, "WeightHeader": reviewWeightHeader, "DeltaHeader": reviewDeltaHeader,
+		"LayerHeader": reviewLayerHeader, "WeightHeader": reviewWeightHeader,
 	})
 	if err != nil {
 		return err
@@ -138,7 +138,7 @@ figcaption { color: #525a6e; font-size: .9em; }
 {{with .V.Compare}}<h2>Comparison: OLD <code>{{.Old}}</code> → NEW <code>{{.New}}</code></h2>
 <h3>Matched layers</h3>
 <table id="deltas">
-<thead><tr>{{range $.DeltaHeader}}<th>{{.}}</th>{{end}}</tr></thead>
+<thead><tr>{{range .Header}}<th>{{.}}</th>{{end}}</tr></thead>
 <tbody>
 {{range .Layers}}<tr>{{range $i, $c := .}}{{if lt $i 2}}<td><code>{{$c}}</code></td>{{else if eq $i 2}}<td>{{$c}}</td>{{else}}<td class="n">{{$c}}</td>{{end}}{{end}}</tr>
 {{end}}</tbody>

@@ -101,7 +101,7 @@ func WriteMarkdown(w io.Writer, r *Report, a Assets) error {
 	if c := rv.Compare; c != nil {
 		p("## Comparison: OLD "+mdCode(c.Old)+" → NEW "+mdCode(c.New), "")
 		p("### Matched layers", "")
-		mdTable(b, reviewDeltaHeader, "lllrrrrr", len(c.Layers), func(i int) []string {
+		mdTable(b, c.Header, "lll"+strings.Repeat("r", len(c.Header)-3), len(c.Layers), func(i int) []string {
 			row := c.Layers[i]
 			return append([]string{mdCode(row[0]), mdCode(row[1]), mdText(row[2])}, row[3:]...)
 		})

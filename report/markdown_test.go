@@ -158,3 +158,45 @@ func TestReviewEvidenceLists(t *testing.T) {
 		t.Errorf("reviewEvidence = %q, want %q", got, want)
 	}
 }
+
+// A comparison against a quantized or float16 model carries each matched
+// layer's SQNR (Comparison.Layers[i].SQNRdB): the Markdown and HTML tables
+// gain an "SQNR dB" column with it; a float-against-float comparison, none.
+func TestCompareTablesSQNRColumn(t *testing.T) {
+	r := sampleCompareReport()
+	for _, w := range []struct {
+		name  string
+		write func(*bytes.Buffer, *Report) error
+	}{
+		{"markdown", func(b *bytes.Buffer, r *Report) error { return WriteMarkdown(b, r, Assets{}) }},
+		{"html", func(b *bytes.Buffer, r *Report) error { b.WriteString(sampleHTML(t, r, nil)); return nil }},
+	} {
+		var b bytes.Buffer
+		if err := w.write(&b, r); err != nil {
+			t.Fatal(err)
+		}
+		if strings.Contains(b.String(), "SQNR dB") {
+			t.Errorf("%s: SQNR column without any SQNR", w.name)
+		}
+	}
+	q := sampleCompareReport()
+	v := 31.25
+	q.Compare.Layers[2].SQNRdB = &v
+	var md bytes.Buffer
+	if err := WriteMarkdown(&md, q, Assets{}); err != nil {
+		t.Fatal(err)
+	}
+	tables := mdTables(md.String())
+	header := tables[3][0]
+	if !strings.HasSuffix(strings.TrimSpace(header), "SQNR dB |") {
+		t.Errorf("markdown header %q", header)
+	}
+	if row := tables[3][2+2]; !strings.HasSuffix(strings.TrimSpace(row), "| 31.25 |") {
+		t.Errorf("markdown row of layer 2: %q", row)
+	}
+	doc := sampleHTML(t, q, nil)
+	deltas := doc[strings.Index(doc, `id="deltas"`):strings.Index(doc, `id="weight-deltas"`)]
+	if !strings.Contains(deltas, "<th>SQNR dB</th>") || !strings.Contains(deltas, `<td class="n">31.25</td>`) {
+		t.Error("html deltas table lacks the SQNR column or value")
+	}
+}

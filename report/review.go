@@ -57,7 +57,10 @@ type reviewWeight struct {
 }
 
 type reviewCompare struct {
-	Old, New  string
+	Old, New string
+	// Header names Layers' columns: reviewDeltaHeader, plus "SQNR dB" when
+	// any matched layer has one (float against quantized or float16).
+	Header    []string
 	Layers    [][]string
 	Weights   [][]string
 	Agreement []string
@@ -275,11 +278,23 @@ func reviewComparison(c *Comparison) *reviewCompare {
 		}
 		return a + " → " + b
 	}
+	sqnr := false
 	for _, d := range c.Layers {
-		rc.Layers = append(rc.Layers, []string{d.Node, d.OldNode, d.Op,
+		sqnr = sqnr || d.SQNRdB != nil
+	}
+	rc.Header = reviewDeltaHeader
+	if sqnr {
+		rc.Header = append(append([]string{}, reviewDeltaHeader...), "SQNR dB")
+	}
+	for _, d := range c.Layers {
+		row := []string{d.Node, d.OldNode, d.Op,
 			arrow(FmtNum(d.MeanOld), FmtNum(d.MeanNew)), arrow(FmtNum(d.StdOld), FmtNum(d.StdNew)),
 			arrow(FmtPct(d.DeadOld), FmtPct(d.DeadNew)), arrow(FmtPct(d.SaturatedOld), FmtPct(d.SaturatedNew)),
-			FmtNum(d.HistogramDistance)})
+			FmtNum(d.HistogramDistance)}
+		if sqnr {
+			row = append(row, FmtNum(d.SQNRdB))
+		}
+		rc.Layers = append(rc.Layers, row)
 	}
 	for _, w := range c.Weights {
 		rc.Weights = append(rc.Weights, []string{w.Name, w.Node, FmtPct(w.RelativeChange)})
