@@ -6,7 +6,11 @@
 // passGo for len(x) a multiple of 16, 16 values per step. Lane layout:
 // Z0/Z1 Σd (values 0..7 / 8..15 of each group), Z2/Z3 Σd², Z4 min, Z5 max,
 // Z6 ±0 count, Z7 −0 count, Z8 non-finite count, Z9 saturated count.
-// passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32.
+// passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32, f32 33,
+// scale 36, binLo 40, binHi 44, base 48, tiny 52, top 56. With f32 the bin
+// is taken in float32 (passParams.binF32: Z30 scale, Z29 binLo, Z26 binHi,
+// Z25 base), and by the float64 formula (bin64, its constants read from p)
+// for a group holding a nonzero value below tiny; without, always by bin64.
 // passLanes: s 0, q 128, mn 256, mx 320, zeros 384, negz 448, nonfin 512, sat 576.
 // Count tables: histTables=8 tables of histStride=136 uint32 (544 bytes);
 // the k-th nonzero value of a block increments table k mod 8. Zeros are
@@ -24,13 +28,8 @@ TEXT ·passAVX512(SB), $8320-48
 	SHRQ $4, CX
 	JZ   done
 	VBROADCASTSD 0(DX), Z31      // shift
-	VBROADCASTSD 8(DX), Z30      // lo
-	VBROADCASTSD 16(DX), Z29     // inv
 	VBROADCASTSS 24(DX), Z28     // satLo
 	VBROADCASTSS 28(DX), Z27     // satHi
-	MOVQ $0x405FC00000000000, AX // 127.0
-	VPBROADCASTQ AX, Z26
-	VPXORD Z25, Z25, Z25
 	MOVL $128, AX
 	VPBROADCASTD AX, Z24
 	MOVL $1, AX
@@ -53,6 +52,11 @@ TEXT ·passAVX512(SB), $8320-48
 	VMOVDQU32 576(BX), Z9
 	CMPB 32(DX), $0
 	JNE  nohist
+	MOVBQZX 33(DX), R15          // bins in float32 (passParams.binF32)
+	VBROADCASTSS 36(DX), Z30     // scale
+	VBROADCASTSS 40(DX), Z29     // binLo
+	VBROADCASTSS 44(DX), Z26     // binHi
+	VPBROADCASTD 48(DX), Z25     // base
 	LEAQ 0(SP), R13              // frame of the block being read
 	LEAQ 4160(SP), R14           // frame of the block before it
 	MOVQ R14, R8                 // R8..R10: bins still to count (none yet)
@@ -93,17 +97,34 @@ loop:
 	VADDPD Z14, Z1, Z1
 	VFMADD231PD Z13, Z13, Z2     // Σd²
 	VFMADD231PD Z14, Z14, Z3
-	VSUBPD Z30, Z11, Z15         // t = (v − lo)·inv
-	VSUBPD Z30, Z12, Z16
-	VMULPD Z29, Z15, Z15
-	VMULPD Z29, Z16, Z16
-	VMAXPD Z25, Z15, Z15         // t > 0 ? t : 0 (NaN → 0)
-	VMAXPD Z25, Z16, Z16
-	VMINPD Z26, Z15, Z15         // t < 127 ? t : 127
-	VMINPD Z26, Z16, Z16
+	TESTQ R15, R15
+	JZ   bin64
+	VMULPS Z30, Z10, Z15         // y = v·inv (exact)
+	VMAXPS Z29, Z15, Z15         // clamped to [base, base+127]
+	VMINPS Z26, Z15, Z15
+	VCVTPS2DQ.RD_SAE Z15, Z17    // ⌊y⌋
+	VPSUBD Z25, Z17, Z17         // bin = ⌊y⌋ − base
+	VPANDD Z22, Z10, Z16         // |v| < tiny and v ≠ 0: float64 formula
+	VCMPPS.BCST $0x11, 52(DX), Z16, K7
+	KANDNW K7, K1, K7
+	KORTESTW K7, K7
+	JZ   binned
+
+bin64:
+	VPXORD Z19, Z19, Z19
+	VSUBPD.BCST 8(DX), Z11, Z15  // t = (v − lo)·inv
+	VSUBPD.BCST 8(DX), Z12, Z16
+	VMULPD.BCST 16(DX), Z15, Z15
+	VMULPD.BCST 16(DX), Z16, Z16
+	VMAXPD Z19, Z15, Z15         // t > 0 ? t : 0 (NaN → 0)
+	VMAXPD Z19, Z16, Z16
+	VMINPD.BCST 56(DX), Z15, Z15 // t < 127 ? t : 127
+	VMINPD.BCST 56(DX), Z16, Z16
 	VCVTTPD2DQ Z15, Y17          // bin = trunc(t)
 	VCVTTPD2DQ Z16, Y18
 	VINSERTI64X4 $1, Y18, Z17, Z17
+
+binned:
 	VMOVDQA32 Z24, K3, Z17       // non-finite → junk bin 128
 	KNOTW K1, K6                 // zeros are left out (counted apart)
 	VPCOMPRESSD Z17, K6, Z18     // the other bins, packed

@@ -17,8 +17,9 @@ func TestPassLayout(t *testing.T) {
 	var p passParams
 	var l passLanes
 	got := []uintptr{unsafe.Offsetof(p.lo), unsafe.Offsetof(p.inv), unsafe.Offsetof(p.satLo), unsafe.Offsetof(p.satHi), unsafe.Offsetof(p.noHist),
+		unsafe.Offsetof(p.f32), unsafe.Offsetof(p.scale), unsafe.Offsetof(p.binLo), unsafe.Offsetof(p.binHi), unsafe.Offsetof(p.base), unsafe.Offsetof(p.tiny), unsafe.Offsetof(p.top),
 		unsafe.Offsetof(l.q), unsafe.Offsetof(l.mn), unsafe.Offsetof(l.mx), unsafe.Offsetof(l.zeros), unsafe.Offsetof(l.negz), unsafe.Offsetof(l.nonfin), unsafe.Offsetof(l.sat)}
-	want := []uintptr{8, 16, 24, 28, 32, 128, 256, 320, 384, 448, 512, 576}
+	want := []uintptr{8, 16, 24, 28, 32, 33, 36, 40, 44, 48, 52, 56, 128, 256, 320, 384, 448, 512, 576}
 	if !slices.Equal(got, want) {
 		t.Fatalf("offsets %v, want %v", got, want)
 	}
@@ -125,6 +126,53 @@ func testPassVecMatchesGo(t *testing.T) {
 					}
 				}
 			}
+		}
+	}
+}
+
+// The AVX-512 kernel's float32 bins (passParams.binF32) are the float64
+// formula's also where that formula rounds: a tiny negative value beside a
+// window starting below zero (a GELU output of −1e-20 with lo = −0.5: in
+// float64, −1e-20 + 0.5 rounds to 0.5, the left edge of the bin of 0, one
+// bin above the exact one) and values on and next to bin edges. It fails
+// when the kernel's fall-back for values below tiny is taken out.
+func TestPassF32BinsMatchFloat64(t *testing.T) {
+	if passLevel == passNone {
+		t.Skip("no vector kernel on this CPU")
+	}
+	nan := float32(math.NaN())
+	p := passParams{lo: -0.5, inv: 128, satLo: nan, satHi: nan}
+	q := p
+	q.binF32()
+	if !q.f32 || q.base != -64 {
+		t.Fatalf("window lo −0.5, inv 128: f32 %v base %d, want the float32 bins with base −64", q.f32, q.base)
+	}
+	if binOf(-1e-20, &p) != 64 {
+		t.Fatalf("float64 bin of −1e-20 is %d; this test expects the rounding to the bin of 0 (64)", binOf(-1e-20, &p))
+	}
+	rng := rand.New(rand.NewPCG(5, 6))
+	x := make([]float32, 4096)
+	for i := range x {
+		switch rng.IntN(4) {
+		case 0:
+			x[i] = -float32(math.Ldexp(1+rng.Float64(), -40-rng.IntN(60))) // tiny negative
+		case 1:
+			k := rng.IntN(140) - 70 // a bin edge k/128 or the float32 just beside it
+			e := float32(k) / 128
+			x[i] = []float32{e, math.Nextafter32(e, -1), math.Nextafter32(e, 1)}[rng.IntN(3)]
+		default:
+			x[i] = float32(rng.NormFloat64() * 0.2)
+		}
+	}
+	for _, n := range []int{16, 64 * 16, len(x)} {
+		var a, b passLanes
+		a.init()
+		b.init()
+		ta, tb := make([]uint32, histTables*histStride), make([]uint32, histTables*histStride)
+		pass(x[:n], &p, ta, &a)
+		passGo(x[:n], &p, tb, &b)
+		if !slices.Equal(binTotals(ta), binTotals(tb)) {
+			t.Fatalf("n=%d: bins %v\nwant %v", n, binTotals(ta), binTotals(tb))
 		}
 	}
 }
