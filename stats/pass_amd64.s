@@ -88,9 +88,8 @@ loop:
 	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
 	KORW K4, K5, K4
 	VPADDD Z23, Z9, K4, Z9
-	VCVTPS2PD Y10, Z11           // values 0..7 as float64
-	VEXTRACTF64X4 $1, Z10, Y12
-	VCVTPS2PD Y12, Z12           // values 8..15
+	VCVTPS2PD 0(SI), Z11         // values 0..7 as float64
+	VCVTPS2PD 32(SI), Z12        // values 8..15 (from memory: no shuffle)
 	VSUBPD Z31, Z11, Z13         // d = v − shift
 	VSUBPD Z31, Z12, Z14
 	VADDPD Z13, Z0, Z0           // Σd
@@ -201,9 +200,8 @@ nohist:
 	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
 	KORW K4, K5, K4
 	VPADDD Z23, Z9, K4, Z9
-	VCVTPS2PD Y10, Z11           // values 0..7 as float64
-	VEXTRACTF64X4 $1, Z10, Y12
-	VCVTPS2PD Y12, Z12           // values 8..15
+	VCVTPS2PD 0(SI), Z11         // values 0..7 as float64
+	VCVTPS2PD 32(SI), Z12        // values 8..15 (from memory: no shuffle)
 	VSUBPD Z31, Z11, Z13         // d = v − shift
 	VSUBPD Z31, Z12, Z14
 	VADDPD Z13, Z0, Z0           // Σd
