@@ -218,13 +218,15 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	}
 	D := r.dim
 	var mx uint32
+	var nan int64
 	hist := r.hist
 	for i := 0; i+D <= len(x); i += D {
 		row, over := x[i:i+D], r.over6[:D]
 		for d, v := range row {
 			b := math.Float32bits(v) & 0x7fffffff
 			if b >= 0x7f800000 {
-				continue // NaN, ±Inf
+				nan++ // NaN, ±Inf
+				continue
 			}
 			hist[b>>17]++
 			if b > mx {
@@ -235,8 +237,7 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 			}
 		}
 	}
-	var nan int64
-	for _, v := range x {
+	for _, v := range x[len(x)/D*D:] { // a partial last row (not in the loop above)
 		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
 			nan++
 		}
