@@ -54,6 +54,7 @@ type passParams struct {
 	// binLo = base and binHi = base+127 with base = lo·inv, tiny the
 	// magnitude below which a nonzero value takes the float64 formula.
 	f32                 bool
+	histOnly            bool // only the histogram and the ±0 count (the moments are known)
 	scale, binLo, binHi float32
 	base                int32
 	tiny                float32
@@ -126,6 +127,10 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	}
 	satLo, satHi := p.satLo, p.satHi
 	var zeros, negz, nonfins, sat uint32
+	if p.histOnly && !p.noHist {
+		histOnlyGo(x, p, tabs, l)
+		return
+	}
 	for i, v := range x {
 		j := i & 15
 		f := float64(v)
@@ -163,6 +168,26 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	l.negz[0] += negz
 	l.nonfin[0] += nonfins
 	l.sat[0] += sat
+}
+
+// histOnlyGo is passGo with histOnly: the count tables and the ±0 count
+// alone, the other lane accumulators left as they are.
+func histOnlyGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
+	var zeros uint32
+	for i, v := range x {
+		b := math.Float32bits(v)
+		zero := isNil(b & 0x7fffffff)
+		zeros += zero
+		k := binOf(float64(v), p)
+		if isNil(b&0x7f800000^0x7f800000) != 0 {
+			k = HistBins
+		}
+		if zero != 0 {
+			k = HistBins + 1
+		}
+		tabs[(i%histTables)*histStride+k]++
+	}
+	l.zeros[0] += zeros
 }
 
 // isNil is 1 when u is 0, else 0, without a branch.

@@ -7,7 +7,7 @@
 // Z0/Z1 Σd (values 0..7 / 8..15 of each group), Z2/Z3 Σd², Z4 min, Z5 max,
 // Z6 ±0 count, Z7 −0 count, Z8 non-finite count, Z9 saturated count.
 // passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32, f32 33,
-// scale 36, binLo 40, binHi 44, base 48, tiny 52, top 56. With f32 the bin
+// histOnly 34, scale 36, binLo 40, binHi 44, base 48, tiny 52, top 56. With f32 the bin
 // is taken in float32 (passParams.binF32: Z30 scale, Z29 binLo, Z26 binHi,
 // Z25 base), and by the float64 formula (bin64, its constants read from p)
 // for a group holding a nonzero value below tiny; without, always by bin64.
@@ -52,7 +52,10 @@ TEXT ·passAVX512(SB), $8320-48
 	VMOVDQU32 576(BX), Z9
 	CMPB 32(DX), $0
 	JNE  nohist
-	MOVBQZX 33(DX), R15          // bins in float32 (passParams.binF32)
+	MOVBQZX 33(DX), R15          // bit 0: bins in float32 (passParams.binF32)
+	MOVBQZX 34(DX), AX           // bit 1: histogram only (histOnly)
+	SHLQ $1, AX
+	ORQ  AX, R15
 	VBROADCASTSS 36(DX), Z30     // scale
 	VBROADCASTSS 40(DX), Z29     // binLo
 	VBROADCASTSS 44(DX), Z26     // binHi
@@ -75,14 +78,16 @@ block:
 
 loop:
 	VMOVUPS (SI), Z10
-	VMINPS Z10, Z4, Z4           // mn = mn < v ? mn : v
-	VMAXPS Z10, Z5, Z5           // mx = mx > v ? mx : v
 	VPTESTNMD Z22, Z10, K1       // ±0: (bits & 0x7fffffff) == 0
 	VPADDD Z23, Z6, K1, Z6
-	VPCMPEQD Z21, Z10, K2        // −0: bits == 0x80000000
-	VPADDD Z23, Z7, K2, Z7
 	VPANDD Z20, Z10, Z19         // NaN/±Inf: exponent bits all ones
 	VPCMPEQD Z20, Z19, K3
+	TESTQ $2, R15
+	JNZ  bins                    // histOnly: no moments, extremes or other counts
+	VMINPS Z10, Z4, Z4           // mn = mn < v ? mn : v
+	VMAXPS Z10, Z5, Z5           // mx = mx > v ? mx : v
+	VPCMPEQD Z21, Z10, K2        // −0: bits == 0x80000000
+	VPADDD Z23, Z7, K2, Z7
 	VPADDD Z23, Z8, K3, Z8
 	VCMPPS $0x12, Z28, Z10, K4   // v <= satLo (ordered: false for NaN)
 	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
@@ -96,7 +101,9 @@ loop:
 	VADDPD Z14, Z1, Z1
 	VFMADD231PD Z13, Z13, Z2     // Σd²
 	VFMADD231PD Z14, Z14, Z3
-	TESTQ R15, R15
+
+bins:
+	TESTQ $1, R15
 	JZ   bin64
 	VMULPS Z30, Z10, Z15         // y = v·inv (exact)
 	VMAXPS Z29, Z15, Z15         // clamped to [base, base+127]
@@ -110,6 +117,8 @@ loop:
 	JZ   binned
 
 bin64:
+	VCVTPS2PD 0(SI), Z11         // (again: histOnly skipped the moments)
+	VCVTPS2PD 32(SI), Z12
 	VPXORD Z19, Z19, Z19
 	VSUBPD.BCST 8(DX), Z11, Z15  // t = (v − lo)·inv
 	VSUBPD.BCST 8(DX), Z12, Z16

@@ -17,9 +17,9 @@ func TestPassLayout(t *testing.T) {
 	var p passParams
 	var l passLanes
 	got := []uintptr{unsafe.Offsetof(p.lo), unsafe.Offsetof(p.inv), unsafe.Offsetof(p.satLo), unsafe.Offsetof(p.satHi), unsafe.Offsetof(p.noHist),
-		unsafe.Offsetof(p.f32), unsafe.Offsetof(p.scale), unsafe.Offsetof(p.binLo), unsafe.Offsetof(p.binHi), unsafe.Offsetof(p.base), unsafe.Offsetof(p.tiny), unsafe.Offsetof(p.top),
+		unsafe.Offsetof(p.f32), unsafe.Offsetof(p.histOnly), unsafe.Offsetof(p.scale), unsafe.Offsetof(p.binLo), unsafe.Offsetof(p.binHi), unsafe.Offsetof(p.base), unsafe.Offsetof(p.tiny), unsafe.Offsetof(p.top),
 		unsafe.Offsetof(l.q), unsafe.Offsetof(l.mn), unsafe.Offsetof(l.mx), unsafe.Offsetof(l.zeros), unsafe.Offsetof(l.negz), unsafe.Offsetof(l.nonfin), unsafe.Offsetof(l.sat)}
-	want := []uintptr{8, 16, 24, 28, 32, 33, 36, 40, 44, 48, 52, 56, 128, 256, 320, 384, 448, 512, 576}
+	want := []uintptr{8, 16, 24, 28, 32, 33, 34, 36, 40, 44, 48, 52, 56, 128, 256, 320, 384, 448, 512, 576}
 	if !slices.Equal(got, want) {
 		t.Fatalf("offsets %v, want %v", got, want)
 	}
@@ -97,6 +97,8 @@ func testPassVecMatchesGo(t *testing.T) {
 		{sh: 0, lo: 1e30, inv: 1e-20, satLo: -0.99, satHi: nan},          // window far off
 		{sh: 3, lo: -math.Ldexp(64, -3), inv: 8, satLo: nan, satHi: nan}, // no saturation rule
 		{sh: 0, noHist: true, satLo: nan, satHi: nan},
+		{sh: 0.5, lo: -16, inv: 4, satLo: 0, satHi: 6, histOnly: true},        // tables and ±0 count only
+		{sh: 0, lo: 1e30, inv: 1e-20, satLo: nan, satHi: nan, histOnly: true}, // the same through the float64 bins
 	}
 	lengths := []int{0, 1, 15, 16, 17, 31, 33, 100, 1000, 4099, fastChunk}
 	for _, n := range lengths {
@@ -118,6 +120,18 @@ func testPassVecMatchesGo(t *testing.T) {
 					}
 					pass(x, &p, ta, &a)
 					passGo(x, &p, tb, &b)
+					if p.histOnly {
+						// the AVX2 kernel takes the moments anyway: only the
+						// tables and the ±0 count are defined
+						var za, zb uint32
+						for j := range 16 {
+							za, zb = za+a.zeros[j], zb+b.zeros[j]
+						}
+						if za != zb || !slices.Equal(binTotals(ta), binTotals(tb)) {
+							t.Fatalf("n=%d specials=%v data %d params %d (histogram only): zeros %d, want %d, or tables differ", n, specials, di, pi, za, zb)
+						}
+						continue
+					}
 					if !lanesEqual(&a, &b) {
 						t.Fatalf("n=%d specials=%v data %d params %d: lanes\n%+v\nwant\n%+v", n, specials, di, pi, a, b)
 					}
@@ -445,4 +459,18 @@ func BenchmarkColumnMoments(b *testing.B) {
 		columnMomentsInto(acc, xb, 784)
 		i = (i + 1) % 64
 	}
+}
+
+// BenchmarkObserveFirstBatch is all the statistics of a layer's first
+// batch (a ReLU6 output [N, 32, H, W]): a pass for the moments and range,
+// then the histogram on the grid they give.
+func BenchmarkObserveFirstBatch(b *testing.B) {
+	c := &Collector{perChanWanted: map[string]bool{}}
+	benchSizes(b, func(b *testing.B, x []float32) {
+		t := tensor.From(x, len(x)/(32*1024), 32, 32, 32)
+		benchGBs(b, x, func() {
+			la := &layerAcc{mom: NewMoments(), act: actInfo{kind: ActReLU, hasSat: true, satLo: math.Inf(-1), satHi: 6}, unitKind: 1}
+			c.observe(la, t)
+		})
+	})
 }
