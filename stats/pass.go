@@ -55,6 +55,7 @@ type passParams struct {
 	// magnitude below which a nonzero value takes the float64 formula.
 	f32                 bool
 	histOnly            bool // only the histogram and the ±0 count (the moments are known)
+	noSat               bool // set by binF32 when no value can be saturated (NaN bounds)
 	scale, binLo, binHi float32
 	base                int32
 	tiny                float32
@@ -79,6 +80,7 @@ type passParams struct {
 // the bin edge 0.5) the kernel takes the float64 formula itself, for the
 // whole group of 16, so the counts stay those of binOf bit for bit.
 func (p *passParams) binF32() {
+	p.noSat = p.satLo != p.satLo && p.satHi != p.satHi
 	p.top = HistBins - 1
 	p.f32 = false
 	fr, k := math.Frexp(p.inv)

@@ -43,9 +43,7 @@ func passVec(x []float32, p *passParams, tabs []uint32, l *passLanes) bool {
 	switch passLevel {
 	case passLevelAVX512:
 		q := *p
-		if !q.noHist {
-			q.binF32()
-		}
+		q.binF32()
 		passAVX512(x, &q, t, l)
 	case passLevelAVX2:
 		passAVX2(x, p, t, l)

@@ -5,9 +5,11 @@
 //
 // passGo for len(x) a multiple of 16, 16 values per step. Lane layout:
 // Z0/Z1 Σd (values 0..7 / 8..15 of each group), Z2/Z3 Σd², Z4 min, Z5 max,
-// Z6 ±0 count, Z7 −0 count, Z8 non-finite count, Z9 saturated count.
+// Z6 ±0 count (the histogram loop counts ±0 per block instead, 16·groups
+// less the bins it packed, in the frame word at 8320), Z7 −0 count, Z8
+// non-finite count, Z9 saturated count (skipped with noSat).
 // passParams: sh 0, lo 8, inv 16, satLo 24, satHi 28, noHist 32, f32 33,
-// histOnly 34, scale 36, binLo 40, binHi 44, base 48, tiny 52, top 56. With f32 the bin
+// histOnly 34, noSat 35, scale 36, binLo 40, binHi 44, base 48, tiny 52, top 56. With f32 the bin
 // is taken in float32 (passParams.binF32: Z30 scale, Z29 binLo, Z26 binHi,
 // Z25 base), and by the float64 formula (bin64, its constants read from p)
 // for a group holding a nonzero value below tiny; without, always by bin64.
@@ -19,7 +21,7 @@
 // the last full-width store). Two such frames alternate: the increments of
 // one block's bins are interleaved with the vector work of the next (16 per
 // group), so the scalar increments and the vector arithmetic overlap.
-TEXT ·passAVX512(SB), $8320-48
+TEXT ·passAVX512(SB), $8328-48
 	MOVQ x_base+0(FP), SI
 	MOVQ x_len+8(FP), CX
 	MOVQ p+24(FP), DX
@@ -50,12 +52,16 @@ TEXT ·passAVX512(SB), $8320-48
 	VMOVDQU32 448(BX), Z7
 	VMOVDQU32 512(BX), Z8
 	VMOVDQU32 576(BX), Z9
-	CMPB 32(DX), $0
-	JNE  nohist
 	MOVBQZX 33(DX), R15          // bit 0: bins in float32 (passParams.binF32)
 	MOVBQZX 34(DX), AX           // bit 1: histogram only (histOnly)
 	SHLQ $1, AX
 	ORQ  AX, R15
+	MOVBQZX 35(DX), AX           // bit 2: no saturation rule (noSat)
+	SHLQ $2, AX
+	ORQ  AX, R15
+	MOVQ $0, 8320(SP)            // ±0 count of the histogram loop
+	CMPB 32(DX), $0
+	JNE  nohist
 	VBROADCASTSS 36(DX), Z30     // scale
 	VBROADCASTSS 40(DX), Z29     // binLo
 	VBROADCASTSS 44(DX), Z26     // binHi
@@ -78,8 +84,7 @@ block:
 
 loop:
 	VMOVUPS (SI), Z10
-	VPTESTNMD Z22, Z10, K1       // ±0: (bits & 0x7fffffff) == 0
-	VPADDD Z23, Z6, K1, Z6
+	VPTESTNMD Z22, Z10, K1       // ±0: (bits & 0x7fffffff) == 0 (counted per block)
 	VPANDD Z20, Z10, Z19         // NaN/±Inf: exponent bits all ones
 	VPCMPEQD Z20, Z19, K3
 	TESTQ $2, R15
@@ -89,10 +94,14 @@ loop:
 	VPCMPEQD Z21, Z10, K2        // −0: bits == 0x80000000
 	VPADDD Z23, Z7, K2, Z7
 	VPADDD Z23, Z8, K3, Z8
+	TESTQ $4, R15
+	JNZ  nosat
 	VCMPPS $0x12, Z28, Z10, K4   // v <= satLo (ordered: false for NaN)
 	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
 	KORW K4, K5, K4
 	VPADDD Z23, Z9, K4, Z9
+
+nosat:
 	VCVTPS2PD 0(SI), Z11         // values 0..7 as float64
 	VCVTPS2PD 32(SI), Z12        // values 8..15 (from memory: no shuffle)
 	VSUBPD Z31, Z11, Z13         // d = v − shift
@@ -161,6 +170,13 @@ drainrest:                           // the block before's last bins
 	JMP  drainrest
 
 swap:
+	MOVQ R9, AX                  // ±0 in this block: 16·groups − bins packed
+	SUBQ R13, AX
+	SHRQ $2, AX
+	MOVQ R11, R12
+	SHLQ $4, R12
+	SUBQ AX, R12
+	ADDQ R12, 8320(SP)
 	MOVQ R13, R8                 // this block's bins, counted during the next
 	MOVQ R9, R10
 	XCHGQ R13, R14
@@ -205,10 +221,14 @@ nohist:
 	VPANDD Z20, Z10, Z19         // NaN/±Inf: exponent bits all ones
 	VPCMPEQD Z20, Z19, K3
 	VPADDD Z23, Z8, K3, Z8
+	TESTQ $4, R15
+	JNZ  nohistnosat
 	VCMPPS $0x12, Z28, Z10, K4   // v <= satLo (ordered: false for NaN)
 	VCMPPS $0x1d, Z27, Z10, K5   // v >= satHi
 	KORW K4, K5, K4
 	VPADDD Z23, Z9, K4, Z9
+
+nohistnosat:
 	VCVTPS2PD 0(SI), Z11         // values 0..7 as float64
 	VCVTPS2PD 32(SI), Z12        // values 8..15 (from memory: no shuffle)
 	VSUBPD Z31, Z11, Z13         // d = v − shift
@@ -229,6 +249,8 @@ store:
 	VMOVUPS Z4, 256(BX)
 	VMOVUPS Z5, 320(BX)
 	VMOVDQU32 Z6, 384(BX)
+	MOVQ 8320(SP), AX            // and the histogram loop's ±0 count
+	ADDL AX, 384(BX)
 	VMOVDQU32 Z7, 448(BX)
 	VMOVDQU32 Z8, 512(BX)
 	VMOVDQU32 Z9, 576(BX)

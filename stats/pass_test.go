@@ -17,9 +17,9 @@ func TestPassLayout(t *testing.T) {
 	var p passParams
 	var l passLanes
 	got := []uintptr{unsafe.Offsetof(p.lo), unsafe.Offsetof(p.inv), unsafe.Offsetof(p.satLo), unsafe.Offsetof(p.satHi), unsafe.Offsetof(p.noHist),
-		unsafe.Offsetof(p.f32), unsafe.Offsetof(p.histOnly), unsafe.Offsetof(p.scale), unsafe.Offsetof(p.binLo), unsafe.Offsetof(p.binHi), unsafe.Offsetof(p.base), unsafe.Offsetof(p.tiny), unsafe.Offsetof(p.top),
+		unsafe.Offsetof(p.f32), unsafe.Offsetof(p.histOnly), unsafe.Offsetof(p.noSat), unsafe.Offsetof(p.scale), unsafe.Offsetof(p.binLo), unsafe.Offsetof(p.binHi), unsafe.Offsetof(p.base), unsafe.Offsetof(p.tiny), unsafe.Offsetof(p.top),
 		unsafe.Offsetof(l.q), unsafe.Offsetof(l.mn), unsafe.Offsetof(l.mx), unsafe.Offsetof(l.zeros), unsafe.Offsetof(l.negz), unsafe.Offsetof(l.nonfin), unsafe.Offsetof(l.sat)}
-	want := []uintptr{8, 16, 24, 28, 32, 33, 34, 36, 40, 44, 48, 52, 56, 128, 256, 320, 384, 448, 512, 576}
+	want := []uintptr{8, 16, 24, 28, 32, 33, 34, 35, 36, 40, 44, 48, 52, 56, 128, 256, 320, 384, 448, 512, 576}
 	if !slices.Equal(got, want) {
 		t.Fatalf("offsets %v, want %v", got, want)
 	}
@@ -471,6 +471,21 @@ func BenchmarkObserveFirstBatch(b *testing.B) {
 		benchGBs(b, x, func() {
 			la := &layerAcc{mom: NewMoments(), act: actInfo{kind: ActReLU, hasSat: true, satLo: math.Inf(-1), satHi: 6}, unitKind: 1}
 			c.observe(la, t)
+		})
+	})
+}
+
+// BenchmarkStatsPassNoSatOneCore is the fused pass on one core for a layer
+// with no saturation rule (most layers).
+func BenchmarkStatsPassNoSatOneCore(b *testing.B) {
+	tabs := make([]uint32, histTables*histStride)
+	p := benchParams
+	p.satLo, p.satHi = float32(math.NaN()), float32(math.NaN())
+	benchSizes(b, func(b *testing.B, x []float32) {
+		benchGBs(b, x, func() {
+			for o := 0; o < len(x); o += fastChunk {
+				chunkPass(x[o:min(len(x), o+fastChunk)], p, tabs)
+			}
 		})
 	})
 }
