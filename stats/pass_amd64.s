@@ -84,9 +84,10 @@ block:
 
 loop:
 	VMOVUPS (SI), Z10
-	VPTESTNMD Z22, Z10, K1       // ±0: (bits & 0x7fffffff) == 0 (counted per block)
-	VPANDD Z20, Z10, Z19         // NaN/±Inf: exponent bits all ones
-	VPCMPEQD Z20, Z19, K3
+	VPANDD Z22, Z10, Z19         // |v|'s bits
+	VPTESTNMD Z19, Z19, K1       // ±0: |v| == 0 (counted per block)
+	VPCMPUD $5, Z20, Z19, K3     // NaN/±Inf: |v|'s bits ≥ 0x7f800000
+	KNOTW K1, K6                 // the nonzero values
 	TESTQ $2, R15
 	JNZ  bins                    // histOnly: no moments, extremes or other counts
 	VMINPS Z10, Z4, Z4           // mn = mn < v ? mn : v
@@ -119,9 +120,7 @@ bins:
 	VMINPS Z26, Z15, Z15
 	VCVTPS2DQ.RD_SAE Z15, Z17    // ⌊y⌋
 	VPSUBD Z25, Z17, Z17         // bin = ⌊y⌋ − base
-	VPANDD Z22, Z10, Z16         // |v| < tiny and v ≠ 0: float64 formula
-	VCMPPS.BCST $0x11, 52(DX), Z16, K7
-	KANDNW K7, K1, K7
+	VPCMPUD.BCST $1, 52(DX), Z19, K6, K7 // 0 < |v| < tiny (as bits): float64 formula
 	KORTESTW K7, K7
 	JZ   binned
 
@@ -143,8 +142,7 @@ bin64:
 
 binned:
 	VMOVDQA32 Z24, K3, Z17       // non-finite → junk bin 128
-	KNOTW K1, K6                 // zeros are left out (counted apart)
-	VPCOMPRESSD Z17, K6, Z18     // the other bins, packed
+	VPCOMPRESSD Z17, K6, Z18     // the bins of the nonzero values, packed (zeros are counted apart)
 	VMOVDQU32 Z18, (R9)
 	KMOVW K6, AX
 	POPCNTL AX, AX
