@@ -103,3 +103,43 @@ func BenchmarkAttnObserve(b *testing.B) {
 		})
 	}
 }
+
+// sumSquares, four rows at a time, gives each row's Σ x² bit for bit as the
+// one-row loop it replaces (the token-similarity normalisation).
+func TestSumSquaresSameAsOneRow(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	for _, S := range []int{1, 3, 4, 5, 8, 11} {
+		const D = 37
+		x := make([]float32, S*D)
+		for i := range x {
+			x[i] = float32(rng.NormFloat64() * math.Exp(rng.NormFloat64()*4))
+		}
+		q := make([]float64, S)
+		sumSquares(q, x, D)
+		for s := range S {
+			var want float64
+			for _, v := range x[s*D : (s+1)*D] {
+				want += float64(v) * float64(v)
+			}
+			if math.Float64bits(q[s]) != math.Float64bits(want) {
+				t.Fatalf("S=%d row %d: %v, want %v", S, s, q[s], want)
+			}
+		}
+	}
+}
+
+// BenchmarkResidObserve is the residual-stream statistics of one
+// [8, 128, 256] tensor (the bench transformer's shape at batch 8).
+func BenchmarkResidObserve(b *testing.B) {
+	rng := rand.New(rand.NewPCG(13, 14))
+	x := make([]float32, 8*128*256)
+	for i := range x {
+		x[i] = float32(rng.NormFloat64())
+	}
+	tt := tensor.From(x, 8, 128, 256)
+	r := newResidAcc(256)
+	b.SetBytes(int64(4 * len(x)))
+	for b.Loop() {
+		r.observe(tt)
+	}
+}
