@@ -669,6 +669,7 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	if la.hist.prepare(b.Min, b.Max) {
 		if !hadGrid || la.hist.Exp != e0 || la.hist.Start != s0 {
 			p.lo, p.inv, p.noHist = la.hist.Lo, 1/la.hist.Width, false
+			p.histOnly = true // the moments are b already
 			r.counts = tensorPass(x, p).counts
 		}
 		for i, n := range r.counts {

@@ -42,12 +42,62 @@ const histStride = HistBins + 8
 // passParams are a pass's constants: the shift of the moments, the
 // histogram window (left edge lo and inverse bin width inv), inclusive
 // saturation bounds (a value is saturated when v ≤ satLo or v ≥ satHi; NaN
-// bounds never match) and noHist to skip the histogram. The layout is read
-// by the assembly: keep the field order.
+// bounds never match) and noHist to skip the histogram. The fields after
+// noHist are derived by binF32 for the AVX-512 kernel (callers leave them
+// zero). The layout is read by the assembly: keep the field order.
 type passParams struct {
 	sh, lo, inv  float64
 	satLo, satHi float32
 	noHist       bool
+	// f32 says the window is a power-of-two grid on which the kernel may
+	// take the bin in float32 (binF32): scale = inv, the clamp bounds
+	// binLo = base and binHi = base+127 with base = lo·inv, tiny the
+	// magnitude below which a nonzero value takes the float64 formula.
+	f32                 bool
+	histOnly            bool // only the histogram and the ±0 count (the moments are known)
+	noSat               bool // set by binF32 when no value can be saturated (NaN bounds)
+	scale, binLo, binHi float32
+	base                int32
+	tiny                float32
+	top                 float64 // 127, the float64 formula's upper clamp
+}
+
+// binF32 fills p's derived fields. On a window with inv = 2^k (a float32
+// normal number) and lo = base/inv for an integer base with |base|+128 <
+// 2^24 (every grid of Histogram.prepare whose values are not far from
+// zero relative to its bin width), the bin of a float32 v is
+//
+//	bin = ⌊min(max(v·inv, base), base+127)⌋ − base,
+//
+// computed in float32: v·inv is exact (a power-of-two scale; a result that
+// overflows clamps as the float64 formula does, one that underflows is a
+// value with |v| < tiny below), min, max and ⌊·⌋ of float32 values and
+// integers below 2^24 are exact. It is the float64 formula's bin whenever
+// that formula is exact, i.e. when float64(v) − lo is: true for |v| ≥
+// tiny = 2^-28·|lo| (v normal: |v| + |lo| < 2^29·|v| < 2^53·ulp(v); a value
+// outside the window clamps alike either way). Below tiny (for example a
+// GELU output of −1e-20 beside lo = −0.5, where float64(v) − lo rounds up to
+// the bin edge 0.5) the kernel takes the float64 formula itself, for the
+// whole group of 16, so the counts stay those of binOf bit for bit.
+func (p *passParams) binF32() {
+	p.noSat = p.satLo != p.satLo && p.satHi != p.satHi
+	p.top = HistBins - 1
+	p.f32 = false
+	fr, k := math.Frexp(p.inv)
+	if fr != 0.5 || k-1 < -126 || k-1 > 127 {
+		return
+	}
+	base := p.lo * p.inv
+	if base != math.Trunc(base) || math.Abs(base)+HistBins >= 1<<24 || base/p.inv != p.lo {
+		return
+	}
+	tiny := math.Ldexp(math.Abs(p.lo), -28)
+	t32 := float32(tiny)
+	if float64(t32) < tiny {
+		t32 = math.Nextafter32(t32, float32(math.Inf(1)))
+	}
+	p.f32, p.scale, p.base, p.tiny = true, float32(p.inv), int32(base), t32
+	p.binLo, p.binHi = float32(base), float32(base+HistBins-1)
 }
 
 // passLanes are the per-lane accumulators of a pass (the layout is read by
@@ -79,6 +129,10 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	}
 	satLo, satHi := p.satLo, p.satHi
 	var zeros, negz, nonfins, sat uint32
+	if p.histOnly && !p.noHist {
+		histOnlyGo(x, p, tabs, l)
+		return
+	}
 	for i, v := range x {
 		j := i & 15
 		f := float64(v)
@@ -116,6 +170,26 @@ func passGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
 	l.negz[0] += negz
 	l.nonfin[0] += nonfins
 	l.sat[0] += sat
+}
+
+// histOnlyGo is passGo with histOnly: the count tables and the ±0 count
+// alone, the other lane accumulators left as they are.
+func histOnlyGo(x []float32, p *passParams, tabs []uint32, l *passLanes) {
+	var zeros uint32
+	for i, v := range x {
+		b := math.Float32bits(v)
+		zero := isNil(b & 0x7fffffff)
+		zeros += zero
+		k := binOf(float64(v), p)
+		if isNil(b&0x7f800000^0x7f800000) != 0 {
+			k = HistBins
+		}
+		if zero != 0 {
+			k = HistBins + 1
+		}
+		tabs[(i%histTables)*histStride+k]++
+	}
+	l.zeros[0] += zeros
 }
 
 // isNil is 1 when u is 0, else 0, without a branch.

@@ -42,7 +42,9 @@ func passVec(x []float32, p *passParams, tabs []uint32, l *passLanes) bool {
 	}
 	switch passLevel {
 	case passLevelAVX512:
-		passAVX512(x, p, t, l)
+		q := *p
+		q.binF32()
+		passAVX512(x, &q, t, l)
 	case passLevelAVX2:
 		passAVX2(x, p, t, l)
 	default:

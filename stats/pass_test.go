@@ -17,8 +17,9 @@ func TestPassLayout(t *testing.T) {
 	var p passParams
 	var l passLanes
 	got := []uintptr{unsafe.Offsetof(p.lo), unsafe.Offsetof(p.inv), unsafe.Offsetof(p.satLo), unsafe.Offsetof(p.satHi), unsafe.Offsetof(p.noHist),
+		unsafe.Offsetof(p.f32), unsafe.Offsetof(p.histOnly), unsafe.Offsetof(p.noSat), unsafe.Offsetof(p.scale), unsafe.Offsetof(p.binLo), unsafe.Offsetof(p.binHi), unsafe.Offsetof(p.base), unsafe.Offsetof(p.tiny), unsafe.Offsetof(p.top),
 		unsafe.Offsetof(l.q), unsafe.Offsetof(l.mn), unsafe.Offsetof(l.mx), unsafe.Offsetof(l.zeros), unsafe.Offsetof(l.negz), unsafe.Offsetof(l.nonfin), unsafe.Offsetof(l.sat)}
-	want := []uintptr{8, 16, 24, 28, 32, 128, 256, 320, 384, 448, 512, 576}
+	want := []uintptr{8, 16, 24, 28, 32, 33, 34, 35, 36, 40, 44, 48, 52, 56, 128, 256, 320, 384, 448, 512, 576}
 	if !slices.Equal(got, want) {
 		t.Fatalf("offsets %v, want %v", got, want)
 	}
@@ -96,6 +97,8 @@ func testPassVecMatchesGo(t *testing.T) {
 		{sh: 0, lo: 1e30, inv: 1e-20, satLo: -0.99, satHi: nan},          // window far off
 		{sh: 3, lo: -math.Ldexp(64, -3), inv: 8, satLo: nan, satHi: nan}, // no saturation rule
 		{sh: 0, noHist: true, satLo: nan, satHi: nan},
+		{sh: 0.5, lo: -16, inv: 4, satLo: 0, satHi: 6, histOnly: true},        // tables and ±0 count only
+		{sh: 0, lo: 1e30, inv: 1e-20, satLo: nan, satHi: nan, histOnly: true}, // the same through the float64 bins
 	}
 	lengths := []int{0, 1, 15, 16, 17, 31, 33, 100, 1000, 4099, fastChunk}
 	for _, n := range lengths {
@@ -117,6 +120,18 @@ func testPassVecMatchesGo(t *testing.T) {
 					}
 					pass(x, &p, ta, &a)
 					passGo(x, &p, tb, &b)
+					if p.histOnly {
+						// the AVX2 kernel takes the moments anyway: only the
+						// tables and the ±0 count are defined
+						var za, zb uint32
+						for j := range 16 {
+							za, zb = za+a.zeros[j], zb+b.zeros[j]
+						}
+						if za != zb || !slices.Equal(binTotals(ta), binTotals(tb)) {
+							t.Fatalf("n=%d specials=%v data %d params %d (histogram only): zeros %d, want %d, or tables differ", n, specials, di, pi, za, zb)
+						}
+						continue
+					}
 					if !lanesEqual(&a, &b) {
 						t.Fatalf("n=%d specials=%v data %d params %d: lanes\n%+v\nwant\n%+v", n, specials, di, pi, a, b)
 					}
@@ -125,6 +140,53 @@ func testPassVecMatchesGo(t *testing.T) {
 					}
 				}
 			}
+		}
+	}
+}
+
+// The AVX-512 kernel's float32 bins (passParams.binF32) are the float64
+// formula's also where that formula rounds: a tiny negative value beside a
+// window starting below zero (a GELU output of −1e-20 with lo = −0.5: in
+// float64, −1e-20 + 0.5 rounds to 0.5, the left edge of the bin of 0, one
+// bin above the exact one) and values on and next to bin edges. It fails
+// when the kernel's fall-back for values below tiny is taken out.
+func TestPassF32BinsMatchFloat64(t *testing.T) {
+	if passLevel == passNone {
+		t.Skip("no vector kernel on this CPU")
+	}
+	nan := float32(math.NaN())
+	p := passParams{lo: -0.5, inv: 128, satLo: nan, satHi: nan}
+	q := p
+	q.binF32()
+	if !q.f32 || q.base != -64 {
+		t.Fatalf("window lo −0.5, inv 128: f32 %v base %d, want the float32 bins with base −64", q.f32, q.base)
+	}
+	if binOf(-1e-20, &p) != 64 {
+		t.Fatalf("float64 bin of −1e-20 is %d; this test expects the rounding to the bin of 0 (64)", binOf(-1e-20, &p))
+	}
+	rng := rand.New(rand.NewPCG(5, 6))
+	x := make([]float32, 4096)
+	for i := range x {
+		switch rng.IntN(4) {
+		case 0:
+			x[i] = -float32(math.Ldexp(1+rng.Float64(), -40-rng.IntN(60))) // tiny negative
+		case 1:
+			k := rng.IntN(140) - 70 // a bin edge k/128 or the float32 just beside it
+			e := float32(k) / 128
+			x[i] = []float32{e, math.Nextafter32(e, -1), math.Nextafter32(e, 1)}[rng.IntN(3)]
+		default:
+			x[i] = float32(rng.NormFloat64() * 0.2)
+		}
+	}
+	for _, n := range []int{16, 64 * 16, len(x)} {
+		var a, b passLanes
+		a.init()
+		b.init()
+		ta, tb := make([]uint32, histTables*histStride), make([]uint32, histTables*histStride)
+		pass(x[:n], &p, ta, &a)
+		passGo(x[:n], &p, tb, &b)
+		if !slices.Equal(binTotals(ta), binTotals(tb)) {
+			t.Fatalf("n=%d: bins %v\nwant %v", n, binTotals(ta), binTotals(tb))
 		}
 	}
 }
@@ -397,4 +459,33 @@ func BenchmarkColumnMoments(b *testing.B) {
 		columnMomentsInto(acc, xb, 784)
 		i = (i + 1) % 64
 	}
+}
+
+// BenchmarkObserveFirstBatch is all the statistics of a layer's first
+// batch (a ReLU6 output [N, 32, H, W]): a pass for the moments and range,
+// then the histogram on the grid they give.
+func BenchmarkObserveFirstBatch(b *testing.B) {
+	c := &Collector{perChanWanted: map[string]bool{}}
+	benchSizes(b, func(b *testing.B, x []float32) {
+		t := tensor.From(x, len(x)/(32*1024), 32, 32, 32)
+		benchGBs(b, x, func() {
+			la := &layerAcc{mom: NewMoments(), act: actInfo{kind: ActReLU, hasSat: true, satLo: math.Inf(-1), satHi: 6}, unitKind: 1}
+			c.observe(la, t)
+		})
+	})
+}
+
+// BenchmarkStatsPassNoSatOneCore is the fused pass on one core for a layer
+// with no saturation rule (most layers).
+func BenchmarkStatsPassNoSatOneCore(b *testing.B) {
+	tabs := make([]uint32, histTables*histStride)
+	p := benchParams
+	p.satLo, p.satHi = float32(math.NaN()), float32(math.NaN())
+	benchSizes(b, func(b *testing.B, x []float32) {
+		benchGBs(b, x, func() {
+			for o := 0; o < len(x); o += fastChunk {
+				chunkPass(x[o:min(len(x), o+fastChunk)], p, tabs)
+			}
+		})
+	})
 }

@@ -39,7 +39,8 @@ func newAttnAcc(h int) *attnAcc {
 // observe adds one batch of a (…, Sq, K) tensor whose leading slices are
 // (batch, head) pairs with the head varying fastest: slice n is head
 // n mod heads (rank 4: (B, H, Sq, K); a rank-3 (B·H, Sq, K) tensor as the
-// PyTorch exporter writes it). ln p comes from fastLn (below 1e-9 relative).
+// PyTorch exporter writes it). Σ p ln p comes from rowEnt (float32
+// logarithms on AVX-512: within 1e-6 of Σ p|ln p|, relative).
 func (a *attnAcc) observe(t *tensor.Tensor) bool {
 	x, ok := t.Data.([]float32)
 	if !ok || t.Rank() < 2 {
@@ -56,24 +57,20 @@ func (a *attnAcc) observe(t *tensor.Tensor) bool {
 		p := x[row*K : (row+1)*K]
 		head := (row / Sq) % h
 		i := row % Sq
-		var ent float64
+		// causal: p_j > 0 exactly for j ≤ i (a square tensor's row i)
+		var sum float64
+		var nz int
 		var mx float32
-		nz := 0
-		causal := true
-		for j, v := range p {
-			if v > 0 {
-				nz++
-				ent -= float64(v) * fastLn(v)
-				if j > i {
-					causal = false
-				}
-				if v > mx {
-					mx = v
-				}
-			} else if j <= i {
-				causal = false
-			}
+		causal := false
+		if Sq == K {
+			s1, n1, m1 := rowEnt(p[:i+1])
+			s2, n2, m2 := rowEnt(p[i+1:])
+			sum, nz, mx = s1+s2, n1+n2, max(m1, m2)
+			causal = n1 == i+1 && n2 == 0
+		} else {
+			sum, nz, mx = rowEnt(p)
 		}
+		ent := -sum
 		a.rows[head]++
 		a.maxSum[head] += float64(mx)
 		switch {
@@ -95,6 +92,21 @@ func (a *attnAcc) observe(t *tensor.Tensor) bool {
 		}
 	}
 	return true
+}
+
+// rowEntGo is Σ_{p_j > 0} p_j ln p_j (ln p from fastLn, below 1e-9
+// relative), the number of p_j > 0 and their maximum (0 when none).
+func rowEntGo(p []float32) (sum float64, nz int, mx float32) {
+	for _, v := range p {
+		if v > 0 {
+			nz++
+			sum += float64(v) * fastLn(v)
+			if v > mx {
+				mx = v
+			}
+		}
+	}
+	return sum, nz, mx
 }
 
 // lnTable[k] = ln(1 + k/1024).
@@ -206,13 +218,15 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	}
 	D := r.dim
 	var mx uint32
+	var nan int64
 	hist := r.hist
 	for i := 0; i+D <= len(x); i += D {
 		row, over := x[i:i+D], r.over6[:D]
 		for d, v := range row {
 			b := math.Float32bits(v) & 0x7fffffff
 			if b >= 0x7f800000 {
-				continue // NaN, ±Inf
+				nan++ // NaN, ±Inf
+				continue
 			}
 			hist[b>>17]++
 			if b > mx {
@@ -223,8 +237,7 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 			}
 		}
 	}
-	var nan int64
-	for _, v := range x {
+	for _, v := range x[len(x)/D*D:] { // a partial last row (not in the loop above)
 		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
 			nan++
 		}
@@ -235,15 +248,15 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	if t.Rank() == 3 {
 		S := t.Shape[1]
 		u := make([]float64, D)
+		qs := make([]float64, S)
 		for b := 0; b < t.Shape[0]; b++ {
 			clear(u)
 			cnt := 0
+			seq := x[b*S*D : (b+1)*S*D]
+			sumSquares(qs, seq, D)
 			for s := 0; s < S; s++ {
-				row := x[(b*S+s)*D : (b*S+s+1)*D]
-				var q float64
-				for _, v := range row {
-					q += float64(v) * float64(v)
-				}
+				row := seq[s*D : (s+1)*D]
+				q := qs[s]
 				if q == 0 || math.IsNaN(q) || math.IsInf(q, 0) {
 					continue
 				}
@@ -265,6 +278,32 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 		}
 	}
 	return true
+}
+
+// sumSquares sets q[s] = Σ_d x[s·D+d]² for each row s of x (float64, in
+// order of d). Four rows go at a time: four independent chains of
+// additions instead of one, each summed in the same order as one row alone.
+func sumSquares(q []float64, x []float32, D int) {
+	s := 0
+	for ; s+4 <= len(q); s += 4 {
+		r0, r1, r2, r3 := x[s*D:(s+1)*D], x[(s+1)*D:(s+2)*D], x[(s+2)*D:(s+3)*D], x[(s+3)*D:(s+4)*D]
+		var q0, q1, q2, q3 float64
+		for d := range r0 {
+			v0, v1, v2, v3 := float64(r0[d]), float64(r1[d]), float64(r2[d]), float64(r3[d])
+			q0 += v0 * v0
+			q1 += v1 * v1
+			q2 += v2 * v2
+			q3 += v3 * v3
+		}
+		q[s], q[s+1], q[s+2], q[s+3] = q0, q1, q2, q3
+	}
+	for ; s < len(q); s++ {
+		var qs float64
+		for _, v := range x[s*D : (s+1)*D] {
+			qs += float64(v) * float64(v)
+		}
+		q[s] = qs
+	}
 }
 
 func (r *residAcc) merge(b *residAcc) {
