@@ -32,6 +32,13 @@ func TestConvF32MatchesF64(t *testing.T) {
 		{name: "groups-dilated", attrs: []*loader.Attr{ia("group", 2), ias("dilations", 2, 1), ias("pads", 0, 1, 2, 0)}, in: []*tensor.Tensor{f32(3, 4, 7, 6), f32(4, 2, 2, 3), f32(4)}},
 		{name: "depthwise", attrs: []*loader.Attr{ia("group", 6), ias("strides", 2, 1), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3, 6, 7, 6), f32(6, 1, 3, 3), f32(6)}},
 		{name: "conv1d", attrs: []*loader.Attr{ias("strides", 3)}, in: []*tensor.Tensor{f32(4, 3, 20), f32(2, 3, 4)}},
+		{name: "same3x3", attrs: []*loader.Attr{ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3, 5, 8, 7), f32(6, 5, 3, 3)}},
+		{name: "auto-same-upper-stride2", attrs: []*loader.Attr{sa("auto_pad", "SAME_UPPER"), ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(2, 3, 7, 8), f32(4, 3, 3, 3)}},
+		{name: "auto-same-lower", attrs: []*loader.Attr{sa("auto_pad", "SAME_LOWER")}, in: []*tensor.Tensor{f32(2, 3, 6, 5), f32(4, 3, 2, 2)}},
+		{name: "stride3-dropped-tail", attrs: []*loader.Attr{ias("strides", 3, 2), ias("pads", 0, 1, 0, 0)}, in: []*tensor.Tensor{f32(2, 4, 11, 9), f32(5, 4, 2, 3)}},
+		{name: "pad-beyond-span", attrs: []*loader.Attr{ias("pads", 3, 0, 0, 1)}, in: []*tensor.Tensor{f32(2, 3, 5, 5), f32(4, 3, 2, 2)}},
+		{name: "conv3d-groups", attrs: []*loader.Attr{ia("group", 2), ias("strides", 1, 2, 1), ias("pads", 1, 0, 1, 0, 1, 1)}, in: []*tensor.Tensor{f32(2, 4, 5, 6, 4), f32(6, 2, 3, 2, 3)}},
+		{name: "1x1-stride2", attrs: []*loader.Attr{ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(3, 4, 9, 8), f32(5, 4, 1, 1)}},
 	} {
 		c.op, c.opset = "Conv", 11
 		n := c.node()
@@ -47,6 +54,19 @@ func TestConvF32MatchesF64(t *testing.T) {
 			return o.GIn
 		}
 		fast, ref := run(false), run(true)
+		// the transposed-convolution path for dX is taken wherever its pads are ≥ 0
+		if c.name != "depthwise" {
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, [][]float64{g}, nil)
+			win, err := windowOf(o, c.in[0], outs[0], c.in[1].Shape[2:])
+			if err != nil {
+				t.Fatal(err)
+			}
+			G := int(o.Int("group", 1))
+			dx := newConvDX(win, c.in[1], c.in[1].F32(), c.in[0].Shape[1], c.in[1].Shape[0], G, 11)
+			if (dx == nil) != (c.name == "pad-beyond-span") {
+				t.Errorf("%s: transposed convolution for dX: %v", c.name, dx != nil)
+			}
+		}
 		for i := range ref {
 			if ref[i] == nil {
 				continue

@@ -1,6 +1,10 @@
 package grad
 
-import "fmt"
+import (
+	"fmt"
+
+	"github.com/vitals-health/vitals/tensor"
+)
 
 // Conv: y[n, m, p] = b[m] + Σ_{c,t} w[m, c, t]·x[n, g·C/G + c, tap(p, t)]
 // within group g. With the input unrolled into columns (cols[c·K+t, p]),
@@ -20,18 +24,40 @@ func convVJP(o *Op) error {
 	if W.Rank() != X.Rank() {
 		return fmt.Errorf("Conv weight %v does not fit input %v", W.Shape, X.Shape)
 	}
-	win, err := windowOf(o, X, Y, W.Shape[2:])
-	if err != nil {
-		return err
-	}
 	N, C, M := X.Shape[0], X.Shape[1], W.Shape[0]
 	G := int(o.Int("group", 1))
 	if G < 1 || C%G != 0 || M%G != 0 || W.Shape[1] != C/G {
 		return fmt.Errorf("Conv group %d does not fit input %v and weight %v", G, X.Shape, W.Shape)
 	}
+	cm, err := memoize(o, func(m *convMemo) bool {
+		return m.w == W && sameShape(m.in, X.Shape[1:]) && sameShape(m.out, Y.Shape[1:])
+	}, func() (*convMemo, error) {
+		win, err := windowOf(o, X, Y, W.Shape[2:])
+		if err != nil {
+			return nil, err
+		}
+		m := &convMemo{in: X.Shape[1:], out: Y.Shape[1:], w: W, win: win}
+		if w32, ok := W.Data.([]float32); ok && !(C == G && M == G) {
+			m.dx = newConvDX(win, W, w32, C, M, G, o.Opset)
+		}
+		return m, nil
+	})
+	if err != nil {
+		return err
+	}
+	win := cm.win
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	g := o.G(0)
-	gx, gw, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	_, isF32 := X.Data.([]float32)
+	var gx []float64
+	if cm.dx != nil && isF32 && !forceF64 && o.Needs(0) {
+		if err := cm.dx.apply(win, N, C, M, g, o.GradFull(0)); err != nil {
+			return err
+		}
+	} else {
+		gx = o.Grad(0)
+	}
+	gw, gb := o.Grad(1), o.Grad(2)
 	if gb != nil {
 		for n := 0; n < N; n++ {
 			for m := 0; m < M; m++ {
@@ -49,7 +75,16 @@ func convVJP(o *Op) error {
 	x32, ok1 := X.Data.([]float32)
 	w32, ok2 := W.Data.([]float32)
 	if ok1 && ok2 && !forceF64 {
-		convF32(o, win, N, C, M, G, x32, w32, g, gx, gw)
+		if Cg == 1 && Mg == 1 {
+			depthwiseF32(win, N, C, x32, w32, g, gx, gw)
+			return nil
+		}
+		if gw != nil {
+			convDW(win, N, C, M, G, x32, g, gw)
+		}
+		if gx != nil {
+			convF32(o, win, N, C, M, G, x32, w32, g, gx, nil)
+		}
 		return nil
 	}
 	x, w := o.X(0), o.X(1)
@@ -93,4 +128,13 @@ func convVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// convMemo is what a Conv node's VJP keeps from batch to batch: the window
+// geometry for these shapes and dX's convolution for this weight.
+type convMemo struct {
+	in, out []int // [C, spatial...] of input and output
+	w       *tensor.Tensor
+	win     *window
+	dx      *convDX // nil: dX by columns (float64, depthwise, or no fitting padding)
 }

@@ -22,11 +22,14 @@ type Tape struct {
 	vals       map[string]*tensor.Tensor
 	// step[n] is the main-graph step of node n (subgraph nodes are not recorded).
 	step map[*loader.Node]int
+	// memo keeps what a VJP derives from a node's attributes and shapes
+	// (convolution geometry, reordered weights) from batch to batch.
+	memo map[*loader.Node]any
 }
 
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
-	t := &Tape{plan: p, step: map[*loader.Node]int{}}
+	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}}
 	for i, s := range p.Steps {
 		t.step[s.Node] = i
 	}
@@ -214,6 +217,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		}
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc, op.allocRaw = free.get, free.getRaw
+		op.memo = t.memo
 		if err := callVJP(f, op); err != nil {
 			var nr *noRuleError
 			if errors.As(err, &nr) {
