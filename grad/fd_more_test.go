@@ -2,6 +2,7 @@ package grad
 
 import (
 	"errors"
+	"math"
 	"math/rand"
 	"testing"
 
@@ -107,5 +108,28 @@ func TestNoRuleVariant(t *testing.T) {
 	var nr *noRuleError
 	if !errors.As(err, &nr) || nr.detail != "mode linear" {
 		t.Fatalf("got %v", err)
+	}
+}
+
+// TestReluMaskSpecialValues: the branch-free ReLU rule passes the gradient
+// exactly where the float32 input compares > 0 (Go's own comparison is the
+// reference), on signed zeros, denormals, infinities and NaNs.
+func TestReluMaskSpecialValues(t *testing.T) {
+	x := []float32{0, float32(math.Copysign(0, -1)), 1e-45, -1e-45, 1, -1, float32(math.Inf(1)), float32(math.Inf(-1)),
+		float32(math.NaN()), -float32(math.NaN()), math.Float32frombits(0x7f800001), math.Float32frombits(0xff800001), math.MaxFloat32, -math.MaxFloat32}
+	g := make([]float64, len(x))
+	for i := range g {
+		g[i] = float64(i) + 0.5
+	}
+	dst := make([]float64, len(x))
+	reluMask(dst, g, x)
+	for i, v := range x {
+		want := 0.0
+		if v > 0 {
+			want = g[i]
+		}
+		if dst[i] != want {
+			t.Errorf("x = %v (bits %#x): gradient %v, want %v", v, math.Float32bits(v), dst[i], want)
+		}
 	}
 }

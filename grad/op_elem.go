@@ -160,15 +160,7 @@ func reluVJP(o *Op) error {
 		return nil
 	}
 	if x, ok := o.In[0].Data.([]float32); ok {
-		split(len(x), func(lo, hi int) {
-			for i := lo; i < hi; i++ {
-				if x[i] > 0 {
-					gx[i] = g[i]
-				} else {
-					gx[i] = 0
-				}
-			}
-		})
+		split(len(x), func(lo, hi int) { reluMask(gx[lo:hi], g[lo:hi], x[lo:hi]) })
 		return nil
 	}
 	for i, v := range o.X(0) {
@@ -179,4 +171,19 @@ func reluVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// reluMask writes dst[i] = g[i] where x[i] > 0, else 0, without a branch
+// per element (the sign of x is as good as random: a branch would be
+// mispredicted half the time). dst may be g itself. A float32 x is > 0
+// exactly when its bits b, read as an integer, satisfy 0 < b ≤ 0x7f800000
+// (+Inf; above are the NaNs, −0 and negatives have the sign bit set).
+func reluMask(dst, g []float64, x []float32) {
+	g = g[:len(x)]
+	dst = dst[:len(x)]
+	for i, v := range x {
+		b := int64(int32(math.Float32bits(v)))
+		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63)) // all ones or zero
+		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
+	}
 }
