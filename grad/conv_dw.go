@@ -19,9 +19,10 @@ import "github.com/vitals-health/vitals/gemm"
 func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	NP := N * P
-	// x channel-last, [N, I, C]
-	xcl := scratch(N * I * C)
+	// x channel-last, [N, I, C], then C zeros read by the taps in the padding
+	xcl := scratch(N*I*C + C)
 	defer release(xcl)
+	clear(xcl[N*I*C:])
 	split(N*C*I, func(lo, hi int) {
 		for n := lo / (C * I); n < N && n*C*I < hi; n++ {
 			if n*C*I < lo {
@@ -50,27 +51,49 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 	for grp := 0; grp < G; grp++ {
 		c0 := grp * Cg
 		pack := func(nr int, dst []float32, p0, kc, j0, cols int) {
+			var segs []dwSeg
 			for q := 0; q < cols; q += nr {
 				nv := min(nr, cols-q)
+				// the panel's columns as runs of consecutive channels of one tap
+				segs = segs[:0]
+				for j := 0; j < nv; {
+					col := j0 + q + j
+					t, c := col/Cg, col%Cg
+					l := min(Cg-c, nv-j)
+					segs = append(segs, dwSeg{j: j, t: t, c: c0 + c, l: l})
+					j += l
+				}
 				panel := dst[q*kc : q*kc+nr*kc]
+				n, p := p0/P, p0%P
 				for r := 0; r < kc; r++ {
-					n, p := (p0+r)/P, (p0+r)%P
-					row := panel[r*nr : (r+1)*nr]
 					taps := win.taps[p*K : (p+1)*K]
-					base := n * I
-					for j := 0; j < nv; {
-						col := j0 + q + j
-						t, c := col/Cg, col%Cg
-						l := min(Cg-c, nv-j)
-						if off := taps[t]; off >= 0 {
-							s := ((base+off)*C + c0 + c)
-							copy(row[j:j+l], xcl[s:s+l])
-						} else {
-							clear(row[j : j+l])
+					row := panel[r*nr : (r+1)*nr]
+					for _, sg := range segs {
+						d := row[sg.j : sg.j+sg.l]
+						off := taps[sg.t]
+						if off < 0 {
+							clear(d)
+							continue
 						}
-						j += l
+						src := xcl[(n*I+off)*C+sg.c:]
+						switch len(d) {
+						case 8:
+							*(*[8]float32)(d) = [8]float32(src)
+						case 16:
+							*(*[16]float32)(d) = [16]float32(src)
+						case 32:
+							*(*[32]float32)(d) = [32]float32(src)
+						default:
+							src = src[:len(d)]
+							for i, v := range src {
+								d[i] = v
+							}
+						}
 					}
 					clear(row[nv:])
+					if p++; p == P {
+						n, p = n+1, 0
+					}
 				}
 			}
 		}
@@ -104,3 +127,6 @@ func transposeF32(dst, src []float32, rows, cols int) {
 		}
 	}
 }
+
+// dwSeg is a run of l panel columns from j holding channels c… of tap t.
+type dwSeg struct{ j, t, c, l int }
