@@ -35,6 +35,8 @@ func moreCases(r *rand.Rand) []fdCase {
 			in: T(rnd(r, 1, 2, 3, 3), rnd(r, 2, 2, 3, 3))},
 		{name: "maxpool2d", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 3, 2), ias("strides", 2, 1), ias("pads", 1, 0, 1, 1)),
 			in: T(rnd(r, 2, 2, 5, 4))},
+		{name: "maxpool2x2-stride2-odd", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 2, 2), ias("strides", 2, 2)),
+			in: T(rnd(r, 2, 3, 5, 7))},
 		{name: "maxpool1d-ceil", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 2), ias("strides", 2), ia("ceil_mode", 1)),
 			in: T(rnd(r, 1, 3, 7))},
 		{name: "avgpool-excl", op: "AveragePool", attrs: A(ias("kernel_shape", 3, 3), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)),
@@ -131,5 +133,36 @@ func TestReluMaskSpecialValues(t *testing.T) {
 		if dst[i] != want {
 			t.Errorf("x = %v (bits %#x): gradient %v, want %v", v, math.Float32bits(v), dst[i], want)
 		}
+	}
+}
+
+// TestMaxPool2x2Ties: the 2×2 stride-2 MaxPool rule sends each output's
+// gradient to the first tap (row-major) equal to the recorded maximum, as
+// the general rule does, on float32 planes with ties and a NaN window
+// (reference: the general loop, forced by a 3-D window of the same taps).
+func TestMaxPool2x2Ties(t *testing.T) {
+	nan := float32(math.NaN())
+	x := []float32{1, 1, 0, 2, 5, 3,
+		1, 0, 2, 2, 5, 5,
+		nan, 4, 7, 7, -1, -1,
+		4, nan, 7, 7, -1, -2}
+	y := []float32{1, 2, 5, 4, 7, -1}
+	g := []float64{1, 2, 3, 4, 5, 6}
+	win := &window{in: []int{4, 6}, out: []int{2, 3}, k: []int{2, 2}, stride: []int{2, 2}, dil: []int{1, 1}, padBeg: []int{0, 0}}
+	fillTaps(win)
+	got := make([]float64, len(x))
+	maxPoolPlanes(win, x, y, g, got, 0, 1)
+	want := make([]float64, len(x))
+	w3 := *win
+	w3.in = []int{1, 4, 6} // same taps, not the 2-D fast path
+	w3.out, w3.k, w3.stride, w3.dil, w3.padBeg = []int{1, 2, 3}, []int{1, 2, 2}, []int{1, 2, 2}, []int{1, 1, 1}, []int{0, 0, 0}
+	maxPoolPlanes(&w3, x, y, g, want, 0, 1)
+	for i := range want {
+		if got[i] != want[i] {
+			t.Fatalf("gradient %v, want %v", got, want)
+		}
+	}
+	if want[0] != 1 || want[3] != 2 || want[4] != 3 || want[13] != 4 {
+		t.Fatalf("reference rule gave %v", want)
 	}
 }
