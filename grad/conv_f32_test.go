@@ -38,6 +38,9 @@ func TestConvF32MatchesF64(t *testing.T) {
 		{name: "stride3-dropped-tail", attrs: []*loader.Attr{ias("strides", 3, 2), ias("pads", 0, 1, 0, 0)}, in: []*tensor.Tensor{f32(2, 4, 11, 9), f32(5, 4, 2, 3)}},
 		{name: "pad-beyond-span", attrs: []*loader.Attr{ias("pads", 3, 0, 0, 1)}, in: []*tensor.Tensor{f32(2, 3, 5, 5), f32(4, 3, 2, 2)}},
 		{name: "conv3d-groups", attrs: []*loader.Attr{ia("group", 2), ias("strides", 1, 2, 1), ias("pads", 1, 0, 1, 0, 1, 1)}, in: []*tensor.Tensor{f32(2, 4, 5, 6, 4), f32(6, 2, 3, 2, 3)}},
+		{name: "stride2-dilation2", attrs: []*loader.Attr{ias("strides", 2, 2), ias("dilations", 2, 2), ias("pads", 2, 1, 2, 2)}, in: []*tensor.Tensor{f32(2, 3, 10, 9), f32(4, 3, 3, 3)}},
+		{name: "stride3-dilation2-1d", attrs: []*loader.Attr{ias("strides", 3), ias("dilations", 2), ias("pads", 3, 1)}, in: []*tensor.Tensor{f32(2, 3, 17), f32(4, 3, 5)}},
+		{name: "stride4-kernel2", attrs: []*loader.Attr{ias("strides", 4, 1)}, in: []*tensor.Tensor{f32(2, 3, 11, 5), f32(4, 3, 2, 2)}},
 		{name: "1x1-stride2", attrs: []*loader.Attr{ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(3, 4, 9, 8), f32(5, 4, 1, 1)}},
 	} {
 		c.op, c.opset = "Conv", 11
