@@ -8,37 +8,62 @@ import "github.com/vitals-health/vitals/gemm"
 //	dW[m, c, t] = Σ_{n,p} G[n, m, p]·x[n, c, tap(p, t)]
 //
 // is C = A·B with A = G [Mg, N·P] (float32, m-major) and
-// B[(n,p), (t,c)] = xᶜˡ[n, tap(p, t), c], xᶜˡ being x transposed to
-// [N, I, C]. B is never stored: gemm.SgemmFunc asks for it panel by panel,
-// and each row of a panel is a few contiguous runs of Cg channels copied
-// from xᶜˡ (zeros where the tap falls into the padding). C's columns come in
-// (t, c) order and are put back into W's (c, t) order while summed in
-// float64. The float32 sums over N·P terms add a relative error of order
-// √(N·P)·2⁻²⁴ (about 1e-5 at 64 samples of 32×32), within the 1e-4 of the
-// autograd comparison.
+// B[(n,p), (t,c)] = x̃[n, origin(p) + t·d, c], x̃ being x channel-last with
+// the padding written out as zeros ([N, padded spatial…, C]). B is never
+// stored: gemm.SgemmFunc asks for it panel by panel, and each row of a
+// panel is a few contiguous runs copied from x̃: the columns whose sources
+// follow each other (all the channels of the taps along the last axis
+// when the dilation there is 1 and there is one group: a 3×3 kernel gives
+// three runs of 3·C). C's columns come in (t, c) order and are put back
+// into W's (c, t) order while summed in float64. The float32 sums over N·P
+// terms add a relative error of order √(N·P)·2⁻²⁴ (about 1e-5 at 64 samples
+// of 32×32), within the 1e-4 of the autograd comparison.
 func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	NP := N * P
-	// x channel-last, [N, I, C], then C zeros read by the taps in the padding
-	xcl := scratch(N*I*C + C)
-	defer release(xcl)
-	clear(xcl[N*I*C:])
+	nd := len(win.in)
+	// the padded grid: big enough for every tap of every output position
+	ps := make([]int, nd)
+	for a := range ps {
+		ps[a] = max(win.in[a]+win.padBeg[a], (win.out[a]-1)*win.stride[a]+(win.k[a]-1)*win.dil[a]+1)
+	}
+	Ip := prod(ps)
+	// padAt[i]: input position i on the padded grid; origin[p]: output p's
+	// first tap there; tapOff[t]: tap t's offset from it
+	padAt, origin, tapOff := make([]int, I), make([]int, P), make([]int, K)
+	idx := make([]int, nd)
+	for i := range padAt {
+		for a := range idx {
+			padAt[i] = padAt[i]*ps[a] + idx[a] + win.padBeg[a]
+		}
+		incr(idx, win.in)
+	}
+	clear(idx)
+	for p := range origin {
+		for a := range idx {
+			origin[p] = origin[p]*ps[a] + idx[a]*win.stride[a]
+		}
+		incr(idx, win.out)
+	}
+	clear(idx)
+	for t := range tapOff {
+		for a := range idx {
+			tapOff[t] = tapOff[t]*ps[a] + idx[a]*win.dil[a]
+		}
+		incr(idx, win.k)
+	}
+	xp := scratch(N * Ip * C)
+	defer release(xp)
 	split(N*C*I, func(lo, hi int) {
-		for n := lo / (C * I); n < N && n*C*I < hi; n++ {
-			if n*C*I < lo {
-				continue
-			}
-			transposeF32(xcl[n*I*C:(n+1)*I*C], x[n*C*I:(n+1)*C*I], C, I)
+		for n := (lo + C*I - 1) / (C * I); n < N && n*C*I < hi; n++ {
+			padChannelLast(xp[n*Ip*C:(n+1)*Ip*C], x[n*C*I:(n+1)*C*I], C, I, padAt)
 		}
 	})
 	// G as float32, [M, N·P]
 	a := scratch(M * NP)
 	defer release(a)
 	split(N*M*P, func(lo, hi int) {
-		for pl := lo / max(P, 1); pl < N*M && pl*P < hi; pl++ {
-			if pl*P < lo {
-				continue
-			}
+		for pl := (lo + P - 1) / max(P, 1); pl < N*M && pl*P < hi; pl++ {
 			n, m := pl/M, pl%M
 			dst := a[m*NP+n*P : m*NP+(n+1)*P]
 			for i, v := range g[pl*P : (pl+1)*P] {
@@ -54,40 +79,32 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 			var segs []dwSeg
 			for q := 0; q < cols; q += nr {
 				nv := min(nr, cols-q)
-				// the panel's columns as runs of consecutive channels of one tap
+				// the panel's columns as runs whose sources follow each other
 				segs = segs[:0]
-				for j := 0; j < nv; {
+				for j := 0; j < nv; j++ {
 					col := j0 + q + j
-					t, c := col/Cg, col%Cg
-					l := min(Cg-c, nv-j)
-					segs = append(segs, dwSeg{j: j, t: t, c: c0 + c, l: l})
-					j += l
+					off := tapOff[col/Cg]*C + c0 + col%Cg
+					if l := len(segs); l > 0 && segs[l-1].off+segs[l-1].l == off {
+						segs[l-1].l++
+						continue
+					}
+					segs = append(segs, dwSeg{j: j, off: off, l: 1})
 				}
 				panel := dst[q*kc : q*kc+nr*kc]
 				n, p := p0/P, p0%P
 				for r := 0; r < kc; r++ {
-					taps := win.taps[p*K : (p+1)*K]
+					base := (n*Ip + origin[p]) * C
 					row := panel[r*nr : (r+1)*nr]
 					for _, sg := range segs {
 						d := row[sg.j : sg.j+sg.l]
-						off := taps[sg.t]
-						if off < 0 {
-							clear(d)
-							continue
-						}
-						src := xcl[(n*I+off)*C+sg.c:]
+						src := xp[base+sg.off:]
 						switch len(d) {
-						case 8:
-							*(*[8]float32)(d) = [8]float32(src)
+						case 48:
+							*(*[48]float32)(d) = [48]float32(src)
 						case 16:
 							*(*[16]float32)(d) = [16]float32(src)
-						case 32:
-							*(*[32]float32)(d) = [32]float32(src)
 						default:
-							src = src[:len(d)]
-							for i, v := range src {
-								d[i] = v
-							}
+							copy(d, src[:len(d)])
 						}
 					}
 					clear(row[nv:])
@@ -110,23 +127,23 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 	}
 }
 
-// transposeF32 writes the [rows, cols] matrix src transposed into dst
-// [cols, rows], in 8×8 blocks.
-func transposeF32(dst, src []float32, rows, cols int) {
-	const b = 8
-	for i0 := 0; i0 < rows; i0 += b {
-		i1 := min(rows, i0+b)
-		for j0 := 0; j0 < cols; j0 += b {
-			j1 := min(cols, j0+b)
-			for i := i0; i < i1; i++ {
-				s := src[i*cols : i*cols+cols]
-				for j := j0; j < j1; j++ {
-					dst[j*rows+i] = s[j]
-				}
+// dwSeg is a run of l panel columns from j whose sources start at off
+// (from an output position's first tap on the padded grid).
+type dwSeg struct{ j, off, l int }
+
+// padChannelLast writes one sample x [C, I] channel-last onto the padded
+// grid dst [Ip, C] (zeros off the input), input position i at padAt[i].
+func padChannelLast(dst, x []float32, C, I int, padAt []int) {
+	clear(dst)
+	const b = 16
+	for i0 := 0; i0 < I; i0 += b {
+		i1 := min(I, i0+b)
+		at := padAt[i0:i1]
+		for c := 0; c < C; c++ {
+			src := x[c*I+i0 : c*I+i1]
+			for k, v := range src {
+				dst[at[k]*C+c] = v
 			}
 		}
 	}
 }
-
-// dwSeg is a run of l panel columns from j holding channels c… of tap t.
-type dwSeg struct{ j, t, c, l int }
