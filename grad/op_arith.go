@@ -62,7 +62,11 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 					} else {
 						gi = o.GradFull(i)
 					}
-					if gi == nil {
+					if gi == nil || (s == 1 && &gi[0] == &g[0]) { // G itself: nothing to write
+						continue
+					}
+					if s == 1 {
+						copy(gi, g)
 						continue
 					}
 					split(len(g), func(lo, hi int) {

@@ -25,11 +25,13 @@ type Tape struct {
 	// memo keeps what a VJP derives from a node's attributes and shapes
 	// (convolution geometry, reordered weights) from batch to batch.
 	memo map[*loader.Node]any
+	// free keeps the gradient buffers of one backward pass for the next
+	free *freeList
 }
 
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
-	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}}
+	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}}
 	for i, s := range p.Steps {
 		t.step[s.Node] = i
 	}
@@ -154,7 +156,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		grads[name] = append([]float64(nil), g...)
 	}
 	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
-	free := &freeList{byLen: map[int][][]float64{}}
+	free := t.free
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
@@ -257,7 +259,8 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 	return res, nil
 }
 
-// freeList recycles gradient buffers within one backward pass, by length.
+// freeList recycles gradient buffers, by length, within a backward pass
+// and from one pass to the next.
 type freeList struct{ byLen map[int][][]float64 }
 
 func (f *freeList) get(n int) []float64 {
