@@ -125,3 +125,48 @@ func TestGemmF32MatchesF64(t *testing.T) {
 		}
 	}
 }
+
+// TestMulF32MatchesF64: Mul's in-place float32 rule (same shapes, or one
+// input repeated over trailing axes) against the general float64 rule
+// (checked by finite differences, "mul-bcast") on the same values widened
+// to float64: equal within 1e-12 relative (the products are the same;
+// only the order of the block sums may differ); a shape it does not take
+// falls back and agrees too.
+func TestMulF32MatchesF64(t *testing.T) {
+	r := rand.New(rand.NewSource(13))
+	f32 := func(shape ...int) *tensor.Tensor {
+		x := F64(rnd(r, shape...))
+		y := make([]float32, len(x))
+		for i, v := range x {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	for _, in := range [][]*tensor.Tensor{
+		{f32(2, 3, 4, 5), f32(2, 3, 4, 5)},
+		{f32(2, 3, 4, 5), f32(2, 3, 1, 1)},
+		{f32(2, 3, 1, 1), f32(2, 3, 4, 5)},
+		{f32(3, 4), f32(3, 1)},
+		{f32(2, 3, 4, 5), f32(1, 3, 1, 1)}, // repeats over N too: general rule
+	} {
+		c := fdCase{name: "mul", op: "Mul", opset: 14, in: in}
+		n := c.node()
+		outs := c.forward(t, n, in)
+		g := F64(rnd(r, outs[0].Size()))
+		o := NewOp(&probe.Call{Node: n, In: in, Out: outs, Opset: 14}, [][]float64{append([]float64(nil), g...)}, nil)
+		f, _ := Lookup("", "Mul")
+		if err := f(o); err != nil {
+			t.Fatal(err)
+		}
+		wide := []*tensor.Tensor{tensor.From(F64(in[0]), in[0].Shape...), tensor.From(F64(in[1]), in[1].Shape...)}
+		ref := NewOp(&probe.Call{Node: n, In: wide, Out: []*tensor.Tensor{tensor.From(F64(outs[0]), outs[0].Shape...)}, Opset: 14}, [][]float64{g}, nil)
+		if err := f(ref); err != nil {
+			t.Fatal(err)
+		}
+		for i := range ref.GIn {
+			if e := relErr(o.GIn[i], ref.GIn[i], 0); e > 1e-12 || math.IsNaN(e) {
+				t.Errorf("%v × %v: input %d: relative error %.2e", in[0].Shape, in[1].Shape, i, e)
+			}
+		}
+	}
+}

@@ -108,6 +108,17 @@ func unary(name string, d func(x, y float64, o *Op) float64) {
 		if gx == nil {
 			return nil
 		}
+		x32, ok1 := o.In[0].Data.([]float32)
+		y32, ok2 := o.Out[0].Data.([]float32)
+		if ok1 && ok2 && len(x32) == len(gx) && len(y32) == len(gx) {
+			// float32 values read in place, widened one at a time
+			split(len(gx), func(lo, hi int) {
+				for i := lo; i < hi; i++ {
+					gx[i] = g[i] * d(float64(x32[i]), float64(y32[i]), o)
+				}
+			})
+			return nil
+		}
 		x, y := o.X(0), o.Y(0)
 		split(len(gx), func(lo, hi int) {
 			for i := lo; i < hi; i++ {
