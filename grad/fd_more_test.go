@@ -166,3 +166,37 @@ func TestMaxPool2x2Ties(t *testing.T) {
 		t.Fatalf("reference rule gave %v", want)
 	}
 }
+
+// TestFastUnarySameAsGeneric: the float32 loops of fastUnary give exactly
+// the generic derivative's results (the same float64 expressions), on
+// values around every kink (±3 for HardSwish, where α·x + β crosses 0 and
+// 1 for HardSigmoid), ±0, ±Inf and NaN.
+func TestFastUnarySameAsGeneric(t *testing.T) {
+	x := []float32{-4, -3.0000002, -3, -2.9999998, -2.5, -1, -0.5, float32(math.Copysign(0, -1)), 0, 0.3, 1, 2.4999998, 2.5, 2.5000002, 3, 3.0000002, 7,
+		float32(math.Inf(1)), float32(math.Inf(-1)), float32(math.NaN())}
+	for op := range fastUnary {
+		c := fdCase{name: op, op: op, opset: 14, in: []*tensor.Tensor{tensor.From(append([]float32(nil), x...), len(x))}}
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		g := make([]float64, len(x))
+		for i := range g {
+			g[i] = 1 + float64(i)/7
+		}
+		run := func(slow bool) []float64 {
+			slowUnary = slow
+			defer func() { slowUnary = false }()
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 14}, [][]float64{append([]float64(nil), g...)}, nil)
+			f, _ := Lookup("", op)
+			if err := f(o); err != nil {
+				t.Fatal(err)
+			}
+			return o.GIn[0]
+		}
+		fast, ref := run(false), run(true)
+		for i := range ref {
+			if math.Float64bits(fast[i]) != math.Float64bits(ref[i]) && !(math.IsNaN(fast[i]) && math.IsNaN(ref[i])) {
+				t.Errorf("%s at x = %v: %v, generic rule %v", op, x[i], fast[i], ref[i])
+			}
+		}
+	}
+}

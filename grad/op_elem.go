@@ -112,6 +112,11 @@ func unary(name string, d func(x, y float64, o *Op) float64) {
 		y32, ok2 := o.Out[0].Data.([]float32)
 		if ok1 && ok2 && len(x32) == len(gx) && len(y32) == len(gx) {
 			// float32 values read in place, widened one at a time
+			if f := fastUnary[name]; f != nil && !slowUnary {
+				k := f(o)
+				split(len(gx), func(lo, hi int) { k(gx[lo:hi], g[lo:hi], x32[lo:hi], y32[lo:hi]) })
+				return nil
+			}
 			split(len(gx), func(lo, hi int) {
 				for i := lo; i < hi; i++ {
 					gx[i] = g[i] * d(float64(x32[i]), float64(y32[i]), o)
@@ -197,4 +202,59 @@ func reluMask(dst, g []float64, x []float32) {
 		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63)) // all ones or zero
 		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
 	}
+}
+
+// slowUnary sends every element-wise rule through its generic derivative
+// (tests compare the loops of fastUnary with it).
+var slowUnary = false
+
+// fastUnary holds, for common activations on float32 models, a loop that
+// computes the same float64 expressions as the derivative given to unary
+// but without a call per element, so that simple selects replace branches;
+// given the node, it returns the loop over one part (dst may be g).
+var fastUnary = map[string]func(o *Op) func(dst, g []float64, x, y []float32){
+	"Sigmoid": func(*Op) func(dst, g []float64, x, y []float32) {
+		return func(dst, g []float64, _, y []float32) {
+			for i, v := range y[:len(g)] {
+				yv := float64(v)
+				dst[i] = g[i] * (yv * (1 - yv))
+			}
+		}
+	},
+	"Tanh": func(*Op) func(dst, g []float64, x, y []float32) {
+		return func(dst, g []float64, _, y []float32) {
+			for i, v := range y[:len(g)] {
+				yv := float64(v)
+				dst[i] = g[i] * (1 - yv*yv)
+			}
+		}
+	},
+	"HardSigmoid": func(o *Op) func(dst, g []float64, x, y []float32) {
+		a, b := float64(o.Float("alpha", 0.2)), float64(o.Float("beta", 0.5))
+		return func(dst, g []float64, x, _ []float32) {
+			for i, v := range x[:len(g)] {
+				u := a*float64(v) + b
+				d := a
+				if !(u > 0 && u < 1) {
+					d = 0
+				}
+				dst[i] = g[i] * d
+			}
+		}
+	},
+	"HardSwish": func(*Op) func(dst, g []float64, x, y []float32) {
+		return func(dst, g []float64, x, _ []float32) {
+			for i, v := range x[:len(g)] {
+				xv := float64(v)
+				d := 1.0 // x > 3, and NaN as in the generic rule
+				if xv <= 3 {
+					d = xv/3 + 0.5
+				}
+				if xv < -3 {
+					d = 0
+				}
+				dst[i] = g[i] * d
+			}
+		}
+	},
 }
