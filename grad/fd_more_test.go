@@ -81,6 +81,30 @@ func moreCases(r *rand.Rand) []fdCase {
 		{name: "gatherelements", op: "GatherElements", attrs: A(ia("axis", 1)), in: T(rnd(r, 3, 4), tensor.From([]int64{0, 3, 3, 1, 2, 2}, 3, 2))},
 		{name: "gathernd", op: "GatherND", in: T(rnd(r, 3, 4), tensor.From([]int64{2, 1, 0, 3, 2, 1}, 3, 2))},
 		{name: "resize-nearest", op: "Resize", opset: 13, in: T(rnd(r, 1, 2, 3, 2), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
+		{name: "resize-linear-half-pixel", op: "Resize", opset: 13, attrs: A(sa("mode", "linear")), in: T(rnd(r, 1, 2, 3, 4), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
+		{name: "resize-linear-align-corners-sizes", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "align_corners")),
+			in: T(rnd(r, 1, 1, 3, 4), nil, nil, i64(1, 1, 5, 3))},
+		{name: "resize-linear-asymmetric-down", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "asymmetric")),
+			in: T(rnd(r, 2, 1, 5, 6), nil, tensor.From([]float32{1, 1, 0.6, 0.5}, 4))},
+		{name: "resize-linear-pytorch-half-pixel", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "pytorch_half_pixel")),
+			in: T(rnd(r, 1, 2, 4, 1), nil, nil, i64(1, 2, 7, 1))},
+		{name: "resize-linear-tf-crop-extrapolate", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "tf_crop_and_resize"), fa("extrapolation_value", 2.5)),
+			in: T(rnd(r, 1, 1, 4, 4), tensor.From([]float32{0, 0, -0.2, 0.1, 1, 1, 0.9, 1.3}, 8), nil, i64(1, 1, 3, 5))},
+		{name: "resize-linear-half-pixel-symmetric", op: "Resize", opset: 19, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "half_pixel_symmetric")),
+			in: T(rnd(r, 1, 1, 3, 5), nil, tensor.From([]float32{1, 1, 1.7, 0.8}, 4))},
+		{name: "resize-linear-antialias-down", op: "Resize", opset: 18, attrs: A(sa("mode", "linear"), ia("antialias", 1)),
+			in: T(rnd(r, 1, 1, 7, 8), nil, tensor.From([]float32{1, 1, 0.45, 0.6}, 4))},
+		{name: "resize-cubic-a-0.5", op: "Resize", opset: 13, attrs: A(sa("mode", "cubic"), fa("cubic_coeff_a", -0.5)),
+			in: T(rnd(r, 1, 2, 4, 3), nil, tensor.From([]float32{1, 1, 1.5, 2}, 4))},
+		{name: "resize-cubic-exclude-outside-antialias", op: "Resize", opset: 18, attrs: A(sa("mode", "cubic"), ia("exclude_outside", 1), ia("antialias", 1)),
+			in: T(rnd(r, 1, 1, 6, 7), nil, tensor.From([]float32{1, 1, 0.5, 1.3}, 4))},
+		{name: "resize-nearest-ceil-asymmetric", op: "Resize", opset: 13, attrs: A(sa("nearest_mode", "ceil"), sa("coordinate_transformation_mode", "asymmetric")),
+			in: T(rnd(r, 1, 1, 4, 5), nil, tensor.From([]float32{1, 1, 0.7, 1.9}, 4))},
+		{name: "resize-nearest-round-prefer-ceil-align", op: "Resize", opset: 13, attrs: A(sa("nearest_mode", "round_prefer_ceil"), sa("coordinate_transformation_mode", "align_corners")),
+			in: T(rnd(r, 1, 1, 3, 4), nil, nil, i64(1, 1, 6, 3))},
+		{name: "resize-axes-not-larger", op: "Resize", opset: 18, attrs: A(sa("mode", "linear"), ias("axes", 3, 2), sa("keep_aspect_ratio_policy", "not_larger")),
+			in: T(rnd(r, 1, 2, 4, 5), nil, nil, i64(7, 9))},
+		{name: "upsample-linear", op: "Upsample", opset: 9, attrs: A(sa("mode", "linear")), in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2.5}, 4))},
 		{name: "upsample-nearest", op: "Upsample", opset: 9, in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2}, 4))},
 		{name: "lstm-peephole-bias-state", op: "LSTM", opset: 14, nOut: 3, f32: true, attrs: A(ia("hidden_size", 3)),
 			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 24), 0.5), nil,
@@ -97,18 +121,24 @@ func moreCases(r *rand.Rand) []fdCase {
 	}
 }
 
-// TestNoRuleVariant: Resize in linear mode has no rule; the VJP says so with
+// TestNoRuleVariant: LSTM with a cell clip has no rule; the VJP says so with
 // NoRule (Backward then lists the node as missing instead of failing).
 func TestNoRuleVariant(t *testing.T) {
 	r := rand.New(rand.NewSource(4))
-	c := fdCase{name: "resize-linear", op: "Resize", opset: 13, attrs: []*loader.Attr{sa("mode", "linear")},
-		in: []*tensor.Tensor{rnd(r, 1, 1, 2, 2), nil, tensor.From([]float32{1, 1, 2, 2}, 4)}}
+	c := fdCase{name: "lstm-clip", op: "LSTM", opset: 14, attrs: []*loader.Attr{ia("hidden_size", 2), fa("clip", 3)},
+		in: []*tensor.Tensor{rnd(r, 3, 1, 2), rnd(r, 1, 8, 2), rnd(r, 1, 8, 2)}}
 	n := c.node()
 	outs := c.forward(t, n, c.in)
-	f, _ := Lookup("", "Resize")
-	err := f(NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 13}, [][]float64{make([]float64, outs[0].Size())}, nil))
+	f, _ := Lookup("", "LSTM")
+	g := make([][]float64, len(outs))
+	for i, o := range outs {
+		if o != nil {
+			g[i] = make([]float64, o.Size())
+		}
+	}
+	err := f(NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 14}, g, nil))
 	var nr *noRuleError
-	if !errors.As(err, &nr) || nr.detail != "mode linear" {
+	if !errors.As(err, &nr) || nr.detail != "clip" {
 		t.Fatalf("got %v", err)
 	}
 }
