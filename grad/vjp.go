@@ -48,7 +48,7 @@ func memoize[T any](o *Op, valid func(T) bool, build func() (T, error)) (T, erro
 }
 
 // NoRule is the error of a VJP for an operator variant it has no rule for
-// (Resize in linear mode): Backward lists the node as missing, "Op (detail)".
+// (LSTM with clip): Backward lists the node as missing, "Op (detail)".
 func NoRule(detail string) error { return &noRuleError{detail} }
 
 type noRuleError struct{ detail string }
