@@ -44,6 +44,9 @@ type dxPhase struct {
 	// when they are the same (stride 1)
 	at []int
 	J  int // output positions of the phase
+	// rows, step: for 2-D phases, the phase's rows (J/rows outputs each) land
+	// at at[row's first output], at[…] + step, at[…] + 2·step, …
+	rows, step int
 }
 
 // dxAxis is one axis of a phase: the taps reaching it (ascending), the
@@ -169,6 +172,9 @@ func newDXPhase(win *window, ps []dxAxis, rs []int, w []float32, Cg, Mg, K, G in
 			ph.at[q] = off
 			incr(j, Js)
 		}
+		if nd == 2 && Js[1] > 0 {
+			ph.rows, ph.step = Js[0], win.stride[1]
+		}
 	}
 	ph.node = &loader.Node{Name: "dX", OpType: "Conv", Inputs: []string{"G", "W"}, Outputs: []string{"dX"}, Attrs: map[string]*loader.Attr{
 		"kernel_shape": {Name: "kernel_shape", Kind: loader.AttrInts, Ints: ks},
@@ -239,6 +245,16 @@ func (cd *convDX) apply(win *window, N, C, M int, g, gx []float64) error {
 		split(len(y), func(lo, hi int) {
 			for pl := (lo + ph.J - 1) / ph.J; pl*ph.J < hi && pl < N*C; pl++ {
 				src, dst := y[pl*ph.J:(pl+1)*ph.J], gx[pl*win.I:(pl+1)*win.I]
+				if ph.rows > 0 { // 2-D: rows of the phase, every s-th input column
+					cols := ph.J / ph.rows
+					for jr := 0; jr < ph.rows; jr++ {
+						d := dst[ph.at[jr*cols]:]
+						for jc, v := range src[jr*cols : (jr+1)*cols] {
+							d[jc*ph.step] = float64(v)
+						}
+					}
+					continue
+				}
 				for q, at := range ph.at {
 					dst[at] = float64(src[q])
 				}
