@@ -168,15 +168,17 @@ func TestReluMaskSpecialValues(t *testing.T) {
 
 // TestMaxPool2x2Ties: the 2×2 stride-2 MaxPool rule sends each output's
 // gradient to the first tap (row-major) equal to the recorded maximum, as
-// the general rule does, on float32 planes with ties and a NaN window
+// the general rule does, on float32 planes with ties, −0 against +0 and a
+// NaN maximum
 // (reference: the general loop, forced by a 3-D window of the same taps).
 func TestMaxPool2x2Ties(t *testing.T) {
 	nan := float32(math.NaN())
+	negZero := float32(math.Copysign(0, -1))
 	x := []float32{1, 1, 0, 2, 5, 3,
 		1, 0, 2, 2, 5, 5,
-		nan, 4, 7, 7, -1, -1,
+		nan, 4, 7, 7, negZero, 0,
 		4, nan, 7, 7, -1, -2}
-	y := []float32{1, 2, 5, 4, 7, -1}
+	y := []float32{1, 2, 5, nan, 7, 0} // a NaN maximum; +0 first met as −0
 	g := []float64{1, 2, 3, 4, 5, 6}
 	win := &window{in: []int{4, 6}, out: []int{2, 3}, k: []int{2, 2}, stride: []int{2, 2}, dil: []int{1, 1}, padBeg: []int{0, 0}}
 	fillTaps(win)
@@ -192,7 +194,7 @@ func TestMaxPool2x2Ties(t *testing.T) {
 			t.Fatalf("gradient %v, want %v", got, want)
 		}
 	}
-	if want[0] != 1 || want[3] != 2 || want[4] != 3 || want[13] != 4 {
+	if want[0] != 1 || want[3] != 2 || want[4] != 3 || want[13] != 4 || want[16] != 6 {
 		t.Fatalf("reference rule gave %v", want)
 	}
 }

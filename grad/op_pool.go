@@ -185,9 +185,11 @@ func globalMaxVJP(o *Op) error {
 
 // maxPool2x2Planes is maxPoolPlanes for 2×2 windows of stride 2 without
 // padding (every tap inside the input): the first of the four taps equal
-// to the recorded maximum is chosen by selects rather than branches (which
-// tap holds the maximum is as good as random); an output none of whose taps
-// equals it (NaN) takes the general rule.
+// to the recorded maximum is chosen by integer selects on the values' bits
+// (±0 folded together, so that the comparison is the float one for every
+// number) rather than branches, which tap holds the maximum being as good
+// as random; an output whose chosen tap is not equal to it as a float (a
+// NaN maximum) takes the general rule.
 func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
 	H, W, OH, OW := win.in[0], win.in[1], win.out[0], win.out[1]
 	for pl := p0; pl < p1; pl++ {
@@ -198,15 +200,16 @@ func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float6
 			r1 := r0 + W
 			for ow := 0; ow < OW; ow++ {
 				want := yp[oh*OW+ow]
+				kw := floatKey(want)
 				i := 2 * ow
 				best := r1 + i + 1
-				if xp[r1+i] == want {
+				if floatKey(xp[r1+i]) == kw {
 					best = r1 + i
 				}
-				if xp[r0+i+1] == want {
+				if floatKey(xp[r0+i+1]) == kw {
 					best = r0 + i + 1
 				}
-				if xp[r0+i] == want {
+				if floatKey(xp[r0+i]) == kw {
 					best = r0 + i
 				}
 				if xp[best] != want { // NaN: the general rule
@@ -226,4 +229,14 @@ func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float6
 			}
 		}
 	}
+}
+
+// floatKey is v's bits (widened to float64, exactly) with −0 taken to +0:
+// two numbers (not NaN) have the same key exactly when they compare equal.
+func floatKey[T float32 | float64](v T) uint64 {
+	b := math.Float64bits(float64(v))
+	if b<<1 == 0 {
+		b = 0
+	}
+	return b
 }
