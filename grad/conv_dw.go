@@ -132,18 +132,34 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 type dwSeg struct{ j, off, l int }
 
 // padChannelLast writes one sample x [C, I] channel-last onto the padded
-// grid dst [Ip, C] (zeros off the input), input position i at padAt[i].
+// grid dst [Ip, C] (zeros off the input), input position i at padAt[i]:
+// 8×8 tiles (8 channels of 8 positions) read as 8 runs along the positions
+// and written as 8 runs along the channels, the rest one by one.
 func padChannelLast(dst, x []float32, C, I int, padAt []int) {
 	clear(dst)
-	const b = 16
-	for i0 := 0; i0 < I; i0 += b {
-		i1 := min(I, i0+b)
-		at := padAt[i0:i1]
-		for c := 0; c < C; c++ {
-			src := x[c*I+i0 : c*I+i1]
-			for k, v := range src {
-				dst[at[k]*C+c] = v
+	i8, c8 := I/8*8, C/8*8
+	var t [8][8]float32
+	for i0 := 0; i0 < i8; i0 += 8 {
+		at := padAt[i0 : i0+8]
+		for c0 := 0; c0 < c8; c0 += 8 {
+			for c := 0; c < 8; c++ {
+				t[c] = [8]float32(x[(c0+c)*I+i0:])
 			}
+			for k := 0; k < 8; k++ {
+				d := (*[8]float32)(dst[at[k]*C+c0:])
+				d[0], d[1], d[2], d[3] = t[0][k], t[1][k], t[2][k], t[3][k]
+				d[4], d[5], d[6], d[7] = t[4][k], t[5][k], t[6][k], t[7][k]
+			}
+		}
+		for c := c8; c < C; c++ {
+			for k := 0; k < 8; k++ {
+				dst[at[k]*C+c] = x[c*I+i0+k]
+			}
+		}
+	}
+	for i := i8; i < I; i++ {
+		for c := 0; c < C; c++ {
+			dst[padAt[i]*C+c] = x[c*I+i]
 		}
 	}
 }

@@ -41,6 +41,7 @@ func TestConvF32MatchesF64(t *testing.T) {
 		{name: "stride2-dilation2", attrs: []*loader.Attr{ias("strides", 2, 2), ias("dilations", 2, 2), ias("pads", 2, 1, 2, 2)}, in: []*tensor.Tensor{f32(2, 3, 10, 9), f32(4, 3, 3, 3)}},
 		{name: "stride3-dilation2-1d", attrs: []*loader.Attr{ias("strides", 3), ias("dilations", 2), ias("pads", 3, 1)}, in: []*tensor.Tensor{f32(2, 3, 17), f32(4, 3, 5)}},
 		{name: "stride4-kernel2", attrs: []*loader.Attr{ias("strides", 4, 1)}, in: []*tensor.Tensor{f32(2, 3, 11, 5), f32(4, 3, 2, 2)}},
+		{name: "channels17-tails", attrs: []*loader.Attr{ias("pads", 1, 2, 1, 0)}, in: []*tensor.Tensor{f32(2, 17, 7, 5), f32(9, 17, 3, 3)}},
 		{name: "1x1-stride2", attrs: []*loader.Attr{ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(3, 4, 9, 8), f32(5, 4, 1, 1)}},
 	} {
 		c.op, c.opset = "Conv", 11
