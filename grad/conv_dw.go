@@ -2,25 +2,25 @@ package grad
 
 import "github.com/vitals-health/vitals/gemm"
 
-// dL/dW of a float32 Conv as one product per group over every sample and
-// output position at once, with the input read channel-last:
+// dL/dW of a float32 Conv as one product per group and sample, summed,
+// with the input read channel-last:
 //
 //	dW[m, c, t] = Σ_{n,p} G[n, m, p]·x[n, c, tap(p, t)]
 //
-// is C = A·B with A = G [Mg, N·P] (float32, m-major) and
-// B[(n,p), (t,c)] = x̃[n, origin(p) + t·d, c], x̃ being x channel-last with
-// the padding written out as zeros ([N, padded spatial…, C]). B is never
-// stored: gemm.SgemmFunc asks for it panel by panel, and each row of a
-// panel is a few contiguous runs copied from x̃: the columns whose sources
-// follow each other (all the channels of the taps along the last axis
-// when the dilation there is 1 and there is one group: a 3×3 kernel gives
-// three runs of 3·C). C's columns come in (t, c) order and are put back
-// into W's (c, t) order while summed in float64. The float32 sums over N·P
-// terms add a relative error of order √(N·P)·2⁻²⁴ (about 1e-5 at 64 samples
-// of 32×32), within the 1e-4 of the autograd comparison.
-func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
+// is C = Σ_n A_n·B_n with A_n = G [Mg, P] of sample n (the float32 copy of
+// G that dX's convolution reads too) and B_n[p, (t,c)] = x̃[n, origin(p) +
+// t·d, c], x̃ being x channel-last with the padding written out as zeros
+// ([N, padded spatial…, C]). B is never stored: gemm.SgemmFunc asks for it
+// panel by panel, and each row of a panel is a few contiguous runs copied
+// from x̃: the columns whose sources follow each other (all the channels of
+// the taps along the last axis when the dilation there is 1 and there is
+// one group: a 3×3 kernel gives three runs of 3·C). C's columns come in
+// (t, c) order and are put back into W's (c, t) order while summed in
+// float64. The float32 sums over N·P terms (the samples' products
+// accumulated in C) add a relative error of order √(N·P)·2⁻²⁴ (about 1e-5
+// at 64 samples of 32×32), within the 1e-4 of the autograd comparison.
+func convDW(win *window, N, C, M, G int, x, g32 []float32, gw []float64) {
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
-	NP := N * P
 	nd := len(win.in)
 	// the padded grid: big enough for every tap of every output position
 	ps := make([]int, nd)
@@ -59,22 +59,11 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 			padChannelLast(xp[n*Ip*C:(n+1)*Ip*C], x[n*C*I:(n+1)*C*I], C, I, padAt)
 		}
 	})
-	// G as float32, [M, N·P]
-	a := scratch(M * NP)
-	defer release(a)
-	split(N*M*P, func(lo, hi int) {
-		for pl := (lo + P - 1) / max(P, 1); pl < N*M && pl*P < hi; pl++ {
-			n, m := pl/M, pl%M
-			dst := a[m*NP+n*P : m*NP+(n+1)*P]
-			for i, v := range g[pl*P : (pl+1)*P] {
-				dst[i] = float32(v)
-			}
-		}
-	})
 	dw := scratch(Mg * K * Cg)
 	defer release(dw)
 	for grp := 0; grp < G; grp++ {
 		c0 := grp * Cg
+		n := 0 // the sample whose positions are being packed
 		pack := func(nr int, dst []float32, p0, kc, j0, cols int) {
 			var segs []dwSeg
 			for q := 0; q < cols; q += nr {
@@ -91,8 +80,8 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 					segs = append(segs, dwSeg{j: j, off: off, l: 1})
 				}
 				panel := dst[q*kc : q*kc+nr*kc]
-				n, p := p0/P, p0%P
 				for r := 0; r < kc; r++ {
+					p := p0 + r
 					base := (n*Ip + origin[p]) * C
 					row := panel[r*nr : (r+1)*nr]
 					for _, sg := range segs {
@@ -108,13 +97,17 @@ func convDW(win *window, N, C, M, G int, x []float32, g, gw []float64) {
 						}
 					}
 					clear(row[nv:])
-					if p++; p == P {
-						n, p = n+1, 0
-					}
 				}
 			}
 		}
-		gemm.SgemmFunc(false, Mg, K*Cg, NP, 1, a[grp*Mg*NP:], NP, pack, 0, dw, K*Cg)
+		// one product per sample, summed in dw: A is the sample's G [Mg, P]
+		for n = 0; n < N; n++ {
+			beta := float32(1)
+			if n == 0 {
+				beta = 0
+			}
+			gemm.SgemmFunc(false, Mg, K*Cg, P, 1, g32[(n*M+grp*Mg)*P:], P, pack, beta, dw, K*Cg)
+		}
 		acc := gw[grp*Mg*Cg*K : (grp+1)*Mg*Cg*K]
 		for m := 0; m < Mg; m++ {
 			for t := 0; t < K; t++ {

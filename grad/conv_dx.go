@@ -210,16 +210,9 @@ func ones64(n int) []int64 {
 	return s
 }
 
-// apply writes dX into gx (every element), G being the float64 output
-// gradient [N, M, out...].
-func (cd *convDX) apply(win *window, N, C, M int, g, gx []float64) error {
-	gu := scratch(len(g))
-	defer release(gu)
-	split(len(g), func(lo, hi int) {
-		for i := lo; i < hi; i++ {
-			gu[i] = float32(g[i])
-		}
-	})
+// apply writes dX into gx (every element), gu being the output gradient
+// [N, M, out...] in float32.
+func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64) error {
 	gt := tensor.From(gu, append([]int{N, M}, win.out...)...)
 	if !cd.cover {
 		clear(gx)

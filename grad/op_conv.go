@@ -48,10 +48,26 @@ func convVJP(o *Op) error {
 	win := cm.win
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	g := o.G(0)
-	_, isF32 := X.Data.([]float32)
+	x32, isF32 := X.Data.([]float32)
+	w32, wF32 := W.Data.([]float32)
+	fast := isF32 && wF32 && !forceF64
+	depthwise := Cg == 1 && Mg == 1
+	dxByConv := fast && cm.dx != nil && o.Needs(0)
+	dwByProduct := fast && !depthwise && o.Needs(1)
+	// G in float32, read by dX's convolution and dW's products
+	var g32 []float32
+	if dxByConv || dwByProduct {
+		g32 = scratch(len(g))
+		defer release(g32)
+		split(len(g), func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				g32[i] = float32(g[i])
+			}
+		})
+	}
 	var gx []float64
-	if cm.dx != nil && isF32 && !forceF64 && o.Needs(0) {
-		if err := cm.dx.apply(win, N, C, M, g, o.GradFull(0)); err != nil {
+	if dxByConv {
+		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0)); err != nil {
 			return err
 		}
 	} else {
@@ -68,15 +84,13 @@ func convVJP(o *Op) error {
 	if gx == nil && gw == nil {
 		return nil
 	}
-	x32, ok1 := X.Data.([]float32)
-	w32, ok2 := W.Data.([]float32)
-	if ok1 && ok2 && !forceF64 {
-		if Cg == 1 && Mg == 1 {
+	if fast {
+		if depthwise {
 			depthwiseF32(win, N, C, x32, w32, g, gx, gw)
 			return nil
 		}
 		if gw != nil {
-			convDW(win, N, C, M, G, x32, g, gw)
+			convDW(win, N, C, M, G, x32, g32, gw)
 		}
 		if gx != nil {
 			convF32(o, win, N, C, M, G, x32, w32, g, gx, nil)
