@@ -32,6 +32,17 @@ func TestConvF32MatchesF64(t *testing.T) {
 		{name: "groups-dilated", attrs: []*loader.Attr{ia("group", 2), ias("dilations", 2, 1), ias("pads", 0, 1, 2, 0)}, in: []*tensor.Tensor{f32(3, 4, 7, 6), f32(4, 2, 2, 3), f32(4)}},
 		{name: "depthwise", attrs: []*loader.Attr{ia("group", 6), ias("strides", 2, 1), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3, 6, 7, 6), f32(6, 1, 3, 3), f32(6)}},
 		{name: "conv1d", attrs: []*loader.Attr{ias("strides", 3)}, in: []*tensor.Tensor{f32(4, 3, 20), f32(2, 3, 4)}},
+		{name: "same3x3", attrs: []*loader.Attr{ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3, 5, 8, 7), f32(6, 5, 3, 3)}},
+		{name: "auto-same-upper-stride2", attrs: []*loader.Attr{sa("auto_pad", "SAME_UPPER"), ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(2, 3, 7, 8), f32(4, 3, 3, 3)}},
+		{name: "auto-same-lower", attrs: []*loader.Attr{sa("auto_pad", "SAME_LOWER")}, in: []*tensor.Tensor{f32(2, 3, 6, 5), f32(4, 3, 2, 2)}},
+		{name: "stride3-dropped-tail", attrs: []*loader.Attr{ias("strides", 3, 2), ias("pads", 0, 1, 0, 0)}, in: []*tensor.Tensor{f32(2, 4, 11, 9), f32(5, 4, 2, 3)}},
+		{name: "pad-beyond-span", attrs: []*loader.Attr{ias("pads", 3, 0, 0, 1)}, in: []*tensor.Tensor{f32(2, 3, 5, 5), f32(4, 3, 2, 2)}},
+		{name: "conv3d-groups", attrs: []*loader.Attr{ia("group", 2), ias("strides", 1, 2, 1), ias("pads", 1, 0, 1, 0, 1, 1)}, in: []*tensor.Tensor{f32(2, 4, 5, 6, 4), f32(6, 2, 3, 2, 3)}},
+		{name: "stride2-dilation2", attrs: []*loader.Attr{ias("strides", 2, 2), ias("dilations", 2, 2), ias("pads", 2, 1, 2, 2)}, in: []*tensor.Tensor{f32(2, 3, 10, 9), f32(4, 3, 3, 3)}},
+		{name: "stride3-dilation2-1d", attrs: []*loader.Attr{ias("strides", 3), ias("dilations", 2), ias("pads", 3, 1)}, in: []*tensor.Tensor{f32(2, 3, 17), f32(4, 3, 5)}},
+		{name: "stride4-kernel2", attrs: []*loader.Attr{ias("strides", 4, 1)}, in: []*tensor.Tensor{f32(2, 3, 11, 5), f32(4, 3, 2, 2)}},
+		{name: "channels17-tails", attrs: []*loader.Attr{ias("pads", 1, 2, 1, 0)}, in: []*tensor.Tensor{f32(2, 17, 7, 5), f32(9, 17, 3, 3)}},
+		{name: "1x1-stride2", attrs: []*loader.Attr{ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(3, 4, 9, 8), f32(5, 4, 1, 1)}},
 	} {
 		c.op, c.opset = "Conv", 11
 		n := c.node()
@@ -47,6 +58,19 @@ func TestConvF32MatchesF64(t *testing.T) {
 			return o.GIn
 		}
 		fast, ref := run(false), run(true)
+		// the transposed-convolution path for dX is taken wherever its pads are ≥ 0
+		if c.name != "depthwise" {
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, [][]float64{g}, nil)
+			win, err := windowOf(o, c.in[0], outs[0], c.in[1].Shape[2:])
+			if err != nil {
+				t.Fatal(err)
+			}
+			G := int(o.Int("group", 1))
+			dx := newConvDX(win, c.in[1], c.in[1].F32(), c.in[0].Shape[1], c.in[1].Shape[0], G, 11)
+			if (dx == nil) != (c.name == "pad-beyond-span") {
+				t.Errorf("%s: transposed convolution for dX: %v", c.name, dx != nil)
+			}
+		}
 		for i := range ref {
 			if ref[i] == nil {
 				continue
@@ -98,6 +122,51 @@ func TestGemmF32MatchesF64(t *testing.T) {
 		for i := range ref {
 			if e := relErr(fast[i], ref[i], 0); ref[i] == nil || e > 1e-5 || math.IsNaN(e) {
 				t.Errorf("trans %v: input %d: relative error %.2e", tr, i, e)
+			}
+		}
+	}
+}
+
+// TestMulF32MatchesF64: Mul's in-place float32 rule (same shapes, or one
+// input repeated over trailing axes) against the general float64 rule
+// (checked by finite differences, "mul-bcast") on the same values widened
+// to float64: equal within 1e-12 relative (the products are the same;
+// only the order of the block sums may differ); a shape it does not take
+// falls back and agrees too.
+func TestMulF32MatchesF64(t *testing.T) {
+	r := rand.New(rand.NewSource(13))
+	f32 := func(shape ...int) *tensor.Tensor {
+		x := F64(rnd(r, shape...))
+		y := make([]float32, len(x))
+		for i, v := range x {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	for _, in := range [][]*tensor.Tensor{
+		{f32(2, 3, 4, 5), f32(2, 3, 4, 5)},
+		{f32(2, 3, 4, 5), f32(2, 3, 1, 1)},
+		{f32(2, 3, 1, 1), f32(2, 3, 4, 5)},
+		{f32(3, 4), f32(3, 1)},
+		{f32(2, 3, 4, 5), f32(1, 3, 1, 1)}, // repeats over N too: general rule
+	} {
+		c := fdCase{name: "mul", op: "Mul", opset: 14, in: in}
+		n := c.node()
+		outs := c.forward(t, n, in)
+		g := F64(rnd(r, outs[0].Size()))
+		o := NewOp(&probe.Call{Node: n, In: in, Out: outs, Opset: 14}, [][]float64{append([]float64(nil), g...)}, nil)
+		f, _ := Lookup("", "Mul")
+		if err := f(o); err != nil {
+			t.Fatal(err)
+		}
+		wide := []*tensor.Tensor{tensor.From(F64(in[0]), in[0].Shape...), tensor.From(F64(in[1]), in[1].Shape...)}
+		ref := NewOp(&probe.Call{Node: n, In: wide, Out: []*tensor.Tensor{tensor.From(F64(outs[0]), outs[0].Shape...)}, Opset: 14}, [][]float64{g}, nil)
+		if err := f(ref); err != nil {
+			t.Fatal(err)
+		}
+		for i := range ref.GIn {
+			if e := relErr(o.GIn[i], ref.GIn[i], 0); e > 1e-12 || math.IsNaN(e) {
+				t.Errorf("%v × %v: input %d: relative error %.2e", in[0].Shape, in[1].Shape, i, e)
 			}
 		}
 	}

@@ -2,6 +2,7 @@ package grad
 
 import (
 	"errors"
+	"math"
 	"math/rand"
 	"testing"
 
@@ -34,6 +35,8 @@ func moreCases(r *rand.Rand) []fdCase {
 			in: T(rnd(r, 1, 2, 3, 3), rnd(r, 2, 2, 3, 3))},
 		{name: "maxpool2d", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 3, 2), ias("strides", 2, 1), ias("pads", 1, 0, 1, 1)),
 			in: T(rnd(r, 2, 2, 5, 4))},
+		{name: "maxpool2x2-stride2-odd", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 2, 2), ias("strides", 2, 2)),
+			in: T(rnd(r, 2, 3, 5, 7))},
 		{name: "maxpool1d-ceil", op: "MaxPool", opset: 12, attrs: A(ias("kernel_shape", 2), ias("strides", 2), ia("ceil_mode", 1)),
 			in: T(rnd(r, 1, 3, 7))},
 		{name: "avgpool-excl", op: "AveragePool", attrs: A(ias("kernel_shape", 3, 3), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)),
@@ -78,6 +81,30 @@ func moreCases(r *rand.Rand) []fdCase {
 		{name: "gatherelements", op: "GatherElements", attrs: A(ia("axis", 1)), in: T(rnd(r, 3, 4), tensor.From([]int64{0, 3, 3, 1, 2, 2}, 3, 2))},
 		{name: "gathernd", op: "GatherND", in: T(rnd(r, 3, 4), tensor.From([]int64{2, 1, 0, 3, 2, 1}, 3, 2))},
 		{name: "resize-nearest", op: "Resize", opset: 13, in: T(rnd(r, 1, 2, 3, 2), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
+		{name: "resize-linear-half-pixel", op: "Resize", opset: 13, attrs: A(sa("mode", "linear")), in: T(rnd(r, 1, 2, 3, 4), nil, tensor.From([]float32{1, 1, 2, 1.5}, 4))},
+		{name: "resize-linear-align-corners-sizes", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "align_corners")),
+			in: T(rnd(r, 1, 1, 3, 4), nil, nil, i64(1, 1, 5, 3))},
+		{name: "resize-linear-asymmetric-down", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "asymmetric")),
+			in: T(rnd(r, 2, 1, 5, 6), nil, tensor.From([]float32{1, 1, 0.6, 0.5}, 4))},
+		{name: "resize-linear-pytorch-half-pixel", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "pytorch_half_pixel")),
+			in: T(rnd(r, 1, 2, 4, 1), nil, nil, i64(1, 2, 7, 1))},
+		{name: "resize-linear-tf-crop-extrapolate", op: "Resize", opset: 13, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "tf_crop_and_resize"), fa("extrapolation_value", 2.5)),
+			in: T(rnd(r, 1, 1, 4, 4), tensor.From([]float32{0, 0, -0.2, 0.1, 1, 1, 0.9, 1.3}, 8), nil, i64(1, 1, 3, 5))},
+		{name: "resize-linear-half-pixel-symmetric", op: "Resize", opset: 19, attrs: A(sa("mode", "linear"), sa("coordinate_transformation_mode", "half_pixel_symmetric")),
+			in: T(rnd(r, 1, 1, 3, 5), nil, tensor.From([]float32{1, 1, 1.7, 0.8}, 4))},
+		{name: "resize-linear-antialias-down", op: "Resize", opset: 18, attrs: A(sa("mode", "linear"), ia("antialias", 1)),
+			in: T(rnd(r, 1, 1, 7, 8), nil, tensor.From([]float32{1, 1, 0.45, 0.6}, 4))},
+		{name: "resize-cubic-a-0.5", op: "Resize", opset: 13, attrs: A(sa("mode", "cubic"), fa("cubic_coeff_a", -0.5)),
+			in: T(rnd(r, 1, 2, 4, 3), nil, tensor.From([]float32{1, 1, 1.5, 2}, 4))},
+		{name: "resize-cubic-exclude-outside-antialias", op: "Resize", opset: 18, attrs: A(sa("mode", "cubic"), ia("exclude_outside", 1), ia("antialias", 1)),
+			in: T(rnd(r, 1, 1, 6, 7), nil, tensor.From([]float32{1, 1, 0.5, 1.3}, 4))},
+		{name: "resize-nearest-ceil-asymmetric", op: "Resize", opset: 13, attrs: A(sa("nearest_mode", "ceil"), sa("coordinate_transformation_mode", "asymmetric")),
+			in: T(rnd(r, 1, 1, 4, 5), nil, tensor.From([]float32{1, 1, 0.7, 1.9}, 4))},
+		{name: "resize-nearest-round-prefer-ceil-align", op: "Resize", opset: 13, attrs: A(sa("nearest_mode", "round_prefer_ceil"), sa("coordinate_transformation_mode", "align_corners")),
+			in: T(rnd(r, 1, 1, 3, 4), nil, nil, i64(1, 1, 6, 3))},
+		{name: "resize-axes-not-larger", op: "Resize", opset: 18, attrs: A(sa("mode", "linear"), ias("axes", 3, 2), sa("keep_aspect_ratio_policy", "not_larger")),
+			in: T(rnd(r, 1, 2, 4, 5), nil, nil, i64(7, 9))},
+		{name: "upsample-linear", op: "Upsample", opset: 9, attrs: A(sa("mode", "linear")), in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2.5}, 4))},
 		{name: "upsample-nearest", op: "Upsample", opset: 9, in: T(rnd(r, 1, 1, 2, 3), tensor.From([]float32{1, 1, 2, 2}, 4))},
 		{name: "lstm-peephole-bias-state", op: "LSTM", opset: 14, nOut: 3, f32: true, attrs: A(ia("hidden_size", 3)),
 			in: T(scaled(rnd(r, 4, 2, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 12, 3), 0.5), scaled(rnd(r, 1, 24), 0.5), nil,
@@ -94,18 +121,114 @@ func moreCases(r *rand.Rand) []fdCase {
 	}
 }
 
-// TestNoRuleVariant: Resize in linear mode has no rule; the VJP says so with
+// TestNoRuleVariant: LSTM with a cell clip has no rule; the VJP says so with
 // NoRule (Backward then lists the node as missing instead of failing).
 func TestNoRuleVariant(t *testing.T) {
 	r := rand.New(rand.NewSource(4))
-	c := fdCase{name: "resize-linear", op: "Resize", opset: 13, attrs: []*loader.Attr{sa("mode", "linear")},
-		in: []*tensor.Tensor{rnd(r, 1, 1, 2, 2), nil, tensor.From([]float32{1, 1, 2, 2}, 4)}}
+	c := fdCase{name: "lstm-clip", op: "LSTM", opset: 14, attrs: []*loader.Attr{ia("hidden_size", 2), fa("clip", 3)},
+		in: []*tensor.Tensor{rnd(r, 3, 1, 2), rnd(r, 1, 8, 2), rnd(r, 1, 8, 2)}}
 	n := c.node()
 	outs := c.forward(t, n, c.in)
-	f, _ := Lookup("", "Resize")
-	err := f(NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 13}, [][]float64{make([]float64, outs[0].Size())}, nil))
+	f, _ := Lookup("", "LSTM")
+	g := make([][]float64, len(outs))
+	for i, o := range outs {
+		if o != nil {
+			g[i] = make([]float64, o.Size())
+		}
+	}
+	err := f(NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 14}, g, nil))
 	var nr *noRuleError
-	if !errors.As(err, &nr) || nr.detail != "mode linear" {
+	if !errors.As(err, &nr) || nr.detail != "clip" {
 		t.Fatalf("got %v", err)
+	}
+}
+
+// TestReluMaskSpecialValues: the branch-free ReLU rule passes the gradient
+// exactly where the float32 input compares > 0 (Go's own comparison is the
+// reference), on signed zeros, denormals, infinities and NaNs.
+func TestReluMaskSpecialValues(t *testing.T) {
+	x := []float32{0, float32(math.Copysign(0, -1)), 1e-45, -1e-45, 1, -1, float32(math.Inf(1)), float32(math.Inf(-1)),
+		float32(math.NaN()), -float32(math.NaN()), math.Float32frombits(0x7f800001), math.Float32frombits(0xff800001), math.MaxFloat32, -math.MaxFloat32}
+	g := make([]float64, len(x))
+	for i := range g {
+		g[i] = float64(i) + 0.5
+	}
+	dst := make([]float64, len(x))
+	reluMask(dst, g, x)
+	for i, v := range x {
+		want := 0.0
+		if v > 0 {
+			want = g[i]
+		}
+		if dst[i] != want {
+			t.Errorf("x = %v (bits %#x): gradient %v, want %v", v, math.Float32bits(v), dst[i], want)
+		}
+	}
+}
+
+// TestMaxPool2x2Ties: the 2×2 stride-2 MaxPool rule sends each output's
+// gradient to the first tap (row-major) equal to the recorded maximum, as
+// the general rule does, on float32 planes with ties, −0 against +0 and a
+// NaN maximum
+// (reference: the general loop, forced by a 3-D window of the same taps).
+func TestMaxPool2x2Ties(t *testing.T) {
+	nan := float32(math.NaN())
+	negZero := float32(math.Copysign(0, -1))
+	x := []float32{1, 1, 0, 2, 5, 3,
+		1, 0, 2, 2, 5, 5,
+		nan, 4, 7, 7, negZero, 0,
+		4, nan, 7, 7, -1, -2}
+	y := []float32{1, 2, 5, nan, 7, 0} // a NaN maximum; +0 first met as −0
+	g := []float64{1, 2, 3, 4, 5, 6}
+	win := &window{in: []int{4, 6}, out: []int{2, 3}, k: []int{2, 2}, stride: []int{2, 2}, dil: []int{1, 1}, padBeg: []int{0, 0}}
+	fillTaps(win)
+	got := make([]float64, len(x))
+	maxPoolPlanes(win, x, y, g, got, 0, 1)
+	want := make([]float64, len(x))
+	w3 := *win
+	w3.in = []int{1, 4, 6} // same taps, not the 2-D fast path
+	w3.out, w3.k, w3.stride, w3.dil, w3.padBeg = []int{1, 2, 3}, []int{1, 2, 2}, []int{1, 2, 2}, []int{1, 1, 1}, []int{0, 0, 0}
+	maxPoolPlanes(&w3, x, y, g, want, 0, 1)
+	for i := range want {
+		if got[i] != want[i] {
+			t.Fatalf("gradient %v, want %v", got, want)
+		}
+	}
+	if want[0] != 1 || want[3] != 2 || want[4] != 3 || want[13] != 4 || want[16] != 6 {
+		t.Fatalf("reference rule gave %v", want)
+	}
+}
+
+// TestFastUnarySameAsGeneric: the float32 loops of fastUnary give exactly
+// the generic derivative's results (the same float64 expressions), on
+// values around every kink (±3 for HardSwish, where α·x + β crosses 0 and
+// 1 for HardSigmoid), ±0, ±Inf and NaN.
+func TestFastUnarySameAsGeneric(t *testing.T) {
+	x := []float32{-4, -3.0000002, -3, -2.9999998, -2.5, -1, -0.5, float32(math.Copysign(0, -1)), 0, 0.3, 1, 2.4999998, 2.5, 2.5000002, 3, 3.0000002, 7,
+		float32(math.Inf(1)), float32(math.Inf(-1)), float32(math.NaN())}
+	for op := range fastUnary {
+		c := fdCase{name: op, op: op, opset: 14, in: []*tensor.Tensor{tensor.From(append([]float32(nil), x...), len(x))}}
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		g := make([]float64, len(x))
+		for i := range g {
+			g[i] = 1 + float64(i)/7
+		}
+		run := func(slow bool) []float64 {
+			slowUnary = slow
+			defer func() { slowUnary = false }()
+			o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 14}, [][]float64{append([]float64(nil), g...)}, nil)
+			f, _ := Lookup("", op)
+			if err := f(o); err != nil {
+				t.Fatal(err)
+			}
+			return o.GIn[0]
+		}
+		fast, ref := run(false), run(true)
+		for i := range ref {
+			if math.Float64bits(fast[i]) != math.Float64bits(ref[i]) && !(math.IsNaN(fast[i]) && math.IsNaN(ref[i])) {
+				t.Errorf("%s at x = %v: %v, generic rule %v", op, x[i], fast[i], ref[i])
+			}
+		}
 	}
 }

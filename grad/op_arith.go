@@ -62,7 +62,11 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 					} else {
 						gi = o.GradFull(i)
 					}
-					if gi == nil {
+					if gi == nil || (s == 1 && &gi[0] == &g[0]) { // G itself: nothing to write
+						continue
+					}
+					if s == 1 {
+						copy(gi, g)
 						continue
 					}
 					split(len(g), func(lo, hi int) {
@@ -81,6 +85,9 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 					gi[m[k]] += s * v
 				}
 			}
+			return nil
+		}
+		if name == "Mul" && mulF32(o, g) {
 			return nil
 		}
 		a, b, y := o.X(0), o.X(1), o.Y(0)
@@ -148,4 +155,98 @@ func whereVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// mulF32 is Mul's rule on float32 inputs of which at most one broadcasts,
+// and only over trailing axes (a per-channel scale [N, C, 1, 1] against
+// [N, C, H, W]): with f the full input, r the repeated one and L the length
+// of the block each element of r covers,
+//
+//	dL/df[k] = G[k]·r[k/L],  dL/dr[j] = Σ_{k in block j} G[k]·f[k],
+//
+// the values read in place. It reports false (nothing done) otherwise.
+func mulF32(o *Op, g []float64) bool {
+	A, B, Y := o.In[0], o.In[1], o.Out[0]
+	a, ok1 := A.Data.([]float32)
+	b, ok2 := B.Data.([]float32)
+	if !ok1 || !ok2 || len(g) != Y.Size() {
+		return false
+	}
+	la, okA := trailingRepeat(A.Shape, Y.Shape)
+	lb, okB := trailingRepeat(B.Shape, Y.Shape)
+	if !okA || !okB || (la > 1 && lb > 1) {
+		return false
+	}
+	fi, ri, f, r, L := 0, 1, a, b, lb // the full input first
+	if la > 1 {
+		fi, ri, f, r, L = 1, 0, b, a, la
+	}
+	gf, gr := o.GradFull(fi), o.Grad(ri)
+	if L == 1 { // same shapes
+		if gr != nil {
+			for k, v := range g {
+				gr[k] = v * float64(f[k])
+			}
+		}
+		if gf != nil {
+			for k, v := range g {
+				gf[k] = v * float64(r[k])
+			}
+		}
+		return true
+	}
+	for j := range r {
+		blk := g[j*L : (j+1)*L]
+		if gr != nil {
+			fb := f[j*L : (j+1)*L]
+			s := 0.0
+			for k, v := range blk {
+				s += v * float64(fb[k])
+			}
+			gr[j] += s
+		}
+		if gf != nil {
+			rv := float64(r[j])
+			d := gf[j*L : (j+1)*L]
+			for k, v := range blk {
+				d[k] = v * rv
+			}
+		}
+	}
+	return true
+}
+
+// trailingRepeat reports whether a value of shape in broadcast to out
+// repeats each element over a block of consecutive output positions only
+// (in is out's leading axes followed by 1s, after numpy's left padding),
+// and the block's length (1: the same shape).
+func trailingRepeat(in, out []int) (int, bool) {
+	if len(in) > len(out) {
+		return 0, false
+	}
+	pad := len(out) - len(in)
+	if prod(in) == 0 || prod(out) == 0 {
+		return 0, false
+	}
+	// leading padded axes broadcast unless out is 1 there
+	a := 0 // axes [0, a) match out
+	for ; a < len(out); a++ {
+		d := 1
+		if a >= pad {
+			d = in[a-pad]
+		}
+		if d != out[a] {
+			break
+		}
+	}
+	for k := a; k < len(out); k++ {
+		d := 1
+		if k >= pad {
+			d = in[k-pad]
+		}
+		if d != 1 {
+			return 0, false
+		}
+	}
+	return prod(out[a:]), true
 }

@@ -1,6 +1,10 @@
 package grad
 
-import "fmt"
+import (
+	"fmt"
+
+	"github.com/vitals-health/vitals/tensor"
+)
 
 // Conv: y[n, m, p] = b[m] + Σ_{c,t} w[m, c, t]·x[n, g·C/G + c, tap(p, t)]
 // within group g. With the input unrolled into columns (cols[c·K+t, p]),
@@ -20,36 +24,77 @@ func convVJP(o *Op) error {
 	if W.Rank() != X.Rank() {
 		return fmt.Errorf("Conv weight %v does not fit input %v", W.Shape, X.Shape)
 	}
-	win, err := windowOf(o, X, Y, W.Shape[2:])
-	if err != nil {
-		return err
-	}
 	N, C, M := X.Shape[0], X.Shape[1], W.Shape[0]
 	G := int(o.Int("group", 1))
 	if G < 1 || C%G != 0 || M%G != 0 || W.Shape[1] != C/G {
 		return fmt.Errorf("Conv group %d does not fit input %v and weight %v", G, X.Shape, W.Shape)
 	}
+	cm, err := memoize(o, func(m *convMemo) bool {
+		return m.w == W && sameShape(m.in, X.Shape[1:]) && sameShape(m.out, Y.Shape[1:])
+	}, func() (*convMemo, error) {
+		win, err := windowOf(o, X, Y, W.Shape[2:])
+		if err != nil {
+			return nil, err
+		}
+		m := &convMemo{in: append([]int(nil), X.Shape[1:]...), out: append([]int(nil), Y.Shape[1:]...), w: W, win: win}
+		if w32, ok := W.Data.([]float32); ok && !(C == G && M == G) {
+			m.dx = newConvDX(win, W, w32, C, M, G, o.Opset)
+		}
+		return m, nil
+	})
+	if err != nil {
+		return err
+	}
+	win := cm.win
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	g := o.G(0)
-	gx, gw, gb := o.Grad(0), o.Grad(1), o.Grad(2)
+	x32, isF32 := X.Data.([]float32)
+	w32, wF32 := W.Data.([]float32)
+	fast := isF32 && wF32 && !forceF64
+	depthwise := Cg == 1 && Mg == 1
+	dxByConv := fast && cm.dx != nil && o.Needs(0)
+	dwByProduct := fast && !depthwise && o.Needs(1)
+	// G in float32, read by dX's convolution and dW's products
+	var g32 []float32
+	if dxByConv || dwByProduct {
+		g32 = scratch(len(g))
+		defer release(g32)
+		split(len(g), func(lo, hi int) {
+			for i := lo; i < hi; i++ {
+				g32[i] = float32(g[i])
+			}
+		})
+	}
+	var gx []float64
+	if dxByConv {
+		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0)); err != nil {
+			return err
+		}
+	} else {
+		gx = o.Grad(0)
+	}
+	gw, gb := o.Grad(1), o.Grad(2)
 	if gb != nil {
 		for n := 0; n < N; n++ {
 			for m := 0; m < M; m++ {
-				s := 0.0
-				for _, v := range g[(n*M+m)*P : (n*M+m+1)*P] {
-					s += v
-				}
-				gb[m] += s
+				gb[m] += sum4(g[(n*M+m)*P : (n*M+m+1)*P])
 			}
 		}
 	}
 	if gx == nil && gw == nil {
 		return nil
 	}
-	x32, ok1 := X.Data.([]float32)
-	w32, ok2 := W.Data.([]float32)
-	if ok1 && ok2 && !forceF64 {
-		convF32(o, win, N, C, M, G, x32, w32, g, gx, gw)
+	if fast {
+		if depthwise {
+			depthwiseF32(win, N, C, x32, w32, g, gx, gw)
+			return nil
+		}
+		if gw != nil {
+			convDW(win, N, C, M, G, x32, g32, gw)
+		}
+		if gx != nil {
+			convF32(o, win, N, C, M, G, x32, w32, g, gx, nil)
+		}
 		return nil
 	}
 	x, w := o.X(0), o.X(1)
@@ -93,4 +138,30 @@ func convVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// convMemo is what a Conv node's VJP keeps from batch to batch: the window
+// geometry for these shapes and dX's convolution for this weight.
+type convMemo struct {
+	in, out []int // [C, spatial...] of input and output
+	w       *tensor.Tensor
+	win     *window
+	dx      *convDX // nil: dX by columns (float64, depthwise, or no fitting padding)
+}
+
+// sum4 is Σ g in four addition chains (elements i ≡ 0, 1, 2, 3 mod 4),
+// added at the end.
+func sum4(g []float64) float64 {
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(g); i += 4 {
+		s0 += g[i]
+		s1 += g[i+1]
+		s2 += g[i+2]
+		s3 += g[i+3]
+	}
+	for ; i < len(g); i++ {
+		s0 += g[i]
+	}
+	return (s0 + s1) + (s2 + s3)
 }

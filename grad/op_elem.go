@@ -108,6 +108,22 @@ func unary(name string, d func(x, y float64, o *Op) float64) {
 		if gx == nil {
 			return nil
 		}
+		x32, ok1 := o.In[0].Data.([]float32)
+		y32, ok2 := o.Out[0].Data.([]float32)
+		if ok1 && ok2 && len(x32) == len(gx) && len(y32) == len(gx) {
+			// float32 values read in place, widened one at a time
+			if f := fastUnary[name]; f != nil && !slowUnary {
+				k := f(o)
+				split(len(gx), func(lo, hi int) { k(gx[lo:hi], g[lo:hi], x32[lo:hi], y32[lo:hi]) })
+				return nil
+			}
+			split(len(gx), func(lo, hi int) {
+				for i := lo; i < hi; i++ {
+					gx[i] = g[i] * d(float64(x32[i]), float64(y32[i]), o)
+				}
+			})
+			return nil
+		}
 		x, y := o.X(0), o.Y(0)
 		split(len(gx), func(lo, hi int) {
 			for i := lo; i < hi; i++ {
@@ -160,15 +176,7 @@ func reluVJP(o *Op) error {
 		return nil
 	}
 	if x, ok := o.In[0].Data.([]float32); ok {
-		split(len(x), func(lo, hi int) {
-			for i := lo; i < hi; i++ {
-				if x[i] > 0 {
-					gx[i] = g[i]
-				} else {
-					gx[i] = 0
-				}
-			}
-		})
+		split(len(x), func(lo, hi int) { reluMask(gx[lo:hi], g[lo:hi], x[lo:hi]) })
 		return nil
 	}
 	for i, v := range o.X(0) {
@@ -179,4 +187,74 @@ func reluVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// reluMask writes dst[i] = g[i] where x[i] > 0, else 0, without a branch
+// per element (the sign of x is as good as random: a branch would be
+// mispredicted half the time). dst may be g itself. A float32 x is > 0
+// exactly when its bits b, read as an integer, satisfy 0 < b ≤ 0x7f800000
+// (+Inf; above are the NaNs, −0 and negatives have the sign bit set).
+func reluMask(dst, g []float64, x []float32) {
+	g = g[:len(x)]
+	dst = dst[:len(x)]
+	for i, v := range x {
+		b := int64(int32(math.Float32bits(v)))
+		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63)) // all ones or zero
+		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
+	}
+}
+
+// slowUnary sends every element-wise rule through its generic derivative
+// (tests compare the loops of fastUnary with it).
+var slowUnary = false
+
+// fastUnary holds, for common activations on float32 models, a loop that
+// computes the same float64 expressions as the derivative given to unary
+// but without a call per element, so that simple selects replace branches;
+// given the node, it returns the loop over one part (dst may be g).
+var fastUnary = map[string]func(o *Op) func(dst, g []float64, x, y []float32){
+	"Sigmoid": func(*Op) func(dst, g []float64, x, y []float32) {
+		return func(dst, g []float64, _, y []float32) {
+			for i, v := range y[:len(g)] {
+				yv := float64(v)
+				dst[i] = g[i] * (yv * (1 - yv))
+			}
+		}
+	},
+	"Tanh": func(*Op) func(dst, g []float64, x, y []float32) {
+		return func(dst, g []float64, _, y []float32) {
+			for i, v := range y[:len(g)] {
+				yv := float64(v)
+				dst[i] = g[i] * (1 - yv*yv)
+			}
+		}
+	},
+	"HardSigmoid": func(o *Op) func(dst, g []float64, x, y []float32) {
+		a, b := float64(o.Float("alpha", 0.2)), float64(o.Float("beta", 0.5))
+		return func(dst, g []float64, x, _ []float32) {
+			for i, v := range x[:len(g)] {
+				u := a*float64(v) + b
+				d := a
+				if !(u > 0 && u < 1) {
+					d = 0
+				}
+				dst[i] = g[i] * d
+			}
+		}
+	},
+	"HardSwish": func(*Op) func(dst, g []float64, x, y []float32) {
+		return func(dst, g []float64, x, _ []float32) {
+			for i, v := range x[:len(g)] {
+				xv := float64(v)
+				d := 1.0 // x > 3, and NaN as in the generic rule
+				if xv <= 3 {
+					d = xv/3 + 0.5
+				}
+				if xv < -3 {
+					d = 0
+				}
+				dst[i] = g[i] * d
+			}
+		}
+	},
 }

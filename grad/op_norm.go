@@ -124,6 +124,15 @@ func batchNormVJP(o *Op) error {
 			}
 			c := pl % C
 			gr := g[pl*I : (pl+1)*I]
+			if x32 != nil { // sums and dX in one pass
+				var d []float64
+				k := 0.0
+				if gx != nil {
+					d, k = gx[pl*I:(pl+1)*I], s[c]/math.Sqrt(vr[c]+eps)
+				}
+				sg[pl], sgx[pl] = bnPlane(gr, x32[pl*I:(pl+1)*I], d, k)
+				continue
+			}
 			if gs != nil || gb != nil { // the sums first: gx may overwrite G
 				var a, b float64
 				for i, v := range gr {
@@ -200,4 +209,44 @@ func layerNormVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// bnPlane returns Σ G and Σ G·x over one plane, each in four addition
+// chains (elements i ≡ 0, 1, 2, 3 mod 4, added at the end), and writes
+// d[i] = G[i]·k when d is not nil (d may be G itself: each element is read
+// before it is written).
+func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float64) {
+	var a0, a1, a2, a3, b0, b1, b2, b3 float64
+	x = x[:len(g)]
+	i := 0
+	if d != nil {
+		d = d[:len(g)]
+		for ; i+4 <= len(g); i += 4 {
+			v0, v1, v2, v3 := g[i], g[i+1], g[i+2], g[i+3]
+			a0, a1, a2, a3 = a0+v0, a1+v1, a2+v2, a3+v3
+			b0 += v0 * float64(x[i])
+			b1 += v1 * float64(x[i+1])
+			b2 += v2 * float64(x[i+2])
+			b3 += v3 * float64(x[i+3])
+			d[i], d[i+1], d[i+2], d[i+3] = v0*k, v1*k, v2*k, v3*k
+		}
+	} else {
+		for ; i+4 <= len(g); i += 4 {
+			v0, v1, v2, v3 := g[i], g[i+1], g[i+2], g[i+3]
+			a0, a1, a2, a3 = a0+v0, a1+v1, a2+v2, a3+v3
+			b0 += v0 * float64(x[i])
+			b1 += v1 * float64(x[i+1])
+			b2 += v2 * float64(x[i+2])
+			b3 += v3 * float64(x[i+3])
+		}
+	}
+	for ; i < len(g); i++ {
+		v := g[i]
+		a0 += v
+		b0 += v * float64(x[i])
+		if d != nil {
+			d[i] = v * k
+		}
+	}
+	return (a0 + a1) + (a2 + a3), (b0 + b1) + (b2 + b3)
 }

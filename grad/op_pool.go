@@ -27,19 +27,44 @@ func maxPoolVJP(o *Op) error {
 		return fmt.Errorf("MaxPool indices output takes no gradient")
 	}
 	X, Y := o.In[0], o.Out[0]
-	win, err := windowOf(o, X, Y, nil)
+	win, err := memoize(o, func(w *window) bool {
+		return sameShape(w.in, X.Shape[2:]) && sameShape(w.out, Y.Shape[2:])
+	}, func() (*window, error) { return windowOf(o, X, Y, nil) })
 	if err != nil {
 		return err
 	}
-	x, y, g := o.X(0), o.Y(0), o.G(0)
+	g := o.G(0)
 	planes := X.Shape[0] * X.Shape[1]
-	for pl := 0; pl < planes; pl++ {
+	// each plane's gradient lands in its own input plane: planes split freely
+	split(planes*win.I, func(lo, hi int) {
+		p0, p1 := (lo+win.I-1)/max(win.I, 1), (hi+win.I-1)/max(win.I, 1)
+		x32, ok1 := X.Data.([]float32)
+		y32, ok2 := Y.Data.([]float32)
+		if ok1 && ok2 {
+			maxPoolPlanes(win, x32, y32, g, gx, p0, p1)
+			return
+		}
+		maxPoolPlanes(win, o.X(0), o.Y(0), g, gx, p0, p1)
+	})
+	return nil
+}
+
+// maxPoolPlanes routes each output's gradient to the input its window took
+// the maximum from (the first tap equal to the recorded maximum; failing
+// that, the largest), for planes [p0, p1), in the model's own precision.
+func maxPoolPlanes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
+	if len(win.in) == 2 && win.k[0] == 2 && win.k[1] == 2 && win.stride[0] == 2 && win.stride[1] == 2 &&
+		win.dil[0] == 1 && win.dil[1] == 1 && win.padBeg[0] == 0 && win.padBeg[1] == 0 &&
+		2*win.out[0] <= win.in[0] && 2*win.out[1] <= win.in[1] {
+		maxPool2x2Planes(win, x, y, g, gx, p0, p1)
+		return
+	}
+	for pl := p0; pl < p1; pl++ {
 		xp, dx := x[pl*win.I:(pl+1)*win.I], gx[pl*win.I:(pl+1)*win.I]
 		for p := 0; p < win.P; p++ {
-			best, bv := -1, math.Inf(-1)
+			best, bv := -1, T(math.Inf(-1))
 			want := y[pl*win.P+p]
-			for t := 0; t < win.K; t++ {
-				off := win.taps[p*win.K+t]
+			for _, off := range win.taps[p*win.K : (p+1)*win.K] {
 				if off < 0 {
 					continue
 				}
@@ -56,7 +81,6 @@ func maxPoolVJP(o *Op) error {
 			}
 		}
 	}
-	return nil
 }
 
 func avgPoolVJP(o *Op) error {
@@ -157,4 +181,62 @@ func globalMaxVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// maxPool2x2Planes is maxPoolPlanes for 2×2 windows of stride 2 without
+// padding (every tap inside the input): the first of the four taps equal
+// to the recorded maximum is chosen by integer selects on the values' bits
+// (±0 folded together, so that the comparison is the float one for every
+// number) rather than branches, which tap holds the maximum being as good
+// as random; an output whose chosen tap is not equal to it as a float (a
+// NaN maximum) takes the general rule.
+func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
+	H, W, OH, OW := win.in[0], win.in[1], win.out[0], win.out[1]
+	for pl := p0; pl < p1; pl++ {
+		xp, dx := x[pl*H*W:(pl+1)*H*W], gx[pl*H*W:(pl+1)*H*W]
+		yp, gp := y[pl*OH*OW:(pl+1)*OH*OW], g[pl*OH*OW:(pl+1)*OH*OW]
+		for oh := 0; oh < OH; oh++ {
+			r0 := 2 * oh * W
+			r1 := r0 + W
+			for ow := 0; ow < OW; ow++ {
+				want := yp[oh*OW+ow]
+				kw := floatKey(want)
+				i := 2 * ow
+				best := r1 + i + 1
+				if floatKey(xp[r1+i]) == kw {
+					best = r1 + i
+				}
+				if floatKey(xp[r0+i+1]) == kw {
+					best = r0 + i + 1
+				}
+				if floatKey(xp[r0+i]) == kw {
+					best = r0 + i
+				}
+				if xp[best] != want { // NaN: the general rule
+					p := oh*OW + ow
+					best, bv := -1, T(math.Inf(-1))
+					for _, off := range win.taps[p*4 : p*4+4] {
+						if xp[off] > bv {
+							best, bv = off, xp[off]
+						}
+					}
+					if best >= 0 {
+						dx[best] += gp[p]
+					}
+					continue
+				}
+				dx[best] += gp[oh*OW+ow]
+			}
+		}
+	}
+}
+
+// floatKey is v's bits (widened to float64, exactly) with −0 taken to +0:
+// two numbers (not NaN) have the same key exactly when they compare equal.
+func floatKey[T float32 | float64](v T) uint64 {
+	b := math.Float64bits(float64(v))
+	if b<<1 == 0 {
+		b = 0
+	}
+	return b
 }

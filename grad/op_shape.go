@@ -26,18 +26,6 @@ func init() {
 	} {
 		register(op, routeVJP(routed, false))
 	}
-	register("Resize", resizeVJP)
-	register("Upsample", resizeVJP)
-}
-
-// resizeVJP: nearest-neighbour resizing only copies elements and is traced
-// like the others (its scales, sizes and roi kept); the interpolating modes
-// have no rule here.
-func resizeVJP(o *Op) error {
-	if mode := o.Str("mode", "nearest"); mode != "nearest" {
-		return NoRule("mode " + mode)
-	}
-	return routeVJP([]int{0}, true)(o)
 }
 
 func sameOrder(o *Op) error {
@@ -49,8 +37,7 @@ func sameOrder(o *Op) error {
 }
 
 // routeVJP traces the inputs routed (nil: every float input); the other
-// float inputs are fed zeros, or their own values with keep (Resize's
-// scales).
+// float inputs are fed zeros, or their own values with keep.
 func routeVJP(routed []int, keep bool) VJP {
 	return func(o *Op) error {
 		k, ok := probe.Lookup(o.Node.Domain, o.Node.OpType, o.Opset)

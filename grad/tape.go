@@ -22,11 +22,16 @@ type Tape struct {
 	vals       map[string]*tensor.Tensor
 	// step[n] is the main-graph step of node n (subgraph nodes are not recorded).
 	step map[*loader.Node]int
+	// memo keeps what a VJP derives from a node's attributes and shapes
+	// (convolution geometry, reordered weights) from batch to batch.
+	memo map[*loader.Node]any
+	// free keeps the gradient buffers of one backward pass for the next
+	free *freeList
 }
 
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
-	t := &Tape{plan: p, step: map[*loader.Node]int{}}
+	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}}
 	for i, s := range p.Steps {
 		t.step[s.Node] = i
 	}
@@ -151,7 +156,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		grads[name] = append([]float64(nil), g...)
 	}
 	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
-	free := &freeList{byLen: map[int][][]float64{}}
+	free := t.free
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
@@ -214,6 +219,7 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		}
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc, op.allocRaw = free.get, free.getRaw
+		op.memo = t.memo
 		if err := callVJP(f, op); err != nil {
 			var nr *noRuleError
 			if errors.As(err, &nr) {
@@ -253,7 +259,8 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 	return res, nil
 }
 
-// freeList recycles gradient buffers within one backward pass, by length.
+// freeList recycles gradient buffers, by length, within a backward pass
+// and from one pass to the next.
 type freeList struct{ byLen map[int][][]float64 }
 
 func (f *freeList) get(n int) []float64 {

@@ -182,3 +182,79 @@ func relErr(a, b []float64, floor float64) float64 {
 	}
 	return norm(d)
 }
+
+// TestResizeAgainstTorch: Resize's rule against PyTorch 1.13 autograd of
+// torch.nn.functional.interpolate in float64 (testdata/gen/resize_grad_golden.py
+// writes resize.grad.npz: x, the weights w of L = Σ w·y, torch's y and
+// dL/dx), each case as the ONNX Resize node that matches it (bilinear and
+// linear: linear with pytorch_half_pixel or align_corners; bicubic: cubic
+// with a = −0.75; nearest: asymmetric with floor; nearest-exact:
+// half_pixel with round_prefer_ceil; antialias: antialias = 1 with
+// half_pixel and exclude_outside = 1, torch dropping the taps outside the
+// input and renormalising the rest, where ONNX's default repeats the
+// edge: with exclude_outside = 0 the forward differs by 15%). The forward
+// must reproduce torch's y (1e-9 relative) before dL/dx is compared; both
+// are float64 sums of a few products, so the bound is 1e-9 too, far inside
+// the 1e-4 of the other autograd comparisons.
+func TestResizeAgainstTorch(t *testing.T) {
+	dir := refDir(t)
+	golden := filepath.Join(dir, "resize.grad.npz")
+	if _, err := os.Stat(golden); err != nil {
+		t.Skip("resize.grad.npz not found")
+	}
+	want := modeltest.ReadNpz(t, golden)
+	for _, c := range []struct {
+		name  string
+		shape []int
+		size  []int64
+		attrs map[string]string
+		aa    bool
+	}{
+		{"bilinear_up", []int{2, 3, 4, 5}, []int64{7, 9}, map[string]string{"mode": "linear", "coordinate_transformation_mode": "pytorch_half_pixel"}, false},
+		{"bilinear_down", []int{1, 2, 9, 7}, []int64{4, 3}, map[string]string{"mode": "linear", "coordinate_transformation_mode": "pytorch_half_pixel"}, false},
+		{"bilinear_align_corners", []int{1, 2, 4, 6}, []int64{7, 5}, map[string]string{"mode": "linear", "coordinate_transformation_mode": "align_corners"}, false},
+		{"bicubic_up", []int{1, 2, 4, 5}, []int64{9, 8}, map[string]string{"mode": "cubic", "coordinate_transformation_mode": "pytorch_half_pixel"}, false},
+		{"bicubic_align_corners", []int{1, 1, 5, 4}, []int64{3, 7}, map[string]string{"mode": "cubic", "coordinate_transformation_mode": "align_corners"}, false},
+		{"nearest_up", []int{1, 2, 3, 4}, []int64{7, 6}, map[string]string{"mode": "nearest", "coordinate_transformation_mode": "asymmetric", "nearest_mode": "floor"}, false},
+		{"nearest_exact_down", []int{1, 2, 9, 8}, []int64{4, 5}, map[string]string{"mode": "nearest", "coordinate_transformation_mode": "half_pixel", "nearest_mode": "round_prefer_ceil"}, false},
+		{"linear_1d", []int{2, 3, 7}, []int64{11}, map[string]string{"mode": "linear", "coordinate_transformation_mode": "pytorch_half_pixel"}, false},
+		{"trilinear", []int{1, 2, 3, 4, 5}, []int64{5, 3, 7}, map[string]string{"mode": "linear", "coordinate_transformation_mode": "pytorch_half_pixel"}, false},
+		{"bilinear_antialias_down", []int{1, 2, 11, 9}, []int64{4, 5}, map[string]string{"mode": "linear", "coordinate_transformation_mode": "half_pixel"}, true},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			x, w, y, gx := want[c.name+"/x"], want[c.name+"/w"], want[c.name+"/y"], want[c.name+"/gx"]
+			if x == nil || w == nil || y == nil || gx == nil {
+				t.Fatalf("%s missing from %s", c.name, golden)
+			}
+			n := &loader.Node{Name: c.name, OpType: "Resize", Inputs: []string{"x", "", "", "sizes"}, Outputs: []string{"y"}, Attrs: map[string]*loader.Attr{}}
+			for k, v := range c.attrs {
+				n.Attrs[k] = &loader.Attr{Name: k, Kind: loader.AttrString, S: v}
+			}
+			opset := 13
+			if c.aa {
+				n.Attrs["antialias"] = &loader.Attr{Name: "antialias", Kind: loader.AttrInt, I: 1}
+				n.Attrs["exclude_outside"] = &loader.Attr{Name: "exclude_outside", Kind: loader.AttrInt, I: 1}
+				opset = 18
+			}
+			sizes := append([]int64{int64(c.shape[0]), int64(c.shape[1])}, c.size...)
+			in := []*tensor.Tensor{tensor.From(x, c.shape...), nil, nil, tensor.From(sizes, len(sizes))}
+			k, _ := probe.Lookup("", "Resize", opset)
+			call := &probe.Call{Node: n, In: in, Out: make([]*tensor.Tensor, 1), Opset: opset}
+			if err := k(call); err != nil {
+				t.Fatal(err)
+			}
+			if e := relErr(call.Out[0].F64(), y, 0); e > 1e-9 || math.IsNaN(e) {
+				t.Fatalf("forward differs from torch's: relative error %.2e", e)
+			}
+			o := NewOp(&probe.Call{Node: n, In: in, Out: call.Out, Opset: opset}, [][]float64{append([]float64(nil), w...)}, nil)
+			if err := resizeVJP(o); err != nil {
+				t.Fatal(err)
+			}
+			if e := relErr(o.GIn[0], gx, 0); e > 1e-9 || math.IsNaN(e) {
+				t.Errorf("dL/dx: relative error %.2e against torch autograd", e)
+			} else {
+				t.Logf("dL/dx relative error %.1e", e)
+			}
+		})
+	}
+}

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"sort"
 
+	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/probe"
 	"github.com/vitals-health/vitals/tensor"
 )
@@ -27,10 +28,27 @@ type Op struct {
 	// alloc, when set, returns a zeroed buffer (the tape's recycled ones);
 	// allocRaw one with undefined contents.
 	alloc, allocRaw func(n int) []float64
+	// memo, when set, is the tape's store of per-node derived data (Memo).
+	memo map[*loader.Node]any
+}
+
+// memoize returns what build derives for this node, computed once per tape
+// while valid(v) holds for the stored value (without a tape: every call).
+func memoize[T any](o *Op, valid func(T) bool, build func() (T, error)) (T, error) {
+	if o.memo != nil {
+		if v, ok := o.memo[o.Node].(T); ok && valid(v) {
+			return v, nil
+		}
+	}
+	v, err := build()
+	if err == nil && o.memo != nil {
+		o.memo[o.Node] = v
+	}
+	return v, err
 }
 
 // NoRule is the error of a VJP for an operator variant it has no rule for
-// (Resize in linear mode): Backward lists the node as missing, "Op (detail)".
+// (LSTM with clip): Backward lists the node as missing, "Op (detail)".
 func NoRule(detail string) error { return &noRuleError{detail} }
 
 type noRuleError struct{ detail string }

@@ -25,6 +25,9 @@ type Call struct {
 	// observed are tensors the kernel computed internally for the hook
 	// (Observe): the hook gets them after the node's outputs.
 	observed []*tensor.Tensor
+	// resizeTables, when set, asks Resize and Upsample for their tap tables
+	// instead of their output (ResizeTables)
+	resizeTables *[]*ResizeTable
 }
 
 // Observing reports whether the run has a hook, so that a kernel may hand it

@@ -226,6 +226,14 @@ func resizeRun(c *Call, x *tensor.Tensor, o resizeOpts, scales []float64, out []
 		if err != nil {
 			return err
 		}
+		if c.resizeTables != nil { // ResizeTables: the tables only
+			var rt *ResizeTable
+			if !tab.identity(x.Shape[ax]) {
+				rt = &ResizeTable{N: tab.n, Idx: tab.idx, W: tab.w, Extrap: tab.extrap}
+			}
+			*c.resizeTables = append(*c.resizeTables, rt)
+			continue
+		}
 		if tab.identity(x.Shape[ax]) {
 			continue
 		}
@@ -235,11 +243,43 @@ func resizeRun(c *Call, x *tensor.Tensor, o resizeOpts, scales []float64, out []
 		}
 		cur = next
 	}
+	if c.resizeTables != nil {
+		return nil
+	}
 	if cur == x {
 		cur = x.Clone()
 	}
 	c.Set(0, cur)
 	return nil
+}
+
+// ResizeTable is one axis of a Resize (or Upsample) as its kernel resamples
+// it: output j along the axis is Σ_q W[j·N+q]·x[Idx[j·N+q]] (the other
+// axes' indices unchanged), or the extrapolation value where Extrap[j]
+// (tf_crop_and_resize outside the input).
+type ResizeTable struct {
+	N      int
+	Idx    []int
+	W      []float64
+	Extrap []bool
+}
+
+// ResizeTables returns the tap table of every axis of a Resize or Upsample
+// call, in the order the kernel applies them (nil for an axis it leaves as
+// it is), without resampling anything. The call's inputs and attributes are
+// read as the kernel reads them (so its errors are the kernel's).
+func ResizeTables(c *Call) ([]*ResizeTable, error) {
+	k, ok := Lookup(c.Node.Domain, c.Node.OpType, c.Opset)
+	if !ok || (c.Node.OpType != "Resize" && c.Node.OpType != "Upsample") {
+		return nil, fmt.Errorf("%s is not a resampling operator", c.Node.OpType)
+	}
+	cc := &Call{Node: c.Node, In: c.In, Out: make([]*tensor.Tensor, len(c.Out)), Opset: c.Opset}
+	var tabs []*ResizeTable
+	cc.resizeTables = &tabs
+	if err := k(cc); err != nil {
+		return nil, err
+	}
+	return tabs, nil
 }
 
 func (t *resizeAxis) identity(in int) bool {
