@@ -68,6 +68,10 @@ func convFastF32(a *convF32Args) {
 	if a.wConst && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
 	}
+	if convPointwiseFits(a, packs) {
+		convPointwise(a, packs, beta) // conv_pointwise_f32.go
+		return
+	}
 	if a.direct {
 		convDirect(a, packs, beta)
 		return
