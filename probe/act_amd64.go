@@ -76,6 +76,14 @@ var actVecLevel = func() int {
 func actVec(dst, src []float32, op actOp, p *[3]float64) int {
 	switch actVecLevel {
 	case 2:
+		if op == actSigmoid {
+			// float32 lanes, every value (act32_amd64.go)
+			n := min(len(dst), len(src))
+			if n > 0 {
+				sigmoid32AVX512(&dst[0], &src[0], n, &sigmoid32Table)
+			}
+			return n
+		}
 		n := min(len(dst), len(src)) &^ 7
 		if n > 0 {
 			actAVX512(&dst[0], &src[0], n, int(op), &actTable, p)
