@@ -3,7 +3,9 @@ package probe
 import "math"
 
 // sigmoid32AVX512 sets dst[i] = 1/(1 + e^−src[i]) for i < n in float32
-// lanes, sixteen at a time (act32_amd64.s), n any length.
+// lanes, sixteen at a time (act32_amd64.s), n any length; with mul != nil
+// also mul[i] = src[i]·dst[i] (SiLU), the float32 product the Mul kernel
+// computes, its operands in the Mul node's order (order 1: sigmoid first).
 //
 // Method: E = e^−|x| = 2^k·(1 + q), q = e^r − 1 by its Taylor series to r⁸
 // (the first omitted term, r⁹/9! ≤ 2e-10 for |r| ≤ ln2/2, is 0.003 float32
@@ -16,7 +18,7 @@ import "math"
 // the tolerance TestActivationsMatchMath applies to it.
 //
 //go:noescape
-func sigmoid32AVX512(dst, src *float32, n int, table *[16]float32)
+func sigmoid32AVX512(dst, src *float32, n int, table *[16]float32, mul *float32, order int)
 
 // sigmoid32Table: log2 e, ln2 split as 0.693145751953125 (few bits: k·ln2hi
 // is exact for |k| < 2^15) plus the float32 remainder, the clamp −150

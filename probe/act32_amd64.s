@@ -44,19 +44,23 @@
 	VCMPPS $0x11, Z18, Z0, K1; \
 	VBLENDMPS Z10, Z12, K1, Z11
 
-// func sigmoid32AVX512(dst, src *float32, n int, table *[16]float32)
+// func sigmoid32AVX512(dst, src *float32, n int, table *[16]float32, mul *float32, order int)
 //
 // Sigmoid sixteen values at a time in float32 lanes (AVX-512F); see
 // act32_amd64.go for the method and its error. Registers held: Z31 = log2 e,
 // Z30 + Z29 = ln 2 (high part, exact for k·ln2hi, and remainder), Z28 = −150
 // (the clamp of −|x|), Z27 … Z21 = 1/2!, 1/3!, … 1/8!, Z20 = 1, Z19 = the
 // sign bit, Z18 = 0. The last n mod 16 values go through a masked load and
-// store (K2), so a value's result does not depend on its lane.
-TEXT ·sigmoid32AVX512(SB), NOSPLIT, $0-32
+// store (K2), so a value's result does not depend on its lane. With mul set
+// (SiLU), mul[i] = x·s as VMULPS with the operands in the Mul node's order:
+// order 0 Mul(x, s), 1 Mul(s, x) (the same NaN operand is returned first).
+TEXT ·sigmoid32AVX512(SB), NOSPLIT, $0-48
 	MOVQ dst+0(FP), DI
 	MOVQ src+8(FP), SI
 	MOVQ n+16(FP), CX
 	MOVQ table+24(FP), DX
+	MOVQ mul+32(FP), R9
+	MOVQ order+40(FP), R10
 	VBROADCASTSS 0(DX), Z31
 	VBROADCASTSS 4(DX), Z30
 	VBROADCASTSS 8(DX), Z29
@@ -74,26 +78,80 @@ TEXT ·sigmoid32AVX512(SB), NOSPLIT, $0-32
 	MOVQ CX, R8
 	SHRQ $4, CX
 	ANDQ $15, R8
-	TESTQ CX, CX
-	JZ   tail
+	MOVQ $1, AX
+	MOVQ R8, DX
+	XCHGQ DX, CX
+	SHLQ CX, AX
+	XCHGQ DX, CX
+	DECQ AX
+	KMOVW AX, K2
+	TESTQ R9, R9
+	JZ   plain
+	TESTQ R10, R10
+	JNZ  sfirst
 
-loop:
+xfirst:
+	TESTQ CX, CX
+	JZ   xtail
+xloop:
+	VMOVUPS (SI), Z0
+	SIGMOID32()
+	VMOVUPS Z11, (DI)
+	VMULPS Z11, Z0, Z13
+	VMOVUPS Z13, (R9)
+	ADDQ $64, SI
+	ADDQ $64, DI
+	ADDQ $64, R9
+	DECQ CX
+	JNZ  xloop
+xtail:
+	TESTQ R8, R8
+	JZ   done
+	VMOVUPS.Z (SI), K2, Z0
+	SIGMOID32()
+	VMOVUPS Z11, K2, (DI)
+	VMULPS Z11, Z0, Z13
+	VMOVUPS Z13, K2, (R9)
+	JMP  done
+
+sfirst:
+	TESTQ CX, CX
+	JZ   stail
+sloop:
+	VMOVUPS (SI), Z0
+	SIGMOID32()
+	VMOVUPS Z11, (DI)
+	VMULPS Z0, Z11, Z13
+	VMOVUPS Z13, (R9)
+	ADDQ $64, SI
+	ADDQ $64, DI
+	ADDQ $64, R9
+	DECQ CX
+	JNZ  sloop
+stail:
+	TESTQ R8, R8
+	JZ   done
+	VMOVUPS.Z (SI), K2, Z0
+	SIGMOID32()
+	VMOVUPS Z11, K2, (DI)
+	VMULPS Z0, Z11, Z13
+	VMOVUPS Z13, K2, (R9)
+	JMP  done
+
+plain:
+	TESTQ CX, CX
+	JZ   ptail
+ploop:
 	VMOVUPS (SI), Z0
 	SIGMOID32()
 	VMOVUPS Z11, (DI)
 	ADDQ $64, SI
 	ADDQ $64, DI
 	DECQ CX
-	JNZ  loop
-
-tail:
+	JNZ  ploop
+ptail:
 	TESTQ R8, R8
 	JZ   done
-	MOVQ $1, AX
-	MOVQ R8, CX
-	SHLQ CX, AX
-	DECQ AX
-	KMOVW AX, K2
 	VMOVUPS.Z (SI), K2, Z0
 	SIGMOID32()
 	VMOVUPS Z11, K2, (DI)

@@ -213,3 +213,29 @@ func TestActivationsIndependentOfSpan(t *testing.T) {
 		}
 	}
 }
+
+// BenchmarkSiLU times the fused SiLU's two outputs (sigmoid and x·sigmoid)
+// on a 112×112 plane (in cache, as a Conv applies it plane by plane): one
+// pass (siluVec, where it runs) against Sigmoid then Mul.
+func BenchmarkSiLU(b *testing.B) {
+	x := make([]float32, 112*112)
+	for i := range x {
+		x[i] = float32(i-len(x)/2) / 1024
+	}
+	s, y := make([]float32, len(x)), make([]float32, len(x))
+	b.Run("fused", func(b *testing.B) {
+		b.SetBytes(int64(4 * len(x)))
+		for b.Loop() {
+			if !siluVec(s, y, x, false) {
+				b.Skip("no one-pass kernel")
+			}
+		}
+	})
+	b.Run("two-pass", func(b *testing.B) {
+		b.SetBytes(int64(4 * len(x)))
+		for b.Loop() {
+			sigmoidF32(s, x)
+			vvF32(mulT, y, x, s)
+		}
+	})
+}
