@@ -253,7 +253,7 @@ func convF32WithAct(a *convF32Args, shape []int) {
 		return
 	}
 	ad := f.out.F32()
-	if convIsImplicit(a) || a.direct {
+	if convIsImplicit(a) || a.direct || convGroupedFits(a) {
 		// convImplicit2D and convDirect apply f to each finished block of Y
 		a.act, a.actOut = f.f32, ad
 		convFastF32(a)

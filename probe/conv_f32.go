@@ -47,6 +47,10 @@ func convFastF32(a *convF32Args) {
 		convDepthwise2D(a) // conv_dw_f32.go
 		return
 	}
+	if convGroupedFits(a) {
+		convGrouped(a) // conv_grouped_f32.go
+		return
+	}
 	implicit := convIsImplicit(a)
 	// bias first: the products accumulate onto it (convImplicit2D and
 	// convDirect place it themselves)
