@@ -29,6 +29,8 @@ func TestConvGroupedMatchesReference(t *testing.T) {
 		{2, 16, 32, 8, 30, 29, 3, 2, 1, 1, 1, 1, 1},
 		{1, 24, 24, 3, 13, 17, 5, 1, 2, 4, 3, 2, 4},
 		{2, 64, 64, 4, 28, 28, 3, 2, 1, 0, 1, 1, 0},
+		{1, 16, 16, 2, 15, 13, 3, 2, 1, 0, 0, 1, 1}, // stride 2, no left pad, odd width (padPairs)
+		{1, 16, 16, 2, 16, 17, 5, 2, 1, 2, 3, 0, 0}, // stride 2, left pad 3
 	} {
 		x, w, b := linRand(r, k.N, k.C, k.H, k.W), linRand(r, k.M, k.C/k.group, k.K, k.K), linRand(r, k.M)
 		attrs := map[string]*loader.Attr{
