@@ -104,7 +104,7 @@ func sgemmOn(workers int, transA, transB bool, m, n, k int, alpha float32, a []f
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
 	checkOperand("B", transB, k, n, b, ldb)
-	multiply(workers, active.Load(), m, n, k, alpha,
+	multiply(workers, widerFor(active.Load(), n), m, n, k, alpha,
 		operand{data: a, ld: lda, trans: transA},
 		operand{data: b, ld: ldb, trans: transB},
 		beta, c, ldc)
