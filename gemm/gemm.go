@@ -104,7 +104,7 @@ func sgemmOn(workers int, transA, transB bool, m, n, k int, alpha float32, a []f
 	checkDims(m, n, k, ldc, len(c))
 	checkOperand("A", transA, m, k, a, lda)
 	checkOperand("B", transB, k, n, b, ldb)
-	multiply(workers, active.Load(), m, n, k, alpha,
+	multiply(workers, widerFor(active.Load(), n), m, n, k, alpha,
 		operand{data: a, ld: lda, trans: transA},
 		operand{data: b, ld: ldb, trans: transB},
 		beta, c, ldc)
@@ -208,18 +208,21 @@ func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 // worth it).
 const minPackParallel = 1 << 20
 
-// PackAhead reports whether packing a weight once with PackB, and keeping
-// the packed copy, saves time over Sgemm for products whose op(A) has m
-// rows. With m in (maxMStream, maxMDirect] of a kernel that reads B in place
-// (the strided AVX-512 kernel: 16 < m ≤ 128) it does not: a non-transposed
-// B is then read straight from the caller's matrix as often as a packed one
-// would be, and a transposed B is packed per call at one move per 2m ≥ 34
-// multiply-adds; a packed copy would only cost memory (as much as the
-// weight again). Outside that range (few rows: the prefetching kernel
-// streams packed B; many rows: B is packed per mc block) it does.
-func PackAhead(m int) bool {
+// PackAhead reports whether packing a constant op(B) once with PackB, and
+// keeping the packed copy, saves time over Sgemm for products whose op(A)
+// has m rows. A transposed B (transB: B stored n×k, as Gemm's weights with
+// transB=1) always gains: no kernel reads it in place, so Sgemm packs all of
+// it in every call, a gather across B's rows (for GPT-2's tied 50257×768
+// output projection, 154 MB re-read per item). A non-transposed B with m in
+// (maxMStream, maxMDirect] of a kernel that reads B in place (the strided
+// AVX-512 kernel: 16 < m ≤ 128) does not: it is read straight from the
+// caller's matrix as often as a packed copy would be, and a copy would only
+// cost memory (as much as the weight again). Outside that range (few rows:
+// the prefetching kernel streams packed B; many rows: B is packed per mc
+// block) it does.
+func PackAhead(m int, transB bool) bool {
 	kern := active.Load()
-	if kern.fnStrided == nil {
+	if kern.fnStrided == nil || transB {
 		return true
 	}
 	return m <= kern.maxMStream || m > kern.maxMDirect

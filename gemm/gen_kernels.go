@@ -1,6 +1,6 @@
 //go:build ignore
 
-// gen_kernels writes the amd64 micro-kernels (kernel_avx512_amd64.s and
+// gen_kernels writes the amd64 micro-kernels (kernel_avx512*_amd64.s and
 // kernel_avx2_amd64.s). Run with `go generate ./gemm/` (or `go run gen_kernels.go`
 // inside gemm/). The kernels are emitted from a small template because every
 // register and offset in a fully unrolled MR×NR register tile is mechanical.
@@ -43,6 +43,8 @@ func main() {
 	gen(spec{file: "kernel_avx512b_amd64.s", name: "sgemmKernelAVX512B", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, bias: true})
 	gen(spec{file: "kernel_avx512sb_amd64.s", name: "sgemmKernelAVX512SB", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, bias: true})
 	gen(spec{file: "kernel_avx512o_amd64.s", name: "sgemmKernelAVX512O", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, offs: true})
+	gen(spec{file: "kernel_avx512w_amd64.s", name: "sgemmKernelAVX512W", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4})
+	gen(spec{file: "kernel_avx512ws_amd64.s", name: "sgemmKernelAVX512WS", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, strided: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
 

@@ -21,6 +21,12 @@ func sgemmKernelAVX512SB(kc int, a, b *float32, ldb int, c *float32, ldc int, al
 func sgemmKernelAVX512O(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 //go:noescape
+func sgemmKernelAVX512W(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX512WS(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
 func sgemmKernelAVX2(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 // avx512Kernel: 8×48 zmm tile (24 accumulators + 3 B vectors + 2 broadcast
@@ -40,6 +46,29 @@ var avx512Kernel = &kernel{
 	fnStream: sgemmKernelAVX512P, maxMStream: 16,
 	fnBias: sgemmKernelAVX512B, fnStridedBias: sgemmKernelAVX512SB,
 	fnOffs: sgemmKernelAVX512O,
+}
+
+// avx512WideKernel: 6×64 zmm tile (24 accumulators + 4 B vectors + 2
+// broadcast registers), the same 24 multiply-adds per k step as the 8×48
+// tile with 4 B loads and 6 broadcasts. It is not a kernel of its own in
+// the list: Sgemm takes it instead of avx512Kernel for products whose n
+// pads less to 64 columns than to 48 (widerFor), such as attention's
+// 64-column context products (n = 64: a 48-column tile plus a second one
+// with 16 of its 48 columns used) and 128- or 49-key score products.
+// Blocking as avx512Kernel (mc = 96 is a multiple of 6).
+var avx512WideKernel = &kernel{
+	name: "avx512w", mr: 6, nr: 64, kc: 384, mc: 96, nc: 3072,
+	fn: sgemmKernelAVX512W, fnStrided: sgemmKernelAVX512WS, maxMDirect: 128,
+}
+
+// widerFor returns the kernel a product of n columns runs on when k is the
+// active kernel: avx512WideKernel in place of avx512Kernel when n's padding
+// to 64 columns is smaller than to 48, else k.
+func widerFor(k *kernel, n int) *kernel {
+	if k == avx512Kernel && roundUp(n, 64)-n < roundUp(n, 48)-n {
+		return avx512WideKernel
+	}
+	return k
 }
 
 // avx2Kernel: 6×16 ymm tile (12 accumulators + 2 B vectors + 2 broadcast

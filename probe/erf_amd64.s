@@ -3,14 +3,16 @@
 // func erfAVX512(dst, src *float32, n int, table *float64) int
 //
 // erf of float32 values, eight at a time in float64 lanes, by the local
-// Taylor series of erf_f32.go around the centres c = k/4, k = ⌊4|x|⌋ < 16:
-// h = |x| − k/4 ∈ [0, 1/4), s = c20, s = fma(s, h, cₙ) for n = 19…0, the
-// sign of x, rounded to float32. table holds the coefficients
-// coefficient-major (erfVecTable: 21 × 16 float64); each coefficient is
-// looked up with one two-register permute (the first 8 centres held in
-// Z11…Z31, the other 8 read from memory). It stops before the first group
-// of 8 holding a value with |x| ≥ 4 or NaN and returns how many values it
-// wrote (a multiple of 8, at most n).
+// Taylor series of erf_f32.go around the nearest centre c = k/4,
+// k = round(4|x|) < 16: h = |x| − k/4 ∈ [−1/8, 1/8], the series to h¹⁴
+// evaluated as two independent Horner chains in h², E = c0 + c2·h² + … +
+// c14·h¹² and O = c1 + c3·h² + … + c13·h¹², s = E + h·O, then the sign of
+// x, rounded to float32. table holds the coefficients coefficient-major
+// (erfVecTable: 15 × 16 float64); each coefficient is looked up with one
+// two-register permute (the first 8 centres held in Z11…Z25, the other 8
+// read from memory). It stops before the first group of 8 holding a value
+// with |x| ≥ 3.875 (the last centre's half-width short of 4) or NaN and
+// returns how many values it wrote (a multiple of 8, at most n).
 TEXT ·erfAVX512(SB), NOSPLIT, $0-40
 	MOVQ dst+0(FP), DI
 	MOVQ src+8(FP), SI
@@ -20,11 +22,13 @@ TEXT ·erfAVX512(SB), NOSPLIT, $0-40
 	SHRQ $3, CX
 	JZ   done
 	MOVQ $0x7fffffffffffffff, R8
-	VPBROADCASTQ R8, Z6         // |x| mask
-	MOVQ $0x4010000000000000, R8 // 4.0: the table's end and the centres per unit
+	VPBROADCASTQ R8, Z6          // |x| mask
+	MOVQ $0x4010000000000000, R8 // 4.0: centres per unit
 	VPBROADCASTQ R8, Z7
 	MOVQ $0x3fd0000000000000, R8 // 1/4
 	VPBROADCASTQ R8, Z8
+	MOVQ $0x400f000000000000, R8 // 3.875: the table's end
+	VPBROADCASTQ R8, Z9
 	VMOVUPD 0(DX), Z11       // c0, centres 0…7
 	VMOVUPD 128(DX), Z12       // c1, centres 0…7
 	VMOVUPD 256(DX), Z13       // c2, centres 0…7
@@ -40,86 +44,63 @@ TEXT ·erfAVX512(SB), NOSPLIT, $0-40
 	VMOVUPD 1536(DX), Z23       // c12, centres 0…7
 	VMOVUPD 1664(DX), Z24       // c13, centres 0…7
 	VMOVUPD 1792(DX), Z25       // c14, centres 0…7
-	VMOVUPD 1920(DX), Z26       // c15, centres 0…7
-	VMOVUPD 2048(DX), Z27       // c16, centres 0…7
-	VMOVUPD 2176(DX), Z28       // c17, centres 0…7
-	VMOVUPD 2304(DX), Z29       // c18, centres 0…7
-	VMOVUPD 2432(DX), Z30       // c19, centres 0…7
-	VMOVUPD 2560(DX), Z31       // c20, centres 0…7
 
 loop:
 	VCVTPS2PD (SI), Z0           // x
 	VANDPD Z6, Z0, Z1            // a = |x|
-	VCMPPD $0x11, Z7, Z1, K1     // a < 4 (ordered: NaN false)
+	VCMPPD $0x11, Z9, Z1, K1     // a < 3.875 (ordered: NaN false)
 	KORTESTB K1, K1
 	JNC  done                    // some lane off the table: stop here
 	VMULPD Z7, Z1, Z5            // 4a
-	VCVTTPD2QQ Z5, Z3            // k = ⌊4a⌋
-	VCVTQQ2PD Z3, Z5
+	VRNDSCALEPD $8, Z5, Z5       // round(4a), nearest
+	VCVTPD2QQ Z5, Z3             // k
 	VMULPD Z8, Z5, Z5            // k/4
 	VSUBPD Z5, Z1, Z2            // h (exact)
+	VMULPD Z2, Z2, Z10           // h²
 	VMOVDQA64 Z3, Z4
-	VPERMI2PD 2624(DX), Z31, Z4 // s = c20
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 2496(DX), Z30, Z5 // c19
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 2368(DX), Z29, Z5 // c18
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 2240(DX), Z28, Z5 // c17
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 2112(DX), Z27, Z5 // c16
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 1984(DX), Z26, Z5 // c15
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 1856(DX), Z25, Z5 // c14
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 1728(DX), Z24, Z5 // c13
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VPERMI2PD 1856(DX), Z25, Z4 // c14
+	VMOVDQA64 Z3, Z26
+	VPERMI2PD 1728(DX), Z24, Z26 // c13
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 1600(DX), Z23, Z5 // c12
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 1472(DX), Z22, Z5 // c11
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c12
+	VMOVDQA64 Z3, Z27
+	VPERMI2PD 1472(DX), Z22, Z27 // c11
+	VFMADD213PD Z27, Z10, Z26   // O = O·h² + c11
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 1344(DX), Z21, Z5 // c10
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 1216(DX), Z20, Z5 // c9
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c10
+	VMOVDQA64 Z3, Z27
+	VPERMI2PD 1216(DX), Z20, Z27 // c9
+	VFMADD213PD Z27, Z10, Z26   // O = O·h² + c9
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 1088(DX), Z19, Z5 // c8
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 960(DX), Z18, Z5 // c7
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c8
+	VMOVDQA64 Z3, Z27
+	VPERMI2PD 960(DX), Z18, Z27 // c7
+	VFMADD213PD Z27, Z10, Z26   // O = O·h² + c7
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 832(DX), Z17, Z5 // c6
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 704(DX), Z16, Z5 // c5
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c6
+	VMOVDQA64 Z3, Z27
+	VPERMI2PD 704(DX), Z16, Z27 // c5
+	VFMADD213PD Z27, Z10, Z26   // O = O·h² + c5
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 576(DX), Z15, Z5 // c4
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 448(DX), Z14, Z5 // c3
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c4
+	VMOVDQA64 Z3, Z27
+	VPERMI2PD 448(DX), Z14, Z27 // c3
+	VFMADD213PD Z27, Z10, Z26   // O = O·h² + c3
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 320(DX), Z13, Z5 // c2
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
-	VMOVDQA64 Z3, Z5
-	VPERMI2PD 192(DX), Z12, Z5 // c1
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c2
+	VMOVDQA64 Z3, Z27
+	VPERMI2PD 192(DX), Z12, Z27 // c1
+	VFMADD213PD Z27, Z10, Z26   // O = O·h² + c1
 	VMOVDQA64 Z3, Z5
 	VPERMI2PD 64(DX), Z11, Z5 // c0
-	VFMADD213PD Z5, Z2, Z4      // s = s·h + cₙ
+	VFMADD213PD Z5, Z10, Z4     // E = E·h² + c0
+	VFMADD231PD Z26, Z2, Z4      // s = E + h·O
 	VPTERNLOGQ $0xe2, Z0, Z6, Z4 // magnitude bits from s, the sign bit from x
 	VCVTPD2PS Z4, Y4
 	VMOVUPS Y4, (DI)

@@ -95,3 +95,18 @@ func TestErfVecMatchesGo(t *testing.T) {
 		}
 	}
 }
+
+// BenchmarkErfGELU: erf on GELU's x/√2 for standard normal x, the values
+// the encoders' Erf nodes see.
+func BenchmarkErfGELU(b *testing.B) {
+	r := rand.New(rand.NewPCG(1, 2))
+	x := make([]float32, 1<<16)
+	for i := range x {
+		x[i] = float32(r.NormFloat64() / math.Sqrt2)
+	}
+	y := make([]float32, len(x))
+	b.SetBytes(int64(4 * len(x)))
+	for b.Loop() {
+		erfF32(y, x)
+	}
+}

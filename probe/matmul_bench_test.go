@@ -3,10 +3,11 @@ package probe
 import (
 	"fmt"
 
-	"github.com/vitals-health/vitals/gemm"
 	"math/rand"
 	"testing"
 
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/tensor"
 )
 
@@ -98,8 +99,54 @@ func TestMatMulPackAheadRows(t *testing.T) {
 			want = r.Out[0].F32()
 		})
 		closeF32(t, fmt.Sprint("MatMul ", shape), got, want, 1e-5)
-		if packed := packCached(w); packed != gemm.PackAhead(rows) {
-			t.Errorf("A %v (%d rows): packed copy kept = %v, gemm.PackAhead = %v", shape, rows, packed, gemm.PackAhead(rows))
+		if packed := packCached(w); packed != gemm.PackAhead(rows, false) {
+			t.Errorf("A %v (%d rows): packed copy kept = %v, gemm.PackAhead = %v", shape, rows, packed, gemm.PackAhead(rows, false))
+		}
+	}
+}
+
+// Gemm with a constant transposed B (transB=1, the layout of exported
+// Linear layers) keeps a packed copy at every row count, 64 rows included,
+// where a non-transposed B is read in place; products match the gonum
+// reference SGEMM, with and without C.
+func TestGemmTransBPackedAhead(t *testing.T) {
+	rng := rand.New(rand.NewSource(8))
+	fill := func(shape ...int) *tensor.Tensor {
+		n := 1
+		for _, d := range shape {
+			n *= d
+		}
+		v := make([]float32, n)
+		for i := range v {
+			v[i] = float32(rng.NormFloat64())
+		}
+		return tensor.From(v, shape...)
+	}
+	attrs := map[string]*loader.Attr{"transB": {Name: "transB", Kind: loader.AttrInt, I: 1}}
+	for _, rows := range []int{4, 64, 200} {
+		for _, withC := range []bool{false, true} {
+			a, w, bias := fill(rows, 33), fill(71, 33), fill(71)
+			names, in := []string{"a", "w"}, []*tensor.Tensor{a, w}
+			if withC {
+				names, in = append(names, "bias"), append(in, bias)
+			}
+			c := fastCall("Gemm", attrs, 13, names, map[string]bool{"w": true, "bias": true}, in...)
+			if err := gemmKernel(c); err != nil {
+				t.Fatal(err)
+			}
+			got := c.Out[0].F32()
+			var want []float32
+			withReference(func() {
+				r := fastCall("Gemm", attrs, 13, names, map[string]bool{"w": true, "bias": true}, in...)
+				if err := gemmKernel(r); err != nil {
+					t.Fatal(err)
+				}
+				want = r.Out[0].F32()
+			})
+			closeF32(t, fmt.Sprint("Gemm transB rows ", rows, " C ", withC), got, want, 1e-5)
+			if !packCached(w) {
+				t.Errorf("%d rows: transposed B not kept packed", rows)
+			}
 		}
 	}
 }

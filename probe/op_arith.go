@@ -71,7 +71,7 @@ func arith(op opID) Kernel {
 		out := c.Arena().NewUninit(a.DType, os) // every element is written below
 		switch x := a.Data.(type) {
 		case []float32:
-			if !arithF32Fast(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) {
+			if !arithF32Fast(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) && !arithF32Runs(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) {
 				applyArith(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape)
 			}
 		case []float64:

@@ -104,3 +104,17 @@ func TestElemClipAndDropout(t *testing.T) {
 		t.Errorf("opset 7 mask: %v %v", out[1], err)
 	}
 }
+
+// Dropout's inference mask is all true (ONNX Dropout, opset 12: "mask" is
+// all ones when not training) for every length, powers of two and not.
+func TestFillTrueAllLengths(t *testing.T) {
+	for _, n := range []int{0, 1, 2, 3, 7, 64, 1000, 4097} {
+		b := make([]bool, n)
+		fillTrue(b)
+		for i, v := range b {
+			if !v {
+				t.Fatalf("n=%d: element %d false", n, i)
+			}
+		}
+	}
+}

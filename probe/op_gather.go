@@ -66,7 +66,7 @@ func gatherKernel(c *Call) error {
 		}
 	}
 	shape := append(append(append([]int{}, x.Shape[:axis]...), it.Shape...), x.Shape[axis+1:]...)
-	out, err := shapeNew(c.Arena(), x.DType, shape)
+	out, err := shapeNewUninit(c.Arena(), x.DType, shape) // the blocks cover the output
 	if err != nil {
 		return err
 	}

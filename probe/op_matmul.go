@@ -290,7 +290,9 @@ func gemmKernel(c *Call) error {
 		return fmt.Errorf("Gemm inner dimensions differ: A %v (transA=%v), B %v (transB=%v)", a.Shape, tA, b.Shape, tB)
 	}
 	alpha, beta := c.Float("alpha", 1), c.Float("beta", 1)
-	out := c.Arena().New(a.DType, []int{m, n})
+	// every element is written: by C's broadcast below, or by the product
+	// with beta 0 (which never reads the output)
+	out := c.Arena().NewUninit(a.DType, []int{m, n})
 	if cc != nil && beta != 0 {
 		if _, err := Broadcast(cc.Shape, out.Shape); err != nil || cc.Rank() > 2 {
 			return fmt.Errorf("Gemm C of shape %v does not broadcast to %v", cc.Shape, out.Shape)
@@ -306,7 +308,7 @@ func gemmKernel(c *Call) error {
 		beta = 0
 	}
 	lda, ldb := max(a.Shape[1], 1), max(b.Shape[1], 1)
-	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference && gemm.PackAhead(m) && packRoom(b) {
+	if av, ok := a.Data.([]float32); ok && m > 0 && n > 0 && k > 0 && alpha != 0 && c.isInitializer(1) && !linGemmReference && gemm.PackAhead(m, tB) && packRoom(b) {
 		pb := packedRight(b, b.F32(), tB, k, n, ldb)
 		gemm.SgemmPackedB(tA, m, alpha, av, lda, pb, beta, out.F32(), n)
 		c.Set(0, out)
@@ -350,7 +352,7 @@ func matMulPackedB(ar *tensor.Arena, a *tensor.Tensor, ad []float32, b *tensor.T
 	out := res.F32()
 	switch {
 	case rows == 0:
-	case gemm.PackAhead(rows) && packRoom(b):
+	case gemm.PackAhead(rows, false) && packRoom(b):
 		pb := packedRight(b, b.F32(), false, k, n, n)
 		gemm.SgemmPackedB(false, rows, 1, ad, k, pb, 0, out, n)
 	default:

@@ -297,7 +297,7 @@ func tileKernel(c *Call) error {
 		}
 		shape[i] = x.Shape[i] * n
 	}
-	out, err := shapeNew(c.Arena(), x.DType, shape)
+	out, err := shapeNewUninit(c.Arena(), x.DType, shape) // every element is copied
 	if err != nil {
 		return err
 	}

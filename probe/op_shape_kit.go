@@ -65,7 +65,7 @@ func shapeOpsFor(data any) (shapeMover, error) {
 }
 
 func (shapeMoverT[T]) strided(dst any, dOff int, dStr []int, src any, sOff int, sStr []int, dims []int) {
-	shapeStridedT(dst.([]T), dOff, dStr, src.([]T), sOff, sStr, dims)
+	shapeStridedPar(dst.([]T), dOff, dStr, src.([]T), sOff, sStr, dims)
 }
 
 func (shapeMoverT[T]) take(dst, src any, offs []int) {
@@ -90,16 +90,7 @@ func (shapeMoverT[T]) putAt(dst, src any, at int, offs []int) {
 }
 
 func (shapeMoverT[T]) blocks(dst, src any, offs []int, n int) {
-	d, s := dst.([]T), src.([]T)
-	if n == 1 {
-		for i, o := range offs {
-			d[i] = s[o]
-		}
-		return
-	}
-	for i, o := range offs {
-		copy(d[i*n:(i+1)*n], s[o:o+n])
-	}
+	shapeBlocksPar(dst.([]T), src.([]T), offs, n)
 }
 
 func (shapeMoverT[T]) fill(dst, src any, at int) {
@@ -225,7 +216,7 @@ func shapeNew(ar *tensor.Arena, dt tensor.DType, shape []int) (*tensor.Tensor, e
 
 // shapeView copies the view (off, strides over dims) of t into a new contiguous tensor of shape dims.
 func shapeView(ar *tensor.Arena, t *tensor.Tensor, off int, strides, dims []int) (*tensor.Tensor, error) {
-	out, err := shapeNew(ar, t.DType, dims)
+	out, err := shapeNewUninit(ar, t.DType, dims) // every element is copied
 	if err != nil {
 		return nil, err
 	}

@@ -54,7 +54,8 @@ func concatKernel(c *Call) error {
 		}
 		shape[axis] += t.Shape[axis]
 	}
-	out, err := shapeNew(c.Arena(), first.DType, shape)
+	// the inputs cover the output along axis: every element is written
+	out, err := shapeNewUninit(c.Arena(), first.DType, shape)
 	if err != nil {
 		return err
 	}
