@@ -16,7 +16,9 @@
 # Usage: bench/breadth.sh [model ...]   (default: all twelve)
 # Environment: A, B (sample counts, default 8 and 40), REPS (best of, default
 # 2), VITALS (a vitals binary to time instead of building this tree's, e.g.
-# an older build for a before/after table).
+# an older build for a before/after table), VITALS_BREADTH_DIR (the models),
+# VITALS_BREADTH_TMP (the run's binaries and scratch files; default a fresh
+# directory per run, so two runs at once do not overwrite each other's).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 A=${A:-8}
@@ -24,6 +26,8 @@ B=${B:-40}
 REPS=${REPS:-2}
 BATCH=8
 DIR=${VITALS_BREADTH_DIR:-/tmp/vitals-breadth}
+TMPD=${VITALS_BREADTH_TMP:-$(mktemp -d /tmp/vitals-breadth-run.XXXXXX)}
+mkdir -p "$TMPD"
 PY=/usr/bin/python3
 all=(efficientnet_b0 mobilenet_v3_large mnasnet1_0 deeplabv3_mobilenet_v3 regnet_y_800mf densenet121
 	convnext_tiny swin_t googlenet inception_v3 resnet50 ssdlite)
@@ -41,11 +45,11 @@ if [ ! -d bench/ort/node_modules/onnxruntime-node ]; then
 	(cd bench/ort && ONNXRUNTIME_NODE_INSTALL=skip npm install --no-audit --no-fund --silent)
 fi
 if [ -n "${VITALS:-}" ]; then
-	cp "$VITALS" /tmp/vitals-breadth-vitals
+	cp "$VITALS" "$TMPD/vitals"
 else
-	go build -o /tmp/vitals-breadth-vitals ./cmd/vitals
+	go build -o "$TMPD/vitals" ./cmd/vitals
 fi
-go build -o /tmp/vitals-breadth-detectcheck ./bench/detectcheck
+go build -o "$TMPD/detectcheck" ./bench/detectcheck
 
 # seconds of one whole `vitals check` over the first $2 items of model $1
 vitals_time() {
@@ -53,13 +57,13 @@ vitals_time() {
 	[ "$m" = ssdlite ] && batch=()
 	t0=$(date +%s.%N)
 	set +e
-	/tmp/vitals-breadth-vitals check "$DIR/$m.onnx" --data "$DIR/$m.npy" "${batch[@]}" --samples "$n" --format json >/dev/null 2>/tmp/vitals-breadth-err.txt
+	"$TMPD/vitals" check "$DIR/$m.onnx" --data "$DIR/$m.npy" "${batch[@]}" --samples "$n" --format json >/dev/null 2>"$TMPD/err.txt"
 	rc=$?
 	set -e
 	t1=$(date +%s.%N)
 	if [ $rc -gt 1 ]; then
 		echo "vitals check failed on $m:" >&2
-		cat /tmp/vitals-breadth-err.txt >&2
+		cat "$TMPD/err.txt" >&2
 		exit 1
 	fi
 	awk -v a="$t0" -v b="$t1" 'BEGIN {printf "%.4f", b - a}'
@@ -92,7 +96,7 @@ for m in "${models[@]}"; do
 	if [ "$m" = ssdlite ]; then
 		echo
 		echo "SSDLite outputs against ONNX Runtime (first 4 images):"
-		(cd bench/ort && node outputs.js "$DIR/ssdlite.onnx" "$DIR/ssdlite.npy" 4 /tmp/vitals-breadth-ort.json)
-		/tmp/vitals-breadth-detectcheck -model "$DIR/ssdlite.onnx" -data "$DIR/ssdlite.npy" -ort /tmp/vitals-breadth-ort.json -items 4
+		(cd bench/ort && node outputs.js "$DIR/ssdlite.onnx" "$DIR/ssdlite.npy" 4 "$TMPD/ort.json")
+		"$TMPD/detectcheck" -model "$DIR/ssdlite.onnx" -data "$DIR/ssdlite.npy" -ort "$TMPD/ort.json" -items 4
 	fi
 done

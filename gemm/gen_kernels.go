@@ -31,6 +31,7 @@ type spec struct {
 	reg        string // "Z" or "Y"
 	unroll     int
 	strided    bool // B read in place: NR floats per k step at row stride ldb
+	offs       bool // B read in place: row p of the micro-panel at b + offs[p] (with strided)
 	prefetchB  int  // if > 0: prefetch packed B this many bytes ahead (streaming from memory)
 	bias       bool // accumulators start from bias[i] (one more argument, bias *float32)
 }
@@ -41,6 +42,7 @@ func main() {
 	gen(spec{file: "kernel_avx512p_amd64.s", name: "sgemmKernelAVX512P", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, prefetchB: 16384})
 	gen(spec{file: "kernel_avx512b_amd64.s", name: "sgemmKernelAVX512B", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, bias: true})
 	gen(spec{file: "kernel_avx512sb_amd64.s", name: "sgemmKernelAVX512SB", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, bias: true})
+	gen(spec{file: "kernel_avx512o_amd64.s", name: "sgemmKernelAVX512O", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, offs: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
 
@@ -63,7 +65,11 @@ func gen(s spec) {
 	p("")
 	// Argument frame offsets.
 	oC, oLdc, oAlpha, oBeta, oBZ, frame := 24, 32, 40, 44, 48, 56
-	if s.strided {
+	if s.offs {
+		p("// func %s(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+		p("// As the packed kernel, but B is read in place: row p of the micro-panel at b + offs[p].")
+		oC, oLdc, oAlpha, oBeta, oBZ, frame = 32, 40, 48, 52, 56, 64
+	} else if s.strided {
 		p("// func %s(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
 		p("// As the packed kernel, but B is read in place: row p of the micro-panel at b + p·ldb.")
 		oC, oLdc, oAlpha, oBeta, oBZ, frame = 32, 40, 48, 52, 56, 64
@@ -82,7 +88,9 @@ func gen(s spec) {
 	p("\tMOVQ kc+0(FP), CX")
 	p("\tMOVQ a+8(FP), SI")
 	p("\tMOVQ b+16(FP), DI")
-	if s.strided {
+	if s.offs {
+		p("\tMOVQ offs+24(FP), R11")
+	} else if s.strided {
 		p("\tMOVQ ldb+24(FP), R11")
 		p("\tSHLQ $2, R11")
 	}
@@ -116,14 +124,19 @@ func gen(s spec) {
 		}
 	}
 	step := func(u int) {
+		if s.offs {
+			p("\tMOVQ %d(R11), AX", u*8)
+		}
 		for j := 0; j < nv; j++ {
-			if s.strided {
+			if s.offs {
+				p("\tVMOVUPS %d(DI)(AX*4), %s", j*vb, breg(j))
+			} else if s.strided {
 				p("\tVMOVUPS %d(DI), %s", j*vb, breg(j))
 			} else {
 				p("\tVMOVUPS %d(DI), %s", (u*s.nr)*4+j*vb, breg(j))
 			}
 		}
-		if s.strided {
+		if s.strided && !s.offs {
 			p("\tADDQ R11, DI")
 		}
 		for i := 0; i < s.mr; i++ {
@@ -148,6 +161,9 @@ func gen(s spec) {
 		step(u)
 	}
 	p("\tADDQ $%d, SI", s.mr*4*s.unroll)
+	if s.offs {
+		p("\tADDQ $%d, R11", 8*s.unroll)
+	}
 	if !s.strided {
 		p("\tADDQ $%d, DI", s.nr*4*s.unroll)
 	}
@@ -159,6 +175,9 @@ func gen(s spec) {
 	p("loop1:")
 	step(0)
 	p("\tADDQ $%d, SI", s.mr*4)
+	if s.offs {
+		p("\tADDQ $8, R11")
+	}
 	if !s.strided {
 		p("\tADDQ $%d, DI", s.nr*4)
 	}

@@ -21,6 +21,10 @@ type stridedKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alp
 // accumulators start from bias[i] (MR values) instead of 0.
 type biasKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
 
+// offsKernel is a microKernel reading B in place with a row table: row p
+// of the kc×NR micro-panel starts at b + offs[p] (NR floats).
+type offsKernel func(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
 type stridedBiasKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
 
 // kernel describes one micro-kernel and the cache blocking chosen for it.
@@ -57,6 +61,8 @@ type kernel struct {
 	// SgemmPackedABias) adds it in registers instead of reading it from C.
 	fnBias        biasKernel
 	fnStridedBias stridedBiasKernel
+	// fnOffs, if set, reads B through a row table (see SgemmPackedAOffsets).
+	fnOffs offsKernel
 }
 
 // kcFor returns the k-slice depth used for a product of depth k: the k range

@@ -18,6 +18,9 @@ func sgemmKernelAVX512B(kc int, a, b, c *float32, ldc int, alpha, beta float32, 
 func sgemmKernelAVX512SB(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
 
 //go:noescape
+func sgemmKernelAVX512O(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
 func sgemmKernelAVX2(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 // avx512Kernel: 8×48 zmm tile (24 accumulators + 3 B vectors + 2 broadcast
@@ -36,6 +39,7 @@ var avx512Kernel = &kernel{
 	fn: sgemmKernelAVX512, fnStrided: sgemmKernelAVX512S, maxMDirect: 128,
 	fnStream: sgemmKernelAVX512P, maxMStream: 16,
 	fnBias: sgemmKernelAVX512B, fnStridedBias: sgemmKernelAVX512SB,
+	fnOffs: sgemmKernelAVX512O,
 }
 
 // avx2Kernel: 6×16 ymm tile (12 accumulators + 2 B vectors + 2 broadcast

@@ -76,6 +76,14 @@ var actVecLevel = func() int {
 func actVec(dst, src []float32, op actOp, p *[3]float64) int {
 	switch actVecLevel {
 	case 2:
+		if op == actSigmoid {
+			// float32 lanes, every value (act32_amd64.go)
+			n := min(len(dst), len(src))
+			if n > 0 {
+				sigmoid32AVX512(&dst[0], &src[0], n, &sigmoid32Table, nil, 0)
+			}
+			return n
+		}
 		n := min(len(dst), len(src)) &^ 7
 		if n > 0 {
 			actAVX512(&dst[0], &src[0], n, int(op), &actTable, p)
@@ -93,4 +101,24 @@ func actVec(dst, src []float32, op actOp, p *[3]float64) int {
 		return n
 	}
 	return 0
+}
+
+// siluVec sets dst = sigmoid(src) and mul = src·dst (Mul(src, dst), or
+// Mul(dst, src) if sigFirst) in one pass of float32 lanes, and reports
+// whether it did (AVX-512 only: the values of sigmoidF32 then vvF32).
+func siluVec(dst, mul, src []float32, sigFirst bool) bool {
+	if actVecLevel != 2 {
+		return false
+	}
+	n := len(src)
+	if n == 0 {
+		return true
+	}
+	_, _ = dst[n-1], mul[n-1]
+	order := 0
+	if sigFirst {
+		order = 1
+	}
+	sigmoid32AVX512(&dst[0], &src[0], n, &sigmoid32Table, &mul[0], order)
+	return true
 }

@@ -23,6 +23,12 @@ import (
 // 1e-5 bound leaves room and still fails a kernel that is off in general.
 // NaN must stay NaN; ±0 compare equal (the formulas differ in the sign of
 // zero only where the operator's definition does not fix it).
+//
+// Sigmoid at the AVX-512 level runs in float32 lanes (sigmoid32AVX512):
+// tolerance 2 ulp, its error bound (a few half-ulp roundings, see
+// act32_amd64.go), and at most 2% of the values off at all (measured: none
+// off by 2, 0.90% off by 1 — a kernel without the compensated 1 + E or the
+// Newton step is off by 1 on a large share of the values or by more than 2).
 
 type actCase struct {
 	name string
@@ -83,6 +89,12 @@ func ulpDiff(a, b float32) uint32 {
 	return uint32(min(d, math.MaxUint32))
 }
 
+// actFloat32Lanes reports whether activation name runs in float32 lanes at
+// the current vector level (the others evaluate their formula in float64).
+func actFloat32Lanes(name string) bool {
+	return actVecLevel == 2 && name == "Sigmoid"
+}
+
 func TestActivationsMatchMath(t *testing.T) {
 	saved := actVecLevel
 	defer func() { actVecLevel = saved }()
@@ -105,11 +117,15 @@ func activationSweep(t *testing.T, stride uint64) {
 	for _, tc := range actCases() {
 		tc.k(got, x)
 		off, bad := 0, 0
+		maxUlp, maxOff := uint32(1), len(x)/100000
+		if actFloat32Lanes(tc.name) {
+			maxUlp, maxOff = 2, len(x)/50
+		}
 		for i, v := range x {
 			w := float32(tc.ref(float64(v)))
 			switch d := ulpDiff(got[i], w); {
 			case d == 0:
-			case d == 1:
+			case d <= maxUlp:
 				off++
 			default:
 				if bad < 5 {
@@ -118,10 +134,10 @@ func activationSweep(t *testing.T, stride uint64) {
 				bad++
 			}
 		}
-		if bad > 0 || off > len(x)/100000 {
-			t.Errorf("%s (vector level %d): %d values more than 1 ulp off, %d off by 1 ulp of %d", tc.name, actVecLevel, bad, off, len(x))
+		if bad > 0 || off > maxOff {
+			t.Errorf("%s (vector level %d): %d values more than %d ulp off, %d off by up to %[4]d ulp of %d", tc.name, actVecLevel, bad, maxUlp, off, len(x))
 		} else {
-			t.Logf("%s: %d of %d values 1 ulp off (vector level %d)", tc.name, off, len(x), actVecLevel)
+			t.Logf("%s: %d of %d values off by up to %d ulp (vector level %d)", tc.name, off, len(x), maxUlp, actVecLevel)
 		}
 	}
 }
@@ -196,4 +212,30 @@ func TestActivationsIndependentOfSpan(t *testing.T) {
 			}
 		}
 	}
+}
+
+// BenchmarkSiLU times the fused SiLU's two outputs (sigmoid and x·sigmoid)
+// on a 112×112 plane (in cache, as a Conv applies it plane by plane): one
+// pass (siluVec, where it runs) against Sigmoid then Mul.
+func BenchmarkSiLU(b *testing.B) {
+	x := make([]float32, 112*112)
+	for i := range x {
+		x[i] = float32(i-len(x)/2) / 1024
+	}
+	s, y := make([]float32, len(x)), make([]float32, len(x))
+	b.Run("fused", func(b *testing.B) {
+		b.SetBytes(int64(4 * len(x)))
+		for b.Loop() {
+			if !siluVec(s, y, x, false) {
+				b.Skip("no one-pass kernel")
+			}
+		}
+	})
+	b.Run("two-pass", func(b *testing.B) {
+		b.SetBytes(int64(4 * len(x)))
+		for b.Loop() {
+			sigmoidF32(s, x)
+			vvF32(mulT, y, x, s)
+		}
+	})
 }

@@ -38,6 +38,10 @@ func convDepthwise2D(a *convF32Args) {
 	row3 := KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 && (g.strides[1] == 1 || g.strides[1] == 2) && W <= len(dwZeroRow)
 	flat := row3 && g.strides[0] == 1 && g.strides[1] == 1 && OW < dwFlatWidth
 	taps := !row3 && KH*KW <= dwMaxTaps
+	var offs []int
+	if taps {
+		offs = dwTapOffsets(g)
+	}
 	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
 		var scratch *[]float32
 		if flat {
@@ -62,7 +66,7 @@ func convDepthwise2D(a *convF32Args) {
 			} else if row3 {
 				dw3x3Plane(y, x, w, bias, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
 			} else if taps {
-				dwTapsPlane(y, x, w, bias, H, W, OH, OW, KH, KW, g, *scratch)
+				dwTapsPlane(y, x, w, bias, H, W, OH, OW, offs, g, *scratch)
 			} else {
 				for i := range y {
 					y[i] = bias
@@ -253,7 +257,7 @@ func convF32WithAct(a *convF32Args, shape []int) {
 		return
 	}
 	ad := f.out.F32()
-	if convIsImplicit(a) || a.direct {
+	if convIsImplicit(a) || a.direct || convGroupedFits(a) {
 		// convImplicit2D and convDirect apply f to each finished block of Y
 		a.act, a.actOut = f.f32, ad
 		convFastF32(a)

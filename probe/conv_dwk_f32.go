@@ -33,11 +33,26 @@ func dwTapsScratch(g *convGeom) int {
 	return g.strides[0]*g.strides[1]*Hq*Wq + g.out[0]*Wq
 }
 
-// dwTapsPlane writes one output plane (see above); scratch holds
-// dwTapsScratch(g) values.
-func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW, KH, KW int, g *convGeom, scratch []float32) {
+// dwTapOffsets is, for each tap (kh, kw) in order, the offset of its run in
+// dwTapsPlane's phase planes: computed once per Conv node, not per plane.
+func dwTapOffsets(g *convGeom) []int {
 	sh, sw := g.strides[0], g.strides[1]
-	dh, dw := g.dil[0], g.dil[1]
+	Hq, Wq := dwTapsDims(g)
+	plane := Hq * Wq
+	offs := make([]int, 0, g.k[0]*g.k[1])
+	for kh := 0; kh < g.k[0]; kh++ {
+		for kw := 0; kw < g.k[1]; kw++ {
+			a, b := kh*g.dil[0], kw*g.dil[1]
+			offs = append(offs, ((a%sh)*sw+b%sw)*plane+(a/sh)*Wq+b/sw)
+		}
+	}
+	return offs
+}
+
+// dwTapsPlane writes one output plane (see above); scratch holds
+// dwTapsScratch(g) values, offs is dwTapOffsets(g).
+func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW int, offs []int, g *convGeom, scratch []float32) {
+	sh, sw := g.strides[0], g.strides[1]
 	pt, pl := g.padBeg[0], g.padBeg[1]
 	Hq, Wq := dwTapsDims(g)
 	plane := Hq * Wq
@@ -51,14 +66,9 @@ func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW, KH, KW int, g *c
 	out := scratch[sh*sw*plane : sh*sw*plane+n]
 	var srcs [dwMaxTaps][]float32
 	var ptrs [dwMaxTaps]unsafe.Pointer
-	taps := 0
-	for kh := 0; kh < KH; kh++ {
-		for kw := 0; kw < KW; kw++ {
-			a, b := kh*dh, kw*dw
-			at := ((a%sh)*sw+b%sw)*plane + (a/sh)*Wq + b/sw
-			srcs[taps] = phases[at : at+n]
-			taps++
-		}
+	taps := len(offs)
+	for t, at := range offs {
+		srcs[t] = phases[at : at+n]
 	}
 	dwTaps(out, srcs[:taps], w[:taps], bias, ptrs[:taps])
 	for oh := 0; oh < OH; oh++ {
@@ -94,6 +104,11 @@ func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int) {
 			break
 		}
 		row := x[ih*W : (ih+1)*W]
+		if sw == 2 {
+			base := (r%sh)*2*plane + (r/sh)*Wq
+			dwPhasePairs(phases[base:base+Wq], phases[base+plane:base+plane+Wq], row, pl)
+			continue
+		}
 		for ph := 0; ph < sw; ph++ {
 			// columns c = iw + pl ≡ ph (mod sw), from the first such iw ≥ 0
 			iw := ((ph-pl)%sw + sw) % sw
@@ -111,6 +126,33 @@ func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int) {
 				dst[k] = row[iw+k*sw]
 			}
 		}
+	}
+}
+
+// dwPhasePairs writes one input row into its two column phases (padded
+// column c = iw + pl goes to even[c/2] for even c, odd[c/2] for odd c, none
+// past Wq = len(even)), reading the row once.
+func dwPhasePairs(even, odd, row []float32, pl int) {
+	Wq, W := len(even), len(row)
+	iw := 0
+	if pl%2 == 1 {
+		if pl/2 < Wq && W > 0 {
+			odd[pl/2] = row[0]
+		}
+		iw = 1
+	}
+	j0 := (iw + pl) / 2
+	n := max(0, min((W-iw)/2, Wq-j0))
+	if n > 0 {
+		src := row[iw : iw+2*n]
+		e, o := even[j0:j0+n], odd[j0:j0+n]
+		for j := range e {
+			e[j], o[j] = src[2*j], src[2*j+1]
+		}
+	}
+	iw += 2 * n
+	if iw < W && (iw+pl)/2 < Wq {
+		even[(iw+pl)/2] = row[iw]
 	}
 }
 

@@ -107,6 +107,7 @@ func benchDWTaps(b *testing.B, C, H, K, s int, generic bool) {
 	g.out = []int{OH, OH}
 	y := make([]float32, OH*OH)
 	scratch := make([]float32, dwTapsScratch(&g))
+	offs := dwTapOffsets(&g)
 	b.SetBytes(int64(4 * x.Size()))
 	for b.Loop() {
 		for pl := 0; pl < 8*C; pl++ {
@@ -115,7 +116,7 @@ func benchDWTaps(b *testing.B, C, H, K, s int, generic bool) {
 				clear(y)
 				dwGenericPlane(y, xp, wp, H, H, OH, OH, K, K, &g, 0, OH, 0, OH)
 			} else {
-				dwTapsPlane(y, xp, wp, 0, H, H, OH, OH, K, K, &g, scratch)
+				dwTapsPlane(y, xp, wp, 0, H, H, OH, OH, offs, &g, scratch)
 			}
 		}
 	}

@@ -47,6 +47,10 @@ func convFastF32(a *convF32Args) {
 		convDepthwise2D(a) // conv_dw_f32.go
 		return
 	}
+	if convGroupedFits(a) {
+		convGrouped(a) // conv_grouped_f32.go
+		return
+	}
 	implicit := convIsImplicit(a)
 	// bias first: the products accumulate onto it (convImplicit2D and
 	// convDirect place it themselves)
@@ -67,6 +71,10 @@ func convFastF32(a *convF32Args) {
 	var packs []*gemm.PackedA
 	if a.wConst && kg > 0 && packRoom(a.w) {
 		packs = packedConvWeights(a.w, a.wd, a.group, a.Mg, kg)
+	}
+	if convPointwiseFits(a, packs) {
+		convPointwise(a, packs, beta) // conv_pointwise_f32.go
+		return
 	}
 	if a.direct {
 		convDirect(a, packs, beta)

@@ -89,6 +89,10 @@ func (q *im2colPanels) padRange(dst, x []float32, lo, hi int, g *convGeom) {
 	for ic := lo; ic < hi; ic++ {
 		src := x[ic*H*W : (ic+1)*H*W]
 		for a := 0; a < sh; a++ {
+			if sw == 2 && padPairsOn {
+				q.padPairs(dst[(ic*sh+a)*2*plane:(ic*sh+a+1)*2*plane], src, a, g)
+				continue
+			}
 			for b := 0; b < sw; b++ {
 				d := dst[((ic*sh+a)*sw+b)*plane : ((ic*sh+a)*sw+b+1)*plane]
 				// phase columns whose input column b + q·sw − pl lies in [0, W)
@@ -172,6 +176,55 @@ func (q *im2colPanels) pack(nr int, dst []float32, p0, kc, j0, cols int) {
 					d[i] = s[i]
 				}
 			}
+		}
+	}
+}
+
+// padPairsOn enables padPairs (benchmarks compare).
+var padPairsOn = true
+
+// padPairs is padRange's row phase a of one channel for column stride 2:
+// both column phases (even and odd padded columns, planes d[:plane] and
+// d[plane:]) filled in one pass over each input row.
+func (q *im2colPanels) padPairs(d, src []float32, a int, g *convGeom) {
+	H, W, pt, pl := g.in[0], g.in[1], g.padBeg[0], g.padBeg[1]
+	plane := q.Hq * q.Wq
+	e0, e1 := convValidRange(q.Wq, 2, -pl, W)  // phase 0 columns: input 2j − pl
+	o0, o1 := convValidRange(q.Wq, 2, 1-pl, W) // phase 1 columns: input 2j + 1 − pl
+	lo, hi := max(e0, o0), min(e1, o1)         // both in the image
+	for r := 0; r < q.Hq; r++ {
+		r0 := d[r*q.Wq : (r+1)*q.Wq]
+		r1 := d[plane+r*q.Wq : plane+(r+1)*q.Wq]
+		ih := r*q.sh + a - pt
+		if ih < 0 || ih >= H {
+			clear(r0)
+			clear(r1)
+			continue
+		}
+		in := src[ih*W : (ih+1)*W]
+		clear(r0[:e0])
+		clear(r0[e1:])
+		clear(r1[:o0])
+		clear(r1[o1:])
+		if lo < hi {
+			s := in[2*lo-pl : 2*hi-pl]
+			a0, a1 := r0[lo:hi], r1[lo:hi]
+			a1 = a1[:len(a0)]
+			for j := range a0 {
+				a0[j], a1[j] = s[2*j], s[2*j+1]
+			}
+		}
+		for j := e0; j < min(lo, e1); j++ {
+			r0[j] = in[2*j-pl]
+		}
+		for j := max(hi, e0); j < e1; j++ {
+			r0[j] = in[2*j-pl]
+		}
+		for j := o0; j < min(lo, o1); j++ {
+			r1[j] = in[2*j+1-pl]
+		}
+		for j := max(hi, o0); j < o1; j++ {
+			r1[j] = in[2*j+1-pl]
 		}
 	}
 }

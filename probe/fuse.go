@@ -54,8 +54,11 @@ func (f *fusedAct) alloc(ar *tensor.Arena, shape []int) {
 // siluF32 is the f32 of a fused SiLU: dst = sigmoid(src), and the same span
 // of mul = src·dst. dst is out.F32()[o : o+len(dst)], so o = cap(out) − cap(dst).
 func (f *fusedAct) siluF32(dst, src []float32) {
-	sigmoidF32(dst, src)
 	o := cap(f.out.F32()) - cap(dst)
+	if siluVec(dst, f.mul.F32()[o:o+len(dst)], src, f.sigFirst) {
+		return
+	}
+	sigmoidF32(dst, src)
 	if f.sigFirst {
 		vvF32(mulT, f.mul.F32()[o:o+len(dst)], dst, src)
 	} else {

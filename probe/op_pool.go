@@ -405,7 +405,7 @@ func poolGlobalAvgF32(y, x []float32, planes int) {
 		for pl := p0; pl < p1; pl++ {
 			xp := x[pl*size : (pl+1)*size]
 			var a [8]float64
-			i := 0
+			i := sum8Vec(xp, &a) // the loop below in AVX-512 lanes
 			for ; i+8 <= len(xp); i += 8 {
 				v := xp[i : i+8 : i+8]
 				a[0] += float64(v[0])

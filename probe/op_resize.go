@@ -469,6 +469,13 @@ func resizeAxisRun[T Float](y, x []T, outer, in, inner, n int, t *resizeAxis, ex
 		resizeLastAxis(y, x, outer, in, n, t, extrap)
 		return
 	}
+	resizeRows(y, x, outer, in, inner, n, t, extrap)
+}
+
+// resizeRows is resizeAxisRun's general loop, any inner size: each output
+// row y[o, j, :] = Σ_q w[j,q]·x[o, idx[j,q], :] over the non-zero taps in
+// order, starting from 0 (the reference resizeLastAxis is tested against).
+func resizeRows[T Float](y, x []T, outer, in, inner, n int, t *resizeAxis, extrap T) {
 	for o := 0; o < outer; o++ {
 		src := x[o*in*inner : (o+1)*in*inner]
 		for j := 0; j < n; j++ {

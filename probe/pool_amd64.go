@@ -47,3 +47,20 @@ func maxCols3s2Vec(y, tmp []float32) int {
 	maxCols3s2AVX512(&y[1], &tmp[2], k)
 	return k
 }
+
+// sum8AVX512 adds x[8i+j] to acc[j] for i < n/8, in order (n a multiple
+// of 8): the same float64 additions as the Go loop it replaces.
+//
+//go:noescape
+func sum8AVX512(x *float32, n int, acc *[8]float64)
+
+// sum8Vec is the vector part of poolGlobalAvgF32's sum: it returns how
+// many leading values of x it added (a multiple of 8, 0 without AVX-512).
+func sum8Vec(x []float32, acc *[8]float64) int {
+	n := len(x) &^ 7
+	if !havePoolVec || n == 0 {
+		return 0
+	}
+	sum8AVX512(&x[0], n, acc)
+	return n
+}

@@ -107,3 +107,24 @@ cols:
 
 colsdone:
 	RET
+
+// func sum8AVX512(x *float32, n int, acc *[8]float64)
+// acc[j] += Σ_i x[8i + j] for i < n/8 (n a multiple of 8), in order, one
+// float64 lane per j: the additions of the Go loop of poolGlobalAvgF32.
+TEXT ·sum8AVX512(SB), NOSPLIT, $0-24
+	MOVQ x+0(FP), SI
+	MOVQ n+8(FP), CX
+	MOVQ acc+16(FP), DX
+	VMOVUPD (DX), Z0
+	SHRQ $3, CX
+	JZ   sumdone
+sumloop:
+	VCVTPS2PD (SI), Z1
+	VADDPD Z1, Z0, Z0
+	ADDQ $32, SI
+	DECQ CX
+	JNZ  sumloop
+sumdone:
+	VMOVUPD Z0, (DX)
+	VZEROUPPER
+	RET

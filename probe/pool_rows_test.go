@@ -110,3 +110,53 @@ func TestPoolGlobalAvgMatchesSequential(t *testing.T) {
 		}
 	}
 }
+
+// The AVX-512 sums of GlobalAveragePool (sum8Vec) give the Go loop's
+// values bit for bit (same float64 additions in the same order), NaN and
+// Inf included, on plane sizes around the 8-value groups.
+func TestPoolGlobalAvgVecSameBits(t *testing.T) {
+	r := rand.New(rand.NewSource(63))
+	for _, size := range []int{1, 7, 8, 9, 49, 196, 3137} {
+		planes := 5
+		x := linRand(r, planes*size).F32()
+		for i := range x {
+			x[i] *= float32(1 + i%13*1000) // magnitudes whose sums round
+		}
+		if size > 8 {
+			x[size+3] = float32(math.NaN())
+			x[2*size+5] = float32(math.Inf(-1))
+		}
+		got, want := make([]float32, planes), make([]float32, planes)
+		poolGlobalAvgF32(got, x, planes)
+		havePoolVec = false
+		poolGlobalAvgF32(want, x, planes)
+		havePoolVec = true
+		for i := range want {
+			if math.Float32bits(got[i]) != math.Float32bits(want[i]) && !(got[i] != got[i] && want[i] != want[i]) {
+				t.Fatalf("size %d plane %d: %g, Go loop %g", size, i, got[i], want[i])
+			}
+		}
+	}
+}
+
+// BenchmarkGlobalAvgPool: 8 images × 672 planes of 14×14 (an EfficientNet
+// squeeze-excitation input), one core.
+func BenchmarkGlobalAvgPool(b *testing.B) {
+	const planes, size = 8 * 672, 196
+	x := make([]float32, planes*size)
+	for i := range x {
+		x[i] = float32(i%101) / 101
+	}
+	y := make([]float32, planes)
+	saved := havePoolVec
+	defer func() { havePoolVec = saved }()
+	for _, vec := range []bool{saved, false} {
+		b.Run(fmt.Sprintf("vector=%v", vec), func(b *testing.B) {
+			havePoolVec = vec
+			b.SetBytes(int64(4 * len(x)))
+			for b.Loop() {
+				poolGlobalAvgF32(y, x, planes)
+			}
+		})
+	}
+}

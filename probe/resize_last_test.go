@@ -8,9 +8,9 @@ import (
 )
 
 // resizeLastAxis (the innermost axis: one dot product per output) against
-// the general per-row loop it bypasses, kept here as the reference, bit for
-// bit, for nearest, linear and cubic taps (ONNX Resize semantics, the tap
-// tables of resizeTaps), up- and downscaling, with antialias and with
+// the general per-row loop it bypasses (resizeRows), bit for bit, for
+// nearest, linear and cubic taps (ONNX Resize semantics, the tap tables of
+// resizeTaps), up- and downscaling, with antialias and with
 // tf_crop_and_resize extrapolation.
 func TestResizeLastAxisMatchesRowLoop(t *testing.T) {
 	r := rand.New(rand.NewSource(71))
@@ -38,36 +38,10 @@ func TestResizeLastAxisMatchesRowLoop(t *testing.T) {
 		got := make([]float32, outer*out)
 		resizeAxisRun(got, x, outer, in, 1, out, tab, float32(o.extrap))
 		want := make([]float32, outer*out)
-		resizeRowLoopRef(want, x, outer, in, 1, out, tab, float32(o.extrap))
+		resizeRows(want, x, outer, in, 1, out, tab, float32(o.extrap))
 		for i := range want {
 			if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
 				t.Fatalf("%s: element %d = %g, row loop %g", fmt.Sprintf("trial %d %+v %d→%d", trial, o, in, out), i, got[i], want[i])
-			}
-		}
-	}
-}
-
-// resizeRowLoopRef is resizeAxisRun's general loop (any inner size).
-func resizeRowLoopRef(y, x []float32, outer, in, inner, n int, t *resizeAxis, extrap float32) {
-	for o := 0; o < outer; o++ {
-		src := x[o*in*inner : (o+1)*in*inner]
-		for j := 0; j < n; j++ {
-			dst := y[(o*n+j)*inner : (o*n+j+1)*inner]
-			if t.extrap[j] {
-				for k := range dst {
-					dst[k] = extrap
-				}
-				continue
-			}
-			for q := 0; q < t.n; q++ {
-				w := float32(t.w[j*t.n+q])
-				if w == 0 {
-					continue
-				}
-				row := src[t.idx[j*t.n+q]*inner:]
-				for k := range dst {
-					dst[k] += w * row[k]
-				}
 			}
 		}
 	}
