@@ -317,6 +317,14 @@ func SgemmFunc(transA bool, m, n, k int, alpha float32, a []float32, lda int, pa
 	multiply(Threads(), active.Load(), m, n, k, alpha, operand{data: a, ld: lda, trans: transA}, operand{pack: pack}, beta, c, ldc)
 }
 
+// SgemmFuncSerial is SgemmFunc on the calling goroutine only, for callers
+// that run independent products in parallel themselves.
+func SgemmFuncSerial(transA bool, m, n, k int, alpha float32, a []float32, lda int, pack PackBFunc, beta float32, c []float32, ldc int) {
+	checkDims(m, n, k, ldc, len(c))
+	checkOperand("A", transA, m, k, a, lda)
+	multiply(1, active.Load(), m, n, k, alpha, operand{data: a, ld: lda, trans: transA}, operand{pack: pack}, beta, c, ldc)
+}
+
 // SgemmPackedB computes C = alpha·op(A)·B + beta·C with B packed by PackB
 // (k×n taken from pb). A and C are as in Sgemm.
 func SgemmPackedB(transA bool, m int, alpha float32, a []float32, lda int, pb *PackedB, beta float32, c []float32, ldc int) {

@@ -1,6 +1,11 @@
 package grad
 
-import "github.com/vitals-health/vitals/gemm"
+import (
+	"runtime"
+
+	"github.com/vitals-health/vitals/gemm"
+	"github.com/vitals-health/vitals/internal/par"
+)
 
 // dL/dW of a float32 Conv as one product per group and sample, summed,
 // with the input read channel-last:
@@ -16,9 +21,12 @@ import "github.com/vitals-health/vitals/gemm"
 // the taps along the last axis when the dilation there is 1 and there is
 // one group: a 3×3 kernel gives three runs of 3·C). C's columns come in
 // (t, c) order and are put back into W's (c, t) order while summed in
-// float64. The float32 sums over N·P terms (the samples' products
-// accumulated in C) add a relative error of order √(N·P)·2⁻²⁴ (about 1e-5
-// at 64 samples of 32×32), within the 1e-4 of the autograd comparison.
+// float64. The samples go in chunks of dwChunk, each chunk's products
+// accumulated in a float32 block of its own (chunks run on the workers,
+// each product on one), the blocks then summed in float64 in chunk order:
+// the result does not depend on the number of workers. The float32 sums
+// over dwChunk·P terms add a relative error of order √(dwChunk·P)·2⁻²⁴
+// (about 6e-6 at 32×32), within the 1e-4 of the autograd comparison.
 func convDW(win *window, N, C, M, G int, x, g32 []float32, gw []float64) {
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
 	nd := len(win.in)
@@ -59,66 +67,83 @@ func convDW(win *window, N, C, M, G int, x, g32 []float32, gw []float64) {
 			padChannelLast(xp[n*Ip*C:(n+1)*Ip*C], x[n*C*I:(n+1)*C*I], C, I, padAt)
 		}
 	})
-	dw := scratch(Mg * K * Cg)
-	defer release(dw)
+	// samples in chunks of dwChunk, each chunk's products summed in its own
+	// float32 block, the blocks added in float64 in chunk order: the same
+	// result for any number of workers
+	chunks := (N + dwChunk - 1) / dwChunk
+	blk := Mg * K * Cg
+	dws := scratch(chunks * blk)
+	defer release(dws)
+	workers := max(1, min(runtime.GOMAXPROCS(0), chunks))
 	for grp := 0; grp < G; grp++ {
 		c0 := grp * Cg
-		n := 0 // the sample whose positions are being packed
-		pack := func(nr int, dst []float32, p0, kc, j0, cols int) {
-			var segs []dwSeg
-			for q := 0; q < cols; q += nr {
-				nv := min(nr, cols-q)
-				// the panel's columns as runs whose sources follow each other
-				segs = segs[:0]
-				for j := 0; j < nv; j++ {
-					col := j0 + q + j
-					off := tapOff[col/Cg]*C + c0 + col%Cg
-					if l := len(segs); l > 0 && segs[l-1].off+segs[l-1].l == off {
-						segs[l-1].l++
-						continue
-					}
-					segs = append(segs, dwSeg{j: j, off: off, l: 1})
-				}
-				panel := dst[q*kc : q*kc+nr*kc]
-				for r := 0; r < kc; r++ {
-					p := p0 + r
-					base := (n*Ip + origin[p]) * C
-					row := panel[r*nr : (r+1)*nr]
-					for _, sg := range segs {
-						d := row[sg.j : sg.j+sg.l]
-						src := xp[base+sg.off:]
-						switch len(d) {
-						case 48:
-							*(*[48]float32)(d) = [48]float32(src)
-						case 16:
-							*(*[16]float32)(d) = [16]float32(src)
-						default:
-							copy(d, src[:len(d)])
+		par.Do(workers, func(part int) {
+			n := 0 // the sample whose positions are being packed
+			pack := func(nr int, dst []float32, p0, kc, j0, cols int) {
+				var segs []dwSeg
+				for q := 0; q < cols; q += nr {
+					nv := min(nr, cols-q)
+					// the panel's columns as runs whose sources follow each other
+					segs = segs[:0]
+					for j := 0; j < nv; j++ {
+						col := j0 + q + j
+						off := tapOff[col/Cg]*C + c0 + col%Cg
+						if l := len(segs); l > 0 && segs[l-1].off+segs[l-1].l == off {
+							segs[l-1].l++
+							continue
 						}
+						segs = append(segs, dwSeg{j: j, off: off, l: 1})
 					}
-					clear(row[nv:])
+					panel := dst[q*kc : q*kc+nr*kc]
+					for r := 0; r < kc; r++ {
+						p := p0 + r
+						base := (n*Ip + origin[p]) * C
+						row := panel[r*nr : (r+1)*nr]
+						for _, sg := range segs {
+							d := row[sg.j : sg.j+sg.l]
+							src := xp[base+sg.off:]
+							switch len(d) {
+							case 48:
+								*(*[48]float32)(d) = [48]float32(src)
+							case 16:
+								*(*[16]float32)(d) = [16]float32(src)
+							default:
+								copy(d, src[:len(d)])
+							}
+						}
+						clear(row[nv:])
+					}
 				}
 			}
-		}
-		// one product per sample, summed in dw: A is the sample's G [Mg, P]
-		for n = 0; n < N; n++ {
-			beta := float32(1)
-			if n == 0 {
-				beta = 0
+			for ch := part; ch < chunks; ch += workers {
+				// one product per sample, A the sample's G [Mg, P] in place
+				dw := dws[ch*blk : (ch+1)*blk]
+				for n = ch * dwChunk; n < min(N, (ch+1)*dwChunk); n++ {
+					beta := float32(1)
+					if n == ch*dwChunk {
+						beta = 0
+					}
+					gemm.SgemmFuncSerial(false, Mg, K*Cg, P, 1, g32[(n*M+grp*Mg)*P:], P, pack, beta, dw, K*Cg)
+				}
 			}
-			gemm.SgemmFunc(false, Mg, K*Cg, P, 1, g32[(n*M+grp*Mg)*P:], P, pack, beta, dw, K*Cg)
-		}
+		})
 		acc := gw[grp*Mg*Cg*K : (grp+1)*Mg*Cg*K]
-		for m := 0; m < Mg; m++ {
-			for t := 0; t < K; t++ {
-				src := dw[(m*K+t)*Cg : (m*K+t+1)*Cg]
-				for c, v := range src {
-					acc[(m*Cg+c)*K+t] += float64(v)
+		for ch := 0; ch < chunks; ch++ {
+			dw := dws[ch*blk : (ch+1)*blk]
+			for m := 0; m < Mg; m++ {
+				for t := 0; t < K; t++ {
+					src := dw[(m*K+t)*Cg : (m*K+t+1)*Cg]
+					for c, v := range src {
+						acc[(m*Cg+c)*K+t] += float64(v)
+					}
 				}
 			}
 		}
 	}
 }
+
+// dwChunk is the number of samples whose products one float32 block sums.
+const dwChunk = 8
 
 // dwSeg is a run of l panel columns from j whose sources start at off
 // (from an output position's first tap on the padded grid).

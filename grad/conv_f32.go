@@ -7,37 +7,25 @@ import (
 	"github.com/vitals-health/vitals/internal/par"
 )
 
-// convF32 is Conv's VJP for float32 models: the same products as convVJP,
-// over chunks of samples at once (columns [C/G·K, samples·P]) with the
-// float32 SGEMM of package gemm, the gradients still summed in float64.
-// The float32 products add a relative error of order √k·2⁻²⁴ for sums of
-// length k, far below the 1e-4 the torch comparison allows; float64 models
-// (the finite-difference tests) take convVJP's float64 path.
-func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []float64) {
+// convF32 is Conv's dL/dX for float32 models where no transposed
+// convolution fits (padding of a whole window span or more: newConvDX
+// returns nil): per chunk of samples, dcols = Wᵀ·G [C/G·K, samples·P] with
+// the float32 SGEMM of package gemm, folded back onto the input taps in
+// float64. The float32 products add a relative error of order √k·2⁻²⁴ for
+// sums of length k, far below the 1e-4 the torch comparison allows; float64
+// models (the finite-difference tests) take convVJP's float64 path.
+func convF32(win *window, N, C, M, G int, w []float32, g, gx []float64) {
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
-	if Cg == 1 && Mg == 1 {
-		depthwiseF32(win, N, C, x, w, g, gx, gw)
-		return
-	}
-	// samples per chunk: the column buffer stays below 256 Ki elements
-	// (1 MiB, cache-sized; buffers are reused between calls)
+	// samples per chunk: the column buffer stays below convChunk elements
+	// (buffers are reused between calls)
 	nc := max(1, (convChunk)/max(Cg*K*P, 1))
 	nc = min(nc, N)
 	ld := nc * P
-	cols := scratch(Cg * K * ld)
-	defer release(cols)
 	gc := scratch(Mg * ld)
 	defer release(gc)
-	var dcols, dw, wt []float32
-	if gx != nil {
-		dcols = scratch(Cg * K * ld)
-		defer release(dcols)
-	}
-	if gw != nil {
-		dw = scratch(Mg * Cg * K)
-		defer release(dw)
-	}
-	workers := max(1, min(2, Cg)) // the unrolling loops, split over channels
+	dcols := scratch(Cg * K * ld)
+	defer release(dcols)
+	workers := max(1, min(2, Cg)) // the folding loops, split over channels
 	for n0 := 0; n0 < N; n0 += nc {
 		n1 := min(N, n0+nc)
 		cur := (n1 - n0) * P
@@ -51,70 +39,34 @@ func convF32(o *Op, win *window, N, C, M, G int, x, w []float32, g, gx, gw []flo
 					}
 				}
 			}
-			if gw != nil {
-				par.Do(workers, func(part int) {
-					for c := part; c < Cg; c += workers {
-						for n := n0; n < n1; n++ {
-							xc := x[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
-							for t := 0; t < K; t++ {
-								row := cols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
-								for _, r := range win.runs[t] {
-									switch {
-									case r.off < 0:
-										clear(row[r.p : r.p+r.n])
-									case r.step == 1:
-										copy(row[r.p:r.p+r.n], xc[r.off:r.off+r.n])
-									default:
-										d := row[r.p : r.p+r.n]
-										for i := range d {
-											d[i] = xc[r.off+i*r.step]
-										}
-									}
+			// dcols = W_gᵀ·G  [Cg·K, cur]
+			gemm.Sgemm(true, false, Cg*K, cur, Mg, 1, w[grp*Mg*Cg*K:(grp+1)*Mg*Cg*K], Cg*K, gc, ld, 0, dcols, ld)
+			par.Do(workers, func(part int) {
+				for c := part; c < Cg; c += workers {
+					for n := n0; n < n1; n++ {
+						dx := gx[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
+						for t := 0; t < K; t++ {
+							row := dcols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
+							for _, r := range win.runs[t] {
+								if r.off < 0 {
+									continue
 								}
-							}
-						}
-					}
-				})
-				// dW_g = G·colsᵀ  [Mg, Cg·K]
-				gemm.Sgemm(false, true, Mg, Cg*K, cur, 1, gc, ld, cols, ld, 0, dw, Cg*K)
-				acc := gw[grp*Mg*Cg*K : (grp+1)*Mg*Cg*K]
-				for i, v := range dw {
-					acc[i] += float64(v)
-				}
-			}
-			if gx != nil {
-				if wt == nil {
-					wt = w
-				}
-				// dcols = W_gᵀ·G  [Cg·K, cur]
-				gemm.Sgemm(true, false, Cg*K, cur, Mg, 1, wt[grp*Mg*Cg*K:(grp+1)*Mg*Cg*K], Cg*K, gc, ld, 0, dcols, ld)
-				par.Do(workers, func(part int) {
-					for c := part; c < Cg; c += workers {
-						for n := n0; n < n1; n++ {
-							dx := gx[(n*C+grp*Cg+c)*I : (n*C+grp*Cg+c+1)*I]
-							for t := 0; t < K; t++ {
-								row := dcols[(c*K+t)*ld+(n-n0)*P : (c*K+t)*ld+(n-n0+1)*P]
-								for _, r := range win.runs[t] {
-									if r.off < 0 {
-										continue
-									}
-									src := row[r.p : r.p+r.n]
-									if r.step == 1 {
-										d := dx[r.off : r.off+r.n]
-										for i, v := range src {
-											d[i] += float64(v)
-										}
-										continue
-									}
+								src := row[r.p : r.p+r.n]
+								if r.step == 1 {
+									d := dx[r.off : r.off+r.n]
 									for i, v := range src {
-										dx[r.off+i*r.step] += float64(v)
+										d[i] += float64(v)
 									}
+									continue
+								}
+								for i, v := range src {
+									dx[r.off+i*r.step] += float64(v)
 								}
 							}
 						}
 					}
-				})
-			}
+				}
+			})
 		}
 	}
 }

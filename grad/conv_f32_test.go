@@ -3,6 +3,7 @@ package grad
 import (
 	"math"
 	"math/rand"
+	"runtime"
 	"testing"
 
 	"github.com/vitals-health/vitals/loader"
@@ -169,5 +170,43 @@ func TestMulF32MatchesF64(t *testing.T) {
 				t.Errorf("%v × %v: input %d: relative error %.2e", in[0].Shape, in[1].Shape, i, e)
 			}
 		}
+	}
+}
+
+// TestConvDWSameForAnyWorkers: dW over several chunks of samples is the
+// same bit for bit on 1 and 4 workers (each chunk's float32 block, summed
+// in chunk order), and within 1e-5 of the float64 path.
+func TestConvDWSameForAnyWorkers(t *testing.T) {
+	r := rand.New(rand.NewSource(14))
+	f32 := func(shape ...int) *tensor.Tensor {
+		x := F64(rnd(r, shape...))
+		y := make([]float32, len(x))
+		for i, v := range x {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	c := fdCase{name: "chunks", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32(3*dwChunk+5, 6, 6, 5), f32(7, 6, 3, 3)}}
+	n := c.node()
+	outs := c.forward(t, n, c.in)
+	g := F64(rnd(r, outs[0].Size()))
+	run := func(procs int, f64 bool) []float64 {
+		defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(procs))
+		forceF64 = f64
+		defer func() { forceF64 = false }()
+		o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, [][]float64{g}, nil)
+		if err := convVJP(o); err != nil {
+			t.Fatal(err)
+		}
+		return o.GIn[1]
+	}
+	one, four, ref := run(1, false), run(4, false), run(1, true)
+	for i := range one {
+		if math.Float64bits(one[i]) != math.Float64bits(four[i]) {
+			t.Fatalf("dW[%d]: %v on 1 worker, %v on 4", i, one[i], four[i])
+		}
+	}
+	if e := relErr(one, ref, 0); e > 1e-5 || math.IsNaN(e) {
+		t.Errorf("dW: relative error %.2e against the float64 path", e)
 	}
 }

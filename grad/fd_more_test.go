@@ -183,6 +183,9 @@ func TestMaxPool2x2Ties(t *testing.T) {
 	win := &window{in: []int{4, 6}, out: []int{2, 3}, k: []int{2, 2}, stride: []int{2, 2}, dil: []int{1, 1}, padBeg: []int{0, 0}}
 	fillTaps(win)
 	got := make([]float64, len(x))
+	for i := range got {
+		got[i] = 99 // the 2×2 rule writes every element
+	}
 	maxPoolPlanes(win, x, y, g, got, 0, 1)
 	want := make([]float64, len(x))
 	w3 := *win
@@ -196,6 +199,35 @@ func TestMaxPool2x2Ties(t *testing.T) {
 	}
 	if want[0] != 1 || want[3] != 2 || want[4] != 3 || want[13] != 4 || want[16] != 6 {
 		t.Fatalf("reference rule gave %v", want)
+	}
+	// odd sizes: the last row and column, in no window, get 0
+	r := rand.New(rand.NewSource(9))
+	x5 := make([]float32, 5*7)
+	for i := range x5 {
+		x5[i] = float32(r.NormFloat64())
+	}
+	w5 := &window{in: []int{5, 7}, out: []int{2, 3}, k: []int{2, 2}, stride: []int{2, 2}, dil: []int{1, 1}, padBeg: []int{0, 0}}
+	fillTaps(w5)
+	y5 := make([]float32, 6)
+	for p := range y5 {
+		y5[p] = float32(math.Inf(-1))
+		for _, off := range w5.taps[p*4 : p*4+4] {
+			y5[p] = max(y5[p], x5[off])
+		}
+	}
+	got5 := make([]float64, len(x5))
+	for i := range got5 {
+		got5[i] = math.NaN()
+	}
+	maxPoolPlanes(w5, x5, y5, g, got5, 0, 1)
+	want5 := make([]float64, len(x5))
+	w53 := *w5
+	w53.in, w53.out, w53.k, w53.stride, w53.dil, w53.padBeg = []int{1, 5, 7}, []int{1, 2, 3}, []int{1, 2, 2}, []int{1, 2, 2}, []int{1, 1, 1}, []int{0, 0, 0}
+	maxPoolPlanes(&w53, x5, y5, g, want5, 0, 1)
+	for i := range want5 {
+		if got5[i] != want5[i] {
+			t.Fatalf("5×7 plane: gradient %v, want %v", got5, want5)
+		}
 	}
 }
 

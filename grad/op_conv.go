@@ -7,9 +7,12 @@ import (
 )
 
 // Conv: y[n, m, p] = b[m] + Σ_{c,t} w[m, c, t]·x[n, g·C/G + c, tap(p, t)]
-// within group g. With the input unrolled into columns (cols[c·K+t, p]),
-// per sample and group: dL/dW += G·colsᵀ, dL/dcols = Wᵀ·G folded back onto
-// the input taps, dL/db = Σ G over samples and positions.
+// within group g; dL/db = Σ G over samples and positions. Float32 models:
+// dL/dX by transposed (phase) convolutions (conv_dx.go), dL/dW by
+// channel-last products (conv_dw.go), depthwise convolutions by direct
+// loops (conv_f32.go). Float64 models, the reference of those paths: with
+// the input unrolled into columns (cols[c·K+t, p]), per sample and group,
+// dL/dW += G·colsᵀ and dL/dcols = Wᵀ·G folded back onto the input taps.
 
 func init() { register("Conv", convVJP) }
 
@@ -93,7 +96,7 @@ func convVJP(o *Op) error {
 			convDW(win, N, C, M, G, x32, g32, gw)
 		}
 		if gx != nil {
-			convF32(o, win, N, C, M, G, x32, w32, g, gx, nil)
+			convF32(win, N, C, M, G, w32, g, gx)
 		}
 		return nil
 	}

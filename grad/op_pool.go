@@ -19,8 +19,7 @@ func init() {
 }
 
 func maxPoolVJP(o *Op) error {
-	gx := o.Grad(0)
-	if gx == nil {
+	if !o.Needs(0) {
 		return nil
 	}
 	if len(o.Out) > 1 && o.Out[1] != nil && o.WantOut(1) && len(o.GOut) > 1 && o.GOut[1] != nil {
@@ -34,6 +33,10 @@ func maxPoolVJP(o *Op) error {
 		return err
 	}
 	g := o.G(0)
+	gx := o.Grad(0)
+	if is2x2(win) {
+		gx = o.GradFull(0) // maxPool2x2Planes writes every element
+	}
 	planes := X.Shape[0] * X.Shape[1]
 	// each plane's gradient lands in its own input plane: planes split freely
 	split(planes*win.I, func(lo, hi int) {
@@ -49,13 +52,21 @@ func maxPoolVJP(o *Op) error {
 	return nil
 }
 
+// is2x2 reports 2-D 2×2 windows of stride 2 without padding or dilation,
+// each inside the input: every input position in at most one window.
+func is2x2(win *window) bool {
+	return len(win.in) == 2 && win.k[0] == 2 && win.k[1] == 2 && win.stride[0] == 2 && win.stride[1] == 2 &&
+		win.dil[0] == 1 && win.dil[1] == 1 && win.padBeg[0] == 0 && win.padBeg[1] == 0 &&
+		2*win.out[0] <= win.in[0] && 2*win.out[1] <= win.in[1]
+}
+
 // maxPoolPlanes routes each output's gradient to the input its window took
 // the maximum from (the first tap equal to the recorded maximum; failing
-// that, the largest), for planes [p0, p1), in the model's own precision.
+// that, the largest), for planes [p0, p1), in the model's own precision:
+// it adds into gx, except for 2×2 windows (is2x2), where it writes every
+// element of the planes.
 func maxPoolPlanes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
-	if len(win.in) == 2 && win.k[0] == 2 && win.k[1] == 2 && win.stride[0] == 2 && win.stride[1] == 2 &&
-		win.dil[0] == 1 && win.dil[1] == 1 && win.padBeg[0] == 0 && win.padBeg[1] == 0 &&
-		2*win.out[0] <= win.in[0] && 2*win.out[1] <= win.in[1] {
+	if is2x2(win) {
 		maxPool2x2Planes(win, x, y, g, gx, p0, p1)
 		return
 	}
@@ -184,48 +195,73 @@ func globalMaxVJP(o *Op) error {
 }
 
 // maxPool2x2Planes is maxPoolPlanes for 2×2 windows of stride 2 without
-// padding (every tap inside the input): the first of the four taps equal
-// to the recorded maximum is chosen by integer selects on the values' bits
-// (±0 folded together, so that the comparison is the float one for every
-// number) rather than branches, which tap holds the maximum being as good
-// as random; an output whose chosen tap is not equal to it as a float (a
-// NaN maximum) takes the general rule.
+// padding (is2x2): each input position is in one window at most, so it
+// writes every element of the planes (no zeroing and adding): the output's
+// gradient at the first of the four taps equal to the recorded maximum, 0
+// at the three others and at the rows and column no window covers. The tap
+// is chosen by integer selects on the values' bits (±0 folded together, so
+// that the comparison is the float one for every number) rather than
+// branches, which tap holds the maximum being as good as random; a window
+// whose chosen tap is not equal to the maximum as a float (a NaN maximum)
+// takes the general rule.
 func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
 	H, W, OH, OW := win.in[0], win.in[1], win.out[0], win.out[1]
 	for pl := p0; pl < p1; pl++ {
 		xp, dx := x[pl*H*W:(pl+1)*H*W], gx[pl*H*W:(pl+1)*H*W]
 		yp, gp := y[pl*OH*OW:(pl+1)*OH*OW], g[pl*OH*OW:(pl+1)*OH*OW]
+		clear(dx[2*OH*W:]) // rows below the last window
 		for oh := 0; oh < OH; oh++ {
 			r0 := 2 * oh * W
 			r1 := r0 + W
+			if 2*OW < W { // the column right of the last window
+				dx[r0+W-1], dx[r1+W-1] = 0, 0
+			}
 			for ow := 0; ow < OW; ow++ {
 				want := yp[oh*OW+ow]
-				kw := floatKey(want)
+				kw := floatKey(float64(want))
 				i := 2 * ow
-				best := r1 + i + 1
-				if floatKey(xp[r1+i]) == kw {
-					best = r1 + i
+				s := 3 // tap 0..3: (r0, i), (r0, i+1), (r1, i), (r1, i+1)
+				if floatKey(float64(xp[r1+i])) == kw {
+					s = 2
 				}
-				if floatKey(xp[r0+i+1]) == kw {
-					best = r0 + i + 1
+				if floatKey(float64(xp[r0+i+1])) == kw {
+					s = 1
 				}
-				if floatKey(xp[r0+i]) == kw {
-					best = r0 + i
+				if floatKey(float64(xp[r0+i])) == kw {
+					s = 0
 				}
-				if xp[best] != want { // NaN: the general rule
-					p := oh*OW + ow
-					best, bv := -1, T(math.Inf(-1))
-					for _, off := range win.taps[p*4 : p*4+4] {
+				taps := [4]int{r0 + i, r0 + i + 1, r1 + i, r1 + i + 1}
+				if xp[taps[s]] != want { // NaN: the general rule
+					s, bv := -1, T(math.Inf(-1))
+					for t, off := range taps {
 						if xp[off] > bv {
-							best, bv = off, xp[off]
+							s, bv = t, xp[off]
 						}
 					}
-					if best >= 0 {
-						dx[best] += gp[p]
+					for t, off := range taps {
+						dx[off] = 0
+						if t == s {
+							dx[off] = gp[oh*OW+ow]
+						}
 					}
 					continue
 				}
-				dx[best] += gp[oh*OW+ow]
+				vb := math.Float64bits(gp[oh*OW+ow])
+				var m0, m1, m2, m3 uint64
+				if s == 0 {
+					m0 = vb
+				}
+				if s == 1 {
+					m1 = vb
+				}
+				if s == 2 {
+					m2 = vb
+				}
+				if s == 3 {
+					m3 = vb
+				}
+				dx[r0+i], dx[r0+i+1] = math.Float64frombits(m0), math.Float64frombits(m1)
+				dx[r1+i], dx[r1+i+1] = math.Float64frombits(m2), math.Float64frombits(m3)
 			}
 		}
 	}
@@ -233,8 +269,8 @@ func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float6
 
 // floatKey is v's bits (widened to float64, exactly) with −0 taken to +0:
 // two numbers (not NaN) have the same key exactly when they compare equal.
-func floatKey[T float32 | float64](v T) uint64 {
-	b := math.Float64bits(float64(v))
+func floatKey(v float64) uint64 {
+	b := math.Float64bits(v)
 	if b<<1 == 0 {
 		b = 0
 	}
