@@ -62,7 +62,8 @@ func TestConvPointwiseMatchesDirect(t *testing.T) {
 // per-image products (convDirect: 40×40 = 1600 pixels) and small enough for
 // the batched product (convPointwise: 7×7): the hook sees the values of the
 // unfused run bit for bit (the same plan with its fusion links removed),
-// SiLU in both operand orders and HardSwish, with and without bias.
+// SiLU in both operand orders and HardSwish, with and without bias; and a
+// grouped 3×3 convolution (convGrouped) with SiLU.
 func TestFusionPointwiseSeesUnfusedValues(t *testing.T) {
 	r := rand.New(rand.NewSource(42))
 	b := modelbuild.New("pw", 14)
@@ -83,7 +84,12 @@ func TestFusionPointwiseSeesUnfusedValues(t *testing.T) {
 		modelbuild.Attr{Name: "kernel_shape", Value: []int64{6, 6}}, modelbuild.Attr{Name: "strides", Value: []int64{6, 6}})
 	b.Node("Conv", "c3", []string{"p2", init("w3", 64, 90, 1, 1), init("b3", 64)}, []string{"y3"})
 	b.Node("Sigmoid", "s3", []string{"y3"}, []string{"g3"})
-	b.Node("Mul", "m3", []string{"y3", "g3"}, []string{"out"})
+	b.Node("Mul", "m3", []string{"y3", "g3"}, []string{"a3"})
+	// grouped 3×3 (convGrouped, the row-table GEMM) → SiLU
+	b.Node("Conv", "c4", []string{"a3", init("w4", 64, 16, 3, 3), init("b4", 64)}, []string{"y4"},
+		modelbuild.Attr{Name: "group", Value: 4}, modelbuild.Attr{Name: "pads", Value: []int64{1, 1, 1, 1}})
+	b.Node("Sigmoid", "s4", []string{"y4"}, []string{"g4"})
+	b.Node("Mul", "m4", []string{"y4", "g4"}, []string{"out"})
 	b.Output("out")
 	_, fused := planOf(t, b)
 	_, plain := planOf(t, b)
@@ -96,8 +102,8 @@ func TestFusionPointwiseSeesUnfusedValues(t *testing.T) {
 			fusedCount++
 		}
 	}
-	if fusedCount != 4 {
-		t.Fatalf("%d convolutions fused, want 4", fusedCount)
+	if fusedCount != 5 {
+		t.Fatalf("%d convolutions fused, want 5", fusedCount)
 	}
 	var batches []*tensor.Tensor
 	for i := 0; i < 2; i++ {
