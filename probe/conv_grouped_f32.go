@@ -19,9 +19,21 @@ import "github.com/vitals-health/vitals/gemm"
 
 // convGroupedFits reports whether convFastF32 takes convGrouped.
 func convGroupedFits(a *convF32Args) bool {
-	return convGroupedOn && len(a.g.in) == 2 && a.group > 1 && a.Cg > 1 && !a.direct && a.P > 0 &&
-		a.wConst && packRoom(a.w)
+	if !convGroupedOn || len(a.g.in) != 2 || a.Cg <= 1 || a.direct || a.P <= 0 || !a.wConst || !packRoom(a.w) {
+		return false
+	}
+	return a.group > 1 || (a.Mg <= convRowTableMaxM && a.g.out[1] >= convRowTableMinOW)
 }
+
+// Ungrouped convolutions with few output channels (DenseNet's 3×3 layers,
+// 32 channels) take the row table too: the implicit GEMM's panel packing
+// is then about as much work as the product. Rows narrower than 14 outputs
+// waste too many columns at the padded pitch (7×7: 22%; the implicit GEMM
+// batches such planes across images instead).
+const (
+	convRowTableMaxM  = 64
+	convRowTableMinOW = 14
+)
 
 // convGroupedOn enables convGrouped (tests turn it off for the implicit GEMM).
 var convGroupedOn = true

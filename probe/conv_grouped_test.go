@@ -15,7 +15,8 @@ import (
 // GEMM it bypasses, tolerance 1e-4 relative as the neighbouring conv tests
 // (float32 sums of up to 16·9 products in another order, bias added after
 // the sum): group widths 2, 8 and 16, 3×3 with strides 1 and 2, 5×5 with
-// dilation 2, asymmetric pads, planes from 7×7 to 30×29, with and without
+// dilation 2, asymmetric pads, planes from 7×7 to 30×29, ungrouped ones
+// with at most convRowTableMaxM output channels, with and without
 // bias, constant weights (packed), outputs recycled full of NaN.
 func TestConvGroupedMatchesReference(t *testing.T) {
 	r := rand.New(rand.NewSource(33))
@@ -31,6 +32,8 @@ func TestConvGroupedMatchesReference(t *testing.T) {
 		{2, 64, 64, 4, 28, 28, 3, 2, 1, 0, 1, 1, 0},
 		{1, 16, 16, 2, 15, 13, 3, 2, 1, 0, 0, 1, 1}, // stride 2, no left pad, odd width (padPairs)
 		{1, 16, 16, 2, 16, 17, 5, 2, 1, 2, 3, 0, 0}, // stride 2, left pad 3
+		{2, 24, 32, 1, 16, 15, 3, 1, 1, 1, 1, 1, 1}, // ungrouped, 32 output channels (DenseNet-like)
+		{1, 40, 64, 1, 28, 28, 3, 2, 1, 1, 1, 1, 1}, // ungrouped, 64 channels, stride 2
 	} {
 		x, w, b := linRand(r, k.N, k.C, k.H, k.W), linRand(r, k.M, k.C/k.group, k.K, k.K), linRand(r, k.M)
 		attrs := map[string]*loader.Attr{

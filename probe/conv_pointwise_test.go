@@ -6,6 +6,7 @@ import (
 	"math/rand"
 	"testing"
 
+	"github.com/vitals-health/vitals/internal/modelbuild"
 	"github.com/vitals-health/vitals/loader"
 	"github.com/vitals-health/vitals/tensor"
 )
@@ -52,6 +53,77 @@ func TestConvPointwiseMatchesDirect(t *testing.T) {
 					got[j] = float32(math.NaN())
 				}
 				pool.Recycle([]*tensor.Tensor{tensor.From(got, len(got))}, nil)
+			}
+		}
+	}
+}
+
+// 1×1 convolutions with a fused activation on planes large enough for the
+// per-image products (convDirect: 40×40 = 1600 pixels) and small enough for
+// the batched product (convPointwise: 7×7): the hook sees the values of the
+// unfused run bit for bit (the same plan with its fusion links removed),
+// SiLU in both operand orders and HardSwish, with and without bias; and a
+// grouped 3×3 convolution (convGrouped) with SiLU.
+func TestFusionPointwiseSeesUnfusedValues(t *testing.T) {
+	r := rand.New(rand.NewSource(42))
+	b := modelbuild.New("pw", 14)
+	b.Input("x", []int{3, 8, 40, 40}, true)
+	init := func(name string, shape ...int) string {
+		b.Init(name, shape, linRand(r, shape...).F32())
+		return name
+	}
+	b.Node("Conv", "c0", []string{"x", init("w0", 96, 8, 1, 1), init("b0", 96)}, []string{"y0"})
+	b.Node("Sigmoid", "s0", []string{"y0"}, []string{"g0"})
+	b.Node("Mul", "m0", []string{"y0", "g0"}, []string{"a0"})
+	b.Node("Conv", "c1", []string{"a0", init("w1", 100, 96, 1, 1)}, []string{"y1"})
+	b.Node("Sigmoid", "s1", []string{"y1"}, []string{"g1"})
+	b.Node("Mul", "m1", []string{"g1", "y1"}, []string{"a1"})
+	b.Node("Conv", "c2", []string{"a1", init("w2", 90, 100, 1, 1), init("b2", 90)}, []string{"y2"})
+	b.Node("HardSwish", "hs", []string{"y2"}, []string{"a2"})
+	b.Node("MaxPool", "pool", []string{"a2"}, []string{"p2"},
+		modelbuild.Attr{Name: "kernel_shape", Value: []int64{6, 6}}, modelbuild.Attr{Name: "strides", Value: []int64{6, 6}})
+	b.Node("Conv", "c3", []string{"p2", init("w3", 64, 90, 1, 1), init("b3", 64)}, []string{"y3"})
+	b.Node("Sigmoid", "s3", []string{"y3"}, []string{"g3"})
+	b.Node("Mul", "m3", []string{"y3", "g3"}, []string{"a3"})
+	// grouped 3×3 (convGrouped, the row-table GEMM) → SiLU
+	b.Node("Conv", "c4", []string{"a3", init("w4", 64, 16, 3, 3), init("b4", 64)}, []string{"y4"},
+		modelbuild.Attr{Name: "group", Value: 4}, modelbuild.Attr{Name: "pads", Value: []int64{1, 1, 1, 1}})
+	b.Node("Sigmoid", "s4", []string{"y4"}, []string{"g4"})
+	b.Node("Mul", "m4", []string{"y4", "g4"}, []string{"out"})
+	b.Output("out")
+	_, fused := planOf(t, b)
+	_, plain := planOf(t, b)
+	for i := range plain.Steps {
+		plain.Steps[i].fuseWith, plain.Steps[i].fuseMul = -1, -1
+	}
+	fusedCount := 0
+	for i := range fused.Steps {
+		if fused.fusedNode(i) != nil {
+			fusedCount++
+		}
+	}
+	if fusedCount != 5 {
+		t.Fatalf("%d convolutions fused, want 5", fusedCount)
+	}
+	var batches []*tensor.Tensor
+	for i := 0; i < 2; i++ {
+		x := linRand(r, 3, 8, 40, 40)
+		for j := range x.F32() {
+			x.F32()[j] *= 8
+		}
+		x.F32()[5] = float32(math.NaN())
+		batches = append(batches, x)
+	}
+	a, c := recordRun(t, fused, batches), recordRun(t, plain, batches)
+	if len(a) != len(c) {
+		t.Fatalf("%d hook calls fused, %d unfused", len(a), len(c))
+	}
+	for k := range c {
+		for o := range c[k].outs {
+			for e, w := range c[k].outs[o] {
+				if g := a[k].outs[o][e]; math.Float32bits(g) != math.Float32bits(w) {
+					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, g, w)
+				}
 			}
 		}
 	}
