@@ -219,7 +219,7 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	D := r.dim
 	var mx uint32
 	var nan int64
-	hist := r.hist
+	hist := r.hist[:absBins]
 	for i := 0; i+D <= len(x); i += D {
 		row, over := x[i:i+D], r.over6[:D]
 		for d, v := range row {
@@ -228,10 +228,8 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 				nan++ // NaN, ±Inf
 				continue
 			}
-			hist[b>>17]++
-			if b > mx {
-				mx = b
-			}
+			hist[(b>>17)&(absBins-1)]++
+			mx = max(mx, b)
 			if b >= six32 {
 				over[d]++
 			}
@@ -246,38 +244,69 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	r.maxAbs = math.Max(r.maxAbs, float64(math.Float32frombits(mx)))
 	r.positions += int64(len(x) / D)
 	if t.Rank() == 3 {
-		S := t.Shape[1]
-		u := make([]float64, D)
-		qs := make([]float64, S)
-		for b := 0; b < t.Shape[0]; b++ {
-			clear(u)
-			cnt := 0
-			seq := x[b*S*D : (b+1)*S*D]
-			sumSquares(qs, seq, D)
-			for s := 0; s < S; s++ {
-				row := seq[s*D : (s+1)*D]
-				q := qs[s]
-				if q == 0 || math.IsNaN(q) || math.IsInf(q, 0) {
-					continue
-				}
-				inv := 1 / math.Sqrt(q)
-				for d, v := range row {
-					u[d] += float64(v) * inv
-				}
-				cnt++
-			}
-			if cnt < 2 {
-				continue
-			}
-			var uu float64
-			for _, v := range u {
-				uu += v * v
-			}
-			r.simSum += (uu - float64(cnt)) / float64(cnt*(cnt-1))
-			r.simN++
-		}
+		r.similarity(x, t.Shape[0], t.Shape[1])
 	}
 	return true
+}
+
+// similarity adds, for each of the B sequences of S rows of r.dim values in
+// x, the mean pairwise cosine similarity of its non-zero finite rows,
+// (|Σ_i x̂_i|² − S')/(S'(S'−1)), to simSum (sequences with S' ≥ 2 only).
+// Σ_i x̂_i is summed in float64 in row order for each feature, four rows
+// per sweep over the features (the same additions in the same order as
+// one row per sweep, with a quarter of the loads and stores of the sum).
+func (r *residAcc) similarity(x []float32, B, S int) {
+	D := r.dim
+	u := make([]float64, D)
+	qs := make([]float64, S)
+	rows := make([]int, 0, S)
+	invs := make([]float64, 0, S)
+	for b := 0; b < B; b++ {
+		clear(u)
+		seq := x[b*S*D : (b+1)*S*D]
+		sumSquares(qs, seq, D)
+		rows, invs = rows[:0], invs[:0]
+		for s, q := range qs {
+			if q == 0 || math.IsNaN(q) || math.IsInf(q, 0) {
+				continue
+			}
+			rows = append(rows, s)
+			invs = append(invs, 1/math.Sqrt(q))
+		}
+		cnt := len(rows)
+		if cnt < 2 {
+			continue
+		}
+		k := 0
+		for ; k+4 <= cnt; k += 4 {
+			r0 := seq[rows[k]*D : rows[k]*D+D]
+			r1 := seq[rows[k+1]*D : rows[k+1]*D+D]
+			r2 := seq[rows[k+2]*D : rows[k+2]*D+D]
+			r3 := seq[rows[k+3]*D : rows[k+3]*D+D]
+			i0, i1, i2, i3 := invs[k], invs[k+1], invs[k+2], invs[k+3]
+			u := u[:D]
+			for d := range u {
+				a := u[d]
+				a += float64(r0[d]) * i0
+				a += float64(r1[d]) * i1
+				a += float64(r2[d]) * i2
+				a += float64(r3[d]) * i3
+				u[d] = a
+			}
+		}
+		for ; k < cnt; k++ {
+			row, inv := seq[rows[k]*D:rows[k]*D+D], invs[k]
+			for d, v := range row {
+				u[d] += float64(v) * inv
+			}
+		}
+		var uu float64
+		for _, v := range u {
+			uu += v * v
+		}
+		r.simSum += (uu - float64(cnt)) / float64(cnt*(cnt-1))
+		r.simN++
+	}
 }
 
 // sumSquares sets q[s] = Σ_d x[s·D+d]² for each row s of x (float64, in
