@@ -114,6 +114,7 @@ func TestResidObserveMatchesRef(t *testing.T) {
 				got.maxAbs, got.n, got.positions, got.simSum, got.simN,
 				want.maxAbs, want.n, want.positions, want.simSum, want.simN)
 		}
+		got.foldHist()
 		for i := range got.hist {
 			if got.hist[i] != want.hist[i] {
 				t.Fatalf("%v: hist[%d] %d, reference %d", sh, i, got.hist[i], want.hist[i])

@@ -201,6 +201,7 @@ type residAcc struct {
 	maxAbs    float64
 	n         int64
 	hist      []int64
+	hist2     []int64 // more counts of hist's bins, added in by foldHist (nil before the first observe)
 	over6     []int64
 	positions int64
 	simSum    float64
@@ -217,24 +218,60 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 		return false
 	}
 	D := r.dim
-	var mx uint32
+	if r.hist2 == nil {
+		r.hist2 = make([]int64, absBins)
+	}
+	// Two count tables (even and odd features) and two running maxima, so
+	// that consecutive values do not wait on each other's increment or
+	// comparison; foldHist adds the second table into the first.
+	var mx0, mx1 uint32
 	var nan int64
-	hist := r.hist[:absBins]
+	h0, h1 := r.hist[:absBins], r.hist2[:absBins]
+	six := six32
 	for i := 0; i+D <= len(x); i += D {
 		row, over := x[i:i+D], r.over6[:D]
-		for d, v := range row {
-			b := math.Float32bits(v) & 0x7fffffff
-			if b >= 0x7f800000 {
-				nan++ // NaN, ±Inf
+		d := 0
+		for ; d+2 <= len(row); d += 2 {
+			b0 := math.Float32bits(row[d]) & 0x7fffffff
+			b1 := math.Float32bits(row[d+1]) & 0x7fffffff
+			if b0 >= 0x7f800000 || b1 >= 0x7f800000 {
+				for k, b := range [2]uint32{b0, b1} {
+					if b >= 0x7f800000 {
+						nan++ // NaN, ±Inf
+						continue
+					}
+					h0[(b>>17)&(absBins-1)]++
+					mx0 = max(mx0, b)
+					if b >= six {
+						over[d+k]++
+					}
+				}
 				continue
 			}
-			hist[(b>>17)&(absBins-1)]++
-			mx = max(mx, b)
-			if b >= six32 {
+			mx0, mx1 = max(mx0, b0), max(mx1, b1)
+			if b0 >= six {
 				over[d]++
+			}
+			if b1 >= six {
+				over[d+1]++
+			}
+			h0[(b0>>17)&(absBins-1)]++
+			h1[(b1>>17)&(absBins-1)]++
+		}
+		if d < len(row) {
+			b := math.Float32bits(row[d]) & 0x7fffffff
+			if b >= 0x7f800000 {
+				nan++
+			} else {
+				h0[(b>>17)&(absBins-1)]++
+				mx0 = max(mx0, b)
+				if b >= six {
+					over[d]++
+				}
 			}
 		}
 	}
+	mx := max(mx0, mx1)
 	for _, v := range x[len(x)/D*D:] { // a partial last row (not in the loop above)
 		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
 			nan++
@@ -335,7 +372,20 @@ func sumSquares(q []float64, x []float32, D int) {
 	}
 }
 
+// foldHist adds the second count table into hist.
+func (r *residAcc) foldHist() {
+	if r.hist2 == nil {
+		return
+	}
+	for i, v := range r.hist2 {
+		r.hist[i] += v
+	}
+	clear(r.hist2)
+}
+
 func (r *residAcc) merge(b *residAcc) {
+	r.foldHist()
+	b.foldHist()
 	r.maxAbs = math.Max(r.maxAbs, b.maxAbs)
 	r.n += b.n
 	for i := range r.hist {
@@ -351,6 +401,7 @@ func (r *residAcc) merge(b *residAcc) {
 
 // median is the centre of the bin holding the ⌈n/2⌉-th smallest |x| (0 in the zero bin).
 func (r *residAcc) median() float64 {
+	r.foldHist()
 	if r.n == 0 {
 		return math.NaN()
 	}
