@@ -84,8 +84,17 @@ func residObserveRef(r *residAcc, t *tensor.Tensor) bool {
 // zero rows, NaN/±Inf values, values ≥ 6 and sequence lengths that are not
 // multiples of the four-row sweep. Source: regression against the reference.
 func TestResidObserveMatchesRef(t *testing.T) {
+	vec := residVec
+	defer func() { residVec = vec }()
+	for _, v := range []bool{vec, false} { // the vector kernel (where the CPU has it) and residGo alone
+		residVec = v
+		testResidObserveMatchesRef(t)
+	}
+}
+
+func testResidObserveMatchesRef(t *testing.T) {
 	rng := rand.New(rand.NewPCG(21, 22))
-	for _, sh := range [][]int{{3, 7, 16}, {2, 128, 32}, {1, 5, 8}, {4, 1, 16}, {6, 24}, {2, 9, 3}} {
+	for _, sh := range [][]int{{3, 7, 16}, {2, 128, 32}, {1, 5, 8}, {4, 1, 16}, {6, 24}, {2, 9, 3}, {2, 16, 256}, {3, 1}} {
 		n := 1
 		for _, d := range sh {
 			n *= d
@@ -101,28 +110,32 @@ func TestResidObserveMatchesRef(t *testing.T) {
 			x[n-1] = float32(math.Inf(-1))
 			x[0] = 1e30
 		}
+		if n > 100 {
+			x[n/2+5] = float32(math.NaN()) // a group in the middle of the kernel's run
+			x[n/2+40] = -7
+		}
 		got, want := newResidAcc(D), newResidAcc(D)
 		for rep := 0; rep < 2; rep++ {
 			tt := tensor.From(x, sh...)
 			if a, b := got.observe(tt), residObserveRef(want, tt); a != b {
-				t.Fatalf("%v: accepted %v, reference %v", sh, a, b)
+				t.Fatalf("vector %v %v: accepted %v, reference %v", residVec, sh, a, b)
 			}
 		}
 		if got.maxAbs != want.maxAbs || got.n != want.n || got.positions != want.positions ||
 			math.Float64bits(got.simSum) != math.Float64bits(want.simSum) || got.simN != want.simN {
-			t.Fatalf("%v: got max %v n %d pos %d sim %v/%d, reference %v %d %d %v/%d", sh,
+			t.Fatalf("vector %v %v: got max %v n %d pos %d sim %v/%d, reference %v %d %d %v/%d", residVec, sh,
 				got.maxAbs, got.n, got.positions, got.simSum, got.simN,
 				want.maxAbs, want.n, want.positions, want.simSum, want.simN)
 		}
 		got.foldHist()
 		for i := range got.hist {
 			if got.hist[i] != want.hist[i] {
-				t.Fatalf("%v: hist[%d] %d, reference %d", sh, i, got.hist[i], want.hist[i])
+				t.Fatalf("vector %v %v: hist[%d] %d, reference %d", residVec, sh, i, got.hist[i], want.hist[i])
 			}
 		}
 		for i := range got.over6 {
 			if got.over6[i] != want.over6[i] {
-				t.Fatalf("%v: over6[%d] %d, reference %d", sh, i, got.over6[i], want.over6[i])
+				t.Fatalf("vector %v %v: over6[%d] %d, reference %d", residVec, sh, i, got.over6[i], want.over6[i])
 			}
 		}
 	}

@@ -201,7 +201,8 @@ type residAcc struct {
 	maxAbs    float64
 	n         int64
 	hist      []int64
-	hist2     []int64 // more counts of hist's bins, added in by foldHist (nil before the first observe)
+	hist2     []int64  // more counts of hist's bins, added in by foldHist (nil before the first observe)
+	over32    []uint32 // scratch of the vector kernel: |x| ≥ 6 counts of one observe
 	over6     []int64
 	positions int64
 	simSum    float64
@@ -221,57 +222,29 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	if r.hist2 == nil {
 		r.hist2 = make([]int64, absBins)
 	}
-	// Two count tables (even and odd features) and two running maxima, so
-	// that consecutive values do not wait on each other's increment or
-	// comparison; foldHist adds the second table into the first.
-	var mx0, mx1 uint32
+	var mx uint32
 	var nan int64
-	h0, h1 := r.hist[:absBins], r.hist2[:absBins]
-	six := six32
-	for i := 0; i+D <= len(x); i += D {
-		row, over := x[i:i+D], r.over6[:D]
-		d := 0
-		for ; d+2 <= len(row); d += 2 {
-			b0 := math.Float32bits(row[d]) & 0x7fffffff
-			b1 := math.Float32bits(row[d+1]) & 0x7fffffff
-			if b0 >= 0x7f800000 || b1 >= 0x7f800000 {
-				for k, b := range [2]uint32{b0, b1} {
-					if b >= 0x7f800000 {
-						nan++ // NaN, ±Inf
-						continue
-					}
-					h0[(b>>17)&(absBins-1)]++
-					mx0 = max(mx0, b)
-					if b >= six {
-						over[d+k]++
-					}
-				}
-				continue
-			}
-			mx0, mx1 = max(mx0, b0), max(mx1, b1)
-			if b0 >= six {
-				over[d]++
-			}
-			if b1 >= six {
-				over[d+1]++
-			}
-			h0[(b0>>17)&(absBins-1)]++
-			h1[(b1>>17)&(absBins-1)]++
+	rows := x[:len(x)/D*D]
+	if residVec && D%16 == 0 {
+		// the vector kernel, and residGo for each group of 16 holding a
+		// NaN or ±Inf; its |x| ≥ 6 counts go to over32, added in after
+		if len(r.over32) != D {
+			r.over32 = make([]uint32, D)
 		}
-		if d < len(row) {
-			b := math.Float32bits(row[d]) & 0x7fffffff
-			if b >= 0x7f800000 {
-				nan++
-			} else {
-				h0[(b>>17)&(absBins-1)]++
-				mx0 = max(mx0, b)
-				if b >= six {
-					over[d]++
-				}
+		for i := 0; i < len(rows); {
+			i += residKernel(rows[i:], D, i%D, r.hist, r.hist2, r.over32, &mx)
+			if i < len(rows) {
+				nan += r.residGo(rows[i:i+16], i%D, &mx)
+				i += 16
 			}
 		}
+		for d, c := range r.over32 {
+			r.over6[d] += int64(c)
+		}
+		clear(r.over32)
+	} else {
+		nan = r.residGo(rows, 0, &mx)
 	}
-	mx := max(mx0, mx1)
 	for _, v := range x[len(x)/D*D:] { // a partial last row (not in the loop above)
 		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
 			nan++
@@ -284,6 +257,69 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 		r.similarity(x, t.Shape[0], t.Shape[1])
 	}
 	return true
+}
+
+// residGo counts the values of x, which starts at feature d0, into the |x|
+// histogram (even values into hist, odd ones into hist2, so that
+// consecutive values do not wait on each other's increment), the |x| ≥ 6
+// counts and the maximum of |x|'s bits (two running maxima, folded into
+// *mx); it returns the number of NaN and ±Inf values.
+func (r *residAcc) residGo(x []float32, d0 int, mx *uint32) (nan int64) {
+	D := r.dim
+	h0, h1 := r.hist[:absBins], r.hist2[:absBins]
+	over := r.over6[:D]
+	six := six32
+	mx0, mx1 := *mx, uint32(0)
+	d := d0
+	i := 0
+	for ; i+2 <= len(x); i += 2 {
+		b0 := math.Float32bits(x[i]) & 0x7fffffff
+		b1 := math.Float32bits(x[i+1]) & 0x7fffffff
+		d1 := d + 1
+		if d1 == D {
+			d1 = 0
+		}
+		if b0 >= 0x7f800000 || b1 >= 0x7f800000 {
+			for k, b := range [2]uint32{b0, b1} {
+				if b >= 0x7f800000 {
+					nan++ // NaN, ±Inf
+					continue
+				}
+				h0[(b>>17)&(absBins-1)]++
+				mx0 = max(mx0, b)
+				if b >= six {
+					over[[2]int{d, d1}[k]]++
+				}
+			}
+		} else {
+			mx0, mx1 = max(mx0, b0), max(mx1, b1)
+			if b0 >= six {
+				over[d]++
+			}
+			if b1 >= six {
+				over[d1]++
+			}
+			h0[(b0>>17)&(absBins-1)]++
+			h1[(b1>>17)&(absBins-1)]++
+		}
+		if d = d1 + 1; d == D {
+			d = 0
+		}
+	}
+	if i < len(x) {
+		b := math.Float32bits(x[i]) & 0x7fffffff
+		if b >= 0x7f800000 {
+			nan++
+		} else {
+			h0[(b>>17)&(absBins-1)]++
+			mx0 = max(mx0, b)
+			if b >= six {
+				over[d]++
+			}
+		}
+	}
+	*mx = max(mx0, mx1)
+	return nan
 }
 
 // similarity adds, for each of the B sequences of S rows of r.dim values in
