@@ -20,3 +20,22 @@ func residKernel(x []float32, D, d0 int, h0, h1 []int64, over []uint32, mx *uint
 	_, _, _ = h0[absBins-1], h1[absBins-1], over[D-1]
 	return residAVX512(x[:len(x)&^15], D, d0, &h0[0], &h1[0], &over[0], mx)
 }
+
+// addRows4AVX512 is the four-row sweep of residAcc.similarity over n
+// features, n a multiple of 8 (resid_amd64.s).
+//
+//go:noescape
+func addRows4AVX512(u *float64, n int, r0, r1, r2, r3 *float32, inv *[4]float64)
+
+// addRows4 does u[d] += r0[d]·i0, then r1[d]·i1, r2[d]·i2, r3[d]·i3, in
+// float64 (each product and sum rounded), by the vector kernel where the
+// CPU has AVX-512.
+func addRows4(u []float64, r0, r1, r2, r3 []float32, inv *[4]float64) {
+	n := 0
+	if residVec && len(u) >= 8 {
+		n = len(u) &^ 7
+		_, _, _, _ = r0[n-1], r1[n-1], r2[n-1], r3[n-1]
+		addRows4AVX512(&u[0], n, &r0[0], &r1[0], &r2[0], &r3[0], inv)
+	}
+	addRows4Go(u[n:], r0[n:], r1[n:], r2[n:], r3[n:], inv)
+}

@@ -103,3 +103,48 @@ done:
 	MOVQ BX, ret+72(FP)
 	VZEROUPPER
 	RET
+
+// func addRows4AVX512(u *float64, n int, r0, r1, r2, r3 *float32, inv *[4]float64)
+//
+// u[d] = (((u[d] + r0[d]·inv[0]) + r1[d]·inv[1]) + r2[d]·inv[2]) + r3[d]·inv[3]
+// for d < n (n a multiple of 8), each product and sum rounded to float64
+// in that order (no fused multiply-add): the additions of the loop in
+// residAcc.similarity.
+TEXT ·addRows4AVX512(SB), NOSPLIT, $0-56
+	MOVQ u+0(FP), DI
+	MOVQ n+8(FP), CX
+	MOVQ r0+16(FP), R8
+	MOVQ r1+24(FP), R9
+	MOVQ r2+32(FP), R10
+	MOVQ r3+40(FP), R11
+	MOVQ inv+48(FP), DX
+	VBROADCASTSD 0(DX), Z4
+	VBROADCASTSD 8(DX), Z5
+	VBROADCASTSD 16(DX), Z6
+	VBROADCASTSD 24(DX), Z7
+	XORQ AX, AX
+	SHRQ $3, CX
+	JZ   addend
+
+addloop:
+	VMOVUPD (DI)(AX*8), Z0
+	VCVTPS2PD (R8)(AX*4), Z1
+	VMULPD Z4, Z1, Z1
+	VADDPD Z1, Z0, Z0
+	VCVTPS2PD (R9)(AX*4), Z2
+	VMULPD Z5, Z2, Z2
+	VADDPD Z2, Z0, Z0
+	VCVTPS2PD (R10)(AX*4), Z1
+	VMULPD Z6, Z1, Z1
+	VADDPD Z1, Z0, Z0
+	VCVTPS2PD (R11)(AX*4), Z2
+	VMULPD Z7, Z2, Z2
+	VADDPD Z2, Z0, Z0
+	VMOVUPD Z0, (DI)(AX*8)
+	ADDQ $8, AX
+	DECQ CX
+	JNZ  addloop
+
+addend:
+	VZEROUPPER
+	RET

@@ -356,16 +356,7 @@ func (r *residAcc) similarity(x []float32, B, S int) {
 			r1 := seq[rows[k+1]*D : rows[k+1]*D+D]
 			r2 := seq[rows[k+2]*D : rows[k+2]*D+D]
 			r3 := seq[rows[k+3]*D : rows[k+3]*D+D]
-			i0, i1, i2, i3 := invs[k], invs[k+1], invs[k+2], invs[k+3]
-			u := u[:D]
-			for d := range u {
-				a := u[d]
-				a += float64(r0[d]) * i0
-				a += float64(r1[d]) * i1
-				a += float64(r2[d]) * i2
-				a += float64(r3[d]) * i3
-				u[d] = a
-			}
+			addRows4(u, r0, r1, r2, r3, &[4]float64{invs[k], invs[k+1], invs[k+2], invs[k+3]})
 		}
 		for ; k < cnt; k++ {
 			row, inv := seq[rows[k]*D:rows[k]*D+D], invs[k]
@@ -379,6 +370,22 @@ func (r *residAcc) similarity(x []float32, B, S int) {
 		}
 		r.simSum += (uu - float64(cnt)) / float64(cnt*(cnt-1))
 		r.simN++
+	}
+}
+
+// addRows4Go does u[d] += r0[d]·inv[0], then r1[d]·inv[1], r2[d]·inv[2]
+// and r3[d]·inv[3], each product and sum rounded to float64: four rows of
+// the token-similarity sum per sweep over the features.
+func addRows4Go(u []float64, r0, r1, r2, r3 []float32, inv *[4]float64) {
+	i0, i1, i2, i3 := inv[0], inv[1], inv[2], inv[3]
+	r0, r1, r2, r3 = r0[:len(u)], r1[:len(u)], r2[:len(u)], r3[:len(u)]
+	for d := range u {
+		a := u[d]
+		a += float64(r0[d]) * i0
+		a += float64(r1[d]) * i1
+		a += float64(r2[d]) * i2
+		a += float64(r3[d]) * i3
+		u[d] = a
 	}
 }
 
