@@ -39,3 +39,23 @@ func addRows4(u []float64, r0, r1, r2, r3 []float32, inv *[4]float64) {
 	}
 	addRows4Go(u[n:], r0[n:], r1[n:], r2[n:], r3[n:], inv)
 }
+
+// sumSquares16AVX512 is sumSquares for 16 rows of D values, D a multiple
+// of 8 (resid_amd64.s).
+//
+//go:noescape
+func sumSquares16AVX512(x *float32, D int, q *float64)
+
+// sumSquares16 does sumSquares' first rows 16 at a time by the vector
+// kernel where the CPU has AVX-512; it returns the rows done.
+func sumSquares16(q []float64, x []float32, D int) int {
+	if !residVec || D%8 != 0 || D == 0 {
+		return 0
+	}
+	s := 0
+	for ; s+16 <= len(q); s += 16 {
+		_ = x[(s+16)*D-1]
+		sumSquares16AVX512(&x[s*D], D, &q[s])
+	}
+	return s
+}

@@ -148,3 +148,101 @@ addloop:
 addend:
 	VZEROUPPER
 	RET
+
+// TRANSPOSE8 transposes the 8×8 float32 block in Y0..Y7 (row r in Yr) into
+// columns (column k in Yk), Y8..Y15 clobbered.
+#define TRANSPOSE8 \
+	VUNPCKLPS Y1, Y0, Y8; \
+	VUNPCKHPS Y1, Y0, Y9; \
+	VUNPCKLPS Y3, Y2, Y10; \
+	VUNPCKHPS Y3, Y2, Y11; \
+	VUNPCKLPS Y5, Y4, Y12; \
+	VUNPCKHPS Y5, Y4, Y13; \
+	VUNPCKLPS Y7, Y6, Y14; \
+	VUNPCKHPS Y7, Y6, Y15; \
+	VSHUFPS $0x44, Y10, Y8, Y0; \
+	VSHUFPS $0xee, Y10, Y8, Y1; \
+	VSHUFPS $0x44, Y11, Y9, Y2; \
+	VSHUFPS $0xee, Y11, Y9, Y3; \
+	VSHUFPS $0x44, Y14, Y12, Y4; \
+	VSHUFPS $0xee, Y14, Y12, Y5; \
+	VSHUFPS $0x44, Y15, Y13, Y6; \
+	VSHUFPS $0xee, Y15, Y13, Y7; \
+	VPERM2F128 $0x20, Y4, Y0, Y8; \
+	VPERM2F128 $0x20, Y5, Y1, Y9; \
+	VPERM2F128 $0x20, Y6, Y2, Y10; \
+	VPERM2F128 $0x20, Y7, Y3, Y11; \
+	VPERM2F128 $0x31, Y4, Y0, Y12; \
+	VPERM2F128 $0x31, Y5, Y1, Y13; \
+	VPERM2F128 $0x31, Y6, Y2, Y14; \
+	VPERM2F128 $0x31, Y7, Y3, Y15
+
+// SQADD(y, acc) adds float64(y)² to acc per lane (product, then sum, each
+// rounded; Z16 clobbered).
+#define SQADD(y, acc) \
+	VCVTPS2PD y, Z16; \
+	VMULPD Z16, Z16, Z16; \
+	VADDPD Z16, acc, acc
+
+// LOAD8(a, b) loads 8 values of the 8 rows at a (rows 0..3, stride BX,
+// R9 = 3·BX) and b (rows 4..7) into Y0..Y7.
+#define LOAD8(a, b) \
+	VMOVUPS (a), Y0; \
+	VMOVUPS (a)(BX*1), Y1; \
+	VMOVUPS (a)(BX*2), Y2; \
+	VMOVUPS (a)(R9*1), Y3; \
+	VMOVUPS (b), Y4; \
+	VMOVUPS (b)(BX*1), Y5; \
+	VMOVUPS (b)(BX*2), Y6; \
+	VMOVUPS (b)(R9*1), Y7
+
+// SUM8(acc) transposes Y0..Y7 and adds the squares of the 8 columns, in
+// column order, to acc (one lane per row).
+#define SUM8(acc) \
+	TRANSPOSE8; \
+	SQADD(Y8, acc); \
+	SQADD(Y9, acc); \
+	SQADD(Y10, acc); \
+	SQADD(Y11, acc); \
+	SQADD(Y12, acc); \
+	SQADD(Y13, acc); \
+	SQADD(Y14, acc); \
+	SQADD(Y15, acc)
+
+// func sumSquares16AVX512(x *float32, D int, q *float64)
+//
+// q[s] = Σ_d x[s·D+d]² for the 16 rows s of D values at x (D a multiple
+// of 8), each row summed in float64 in order of d, product and sum rounded
+// (sumSquares' additions): two blocks of 8 rows, one row per float64 lane,
+// 8×8 blocks transposed so that a lane takes its row's values in order.
+TEXT ·sumSquares16AVX512(SB), NOSPLIT, $0-24
+	MOVQ x+0(FP), SI
+	MOVQ D+8(FP), CX
+	MOVQ q+16(FP), DI
+	LEAQ (CX*4), BX              // row stride in bytes
+	LEAQ (BX)(BX*2), R9          // 3 rows
+	LEAQ (SI)(BX*4), R8          // row 4
+	LEAQ (R8)(BX*4), R10         // row 8
+	LEAQ (R10)(BX*4), R11        // row 12
+	VXORPD Z30, Z30, Z30
+	VXORPD Z31, Z31, Z31
+	SHRQ $3, CX
+	JZ   sqend
+
+sqloop:
+	LOAD8(SI, R8)
+	SUM8(Z30)
+	LOAD8(R10, R11)
+	SUM8(Z31)
+	ADDQ $32, SI
+	ADDQ $32, R8
+	ADDQ $32, R10
+	ADDQ $32, R11
+	DECQ CX
+	JNZ  sqloop
+
+sqend:
+	VMOVUPD Z30, 0(DI)
+	VMOVUPD Z31, 64(DI)
+	VZEROUPPER
+	RET

@@ -393,7 +393,7 @@ func addRows4Go(u []float64, r0, r1, r2, r3 []float32, inv *[4]float64) {
 // order of d). Four rows go at a time: four independent chains of
 // additions instead of one, each summed in the same order as one row alone.
 func sumSquares(q []float64, x []float32, D int) {
-	s := 0
+	s := sumSquares16(q, x, D) // sixteen rows at a time where there is a vector kernel
 	for ; s+4 <= len(q); s += 4 {
 		r0, r1, r2, r3 := x[s*D:(s+1)*D], x[(s+1)*D:(s+2)*D], x[(s+2)*D:(s+3)*D], x[(s+3)*D:(s+4)*D]
 		var q0, q1, q2, q3 float64
