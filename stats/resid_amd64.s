@@ -1,14 +1,37 @@
 #include "textflag.h"
 
+// DRAIN16 increments, for the 16 bins stored at (R15), h0 at the even
+// ones and h1 at the odd ones (AX clobbered).
+#define DRAIN16 \
+	MOVL 0(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 4(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 8(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 12(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 16(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 20(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 24(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 28(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 32(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 36(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 40(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 44(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 48(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 52(R15), AX; INCQ (R9)(AX*8); \
+	MOVL 56(R15), AX; INCQ (R8)(AX*8); \
+	MOVL 60(R15), AX; INCQ (R9)(AX*8)
+
 // func residAVX512(x []float32, D, d0 int, h0, h1 *int64, over *uint32, mx *uint32) int
 //
 // residGo's loop over groups of 16 values (D a multiple of 16, x starting
 // at feature d0, len(x) a multiple of 16): |v|'s bits b, the running
 // maximum of b (VPMAXUD, into *mx), over[d] += 1 where b ≥ bits(6), and
 // one increment of the |x| histogram at b>>17 per value, the even values of
-// a group into h0 and the odd ones into h1. It stops before the first group
-// holding a NaN or ±Inf and returns the number of values done.
-TEXT ·residAVX512(SB), NOSPLIT, $64-80
+// a group into h0 and the odd ones into h1. A group's bins are stored in
+// one of two frame slots and counted during the next group (read back
+// after the store has long completed, not through store forwarding). It
+// stops before the first group holding a NaN or ±Inf and returns the
+// number of values done.
+TEXT ·residAVX512(SB), NOSPLIT, $128-80
 	MOVQ x_base+0(FP), SI
 	MOVQ x_len+8(FP), CX
 	MOVQ D+24(FP), R11
@@ -19,6 +42,9 @@ TEXT ·residAVX512(SB), NOSPLIT, $64-80
 	MOVQ mx+64(FP), DX
 	SHRQ $4, CX
 	XORQ BX, BX                  // values done
+	XORQ DI, DI                  // 1 when the slot at R15 holds bins not yet counted
+	LEAQ 0(SP), R14              // slot for this group's bins
+	LEAQ 64(SP), R15             // slot of the group before
 	VPBROADCASTD (DX), Z7        // running maximum of |v|'s bits
 	MOVL $0x7fffffff, AX
 	VPBROADCASTD AX, Z4
@@ -46,39 +72,14 @@ loop:
 
 bins:
 	VPSRLD $17, Z1, Z1           // bin: the top 14 bits of |v|
-	VMOVDQU32 Z1, 0(SP)
-	MOVL 0(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 4(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 8(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 12(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 16(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 20(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 24(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 28(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 32(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 36(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 40(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 44(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 48(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 52(SP), AX
-	INCQ (R9)(AX*8)
-	MOVL 56(SP), AX
-	INCQ (R8)(AX*8)
-	MOVL 60(SP), AX
-	INCQ (R9)(AX*8)
+	VMOVDQU32 Z1, (R14)
+	TESTQ DI, DI
+	JZ   first
+	DRAIN16                      // the group before's bins
+
+first:
+	MOVQ $1, DI
+	XCHGQ R14, R15
 	ADDQ $16, BX
 	ADDQ $16, R12
 	CMPQ R12, R11
@@ -90,6 +91,11 @@ nowrap:
 	JNZ  loop
 
 done:
+	TESTQ DI, DI                 // the last group's bins
+	JZ   maxout
+	DRAIN16
+
+maxout:
 	// horizontal maximum of Z7
 	VEXTRACTI64X4 $1, Z7, Y2
 	VPMAXUD Y2, Y7, Y7
