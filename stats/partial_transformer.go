@@ -52,6 +52,7 @@ func (partTransformer) Save(c *Collector, e *Enc) {
 			e.Uvarint(uint64(r.dim))
 			e.Float(r.maxAbs)
 			e.Varint(r.n)
+			r.foldHist()
 			for _, v := range r.hist {
 				e.Varint(v)
 			}

@@ -201,6 +201,8 @@ type residAcc struct {
 	maxAbs    float64
 	n         int64
 	hist      []int64
+	hist2     []int64  // more counts of hist's bins, added in by foldHist (nil before the first observe)
+	over32    []uint32 // scratch of the vector kernel: |x| ≥ 6 counts of one observe
 	over6     []int64
 	positions int64
 	simSum    float64
@@ -217,25 +219,31 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 		return false
 	}
 	D := r.dim
+	if r.hist2 == nil {
+		r.hist2 = make([]int64, absBins)
+	}
 	var mx uint32
 	var nan int64
-	hist := r.hist
-	for i := 0; i+D <= len(x); i += D {
-		row, over := x[i:i+D], r.over6[:D]
-		for d, v := range row {
-			b := math.Float32bits(v) & 0x7fffffff
-			if b >= 0x7f800000 {
-				nan++ // NaN, ±Inf
-				continue
-			}
-			hist[b>>17]++
-			if b > mx {
-				mx = b
-			}
-			if b >= six32 {
-				over[d]++
+	rows := x[:len(x)/D*D]
+	if residVec && D%16 == 0 {
+		// the vector kernel, and residGo for each group of 16 holding a
+		// NaN or ±Inf; its |x| ≥ 6 counts go to over32, added in after
+		if len(r.over32) != D {
+			r.over32 = make([]uint32, D)
+		}
+		for i := 0; i < len(rows); {
+			i += residKernel(rows[i:], D, i%D, r.hist, r.hist2, r.over32, &mx)
+			if i < len(rows) {
+				nan += r.residGo(rows[i:i+16], i%D, &mx)
+				i += 16
 			}
 		}
+		for d, c := range r.over32 {
+			r.over6[d] += int64(c)
+		}
+		clear(r.over32)
+	} else {
+		nan = r.residGo(rows, 0, &mx)
 	}
 	for _, v := range x[len(x)/D*D:] { // a partial last row (not in the loop above)
 		if math.Float32bits(v)&0x7fffffff >= 0x7f800000 {
@@ -246,45 +254,146 @@ func (r *residAcc) observe(t *tensor.Tensor) bool {
 	r.maxAbs = math.Max(r.maxAbs, float64(math.Float32frombits(mx)))
 	r.positions += int64(len(x) / D)
 	if t.Rank() == 3 {
-		S := t.Shape[1]
-		u := make([]float64, D)
-		qs := make([]float64, S)
-		for b := 0; b < t.Shape[0]; b++ {
-			clear(u)
-			cnt := 0
-			seq := x[b*S*D : (b+1)*S*D]
-			sumSquares(qs, seq, D)
-			for s := 0; s < S; s++ {
-				row := seq[s*D : (s+1)*D]
-				q := qs[s]
-				if q == 0 || math.IsNaN(q) || math.IsInf(q, 0) {
-					continue
-				}
-				inv := 1 / math.Sqrt(q)
-				for d, v := range row {
-					u[d] += float64(v) * inv
-				}
-				cnt++
-			}
-			if cnt < 2 {
-				continue
-			}
-			var uu float64
-			for _, v := range u {
-				uu += v * v
-			}
-			r.simSum += (uu - float64(cnt)) / float64(cnt*(cnt-1))
-			r.simN++
-		}
+		r.similarity(x, t.Shape[0], t.Shape[1])
 	}
 	return true
+}
+
+// residGo counts the values of x, which starts at feature d0, into the |x|
+// histogram (even values into hist, odd ones into hist2, so that
+// consecutive values do not wait on each other's increment), the |x| ≥ 6
+// counts and the maximum of |x|'s bits (two running maxima, folded into
+// *mx); it returns the number of NaN and ±Inf values.
+func (r *residAcc) residGo(x []float32, d0 int, mx *uint32) (nan int64) {
+	D := r.dim
+	h0, h1 := r.hist[:absBins], r.hist2[:absBins]
+	over := r.over6[:D]
+	six := six32
+	mx0, mx1 := *mx, uint32(0)
+	d := d0
+	i := 0
+	for ; i+2 <= len(x); i += 2 {
+		b0 := math.Float32bits(x[i]) & 0x7fffffff
+		b1 := math.Float32bits(x[i+1]) & 0x7fffffff
+		d1 := d + 1
+		if d1 == D {
+			d1 = 0
+		}
+		if b0 >= 0x7f800000 || b1 >= 0x7f800000 {
+			for k, b := range [2]uint32{b0, b1} {
+				if b >= 0x7f800000 {
+					nan++ // NaN, ±Inf
+					continue
+				}
+				h0[(b>>17)&(absBins-1)]++
+				mx0 = max(mx0, b)
+				if b >= six {
+					over[[2]int{d, d1}[k]]++
+				}
+			}
+		} else {
+			mx0, mx1 = max(mx0, b0), max(mx1, b1)
+			if b0 >= six {
+				over[d]++
+			}
+			if b1 >= six {
+				over[d1]++
+			}
+			h0[(b0>>17)&(absBins-1)]++
+			h1[(b1>>17)&(absBins-1)]++
+		}
+		if d = d1 + 1; d == D {
+			d = 0
+		}
+	}
+	if i < len(x) {
+		b := math.Float32bits(x[i]) & 0x7fffffff
+		if b >= 0x7f800000 {
+			nan++
+		} else {
+			h0[(b>>17)&(absBins-1)]++
+			mx0 = max(mx0, b)
+			if b >= six {
+				over[d]++
+			}
+		}
+	}
+	*mx = max(mx0, mx1)
+	return nan
+}
+
+// similarity adds, for each of the B sequences of S rows of r.dim values in
+// x, the mean pairwise cosine similarity of its non-zero finite rows,
+// (|Σ_i x̂_i|² − S')/(S'(S'−1)), to simSum (sequences with S' ≥ 2 only).
+// Σ_i x̂_i is summed in float64 in row order for each feature, four rows
+// per sweep over the features (the same additions in the same order as
+// one row per sweep, with a quarter of the loads and stores of the sum).
+func (r *residAcc) similarity(x []float32, B, S int) {
+	D := r.dim
+	u := make([]float64, D)
+	qs := make([]float64, S)
+	rows := make([]int, 0, S)
+	invs := make([]float64, 0, S)
+	for b := 0; b < B; b++ {
+		clear(u)
+		seq := x[b*S*D : (b+1)*S*D]
+		sumSquares(qs, seq, D)
+		rows, invs = rows[:0], invs[:0]
+		for s, q := range qs {
+			if q == 0 || math.IsNaN(q) || math.IsInf(q, 0) {
+				continue
+			}
+			rows = append(rows, s)
+			invs = append(invs, 1/math.Sqrt(q))
+		}
+		cnt := len(rows)
+		if cnt < 2 {
+			continue
+		}
+		k := 0
+		for ; k+4 <= cnt; k += 4 {
+			r0 := seq[rows[k]*D : rows[k]*D+D]
+			r1 := seq[rows[k+1]*D : rows[k+1]*D+D]
+			r2 := seq[rows[k+2]*D : rows[k+2]*D+D]
+			r3 := seq[rows[k+3]*D : rows[k+3]*D+D]
+			addRows4(u, r0, r1, r2, r3, &[4]float64{invs[k], invs[k+1], invs[k+2], invs[k+3]})
+		}
+		for ; k < cnt; k++ {
+			row, inv := seq[rows[k]*D:rows[k]*D+D], invs[k]
+			for d, v := range row {
+				u[d] += float64(v) * inv
+			}
+		}
+		var uu float64
+		for _, v := range u {
+			uu += v * v
+		}
+		r.simSum += (uu - float64(cnt)) / float64(cnt*(cnt-1))
+		r.simN++
+	}
+}
+
+// addRows4Go does u[d] += r0[d]·inv[0], then r1[d]·inv[1], r2[d]·inv[2]
+// and r3[d]·inv[3], each product and sum rounded to float64: four rows of
+// the token-similarity sum per sweep over the features.
+func addRows4Go(u []float64, r0, r1, r2, r3 []float32, inv *[4]float64) {
+	i0, i1, i2, i3 := inv[0], inv[1], inv[2], inv[3]
+	r0, r1, r2, r3 = r0[:len(u)], r1[:len(u)], r2[:len(u)], r3[:len(u)]
+	for d := range u {
+		a := u[d]
+		a += float64(r0[d]) * i0
+		a += float64(r1[d]) * i1
+		a += float64(r2[d]) * i2
+		a += float64(r3[d]) * i3
+		u[d] = a
+	}
 }
 
 // sumSquares sets q[s] = Σ_d x[s·D+d]² for each row s of x (float64, in
 // order of d). Four rows go at a time: four independent chains of
 // additions instead of one, each summed in the same order as one row alone.
 func sumSquares(q []float64, x []float32, D int) {
-	s := 0
+	s := sumSquares16(q, x, D) // sixteen rows at a time where there is a vector kernel
 	for ; s+4 <= len(q); s += 4 {
 		r0, r1, r2, r3 := x[s*D:(s+1)*D], x[(s+1)*D:(s+2)*D], x[(s+2)*D:(s+3)*D], x[(s+3)*D:(s+4)*D]
 		var q0, q1, q2, q3 float64
@@ -306,7 +415,20 @@ func sumSquares(q []float64, x []float32, D int) {
 	}
 }
 
+// foldHist adds the second count table into hist.
+func (r *residAcc) foldHist() {
+	if r.hist2 == nil {
+		return
+	}
+	for i, v := range r.hist2 {
+		r.hist[i] += v
+	}
+	clear(r.hist2)
+}
+
 func (r *residAcc) merge(b *residAcc) {
+	r.foldHist()
+	b.foldHist()
 	r.maxAbs = math.Max(r.maxAbs, b.maxAbs)
 	r.n += b.n
 	for i := range r.hist {
@@ -322,6 +444,7 @@ func (r *residAcc) merge(b *residAcc) {
 
 // median is the centre of the bin holding the ⌈n/2⌉-th smallest |x| (0 in the zero bin).
 func (r *residAcc) median() float64 {
+	r.foldHist()
 	if r.n == 0 {
 		return math.NaN()
 	}
