@@ -44,6 +44,7 @@ func main() {
 	gen(spec{file: "kernel_avx512sb_amd64.s", name: "sgemmKernelAVX512SB", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, bias: true})
 	gen(spec{file: "kernel_avx512o_amd64.s", name: "sgemmKernelAVX512O", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, offs: true})
 	gen(spec{file: "kernel_avx512w_amd64.s", name: "sgemmKernelAVX512W", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4})
+	gen(spec{file: "kernel_avx512wp_amd64.s", name: "sgemmKernelAVX512WP", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, prefetchB: 16384})
 	gen(spec{file: "kernel_avx512ws_amd64.s", name: "sgemmKernelAVX512WS", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, strided: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }

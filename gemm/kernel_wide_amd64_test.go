@@ -2,6 +2,7 @@ package gemm
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"testing"
 )
@@ -79,6 +80,47 @@ func BenchmarkWideKernel(b *testing.B) {
 				}
 				b.ReportMetric(2*float64(m*n*k)*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
 			})
+		}
+	}
+}
+
+// PackB packs a B of 256 or 1024 columns (the encoder's feed-forward
+// weights) for the 6×64 kernel, which pads them less, and the products are
+// bit for bit those of the 8×48 kernel: each C element is the same chain of
+// multiply-adds over k in either tile (regression check of the summation
+// order; shapes with k cut into kc slices, few rows for the prefetching
+// variant, edge tiles in m and n, beta 0 over NaN).
+func TestPackBWideSameBits(t *testing.T) {
+	if !kernelAvailable("avx512") {
+		t.Skip("no AVX-512 here")
+	}
+	restore, _ := setKernel("avx512")
+	defer restore()
+	r := rand.New(rand.NewPCG(11, 12))
+	for _, s := range [][3]int{{1024, 256, 1024}, {100, 1024, 256}, {13, 256, 700}, {5, 120, 33}, {1, 64, 9}} {
+		m, n, k := s[0], s[1], s[2]
+		for _, tb := range bools {
+			a, w := randSlice(r, m*k), randSlice(r, k*n)
+			ldb := n
+			if tb {
+				ldb = k
+			}
+			pb := PackB(tb, k, n, w, ldb)
+			if pb.kern != avx512WideKernel {
+				t.Fatalf("n = %d: PackB chose %s, want avx512w", n, pb.kern.name)
+			}
+			narrow := packBFor(avx512Kernel, tb, k, n, w, ldb)
+			got, want := make([]float32, m*n), make([]float32, m*n)
+			for i := range got {
+				got[i], want[i] = float32(math.NaN()), float32(math.NaN())
+			}
+			SgemmPackedB(false, m, 1, a, k, pb, 0, got, n)
+			SgemmPackedB(false, m, 1, a, k, narrow, 0, want, n)
+			for i := range got {
+				if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+					t.Fatalf("%dx%dx%d transB %v: C[%d] = %v with 6×64, %v with 8×48", m, n, k, tb, i, got[i], want[i])
+				}
+			}
 		}
 	}
 }
