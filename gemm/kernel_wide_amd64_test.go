@@ -124,3 +124,52 @@ func TestPackBWideSameBits(t *testing.T) {
 		}
 	}
 }
+
+// Reading A in place (fnStridedA) gives bit for bit the products of packing
+// it: the same multiply-add chain per C element (regression check of the
+// summation order), over the encoder's shapes, k cut into kc slices, edge
+// tiles in m and n, beta 0 over NaN and beta ≠ 0, both tile widths, with B
+// packed per call (transposed) and packed once (PackB). The products'
+// accuracy against the float64 reference is TestMixed's and TestWideKernel's.
+func TestStridedASameBits(t *testing.T) {
+	if !kernelAvailable("avx512") {
+		t.Skip("no AVX-512 here")
+	}
+	r := rand.New(rand.NewPCG(13, 14))
+	for _, kern := range []*kernel{avx512Kernel, avx512WideKernel} {
+		for _, s := range [][3]int{{1024, 768, 256}, {100, 256, 1024}, {37, 120, 33}, {300, 50, 170}, {17, 64, 1}} {
+			m, n, k := s[0], s[1], s[2]
+			for _, tb := range bools {
+				for _, beta := range []float32{0, -0.5} {
+					a, w, c0 := randSlice(r, m*(k+3)), randSlice(r, k*n), randSlice(r, m*n)
+					if beta == 0 {
+						for i := range c0 {
+							c0[i] = float32(math.NaN())
+						}
+					}
+					ldb := n
+					if tb {
+						ldb = k
+					}
+					B := operand{data: w, ld: ldb, trans: tb}
+					if !tb {
+						B = packBFor(kern, false, k, n, w, n).operand()
+					}
+					A := operand{data: a, ld: k + 3}
+					got := append([]float32(nil), c0...)
+					multiply(1, kern, m, n, k, 1.5, A, B, beta, got, n)
+					saved := kern.fnStridedA
+					kern.fnStridedA = nil
+					want := append([]float32(nil), c0...)
+					multiply(1, kern, m, n, k, 1.5, A, B, beta, want, n)
+					kern.fnStridedA = saved
+					for i := range got {
+						if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+							t.Fatalf("%s %v transB %v beta %g: C[%d] = %v reading A in place, %v packed", kern.name, s, tb, beta, i, got[i], want[i])
+						}
+					}
+				}
+			}
+		}
+	}
+}
