@@ -212,7 +212,8 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 			// caller checked the kernel has the bias variants)
 			withBias := pc == 0 && A.bias != nil
 			// directA: A is read in place by fnStridedA (see kernel.fnStridedA).
-			directA := A.packed == nil && !A.trans && !direct && kern.fnStridedA != nil && m1-m0 > kern.maxMStream
+			directA := A.packed == nil && !A.trans && kern.fnStridedA != nil && m1-m0 > kern.maxMStream &&
+				(!direct || kern.fnStridedAB != nil)
 			for ic := m0; ic < m1; ic += mcMax {
 				mcur := min(mcMax, m1-ic)
 				var ap []float32
@@ -237,6 +238,11 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 						for ir := 0; ir < mcur; ir += mr {
 							mv := min(mr, mcur-ir)
 							ci := (ic+ir)*ldc + jc + jr
+							if directA && mv == mr {
+								asrc := &A.data[(ic+ir)*A.ld+pc]
+								kern.fnStridedAB(kcur, asrc, A.ld, &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero)
+								continue
+							}
 							if mv == mr {
 								if withBias {
 									kern.fnStridedBias(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero, &A.bias[ic+ir])

@@ -48,6 +48,8 @@ func main() {
 	gen(spec{file: "kernel_avx512wp_amd64.s", name: "sgemmKernelAVX512WP", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, prefetchB: 16384})
 	gen(spec{file: "kernel_avx512a_amd64.s", name: "sgemmKernelAVX512A", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, stridedA: true})
 	gen(spec{file: "kernel_avx512wa_amd64.s", name: "sgemmKernelAVX512WA", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, stridedA: true})
+	gen(spec{file: "kernel_avx512as_amd64.s", name: "sgemmKernelAVX512AS", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, stridedA: true, strided: true})
+	gen(spec{file: "kernel_avx512was_amd64.s", name: "sgemmKernelAVX512WAS", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, stridedA: true, strided: true})
 	gen(spec{file: "kernel_avx512ws_amd64.s", name: "sgemmKernelAVX512WS", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, strided: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
@@ -75,6 +77,11 @@ func gen(s spec) {
 		p("// func %s(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
 		p("// As the packed kernel, but B is read in place: row p of the micro-panel at b + offs[p].")
 		oC, oLdc, oAlpha, oBeta, oBZ, frame = 32, 40, 48, 52, 56, 64
+	} else if s.stridedA && s.strided {
+		p("// func %s(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+		p("// As the packed kernel, but A and B are read in place: row i of the A micro-panel at a + i·lda,")
+		p("// row p of the B micro-panel at b + p·ldb.")
+		oC, oLdc, oAlpha, oBeta, oBZ, frame = 40, 48, 56, 60, 64, 72
 	} else if s.stridedA {
 		p("// func %s(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
 		p("// As the packed kernel, but A is read in place: row i of the micro-panel at a + i·lda.")
@@ -98,16 +105,19 @@ func gen(s spec) {
 	p("\tMOVQ kc+0(FP), CX")
 	p("\tMOVQ a+8(FP), SI")
 	if s.stridedA {
-		// rows 0-3 from SI, rows 4-7 from R13 = SI + 4·lda, at index 0, lda, 2·lda (R11·2), 3·lda (R12)
-		p("\tMOVQ lda+16(FP), R11")
-		p("\tSHLQ $2, R11")
-		p("\tLEAQ (R11)(R11*2), R12")
-		p("\tLEAQ (SI)(R11*4), R13")
+		// rows 0-3 from SI, rows 4-7 from BX = SI + 4·lda, at index 0, lda, 2·lda (R12·2), 3·lda (R13)
+		p("\tMOVQ lda+16(FP), R12")
+		p("\tSHLQ $2, R12")
+		p("\tLEAQ (R12)(R12*2), R13")
+		p("\tLEAQ (SI)(R12*4), BX")
 		p("\tMOVQ b+24(FP), DI")
 	} else {
 		p("\tMOVQ b+16(FP), DI")
 	}
-	if s.offs {
+	if s.stridedA && s.strided {
+		p("\tMOVQ ldb+32(FP), R11")
+		p("\tSHLQ $2, R11")
+	} else if s.offs {
 		p("\tMOVQ offs+24(FP), R11")
 	} else if s.strided {
 		p("\tMOVQ ldb+24(FP), R11")
@@ -160,9 +170,9 @@ func gen(s spec) {
 		}
 		for i := 0; i < s.mr; i++ {
 			if s.stridedA {
-				base, idx := "SI", []string{"", "(R11*1)", "(R11*2)", "(R12*1)"}[i%4]
+				base, idx := "SI", []string{"", "(R12*1)", "(R12*2)", "(R13*1)"}[i%4]
 				if i >= 4 {
-					base = "R13"
+					base = "BX"
 				}
 				p("\tVBROADCASTSS %d(%s)%s, %s", u*4, base, idx, areg(i))
 			} else {
@@ -191,7 +201,7 @@ func gen(s spec) {
 	}
 	if s.stridedA {
 		p("\tADDQ $%d, SI", 4*s.unroll)
-		p("\tADDQ $%d, R13", 4*s.unroll)
+		p("\tADDQ $%d, BX", 4*s.unroll)
 	} else {
 		p("\tADDQ $%d, SI", s.mr*4*s.unroll)
 	}
@@ -210,7 +220,7 @@ func gen(s spec) {
 	step(0)
 	if s.stridedA {
 		p("\tADDQ $4, SI")
-		p("\tADDQ $4, R13")
+		p("\tADDQ $4, BX")
 	} else {
 		p("\tADDQ $%d, SI", s.mr*4)
 	}

@@ -29,6 +29,10 @@ type offsKernel func(kc int, a, b *float32, offs *int, c *float32, ldc int, alph
 // row i of the MR×kc micro-panel starts at a + i·lda (kc floats), B packed.
 type stridedAKernel func(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
+// stridedABKernel reads both operands in place: A as stridedAKernel, B as
+// stridedKernel.
+type stridedABKernel func(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
 type stridedBiasKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
 
 // kernel describes one micro-kernel and the cache blocking chosen for it.
@@ -75,6 +79,10 @@ type kernel struct {
 	// encoder's 1024×256×768 product and 14% of its 1024×1024×256 one. Row
 	// micro-panels cut by the matrix edge are still packed.
 	fnStridedA stridedAKernel
+	// fnStridedAB, if set, is fnStrided reading A in place as fnStridedA
+	// does: products with B read in place (at most maxMDirect rows, such
+	// as attention's per-head products) then pack neither operand.
+	fnStridedAB stridedABKernel
 }
 
 // kcFor returns the k-slice depth used for a product of depth k: the k range

@@ -33,6 +33,12 @@ func sgemmKernelAVX512A(kc int, a *float32, lda int, b, c *float32, ldc int, alp
 func sgemmKernelAVX512WA(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 //go:noescape
+func sgemmKernelAVX512AS(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX512WAS(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
 func sgemmKernelAVX512WS(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 //go:noescape
@@ -55,6 +61,7 @@ var avx512Kernel = &kernel{
 	fnStream: sgemmKernelAVX512P, maxMStream: 16,
 	fnBias: sgemmKernelAVX512B, fnStridedBias: sgemmKernelAVX512SB,
 	fnOffs: sgemmKernelAVX512O, fnStridedA: sgemmKernelAVX512A,
+	fnStridedAB: sgemmKernelAVX512AS,
 }
 
 // avx512WideKernel: 6×64 zmm tile (24 accumulators + 4 B vectors + 2
@@ -75,7 +82,7 @@ var avx512WideKernel = &kernel{
 	name: "avx512w", mr: 6, nr: 64, kc: 384, mc: 96, nc: 3072,
 	fn: sgemmKernelAVX512W, fnStrided: sgemmKernelAVX512WS, maxMDirect: 128,
 	fnStream: sgemmKernelAVX512WP, maxMStream: 16,
-	fnStridedA: sgemmKernelAVX512WA,
+	fnStridedA: sgemmKernelAVX512WA, fnStridedAB: sgemmKernelAVX512WAS,
 }
 
 // widerFor returns the kernel a product of n columns runs on when k is the

@@ -129,17 +129,20 @@ func TestPackBWideSameBits(t *testing.T) {
 // it: the same multiply-add chain per C element (regression check of the
 // summation order), over the encoder's shapes, k cut into kc slices, edge
 // tiles in m and n, beta 0 over NaN and beta ≠ 0, both tile widths, with B
-// packed per call (transposed) and packed once (PackB). The products'
-// accuracy against the float64 reference is TestMixed's and TestWideKernel's.
+// packed per call (transposed), packed once (PackB) and read in place too
+// (fnStridedAB: at most maxMDirect rows, attention's per-head shapes). The
+// products' accuracy against the float64 reference is TestMixed's and
+// TestWideKernel's.
 func TestStridedASameBits(t *testing.T) {
 	if !kernelAvailable("avx512") {
 		t.Skip("no AVX-512 here")
 	}
 	r := rand.New(rand.NewPCG(13, 14))
 	for _, kern := range []*kernel{avx512Kernel, avx512WideKernel} {
-		for _, s := range [][3]int{{1024, 768, 256}, {100, 256, 1024}, {37, 120, 33}, {300, 50, 170}, {17, 64, 1}} {
+		for _, s := range [][3]int{{1024, 768, 256}, {100, 256, 1024}, {37, 120, 33}, {300, 50, 170}, {17, 64, 1}, {128, 64, 128}, {128, 128, 64}, {120, 100, 49}} {
 			m, n, k := s[0], s[1], s[2]
-			for _, tb := range bools {
+			for _, mode := range []string{"packed", "transposed", "in place"} {
+				tb := mode == "transposed"
 				for _, beta := range []float32{0, -0.5} {
 					a, w, c0 := randSlice(r, m*(k+3)), randSlice(r, k*n), randSlice(r, m*n)
 					if beta == 0 {
@@ -152,7 +155,7 @@ func TestStridedASameBits(t *testing.T) {
 						ldb = k
 					}
 					B := operand{data: w, ld: ldb, trans: tb}
-					if !tb {
+					if mode == "packed" {
 						B = packBFor(kern, false, k, n, w, n).operand()
 					}
 					A := operand{data: a, ld: k + 3}
@@ -165,7 +168,7 @@ func TestStridedASameBits(t *testing.T) {
 					kern.fnStridedA = saved
 					for i := range got {
 						if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
-							t.Fatalf("%s %v transB %v beta %g: C[%d] = %v reading A in place, %v packed", kern.name, s, tb, beta, i, got[i], want[i])
+							t.Fatalf("%s %v B %s beta %g: C[%d] = %v reading A in place, %v packed", kern.name, s, mode, beta, i, got[i], want[i])
 						}
 					}
 				}
