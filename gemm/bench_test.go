@@ -141,3 +141,26 @@ func BenchmarkMicroKernel(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkSgemmPackedBEncoder: the benchmark encoder's dense products at
+// batch 8 × 128 tokens (bench/gen/export.py: d 256, ff 1024), C = X·W with
+// the weights W (k×n, not transposed, as MatMul exports them) packed once:
+// activations m = 1024 rows, small k.
+func BenchmarkSgemmPackedBEncoder(b *testing.B) {
+	r := rand.New(rand.NewPCG(4, 4))
+	for _, s := range []struct {
+		name    string
+		m, n, k int
+	}{{"qkv_1024x256x768", 1024, 768, 256}, {"ff1_1024x256x1024", 1024, 1024, 256}, {"ff2_1024x1024x256", 1024, 256, 1024}} {
+		b.Run(s.name, func(b *testing.B) {
+			a, w, c := randSlice(r, s.m*s.k), randSlice(r, s.k*s.n), make([]float32, s.m*s.n)
+			pb := PackB(false, s.k, s.n, w, s.n)
+			SgemmPackedB(false, s.m, 1, a, s.k, pb, 0, c, s.n)
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				SgemmPackedB(false, s.m, 1, a, s.k, pb, 0, c, s.n)
+			}
+			reportGFLOPS(b, s.m, s.n, s.k)
+		})
+	}
+}

@@ -211,12 +211,22 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 			// the first slice of a product with a bias starts from it (the
 			// caller checked the kernel has the bias variants)
 			withBias := pc == 0 && A.bias != nil
+			// directA: A is read in place by fnStridedA (see kernel.fnStridedA).
+			directA := A.packed == nil && !A.trans && kern.fnStridedA != nil && m1-m0 > kern.maxMStream &&
+				(!direct || kern.fnStridedAB != nil)
 			for ic := m0; ic < m1; ic += mcMax {
 				mcur := min(mcMax, m1-ic)
 				var ap []float32
-				if A.packed != nil {
+				switch {
+				case A.packed != nil:
 					ap = A.packed[pc*A.padded+ic*kcur : pc*A.padded+(ic+roundUp(mcur, mr))*kcur]
-				} else {
+				case directA:
+					// Only a partial last micro-panel is packed (zero padded).
+					if last := mcur / mr * mr; last < mcur {
+						ap = bf.a[:roundUp(mcur, mr)*kcur]
+						packA(mr, ap[last*kcur:], A, ic+last, mcur-last, pc, kcur)
+					}
+				default:
 					ap = bf.a[:roundUp(mcur, mr)*kcur]
 					packA(mr, ap, A, ic, mcur, pc, kcur)
 				}
@@ -228,6 +238,11 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 						for ir := 0; ir < mcur; ir += mr {
 							mv := min(mr, mcur-ir)
 							ci := (ic+ir)*ldc + jc + jr
+							if directA && mv == mr {
+								asrc := &A.data[(ic+ir)*A.ld+pc]
+								kern.fnStridedAB(kcur, asrc, A.ld, &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero)
+								continue
+							}
 							if mv == mr {
 								if withBias {
 									kern.fnStridedBias(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &c[ci], ldc, alpha, betaEff, betaZero, &A.bias[ic+ir])
@@ -256,8 +271,26 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 					bpp := &bp[jr*kcur]
 					for ir := 0; ir < mcur; ir += mr {
 						mv := min(mr, mcur-ir)
-						app := &ap[ir*kcur]
 						ci := (ic+ir)*ldc + jc + jr
+						if directA && mv == mr {
+							asrc := &A.data[(ic+ir)*A.ld+pc]
+							if nv == nr {
+								kern.fnStridedA(kcur, asrc, A.ld, bpp, &c[ci], ldc, alpha, betaEff, betaZero)
+								continue
+							}
+							t := bf.tile[:mr*nr]
+							if betaZero == 0 {
+								for i := 0; i < mv; i++ {
+									copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
+								}
+							}
+							kern.fnStridedA(kcur, asrc, A.ld, bpp, &t[0], nr, alpha, betaEff, betaZero)
+							for i := 0; i < mv; i++ {
+								copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
+							}
+							continue
+						}
+						app := &ap[ir*kcur]
 						if mv == mr && nv == nr {
 							if withBias {
 								kern.fnBias(kcur, app, bpp, &c[ci], ldc, alpha, betaEff, betaZero, &A.bias[ic+ir])

@@ -176,11 +176,17 @@ func PackA(transA bool, m, k int, a []float32, lda int) *PackedA {
 
 // PackB packs op(B) (k×n; B is n×k if transB) for SgemmPackedB. The layout is,
 // for each kc-deep slice of k, the n columns (padded to a multiple of NR) as
-// NR-wide micro-panels, each stored k step by k step.
+// NR-wide micro-panels, each stored k step by k step. NR is that of the
+// kernel Sgemm would use for n columns (widerFor): the products then pad n
+// the least.
 func PackB(transB bool, k, n int, b []float32, ldb int) *PackedB {
 	checkDims(0, n, k, 0, 0)
 	checkOperand("B", transB, k, n, b, ldb)
-	kern := active.Load()
+	return packBFor(widerFor(active.Load(), n), transB, k, n, b, ldb)
+}
+
+// packBFor is PackB for the micro-kernel kern.
+func packBFor(kern *kernel, transB bool, k, n int, b []float32, ldb int) *PackedB {
 	np := roundUp(n, kern.nr)
 	p := &PackedB{kern: kern, k: k, n: n, data: pages.Float32s(np * k)}
 	src := operand{data: b, ld: ldb, trans: transB}

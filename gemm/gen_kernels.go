@@ -34,6 +34,7 @@ type spec struct {
 	offs       bool // B read in place: row p of the micro-panel at b + offs[p] (with strided)
 	prefetchB  int  // if > 0: prefetch packed B this many bytes ahead (streaming from memory)
 	bias       bool // accumulators start from bias[i] (one more argument, bias *float32)
+	stridedA   bool // A read in place: row i of the micro-panel at a + i·lda, k step p at +p
 }
 
 func main() {
@@ -44,6 +45,11 @@ func main() {
 	gen(spec{file: "kernel_avx512sb_amd64.s", name: "sgemmKernelAVX512SB", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, bias: true})
 	gen(spec{file: "kernel_avx512o_amd64.s", name: "sgemmKernelAVX512O", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, strided: true, offs: true})
 	gen(spec{file: "kernel_avx512w_amd64.s", name: "sgemmKernelAVX512W", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4})
+	gen(spec{file: "kernel_avx512wp_amd64.s", name: "sgemmKernelAVX512WP", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, prefetchB: 16384})
+	gen(spec{file: "kernel_avx512a_amd64.s", name: "sgemmKernelAVX512A", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, stridedA: true})
+	gen(spec{file: "kernel_avx512wa_amd64.s", name: "sgemmKernelAVX512WA", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, stridedA: true})
+	gen(spec{file: "kernel_avx512as_amd64.s", name: "sgemmKernelAVX512AS", mr: 8, nr: 48, w: 16, reg: "Z", unroll: 4, stridedA: true, strided: true})
+	gen(spec{file: "kernel_avx512was_amd64.s", name: "sgemmKernelAVX512WAS", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, stridedA: true, strided: true})
 	gen(spec{file: "kernel_avx512ws_amd64.s", name: "sgemmKernelAVX512WS", mr: 6, nr: 64, w: 16, reg: "Z", unroll: 4, strided: true})
 	gen(spec{file: "kernel_avx2_amd64.s", name: "sgemmKernelAVX2", mr: 6, nr: 16, w: 8, reg: "Y", unroll: 4})
 }
@@ -71,6 +77,15 @@ func gen(s spec) {
 		p("// func %s(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
 		p("// As the packed kernel, but B is read in place: row p of the micro-panel at b + offs[p].")
 		oC, oLdc, oAlpha, oBeta, oBZ, frame = 32, 40, 48, 52, 56, 64
+	} else if s.stridedA && s.strided {
+		p("// func %s(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+		p("// As the packed kernel, but A and B are read in place: row i of the A micro-panel at a + i·lda,")
+		p("// row p of the B micro-panel at b + p·ldb.")
+		oC, oLdc, oAlpha, oBeta, oBZ, frame = 40, 48, 56, 60, 64, 72
+	} else if s.stridedA {
+		p("// func %s(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
+		p("// As the packed kernel, but A is read in place: row i of the micro-panel at a + i·lda.")
+		oC, oLdc, oAlpha, oBeta, oBZ, frame = 32, 40, 48, 52, 56, 64
 	} else if s.strided {
 		p("// func %s(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)", s.name)
 		p("// As the packed kernel, but B is read in place: row p of the micro-panel at b + p·ldb.")
@@ -89,8 +104,20 @@ func gen(s spec) {
 	p("TEXT ·%s(SB), NOSPLIT, $0-%d", s.name, frame)
 	p("\tMOVQ kc+0(FP), CX")
 	p("\tMOVQ a+8(FP), SI")
-	p("\tMOVQ b+16(FP), DI")
-	if s.offs {
+	if s.stridedA {
+		// rows 0-3 from SI, rows 4-7 from BX = SI + 4·lda, at index 0, lda, 2·lda (R12·2), 3·lda (R13)
+		p("\tMOVQ lda+16(FP), R12")
+		p("\tSHLQ $2, R12")
+		p("\tLEAQ (R12)(R12*2), R13")
+		p("\tLEAQ (SI)(R12*4), BX")
+		p("\tMOVQ b+24(FP), DI")
+	} else {
+		p("\tMOVQ b+16(FP), DI")
+	}
+	if s.stridedA && s.strided {
+		p("\tMOVQ ldb+32(FP), R11")
+		p("\tSHLQ $2, R11")
+	} else if s.offs {
 		p("\tMOVQ offs+24(FP), R11")
 	} else if s.strided {
 		p("\tMOVQ ldb+24(FP), R11")
@@ -142,7 +169,15 @@ func gen(s spec) {
 			p("\tADDQ R11, DI")
 		}
 		for i := 0; i < s.mr; i++ {
-			p("\tVBROADCASTSS %d(SI), %s", (u*s.mr+i)*4, areg(i))
+			if s.stridedA {
+				base, idx := "SI", []string{"", "(R12*1)", "(R12*2)", "(R13*1)"}[i%4]
+				if i >= 4 {
+					base = "BX"
+				}
+				p("\tVBROADCASTSS %d(%s)%s, %s", u*4, base, idx, areg(i))
+			} else {
+				p("\tVBROADCASTSS %d(SI), %s", (u*s.mr+i)*4, areg(i))
+			}
 			for j := 0; j < nv; j++ {
 				p("\tVFMADD231PS %s, %s, %s", breg(j), areg(i), acc(i, j))
 			}
@@ -152,7 +187,9 @@ func gen(s spec) {
 	p("\tSHRQ $%d, DX", log2(s.unroll))
 	p("\tJEQ tail")
 	p("loop:")
-	p("\tPREFETCHT0 %d(SI)", s.mr*4*s.unroll*4)
+	if !s.stridedA {
+		p("\tPREFETCHT0 %d(SI)", s.mr*4*s.unroll*4)
+	}
 	if s.prefetchB > 0 {
 		// one prefetch per cache line of B this iteration consumes
 		for o := 0; o < s.nr*4*s.unroll; o += 64 {
@@ -162,7 +199,12 @@ func gen(s spec) {
 	for u := 0; u < s.unroll; u++ {
 		step(u)
 	}
-	p("\tADDQ $%d, SI", s.mr*4*s.unroll)
+	if s.stridedA {
+		p("\tADDQ $%d, SI", 4*s.unroll)
+		p("\tADDQ $%d, BX", 4*s.unroll)
+	} else {
+		p("\tADDQ $%d, SI", s.mr*4*s.unroll)
+	}
 	if s.offs {
 		p("\tADDQ $%d, R11", 8*s.unroll)
 	}
@@ -176,7 +218,12 @@ func gen(s spec) {
 	p("\tJEQ store")
 	p("loop1:")
 	step(0)
-	p("\tADDQ $%d, SI", s.mr*4)
+	if s.stridedA {
+		p("\tADDQ $4, SI")
+		p("\tADDQ $4, BX")
+	} else {
+		p("\tADDQ $%d, SI", s.mr*4)
+	}
 	if s.offs {
 		p("\tADDQ $8, R11")
 	}

@@ -25,6 +25,14 @@ type biasKernel func(kc int, a, b, c *float32, ldc int, alpha, beta float32, bet
 // of the kc×NR micro-panel starts at b + offs[p] (NR floats).
 type offsKernel func(kc int, a, b *float32, offs *int, c *float32, ldc int, alpha, beta float32, betaZero int)
 
+// stridedAKernel is a microKernel that reads A in place instead of packed:
+// row i of the MR×kc micro-panel starts at a + i·lda (kc floats), B packed.
+type stridedAKernel func(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+// stridedABKernel reads both operands in place: A as stridedAKernel, B as
+// stridedKernel.
+type stridedABKernel func(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
 type stridedBiasKernel func(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int, bias *float32)
 
 // kernel describes one micro-kernel and the cache blocking chosen for it.
@@ -63,6 +71,18 @@ type kernel struct {
 	fnStridedBias stridedBiasKernel
 	// fnOffs, if set, reads B through a row table (see SgemmPackedAOffsets).
 	fnOffs offsKernel
+	// fnStridedA, if set, is fn reading a non-transposed A in place, used
+	// for workers with more than maxMStream rows whose B is packed: A's
+	// rows are then read straight from the caller's matrix (n/NR times per
+	// kc slice, from L1/L2 like a packed block) and packing A, a pass over
+	// m·k floats at about 0.8 ns each in Go, is skipped; it was 6% of the
+	// encoder's 1024×256×768 product and 14% of its 1024×1024×256 one. Row
+	// micro-panels cut by the matrix edge are still packed.
+	fnStridedA stridedAKernel
+	// fnStridedAB, if set, is fnStrided reading A in place as fnStridedA
+	// does: products with B read in place (at most maxMDirect rows, such
+	// as attention's per-head products) then pack neither operand.
+	fnStridedAB stridedABKernel
 }
 
 // kcFor returns the k-slice depth used for a product of depth k: the k range

@@ -24,6 +24,21 @@ func sgemmKernelAVX512O(kc int, a, b *float32, offs *int, c *float32, ldc int, a
 func sgemmKernelAVX512W(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 //go:noescape
+func sgemmKernelAVX512WP(kc int, a, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX512A(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX512WA(kc int, a *float32, lda int, b, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX512AS(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
+func sgemmKernelAVX512WAS(kc int, a *float32, lda int, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
+
+//go:noescape
 func sgemmKernelAVX512WS(kc int, a, b *float32, ldb int, c *float32, ldc int, alpha, beta float32, betaZero int)
 
 //go:noescape
@@ -45,7 +60,8 @@ var avx512Kernel = &kernel{
 	fn: sgemmKernelAVX512, fnStrided: sgemmKernelAVX512S, maxMDirect: 128,
 	fnStream: sgemmKernelAVX512P, maxMStream: 16,
 	fnBias: sgemmKernelAVX512B, fnStridedBias: sgemmKernelAVX512SB,
-	fnOffs: sgemmKernelAVX512O,
+	fnOffs: sgemmKernelAVX512O, fnStridedA: sgemmKernelAVX512A,
+	fnStridedAB: sgemmKernelAVX512AS,
 }
 
 // avx512WideKernel: 6×64 zmm tile (24 accumulators + 4 B vectors + 2
@@ -55,10 +71,18 @@ var avx512Kernel = &kernel{
 // pads less to 64 columns than to 48 (widerFor), such as attention's
 // 64-column context products (n = 64: a 48-column tile plus a second one
 // with 16 of its 48 columns used) and 128- or 49-key score products.
-// Blocking as avx512Kernel (mc = 96 is a multiple of 6).
+// Blocking as avx512Kernel (mc = 96 is a multiple of 6). PackB takes it
+// too for such n (a constant B packed once, e.g. the encoder's 1024-wide
+// feed-forward weights, or its 256-column output projection: 288 columns
+// of 48-wide tiles, 11% padding, against 256 exactly), so it has the same
+// prefetching variant for few rows as avx512Kernel. Each C element is the
+// same sequence of multiply-adds in either tile, so results are
+// bit-identical (TestPackBWideSameBits).
 var avx512WideKernel = &kernel{
 	name: "avx512w", mr: 6, nr: 64, kc: 384, mc: 96, nc: 3072,
 	fn: sgemmKernelAVX512W, fnStrided: sgemmKernelAVX512WS, maxMDirect: 128,
+	fnStream: sgemmKernelAVX512WP, maxMStream: 16,
+	fnStridedA: sgemmKernelAVX512WA, fnStridedAB: sgemmKernelAVX512WAS,
 }
 
 // widerFor returns the kernel a product of n columns runs on when k is the

@@ -2,6 +2,7 @@ package gemm
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"testing"
 )
@@ -79,6 +80,99 @@ func BenchmarkWideKernel(b *testing.B) {
 				}
 				b.ReportMetric(2*float64(m*n*k)*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
 			})
+		}
+	}
+}
+
+// PackB packs a B of 256 or 1024 columns (the encoder's feed-forward
+// weights) for the 6×64 kernel, which pads them less, and the products are
+// bit for bit those of the 8×48 kernel: each C element is the same chain of
+// multiply-adds over k in either tile (regression check of the summation
+// order; shapes with k cut into kc slices, few rows for the prefetching
+// variant, edge tiles in m and n, beta 0 over NaN).
+func TestPackBWideSameBits(t *testing.T) {
+	if !kernelAvailable("avx512") {
+		t.Skip("no AVX-512 here")
+	}
+	restore, _ := setKernel("avx512")
+	defer restore()
+	r := rand.New(rand.NewPCG(11, 12))
+	for _, s := range [][3]int{{1024, 256, 1024}, {100, 1024, 256}, {13, 256, 700}, {5, 120, 33}, {1, 64, 9}} {
+		m, n, k := s[0], s[1], s[2]
+		for _, tb := range bools {
+			a, w := randSlice(r, m*k), randSlice(r, k*n)
+			ldb := n
+			if tb {
+				ldb = k
+			}
+			pb := PackB(tb, k, n, w, ldb)
+			if pb.kern != avx512WideKernel {
+				t.Fatalf("n = %d: PackB chose %s, want avx512w", n, pb.kern.name)
+			}
+			narrow := packBFor(avx512Kernel, tb, k, n, w, ldb)
+			got, want := make([]float32, m*n), make([]float32, m*n)
+			for i := range got {
+				got[i], want[i] = float32(math.NaN()), float32(math.NaN())
+			}
+			SgemmPackedB(false, m, 1, a, k, pb, 0, got, n)
+			SgemmPackedB(false, m, 1, a, k, narrow, 0, want, n)
+			for i := range got {
+				if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+					t.Fatalf("%dx%dx%d transB %v: C[%d] = %v with 6×64, %v with 8×48", m, n, k, tb, i, got[i], want[i])
+				}
+			}
+		}
+	}
+}
+
+// Reading A in place (fnStridedA) gives bit for bit the products of packing
+// it: the same multiply-add chain per C element (regression check of the
+// summation order), over the encoder's shapes, k cut into kc slices, edge
+// tiles in m and n, beta 0 over NaN and beta ≠ 0, both tile widths, with B
+// packed per call (transposed), packed once (PackB) and read in place too
+// (fnStridedAB: at most maxMDirect rows, attention's per-head shapes). The
+// products' accuracy against the float64 reference is TestMixed's and
+// TestWideKernel's.
+func TestStridedASameBits(t *testing.T) {
+	if !kernelAvailable("avx512") {
+		t.Skip("no AVX-512 here")
+	}
+	r := rand.New(rand.NewPCG(13, 14))
+	for _, kern := range []*kernel{avx512Kernel, avx512WideKernel} {
+		for _, s := range [][3]int{{1024, 768, 256}, {100, 256, 1024}, {37, 120, 33}, {300, 50, 170}, {17, 64, 1}, {128, 64, 128}, {128, 128, 64}, {120, 100, 49}} {
+			m, n, k := s[0], s[1], s[2]
+			for _, mode := range []string{"packed", "transposed", "in place"} {
+				tb := mode == "transposed"
+				for _, beta := range []float32{0, -0.5} {
+					a, w, c0 := randSlice(r, m*(k+3)), randSlice(r, k*n), randSlice(r, m*n)
+					if beta == 0 {
+						for i := range c0 {
+							c0[i] = float32(math.NaN())
+						}
+					}
+					ldb := n
+					if tb {
+						ldb = k
+					}
+					B := operand{data: w, ld: ldb, trans: tb}
+					if mode == "packed" {
+						B = packBFor(kern, false, k, n, w, n).operand()
+					}
+					A := operand{data: a, ld: k + 3}
+					got := append([]float32(nil), c0...)
+					multiply(1, kern, m, n, k, 1.5, A, B, beta, got, n)
+					saved := kern.fnStridedA
+					kern.fnStridedA = nil
+					want := append([]float32(nil), c0...)
+					multiply(1, kern, m, n, k, 1.5, A, B, beta, want, n)
+					kern.fnStridedA = saved
+					for i := range got {
+						if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+							t.Fatalf("%s %v B %s beta %g: C[%d] = %v reading A in place, %v packed", kern.name, s, mode, beta, i, got[i], want[i])
+						}
+					}
+				}
+			}
 		}
 	}
 }
