@@ -77,11 +77,14 @@ func WriteText(w io.Writer, r *Report, o Assets) error {
 		}
 		for i, rk := range r.Ranking[:limit] {
 			fmt.Fprintf(b, "%2d. %s  (score %.1f)\n", i+1, rk.Node, rk.Score)
+			var own []Finding
 			for _, f := range r.Findings {
-				if f.Node != rk.Node {
-					continue
+				if f.Node == rk.Node {
+					own = append(own, f)
 				}
-				fmt.Fprintf(b, "    %s %s: %s\n", colour(o.Color, f.Severity, strings.ToUpper(string(f.Severity))), f.Check, f.Message)
+			}
+			for _, g := range foldAlike(own, o.All) {
+				fmt.Fprintf(b, "    %s %s: %s%s\n", colour(o.Color, g.Severity, strings.ToUpper(string(g.Severity))), g.Check, g.Message, g.more())
 			}
 		}
 		if limit < len(r.Ranking) {
@@ -105,8 +108,8 @@ func WriteText(w io.Writer, r *Report, o Assets) error {
 	if len(infos) > 0 {
 		fmt.Fprintln(b)
 		fmt.Fprintln(b, "Notes:")
-		for _, f := range infos {
-			fmt.Fprintf(b, "    %s %s (%s): %s\n", colour(o.Color, Info, "INFO"), f.Check, f.Node, f.Message)
+		for _, g := range foldAlike(infos, o.All) {
+			fmt.Fprintf(b, "    %s %s (%s): %s%s\n", colour(o.Color, Info, "INFO"), g.Check, g.Node, g.Message, g.more())
 		}
 	}
 	if r.Compare != nil {
@@ -170,4 +173,36 @@ func writeCompareText(b *strings.Builder, c *Comparison) {
 	if len(c.Unmatched) > 0 {
 		fmt.Fprintf(b, "  not matched between the checkpoints: %s\n", strings.Join(c.Unmatched, ", "))
 	}
+}
+
+// alike is a finding standing for itself and Others more of the same check,
+// severity and node (one per attention head, say).
+type alike struct {
+	Finding
+	Others int
+}
+
+func (a alike) more() string {
+	if a.Others == 0 {
+		return ""
+	}
+	return fmt.Sprintf(" (+%d more like it on this layer; --all lists each)", a.Others)
+}
+
+// foldAlike keeps, unless all, the first finding of each (check, severity,
+// node) and counts the rest: a layer with a per-head finding on 12 heads
+// reads as one line, not 12. Order is that of the first of each group.
+func foldAlike(fs []Finding, all bool) []alike {
+	var out []alike
+	at := map[[3]string]int{}
+	for _, f := range fs {
+		k := [3]string{f.Check, string(f.Severity), f.Node}
+		if i, ok := at[k]; ok && !all {
+			out[i].Others++
+			continue
+		}
+		at[k] = len(out)
+		out = append(out, alike{Finding: f})
+	}
+	return out
 }

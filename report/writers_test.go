@@ -3,6 +3,7 @@ package report
 import (
 	"bytes"
 	"errors"
+	"fmt"
 	"io"
 	"math"
 	"os"
@@ -100,6 +101,36 @@ func TestFormatters(t *testing.T) {
 	} {
 		if tc.got != tc.want {
 			t.Errorf("got %q, want %q", tc.got, tc.want)
+		}
+	}
+}
+
+// The text report folds findings of one check, severity and layer (one per
+// attention head, say) into their first line with a count; --all (Assets.All)
+// lists each. A regression test: a 12-layer decoder once printed 132 note
+// lines, one per head.
+func TestTextFoldsAlikeFindings(t *testing.T) {
+	r := sampleCheckReport()
+	r.Findings = nil
+	for h := 0; h < 3; h++ {
+		r.Findings = append(r.Findings, Finding{Check: "attention-uniform", Severity: Info, Node: "/blocks.1/Softmax",
+			Message: fmt.Sprintf("block 1, head %d: uniform", h)})
+	}
+	r.Findings = append(r.Findings, Finding{Check: "attention-uniform", Severity: Info, Node: "/blocks.2/Softmax", Message: "block 2, head 0: uniform"})
+	r.Ranking = nil
+	for _, all := range []bool{false, true} {
+		var b bytes.Buffer
+		if err := WriteText(&b, r, Assets{All: all}); err != nil {
+			t.Fatal(err)
+		}
+		out := b.String()
+		lines := strings.Count(out, "INFO attention-uniform")
+		folded := strings.Contains(out, "block 1, head 0: uniform (+2 more like it on this layer")
+		if !all && (lines != 2 || !folded || strings.Contains(out, "head 1")) {
+			t.Errorf("folded: %d note lines (want 2), first line with the count %v:\n%s", lines, folded, out)
+		}
+		if all && (lines != 4 || folded) {
+			t.Errorf("--all: %d note lines (want 4), folded %v:\n%s", lines, folded, out)
 		}
 	}
 }

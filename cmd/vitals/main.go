@@ -179,7 +179,7 @@ func newCommon(name string, stderr io.Writer) *common {
 	fs.StringVar(&c.format, "format", "text", report.FormatHelp())
 	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
 	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
-	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10, and draw a histogram page for every layer under --out")
+	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10, and every finding of a layer (the text report folds findings of one check on one layer, such as one per attention head, into one line), and draw a histogram page for every layer under --out")
 	fs.StringVar(&c.mean, "mean", "", "per-channel mean subtracted from images scaled to [0,1], e.g. 0.485,0.456,0.406")
 	fs.StringVar(&c.std, "std", "", "per-channel std images are divided by, e.g. 0.229,0.224,0.225")
 	fs.StringVar(&c.layout, "layout", "nchw", "image tensor layout the model wants: nchw|nhwc")

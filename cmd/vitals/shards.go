@@ -129,7 +129,7 @@ func mergeFlags(stderr io.Writer) (*common, *mergeOnly) {
 	fs.StringVar(&c.format, "format", "text", "report format (as for vitals check)")
 	fs.StringVar(&c.failOn, "fail-on", "error", "exit 1 when a finding is at or above this severity: warning|error")
 	fs.StringVar(&c.config, "config", "", "thresholds file (JSON object or \"name.param: value\" lines)")
-	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10")
+	fs.BoolVar(&c.all, "all", false, "list every layer with findings, not just the top 10, and every finding of a layer (not folded per check)")
 	fs.StringVar(&c.maxMem, "max-memory", "", "memory budget in bytes for loading the model (default: half the physical memory; 0: none)")
 	fs.BoolVar(&c.debug, "debug", false, "show Go stack traces of internal errors")
 	fs.Usage = func() {
