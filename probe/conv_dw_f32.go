@@ -44,12 +44,15 @@ func convDepthwise2D(a *convF32Args) {
 	}
 	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
 		var scratch *[]float32
+		var tw *dwTapsWork
 		if flat {
 			scratch = getF32(dwFlatScratch(OH, OW))
 			defer putF32(scratch)
 		} else if taps {
 			scratch = getF32(dwTapsScratch(g))
 			defer putF32(scratch)
+			tw = new(dwTapsWork)
+			tw.init(g, offs, *scratch)
 		}
 		for p := p0; p < p1; p++ {
 			n, m := p/a.M, p%a.M
@@ -66,7 +69,7 @@ func convDepthwise2D(a *convF32Args) {
 			} else if row3 {
 				dw3x3Plane(y, x, w, bias, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
 			} else if taps {
-				dwTapsPlane(y, x, w, bias, H, W, OH, OW, offs, g, *scratch)
+				tw.plane(y, x, w, bias, H, W, OH, OW)
 			} else {
 				for i := range y {
 					y[i] = bias
