@@ -6,6 +6,8 @@ import (
 	"golang.org/x/sys/cpu"
 )
 
+//go:generate go run gen_dwtaps.go
+
 // dwTapsAVX512 is dwTapsGo for n outputs (conv_dwk_amd64.s): each src must
 // hold n values.
 //

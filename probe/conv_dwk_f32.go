@@ -27,11 +27,14 @@ func dwTapsDims(g *convGeom) (Hq, Wq int) {
 }
 
 // dwTapsScratch is the per-worker scratch of dwTapsPlane: the phase planes,
-// then the flat output.
+// then the flat output rounded up to whole vectors of 16 (see dwTapsWork).
 func dwTapsScratch(g *convGeom) int {
 	Hq, Wq := dwTapsDims(g)
-	return g.strides[0]*g.strides[1]*Hq*Wq + g.out[0]*Wq
+	return g.strides[0]*g.strides[1]*Hq*Wq + dwTapsRound(g.out[0]*Wq)
 }
+
+// dwTapsRound is n rounded up to a multiple of 16.
+func dwTapsRound(n int) int { return (n + 15) &^ 15 }
 
 // dwTapOffsets is, for each tap (kh, kw) in order, the offset of its run in
 // dwTapsPlane's phase planes: computed once per Conv node, not per plane.
@@ -82,11 +85,16 @@ func (t *dwTapsWork) init(g *convGeom, offs []int, scratch []float32) {
 	sh, sw := g.strides[0], g.strides[1]
 	plane := t.Hq * t.Wq
 	t.phases = scratch[:sh*sw*plane]
-	n := (g.out[0]-1)*t.Wq + g.out[1]
+	// the runs are rounded up to whole vectors, so that the vector kernel
+	// needs no masked loads or stores (which wait for the plane just written
+	// to reach the cache instead of forwarding it): the extra outputs read
+	// past the phase planes into the output (still inside scratch) and are
+	// not copied out
+	n := dwTapsRound((g.out[0]-1)*t.Wq + g.out[1])
 	t.out = scratch[sh*sw*plane : sh*sw*plane+n]
 	t.taps = len(offs)
 	for i, at := range offs {
-		t.srcs[i] = t.phases[at : at+n]
+		t.srcs[i] = scratch[at : at+n]
 	}
 	t.vec = dwTapsPtrs(t.out, t.srcs[:t.taps], t.ptrs[:t.taps])
 	t.cleared = false
