@@ -35,3 +35,4 @@ func BenchmarkConvDW112s1(b *testing.B) { benchDW(b, 32, 112, 1) }
 func BenchmarkConvDW112s2(b *testing.B) { benchDW(b, 96, 112, 2) }
 func BenchmarkConvDW28s1(b *testing.B)  { benchDW(b, 192, 28, 1) }
 func BenchmarkConvDW7s1(b *testing.B)   { benchDW(b, 960, 7, 1) }
+func BenchmarkConvDW14s1(b *testing.B)  { benchDW(b, 576, 14, 1) }

@@ -44,12 +44,15 @@ func convDepthwise2D(a *convF32Args) {
 	}
 	parFor(planes, max(1, 4096/max(1, a.P)), func(p0, p1 int) {
 		var scratch *[]float32
+		var tw *dwTapsWork
 		if flat {
 			scratch = getF32(dwFlatScratch(OH, OW))
 			defer putF32(scratch)
 		} else if taps {
 			scratch = getF32(dwTapsScratch(g))
 			defer putF32(scratch)
+			tw = new(dwTapsWork)
+			tw.init(g, offs, *scratch)
 		}
 		for p := p0; p < p1; p++ {
 			n, m := p/a.M, p%a.M
@@ -62,11 +65,11 @@ func convDepthwise2D(a *convF32Args) {
 				bias = a.bd[m]
 			}
 			if flat {
-				dw3x3FlatPlane(y, x, w, bias, H, W, OH, OW, g.padBeg[0], g.padBeg[1], *scratch)
+				dw3x3FlatPlane(y, x, w, bias, H, W, OH, OW, g.padBeg[0], g.padBeg[1], *scratch, p > p0)
 			} else if row3 {
 				dw3x3Plane(y, x, w, bias, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
 			} else if taps {
-				dwTapsPlane(y, x, w, bias, H, W, OH, OW, offs, g, *scratch)
+				tw.plane(y, x, w, bias, H, W, OH, OW)
 			} else {
 				for i := range y {
 					y[i] = bias
@@ -155,19 +158,28 @@ func dw3x3Plane(y, x, w []float32, bias float32, H, W, OH, OW, sh, sw, pt, pl in
 const dwFlatWidth = 32
 
 // dwFlatScratch is the scratch size (elements) of dw3x3FlatPlane: the
-// bordered image, (OH+2)·(OW+2), then the flat output, OH·(OW+2).
-func dwFlatScratch(OH, OW int) int { return (2*OH + 2) * (OW + 2) }
+// bordered image, (OH+2)·(OW+2), then the flat output, OH·(OW+2), and 16
+// more (the output row rounded up to whole vectors).
+func dwFlatScratch(OH, OW int) int { return (2*OH+2)*(OW+2) + 16 }
 
 // dw3x3FlatPlane writes one stride-1 3×3 plane through a zero-bordered copy
 // of the image of width Wp = OW + 2, whose column c and row r hold input
 // column c − pl and row r − pt. Output (oh, ow) reads bordered rows oh..oh+2,
 // columns ow..ow+2, so on the flattened copy all outputs form one row of
 // (OH−1)·Wp + OW values at stride 1 (two unused values between image rows)
-// for dw3Row, then copied out row by row.
-func dw3x3FlatPlane(y, x, w []float32, bias float32, H, W, OH, OW, pt, pl int, scratch []float32) {
+// for dw3Row, then copied out row by row. With zeroed, the border of the
+// copy is already zero (a previous plane of the same geometry left it so) and
+// only the image is copied. The row is rounded up to a multiple of 16, so
+// that the vector kernel needs no masked tail (masked loads of the copy just
+// written wait for it to reach the cache); the extra outputs read past the
+// copy into the output (inside scratch, within its capacity) and are not
+// copied out.
+func dw3x3FlatPlane(y, x, w []float32, bias float32, H, W, OH, OW, pt, pl int, scratch []float32, zeroed bool) {
 	Wp, Hp := OW+2, OH+2
-	pad, out := scratch[:Hp*Wp], scratch[Hp*Wp:Hp*Wp+OH*Wp]
-	clear(pad)
+	pad, out := scratch[:Hp*Wp], scratch[Hp*Wp:]
+	if !zeroed {
+		clear(pad)
+	}
 	c0, c1 := max(0, pl), min(Wp, W+pl) // bordered columns holding image values
 	for r := max(0, pt); r < min(Hp, H+pt); r++ {
 		if c0 < c1 {
@@ -178,7 +190,7 @@ func dw3x3FlatPlane(y, x, w []float32, bias float32, H, W, OH, OW, pt, pl int, s
 	var wb [10]float32
 	copy(wb[:9], w[:9])
 	wb[9] = bias
-	n := (OH-1)*Wp + OW
+	n := ((OH-1)*Wp + OW + 15) &^ 15
 	dw3Row(out[:n], pad, pad[Wp:], pad[2*Wp:], &wb, 1)
 	for oh := 0; oh < OH; oh++ {
 		copy(y[oh*OW:(oh+1)*OW], out[oh*Wp:oh*Wp+OW])

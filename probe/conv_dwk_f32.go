@@ -27,11 +27,14 @@ func dwTapsDims(g *convGeom) (Hq, Wq int) {
 }
 
 // dwTapsScratch is the per-worker scratch of dwTapsPlane: the phase planes,
-// then the flat output.
+// then the flat output rounded up to whole vectors of 16 (see dwTapsWork).
 func dwTapsScratch(g *convGeom) int {
 	Hq, Wq := dwTapsDims(g)
-	return g.strides[0]*g.strides[1]*Hq*Wq + g.out[0]*Wq
+	return g.strides[0]*g.strides[1]*Hq*Wq + dwTapsRound(g.out[0]*Wq)
 }
+
+// dwTapsRound is n rounded up to a multiple of 16.
+func dwTapsRound(n int) int { return (n + 15) &^ 15 }
 
 // dwTapOffsets is, for each tap (kh, kw) in order, the offset of its run in
 // dwTapsPlane's phase planes: computed once per Conv node, not per plane.
@@ -52,52 +55,104 @@ func dwTapOffsets(g *convGeom) []int {
 // dwTapsPlane writes one output plane (see above); scratch holds
 // dwTapsScratch(g) values, offs is dwTapOffsets(g).
 func dwTapsPlane(y, x, w []float32, bias float32, H, W, OH, OW int, offs []int, g *convGeom, scratch []float32) {
+	var t dwTapsWork
+	t.init(g, offs, scratch)
+	t.plane(y, x, w, bias, H, W, OH, OW)
+}
+
+// dwTapsWork is dwTapsPlane for a run of planes of one node on one worker:
+// the phase planes' padding is cleared once (every plane writes the same
+// interior positions, so the rest stays zero) and the taps' run pointers,
+// which depend only on the scratch and the geometry, are set once.
+type dwTapsWork struct {
+	g        *convGeom
+	Hq, Wq   int
+	phases   []float32
+	out      []float32
+	taps     int
+	srcs     [dwMaxTaps][]float32
+	ptrs     [dwMaxTaps]unsafe.Pointer
+	vec      bool // ptrs hold the runs for dwTapsRun
+	cleared  bool // the padding of phases is zero
+	unitStep bool
+}
+
+// init prepares t for planes of geometry g in scratch (dwTapsScratch(g)
+// values), offs being dwTapOffsets(g).
+func (t *dwTapsWork) init(g *convGeom, offs []int, scratch []float32) {
+	t.g = g
+	t.Hq, t.Wq = dwTapsDims(g)
 	sh, sw := g.strides[0], g.strides[1]
+	plane := t.Hq * t.Wq
+	t.phases = scratch[:sh*sw*plane]
+	// the runs are rounded up to whole vectors, so that the vector kernel
+	// needs no masked loads or stores (which wait for the plane just written
+	// to reach the cache instead of forwarding it): the extra outputs read
+	// past the phase planes into the output (still inside scratch) and are
+	// not copied out
+	n := dwTapsRound((g.out[0]-1)*t.Wq + g.out[1])
+	t.out = scratch[sh*sw*plane : sh*sw*plane+n]
+	t.taps = len(offs)
+	for i, at := range offs {
+		t.srcs[i] = scratch[at : at+n]
+	}
+	t.vec = dwTapsPtrs(t.out, t.srcs[:t.taps], t.ptrs[:t.taps])
+	t.cleared = false
+	t.unitStep = sh == 1 && sw == 1
+}
+
+// plane writes one output plane of the H × W plane x (see dwTapsPlane).
+func (t *dwTapsWork) plane(y, x, w []float32, bias float32, H, W, OH, OW int) {
+	g := t.g
 	pt, pl := g.padBeg[0], g.padBeg[1]
-	Hq, Wq := dwTapsDims(g)
-	plane := Hq * Wq
-	phases := scratch[:sh*sw*plane]
-	if sh == 1 && sw == 1 {
-		dwPadPlane(phases, x, H, W, Hq, Wq, pt, pl)
+	if !t.cleared {
+		clear(t.phases)
+		t.cleared = true
+	}
+	if t.unitStep {
+		dwPadPlane(t.phases, x, H, W, t.Hq, t.Wq, pt, pl, true)
 	} else {
-		dwPhasePlanes(phases, x, H, W, Hq, Wq, sh, sw, pt, pl)
+		dwPhasePlanes(t.phases, x, H, W, t.Hq, t.Wq, g.strides[0], g.strides[1], pt, pl, true)
 	}
-	n := (OH-1)*Wq + OW
-	out := scratch[sh*sw*plane : sh*sw*plane+n]
-	var srcs [dwMaxTaps][]float32
-	var ptrs [dwMaxTaps]unsafe.Pointer
-	taps := len(offs)
-	for t, at := range offs {
-		srcs[t] = phases[at : at+n]
+	if !t.vec || !dwTapsRun(t.out, t.ptrs[:t.taps], w[:t.taps], bias) {
+		dwTapsGo(t.out, t.srcs[:t.taps], w[:t.taps], bias)
 	}
-	dwTaps(out, srcs[:taps], w[:taps], bias, ptrs[:taps])
+	Wq := t.Wq
 	for oh := 0; oh < OH; oh++ {
-		copy(y[oh*OW:(oh+1)*OW], out[oh*Wq:oh*Wq+OW])
+		copy(y[oh*OW:(oh+1)*OW], t.out[oh*Wq:oh*Wq+OW])
 	}
 }
 
 // dwPadPlane writes the zero-padded Hq × Wq copy of the H × W plane x
-// (unit strides: one phase), every value once.
-func dwPadPlane(pad, x []float32, H, W, Hq, Wq, pt, pl int) {
+// (unit strides: one phase), every value once; with zeroed, the padding
+// of pad is already zero and only the interior is written.
+func dwPadPlane(pad, x []float32, H, W, Hq, Wq, pt, pl int, zeroed bool) {
 	for r := 0; r < Hq; r++ {
 		row := pad[r*Wq : (r+1)*Wq]
 		ih := r - pt
 		if ih < 0 || ih >= H {
-			clear(row)
+			if !zeroed {
+				clear(row)
+			}
 			continue
 		}
 		c0 := min(pl, Wq)
-		clear(row[:c0])
 		n := copy(row[c0:], x[ih*W:(ih+1)*W])
-		clear(row[c0+n:])
+		if !zeroed {
+			clear(row[:c0])
+			clear(row[c0+n:])
+		}
 	}
 }
 
 // dwPhasePlanes writes the sh·sw zero-padded phase planes of the plane x
-// (see above).
-func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int) {
+// (see above); with zeroed, everything but the positions this writes (the
+// same for every plane of a geometry) is already zero.
+func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int, zeroed bool) {
 	plane := Hq * Wq
-	clear(phases)
+	if !zeroed {
+		clear(phases)
+	}
 	for ih := 0; ih < H; ih++ {
 		r := ih + pt
 		if r/sh >= Hq {

@@ -65,14 +65,15 @@ func TestConvDepthwiseTapsMatchReference(t *testing.T) {
 }
 
 // dwTaps' vector kernel against dwTapsGo on lengths around its blocks of
-// 64 and 16 (the masked tail included), writing nothing past dst.
+// 128, its masked rest of 16–127 and its masked tail under 16, writing
+// nothing past dst.
 func TestDwTapsVecMatchesGo(t *testing.T) {
 	if !haveDwTapsVec {
 		t.Skip("no AVX-512 here")
 	}
 	r := rand.New(rand.NewSource(52))
 	for _, taps := range []int{1, 9, 25, 49} {
-		for n := 1; n <= 150; n++ {
+		for n := 1; n <= 300; n++ {
 			srcs := make([][]float32, taps)
 			w := make([]float32, taps)
 			for i := range srcs {
@@ -96,7 +97,8 @@ func TestDwTapsVecMatchesGo(t *testing.T) {
 }
 
 // benchDWTaps times one depthwise K×K Conv plane set (batch 8, EfficientNet
-// and ConvNeXt sizes) through dwTapsPlane, or through the tap-by-tap
+// and ConvNeXt sizes, and MNASNet's 7×7 planes) through one worker's
+// dwTapsWork, or through the tap-by-tap
 // dwGenericPlane it replaced (generic=true).
 func benchDWTaps(b *testing.B, C, H, K, s int, generic bool) {
 	r := rand.New(rand.NewSource(1))
@@ -108,6 +110,8 @@ func benchDWTaps(b *testing.B, C, H, K, s int, generic bool) {
 	y := make([]float32, OH*OH)
 	scratch := make([]float32, dwTapsScratch(&g))
 	offs := dwTapOffsets(&g)
+	var tw dwTapsWork
+	tw.init(&g, offs, scratch)
 	b.SetBytes(int64(4 * x.Size()))
 	for b.Loop() {
 		for pl := 0; pl < 8*C; pl++ {
@@ -116,7 +120,7 @@ func benchDWTaps(b *testing.B, C, H, K, s int, generic bool) {
 				clear(y)
 				dwGenericPlane(y, xp, wp, H, H, OH, OH, K, K, &g, 0, OH, 0, OH)
 			} else {
-				dwTapsPlane(y, xp, wp, 0, H, H, OH, OH, offs, &g, scratch)
+				tw.plane(y, xp, wp, 0, H, H, OH, OH)
 			}
 		}
 	}
@@ -126,5 +130,6 @@ func BenchmarkDWTaps5x5s1(b *testing.B)        { benchDWTaps(b, 240, 28, 5, 1, f
 func BenchmarkDWTaps5x5s1Generic(b *testing.B) { benchDWTaps(b, 240, 28, 5, 1, true) }
 func BenchmarkDWTaps5x5s2(b *testing.B)        { benchDWTaps(b, 144, 56, 5, 2, false) }
 func BenchmarkDWTaps5x5s2Generic(b *testing.B) { benchDWTaps(b, 144, 56, 5, 2, true) }
+func BenchmarkDWTaps5x5s1At7(b *testing.B)     { benchDWTaps(b, 1152, 7, 5, 1, false) }
 func BenchmarkDWTaps7x7s1(b *testing.B)        { benchDWTaps(b, 96, 56, 7, 1, false) }
 func BenchmarkDWTaps7x7s1Generic(b *testing.B) { benchDWTaps(b, 96, 56, 7, 1, true) }

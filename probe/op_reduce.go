@@ -198,7 +198,9 @@ func reduceRun[T, A Number](x []T, shape, kept []int, red []bool, n int, kind re
 			return a
 		}
 	}
-	reduceAcc(x, shape, kept, red, acc, op)
+	if !reduceSumF32(x, shape, kept, red, acc, kind) {
+		reduceAcc(x, shape, kept, red, acc, op)
+	}
 	out := make([]T, n)
 	switch kind {
 	case redMean:
@@ -353,4 +355,38 @@ func argKernel(largest bool) Kernel {
 		c.Set(0, tensor.From(out, shape...))
 		return nil
 	}
+}
+
+// reduceSumF32 is reduceAcc for the sums (ReduceSum, ReduceMean,
+// ReduceLogSum) of float32 data into float64 accumulators, without a call
+// per value: the same additions in the same order. It reports whether it
+// ran (other kinds and types are left to reduceAcc).
+func reduceSumF32[T, A any](x []T, shape, kept []int, red []bool, acc []A, kind reduceKind) bool {
+	if kind != redSum && kind != redMean && kind != redLogSum {
+		return false
+	}
+	xf, ok := any(x).([]float32)
+	if !ok {
+		return false
+	}
+	af, ok := any(acc).([]float64)
+	if !ok {
+		return false
+	}
+	reduceRows(shape, kept, red, func(i, n, o int, scalar bool) {
+		row := xf[i : i+n]
+		if scalar {
+			a := af[o]
+			for _, v := range row {
+				a += float64(v)
+			}
+			af[o] = a
+			return
+		}
+		dst := af[o : o+n]
+		for j, v := range row {
+			dst[j] += float64(v)
+		}
+	})
+	return true
 }

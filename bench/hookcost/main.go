@@ -44,6 +44,7 @@ func main() {
 	kernel := flag.Bool("kernel", false, "print the SGEMM micro-kernel in use and exit")
 	flag.BoolVar(&outBytes, "outputs", false, "also print the bytes of node outputs per item (what the statistics read)")
 	flag.BoolVar(&floor, "floor", false, "also time a hook that only takes each output's moments")
+	flag.IntVar(&topNodes, "nodes", 0, "with -ops, also print the N slowest nodes (time per image, output shape)")
 	flag.BoolVar(&terse, "terse", false, "print only the two times (ms/image) separated by \" / \"")
 	flag.Parse()
 	if *kernel {
@@ -241,10 +242,18 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	fmt.Println()
 	if ops {
 		byOp := map[string]time.Duration{}
+		byNode := map[*loader.Node]time.Duration{}
+		shapes := map[*loader.Node][]int{}
 		last := time.Now()
-		hook := func(nd *loader.Node, _ []*tensor.Tensor) error {
+		hook := func(nd *loader.Node, outs []*tensor.Tensor) error {
 			now := time.Now()
 			byOp[opKind(nd)] += now.Sub(last)
+			if topNodes > 0 {
+				byNode[nd] += now.Sub(last)
+				if len(outs) > 0 && outs[0] != nil {
+					shapes[nd] = append(shapes[nd][:0], outs[0].Shape...)
+				}
+			}
 			last = now
 			return nil
 		}
@@ -254,6 +263,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		arena := &tensor.Arena{Pool: pool}
 		for r := 0; r < 2; r++ {
 			clear(byOp)
+			clear(byNode)
 			for _, b := range batches {
 				last = time.Now()
 				outs, released, err := p.RunRecycled(arena, b, hook, pool.Put)
@@ -279,11 +289,29 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		for _, e := range list {
 			fmt.Printf("  %-22s %8.2f ms/image\n", e.op, ms(e.d/time.Duration(n)))
 		}
+		type nd struct {
+			n *loader.Node
+			d time.Duration
+		}
+		var nodes []nd
+		for k, v := range byNode {
+			nodes = append(nodes, nd{k, v})
+		}
+		sort.Slice(nodes, func(i, j int) bool { return nodes[i].d > nodes[j].d })
+		for i, e := range nodes {
+			if i == topNodes {
+				break
+			}
+			fmt.Printf("  %-22s %8.3f ms/image  %-24s %v\n", opKind(e.n), ms(e.d/time.Duration(n)), e.n.Name, shapes[e.n])
+		}
 	}
 	return nil
 }
 
 var terse, outBytes, floor bool
+
+// topNodes is -nodes: how many of the slowest nodes -ops lists
+var topNodes int
 
 // momentsOnly is the -floor hook: each float32 node output's moments
 // (stats.FastMoments), taken on the calling goroutine for small tensors and
