@@ -176,8 +176,15 @@ func reluVJP(o *Op) error {
 		return nil
 	}
 	if x, ok := o.In[0].Data.([]float32); ok {
+		if o.wantSq { // Σ G² taken in the same pass
+			o.reportSq(splitSum(len(x), func(lo, hi int) float64 { return reluMaskSq(gx[lo:hi], g[lo:hi], x[lo:hi]) }))
+			return nil
+		}
 		split(len(x), func(lo, hi int) { reluMask(gx[lo:hi], g[lo:hi], x[lo:hi]) })
 		return nil
+	}
+	if o.wantSq {
+		o.reportSq(sumSq(g))
 	}
 	for i, v := range o.X(0) {
 		if v > 0 {
@@ -202,6 +209,36 @@ func reluMask(dst, g []float64, x []float32) {
 		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63)) // all ones or zero
 		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
 	}
+}
+
+// reluMaskSq is reluMask that also returns Σ g² over its part, in four
+// addition chains (elements i ≡ 0, 1, 2, 3 mod 4) as sumSq.
+func reluMaskSq(dst, g []float64, x []float32) float64 {
+	g = g[:len(x)]
+	dst = dst[:len(x)]
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(x); i += 4 {
+		v := g[i : i+4 : i+4]
+		xs := x[i : i+4 : i+4]
+		d := dst[i : i+4 : i+4]
+		s0 += v[0] * v[0]
+		s1 += v[1] * v[1]
+		s2 += v[2] * v[2]
+		s3 += v[3] * v[3]
+		for k := range 4 {
+			b := int64(int32(math.Float32bits(xs[k])))
+			m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63))
+			d[k] = math.Float64frombits(math.Float64bits(v[k]) & m)
+		}
+	}
+	for ; i < len(x); i++ {
+		s0 += g[i] * g[i]
+		b := int64(int32(math.Float32bits(x[i])))
+		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63))
+		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
+	}
+	return (s0 + s1) + (s2 + s3)
 }
 
 // slowUnary sends every element-wise rule through its generic derivative

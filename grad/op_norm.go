@@ -115,8 +115,18 @@ func batchNormVJP(o *Op) error {
 	if gs != nil && x32 == nil {
 		x = o.X(0)
 	}
-	// per plane (sample n, channel c): Σ G and Σ G·x, then summed per channel
+	// per plane (sample n, channel c): Σ G and Σ G·x, then summed per
+	// channel; Σ G² per plane when the tape asks for it (float32 input),
+	// summed in plane order
 	sg, sgx := make([]float64, N*C), make([]float64, N*C)
+	var sq []float64
+	if o.wantSq {
+		if x32 != nil {
+			sq = make([]float64, N*C)
+		} else {
+			o.reportSq(sumSq(g)) // before gx overwrites G
+		}
+	}
 	split(N*C*I, func(lo, hi int) {
 		for pl := lo / max(I, 1); pl < N*C && pl*I < hi; pl++ {
 			if pl*I < lo {
@@ -130,7 +140,11 @@ func batchNormVJP(o *Op) error {
 				if gx != nil {
 					d, k = gx[pl*I:(pl+1)*I], s[c]/math.Sqrt(vr[c]+eps)
 				}
-				sg[pl], sgx[pl] = bnPlane(gr, x32[pl*I:(pl+1)*I], d, k)
+				var q float64
+				sg[pl], sgx[pl], q = bnPlane(gr, x32[pl*I:(pl+1)*I], d, k)
+				if sq != nil {
+					sq[pl] = q
+				}
 				continue
 			}
 			if gs != nil || gb != nil { // the sums first: gx may overwrite G
@@ -154,6 +168,13 @@ func batchNormVJP(o *Op) error {
 			}
 		}
 	})
+	if sq != nil {
+		t := 0.0
+		for _, v := range sq {
+			t += v
+		}
+		o.reportSq(t)
+	}
 	for c := 0; c < C; c++ {
 		inv := 1 / math.Sqrt(vr[c]+eps)
 		var a, b float64
@@ -211,12 +232,12 @@ func layerNormVJP(o *Op) error {
 	return nil
 }
 
-// bnPlane returns Σ G and Σ G·x over one plane, each in four addition
-// chains (elements i ≡ 0, 1, 2, 3 mod 4, added at the end), and writes
-// d[i] = G[i]·k when d is not nil (d may be G itself: each element is read
-// before it is written).
-func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float64) {
-	var a0, a1, a2, a3, b0, b1, b2, b3 float64
+// bnPlane returns Σ G, Σ G·x and Σ G² over one plane, each in four
+// addition chains (elements i ≡ 0, 1, 2, 3 mod 4, added at the end), and
+// writes d[i] = G[i]·k when d is not nil (d may be G itself: each element
+// is read before it is written).
+func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX, sumSq float64) {
+	var a0, a1, a2, a3, b0, b1, b2, b3, q0, q1, q2, q3 float64
 	x = x[:len(g)]
 	i := 0
 	if d != nil {
@@ -228,6 +249,7 @@ func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float6
 			b1 += v1 * float64(x[i+1])
 			b2 += v2 * float64(x[i+2])
 			b3 += v3 * float64(x[i+3])
+			q0, q1, q2, q3 = q0+v0*v0, q1+v1*v1, q2+v2*v2, q3+v3*v3
 			d[i], d[i+1], d[i+2], d[i+3] = v0*k, v1*k, v2*k, v3*k
 		}
 	} else {
@@ -238,15 +260,17 @@ func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float6
 			b1 += v1 * float64(x[i+1])
 			b2 += v2 * float64(x[i+2])
 			b3 += v3 * float64(x[i+3])
+			q0, q1, q2, q3 = q0+v0*v0, q1+v1*v1, q2+v2*v2, q3+v3*v3
 		}
 	}
 	for ; i < len(g); i++ {
 		v := g[i]
 		a0 += v
 		b0 += v * float64(x[i])
+		q0 += v * v
 		if d != nil {
 			d[i] = v * k
 		}
 	}
-	return (a0 + a1) + (a2 + a3), (b0 + b1) + (b2 + b3)
+	return (a0 + a1) + (a2 + a3), (b0 + b1) + (b2 + b3), (q0 + q1) + (q2 + q3)
 }

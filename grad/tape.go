@@ -114,6 +114,19 @@ func (r *Result) MissingLines() []string {
 // reached (before the step that produced it runs its VJP), with that step's
 // index; the slice is only valid during the call.
 func (t *Tape) Backward(seed map[string][]float64, value func(step int, name string, g []float64)) (*Result, error) {
+	return t.backward(seed, value, nil)
+}
+
+// BackwardSq is Backward with, instead of each final gradient g, its size
+// and Σ g² (what grad_rms needs): the rules of sqRules take the sum while
+// they read g for their own product, saving a pass over the buffer; for
+// the others it is taken before the rule runs. sq is called once per node
+// output a gradient reached, with the index of the step that produced it.
+func (t *Tape) BackwardSq(seed map[string][]float64, sq func(step int, name string, n int, sumSq float64)) (*Result, error) {
+	return t.backward(seed, nil, sq)
+}
+
+func (t *Tape) backward(seed map[string][]float64, value func(step int, name string, g []float64), sq func(step int, name string, n int, sumSq float64)) (*Result, error) {
 	p := t.plan
 	// a value wants a gradient when it is float and depends on an
 	// initializer or a Constant node's float tensor (parameters too), or a
@@ -162,6 +175,8 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		n := s.Node
 		gOut := make([][]float64, len(n.Outputs))
 		any := false
+		// the rule gives Σ G² of its single output (sqRules): reported after it
+		deferSq := sq != nil && len(n.Outputs) == 1 && sqRules[n.OpType] && (n.Domain == "" || n.Domain == "ai.onnx")
 		for j, o := range n.Outputs {
 			if g, ok := grads[o]; ok && o != "" {
 				gOut[j] = g
@@ -169,11 +184,26 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 				if value != nil {
 					value(i, o, g)
 				}
+				if sq != nil && !deferSq {
+					sq(i, o, len(g), sumSq(g))
+				}
 				delete(grads, o)
 			}
 		}
 		if !any {
 			continue
+		}
+		// flushSq reports the deferred sum: the rule's, or taken from G,
+		// which a rule that does not report leaves unchanged
+		flushSq := func(op *Op) {
+			if !deferSq || gOut[0] == nil {
+				return
+			}
+			if op != nil && op.gsqOK {
+				sq(i, n.Outputs[0], len(gOut[0]), op.gsq)
+			} else {
+				sq(i, n.Outputs[0], len(gOut[0]), sumSq(gOut[0]))
+			}
 		}
 		if isParamNode(n) { // a weight given as a Constant node
 			for j, o := range n.Outputs {
@@ -204,10 +234,12 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 			needAny = needAny || need[j]
 		}
 		if !needAny {
+			flushSq(nil)
 			continue
 		}
 		f, ok := Lookup(n.Domain, n.OpType)
 		if !ok {
+			flushSq(nil)
 			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
 			continue
 		}
@@ -220,7 +252,12 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc, op.allocRaw = free.get, free.getRaw
 		op.memo = t.memo
-		if err := callVJP(f, op); err != nil {
+		op.wantSq = deferSq
+		err := callVJP(f, op)
+		if err == nil || errors.As(err, new(*noRuleError)) {
+			flushSq(op)
+		}
+		if err != nil {
 			var nr *noRuleError
 			if errors.As(err, &nr) {
 				key := n.OpType + " " + nr.detail

@@ -30,7 +30,20 @@ type Op struct {
 	alloc, allocRaw func(n int) []float64
 	// memo, when set, is the tape's store of per-node derived data (Memo).
 	memo map[*loader.Node]any
+	// wantSq asks a rule of sqRules for Σ G² of output 0 (gsq, gsqOK),
+	// taken while it reads G anyway.
+	wantSq bool
+	gsq    float64
+	gsqOK  bool
 }
+
+// sqRules are the operators whose rule, asked by Op.wantSq, reports Σ G²
+// of output 0 (reportSq) whenever it writes over G; when it does not
+// report, it leaves G unchanged.
+var sqRules = map[string]bool{"Relu": true, "BatchNormalization": true, "Conv": true}
+
+// reportSq records Σ G² of output 0 for the tape's grad_rms.
+func (o *Op) reportSq(s float64) { o.gsq, o.gsqOK = s, true }
 
 // memoize returns what build derives for this node, computed once per tape
 // while valid(v) holds for the stored value (without a tape: every call).
