@@ -277,10 +277,13 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 			if g == nil || name == "" {
 				continue
 			}
-			if acc, ok := grads[name]; ok {
-				for k, v := range g {
-					acc[k] += v
-				}
+			if acc, ok := grads[name]; ok { // a value read by several nodes
+				split(len(g), func(lo, hi int) {
+					a := acc[lo:hi]
+					for k, v := range g[lo:hi] {
+						a[k] += v
+					}
+				})
 			} else {
 				grads[name] = g
 			}
