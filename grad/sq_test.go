@@ -71,3 +71,30 @@ func TestBackwardSqSameAsSums(t *testing.T) {
 		}
 	}
 }
+
+// TestFreeListFit: a recycled buffer serves a request of its own size or
+// one up to fitSlack times smaller, cleared by get, and goes back whole.
+func TestFreeListFit(t *testing.T) {
+	f := &freeList{byLen: map[int][][]float64{}}
+	b := make([]float64, 100)
+	for i := range b {
+		b[i] = 1
+	}
+	f.put(b)
+	if c := f.get(10); &c[0] == &b[0] {
+		t.Fatal("a buffer 10 times larger than the request was reused")
+	}
+	c := f.get(40)
+	if len(c) != 40 || &c[0] != &b[0] {
+		t.Fatalf("request of 40: len %d, reused %v", len(c), &c[0] == &b[0])
+	}
+	for i, v := range c {
+		if v != 0 {
+			t.Fatalf("element %d not cleared: %g", i, v)
+		}
+	}
+	f.put(c)
+	if d := f.getRaw(100); len(d) != 100 || &d[0] != &b[0] || d[99] != 1 {
+		t.Fatalf("the buffer did not go back whole")
+	}
+}
