@@ -221,34 +221,29 @@ func reluMask(dst, g []float64, x []float32) {
 	}
 }
 
-// reluMaskSq is reluMask that also returns Σ g² over its part, in four
-// addition chains (elements i ≡ 0, 1, 2, 3 mod 4) as sumSq.
+// reluMaskSq is reluMask that also returns Σ g² over its part, in two
+// addition chains (even and odd elements).
 func reluMaskSq(dst, g []float64, x []float32) float64 {
 	g = g[:len(x)]
 	dst = dst[:len(x)]
-	var s0, s1, s2, s3 float64
+	var s0, s1 float64
 	i := 0
-	for ; i+4 <= len(x); i += 4 {
-		v := g[i : i+4 : i+4]
-		xs := x[i : i+4 : i+4]
-		d := dst[i : i+4 : i+4]
-		s0 += v[0] * v[0]
-		s1 += v[1] * v[1]
-		s2 += v[2] * v[2]
-		s3 += v[3] * v[3]
-		for k := range 4 {
-			b := int64(int32(math.Float32bits(xs[k])))
-			m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63))
-			d[k] = math.Float64frombits(math.Float64bits(v[k]) & m)
-		}
+	for ; i+2 <= len(x); i += 2 {
+		g0, g1 := g[i], g[i+1]
+		b0, b1 := int64(int32(math.Float32bits(x[i]))), int64(int32(math.Float32bits(x[i+1])))
+		s0, s1 = s0+g0*g0, s1+g1*g1
+		m0 := uint64((-b0 >> 63) & ((b0 - 0x7f800001) >> 63))
+		m1 := uint64((-b1 >> 63) & ((b1 - 0x7f800001) >> 63))
+		dst[i] = math.Float64frombits(math.Float64bits(g0) & m0)
+		dst[i+1] = math.Float64frombits(math.Float64bits(g1) & m1)
 	}
-	for ; i < len(x); i++ {
+	if i < len(x) {
 		s0 += g[i] * g[i]
 		b := int64(int32(math.Float32bits(x[i])))
 		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63))
 		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
 	}
-	return (s0 + s1) + (s2 + s3)
+	return s0 + s1
 }
 
 // slowUnary sends every element-wise rule through its generic derivative
