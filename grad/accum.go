@@ -44,6 +44,7 @@ func (a *Accumulator) Add(t *Tape, output string, loss float64, seed []float64, 
 			for i, v := range g {
 				acc[i] += v
 			}
+			t.free.put(g) // the next batch's gradients reuse it
 		} else {
 			a.params[name] = g
 		}
