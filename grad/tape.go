@@ -27,13 +27,29 @@ type Tape struct {
 	memo map[*loader.Node]any
 	// free keeps the gradient buffers of one backward pass for the next
 	free *freeList
+	// uses counts the readers of each value (node inputs, graph outputs)
+	uses map[string]int
+	// made is the operator type that produces each node output
+	made map[string]string
 }
 
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
 	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}}
+	t.uses, t.made = map[string]int{}, map[string]string{}
 	for i, s := range p.Steps {
 		t.step[s.Node] = i
+		for _, in := range s.Node.Inputs {
+			t.uses[in]++
+		}
+		if s.Node.Domain == "" || s.Node.Domain == "ai.onnx" {
+			for _, o := range s.Node.Outputs {
+				t.made[o] = s.Node.OpType
+			}
+		}
+	}
+	for _, o := range p.Graph.Outputs {
+		t.uses[o.Name]++
 	}
 	t.Reset(nil)
 	return t
@@ -170,9 +186,19 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 	}
 	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
 	free := t.free
+	// masks: ReLU rules left to the BatchNormalization below them, by the
+	// BatchNormalization's output (fuseRelu)
+	masks := map[string]pendingMask{}
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
+		if value == nil && sq != nil && t.fuseRelu(n, grads, wants) {
+			g := grads[n.Outputs[0]]
+			delete(grads, n.Outputs[0])
+			masks[n.Inputs[0]] = pendingMask{x: t.vals[n.Inputs[0]].Data.([]float32), step: i, out: n.Outputs[0]}
+			grads[n.Inputs[0]] = g // the mask is applied by the BatchNormalization rule
+			continue
+		}
 		gOut := make([][]float64, len(n.Outputs))
 		any := false
 		// the rule gives Σ G² of its single output (sqRules): reported after it
@@ -188,6 +214,18 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 					sq(i, o, len(g), sumSq(g))
 				}
 				delete(grads, o)
+			}
+		}
+		// a ReLU above left its mask: the BatchNormalization rule applies it
+		// while reading G, or else it is applied here (unmask)
+		pm, masked := masks[n.Outputs[0]]
+		delete(masks, n.Outputs[0])
+		unmask := func() {
+			if masked && gOut[0] != nil {
+				g := gOut[0]
+				raw := splitSum(len(g), func(lo, hi int) float64 { return reluMaskSq(g[lo:hi], g[lo:hi], pm.x[lo:hi]) })
+				sq(pm.step, pm.out, len(g), raw)
+				masked = false
 			}
 		}
 		if !any {
@@ -234,11 +272,13 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 			needAny = needAny || need[j]
 		}
 		if !needAny {
+			unmask()
 			flushSq(nil)
 			continue
 		}
 		f, ok := Lookup(n.Domain, n.OpType)
 		if !ok {
+			unmask()
 			flushSq(nil)
 			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
 			continue
@@ -253,7 +293,20 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		op.alloc, op.allocRaw = free.get, free.getRaw
 		op.memo = t.memo
 		op.wantSq = deferSq
+		if masked {
+			if _, ok := in[0].Data.([]float32); ok && n.OpType == "BatchNormalization" && deferSq {
+				op.mask = pm.x
+			} else {
+				unmask()
+			}
+		}
 		err := callVJP(f, op)
+		if op.mask != nil && (err == nil || errors.As(err, new(*noRuleError))) {
+			if !op.rawSqOK {
+				return nil, fmt.Errorf("gradient of node %q (%s): internal error: the ReLU mask was not applied", n.Name, n.OpType)
+			}
+			sq(pm.step, pm.out, len(gOut[0]), op.rawSq)
+		}
 		if err == nil || errors.As(err, new(*noRuleError)) {
 			flushSq(op)
 		}
@@ -297,6 +350,35 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		}
 	}
 	return res, nil
+}
+
+// pendingMask is a ReLU's rule left to the BatchNormalization that feeds
+// it: the ReLU's float32 input x (the gradient passes where x > 0), and
+// the step and output name under which Σ G² of its output is reported.
+type pendingMask struct {
+	x    []float32
+	step int
+	out  string
+}
+
+// fuseRelu reports a ReLU node whose rule the BatchNormalization rule below
+// it can do in its own pass over G (one pass over the buffer less): a
+// float32 ReLU whose input is a float32 BatchNormalization's output read by
+// it alone, with a gradient at its output and none at its input yet.
+func (t *Tape) fuseRelu(n *loader.Node, grads map[string][]float64, wants map[string]bool) bool {
+	if n.OpType != "Relu" || (n.Domain != "" && n.Domain != "ai.onnx") || len(n.Inputs) != 1 || len(n.Outputs) != 1 {
+		return false
+	}
+	in, out := n.Inputs[0], n.Outputs[0]
+	g, ok := grads[out]
+	if !ok || !wants[in] || t.uses[in] != 1 || t.made[in] != "BatchNormalization" {
+		return false
+	}
+	if _, started := grads[in]; started {
+		return false
+	}
+	x, ok := t.vals[in].Data.([]float32)
+	return ok && len(x) == len(g)
 }
 
 // freeList recycles gradient buffers within a backward pass and from one

@@ -35,6 +35,12 @@ type Op struct {
 	wantSq bool
 	gsq    float64
 	gsqOK  bool
+	// mask, when set, is the float32 input of a ReLU above this
+	// BatchNormalization whose rule the tape left to it: G is taken as 0
+	// where mask ≤ 0 (or NaN), and Σ G² before the mask goes to rawSq.
+	mask    []float32
+	rawSq   float64
+	rawSqOK bool
 }
 
 // sqRules are the operators whose rule, asked by Op.wantSq, reports Σ G²
