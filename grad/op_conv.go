@@ -74,7 +74,7 @@ func convVJP(o *Op) error {
 	}
 	var gx []float64
 	if dxByConv {
-		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0)); err != nil {
+		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0), o.arena); err != nil {
 			return err
 		}
 	} else {

@@ -27,6 +27,9 @@ type Tape struct {
 	memo map[*loader.Node]any
 	// free keeps the gradient buffers of one backward pass for the next
 	free *freeList
+	// arena pools the float32 outputs of the forward kernels the rules
+	// run (dX's convolutions), within a pass and from one pass to the next
+	arena *tensor.Arena
 	// uses counts the readers of each value (node inputs, graph outputs)
 	uses map[string]int
 	// made is the operator type that produces each node output
@@ -36,6 +39,7 @@ type Tape struct {
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
 	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}}
+	t.arena = &tensor.Arena{Budget: tensor.MemoryBudget(), Pool: tensor.NewPool(arenaPool)}
 	t.uses, t.made = map[string]int{}, map[string]string{}
 	for i, s := range p.Steps {
 		t.step[s.Node] = i
@@ -292,6 +296,7 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc, op.allocRaw = free.get, free.getRaw
 		op.memo = t.memo
+		op.arena = t.arena
 		op.wantSq = deferSq
 		if masked {
 			if _, ok := in[0].Data.([]float32); ok && n.OpType == "BatchNormalization" && deferSq {
@@ -342,6 +347,9 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 			}
 		}
 	}
+	// buffers a kernel drew from the arena without handing them back are
+	// forgotten (the pool keeps only those put back)
+	t.arena.Pool.Recycle(nil, nil)
 	for name, g := range grads {
 		if _, init := p.Graph.Initializers[name]; init {
 			res.Params[name] = g
@@ -351,6 +359,10 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 	}
 	return res, nil
 }
+
+// arenaPool bounds the free float32 buffers the tape's arena keeps
+// (bytes; common practice: a fraction of a typical memory budget).
+const arenaPool = 256 << 20
 
 // pendingMask is a ReLU's rule left to the BatchNormalization that feeds
 // it: the ReLU's float32 input x (the gradient passes where x > 0), and

@@ -30,6 +30,9 @@ type Op struct {
 	alloc, allocRaw func(n int) []float64
 	// memo, when set, is the tape's store of per-node derived data (Memo).
 	memo map[*loader.Node]any
+	// arena, when set, is the tape's memory for float32 tensors a rule
+	// makes by running a forward kernel (pooled from node to node)
+	arena *tensor.Arena
 	// wantSq asks a rule of sqRules for Σ G² of output 0 (gsq, gsqOK),
 	// taken while it reads G anyway.
 	wantSq bool
