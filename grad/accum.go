@@ -29,9 +29,9 @@ func NewAccumulator() *Accumulator {
 // Add runs the backward pass of one batch of k samples whose summed loss is
 // loss, seeded with the loss's gradient at the graph output, and adds it.
 func (a *Accumulator) Add(t *Tape, output string, loss float64, seed []float64, k int) error {
-	res, err := t.Backward(map[string][]float64{output: seed}, func(step int, name string, g []float64) {
-		a.sq[name] += sumSq(g)
-		a.count[name] += int64(len(g))
+	res, err := t.BackwardSq(map[string][]float64{output: seed}, func(step int, name string, n int, sq float64) {
+		a.sq[name] += sq
+		a.count[name] += int64(n)
 		a.step[name] = step
 	})
 	if err != nil {
@@ -44,6 +44,7 @@ func (a *Accumulator) Add(t *Tape, output string, loss float64, seed []float64, 
 			for i, v := range g {
 				acc[i] += v
 			}
+			t.free.put(g) // the next batch's gradients reuse it
 		} else {
 			a.params[name] = g
 		}

@@ -212,7 +212,7 @@ func ones64(n int) []int64 {
 
 // apply writes dX into gx (every element), gu being the output gradient
 // [N, M, out...] in float32.
-func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64) error {
+func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, arena *tensor.Arena) error {
 	gt := tensor.From(gu, append([]int{N, M}, win.out...)...)
 	if !cd.cover {
 		clear(gx)
@@ -220,8 +220,15 @@ func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64) er
 	for i := range cd.phases {
 		ph := &cd.phases[i]
 		c := &probe.Call{Node: ph.node, In: []*tensor.Tensor{gt, ph.wt}, Out: make([]*tensor.Tensor, 1), Opset: 11}
+		if arena != nil {
+			c.UseArena(arena)
+		}
 		if err := cd.run(c); err != nil {
 			return err
+		}
+		if arena != nil && arena.Pool != nil {
+			// read below, then dead: the next convolution's output reuses it
+			defer arena.Pool.Put(c.Out[0])
 		}
 		y := c.Out[0].F32()
 		if len(y) != N*C*ph.J || len(gx) != N*C*win.I {

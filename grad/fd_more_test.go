@@ -153,15 +153,19 @@ func TestReluMaskSpecialValues(t *testing.T) {
 	for i := range g {
 		g[i] = float64(i) + 0.5
 	}
-	dst := make([]float64, len(x))
+	dst, dsq := make([]float64, len(x)), make([]float64, len(x))
 	reluMask(dst, g, x)
+	sq := reluMaskSq(dsq, g, x) // the same mask, and Σ g² (sumSq the reference)
+	if sq != sumSq(g) && math.Abs(sq-sumSq(g)) > 1e-12*sumSq(g) {
+		t.Errorf("reluMaskSq: Σ g² = %v, sumSq %v", sq, sumSq(g))
+	}
 	for i, v := range x {
 		want := 0.0
 		if v > 0 {
 			want = g[i]
 		}
-		if dst[i] != want {
-			t.Errorf("x = %v (bits %#x): gradient %v, want %v", v, math.Float32bits(v), dst[i], want)
+		if dst[i] != want || dsq[i] != want {
+			t.Errorf("x = %v (bits %#x): gradient %v (reluMaskSq %v), want %v", v, math.Float32bits(v), dst[i], dsq[i], want)
 		}
 	}
 }

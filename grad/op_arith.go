@@ -65,8 +65,8 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 					if gi == nil || (s == 1 && &gi[0] == &g[0]) { // G itself: nothing to write
 						continue
 					}
-					if s == 1 {
-						copy(gi, g)
+					if s == 1 { // in parts on the workers: a serial copy waits on memory
+						split(len(g), func(lo, hi int) { copy(gi[lo:hi], g[lo:hi]) })
 						continue
 					}
 					split(len(g), func(lo, hi int) {

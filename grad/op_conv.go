@@ -62,15 +62,19 @@ func convVJP(o *Op) error {
 	if dxByConv || dwByProduct {
 		g32 = scratch(len(g))
 		defer release(g32)
-		split(len(g), func(lo, hi int) {
-			for i := lo; i < hi; i++ {
-				g32[i] = float32(g[i])
-			}
-		})
+		if o.wantSq { // Σ G² for the tape, in the same pass
+			o.reportSq(splitSum(len(g), func(lo, hi int) float64 { return narrowSq(g32[lo:hi], g[lo:hi]) }))
+		} else {
+			split(len(g), func(lo, hi int) {
+				for i := lo; i < hi; i++ {
+					g32[i] = float32(g[i])
+				}
+			})
+		}
 	}
 	var gx []float64
 	if dxByConv {
-		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0)); err != nil {
+		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0), o.arena); err != nil {
 			return err
 		}
 	} else {
@@ -165,6 +169,28 @@ func sum4(g []float64) float64 {
 	}
 	for ; i < len(g); i++ {
 		s0 += g[i]
+	}
+	return (s0 + s1) + (s2 + s3)
+}
+
+// narrowSq writes dst[i] = float32(g[i]) and returns Σ g² in four addition
+// chains (elements i ≡ 0, 1, 2, 3 mod 4) as sumSq.
+func narrowSq(dst []float32, g []float64) float64 {
+	dst = dst[:len(g)]
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(g); i += 4 {
+		v := g[i : i+4 : i+4]
+		d := dst[i : i+4 : i+4]
+		s0 += v[0] * v[0]
+		s1 += v[1] * v[1]
+		s2 += v[2] * v[2]
+		s3 += v[3] * v[3]
+		d[0], d[1], d[2], d[3] = float32(v[0]), float32(v[1]), float32(v[2]), float32(v[3])
+	}
+	for ; i < len(g); i++ {
+		s0 += g[i] * g[i]
+		dst[i] = float32(g[i])
 	}
 	return (s0 + s1) + (s2 + s3)
 }

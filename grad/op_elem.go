@@ -102,6 +102,7 @@ func sign(x float64) float64 {
 
 // unary registers an element-wise operator whose derivative is d(x, y).
 func unary(name string, d func(x, y float64, o *Op) float64) {
+	sqRules[name] = true
 	register(name, func(o *Op) error {
 		g := o.G(0)
 		gx := o.InPlace(0)
@@ -113,9 +114,15 @@ func unary(name string, d func(x, y float64, o *Op) float64) {
 		if ok1 && ok2 && len(x32) == len(gx) && len(y32) == len(gx) {
 			// float32 values read in place, widened one at a time
 			if f := fastUnary[name]; f != nil && !slowUnary {
-				k := f(o)
-				split(len(gx), func(lo, hi int) { k(gx[lo:hi], g[lo:hi], x32[lo:hi], y32[lo:hi]) })
+				k := f(o) // Σ G² comes with the pass
+				sq := splitSum(len(gx), func(lo, hi int) float64 { return k(gx[lo:hi], g[lo:hi], x32[lo:hi], y32[lo:hi]) })
+				if o.wantSq {
+					o.reportSq(sq)
+				}
 				return nil
+			}
+			if o.wantSq {
+				o.reportSq(sumSq(g)) // before gx overwrites G
 			}
 			split(len(gx), func(lo, hi int) {
 				for i := lo; i < hi; i++ {
@@ -125,6 +132,9 @@ func unary(name string, d func(x, y float64, o *Op) float64) {
 			return nil
 		}
 		x, y := o.X(0), o.Y(0)
+		if o.wantSq {
+			o.reportSq(sumSq(g))
+		}
 		split(len(gx), func(lo, hi int) {
 			for i := lo; i < hi; i++ {
 				gx[i] = g[i] * d(x[i], y[i], o)
@@ -176,8 +186,15 @@ func reluVJP(o *Op) error {
 		return nil
 	}
 	if x, ok := o.In[0].Data.([]float32); ok {
+		if o.wantSq { // Σ G² taken in the same pass
+			o.reportSq(splitSum(len(x), func(lo, hi int) float64 { return reluMaskSq(gx[lo:hi], g[lo:hi], x[lo:hi]) }))
+			return nil
+		}
 		split(len(x), func(lo, hi int) { reluMask(gx[lo:hi], g[lo:hi], x[lo:hi]) })
 		return nil
+	}
+	if o.wantSq {
+		o.reportSq(sumSq(g))
 	}
 	for i, v := range o.X(0) {
 		if v > 0 {
@@ -204,6 +221,31 @@ func reluMask(dst, g []float64, x []float32) {
 	}
 }
 
+// reluMaskSq is reluMask that also returns Σ g² over its part, in two
+// addition chains (even and odd elements).
+func reluMaskSq(dst, g []float64, x []float32) float64 {
+	g = g[:len(x)]
+	dst = dst[:len(x)]
+	var s0, s1 float64
+	i := 0
+	for ; i+2 <= len(x); i += 2 {
+		g0, g1 := g[i], g[i+1]
+		b0, b1 := int64(int32(math.Float32bits(x[i]))), int64(int32(math.Float32bits(x[i+1])))
+		s0, s1 = s0+g0*g0, s1+g1*g1
+		m0 := uint64((-b0 >> 63) & ((b0 - 0x7f800001) >> 63))
+		m1 := uint64((-b1 >> 63) & ((b1 - 0x7f800001) >> 63))
+		dst[i] = math.Float64frombits(math.Float64bits(g0) & m0)
+		dst[i+1] = math.Float64frombits(math.Float64bits(g1) & m1)
+	}
+	if i < len(x) {
+		s0 += g[i] * g[i]
+		b := int64(int32(math.Float32bits(x[i])))
+		m := uint64((-b >> 63) & ((b - 0x7f800001) >> 63))
+		dst[i] = math.Float64frombits(math.Float64bits(g[i]) & m)
+	}
+	return s0 + s1
+}
+
 // slowUnary sends every element-wise rule through its generic derivative
 // (tests compare the loops of fastUnary with it).
 var slowUnary = false
@@ -211,50 +253,103 @@ var slowUnary = false
 // fastUnary holds, for common activations on float32 models, a loop that
 // computes the same float64 expressions as the derivative given to unary
 // but without a call per element, so that simple selects replace branches;
-// given the node, it returns the loop over one part (dst may be g).
-var fastUnary = map[string]func(o *Op) func(dst, g []float64, x, y []float32){
-	"Sigmoid": func(*Op) func(dst, g []float64, x, y []float32) {
-		return func(dst, g []float64, _, y []float32) {
-			for i, v := range y[:len(g)] {
-				yv := float64(v)
-				dst[i] = g[i] * (yv * (1 - yv))
+// given the node, it returns the loop over one part (dst may be g), which
+// also returns Σ g² over the part (two addition chains, even and odd
+// elements, for grad_rms). Each loop reads g[i] before writing dst[i].
+var fastUnary = map[string]func(o *Op) func(dst, g []float64, x, y []float32) float64{
+	"Sigmoid": func(*Op) func(dst, g []float64, x, y []float32) float64 {
+		return func(dst, g []float64, _, y []float32) float64 {
+			y, dst = y[:len(g)], dst[:len(g)]
+			var s0, s1 float64
+			i := 0
+			for ; i+2 <= len(g); i += 2 {
+				g0, g1, y0, y1 := g[i], g[i+1], float64(y[i]), float64(y[i+1])
+				s0, s1 = s0+g0*g0, s1+g1*g1
+				dst[i], dst[i+1] = g0*(y0*(1-y0)), g1*(y1*(1-y1))
 			}
+			if i < len(g) {
+				g0, y0 := g[i], float64(y[i])
+				s0 += g0 * g0
+				dst[i] = g0 * (y0 * (1 - y0))
+			}
+			return s0 + s1
 		}
 	},
-	"Tanh": func(*Op) func(dst, g []float64, x, y []float32) {
-		return func(dst, g []float64, _, y []float32) {
-			for i, v := range y[:len(g)] {
-				yv := float64(v)
-				dst[i] = g[i] * (1 - yv*yv)
+	"Tanh": func(*Op) func(dst, g []float64, x, y []float32) float64 {
+		return func(dst, g []float64, _, y []float32) float64 {
+			y, dst = y[:len(g)], dst[:len(g)]
+			var s0, s1 float64
+			i := 0
+			for ; i+2 <= len(g); i += 2 {
+				g0, g1, y0, y1 := g[i], g[i+1], float64(y[i]), float64(y[i+1])
+				s0, s1 = s0+g0*g0, s1+g1*g1
+				dst[i], dst[i+1] = g0*(1-y0*y0), g1*(1-y1*y1)
 			}
+			if i < len(g) {
+				g0, y0 := g[i], float64(y[i])
+				s0 += g0 * g0
+				dst[i] = g0 * (1 - y0*y0)
+			}
+			return s0 + s1
 		}
 	},
-	"HardSigmoid": func(o *Op) func(dst, g []float64, x, y []float32) {
+	"HardSigmoid": func(o *Op) func(dst, g []float64, x, y []float32) float64 {
 		a, b := float64(o.Float("alpha", 0.2)), float64(o.Float("beta", 0.5))
-		return func(dst, g []float64, x, _ []float32) {
-			for i, v := range x[:len(g)] {
-				u := a*float64(v) + b
-				d := a
-				if !(u > 0 && u < 1) {
-					d = 0
-				}
-				dst[i] = g[i] * d
+		return func(dst, g []float64, x, _ []float32) float64 {
+			x, dst = x[:len(g)], dst[:len(g)]
+			var s0, s1 float64
+			i := 0
+			for ; i+2 <= len(g); i += 2 {
+				g0, g1 := g[i], g[i+1]
+				s0, s1 = s0+g0*g0, s1+g1*g1
+				dst[i], dst[i+1] = g0*dHardSigmoid(float64(x[i]), a, b), g1*dHardSigmoid(float64(x[i+1]), a, b)
 			}
+			if i < len(g) {
+				s0 += g[i] * g[i]
+				dst[i] = g[i] * dHardSigmoid(float64(x[i]), a, b)
+			}
+			return s0 + s1
 		}
 	},
-	"HardSwish": func(*Op) func(dst, g []float64, x, y []float32) {
-		return func(dst, g []float64, x, _ []float32) {
-			for i, v := range x[:len(g)] {
-				xv := float64(v)
-				d := 1.0 // x > 3, and NaN as in the generic rule
-				if xv <= 3 {
-					d = xv/3 + 0.5
-				}
-				if xv < -3 {
-					d = 0
-				}
-				dst[i] = g[i] * d
+	"HardSwish": func(*Op) func(dst, g []float64, x, y []float32) float64 {
+		return func(dst, g []float64, x, _ []float32) float64 {
+			x, dst = x[:len(g)], dst[:len(g)]
+			var s0, s1 float64
+			i := 0
+			for ; i+2 <= len(g); i += 2 {
+				g0, g1 := g[i], g[i+1]
+				s0, s1 = s0+g0*g0, s1+g1*g1
+				dst[i], dst[i+1] = g0*dHardSwish(float64(x[i])), g1*dHardSwish(float64(x[i+1]))
 			}
+			if i < len(g) {
+				s0 += g[i] * g[i]
+				dst[i] = g[i] * dHardSwish(float64(x[i]))
+			}
+			return s0 + s1
 		}
 	},
+}
+
+// dHardSigmoid is HardSigmoid's derivative a where 0 < a·x + b < 1, else 0
+// (the generic rule's expression, small enough to be inlined).
+func dHardSigmoid(x, a, b float64) float64 {
+	u := a*x + b
+	d := a
+	if !(u > 0 && u < 1) {
+		d = 0
+	}
+	return d
+}
+
+// dHardSwish is HardSwish's derivative: 0 below −3, x/3 + 1/2 up to 3, 1
+// above (and for NaN, as the generic rule), small enough to be inlined.
+func dHardSwish(x float64) float64 {
+	d := 1.0
+	if x <= 3 {
+		d = x/3 + 0.5
+	}
+	if x < -3 {
+		d = 0
+	}
+	return d
 }

@@ -115,8 +115,24 @@ func batchNormVJP(o *Op) error {
 	if gs != nil && x32 == nil {
 		x = o.X(0)
 	}
-	// per plane (sample n, channel c): Σ G and Σ G·x, then summed per channel
+	// per plane (sample n, channel c): Σ G and Σ G·x, then summed per
+	// channel; Σ G² per plane when the tape asks for it (float32 input),
+	// summed in plane order
 	sg, sgx := make([]float64, N*C), make([]float64, N*C)
+	var sq, raw []float64
+	if o.mask != nil {
+		if x32 == nil || len(o.mask) != len(g) {
+			return fmt.Errorf("internal error: ReLU mask of %d elements for a BatchNormalization gradient of %d", len(o.mask), len(g))
+		}
+		raw = make([]float64, N*C)
+	}
+	if o.wantSq {
+		if x32 != nil {
+			sq = make([]float64, N*C)
+		} else {
+			o.reportSq(sumSq(g)) // before gx overwrites G
+		}
+	}
 	split(N*C*I, func(lo, hi int) {
 		for pl := lo / max(I, 1); pl < N*C && pl*I < hi; pl++ {
 			if pl*I < lo {
@@ -130,7 +146,15 @@ func batchNormVJP(o *Op) error {
 				if gx != nil {
 					d, k = gx[pl*I:(pl+1)*I], s[c]/math.Sqrt(vr[c]+eps)
 				}
-				sg[pl], sgx[pl] = bnPlane(gr, x32[pl*I:(pl+1)*I], d, k)
+				var q float64
+				if o.mask != nil { // the ReLU above, in the same pass
+					sg[pl], sgx[pl], q, raw[pl] = bnPlaneMask(gr, o.mask[pl*I:(pl+1)*I], x32[pl*I:(pl+1)*I], d, k)
+				} else {
+					sg[pl], sgx[pl], q = bnPlane(gr, x32[pl*I:(pl+1)*I], d, k)
+				}
+				if sq != nil {
+					sq[pl] = q
+				}
 				continue
 			}
 			if gs != nil || gb != nil { // the sums first: gx may overwrite G
@@ -154,6 +178,20 @@ func batchNormVJP(o *Op) error {
 			}
 		}
 	})
+	if sq != nil {
+		t := 0.0
+		for _, v := range sq {
+			t += v
+		}
+		o.reportSq(t)
+	}
+	if raw != nil {
+		t := 0.0
+		for _, v := range raw {
+			t += v
+		}
+		o.rawSq, o.rawSqOK = t, true
+	}
 	for c := 0; c < C; c++ {
 		inv := 1 / math.Sqrt(vr[c]+eps)
 		var a, b float64
@@ -211,12 +249,12 @@ func layerNormVJP(o *Op) error {
 	return nil
 }
 
-// bnPlane returns Σ G and Σ G·x over one plane, each in four addition
-// chains (elements i ≡ 0, 1, 2, 3 mod 4, added at the end), and writes
-// d[i] = G[i]·k when d is not nil (d may be G itself: each element is read
-// before it is written).
-func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float64) {
-	var a0, a1, a2, a3, b0, b1, b2, b3 float64
+// bnPlane returns Σ G, Σ G·x and Σ G² over one plane, each in four
+// addition chains (elements i ≡ 0, 1, 2, 3 mod 4, added at the end), and
+// writes d[i] = G[i]·k when d is not nil (d may be G itself: each element
+// is read before it is written).
+func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX, sumSq float64) {
+	var a0, a1, a2, a3, b0, b1, b2, b3, q0, q1, q2, q3 float64
 	x = x[:len(g)]
 	i := 0
 	if d != nil {
@@ -228,6 +266,7 @@ func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float6
 			b1 += v1 * float64(x[i+1])
 			b2 += v2 * float64(x[i+2])
 			b3 += v3 * float64(x[i+3])
+			q0, q1, q2, q3 = q0+v0*v0, q1+v1*v1, q2+v2*v2, q3+v3*v3
 			d[i], d[i+1], d[i+2], d[i+3] = v0*k, v1*k, v2*k, v3*k
 		}
 	} else {
@@ -238,15 +277,63 @@ func bnPlane(g []float64, x []float32, d []float64, k float64) (sum, sumX float6
 			b1 += v1 * float64(x[i+1])
 			b2 += v2 * float64(x[i+2])
 			b3 += v3 * float64(x[i+3])
+			q0, q1, q2, q3 = q0+v0*v0, q1+v1*v1, q2+v2*v2, q3+v3*v3
 		}
 	}
 	for ; i < len(g); i++ {
 		v := g[i]
 		a0 += v
 		b0 += v * float64(x[i])
+		q0 += v * v
 		if d != nil {
 			d[i] = v * k
 		}
 	}
-	return (a0 + a1) + (a2 + a3), (b0 + b1) + (b2 + b3)
+	return (a0 + a1) + (a2 + a3), (b0 + b1) + (b2 + b3), (q0 + q1) + (q2 + q3)
+}
+
+// bnPlaneMask is bnPlane for a G that a ReLU above masks: each G[i] is
+// taken as 0 where m[i] ≤ 0 or NaN (reluMask's rule) before it is used,
+// the sums in bnPlane's four chains and order (the same bits as masking
+// first); it returns also Σ G² before the mask (the ReLU output's sum for
+// grad_rms).
+func bnPlaneMask(g []float64, m, x []float32, d []float64, k float64) (sum, sumX, sumSq, rawSq float64) {
+	var a0, a1, a2, a3, b0, b1, b2, b3, q0, q1, q2, q3, r0, r1 float64
+	x, m = x[:len(g)], m[:len(g)]
+	if d != nil {
+		d = d[:len(g)]
+	}
+	i := 0
+	for ; i+4 <= len(g); i += 4 {
+		g0, g1, g2, g3 := g[i], g[i+1], g[i+2], g[i+3]
+		r0, r1 = r0+g0*g0+g2*g2, r1+g1*g1+g3*g3
+		v0, v1, v2, v3 := reluPass(g0, m[i]), reluPass(g1, m[i+1]), reluPass(g2, m[i+2]), reluPass(g3, m[i+3])
+		a0, a1, a2, a3 = a0+v0, a1+v1, a2+v2, a3+v3
+		b0 += v0 * float64(x[i])
+		b1 += v1 * float64(x[i+1])
+		b2 += v2 * float64(x[i+2])
+		b3 += v3 * float64(x[i+3])
+		q0, q1, q2, q3 = q0+v0*v0, q1+v1*v1, q2+v2*v2, q3+v3*v3
+		if d != nil {
+			d[i], d[i+1], d[i+2], d[i+3] = v0*k, v1*k, v2*k, v3*k
+		}
+	}
+	for ; i < len(g); i++ {
+		r0 += g[i] * g[i]
+		v := reluPass(g[i], m[i])
+		a0 += v
+		b0 += v * float64(x[i])
+		q0 += v * v
+		if d != nil {
+			d[i] = v * k
+		}
+	}
+	return (a0 + a1) + (a2 + a3), (b0 + b1) + (b2 + b3), (q0 + q1) + (q2 + q3), r0 + r1
+}
+
+// reluPass is g where the float32 m is > 0, else 0, without a branch
+// (reluMask's rule for one element).
+func reluPass(g float64, m float32) float64 {
+	c := int64(int32(math.Float32bits(m)))
+	return math.Float64frombits(math.Float64bits(g) & uint64((-c>>63)&((c-0x7f800001)>>63)))
 }

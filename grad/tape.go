@@ -27,13 +27,33 @@ type Tape struct {
 	memo map[*loader.Node]any
 	// free keeps the gradient buffers of one backward pass for the next
 	free *freeList
+	// arena pools the float32 outputs of the forward kernels the rules
+	// run (dX's convolutions), within a pass and from one pass to the next
+	arena *tensor.Arena
+	// uses counts the readers of each value (node inputs, graph outputs)
+	uses map[string]int
+	// made is the operator type that produces each node output
+	made map[string]string
 }
 
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
 	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}}
+	t.arena = &tensor.Arena{Budget: tensor.MemoryBudget(), Pool: tensor.NewPool(arenaPool)}
+	t.uses, t.made = map[string]int{}, map[string]string{}
 	for i, s := range p.Steps {
 		t.step[s.Node] = i
+		for _, in := range s.Node.Inputs {
+			t.uses[in]++
+		}
+		if s.Node.Domain == "" || s.Node.Domain == "ai.onnx" {
+			for _, o := range s.Node.Outputs {
+				t.made[o] = s.Node.OpType
+			}
+		}
+	}
+	for _, o := range p.Graph.Outputs {
+		t.uses[o.Name]++
 	}
 	t.Reset(nil)
 	return t
@@ -114,6 +134,19 @@ func (r *Result) MissingLines() []string {
 // reached (before the step that produced it runs its VJP), with that step's
 // index; the slice is only valid during the call.
 func (t *Tape) Backward(seed map[string][]float64, value func(step int, name string, g []float64)) (*Result, error) {
+	return t.backward(seed, value, nil)
+}
+
+// BackwardSq is Backward with, instead of each final gradient g, its size
+// and Σ g² (what grad_rms needs): the rules of sqRules take the sum while
+// they read g for their own product, saving a pass over the buffer; for
+// the others it is taken before the rule runs. sq is called once per node
+// output a gradient reached, with the index of the step that produced it.
+func (t *Tape) BackwardSq(seed map[string][]float64, sq func(step int, name string, n int, sumSq float64)) (*Result, error) {
+	return t.backward(seed, nil, sq)
+}
+
+func (t *Tape) backward(seed map[string][]float64, value func(step int, name string, g []float64), sq func(step int, name string, n int, sumSq float64)) (*Result, error) {
 	p := t.plan
 	// a value wants a gradient when it is float and depends on an
 	// initializer or a Constant node's float tensor (parameters too), or a
@@ -157,11 +190,23 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 	}
 	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
 	free := t.free
+	// masks: ReLU rules left to the BatchNormalization below them, by the
+	// BatchNormalization's output (fuseRelu)
+	masks := map[string]pendingMask{}
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
+		if value == nil && sq != nil && t.fuseRelu(n, grads, wants) {
+			g := grads[n.Outputs[0]]
+			delete(grads, n.Outputs[0])
+			masks[n.Inputs[0]] = pendingMask{x: t.vals[n.Inputs[0]].Data.([]float32), step: i, out: n.Outputs[0]}
+			grads[n.Inputs[0]] = g // the mask is applied by the BatchNormalization rule
+			continue
+		}
 		gOut := make([][]float64, len(n.Outputs))
 		any := false
+		// the rule gives Σ G² of its single output (sqRules): reported after it
+		deferSq := sq != nil && len(n.Outputs) == 1 && sqRules[n.OpType] && (n.Domain == "" || n.Domain == "ai.onnx")
 		for j, o := range n.Outputs {
 			if g, ok := grads[o]; ok && o != "" {
 				gOut[j] = g
@@ -169,11 +214,38 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 				if value != nil {
 					value(i, o, g)
 				}
+				if sq != nil && !deferSq {
+					sq(i, o, len(g), sumSq(g))
+				}
 				delete(grads, o)
+			}
+		}
+		// a ReLU above left its mask: the BatchNormalization rule applies it
+		// while reading G, or else it is applied here (unmask)
+		pm, masked := masks[n.Outputs[0]]
+		delete(masks, n.Outputs[0])
+		unmask := func() {
+			if masked && gOut[0] != nil {
+				g := gOut[0]
+				raw := splitSum(len(g), func(lo, hi int) float64 { return reluMaskSq(g[lo:hi], g[lo:hi], pm.x[lo:hi]) })
+				sq(pm.step, pm.out, len(g), raw)
+				masked = false
 			}
 		}
 		if !any {
 			continue
+		}
+		// flushSq reports the deferred sum: the rule's, or taken from G,
+		// which a rule that does not report leaves unchanged
+		flushSq := func(op *Op) {
+			if !deferSq || gOut[0] == nil {
+				return
+			}
+			if op != nil && op.gsqOK {
+				sq(i, n.Outputs[0], len(gOut[0]), op.gsq)
+			} else {
+				sq(i, n.Outputs[0], len(gOut[0]), sumSq(gOut[0]))
+			}
 		}
 		if isParamNode(n) { // a weight given as a Constant node
 			for j, o := range n.Outputs {
@@ -204,10 +276,14 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 			needAny = needAny || need[j]
 		}
 		if !needAny {
+			unmask()
+			flushSq(nil)
 			continue
 		}
 		f, ok := Lookup(n.Domain, n.OpType)
 		if !ok {
+			unmask()
+			flushSq(nil)
 			res.Missing[n.OpType] = append(res.Missing[n.OpType], n.Name)
 			continue
 		}
@@ -220,7 +296,26 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
 		op.alloc, op.allocRaw = free.get, free.getRaw
 		op.memo = t.memo
-		if err := callVJP(f, op); err != nil {
+		op.arena = t.arena
+		op.wantSq = deferSq
+		if masked {
+			if _, ok := in[0].Data.([]float32); ok && n.OpType == "BatchNormalization" && deferSq {
+				op.mask = pm.x
+			} else {
+				unmask()
+			}
+		}
+		err := callVJP(f, op)
+		if op.mask != nil && (err == nil || errors.As(err, new(*noRuleError))) {
+			if !op.rawSqOK {
+				return nil, fmt.Errorf("gradient of node %q (%s): internal error: the ReLU mask was not applied", n.Name, n.OpType)
+			}
+			sq(pm.step, pm.out, len(gOut[0]), op.rawSq)
+		}
+		if err == nil || errors.As(err, new(*noRuleError)) {
+			flushSq(op)
+		}
+		if err != nil {
 			var nr *noRuleError
 			if errors.As(err, &nr) {
 				key := n.OpType + " " + nr.detail
@@ -240,15 +335,21 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 			if g == nil || name == "" {
 				continue
 			}
-			if acc, ok := grads[name]; ok {
-				for k, v := range g {
-					acc[k] += v
-				}
+			if acc, ok := grads[name]; ok { // a value read by several nodes
+				split(len(g), func(lo, hi int) {
+					a := acc[lo:hi]
+					for k, v := range g[lo:hi] {
+						a[k] += v
+					}
+				})
 			} else {
 				grads[name] = g
 			}
 		}
 	}
+	// buffers a kernel drew from the arena without handing them back are
+	// forgotten (the pool keeps only those put back)
+	t.arena.Pool.Recycle(nil, nil)
 	for name, g := range grads {
 		if _, init := p.Graph.Initializers[name]; init {
 			res.Params[name] = g
@@ -259,14 +360,72 @@ func (t *Tape) Backward(seed map[string][]float64, value func(step int, name str
 	return res, nil
 }
 
-// freeList recycles gradient buffers, by length, within a backward pass
-// and from one pass to the next.
+// arenaPool bounds the free float32 buffers the tape's arena keeps
+// (bytes; common practice: a fraction of a typical memory budget).
+const arenaPool = 256 << 20
+
+// pendingMask is a ReLU's rule left to the BatchNormalization that feeds
+// it: the ReLU's float32 input x (the gradient passes where x > 0), and
+// the step and output name under which Σ G² of its output is reported.
+type pendingMask struct {
+	x    []float32
+	step int
+	out  string
+}
+
+// fuseRelu reports a ReLU node whose rule the BatchNormalization rule below
+// it can do in its own pass over G (one pass over the buffer less): a
+// float32 ReLU whose input is a float32 BatchNormalization's output read by
+// it alone, with a gradient at its output and none at its input yet.
+func (t *Tape) fuseRelu(n *loader.Node, grads map[string][]float64, wants map[string]bool) bool {
+	if n.OpType != "Relu" || (n.Domain != "" && n.Domain != "ai.onnx") || len(n.Inputs) != 1 || len(n.Outputs) != 1 {
+		return false
+	}
+	in, out := n.Inputs[0], n.Outputs[0]
+	g, ok := grads[out]
+	if !ok || !wants[in] || t.uses[in] != 1 || t.made[in] != "BatchNormalization" {
+		return false
+	}
+	if _, started := grads[in]; started {
+		return false
+	}
+	x, ok := t.vals[in].Data.([]float32)
+	return ok && len(x) == len(g)
+}
+
+// freeList recycles gradient buffers within a backward pass and from one
+// pass to the next, by capacity: a request takes a free buffer of its
+// exact size, or else the smallest one up to fitSlack times larger (a
+// fresh buffer costs the runtime's zeroing and the first touch of its
+// pages, about 5% of the backward pass of resnet_tiny).
 type freeList struct{ byLen map[int][][]float64 }
 
+// fitSlack bounds the memory a recycled buffer wastes (common practice:
+// a small power of two).
+const fitSlack = 4
+
+// take removes and returns a free buffer for n elements (nil: none fits).
+func (f *freeList) take(n int) []float64 {
+	c := n
+	if len(f.byLen[n]) == 0 {
+		c = 0
+		for k, l := range f.byLen {
+			if len(l) > 0 && k > n && k <= fitSlack*n && (c == 0 || k < c) {
+				c = k
+			}
+		}
+		if c == 0 {
+			return nil
+		}
+	}
+	l := f.byLen[c]
+	b := l[len(l)-1]
+	f.byLen[c] = l[:len(l)-1]
+	return b[:n]
+}
+
 func (f *freeList) get(n int) []float64 {
-	if l := f.byLen[n]; len(l) > 0 {
-		b := l[len(l)-1]
-		f.byLen[n] = l[:len(l)-1]
+	if b := f.take(n); b != nil {
 		clear(b)
 		return b
 	}
@@ -275,15 +434,17 @@ func (f *freeList) get(n int) []float64 {
 
 // getRaw is get without clearing a recycled buffer.
 func (f *freeList) getRaw(n int) []float64 {
-	if l := f.byLen[n]; len(l) > 0 {
-		b := l[len(l)-1]
-		f.byLen[n] = l[:len(l)-1]
+	if b := f.take(n); b != nil {
 		return b
 	}
 	return make([]float64, n)
 }
 
-func (f *freeList) put(b []float64) { f.byLen[len(b)] = append(f.byLen[len(b)], b) }
+func (f *freeList) put(b []float64) {
+	if cap(b) > 0 {
+		f.byLen[cap(b)] = append(f.byLen[cap(b)], b[:cap(b)])
+	}
+}
 
 // aliases reports whether g is (the start of) one of the buffers in gs.
 func aliases(g []float64, gs [][]float64) bool {

@@ -30,7 +30,29 @@ type Op struct {
 	alloc, allocRaw func(n int) []float64
 	// memo, when set, is the tape's store of per-node derived data (Memo).
 	memo map[*loader.Node]any
+	// arena, when set, is the tape's memory for float32 tensors a rule
+	// makes by running a forward kernel (pooled from node to node)
+	arena *tensor.Arena
+	// wantSq asks a rule of sqRules for Σ G² of output 0 (gsq, gsqOK),
+	// taken while it reads G anyway.
+	wantSq bool
+	gsq    float64
+	gsqOK  bool
+	// mask, when set, is the float32 input of a ReLU above this
+	// BatchNormalization whose rule the tape left to it: G is taken as 0
+	// where mask ≤ 0 (or NaN), and Σ G² before the mask goes to rawSq.
+	mask    []float32
+	rawSq   float64
+	rawSqOK bool
 }
+
+// sqRules are the operators whose rule, asked by Op.wantSq, reports Σ G²
+// of output 0 (reportSq) whenever it writes over G; when it does not
+// report, it leaves G unchanged.
+var sqRules = map[string]bool{"Relu": true, "BatchNormalization": true, "Conv": true}
+
+// reportSq records Σ G² of output 0 for the tape's grad_rms.
+func (o *Op) reportSq(s float64) { o.gsq, o.gsqOK = s, true }
 
 // memoize returns what build derives for this node, computed once per tape
 // while valid(v) holds for the stored value (without a tape: every call).

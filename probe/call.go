@@ -48,6 +48,11 @@ func (c *Call) Arena() *tensor.Arena {
 	return c.run.arena
 }
 
+// UseArena makes a call built outside a plan's run (no hook, no plan:
+// the backward pass's own convolutions) allocate its outputs from a, so
+// that the caller can hand them back to a's pool.
+func (c *Call) UseArena(a *tensor.Arena) { c.run = &runState{arena: a} }
+
 // NIn is the number of inputs present (trailing omitted inputs are not counted).
 func (c *Call) NIn() int {
 	n := len(c.In)
