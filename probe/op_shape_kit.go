@@ -165,19 +165,7 @@ func shapeStridedT[T any](dst []T, dOff int, dStr []int, src []T, sOff int, sStr
 				dst[p] = src[q]
 			}
 		}
-		ax := rank - 2
-		for ; ax >= 0; ax-- {
-			idx[ax]++
-			d += dStr[ax]
-			s += sStr[ax]
-			if idx[ax] < dims[ax] {
-				break
-			}
-			d -= dStr[ax] * dims[ax]
-			s -= sStr[ax] * dims[ax]
-			idx[ax] = 0
-		}
-		if ax < 0 {
+		if !shapeNext(idx, dims, dStr, sStr, rank-2, &d, &s) {
 			return
 		}
 	}
@@ -257,4 +245,22 @@ func shapeAxes(axes []int, rank int) ([]int, error) {
 		out[i] = n
 	}
 	return out, nil
+}
+
+// shapeNext advances the index vector idx over dims[:top+1] by one, last
+// axis fastest, moving the offsets d and s by the strides dStr and sStr; it
+// reports false once every index vector has been visited.
+func shapeNext(idx, dims, dStr, sStr []int, top int, d, s *int) bool {
+	for ax := top; ax >= 0; ax-- {
+		idx[ax]++
+		*d += dStr[ax]
+		*s += sStr[ax]
+		if idx[ax] < dims[ax] {
+			return true
+		}
+		*d -= dStr[ax] * dims[ax]
+		*s -= sStr[ax] * dims[ax]
+		idx[ax] = 0
+	}
+	return false
 }

@@ -119,19 +119,7 @@ func shapeEach(dims, dStr, sStr []int, dOff, sOff int, f func(d, s int)) {
 	d, s := dOff, sOff
 	for {
 		f(d, s)
-		ax := len(dims) - 1
-		for ; ax >= 0; ax-- {
-			idx[ax]++
-			d += dStr[ax]
-			s += sStr[ax]
-			if idx[ax] < dims[ax] {
-				break
-			}
-			d -= dStr[ax] * dims[ax]
-			s -= sStr[ax] * dims[ax]
-			idx[ax] = 0
-		}
-		if ax < 0 {
+		if !shapeNext(idx, dims, dStr, sStr, len(dims)-1, &d, &s) {
 			return
 		}
 	}
