@@ -202,12 +202,7 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 				packB(nr, bp, B, pc, kcur, jc, ncur)
 			}
 			// The first k slice applies the caller's beta; later slices accumulate.
-			betaEff, betaZero := beta, 0
-			if pc > 0 {
-				betaEff = 1
-			} else if beta == 0 {
-				betaZero = 1
-			}
+			betaEff, betaZero := sliceBeta(pc, beta)
 			// the first slice of a product with a bias starts from it (the
 			// caller checked the kernel has the bias variants)
 			withBias := pc == 0 && A.bias != nil
@@ -403,4 +398,17 @@ func runOn(w int, kern *kernel, m, n, k int, alpha float32, A, B operand, beta f
 	par.Do(w, j.run)
 	j.A, j.B, j.c = operand{}, operand{}, nil
 	jobPool.Put(j)
+}
+
+// sliceBeta is the beta a k slice starting at pc applies: the caller's for
+// the first slice (betaZero = 1 when it is 0: C is not read), 1 for later
+// slices, which accumulate.
+func sliceBeta(pc int, beta float32) (betaEff float32, betaZero int) {
+	if pc > 0 {
+		return 1, 0
+	}
+	if beta == 0 {
+		return beta, 1
+	}
+	return beta, 0
 }

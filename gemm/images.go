@@ -145,12 +145,7 @@ func gemmRangeImages(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, A operand
 				}
 				packBImages(nr, bp[jr*kcur:(jr+nr)*kcur], b, bl, pc, kcur, jc+jr, nv)
 			}
-			betaEff, betaZero := beta, 0
-			if pc > 0 {
-				betaEff = 1
-			} else if beta == 0 {
-				betaZero = 1
-			}
+			betaEff, betaZero := sliceBeta(pc, beta)
 			withBias := pc == 0 && A.bias != nil
 			for ic := m0; ic < m1; ic += mcMax {
 				mcur := min(mcMax, m1-ic)
