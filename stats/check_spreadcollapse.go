@@ -8,7 +8,7 @@ import (
 
 var spreadCollapseCheck = &Check{
 	Name: "spread-collapse",
-	Doc: "Activation spread (std) shrinking along a plain stack of layers (no normalisation, residual Add, Concat or gating Mul between them), last layer against first. " +
+	Doc: "Activation spread (std) shrinking along a plain stack of layers (no normalisation, global pooling, residual Add, Concat or gating Mul between them), last layer against first. " +
 		"Glorot & Bengio 2010 show the signal vanishing with depth when weights are too small for the activation; He et al. 2015 derive the scale that keeps it (Var[w]=2/fan_in for ReLU).",
 	Defaults: map[string]float64{"spread-collapse.warning": 0.1, "spread-collapse.error": 1e-3, "spread-collapse.min_layers": 3},
 	Run: func(p *Pass) {

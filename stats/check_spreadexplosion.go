@@ -8,7 +8,7 @@ import (
 
 var spreadExplosionCheck = &Check{
 	Name: "spread-explosion",
-	Doc: "Activation spread (std) growing along a plain stack of layers (no normalisation, residual Add, Concat or gating Mul between them), last layer against first. " +
+	Doc: "Activation spread (std) growing along a plain stack of layers (no normalisation, global pooling, residual Add, Concat or gating Mul between them), last layer against first. " +
 		"Glorot & Bengio 2010; He et al. 2015: weights larger than the activation's reference scale make the signal grow geometrically with depth.",
 	Defaults: map[string]float64{"spread-explosion.warning": 10, "spread-explosion.error": 1e3, "spread-explosion.min_layers": 3},
 	Run: func(p *Pass) {

@@ -65,6 +65,12 @@ var normOps = map[string]bool{"BatchNormalization": true, "LayerNormalization": 
 	"GroupNormalization": true, "LRN": true, "MeanVarianceNormalization": true, "RMSNormalization": true,
 	"LpNormalization": true, "SimplifiedLayerNormalization": true}
 
+// globalPoolOps reduce every position of a feature map to one value per
+// channel: a chain of activations ends there, as at a normalisation (the
+// spread of a mean over H·W positions is not comparable with the
+// per-position spread before it).
+var globalPoolOps = map[string]bool{"GlobalAveragePool": true, "GlobalMaxPool": true, "GlobalLpPool": true}
+
 // Finish turns the accumulators into the report model and the structure the checks need.
 func (c *Collector) Finish(source string) *Collected {
 	c.Wait()
@@ -352,7 +358,7 @@ func (c *Collector) oneComposite(readers []*loader.Node) *loader.Node {
 
 // stacks builds chains of activation layers: the predecessor of an activation
 // is the nearest activation upstream along data inputs, unless a normalisation
-// node lies between them.
+// node or a global pooling lies between them.
 func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stack, map[int]int) {
 	weightIdx := map[string]int{}
 	for i, w := range r.Weights {
@@ -391,7 +397,7 @@ func (c *Collector) stacks(layerIdx map[*layerAcc]int, r *report.Report) ([]Stac
 				}
 			}
 			lk.merged = lk.merged || (paths > 1 && cur != la.node)
-			if p == nil || normOps[p.OpType] {
+			if p == nil || normOps[p.OpType] || globalPoolOps[p.OpType] {
 				break
 			}
 			if wi, ok := weightIdx[p.Name]; ok {

@@ -126,3 +126,61 @@ func TestSiLUChainIsPlain(t *testing.T) {
 		t.Fatalf("merged stacks judged: %+v", fs)
 	}
 }
+
+// A global pooling ends a chain, as a normalisation does: the squeeze
+// activation of a squeeze-and-excitation branch (GlobalAveragePool → Conv →
+// Relu → Conv → Sigmoid) holds one value per image and channel, the mean of
+// H·W positions, whose spread is not comparable with the per-position
+// spread of the layer before the pool (averaging P positions divides the
+// variance of what varies between positions by up to P). Glorot & Bengio
+// 2010 and He et al. 2015 follow the signal through linear layers and
+// activations only. Regression: EfficientNet-B0 got a spread-collapse
+// warning comparing its stem activation with an SE squeeze activation.
+func TestStackEndsAtGlobalPool(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	b := modelbuild.New("se-squeeze", 13)
+	b.Input("x", []int{1, 4, 6, 6}, true)
+	conv := func(name, in string, co, ci int) string {
+		w := make([]float32, co*ci)
+		for i := range w {
+			w[i] = float32(rng.NormFloat64() * 0.7)
+		}
+		b.Init("W"+name, []int{co, ci, 1, 1}, w)
+		return b.Node("Conv", name, []string{in, "W" + name}, []string{"o" + name})
+	}
+	a0 := b.Node("Relu", "relu_0", []string{conv("c0", "x", 4, 4)}, []string{"a0"})
+	a := b.Node("Relu", "relu_a", []string{conv("c1", a0, 4, 4)}, []string{"a"})
+	p := b.Node("GlobalAveragePool", "pool", []string{a}, []string{"p"})
+	s := b.Node("Relu", "relu_se", []string{conv("sq", p, 2, 4)}, []string{"s"})
+	g := b.Node("Sigmoid", "gate", []string{conv("ex", s, 4, 2)}, []string{"g"})
+	m := b.Node("Mul", "scale", []string{g, a}, []string{"m"})
+	y := b.Node("Relu", "relu_b", []string{conv("c2", m, 4, 4)}, []string{"y"})
+	b.Output(y)
+	mod, plan := BuildPlan(t, b)
+	c := NewCollector(mod, plan)
+	x := tensor.New(tensor.Float32, []int{8, 4, 6, 6})
+	for i := range x.F32() {
+		x.F32()[i] = float32(rng.NormFloat64())
+	}
+	in := map[string]*tensor.Tensor{"x": x}
+	c.AddInputs(in)
+	if _, err := plan.Run(in, c.Hook); err != nil {
+		t.Fatal(err)
+	}
+	col := c.Finish("file")
+	var got []string
+	for _, st := range col.Stacks {
+		var names []string
+		for _, l := range st.Layers {
+			names = append(names, col.Report.Layers[l].Node)
+		}
+		got = append(got, strings.Join(names, "→"))
+	}
+	all := strings.Join(got, " ")
+	if strings.Contains(all, "→relu_se") {
+		t.Errorf("stacks %v: a chain runs across the global pool into relu_se", got)
+	}
+	if !strings.Contains(all, "relu_0→relu_a→relu_b") {
+		t.Errorf("stacks %v: the signal path relu_0→relu_a→relu_b is missing", got)
+	}
+}
