@@ -248,18 +248,14 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 							}
 							t := bf.tile[:mr*nr]
 							if betaZero == 0 {
-								for i := 0; i < mv; i++ {
-									copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
-								}
+								edgeCopy(t, nr, c, ci, ldc, mv, nv, false)
 							}
 							if withBias {
 								kern.fnStridedBias(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &t[0], nr, alpha, betaEff, betaZero, edgeBias(bf, A.bias, ic+ir, mv, mr))
 							} else {
 								kern.fnStrided(kcur, &ap[ir*kcur], &bsrc[0], B.ld, &t[0], nr, alpha, betaEff, betaZero)
 							}
-							for i := 0; i < mv; i++ {
-								copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
-							}
+							edgeCopy(t, nr, c, ci, ldc, mv, nv, true)
 						}
 						continue
 					}
@@ -275,14 +271,10 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 							}
 							t := bf.tile[:mr*nr]
 							if betaZero == 0 {
-								for i := 0; i < mv; i++ {
-									copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
-								}
+								edgeCopy(t, nr, c, ci, ldc, mv, nv, false)
 							}
 							kern.fnStridedA(kcur, asrc, A.ld, bpp, &t[0], nr, alpha, betaEff, betaZero)
-							for i := 0; i < mv; i++ {
-								copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
-							}
+							edgeCopy(t, nr, c, ci, ldc, mv, nv, true)
 							continue
 						}
 						app := &ap[ir*kcur]
@@ -297,18 +289,14 @@ func gemmRange(kern *kernel, bf *buffers, m0, m1, n0, n1, k int, alpha float32, 
 						// Edge tile: compute into the scratch tile, write back the valid part.
 						t := bf.tile[:mr*nr]
 						if betaZero == 0 {
-							for i := 0; i < mv; i++ {
-								copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
-							}
+							edgeCopy(t, nr, c, ci, ldc, mv, nv, false)
 						}
 						if withBias {
 							kern.fnBias(kcur, app, bpp, &t[0], nr, alpha, betaEff, betaZero, edgeBias(bf, A.bias, ic+ir, mv, mr))
 						} else {
 							fn(kcur, app, bpp, &t[0], nr, alpha, betaEff, betaZero)
 						}
-						for i := 0; i < mv; i++ {
-							copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
-						}
+						edgeCopy(t, nr, c, ci, ldc, mv, nv, true)
 					}
 				}
 			}
@@ -411,4 +399,17 @@ func sliceBeta(pc int, beta float32) (betaEff float32, betaZero int) {
 		return beta, 1
 	}
 	return beta, 0
+}
+
+// edgeCopy moves the mv×nv block of C at c[ci:] (row stride ldc) between C
+// and the scratch tile t (row stride nr) of an edge micro-tile: into C if
+// toC, else out of it (before a kernel call that accumulates into t).
+func edgeCopy(t []float32, nr int, c []float32, ci, ldc, mv, nv int, toC bool) {
+	for i := 0; i < mv; i++ {
+		if toC {
+			copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
+		} else {
+			copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
+		}
+	}
 }

@@ -52,10 +52,7 @@ func SgemmPackedAOffsets(n int, pa *PackedA, b []float32, offs []int, c []float3
 				}
 				packOffs(nr, bp[jr*kcur:(jr+nr)*kcur], b, of, jc+jr, min(nr, ncur-jr))
 			}
-			betaEff, betaZero := float32(1), 0
-			if pc == 0 {
-				betaEff, betaZero = 0, 1
-			}
+			betaEff, betaZero := sliceBeta(pc, 0) // C is only written
 			for ic := 0; ic < m; ic += mcMax {
 				mcur := min(mcMax, m-ic)
 				ap := A.packed[pc*A.padded+ic*kcur : pc*A.padded+(ic+roundUp(mcur, mr))*kcur]
@@ -76,18 +73,14 @@ func SgemmPackedAOffsets(n int, pa *PackedA, b []float32, offs []int, c []float3
 						}
 						t := bf.tile[:mr*nr]
 						if betaZero == 0 {
-							for i := 0; i < mv; i++ {
-								copy(t[i*nr:i*nr+nv], c[ci+i*ldc:ci+i*ldc+nv])
-							}
+							edgeCopy(t, nr, c, ci, ldc, mv, nv, false)
 						}
 						if inPlace {
 							kern.fnOffs(kcur, app, &b[jc+jr], &of[0], &t[0], nr, 1, betaEff, betaZero)
 						} else {
 							kern.fn(kcur, app, &bp[jr*kcur], &t[0], nr, 1, betaEff, betaZero)
 						}
-						for i := 0; i < mv; i++ {
-							copy(c[ci+i*ldc:ci+i*ldc+nv], t[i*nr:i*nr+nv])
-						}
+						edgeCopy(t, nr, c, ci, ldc, mv, nv, true)
 					}
 				}
 			}
