@@ -306,13 +306,14 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 			}
 		}
 		err := callVJP(f, op)
-		if op.mask != nil && (err == nil || errors.As(err, new(*noRuleError))) {
-			if !op.rawSqOK {
-				return nil, fmt.Errorf("gradient of node %q (%s): internal error: the ReLU mask was not applied", n.Name, n.OpType)
+		// ran: the rule ran, or declined this variant with G left unchanged
+		if ran := err == nil || errors.As(err, new(*noRuleError)); ran {
+			if op.mask != nil {
+				if !op.rawSqOK {
+					return nil, fmt.Errorf("gradient of node %q (%s): internal error: the ReLU mask was not applied", n.Name, n.OpType)
+				}
+				sq(pm.step, pm.out, len(gOut[0]), op.rawSq)
 			}
-			sq(pm.step, pm.out, len(gOut[0]), op.rawSq)
-		}
-		if err == nil || errors.As(err, new(*noRuleError)) {
 			flushSq(op)
 		}
 		if err != nil {
