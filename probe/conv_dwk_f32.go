@@ -161,7 +161,7 @@ func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int, zeroed
 		row := x[ih*W : (ih+1)*W]
 		if sw == 2 {
 			base := (r%sh)*2*plane + (r/sh)*Wq
-			dwPhasePairs(phases[base:base+Wq], phases[base+plane:base+plane+Wq], row, pl)
+			phasePairs(phases[base:base+Wq], phases[base+plane:base+plane+Wq], row, pl)
 			continue
 		}
 		for ph := 0; ph < sw; ph++ {
@@ -184,10 +184,12 @@ func dwPhasePlanes(phases, x []float32, H, W, Hq, Wq, sh, sw, pt, pl int, zeroed
 	}
 }
 
-// dwPhasePairs writes one input row into its two column phases (padded
-// column c = iw + pl goes to even[c/2] for even c, odd[c/2] for odd c, none
-// past Wq = len(even)), reading the row once.
-func dwPhasePairs(even, odd, row []float32, pl int) {
+// phasePairs writes one input row into its two column phases for column
+// stride 2 (padded column c = iw + pl goes to even[c/2] for even c,
+// odd[c/2] for odd c, none past Wq = len(even)), reading the row once; the
+// other columns are left as they are (the depthwise planes and the
+// implicit GEMM's padded planes, padPairs, both use it).
+func phasePairs(even, odd, row []float32, pl int) {
 	Wq, W := len(even), len(row)
 	iw := 0
 	if pl%2 == 1 {

@@ -191,7 +191,6 @@ func (q *im2colPanels) padPairs(d, src []float32, a int, g *convGeom) {
 	plane := q.Hq * q.Wq
 	e0, e1 := convValidRange(q.Wq, 2, -pl, W)  // phase 0 columns: input 2j − pl
 	o0, o1 := convValidRange(q.Wq, 2, 1-pl, W) // phase 1 columns: input 2j + 1 − pl
-	lo, hi := max(e0, o0), min(e1, o1)         // both in the image
 	for r := 0; r < q.Hq; r++ {
 		r0 := d[r*q.Wq : (r+1)*q.Wq]
 		r1 := d[plane+r*q.Wq : plane+(r+1)*q.Wq]
@@ -201,31 +200,11 @@ func (q *im2colPanels) padPairs(d, src []float32, a int, g *convGeom) {
 			clear(r1)
 			continue
 		}
-		in := src[ih*W : (ih+1)*W]
 		clear(r0[:e0])
 		clear(r0[e1:])
 		clear(r1[:o0])
 		clear(r1[o1:])
-		if lo < hi {
-			s := in[2*lo-pl : 2*hi-pl]
-			a0, a1 := r0[lo:hi], r1[lo:hi]
-			a1 = a1[:len(a0)]
-			for j := range a0 {
-				a0[j], a1[j] = s[2*j], s[2*j+1]
-			}
-		}
-		for j := e0; j < min(lo, e1); j++ {
-			r0[j] = in[2*j-pl]
-		}
-		for j := max(hi, e0); j < e1; j++ {
-			r0[j] = in[2*j-pl]
-		}
-		for j := o0; j < min(lo, o1); j++ {
-			r1[j] = in[2*j+1-pl]
-		}
-		for j := max(hi, o0); j < o1; j++ {
-			r1[j] = in[2*j+1-pl]
-		}
+		phasePairs(r0, r1, src[ih*W:(ih+1)*W], pl)
 	}
 }
 
