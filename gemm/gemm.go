@@ -160,11 +160,20 @@ func (p *PackedB) Cols() int { return p.n }
 // for each kc-deep slice of k, the m rows (padded to a multiple of MR) as
 // MR-tall micro-panels, each stored k step by k step.
 func PackA(transA bool, m, k int, a []float32, lda int) *PackedA {
+	return PackAInto(nil, transA, m, k, a, lda)
+}
+
+// PackAInto is PackA reusing p's storage when it is large enough (p may be
+// nil): for callers that pack a new A of similar size many times.
+func PackAInto(p *PackedA, transA bool, m, k int, a []float32, lda int) *PackedA {
 	checkDims(m, 0, k, 0, 0)
 	checkOperand("A", transA, m, k, a, lda)
 	kern := active.Load()
 	mp := roundUp(m, kern.mr)
-	p := &PackedA{kern: kern, m: m, k: k, data: pages.Float32s(mp * k)}
+	if p == nil || cap(p.data) < mp*k {
+		p = &PackedA{data: pages.Float32s(mp * k)}
+	}
+	p.kern, p.m, p.k, p.data = kern, m, k, p.data[:mp*k]
 	src := operand{data: a, ld: lda, trans: transA}
 	kc := kern.kcFor(k)
 	for pc := 0; pc < k; pc += kc {

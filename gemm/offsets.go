@@ -97,3 +97,13 @@ func packOffs(nr int, panel, b []float32, of []int, j0, nv int) {
 		clear(d[nv:])
 	}
 }
+
+// OffsetsWidth is the number of columns SgemmPackedAOffsets reads in place
+// per micro-panel (0 when the active kernel packs every panel): a product
+// narrower than this packs B after all.
+func OffsetsWidth() int {
+	if k := active.Load(); k.fnOffs != nil {
+		return k.nr
+	}
+	return 0
+}

@@ -2,6 +2,7 @@ package grad
 
 import (
 	"runtime"
+	"sync"
 
 	"github.com/vitals-health/vitals/gemm"
 	"github.com/vitals-health/vitals/internal/par"
@@ -60,13 +61,28 @@ func convDW(win *window, N, C, M, G int, x, g32 []float32, gw []float64) {
 		}
 		incr(idx, win.k)
 	}
+	// zeros: the padded grid's positions that hold no input value
+	isIn := make([]bool, Ip)
+	for _, q := range padAt {
+		isIn[q] = true
+	}
+	var zeros []int
+	for q, in := range isIn {
+		if !in {
+			zeros = append(zeros, q)
+		}
+	}
 	xp := scratch(N * Ip * C)
 	defer release(xp)
 	split(N*C*I, func(lo, hi int) {
 		for n := (lo + C*I - 1) / (C * I); n < N && n*C*I < hi; n++ {
-			padChannelLast(xp[n*Ip*C:(n+1)*Ip*C], x[n*C*I:(n+1)*C*I], C, I, padAt)
+			padChannelLast(xp[n*Ip*C:(n+1)*Ip*C], x[n*C*I:(n+1)*C*I], C, I, padAt, zeros)
 		}
 	})
+	if w := gemm.OffsetsWidth(); G == 1 && win.dil[nd-1] == 1 && w > 0 && win.k[nd-1]*C >= w && !dwPackAlways {
+		dwRows(win, N, C, M, Ip, origin, tapOff, xp, g32, gw)
+		return
+	}
 	// samples in chunks of dwChunk, each chunk's products summed in its own
 	// float32 block, the blocks added in float64 in chunk order: the same
 	// result for any number of workers
@@ -142,19 +158,96 @@ func convDW(win *window, N, C, M, G int, x, g32 []float32, gw []float64) {
 	}
 }
 
+// packedAPool keeps dwRows' packed A storage from call to call.
+var packedAPool sync.Pool
+
+// dwPackAlways makes every convolution take the packing path (tests and
+// benchmarks compare the two).
+var dwPackAlways = false
+
 // dwChunk is the number of samples whose products one float32 block sums.
 const dwChunk = 8
+
+// dwRows is convDW for one group whose taps along the last axis are
+// adjacent (dilation 1 there): for a tap row r (the taps that share every
+// index but the last), the kw·C columns (kx, c) of B start at one offset,
+//
+//	B_r[(n, p), kx·C + c] = x̃[(n·Ip + origin(p) + tapOff[r·kw])·C + kx·C + c],
+//
+// so each row of B is one contiguous run of the channel-last copy and
+// gemm.SgemmPackedAOffsets reads B in place through a table of row
+// offsets: nothing is packed but A. A chunk of dwChunk samples is one
+// product per tap row with k = samples·P, A = G [M, (n, p)] gathered from
+// the chunk's samples and packed once for all tap rows. Chunks run on the
+// workers, each product on one; each chunk's float32 blocks are added to
+// dL/dW in float64 in chunk order (the result does not depend on the
+// number of workers). The float32 sums run over dwChunk·P terms, as in
+// the packing path.
+func dwRows(win *window, N, C, M, Ip int, origin, tapOff []int, xp, g32 []float32, gw []float64) {
+	K, P := win.K, win.P
+	kw := win.k[len(win.k)-1]
+	rows, cols := K/kw, kw*C
+	chunks := (N + dwChunk - 1) / dwChunk
+	blk := rows * M * cols // a chunk's blocks: [r][m][kx·C + c]
+	dws := scratch(chunks * blk)
+	defer release(dws)
+	workers := max(1, min(runtime.GOMAXPROCS(0), chunks))
+	par.Do(workers, func(part int) {
+		pa, _ := packedAPool.Get().(*gemm.PackedA)
+		defer func() { packedAPool.Put(pa) }()
+		a := scratch(M * dwChunk * P)
+		defer release(a)
+		offs := make([]int, dwChunk*P)
+		for ch := part; ch < chunks; ch += workers {
+			n0, n1 := ch*dwChunk, min(N, (ch+1)*dwChunk)
+			kk := (n1 - n0) * P
+			// A[m, (n−n0)·P + p] = G[n, m, p]
+			for m := 0; m < M; m++ {
+				for n := n0; n < n1; n++ {
+					copy(a[m*kk+(n-n0)*P:m*kk+(n-n0+1)*P], g32[(n*M+m)*P:(n*M+m+1)*P])
+				}
+			}
+			pa = gemm.PackAInto(pa, false, M, kk, a[:M*kk], kk)
+			dw := dws[ch*blk : (ch+1)*blk]
+			for r := 0; r < rows; r++ {
+				for n := n0; n < n1; n++ {
+					for p, o := range origin {
+						offs[(n-n0)*P+p] = (n*Ip + o + tapOff[r*kw]) * C
+					}
+				}
+				gemm.SgemmPackedAOffsets(cols, pa, xp, offs[:kk], dw[r*M*cols:(r+1)*M*cols], cols)
+			}
+		}
+	})
+	for ch := 0; ch < chunks; ch++ {
+		dw := dws[ch*blk : (ch+1)*blk]
+		for r := 0; r < rows; r++ {
+			for m := 0; m < M; m++ {
+				src := dw[(r*M+m)*cols : (r*M+m+1)*cols]
+				for kx := 0; kx < kw; kx++ {
+					t := r*kw + kx
+					for c, v := range src[kx*C : (kx+1)*C] {
+						gw[(m*C+c)*K+t] += float64(v)
+					}
+				}
+			}
+		}
+	}
+}
 
 // dwSeg is a run of l panel columns from j whose sources start at off
 // (from an output position's first tap on the padded grid).
 type dwSeg struct{ j, off, l int }
 
 // padChannelLast writes one sample x [C, I] channel-last onto the padded
-// grid dst [Ip, C] (zeros off the input), input position i at padAt[i]:
-// 8×8 tiles (8 channels of 8 positions) read as 8 runs along the positions
-// and written as 8 runs along the channels, the rest one by one.
-func padChannelLast(dst, x []float32, C, I int, padAt []int) {
-	clear(dst)
+// grid dst [Ip, C], input position i at padAt[i] and zeros at the
+// positions listed in zeros (every other one): 8×8 tiles (8 channels of 8
+// positions) read as 8 runs along the positions and written as 8 runs
+// along the channels, the rest one by one.
+func padChannelLast(dst, x []float32, C, I int, padAt, zeros []int) {
+	for _, q := range zeros {
+		clear(dst[q*C : (q+1)*C])
+	}
 	i8, c8 := I/8*8, C/8*8
 	var t [8][8]float32
 	for i0 := 0; i0 < i8; i0 += 8 {

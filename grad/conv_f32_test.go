@@ -1,6 +1,7 @@
 package grad
 
 import (
+	"fmt"
 	"math"
 	"math/rand"
 	"runtime"
@@ -43,6 +44,11 @@ func TestConvF32MatchesF64(t *testing.T) {
 		{name: "stride3-dilation2-1d", attrs: []*loader.Attr{ias("strides", 3), ias("dilations", 2), ias("pads", 3, 1)}, in: []*tensor.Tensor{f32(2, 3, 17), f32(4, 3, 5)}},
 		{name: "stride4-kernel2", attrs: []*loader.Attr{ias("strides", 4, 1)}, in: []*tensor.Tensor{f32(2, 3, 11, 5), f32(4, 3, 2, 2)}},
 		{name: "channels17-tails", attrs: []*loader.Attr{ias("pads", 1, 2, 1, 0)}, in: []*tensor.Tensor{f32(2, 17, 7, 5), f32(9, 17, 3, 3)}},
+		// ≥ 16 channels: dW through the row-table product (dwRows), over
+		// several chunks of samples, in 1, 2 and 3 spatial dimensions
+		{name: "rows-stride2-chunks", attrs: []*loader.Attr{ias("strides", 2, 2), ias("pads", 1, 0, 2, 1)}, in: []*tensor.Tensor{f32(2*dwChunk+3, 16, 9, 8), f32(5, 16, 3, 3), f32(5)}},
+		{name: "rows-1d", attrs: []*loader.Attr{ias("strides", 2), ias("pads", 1, 1)}, in: []*tensor.Tensor{f32(3, 20, 13), f32(6, 20, 3)}},
+		{name: "rows-3d-dilated", attrs: []*loader.Attr{ias("dilations", 2, 1, 1), ias("pads", 1, 0, 1, 1, 1, 0)}, in: []*tensor.Tensor{f32(2, 16, 6, 5, 4), f32(3, 16, 2, 2, 3)}},
 		{name: "1x1-stride2", attrs: []*loader.Attr{ias("strides", 2, 2)}, in: []*tensor.Tensor{f32(3, 4, 9, 8), f32(5, 4, 1, 1)}},
 	} {
 		c.op, c.opset = "Conv", 11
@@ -209,4 +215,45 @@ func TestConvDWSameForAnyWorkers(t *testing.T) {
 	if e := relErr(one, ref, 0); e > 1e-5 || math.IsNaN(e) {
 		t.Errorf("dW: relative error %.2e against the float64 path", e)
 	}
+}
+
+// BenchmarkConvDW: dL/dW of a 3×3 convolution (pad 1) on a batch of 64
+// samples of 32×32 planes, through the row-table product and through the
+// packing path.
+func BenchmarkConvDW(b *testing.B) {
+	for _, sh := range []struct{ C, M, H int }{{16, 16, 32}, {32, 32, 16}, {64, 64, 8}} {
+		r := rand.New(rand.NewSource(3))
+		N := 64
+		x := make([]float32, N*sh.C*sh.H*sh.H)
+		g := make([]float32, N*sh.M*sh.H*sh.H)
+		for i := range x {
+			x[i] = float32(r.NormFloat64())
+		}
+		for i := range g {
+			g[i] = float32(r.NormFloat64())
+		}
+		win := newWindowFor(b, N, sh.C, sh.H, sh.M)
+		gw := make([]float64, sh.M*sh.C*9)
+		for _, packed := range []bool{false, true} {
+			name := fmt.Sprintf("C%d-M%d-%dx%d/rows", sh.C, sh.M, sh.H, sh.H)
+			if packed {
+				name = name[:len(name)-4] + "packed"
+			}
+			b.Run(name, func(b *testing.B) {
+				dwPackAlways = packed
+				defer func() { dwPackAlways = false }()
+				for i := 0; i < b.N; i++ {
+					convDW(win, N, sh.C, sh.M, 1, x, g, gw)
+				}
+			})
+		}
+	}
+}
+
+// newWindowFor is the window of a 3×3 convolution with padding 1 on H×H
+// planes (same output size).
+func newWindowFor(_ testing.TB, _, _, H, _ int) *window {
+	w := &window{in: []int{H, H}, out: []int{H, H}, k: []int{3, 3}, stride: []int{1, 1}, dil: []int{1, 1}, padBeg: []int{1, 1}}
+	fillTaps(w)
+	return w
 }
