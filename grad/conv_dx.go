@@ -220,6 +220,7 @@ func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, ar
 	for i := range cd.phases {
 		ph := &cd.phases[i]
 		c := &probe.Call{Node: ph.node, In: []*tensor.Tensor{gt, ph.wt}, Out: make([]*tensor.Tensor, 1), Opset: 11}
+		c.ConstInput(1) // ph.wt is kept with the node's memo
 		if arena != nil {
 			c.UseArena(arena)
 		}

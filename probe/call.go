@@ -28,6 +28,20 @@ type Call struct {
 	// resizeTables, when set, asks Resize and Upsample for their tap tables
 	// instead of their output (ResizeTables)
 	resizeTables *[]*ResizeTable
+	// constIn marks inputs a caller outside a plan keeps unchanged for the
+	// tensor's life (ConstInput), like an initializer
+	constIn uint64
+}
+
+// ConstInput tells the kernel that input i (i < 64) stays unchanged for
+// as long as its tensor lives, as an initializer does, so that packings of
+// it may be cached and the paths that need such weights taken: for calls
+// built outside a plan (the backward pass's convolutions, whose reordered
+// weights are kept from batch to batch).
+func (c *Call) ConstInput(i int) {
+	if i < 64 {
+		c.constIn |= 1 << i
+	}
 }
 
 // Observing reports whether the run has a hook, so that a kernel may hand it

@@ -19,6 +19,9 @@ import (
 // plan's initializer tensors (immutable for the plan's lifetime), read
 // directly or passed on unchanged (Identity).
 func (c *Call) isInitializer(i int) bool {
+	if i < 64 && c.constIn&(1<<i) != 0 && i < len(c.In) && c.In[i] != nil {
+		return true
+	}
 	if c.run == nil || c.run.plan == nil || i >= len(c.In) || c.In[i] == nil {
 		return false
 	}
