@@ -222,6 +222,9 @@ type layerAcc struct {
 	// marks a layer some other layer is sameAs, whose batch result is then
 	// kept in last.
 	sameAs   *layerAcc
+	// scaleOf is the observed layer this one is 2^scaleExp times (scaled.go)
+	scaleOf  *layerAcc
+	scaleExp int
 	keepLast bool
 	last     lastBatch
 	batches  int64 // observe calls so far (one per batch)
@@ -500,6 +503,14 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 			la.sameAs, src.keepLast = src, true
 		}
 	}
+	for _, la := range c.layers {
+		if la.sameAs != nil || la.act.hasSat || c.perChanWanted[la.output] {
+			continue
+		}
+		if src, k, ok := c.scaledSource(g, la); ok {
+			la.scaleOf, la.scaleExp, src.keepLast = src, k, true
+		}
+	}
 	c.tf = newTFObserver(c)
 	return c
 }
@@ -651,6 +662,15 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 	// those counts are the ones a count on the new grid would give; otherwise
 	// (first batch, or a batch that widens the range) the batch is counted
 	// again on the new grid.
+	if !c.reuseScaled(la, x) {
+		c.passBatch(la, t, x)
+	}
+	la.unitStats(t, x)
+}
+
+// passBatch folds one batch into la by the fused pass (the statistics of
+// the whole tensor and its histogram counts).
+func (c *Collector) passBatch(la *layerAcc, t *tensor.Tensor, x []float32) {
 	p := passParams{}
 	p.satLo, p.satHi = la.act.satBounds()
 	hadGrid := la.hist.Counts != nil
@@ -683,6 +703,11 @@ func (c *Collector) observe(la *layerAcc, t *tensor.Tensor) {
 		la.sat += r.sat
 		la.satN += int64(len(x))
 	}
+}
+
+// unitStats folds one batch into an activation layer's per-unit
+// statistics (units never positive, a gate unit's range).
+func (la *layerAcc) unitStats(t *tensor.Tensor, x []float32) {
 	if la.act.kind != ActNone && t.Rank() > 0 {
 		axis := t.Rank() - 1
 		if la.unitKind == 1 || (la.unitKind == 0 && t.Rank() >= 3) {
