@@ -221,7 +221,7 @@ type layerAcc struct {
 	// unchanged (Reshape, Transpose and the like: sameValueOps); keepLast
 	// marks a layer some other layer is sameAs, whose batch result is then
 	// kept in last.
-	sameAs   *layerAcc
+	sameAs *layerAcc
 	// scaleOf is the observed layer this one is 2^scaleExp times (scaled.go)
 	scaleOf  *layerAcc
 	scaleExp int
