@@ -349,18 +349,6 @@ func SgemmPackedB(transA bool, m int, alpha float32, a []float32, lda int, pb *P
 	multiply(Threads(), pb.kern, m, n, k, alpha, operand{data: a, ld: lda, trans: transA}, pb.operand(), beta, c, ldc)
 }
 
-// SgemmPackedBSerial is SgemmPackedB on the calling goroutine only, for
-// callers that split a product by rows themselves (a fused epilogue on
-// each row block while it is in cache). Every element of C gets the same
-// micro-kernel calls as in SgemmPackedB when the rows are cut at multiples
-// of the kernel's MR and no block has 16 rows or fewer (the streaming kernel's range).
-func SgemmPackedBSerial(transA bool, m int, alpha float32, a []float32, lda int, pb *PackedB, beta float32, c []float32, ldc int) {
-	k, n := pb.k, pb.n
-	checkDims(m, n, k, ldc, len(c))
-	checkOperand("A", transA, m, k, a, lda)
-	multiply(1, pb.kern, m, n, k, alpha, operand{data: a, ld: lda, trans: transA}, pb.operand(), beta, c, ldc)
-}
-
 // operand is pa as the left operand of a product.
 func (pa *PackedA) operand() operand {
 	return operand{packed: pa.data, padded: roundUp(pa.m, pa.kern.mr)}

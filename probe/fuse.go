@@ -40,8 +40,6 @@ type fusedAct struct {
 	// sigFirst: the Mul reads the sigmoid first (Mul(s, x)); the operands keep
 	// their order so that even a NaN's payload is the Mul kernel's
 	sigFirst bool
-	// chain, when not nil, is a MatMul's bias Add and GELU (fuse_matmul.go)
-	chain *matChain
 }
 
 // alloc creates the fused outputs for a producer output of the given shape
@@ -69,7 +67,7 @@ func (f *fusedAct) siluF32(dst, src []float32) {
 }
 
 // fuseProducers lists the operators whose kernels honour Call.fuse.
-var fuseProducers = map[string]bool{"Conv": true, "MatMul": true}
+var fuseProducers = map[string]bool{"Conv": true}
 
 // fusableActs maps an activation operator (one marked Fusable in the one
 // list of activation operators, internal/actkind) to the float32 function its own
@@ -145,7 +143,7 @@ func (p *Plan) markFusions() {
 		}
 	}
 	for i := range p.Steps {
-		p.Steps[i].fuseWith, p.Steps[i].fuseMul, p.Steps[i].fuseChain = -1, -1, nil
+		p.Steps[i].fuseWith, p.Steps[i].fuseMul = -1, -1
 	}
 	for i := range p.Steps {
 		s := &p.Steps[i]
@@ -154,10 +152,6 @@ func (p *Plan) markFusions() {
 		}
 		v := s.Node.Outputs[0]
 		if v == "" || producedAt[v] != i {
-			continue
-		}
-		if s.Node.OpType == "MatMul" {
-			p.markMatMulChain(i, v, readers)
 			continue
 		}
 		if j, k, ok := p.siluAfter(v, i, readers); ok {
@@ -211,9 +205,6 @@ func (p *Plan) siluAfter(v string, i int, readers map[string][]int) (j, k int, o
 // fuseFor prepares the fusion of step i's activation (nil when there is
 // none or its kernel must run): its call with inputs resolved from env.
 func (p *Plan) fuseFor(i int, env *Scope, parent *Call) *fusedAct {
-	if len(p.Steps[i].fuseChain) > 0 {
-		return p.chainFor(i, env, parent)
-	}
 	j := p.Steps[i].fuseWith
 	if j < 0 {
 		return nil

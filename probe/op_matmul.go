@@ -141,7 +141,7 @@ func matMulKernel(c *Call) error {
 		return fmt.Errorf("MatMul needs inputs of rank ≥ 1, got %v and %v", a.Shape, b.Shape)
 	}
 	if av, ok := a.Data.([]float32); ok && b.Rank() == 2 && b.DType == a.DType && c.isInitializer(1) && !linGemmReference {
-		if out, ok := matMulPackedB(c.Arena(), a, av, b, c.fuse); ok {
+		if out, ok := matMulPackedB(c.Arena(), a, av, b); ok {
 			c.Set(0, out)
 			return nil
 		}
@@ -337,10 +337,7 @@ func gemmKernel(c *Call) error {
 // matMulPackedB is MatMul with a constant 2-D B ([k, n]) packed once: A's
 // leading dimensions fold into the rows of one product. ok is false when the
 // shapes do not fit (the general path then reports the error).
-//
-// f, when it carries a fused bias Add (and GELU) that fits the product's
-// shape, has them computed too (matMulChain).
-func matMulPackedB(ar *tensor.Arena, a *tensor.Tensor, ad []float32, b *tensor.Tensor, f *fusedAct) (*tensor.Tensor, bool) {
+func matMulPackedB(ar *tensor.Arena, a *tensor.Tensor, ad []float32, b *tensor.Tensor) (*tensor.Tensor, bool) {
 	k, n := b.Shape[0], b.Shape[1]
 	if a.Rank() < 1 || a.Shape[a.Rank()-1] != k || k == 0 || n == 0 {
 		return nil, false
@@ -353,14 +350,6 @@ func matMulPackedB(ar *tensor.Arena, a *tensor.Tensor, ad []float32, b *tensor.T
 	}
 	res := ar.NewUninit(tensor.Float32, []int{total}) // the product (beta 0) writes every element
 	out := res.F32()
-	if f != nil && f.chain != nil && f.chain.fits(outShape) {
-		var pb *gemm.PackedB
-		if rows > 0 && gemm.PackAhead(rows, false) && packRoom(b) {
-			pb = packedRight(b, b.F32(), false, k, n, n)
-		}
-		matMulChain(ar, f.chain, outShape, ad, k, pb, b.F32(), out, rows, n)
-		return tensor.From(out, outShape...), true
-	}
 	switch {
 	case rows == 0:
 	case gemm.PackAhead(rows, false) && packRoom(b):

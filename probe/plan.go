@@ -61,9 +61,6 @@ type Step struct {
 	// fuseMul is the Mul step of a SiLU (x·sigmoid(x), fuseWith being the
 	// Sigmoid) this step may compute too, or −1.
 	fuseMul int
-	// fuseChain are the steps a MatMul may compute too (fuse_matmul.go): its
-	// bias Add, then the erf GELU's five steps when present.
-	fuseChain []int
 }
 
 // UnsupportedError lists the operators that have no kernel, one entry per
@@ -453,14 +450,7 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 			if err := p.call(s, c); err != nil {
 				return nil, err
 			}
-			if f := c.fuse; f != nil && f.chain != nil && f.chain.outs != nil {
-				if fused == nil {
-					fused = map[int]*tensor.Tensor{}
-				}
-				for k, j := range f.chain.steps {
-					fused[j] = f.chain.outs[k]
-				}
-			} else if c.fuse != nil && c.fuse.out != nil {
+			if c.fuse != nil && c.fuse.out != nil {
 				if fused == nil {
 					fused = map[int]*tensor.Tensor{}
 				}
