@@ -210,9 +210,9 @@ func ones64(n int) []int64 {
 	return s
 }
 
-// apply writes dX into gx (every element), gu being the output gradient
-// [N, M, out...] in float32.
-func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, arena *tensor.Arena) error {
+// applyDX writes dX into gx (every element, float64 or float32), gu being
+// the output gradient [N, M, out...] in float32.
+func applyDX[T float32 | float64](cd *convDX, win *window, N, C, M int, gu []float32, gx []T, arena *tensor.Arena) error {
 	gt := tensor.From(gu, append([]int{N, M}, win.out...)...)
 	if !cd.cover {
 		clear(gx)
@@ -238,7 +238,7 @@ func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, ar
 		if ph.at == nil {
 			split(len(gx), func(lo, hi int) {
 				for i := lo; i < hi; i++ {
-					gx[i] = float64(y[i])
+					gx[i] = T(y[i])
 				}
 			})
 			continue
@@ -251,13 +251,13 @@ func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, ar
 					for jr := 0; jr < ph.rows; jr++ {
 						d := dst[ph.at[jr*cols]:]
 						for jc, v := range src[jr*cols : (jr+1)*cols] {
-							d[jc*ph.step] = float64(v)
+							d[jc*ph.step] = T(v)
 						}
 					}
 					continue
 				}
 				for q, at := range ph.at {
-					dst[at] = float64(src[q])
+					dst[at] = T(src[q])
 				}
 			}
 		})

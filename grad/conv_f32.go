@@ -92,7 +92,10 @@ var convChunk = 1 << 21
 // GEMM: direct loops over the taps' runs, channels split over the workers.
 //
 //	dW[c, t] = Σ_n Σ_p G[n, c, p]·x[n, c, tap(p, t)],  dX[n, c, tap(p, t)] += W[c, t]·G[n, c, p]
-func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
+//
+// G and dX are float64 or float32 (grad32.go); the products and dW's sums
+// are taken in float64 either way.
+func depthwiseF32[T float32 | float64](win *window, N, C int, x, w []float32, g, gx []T, gw []float64) {
 	K, P, I := win.K, win.P, win.I
 	split(C*P*K*N, func(lo, hi int) {
 		per := P * K * N
@@ -103,7 +106,7 @@ func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
 			for n := 0; n < N; n++ {
 				gp := g[(n*C+c)*P : (n*C+c+1)*P]
 				xc := x[(n*C+c)*I : (n*C+c+1)*I]
-				var dx []float64
+				var dx []T
 				if gx != nil {
 					dx = gx[(n*C+c)*I : (n*C+c+1)*I]
 				}
@@ -117,9 +120,9 @@ func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
 						gr := gp[r.p : r.p+r.n]
 						for i, v := range gr {
 							j := r.off + i*r.step
-							s += v * float64(xc[j])
+							s += float64(v) * float64(xc[j])
 							if dx != nil {
-								dx[j] += wt * v
+								dx[j] += T(wt * float64(v))
 							}
 						}
 					}

@@ -19,6 +19,18 @@ type Op struct {
 	// GIn[i] is dL/d(input i), allocated by Grad; nil for inputs that take
 	// no gradient (absent, not float, or not depending on a parameter).
 	GIn [][]float64
+	// GOut32 and GIn32 are GOut and GIn held in float32 (grad32.go): each
+	// output's gradient comes in one of GOut[j], GOut32[j] (G and G32 make
+	// the other from it), each input's goes to one of GIn[i], GIn32[i].
+	GOut32 [][]float32
+	GIn32  [][]float32
+	// f32 lets a rule of rules32 give float32 inputs float32 gradients
+	// (set by the tape; a rule called without it gives float64 ones)
+	f32 bool
+	// alloc32 and allocRaw32 are alloc and allocRaw for float32 buffers;
+	// widened counts the float32 gradients a rule read as float64
+	alloc32, allocRaw32 func(n int) []float32
+	widened             *int
 	// need[i] reports whether input i wants a gradient.
 	need []bool
 	xs   map[int][]float64
@@ -113,7 +125,7 @@ func Ops() []string {
 // NewOp prepares a node for its VJP: forward inputs and outputs, the output
 // gradients, and which inputs want a gradient (nil need: every float input).
 func NewOp(c *probe.Call, gOut [][]float64, need []bool) *Op {
-	o := &Op{Call: c, GOut: gOut, GIn: make([][]float64, len(c.In)), need: need}
+	o := &Op{Call: c, GOut: gOut, GIn: make([][]float64, len(c.In)), GIn32: make([][]float32, len(c.In)), need: need}
 	if o.need == nil {
 		o.need = make([]bool, len(c.In))
 		for i, t := range c.In {
@@ -204,10 +216,20 @@ func (o *Op) Y(j int) []float64 {
 }
 
 // G is dL/d(output j); a zero slice of the output's size when no gradient
-// reached it.
+// reached it. A float32 gradient is widened (once: it becomes GOut[j]).
 func (o *Op) G(j int) []float64 {
 	if j < len(o.GOut) && o.GOut[j] != nil {
 		return o.GOut[j]
+	}
+	if j < len(o.GOut32) && o.GOut32[j] != nil {
+		// GOut32[j] stays: the tape recycles both
+		g := o.raw64(len(o.GOut32[j]))
+		widen(g, o.GOut32[j])
+		o.GOut[j] = g
+		if o.widened != nil {
+			*o.widened++
+		}
+		return g
 	}
 	return make([]float64, o.Out[j].Size())
 }

@@ -1,0 +1,241 @@
+package grad
+
+import (
+	"math"
+	"math/rand"
+	"path/filepath"
+	"testing"
+
+	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/probe"
+	"github.com/vitals-health/vitals/tensor"
+)
+
+// f32Tensor is a float32 tensor of rnd's values (normal, ≥ 0.01 from 0).
+func f32Tensor(r *rand.Rand, shape ...int) *tensor.Tensor {
+	x := F64(rnd(r, shape...))
+	y := make([]float32, len(x))
+	for i, v := range x {
+		y[i] = float32(v)
+	}
+	return tensor.From(y, shape...)
+}
+
+func widened(g []float32) []float64 {
+	w := make([]float64, len(g))
+	widen(w, g)
+	return w
+}
+
+// TestRules32MatchF64: every rule of rules32 with a float32 G and float32
+// gradients (Op.f32) against its float64 path (forceF64 for Conv and Gemm,
+// whose float32 products are otherwise taken in both), on random float32
+// inputs: relative error ‖g₃₂ − g₆₄‖/‖g₆₄‖ ≤ 1e-5 for every input's
+// gradient. Bound: each element of a float32 gradient is rounded once per
+// rule (2⁻²⁴ ≈ 6e-8) after sums of at most n ≤ 300 float32 products
+// (convolution taps × channels), whose error grows as √n·2⁻²⁴ ≈ 1e-6. The
+// float32 path must be taken: the activation input's gradient is float32.
+func TestRules32MatchF64(t *testing.T) {
+	r := rand.New(rand.NewSource(32))
+	f := func(shape ...int) *tensor.Tensor { return f32Tensor(r, shape...) }
+	f3 := func(shape ...int) *tensor.Tensor { // spread over the kinks at ±3
+		x := f32Tensor(r, shape...)
+		for i := range x.F32() {
+			x.F32()[i] *= 3
+		}
+		return x
+	}
+	posF := func(shape ...int) *tensor.Tensor {
+		p := F64(pos(r, shape...))
+		y := make([]float32, len(p))
+		for i, v := range p {
+			y[i] = float32(v)
+		}
+		return tensor.From(y, shape...)
+	}
+	cases := []struct {
+		fdCase
+		need []bool
+	}{
+		{fdCase: fdCase{name: "conv-same3x3-bias", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(3, 8, 9, 7), f(6, 8, 3, 3), f(6)}}},
+		{fdCase: fdCase{name: "conv-stride2", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(2, 16, 10, 9), f(5, 16, 3, 3)}}},
+		{fdCase: fdCase{name: "conv-depthwise", op: "Conv", opset: 11, attrs: []*loader.Attr{ia("group", 6), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(3, 6, 7, 6), f(6, 1, 3, 3), f(6)}}},
+		{fdCase: fdCase{name: "conv-pad-beyond-span", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("pads", 3, 0, 0, 1)}, in: []*tensor.Tensor{f(2, 3, 5, 5), f(4, 3, 2, 2)}}},
+		{fdCase: fdCase{name: "bn", op: "BatchNormalization", opset: 11, in: []*tensor.Tensor{f(3, 5, 6, 7), f(5), f(5), f(5), posF(5)}}, need: []bool{true, true, true, false, false}},
+		{fdCase: fdCase{name: "relu", op: "Relu", opset: 14, in: []*tensor.Tensor{f(4, 3, 5, 5)}}},
+		{fdCase: fdCase{name: "add-same", op: "Add", opset: 14, in: []*tensor.Tensor{f(2, 3, 4, 5), f(2, 3, 4, 5)}}},
+		{fdCase: fdCase{name: "add-bcast", op: "Add", opset: 14, in: []*tensor.Tensor{f(2, 3, 4, 5), f(3, 1, 1)}}},
+		{fdCase: fdCase{name: "sub-same", op: "Sub", opset: 14, in: []*tensor.Tensor{f(2, 3, 4, 5), f(2, 3, 4, 5)}}},
+		{fdCase: fdCase{name: "mul-same", op: "Mul", opset: 14, in: []*tensor.Tensor{f(2, 3, 4, 5), f(2, 3, 4, 5)}}},
+		{fdCase: fdCase{name: "mul-channel", op: "Mul", opset: 14, in: []*tensor.Tensor{f(2, 3, 4, 5), f(2, 3, 1, 1)}}},
+		{fdCase: fdCase{name: "mul-channel-first", op: "Mul", opset: 14, in: []*tensor.Tensor{f(2, 3, 1, 1), f(2, 3, 4, 5)}}},
+		{fdCase: fdCase{name: "maxpool-2x2", op: "MaxPool", opset: 12, attrs: []*loader.Attr{ias("kernel_shape", 2, 2), ias("strides", 2, 2)}, in: []*tensor.Tensor{f(2, 3, 9, 8)}}},
+		{fdCase: fdCase{name: "maxpool-3x3s2", op: "MaxPool", opset: 12, attrs: []*loader.Attr{ias("kernel_shape", 3, 3), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(2, 3, 9, 8)}}},
+		{fdCase: fdCase{name: "avgpool", op: "AveragePool", opset: 11, attrs: []*loader.Attr{ias("kernel_shape", 3, 3), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(2, 3, 9, 8)}}},
+		{fdCase: fdCase{name: "gap", op: "GlobalAveragePool", opset: 11, in: []*tensor.Tensor{f(2, 3, 9, 8)}}},
+		{fdCase: fdCase{name: "flatten", op: "Flatten", opset: 11, in: []*tensor.Tensor{f(2, 3, 2, 2)}}},
+		{fdCase: fdCase{name: "reshape", op: "Reshape", opset: 14, in: []*tensor.Tensor{f(2, 3, 4), i64(6, 4)}}},
+		{fdCase: fdCase{name: "identity", op: "Identity", opset: 14, in: []*tensor.Tensor{f(2, 3, 4)}}},
+		{fdCase: fdCase{name: "gemm-transB-bias", op: "Gemm", opset: 11, attrs: []*loader.Attr{ia("transB", 1)}, in: []*tensor.Tensor{f(5, 40), f(7, 40), f(7)}}},
+		{fdCase: fdCase{name: "gemm-transA", op: "Gemm", opset: 11, attrs: []*loader.Attr{ia("transA", 1), fa("alpha", 0.5)}, in: []*tensor.Tensor{f(40, 5), f(40, 7)}}},
+		{fdCase: fdCase{name: "hardswish", op: "HardSwish", opset: 14, in: []*tensor.Tensor{f3(4, 50)}}},
+		{fdCase: fdCase{name: "hardsigmoid", op: "HardSigmoid", opset: 14, in: []*tensor.Tensor{f3(4, 50)}}},
+		{fdCase: fdCase{name: "sigmoid", op: "Sigmoid", opset: 14, in: []*tensor.Tensor{f(4, 50)}}},
+		{fdCase: fdCase{name: "tanh", op: "Tanh", opset: 14, in: []*tensor.Tensor{f(4, 50)}}},
+		{fdCase: fdCase{name: "clip", op: "Clip", opset: 13, in: []*tensor.Tensor{f(4, 50), tensor.From([]float32{-0.5}), tensor.From([]float32{0.7})}}},
+	}
+	for _, c := range cases {
+		if !rules32[c.op] {
+			t.Fatalf("%s: %s is not in rules32", c.name, c.op)
+		}
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		g32 := f32Tensor(r, outs[0].Size()).F32()
+		f, _ := Lookup("", c.op)
+		run := func(use32 bool) *Op {
+			forceF64 = !use32
+			defer func() { forceF64 = false }()
+			need := c.need
+			if need == nil {
+				need = make([]bool, len(c.in))
+				for i, x := range c.in {
+					need[i] = x != nil && isFloat(x)
+				}
+			}
+			var o *Op
+			if use32 {
+				o = NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: c.opset}, make([][]float64, len(outs)), need)
+				o.GOut32 = [][]float32{append([]float32(nil), g32...)}
+				o.f32 = true
+			} else {
+				o = NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: c.opset}, [][]float64{widened(g32)}, need)
+			}
+			o.wantSq = sqRules[c.op]
+			if err := f(o); err != nil {
+				t.Fatalf("%s: %v", c.name, err)
+			}
+			return o
+		}
+		got, ref := run(true), run(false)
+		// (a convolution whose padding spans a whole window keeps the
+		// float64 columns' path for dX)
+		if got.GIn32[0] == nil && c.name != "conv-pad-beyond-span" {
+			t.Errorf("%s: the activation's gradient is not float32", c.name)
+		}
+		if ref.gsqOK && got.gsqOK && math.Abs(got.gsq-ref.gsq) > 1e-12*ref.gsq {
+			// the same float32 G in both: Σ G² in float64 differs only by the order of additions
+			t.Errorf("%s: Σ G² %g, float64 path %g", c.name, got.gsq, ref.gsq)
+		}
+		for i := range c.in {
+			want := ref.GIn[i]
+			g := got.GIn[i]
+			if got.GIn32[i] != nil {
+				g = widened(got.GIn32[i])
+			}
+			if (g == nil) != (want == nil) {
+				t.Errorf("%s input %d: gradient %v, float64 path %v", c.name, i, g != nil, want != nil)
+				continue
+			}
+			if e := relErr(g, want, 0); e > 1e-5 || math.IsNaN(e) {
+				t.Errorf("%s input %d: relative error %.2g against the float64 path", c.name, i, e)
+			}
+		}
+	}
+}
+
+// TestBatchNormMask32: BatchNormalization's float32 rule with the ReLU
+// above it folded in (Op.mask) against the float64 rule fed G masked
+// first (the ReLU's rule): relative error ≤ 1e-5 (dX rounded once to
+// float32: 2⁻²⁴), the raw Σ G² (before the mask) within 1e-12 (float64
+// sums of the same values).
+func TestBatchNormMask32(t *testing.T) {
+	r := rand.New(rand.NewSource(33))
+	c := fdCase{name: "bn", op: "BatchNormalization", opset: 11, in: []*tensor.Tensor{f32Tensor(r, 3, 4, 5, 6), f32Tensor(r, 4), f32Tensor(r, 4), f32Tensor(r, 4), tensor.From([]float32{0.5, 1, 2, 1.5}, 4)}}
+	n := c.node()
+	outs := c.forward(t, n, c.in)
+	mask := f32Tensor(r, outs[0].Size()).F32()
+	g32 := f32Tensor(r, outs[0].Size()).F32()
+	need := []bool{true, true, true, false, false}
+	o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, make([][]float64, 1), need)
+	o.GOut32 = [][]float32{append([]float32(nil), g32...)}
+	o.f32, o.wantSq, o.mask = true, true, mask
+	if err := batchNormVJP(o); err != nil {
+		t.Fatal(err)
+	}
+	masked := make([]float64, len(g32))
+	raw := 0.0
+	for i, v := range g32 {
+		raw += float64(v) * float64(v)
+		masked[i] = reluPass(float64(v), mask[i])
+	}
+	ref := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, [][]float64{masked}, need)
+	if err := batchNormVJP(ref); err != nil {
+		t.Fatal(err)
+	}
+	if !o.rawSqOK || math.Abs(o.rawSq-raw) > 1e-12*raw {
+		t.Errorf("raw Σ G² %g, want %g", o.rawSq, raw)
+	}
+	if e := relErr(widened(o.GIn32[0]), ref.GIn[0], 0); e > 1e-5 {
+		t.Errorf("dX: relative error %.2g", e)
+	}
+	for i := 1; i < 3; i++ {
+		if e := relErr(o.GIn[i], ref.GIn[i], 0); e > 1e-5 {
+			t.Errorf("input %d: relative error %.2g", i, e)
+		}
+	}
+}
+
+// TestTapeFloat32: the backward pass of float32 models with float32
+// gradients against the same pass in float64 (Tape.only64): dL/dW of every
+// weight within 1e-5 relative (per rule one float32 rounding of each
+// element, 2⁻²⁴, over about 25 rules and sums of float32 products already
+// taken in both: the bound is a few 1e-7, 1e-5 leaves room), and no
+// gradient of resnet_tiny, vgg_bn or mobile_hardswish widened back to
+// float64 (every rule on their chains has a float32 path: a regression
+// check of rules32).
+func TestTapeFloat32(t *testing.T) {
+	dir := refDir(t)
+	for _, name := range []string{"resnet_tiny", "vgg_bn", "mobile_hardswish"} {
+		m, err := loader.LoadModel(filepath.Join(dir, name+".onnx"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		x, err := loader.ReadNpy(filepath.Join(dir, name+".input.npy"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		tape, out := runBatch(t, m, x)
+		_, seed, err := CrossEntropy(out, make([]int64, out.Shape[0]), false)
+		if err != nil {
+			t.Fatal(err)
+		}
+		pass := func(only64 bool) (*Result, map[string]float64) {
+			tape.only64 = only64
+			sq := map[string]float64{}
+			res, err := tape.BackwardSq(map[string][]float64{m.Graph.Outputs[0].Name: seed}, func(_ int, v string, _ int, s float64) { sq[v] = s })
+			if err != nil {
+				t.Fatal(err)
+			}
+			return res, sq
+		}
+		ref, refSq := pass(true)
+		got, gotSq := pass(false)
+		if tape.Widened != 0 {
+			t.Errorf("%s: %d float32 gradients widened to float64", name, tape.Widened)
+		}
+		if len(got.Params) != len(ref.Params) || len(ref.Params) == 0 {
+			t.Fatalf("%s: %d weight gradients, float64 pass %d", name, len(got.Params), len(ref.Params))
+		}
+		for p, want := range ref.Params {
+			if e := relErr(got.Params[p], want, 0); e > 1e-5 || math.IsNaN(e) {
+				t.Errorf("%s %s: relative error %.2g", name, p, e)
+			}
+		}
+		// Σ g² per value: relative error ≤ 2e-5 (twice the gradients')
+		for v, want := range refSq {
+			if math.Abs(gotSq[v]-want) > 2e-5*want {
+				t.Errorf("%s %s: Σ g² %g, float64 pass %g", name, v, gotSq[v], want)
+			}
+		}
+	}
+}
