@@ -239,3 +239,64 @@ func TestTapeFloat32(t *testing.T) {
 		}
 	}
 }
+
+// TestBnPlaneVecSameAsGo: bnPlane32's vector loop (bnPlaneVec) against its
+// Go loop on planes of 16k and 16k + tail elements, with a mask holding
+// ±0, ±Inf, NaN and negatives, d separate or G itself: d bitwise equal
+// (the same float32 product G·k in both), the sums within 1e-12 relative
+// (float64 sums of the same terms in another order: about n·2⁻⁵³, common
+// practice for a few hundred terms). And masking inside the rule gives the
+// same bits as masking first (the ReLU's rule, reluMaskSq32) then running
+// it unmasked: the fused and unfused passes agree exactly.
+func TestBnPlaneVecSameAsGo(t *testing.T) {
+	r := rand.New(rand.NewSource(34))
+	special := []float32{0, float32(math.Copysign(0, -1)), float32(math.Inf(1)), float32(math.Inf(-1)), float32(math.NaN()), -1, 1e-38}
+	for _, n := range []int{16, 48, 53, 256, 7} {
+		g := f32Tensor(r, n).F32()
+		x := f32Tensor(r, n).F32()
+		m := f32Tensor(r, n).F32()
+		for i := 0; i < n; i += 3 {
+			m[i] = special[(i/3)%len(special)]
+		}
+		k := float32(0.7)
+		for _, masked := range []bool{false, true} {
+			for _, inPlace := range []bool{false, true} {
+				var mm []float32
+				if masked {
+					mm = m
+				}
+				run := func(vec bool) (bnSums, []float32) {
+					defer func(h bool) { haveBN512 = h }(haveBN512)
+					haveBN512 = haveBN512 && vec
+					gc := append([]float32(nil), g...)
+					d := make([]float32, n)
+					if inPlace {
+						d = gc
+					}
+					return bnPlane32(gc, mm, x, d, k), d
+				}
+				got, dv := run(true)
+				ref, dg := run(false)
+				for i := range dg {
+					if math.Float32bits(dv[i]) != math.Float32bits(dg[i]) {
+						t.Fatalf("n %d masked %v: d[%d] = %v, Go loop %v", n, masked, i, dv[i], dg[i])
+					}
+				}
+				for _, p := range [][2]float64{{got.sum, ref.sum}, {got.sumX, ref.sumX}, {got.sumSq, ref.sumSq}, {got.rawSq, ref.rawSq}, {got.outSq, ref.outSq}} {
+					if math.Abs(p[0]-p[1]) > 1e-12*(math.Abs(p[1])+1e-300) && !(math.IsInf(p[1], 0) && p[0] == p[1]) {
+						t.Errorf("n %d masked %v in place %v: sums %+v, Go loop %+v", n, masked, inPlace, got, ref)
+						break
+					}
+				}
+			}
+		}
+		// fused against masked first, on whichever loop runs here
+		gm := append([]float32(nil), g...)
+		reluMaskSq32(gm, gm, m)
+		fused := bnPlane32(append([]float32(nil), g...), m, x, make([]float32, n), 0.7)
+		first := bnPlane32(gm, nil, x, make([]float32, n), 0.7)
+		if fused.sum != first.sum || fused.sumX != first.sumX || fused.sumSq != first.sumSq || fused.outSq != first.outSq {
+			t.Errorf("n %d: masked in the rule %+v, masked first %+v", n, fused, first)
+		}
+	}
+}

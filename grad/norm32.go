@@ -17,7 +17,7 @@ func batchNorm32(o *Op, N, C, I int, eps float64, x32 []float32) error {
 	if o.mask != nil && len(o.mask) != len(g) {
 		return fmt.Errorf("internal error: ReLU mask of %d elements for a BatchNormalization gradient of %d", len(o.mask), len(g))
 	}
-	sg, sgx, sq := make([]float64, N*C), make([]float64, N*C), make([]float64, N*C)
+	sg, sgx, sq, out := make([]float64, N*C), make([]float64, N*C), make([]float64, N*C), make([]float64, N*C)
 	var raw []float64
 	if o.mask != nil {
 		raw = make([]float64, N*C)
@@ -34,10 +34,14 @@ func batchNorm32(o *Op, N, C, I int, eps float64, x32 []float32) error {
 			if gx != nil {
 				d, k = gx[pl*I:(pl+1)*I], float32(s[c]/math.Sqrt(vr[c]+eps))
 			}
+			var m []float32
 			if o.mask != nil {
-				sg[pl], sgx[pl], sq[pl], raw[pl] = bnPlaneMask32(gr, o.mask[pl*I:(pl+1)*I], x32[pl*I:(pl+1)*I], d, k)
-			} else {
-				sg[pl], sgx[pl], sq[pl] = bnPlane32(gr, x32[pl*I:(pl+1)*I], d, k)
+				m = o.mask[pl*I : (pl+1)*I]
+			}
+			t := bnPlane32(gr, m, x32[pl*I:(pl+1)*I], d, k)
+			sg[pl], sgx[pl], sq[pl], out[pl] = t.sum, t.sumX, t.sumSq, t.outSq
+			if raw != nil {
+				raw[pl] = t.rawSq
 			}
 		}
 	})
@@ -46,6 +50,9 @@ func batchNorm32(o *Op, N, C, I int, eps float64, x32 []float32) error {
 	}
 	if raw != nil {
 		o.rawSq, o.rawSqOK = sumPlanes(raw), true
+	}
+	if gx != nil {
+		o.reportInSq(sumPlanes(out))
 	}
 	for c := 0; c < C; c++ {
 		inv := 1 / math.Sqrt(vr[c]+eps)
@@ -73,78 +80,91 @@ func sumPlanes(v []float64) float64 {
 	return t
 }
 
-// bnPlane32 is bnPlane for a float32 G and dX (d may be G itself; nil:
-// sums only), d[i] = G[i]·k in float32.
-func bnPlane32(g, x, d []float32, k float32) (sum, sumX, sumSq float64) {
-	var a0, a1, b0, b1, q0, q1 float64
-	x = x[:len(g)]
-	i := 0
-	if d != nil {
-		d = d[:len(g)]
-		for ; i+2 <= len(g); i += 2 {
-			u0, u1 := g[i], g[i+1]
-			v0, v1 := float64(u0), float64(u1)
-			a0, a1 = a0+v0, a1+v1
-			b0 += v0 * float64(x[i])
-			b1 += v1 * float64(x[i+1])
-			q0, q1 = q0+v0*v0, q1+v1*v1
-			d[i], d[i+1] = u0*k, u1*k
+// bnSums are one plane's sums for BatchNormalization's rule: Σ G, Σ G·x,
+// Σ G² (G after the ReLU mask, if any), Σ G² before the mask, and Σ d²
+// over the dX written (the gradient the rule below receives).
+type bnSums struct{ sum, sumX, sumSq, rawSq, outSq float64 }
+
+// bnPlane32 takes one plane's bnSums in float64 and writes d[i] = G[i]·k
+// in float32 when d is not nil (d may be G itself: each element is read
+// before it is written); with m, G[i] is taken as 0 where m[i] ≤ 0 or NaN
+// (reluPass's rule). The vector loop (bnPlaneVec) does the first
+// len(g)&^15 elements in 16 float64 lanes per sum, the Go loop the rest
+// (or all) in two chains; masked or not, the same G gives the same sums.
+func bnPlane32(g, m, x, d []float32, k float32) bnSums {
+	var lanes [10][8]float64
+	i := bnPlaneVec(g, m, x, d, k, &lanes)
+	var s bnSums
+	if i > 0 {
+		s = bnSums{laneSum(&lanes[0], &lanes[1]), laneSum(&lanes[2], &lanes[3]), laneSum(&lanes[4], &lanes[5]), laneSum(&lanes[6], &lanes[7]), laneSum(&lanes[8], &lanes[9])}
+		if m == nil {
+			s.rawSq = s.sumSq
 		}
-	} else {
-		for ; i+2 <= len(g); i += 2 {
-			v0, v1 := float64(g[i]), float64(g[i+1])
-			a0, a1 = a0+v0, a1+v1
-			b0 += v0 * float64(x[i])
-			b1 += v1 * float64(x[i+1])
-			q0, q1 = q0+v0*v0, q1+v1*v1
-		}
-	}
-	if i < len(g) {
-		v := float64(g[i])
-		a0 += v
-		b0 += v * float64(x[i])
-		q0 += v * v
-		if d != nil {
-			d[i] = g[i] * k
+		g, x, d = g[i:], x[i:], d[i:]
+		if m != nil {
+			m = m[i:]
 		}
 	}
-	return a0 + a1, b0 + b1, q0 + q1
+	t := bnPlaneGo(g, m, x, d, k)
+	return bnSums{s.sum + t.sum, s.sumX + t.sumX, s.sumSq + t.sumSq, s.rawSq + t.rawSq, s.outSq + t.outSq}
 }
 
-// bnPlaneMask32 is bnPlaneMask for a float32 G and dX: G[i] taken as 0
-// where m[i] ≤ 0 or NaN, and Σ G² before the mask returned too.
-func bnPlaneMask32(g, m, x, d []float32, k float32) (sum, sumX, sumSq, rawSq float64) {
-	var a0, a1, b0, b1, q0, q1, r0, r1 float64
-	x, m = x[:len(g)], m[:len(g)]
+// laneSum adds 16 lanes in a fixed order (pairwise).
+func laneSum(lo, hi *[8]float64) float64 {
+	var v [8]float64
+	for j := range v {
+		v[j] = lo[j] + hi[j]
+	}
+	return ((v[0] + v[4]) + (v[2] + v[6])) + ((v[1] + v[5]) + (v[3] + v[7]))
+}
+
+// bnPlaneGo is bnPlane32's Go loop: two addition chains (even and odd
+// elements) per sum.
+func bnPlaneGo(g, m, x, d []float32, k float32) bnSums {
+	var a0, a1, b0, b1, q0, q1, r0, r1, o0, o1 float64
+	x = x[:len(g)]
+	if m != nil {
+		m = m[:len(g)]
+	}
 	if d != nil {
 		d = d[:len(g)]
 	}
 	i := 0
 	for ; i+2 <= len(g); i += 2 {
-		g0, g1 := float64(g[i]), float64(g[i+1])
+		u0, u1 := g[i], g[i+1]
+		g0, g1 := float64(u0), float64(u1)
 		r0, r1 = r0+g0*g0, r1+g1*g1
-		u0, u1 := reluPass32(g[i], m[i]), reluPass32(g[i+1], m[i+1])
+		if m != nil {
+			u0, u1 = reluPass32(u0, m[i]), reluPass32(u1, m[i+1])
+		}
 		v0, v1 := float64(u0), float64(u1)
 		a0, a1 = a0+v0, a1+v1
 		b0 += v0 * float64(x[i])
 		b1 += v1 * float64(x[i+1])
 		q0, q1 = q0+v0*v0, q1+v1*v1
+		w0, w1 := u0*k, u1*k
+		o0, o1 = o0+float64(w0)*float64(w0), o1+float64(w1)*float64(w1)
 		if d != nil {
-			d[i], d[i+1] = u0*k, u1*k
+			d[i], d[i+1] = w0, w1
 		}
 	}
 	if i < len(g) {
-		r0 += float64(g[i]) * float64(g[i])
-		u := reluPass32(g[i], m[i])
+		u := g[i]
+		r0 += float64(u) * float64(u)
+		if m != nil {
+			u = reluPass32(u, m[i])
+		}
 		v := float64(u)
 		a0 += v
 		b0 += v * float64(x[i])
 		q0 += v * v
+		w := u * k
+		o0 += float64(w) * float64(w)
 		if d != nil {
-			d[i] = u * k
+			d[i] = w
 		}
 	}
-	return a0 + a1, b0 + b1, q0 + q1, r0 + r1
+	return bnSums{a0 + a1, b0 + b1, q0 + q1, r0 + r1, o0 + o1}
 }
 
 // reluPass32 is reluPass for a float32 g.

@@ -212,6 +212,9 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 	// masks: ReLU rules left to the BatchNormalization below them, by the
 	// BatchNormalization's output (fuseRelu)
 	masks := map[string]pendingMask{}
+	// known: Σ g² of final gradients a rule took as it wrote them
+	// (reportInSq), by value
+	known := map[string]float64{}
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
@@ -235,6 +238,22 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		for j, o := range n.Outputs {
 			if o == "" {
 				continue
+			}
+			if s, ok := known[o]; ok && sq != nil {
+				delete(known, o)
+				if g, ok := grads32[o]; ok {
+					sq(i, o, len(g), s)
+					gOut32[j] = g
+					any = true
+					if value != nil {
+						w := wide(g)
+						value(i, o, w)
+						free.put(w)
+					}
+					delete(grads32, o)
+					deferSq = false
+					continue
+				}
 			}
 			if g, ok := grads[o]; ok {
 				gOut[j] = g
@@ -399,6 +418,11 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		for _, g := range op.GOut32 {
 			if g != nil && !aliases32(g, op.GIn32) {
 				free32.put(g)
+			}
+		}
+		if op.inSqOK && sq != nil && len(n.Inputs) > 0 && t.uses[n.Inputs[0]] == 1 && op.GIn32[0] != nil {
+			if _, started := grads32[n.Inputs[0]]; !started {
+				known[n.Inputs[0]] = op.inSq
 			}
 		}
 		for j, name := range n.Inputs {

@@ -50,6 +50,9 @@ type Op struct {
 	wantSq bool
 	gsq    float64
 	gsqOK  bool
+	// inSq: Σ g² of dL/d(input 0) as written (reportInSq)
+	inSq   float64
+	inSqOK bool
 	// mask, when set, is the float32 input of a ReLU above this
 	// BatchNormalization whose rule the tape left to it: G is taken as 0
 	// where mask ≤ 0 (or NaN), and Σ G² before the mask goes to rawSq.
@@ -65,6 +68,11 @@ var sqRules = map[string]bool{"Relu": true, "BatchNormalization": true, "Conv": 
 
 // reportSq records Σ G² of output 0 for the tape's grad_rms.
 func (o *Op) reportSq(s float64) { o.gsq, o.gsqOK = s, true }
+
+// reportInSq records Σ g² of the gradient the rule wrote for input 0, taken
+// as it wrote it: when that value has no other reader, the tape reports it
+// for the value instead of summing its gradient again.
+func (o *Op) reportInSq(s float64) { o.inSq, o.inSqOK = s, true }
 
 // memoize returns what build derives for this node, computed once per tape
 // while valid(v) holds for the stored value (without a tape: every call).

@@ -1,0 +1,8 @@
+//go:build !amd64
+
+package grad
+
+// haveBN512: no vector loop off amd64.
+var haveBN512 = false
+
+func bnPlaneVec(g, m, x, d []float32, k float32, lanes *[10][8]float64) int { return 0 }
