@@ -2,7 +2,8 @@ package grad
 
 import "golang.org/x/sys/cpu"
 
-// AVX-512 loops of bnPlane32 (bn32_amd64.s): n a multiple of 16.
+// AVX-512 loops of bnPlane32 (bn32_amd64.s) and of HardSwish's float32 rule
+// (act32_amd64.s): n a multiple of 16.
 
 //go:noescape
 func bnPlaneAVX512(gp, x, d *float32, n int, k float32, lanes *[10][8]float64)
@@ -27,4 +28,36 @@ func bnPlaneVec(g, m, x, d []float32, k float32, lanes *[10][8]float64) int {
 		bnPlaneAVX512(&g[0], &x[0], &d[0], n, k, lanes)
 	}
 	return n
+}
+
+//go:noescape
+func hardSwishAVX512(dst, gp, x *float32, n int, lanes *[2][8]float64)
+
+// hardSwishVec runs hardSwishAVX512 over the first len(g)&^15 elements,
+// returning how many it did and Σ G² over them.
+func hardSwishVec(dst, g, x []float32) (int, float64) {
+	n := len(g) &^ 15
+	if !haveBN512 || n == 0 {
+		return 0, 0
+	}
+	var lanes [2][8]float64
+	hardSwishAVX512(&dst[0], &g[0], &x[0], n, &lanes)
+	return n, laneSum(&lanes[0], &lanes[1])
+}
+
+//go:noescape
+func dwRunsAVX512(gp, x, dx *float32, runs *run, nruns int, wt float32, lanes *[16]float32)
+
+// dwRunsVec runs dwRunsAVX512 over the unit-step runs of one tap and
+// reports whether it did (false: no vector loop here; nothing done).
+func dwRunsVec(g, x, dx []float32, runs []run, wt float32, lanes *[16]float32) bool {
+	if !haveBN512 || len(runs) == 0 {
+		return false
+	}
+	var d *float32
+	if dx != nil {
+		d = &dx[0]
+	}
+	dwRunsAVX512(&g[0], &x[0], d, &runs[0], len(runs), wt, lanes)
+	return true
 }

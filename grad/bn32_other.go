@@ -6,3 +6,7 @@ package grad
 var haveBN512 = false
 
 func bnPlaneVec(g, m, x, d []float32, k float32, lanes *[10][8]float64) int { return 0 }
+
+func hardSwishVec(dst, g, x []float32) (int, float64) { return 0, 0 }
+
+func dwRunsVec(g, x, dx []float32, runs []run, wt float32, lanes *[16]float32) bool { return false }

@@ -60,6 +60,8 @@ func TestRules32MatchF64(t *testing.T) {
 		{fdCase: fdCase{name: "conv-same3x3-bias", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(3, 8, 9, 7), f(6, 8, 3, 3), f(6)}}},
 		{fdCase: fdCase{name: "conv-stride2", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(2, 16, 10, 9), f(5, 16, 3, 3)}}},
 		{fdCase: fdCase{name: "conv-depthwise", op: "Conv", opset: 11, attrs: []*loader.Attr{ia("group", 6), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(3, 6, 7, 6), f(6, 1, 3, 3), f(6)}}},
+		{fdCase: fdCase{name: "conv-depthwise-stride2-wide", op: "Conv", opset: 11, attrs: []*loader.Attr{ia("group", 4), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f(2, 4, 9, 37), f(4, 1, 3, 3)}}},
+		{fdCase: fdCase{name: "conv-depthwise-5x5-wide", op: "Conv", opset: 11, attrs: []*loader.Attr{ia("group", 3), ias("pads", 2, 2, 2, 2)}, in: []*tensor.Tensor{f(2, 3, 6, 35), f(3, 1, 5, 5)}}},
 		{fdCase: fdCase{name: "conv-pad-beyond-span", op: "Conv", opset: 11, attrs: []*loader.Attr{ias("pads", 3, 0, 0, 1)}, in: []*tensor.Tensor{f(2, 3, 5, 5), f(4, 3, 2, 2)}}},
 		{fdCase: fdCase{name: "bn", op: "BatchNormalization", opset: 11, in: []*tensor.Tensor{f(3, 5, 6, 7), f(5), f(5), f(5), posF(5)}}, need: []bool{true, true, true, false, false}},
 		{fdCase: fdCase{name: "relu", op: "Relu", opset: 14, in: []*tensor.Tensor{f(4, 3, 5, 5)}}},
@@ -273,7 +275,7 @@ func TestBnPlaneVecSameAsGo(t *testing.T) {
 					if inPlace {
 						d = gc
 					}
-					return bnPlane32(gc, mm, x, d, k), d
+					return bnPlane32(gc, mm, x, d, k, new([10][8]float64)), d
 				}
 				got, dv := run(true)
 				ref, dg := run(false)
@@ -293,10 +295,82 @@ func TestBnPlaneVecSameAsGo(t *testing.T) {
 		// fused against masked first, on whichever loop runs here
 		gm := append([]float32(nil), g...)
 		reluMaskSq32(gm, gm, m)
-		fused := bnPlane32(append([]float32(nil), g...), m, x, make([]float32, n), 0.7)
-		first := bnPlane32(gm, nil, x, make([]float32, n), 0.7)
+		fused := bnPlane32(append([]float32(nil), g...), m, x, make([]float32, n), 0.7, new([10][8]float64))
+		first := bnPlane32(gm, nil, x, make([]float32, n), 0.7, new([10][8]float64))
 		if fused.sum != first.sum || fused.sumX != first.sumX || fused.sumSq != first.sumSq || fused.outSq != first.outSq {
 			t.Errorf("n %d: masked in the rule %+v, masked first %+v", n, fused, first)
+		}
+	}
+}
+
+// TestHardSwishVecMatchesGo: HardSwish's float32 rule by the vector loop
+// (hardSwishVec) against the Go loop (the float64 expression rounded once)
+// on values around the kinks ±3, ±0, ±Inf and NaN and random ones: each
+// element within 2⁻²²·|G| (d(x) ≤ 1.5 in magnitude, taken in float32 with
+// one rounding of 1/3 and one of the fused multiply-add: a few 2⁻²⁴), the
+// same branch at every kink, and Σ G² within 1e-12 (the order of additions).
+func TestHardSwishVecMatchesGo(t *testing.T) {
+	r := rand.New(rand.NewSource(35))
+	x := []float32{-4, -3.0000002, -3, -2.9999998, -2.5, -1.5, -1, -0.5, float32(math.Copysign(0, -1)), 0, 0.3, 1, 2.9999998, 3, 3.0000002, 7,
+		float32(math.Inf(1)), float32(math.Inf(-1)), float32(math.NaN())}
+	for len(x) < 16*5+3 {
+		x = append(x, float32(r.NormFloat64()*3))
+	}
+	g := f32Tensor(r, len(x)).F32()
+	run := func(vec bool) ([]float32, float64) {
+		defer func(h bool) { haveBN512 = h }(haveBN512)
+		haveBN512 = haveBN512 && vec
+		d := make([]float32, len(g))
+		return d, hardSwish32(d, g, x, nil)
+	}
+	dv, sv := run(true)
+	dg, sg := run(false)
+	for i := range dg {
+		if math.Abs(float64(dv[i]-dg[i])) > math.Ldexp(math.Abs(float64(g[i])), -22) || math.IsNaN(float64(dv[i])) {
+			t.Errorf("x = %v: %v, Go loop %v", x[i], dv[i], dg[i])
+		}
+	}
+	if math.Abs(sv-sg) > 1e-12*sg {
+		t.Errorf("Σ G² %v, Go loop %v", sv, sg)
+	}
+}
+
+// TestDepthwise32VecSameAsGo: the depthwise rule's vector loop over unit
+// runs (dwRunsVec) against its Go loop, dX and dW of planes whose runs are
+// shorter and longer than 16 (tails under the load mask), stride 1 and 2:
+// relative error ≤ 1e-6 (float32 products summed in float32 lanes instead
+// of float64: about √(P/16)·2⁻²⁴ per lane, far below).
+func TestDepthwise32VecSameAsGo(t *testing.T) {
+	r := rand.New(rand.NewSource(36))
+	for _, c := range []fdCase{
+		{name: "s1", attrs: []*loader.Attr{ia("group", 3), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32Tensor(r, 2, 3, 7, 37), f32Tensor(r, 3, 1, 3, 3)}},
+		{name: "s2", attrs: []*loader.Attr{ia("group", 2), ias("strides", 2, 2), ias("pads", 1, 1, 1, 1)}, in: []*tensor.Tensor{f32Tensor(r, 2, 2, 8, 20), f32Tensor(r, 2, 1, 3, 3)}},
+		{name: "k5-narrow", attrs: []*loader.Attr{ia("group", 2), ias("pads", 2, 2, 2, 2)}, in: []*tensor.Tensor{f32Tensor(r, 3, 2, 5, 5), f32Tensor(r, 2, 1, 5, 5)}},
+	} {
+		c.op, c.opset = "Conv", 11
+		n := c.node()
+		outs := c.forward(t, n, c.in)
+		o := NewOp(&probe.Call{Node: n, In: c.in, Out: outs, Opset: 11}, nil, nil)
+		win, err := windowOf(o, c.in[0], outs[0], c.in[1].Shape[2:])
+		if err != nil {
+			t.Fatal(err)
+		}
+		N, C := c.in[0].Shape[0], c.in[0].Shape[1]
+		g := f32Tensor(r, outs[0].Size()).F32()
+		run := func(vec bool) ([]float32, []float64) {
+			defer func(h bool) { haveBN512 = h }(haveBN512)
+			haveBN512 = haveBN512 && vec
+			gx, gw := make([]float32, c.in[0].Size()), make([]float64, c.in[1].Size())
+			depthwise32(win, N, C, c.in[0].F32(), c.in[1].F32(), g, gx, gw)
+			return gx, gw
+		}
+		vx, vw := run(true)
+		rx, rw := run(false)
+		if e := relErr(widened(vx), widened(rx), 0); e > 1e-6 {
+			t.Errorf("%s: dX relative error %.2g", c.name, e)
+		}
+		if e := relErr(vw, rw, 0); e > 1e-6 {
+			t.Errorf("%s: dW relative error %.2g", c.name, e)
 		}
 	}
 }

@@ -23,6 +23,7 @@ func batchNorm32(o *Op, N, C, I int, eps float64, x32 []float32) error {
 		raw = make([]float64, N*C)
 	}
 	split(N*C*I, func(lo, hi int) {
+		var lanes [10][8]float64
 		for pl := lo / max(I, 1); pl < N*C && pl*I < hi; pl++ {
 			if pl*I < lo {
 				continue // the plane belongs to the part that holds its start
@@ -38,7 +39,7 @@ func batchNorm32(o *Op, N, C, I int, eps float64, x32 []float32) error {
 			if o.mask != nil {
 				m = o.mask[pl*I : (pl+1)*I]
 			}
-			t := bnPlane32(gr, m, x32[pl*I:(pl+1)*I], d, k)
+			t := bnPlane32(gr, m, x32[pl*I:(pl+1)*I], d, k, &lanes)
 			sg[pl], sgx[pl], sq[pl], out[pl] = t.sum, t.sumX, t.sumSq, t.outSq
 			if raw != nil {
 				raw[pl] = t.rawSq
@@ -91,9 +92,10 @@ type bnSums struct{ sum, sumX, sumSq, rawSq, outSq float64 }
 // (reluPass's rule). The vector loop (bnPlaneVec) does the first
 // len(g)&^15 elements in 16 float64 lanes per sum, the Go loop the rest
 // (or all) in two chains; masked or not, the same G gives the same sums.
-func bnPlane32(g, m, x, d []float32, k float32) bnSums {
-	var lanes [10][8]float64
-	i := bnPlaneVec(g, m, x, d, k, &lanes)
+//
+// lanes is the vector loop's scratch (a caller's, reused from plane to plane).
+func bnPlane32(g, m, x, d []float32, k float32, lanes *[10][8]float64) bnSums {
+	i := bnPlaneVec(g, m, x, d, k, lanes)
 	var s bnSums
 	if i > 0 {
 		s = bnSums{laneSum(&lanes[0], &lanes[1]), laneSum(&lanes[2], &lanes[3]), laneSum(&lanes[4], &lanes[5]), laneSum(&lanes[6], &lanes[7]), laneSum(&lanes[8], &lanes[9])}

@@ -195,7 +195,7 @@ func conv32(o *Op, cm *convMemo, N, C, M, G int, x32, w32 []float32) error {
 	switch {
 	case !o.Needs(0):
 	case depthwise:
-		depthwiseF32(win, N, C, x32, w32, g32, o.Grad32(0), gw)
+		depthwise32(win, N, C, x32, w32, g32, o.Grad32(0), gw)
 		gw = nil
 	case cm.dx != nil:
 		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull32(0), o.arena); err != nil {
@@ -208,7 +208,7 @@ func conv32(o *Op, cm *convMemo, N, C, M, G int, x32, w32 []float32) error {
 		return nil
 	}
 	if depthwise {
-		depthwiseF32(win, N, C, x32, w32, g32, nil, gw)
+		depthwise32(win, N, C, x32, w32, g32, nil, gw)
 		return nil
 	}
 	convDW(win, N, C, M, G, x32, g32, gw)
