@@ -61,3 +61,16 @@ func dwRunsVec(g, x, dx []float32, runs []run, wt float32, lanes *[16]float32) b
 	dwRunsAVX512(&g[0], &x[0], d, &runs[0], len(runs), wt, lanes)
 	return true
 }
+
+//go:noescape
+func maxPool2x2AVX512(x0, x1, y, gp, d0, d1 *float32, n int) bool
+
+// maxPool2x2RowVec runs maxPool2x2AVX512 over one row of n windows
+// (false: no vector loop here, or a window without its maximum: the
+// caller does the row).
+func maxPool2x2RowVec(xp, yp, gp, dx []float32, r0, r1, q, n int) bool {
+	if !haveBN512 || n == 0 {
+		return false
+	}
+	return maxPool2x2AVX512(&xp[r0], &xp[r1], &yp[q], &gp[q], &dx[r0], &dx[r1], n)
+}

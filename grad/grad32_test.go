@@ -374,3 +374,58 @@ func TestDepthwise32VecSameAsGo(t *testing.T) {
 		}
 	}
 }
+
+// TestMaxPool2x2VecSameAsGo: the 2×2 max-pool rule on float32 gradients
+// by the vector loop (maxPool2x2RowVec) against the Go loop and against
+// the general rule (maxPoolPlanes through a 3-D window of the same taps),
+// bitwise: planes of 3..41 columns (rows of 1..20 windows: the load and
+// store masks, an odd last column), values drawn from {−1, −0, 0, 1, 2}
+// (ties everywhere, −0 against +0) and a row with a NaN maximum (the
+// vector loop gives the row back to the Go loop).
+func TestMaxPool2x2VecSameAsGo(t *testing.T) {
+	r := rand.New(rand.NewSource(37))
+	vals := []float32{-1, float32(math.Copysign(0, -1)), 0, 1, 2}
+	for _, W := range []int{3, 4, 17, 32, 33, 41} {
+		H := 6
+		win := &window{in: []int{H, W}, out: []int{H / 2, W / 2}, k: []int{2, 2}, stride: []int{2, 2}, dil: []int{1, 1}, padBeg: []int{0, 0}}
+		fillTaps(win)
+		x := make([]float32, H*W)
+		for i := range x {
+			x[i] = vals[r.Intn(len(vals))]
+		}
+		if W > 30 {
+			x[2*W+5] = float32(math.NaN()) // row 1 of windows: a NaN maximum
+		}
+		y := make([]float32, win.P)
+		for p := range y {
+			y[p] = float32(math.Inf(-1))
+			for _, off := range win.taps[p*4 : p*4+4] {
+				if x[off] > y[p] || x[off] != x[off] {
+					y[p] = x[off]
+				}
+			}
+		}
+		g := f32Tensor(r, win.P).F32()
+		run := func(vec bool) []float32 {
+			defer func(h bool) { haveBN512 = h }(haveBN512)
+			haveBN512 = haveBN512 && vec
+			d := make([]float32, H*W)
+			for i := range d {
+				d[i] = 99 // every element is written
+			}
+			maxPoolPlanes(win, x, y, g, d, 0, 1)
+			return d
+		}
+		got, ref := run(true), run(false)
+		want := make([]float32, H*W)
+		w3 := *win
+		w3.in, w3.out, w3.k, w3.stride, w3.dil, w3.padBeg = []int{1, H, W}, []int{1, H / 2, W / 2}, []int{1, 2, 2}, []int{1, 2, 2}, []int{1, 1, 1}, []int{0, 0, 0}
+		fillTaps(&w3)
+		maxPoolPlanes(&w3, x, y, g, want, 0, 1)
+		for i := range ref {
+			if math.Float32bits(got[i]) != math.Float32bits(ref[i]) || math.Float32bits(ref[i]) != math.Float32bits(want[i]) {
+				t.Fatalf("W %d, element %d: vector %v, Go loop %v, general rule %v", W, i, got[i], ref[i], want[i])
+			}
+		}
+	}
+}

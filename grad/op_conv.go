@@ -174,11 +174,14 @@ func conv32(o *Op, cm *convMemo, N, C, M, G int, x32, w32 []float32) error {
 					continue // the plane belongs to the part that holds its start
 				}
 				gp := g32[pl*P : (pl+1)*P]
-				if gb != nil {
+				switch {
+				case gb != nil && o.wantSq:
 					a, q := sumAndSq32(gp)
 					sums[pl] = a
 					s += q
-				} else {
+				case gb != nil: // Σ G² known already (reportInSq) or not wanted
+					sums[pl] = sum32(gp)
+				default:
 					s += sumSq32(gp)
 				}
 			}

@@ -239,6 +239,12 @@ func globalMaxVJP(o *Op) error {
 // takes the general rule.
 func maxPool2x2Planes[T, U float32 | float64](win *window, x, y []T, g, gx []U, p0, p1 int) {
 	H, W, OH, OW := win.in[0], win.in[1], win.out[0], win.out[1]
+	// all float32 (grad32.go): the rows by the vector loop where there is one
+	x32, _ := any(x).([]float32)
+	y32, _ := any(y).([]float32)
+	g32, _ := any(g).([]float32)
+	d32, vec := any(gx).([]float32)
+	vec = vec && x32 != nil && haveBN512
 	for pl := p0; pl < p1; pl++ {
 		xp, dx := x[pl*H*W:(pl+1)*H*W], gx[pl*H*W:(pl+1)*H*W]
 		yp, gp := y[pl*OH*OW:(pl+1)*OH*OW], g[pl*OH*OW:(pl+1)*OH*OW]
@@ -249,54 +255,62 @@ func maxPool2x2Planes[T, U float32 | float64](win *window, x, y []T, g, gx []U, 
 			if 2*OW < W { // the column right of the last window
 				dx[r0+W-1], dx[r1+W-1] = 0, 0
 			}
-			for ow := 0; ow < OW; ow++ {
-				want := yp[oh*OW+ow]
-				kw := floatKey(float64(want))
-				i := 2 * ow
-				s := 3 // tap 0..3: (r0, i), (r0, i+1), (r1, i), (r1, i+1)
-				if floatKey(float64(xp[r1+i])) == kw {
-					s = 2
-				}
-				if floatKey(float64(xp[r0+i+1])) == kw {
-					s = 1
-				}
-				if floatKey(float64(xp[r0+i])) == kw {
-					s = 0
-				}
-				taps := [4]int{r0 + i, r0 + i + 1, r1 + i, r1 + i + 1}
-				if xp[taps[s]] != want { // NaN: the general rule
-					s, bv := -1, T(math.Inf(-1))
-					for t, off := range taps {
-						if xp[off] > bv {
-							s, bv = t, xp[off]
-						}
-					}
-					for t, off := range taps {
-						dx[off] = 0
-						if t == s {
-							dx[off] = gp[oh*OW+ow]
-						}
-					}
-					continue
-				}
-				vb := math.Float64bits(float64(gp[oh*OW+ow]))
-				var m0, m1, m2, m3 uint64
-				if s == 0 {
-					m0 = vb
-				}
-				if s == 1 {
-					m1 = vb
-				}
-				if s == 2 {
-					m2 = vb
-				}
-				if s == 3 {
-					m3 = vb
-				}
-				dx[r0+i], dx[r0+i+1] = U(math.Float64frombits(m0)), U(math.Float64frombits(m1))
-				dx[r1+i], dx[r1+i+1] = U(math.Float64frombits(m2)), U(math.Float64frombits(m3))
+			if !vec || !maxPool2x2RowVec(x32[pl*H*W:(pl+1)*H*W], y32[pl*OH*OW:(pl+1)*OH*OW], g32[pl*OH*OW:(pl+1)*OH*OW], d32[pl*H*W:(pl+1)*H*W], r0, r1, oh*OW, OW) {
+				maxPool2x2Row(xp, yp, gp, dx, r0, r1, oh*OW, OW)
 			}
 		}
+	}
+}
+
+// maxPool2x2Row is maxPool2x2Planes for one row of OW windows: input rows
+// starting at r0 and r1, outputs from q.
+func maxPool2x2Row[T, U float32 | float64](xp, yp []T, gp, dx []U, r0, r1, q, OW int) {
+	for ow := 0; ow < OW; ow++ {
+		want := yp[q+ow]
+		kw := floatKey(float64(want))
+		i := 2 * ow
+		s := 3 // tap 0..3: (r0, i), (r0, i+1), (r1, i), (r1, i+1)
+		if floatKey(float64(xp[r1+i])) == kw {
+			s = 2
+		}
+		if floatKey(float64(xp[r0+i+1])) == kw {
+			s = 1
+		}
+		if floatKey(float64(xp[r0+i])) == kw {
+			s = 0
+		}
+		taps := [4]int{r0 + i, r0 + i + 1, r1 + i, r1 + i + 1}
+		if xp[taps[s]] != want { // NaN: the general rule
+			s, bv := -1, T(math.Inf(-1))
+			for t, off := range taps {
+				if xp[off] > bv {
+					s, bv = t, xp[off]
+				}
+			}
+			for t, off := range taps {
+				dx[off] = 0
+				if t == s {
+					dx[off] = gp[q+ow]
+				}
+			}
+			continue
+		}
+		vb := math.Float64bits(float64(gp[q+ow]))
+		var m0, m1, m2, m3 uint64
+		if s == 0 {
+			m0 = vb
+		}
+		if s == 1 {
+			m1 = vb
+		}
+		if s == 2 {
+			m2 = vb
+		}
+		if s == 3 {
+			m3 = vb
+		}
+		dx[r0+i], dx[r0+i+1] = U(math.Float64frombits(m0)), U(math.Float64frombits(m1))
+		dx[r1+i], dx[r1+i+1] = U(math.Float64frombits(m2)), U(math.Float64frombits(m3))
 	}
 }
 
