@@ -74,3 +74,19 @@ func maxPool2x2RowVec(xp, yp, gp, dx []float32, r0, r1, q, n int) bool {
 	}
 	return maxPool2x2AVX512(&xp[r0], &xp[r1], &yp[q], &gp[q], &dx[r0], &dx[r1], n)
 }
+
+//go:noescape
+func padBlocks8AVX(dst *float32, at *int, C int, src *float32, I int, nc int)
+
+// havePadAVX is true where padBlocks8AVX runs (tests clear it).
+var havePadAVX = cpu.X86.HasAVX
+
+// padBlocks8 moves the 8×8 blocks of one run of 8 positions i0 (channels
+// below c8, a multiple of 8) by padBlocks8AVX; false: no vector loop here.
+func padBlocks8(dst, x []float32, C, I, c8, i0 int, at []int) bool {
+	if !havePadAVX || c8 == 0 {
+		return false
+	}
+	padBlocks8AVX(&dst[0], &at[0], C, &x[i0], I, c8)
+	return true
+}

@@ -12,3 +12,7 @@ func hardSwishVec(dst, g, x []float32) (int, float64) { return 0, 0 }
 func dwRunsVec(g, x, dx []float32, runs []run, wt float32, lanes *[16]float32) bool { return false }
 
 func maxPool2x2RowVec(xp, yp, gp, dx []float32, r0, r1, q, n int) bool { return false }
+
+var havePadAVX = false
+
+func padBlocks8(dst, x []float32, C, I, c8, i0 int, at []int) bool { return false }

@@ -429,3 +429,48 @@ func TestMaxPool2x2VecSameAsGo(t *testing.T) {
 		}
 	}
 }
+
+// TestPadChannelLastVec: the channel-last copy of dW's input by the 8×8
+// vector blocks (padBlocks8) against the Go loop, bitwise, for channel
+// counts with and without a tail of 1..7 and position counts with a tail:
+// the padded positions (zeros) cleared, every input value moved.
+func TestPadChannelLastVec(t *testing.T) {
+	r := rand.New(rand.NewSource(38))
+	for _, c := range []struct{ C, H, W, pad int }{{16, 8, 8, 1}, {8, 4, 4, 0}, {13, 5, 7, 1}, {24, 6, 9, 2}, {3, 9, 9, 1}} {
+		I := c.H * c.W
+		Wp := c.W + 2*c.pad
+		Ip := (c.H + 2*c.pad) * Wp
+		padAt := make([]int, I)
+		isIn := make([]bool, Ip)
+		for i := range padAt {
+			padAt[i] = (i/c.W+c.pad)*Wp + i%c.W + c.pad
+			isIn[padAt[i]] = true
+		}
+		var zeros []int
+		for q, in := range isIn {
+			if !in {
+				zeros = append(zeros, q)
+			}
+		}
+		x := f32Tensor(r, c.C*I).F32()
+		run := func(vec bool) []float32 {
+			defer func(h bool) { havePadAVX = h }(havePadAVX)
+			havePadAVX = havePadAVX && vec
+			d := make([]float32, Ip*c.C)
+			for i := range d {
+				d[i] = float32(math.NaN())
+			}
+			padChannelLast(d, x, c.C, I, padAt, zeros)
+			return d
+		}
+		got, want := run(true), run(false)
+		for i := range want {
+			if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+				t.Fatalf("%+v: element %d = %v, Go loop %v", c, i, got[i], want[i])
+			}
+		}
+		if c.C > 5 && x[5*I+3] != want[padAt[3]*c.C+5] {
+			t.Fatalf("%+v: the Go loop does not put x[5, 3] at position 3, channel 5", c)
+		}
+	}
+}
