@@ -77,7 +77,7 @@ func convVJP(o *Op) error {
 	}
 	var gx []float64
 	if dxByConv {
-		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull(0), o.arena); err != nil {
+		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull(0), o.arena, false); err != nil {
 			return err
 		}
 	} else {
@@ -200,8 +200,13 @@ func conv32(o *Op, cm *convMemo, N, C, M, G int, x32, w32 []float32) error {
 	case depthwise:
 		depthwise32(win, N, C, x32, w32, g32, o.Grad32(0), gw)
 		gw = nil
+	case cm.dx != nil && o.acc32 != nil: // added into the pending gradient
+		if err := applyDX(cm.dx, win, N, C, M, g32, o.acc32, o.arena, true); err != nil {
+			return err
+		}
+		o.GIn32[0] = o.acc32
 	case cm.dx != nil:
-		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull32(0), o.arena); err != nil {
+		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull32(0), o.arena, false); err != nil {
 			return err
 		}
 	default: // no transposed convolution fits: the columns' path, in float64

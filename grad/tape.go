@@ -381,6 +381,11 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		op.memo = t.memo
 		op.arena = t.arena
 		op.wantSq = deferSq
+		if f32 && n.OpType == "Conv" && len(n.Inputs) > 0 && n.Inputs[0] != "" {
+			if g, ok := grads32[n.Inputs[0]]; ok && len(g) == in[0].Size() {
+				op.acc32 = g // dX's convolutions add into it (conv32)
+			}
+		}
 		if masked {
 			if _, ok := in[0].Data.([]float32); ok && n.OpType == "BatchNormalization" && deferSq {
 				op.mask = pm.x
@@ -495,6 +500,7 @@ func (t *Tape) addGrad(grads map[string][]float64, grads32 map[string][]float32,
 	case ok:
 		add32(acc, g32)
 		t.free32.put(g32)
+	case ok32 && len(g32) > 0 && &acc32[0] == &g32[0]: // the rule added into it (Op.acc32)
 	case ok32:
 		split(len(g32), func(lo, hi int) {
 			a := acc32[lo:hi]

@@ -31,6 +31,9 @@ type Op struct {
 	// widened counts the float32 gradients a rule read as float64
 	alloc32, allocRaw32 func(n int) []float32
 	widened             *int
+	// acc32, when set, is input 0's float32 gradient from other readers,
+	// pending: a rule may add its own into it and make it GIn32[0]
+	acc32 []float32
 	// need[i] reports whether input i wants a gradient.
 	need []bool
 	xs   map[int][]float64
