@@ -52,3 +52,29 @@ done:
 	VMOVUPD Z11, 64(BX)
 	VZEROUPPER
 	RET
+
+// func sumAVX512(x *float32, n int, lanes *[2][8]float64)
+//
+// Σ x over n elements (a multiple of 16) in 16 float64 lanes (elements
+// ≡ 0..7, 8..15 mod 16).
+TEXT ·sumAVX512(SB), NOSPLIT, $0-24
+	MOVQ x+0(FP), SI
+	MOVQ n+8(FP), CX
+	MOVQ lanes+16(FP), BX
+	VPXORQ Z0, Z0, Z0
+	VPXORQ Z1, Z1, Z1
+	SHRQ $4, CX
+	JZ   sdone
+sloop:
+	VCVTPS2PD 0(SI), Z2
+	VCVTPS2PD 32(SI), Z3
+	VADDPD Z2, Z0, Z0
+	VADDPD Z3, Z1, Z1
+	ADDQ $64, SI
+	DECQ CX
+	JNZ  sloop
+sdone:
+	VMOVUPD Z0, 0(BX)
+	VMOVUPD Z1, 64(BX)
+	VZEROUPPER
+	RET

@@ -90,3 +90,18 @@ func padBlocks8(dst, x []float32, C, I, c8, i0 int, at []int) bool {
 	padBlocks8AVX(&dst[0], &at[0], C, &x[i0], I, c8)
 	return true
 }
+
+//go:noescape
+func sumAVX512(x *float32, n int, lanes *[2][8]float64)
+
+// sumVec runs sumAVX512 over the first len(g)&^15 elements, returning how
+// many it did and their sum.
+func sumVec(g []float32) (int, float64) {
+	n := len(g) &^ 15
+	if !haveBN512 || n == 0 {
+		return 0, 0
+	}
+	var lanes [2][8]float64
+	sumAVX512(&g[0], n, &lanes)
+	return n, laneSum(&lanes[0], &lanes[1])
+}

@@ -142,8 +142,15 @@ func sumSq32(g []float32) float64 {
 	return (s0 + s1) + (s2 + s3)
 }
 
-// sum32 is Σ v in float64 over float32 values, in four addition chains.
+// sum32 is Σ v in float64 over float32 values: the first len(g)&^15 by
+// the vector loop where there is one (sumVec, 16 lanes), the rest in four
+// addition chains.
 func sum32(g []float32) float64 {
+	i, s := sumVec(g)
+	return s + sum32Go(g[i:])
+}
+
+func sum32Go(g []float32) float64 {
 	var s0, s1, s2, s3 float64
 	i := 0
 	for ; i+4 <= len(g); i += 4 {
