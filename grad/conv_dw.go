@@ -252,7 +252,11 @@ func padChannelLast(dst, x []float32, C, I int, padAt, zeros []int) {
 	var t [8][8]float32
 	for i0 := 0; i0 < i8; i0 += 8 {
 		at := padAt[i0 : i0+8]
-		for c0 := 0; c0 < c8; c0 += 8 {
+		c0 := 0
+		if padBlocks8(dst, x, C, I, c8, i0, at) {
+			c0 = c8 // done by the vector loop
+		}
+		for ; c0 < c8; c0 += 8 {
 			for c := 0; c < 8; c++ {
 				t[c] = [8]float32(x[(c0+c)*I+i0:])
 			}

@@ -210,11 +210,12 @@ func ones64(n int) []int64 {
 	return s
 }
 
-// apply writes dX into gx (every element), gu being the output gradient
-// [N, M, out...] in float32.
-func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, arena *tensor.Arena) error {
+// applyDX writes dX into gx (every element, float64 or float32), gu being
+// the output gradient [N, M, out...] in float32; with add, it adds dX to
+// gx (the phases reach each input position once at most).
+func applyDX[T float32 | float64](cd *convDX, win *window, N, C, M int, gu []float32, gx []T, arena *tensor.Arena, add bool) error {
 	gt := tensor.From(gu, append([]int{N, M}, win.out...)...)
-	if !cd.cover {
+	if !cd.cover && !add {
 		clear(gx)
 	}
 	for i := range cd.phases {
@@ -237,8 +238,14 @@ func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, ar
 		}
 		if ph.at == nil {
 			split(len(gx), func(lo, hi int) {
+				if add {
+					for i := lo; i < hi; i++ {
+						gx[i] += T(y[i])
+					}
+					return
+				}
 				for i := lo; i < hi; i++ {
-					gx[i] = float64(y[i])
+					gx[i] = T(y[i])
 				}
 			})
 			continue
@@ -251,13 +258,21 @@ func (cd *convDX) apply(win *window, N, C, M int, gu []float32, gx []float64, ar
 					for jr := 0; jr < ph.rows; jr++ {
 						d := dst[ph.at[jr*cols]:]
 						for jc, v := range src[jr*cols : (jr+1)*cols] {
-							d[jc*ph.step] = float64(v)
+							if add {
+								d[jc*ph.step] += T(v)
+							} else {
+								d[jc*ph.step] = T(v)
+							}
 						}
 					}
 					continue
 				}
 				for q, at := range ph.at {
-					dst[at] = float64(src[q])
+					if add {
+						dst[at] += T(src[q])
+					} else {
+						dst[at] = T(src[q])
+					}
 				}
 			}
 		})

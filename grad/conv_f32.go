@@ -92,7 +92,10 @@ var convChunk = 1 << 21
 // GEMM: direct loops over the taps' runs, channels split over the workers.
 //
 //	dW[c, t] = Σ_n Σ_p G[n, c, p]·x[n, c, tap(p, t)],  dX[n, c, tap(p, t)] += W[c, t]·G[n, c, p]
-func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
+//
+// G and dX are float64 or float32 (grad32.go); the products and dW's sums
+// are taken in float64 either way.
+func depthwiseF32[T float32 | float64](win *window, N, C int, x, w []float32, g, gx []T, gw []float64) {
 	K, P, I := win.K, win.P, win.I
 	split(C*P*K*N, func(lo, hi int) {
 		per := P * K * N
@@ -103,7 +106,7 @@ func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
 			for n := 0; n < N; n++ {
 				gp := g[(n*C+c)*P : (n*C+c+1)*P]
 				xc := x[(n*C+c)*I : (n*C+c+1)*I]
-				var dx []float64
+				var dx []T
 				if gx != nil {
 					dx = gx[(n*C+c)*I : (n*C+c+1)*I]
 				}
@@ -117,7 +120,59 @@ func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
 						gr := gp[r.p : r.p+r.n]
 						for i, v := range gr {
 							j := r.off + i*r.step
-							s += v * float64(xc[j])
+							s += float64(v) * float64(xc[j])
+							if dx != nil {
+								dx[j] += T(wt * float64(v))
+							}
+						}
+					}
+					if gw != nil {
+						gw[c*K+t] += s
+					}
+				}
+			}
+		}
+	})
+}
+
+// depthwise32 is depthwiseF32 for float32 G and dX (grad32.go): per
+// channel, sample and tap, the unit-step runs by the vector loop where
+// there is one (dwRunsVec: G·x summed in 16 float32 lanes over one plane's
+// run, at most P terms a lane … P/16 on average, then in float64; dX by
+// float32 fused multiply-adds), the other runs and every run elsewhere by
+// the Go loop (the products in float64, dX rounded once per tap).
+func depthwise32(win *window, N, C int, x, w, g, gx []float32, gw []float64) {
+	K, P, I := win.K, win.P, win.I
+	split(C*P*K*N, func(lo, hi int) {
+		per := P * K * N
+		var lanes [16]float32
+		for c := lo / per; c < C && c*per < hi; c++ {
+			if c*per < lo {
+				continue // the channel belongs to the part that holds its start
+			}
+			for n := 0; n < N; n++ {
+				gp := g[(n*C+c)*P : (n*C+c+1)*P]
+				xc := x[(n*C+c)*I : (n*C+c+1)*I]
+				var dx []float32
+				if gx != nil {
+					dx = gx[(n*C+c)*I : (n*C+c+1)*I]
+				}
+				for t := 0; t < K; t++ {
+					wt := w[c*K+t]
+					s := 0.0
+					lanes = [16]float32{}
+					vec := dwRunsVec(gp, xc, dx, win.runs[t], wt, &lanes)
+					if vec {
+						s = sumLanes32(&lanes)
+					}
+					for _, r := range win.runs[t] {
+						if r.off < 0 || (vec && r.step == 1) {
+							continue
+						}
+						gr := gp[r.p : r.p+r.n]
+						for i, v := range gr {
+							j := r.off + i*r.step
+							s += float64(v) * float64(xc[j])
 							if dx != nil {
 								dx[j] += wt * v
 							}
@@ -130,4 +185,13 @@ func depthwiseF32(win *window, N, C int, x, w []float32, g, gx, gw []float64) {
 			}
 		}
 	})
+}
+
+// sumLanes32 adds 16 float32 lanes in float64, pairwise.
+func sumLanes32(l *[16]float32) float64 {
+	var v [8]float64
+	for j := range v {
+		v[j] = float64(l[j]) + float64(l[j+8])
+	}
+	return ((v[0] + v[4]) + (v[2] + v[6])) + ((v[1] + v[5]) + (v[3] + v[7]))
 }

@@ -45,6 +45,13 @@ func binaryOp(name string, d func(a, b, y float64) (float64, float64)) {
 		if _, err := probe.Broadcast(A.Shape, B.Shape); err != nil {
 			return err
 		}
+		if (name == "Add" || name == "Sub") && o.has32(0) {
+			addSub32(o, name == "Sub")
+			return nil
+		}
+		if name == "Mul" && o.has32(0) && mul32(o) {
+			return nil
+		}
 		g := o.G(0)
 		if name == "Add" || name == "Sub" { // ∂/∂a = 1, ∂/∂b = ±1: no forward values needed
 			sgn := 1.0

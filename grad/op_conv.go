@@ -50,11 +50,14 @@ func convVJP(o *Op) error {
 	}
 	win := cm.win
 	Cg, Mg, K, P, I := C/G, M/G, win.K, win.P, win.I
-	g := o.G(0)
 	x32, isF32 := X.Data.([]float32)
 	w32, wF32 := W.Data.([]float32)
 	fast := isF32 && wF32 && !forceF64
 	depthwise := Cg == 1 && Mg == 1
+	if fast && o.f32 {
+		return conv32(o, cm, N, C, M, G, x32, w32)
+	}
+	g := o.G(0)
 	dxByConv := fast && cm.dx != nil && o.Needs(0)
 	dwByProduct := fast && !depthwise && o.Needs(1)
 	// G in float32, read by dX's convolution and dW's products
@@ -74,7 +77,7 @@ func convVJP(o *Op) error {
 	}
 	var gx []float64
 	if dxByConv {
-		if err := cm.dx.apply(win, N, C, M, g32, o.GradFull(0), o.arena); err != nil {
+		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull(0), o.arena, false); err != nil {
 			return err
 		}
 	} else {
@@ -145,6 +148,97 @@ func convVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// conv32 is convVJP's float32 path with float32 gradients (grad32.go): G
+// read as float32 (narrowed once if it came as float64), dL/dX written in
+// float32 straight from dX's convolutions (or the depthwise loops), dL/dW
+// and dL/db summed in float64.
+func conv32(o *Op, cm *convMemo, N, C, M, G int, x32, w32 []float32) error {
+	win := cm.win
+	P := win.P
+	if o.wantSq && o.GOut[0] != nil { // G came as float64: its own Σ G²
+		o.reportSq(sumSq(o.GOut[0]))
+	}
+	g32 := o.G32(0)
+	gw, gb := o.Grad(1), o.Grad(2)
+	var sums []float64 // Σ G by plane, for dL/db
+	if gb != nil {
+		sums = make([]float64, N*M)
+	}
+	if gb != nil || (o.wantSq && !o.gsqOK) {
+		sq := splitSum(N*M*P, func(lo, hi int) float64 { // Σ G² and Σ G by plane
+			s := 0.0
+			for pl := lo / max(P, 1); pl < N*M && pl*P < hi; pl++ {
+				if pl*P < lo {
+					continue // the plane belongs to the part that holds its start
+				}
+				gp := g32[pl*P : (pl+1)*P]
+				switch {
+				case gb != nil && o.wantSq:
+					a, q := sumAndSq32(gp)
+					sums[pl] = a
+					s += q
+				case gb != nil: // Σ G² known already (reportInSq) or not wanted
+					sums[pl] = sum32(gp)
+				default:
+					s += sumSq32(gp)
+				}
+			}
+			return s
+		})
+		if o.wantSq && !o.gsqOK {
+			o.reportSq(sq)
+		}
+	}
+	for pl, a := range sums { // in sample order per channel
+		gb[pl%M] += a
+	}
+	depthwise := C == G && M == G
+	switch {
+	case !o.Needs(0):
+	case depthwise:
+		depthwise32(win, N, C, x32, w32, g32, o.Grad32(0), gw)
+		gw = nil
+	case cm.dx != nil && o.acc32 != nil: // added into the pending gradient
+		if err := applyDX(cm.dx, win, N, C, M, g32, o.acc32, o.arena, true); err != nil {
+			return err
+		}
+		o.GIn32[0] = o.acc32
+	case cm.dx != nil:
+		if err := applyDX(cm.dx, win, N, C, M, g32, o.GradFull32(0), o.arena, false); err != nil {
+			return err
+		}
+	default: // no transposed convolution fits: the columns' path, in float64
+		convF32(win, N, C, M, G, w32, o.G(0), o.Grad(0))
+	}
+	if gw == nil {
+		return nil
+	}
+	if depthwise {
+		depthwise32(win, N, C, x32, w32, g32, nil, gw)
+		return nil
+	}
+	convDW(win, N, C, M, G, x32, g32, gw)
+	return nil
+}
+
+// sumAndSq32 is Σ v and Σ v² in float64 over float32 values, each in two
+// addition chains.
+func sumAndSq32(g []float32) (sum, sumSq float64) {
+	var a0, a1, q0, q1 float64
+	i := 0
+	for ; i+2 <= len(g); i += 2 {
+		v0, v1 := float64(g[i]), float64(g[i+1])
+		a0, a1 = a0+v0, a1+v1
+		q0, q1 = q0+v0*v0, q1+v1*v1
+	}
+	if i < len(g) {
+		v := float64(g[i])
+		a0 += v
+		q0 += v * v
+	}
+	return a0 + a1, q0 + q1
 }
 
 // convMemo is what a Conv node's VJP keeps from batch to batch: the window

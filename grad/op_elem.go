@@ -104,13 +104,25 @@ func sign(x float64) float64 {
 func unary(name string, d func(x, y float64, o *Op) float64) {
 	sqRules[name] = true
 	register(name, func(o *Op) error {
+		if !o.Needs(0) {
+			return nil
+		}
+		x32, ok1 := o.In[0].Data.([]float32)
+		y32, ok2 := o.Out[0].Data.([]float32)
+		if f := fastUnary32[name]; f != nil && ok1 && ok2 && o.has32(0) && o.want32(0) && !slowUnary && len(x32) == len(y32) {
+			g32, k := o.G32(0), f(o)
+			gx32 := o.InPlace32(0)
+			sq := splitSum(len(gx32), func(lo, hi int) float64 { return k(gx32[lo:hi], g32[lo:hi], x32[lo:hi], y32[lo:hi]) })
+			if o.wantSq {
+				o.reportSq(sq)
+			}
+			return nil
+		}
 		g := o.G(0)
 		gx := o.InPlace(0)
 		if gx == nil {
 			return nil
 		}
-		x32, ok1 := o.In[0].Data.([]float32)
-		y32, ok2 := o.Out[0].Data.([]float32)
 		if ok1 && ok2 && len(x32) == len(gx) && len(y32) == len(gx) {
 			// float32 values read in place, widened one at a time
 			if f := fastUnary[name]; f != nil && !slowUnary {
@@ -159,6 +171,10 @@ func clipVJP(o *Op) error {
 			hi = F64(t)[0]
 		}
 	}
+	if x32, ok := o.In[0].Data.([]float32); ok && o.has32(0) && o.want32(0) {
+		clip32(o, x32, lo, hi)
+		return nil
+	}
 	gx, glo, ghi := o.Grad(0), o.Grad(1), o.Grad(2)
 	x, g := o.X(0), o.G(0)
 	for i := range x {
@@ -178,8 +194,39 @@ func clipVJP(o *Op) error {
 	return nil
 }
 
+// clip32 is clipVJP for a float32 input and G (grad32.go): the bounds'
+// gradients summed in float64.
+func clip32(o *Op, x []float32, lo, hi float64) {
+	gx, glo, ghi := o.Grad32(0), o.Grad(1), o.Grad(2)
+	g := o.G32(0)
+	for i, v := range x {
+		switch xv := float64(v); {
+		case xv < lo:
+			if glo != nil {
+				glo[0] += float64(g[i])
+			}
+		case xv > hi:
+			if ghi != nil {
+				ghi[0] += float64(g[i])
+			}
+		default:
+			gx[i] = g[i]
+		}
+	}
+}
+
 // reluVJP: dL/dx = G where x > 0 (read in the model's own precision).
 func reluVJP(o *Op) error {
+	if x, ok := o.In[0].Data.([]float32); ok && o.want32(0) && o.has32(0) {
+		g := o.G32(0)
+		gx := o.InPlace32(0)
+		if o.wantSq {
+			o.reportSq(splitSum(len(x), func(lo, hi int) float64 { return reluMaskSq32(gx[lo:hi], g[lo:hi], x[lo:hi]) }))
+			return nil
+		}
+		split(len(x), func(lo, hi int) { reluMaskSq32(gx[lo:hi], g[lo:hi], x[lo:hi]) })
+		return nil
+	}
 	g := o.G(0)
 	gx := o.InPlace(0)
 	if gx == nil {
@@ -246,6 +293,30 @@ func reluMaskSq(dst, g []float64, x []float32) float64 {
 	return s0 + s1
 }
 
+// reluMaskSq32 is reluMaskSq for float32 gradients (Σ g² in float64).
+func reluMaskSq32(dst, g []float32, x []float32) float64 {
+	g = g[:len(x)]
+	dst = dst[:len(x)]
+	var s0, s1 float64
+	i := 0
+	for ; i+2 <= len(x); i += 2 {
+		g0, g1 := g[i], g[i+1]
+		b0, b1 := int64(int32(math.Float32bits(x[i]))), int64(int32(math.Float32bits(x[i+1])))
+		s0, s1 = s0+float64(g0)*float64(g0), s1+float64(g1)*float64(g1)
+		m0 := uint32((-b0 >> 63) & ((b0 - 0x7f800001) >> 63))
+		m1 := uint32((-b1 >> 63) & ((b1 - 0x7f800001) >> 63))
+		dst[i] = math.Float32frombits(math.Float32bits(g0) & m0)
+		dst[i+1] = math.Float32frombits(math.Float32bits(g1) & m1)
+	}
+	if i < len(x) {
+		s0 += float64(g[i]) * float64(g[i])
+		b := int64(int32(math.Float32bits(x[i])))
+		m := uint32((-b >> 63) & ((b - 0x7f800001) >> 63))
+		dst[i] = math.Float32frombits(math.Float32bits(g[i]) & m)
+	}
+	return s0 + s1
+}
+
 // slowUnary sends every element-wise rule through its generic derivative
 // (tests compare the loops of fastUnary with it).
 var slowUnary = false
@@ -257,77 +328,110 @@ var slowUnary = false
 // also returns Σ g² over the part (two addition chains, even and odd
 // elements, for grad_rms). Each loop reads g[i] before writing dst[i].
 var fastUnary = map[string]func(o *Op) func(dst, g []float64, x, y []float32) float64{
-	"Sigmoid": func(*Op) func(dst, g []float64, x, y []float32) float64 {
-		return func(dst, g []float64, _, y []float32) float64 {
-			y, dst = y[:len(g)], dst[:len(g)]
-			var s0, s1 float64
-			i := 0
-			for ; i+2 <= len(g); i += 2 {
-				g0, g1, y0, y1 := g[i], g[i+1], float64(y[i]), float64(y[i+1])
-				s0, s1 = s0+g0*g0, s1+g1*g1
-				dst[i], dst[i+1] = g0*(y0*(1-y0)), g1*(y1*(1-y1))
-			}
-			if i < len(g) {
-				g0, y0 := g[i], float64(y[i])
-				s0 += g0 * g0
-				dst[i] = g0 * (y0 * (1 - y0))
-			}
-			return s0 + s1
+	"Sigmoid":     func(*Op) func(dst, g []float64, x, y []float32) float64 { return sigmoidLoop[float64] },
+	"Tanh":        func(*Op) func(dst, g []float64, x, y []float32) float64 { return tanhLoop[float64] },
+	"HardSigmoid": func(o *Op) func(dst, g []float64, x, y []float32) float64 { return hardSigmoidLoop[float64](o) },
+	"HardSwish":   func(*Op) func(dst, g []float64, x, y []float32) float64 { return hardSwishLoop[float64] },
+}
+
+// fastUnary32 holds fastUnary's loops for float32 gradients (grad32.go):
+// the same float64 expressions on G widened, the result rounded to float32.
+var fastUnary32 = map[string]func(o *Op) func(dst, g []float32, x, y []float32) float64{
+	"Sigmoid":     func(*Op) func(dst, g []float32, x, y []float32) float64 { return sigmoidLoop[float32] },
+	"Tanh":        func(*Op) func(dst, g []float32, x, y []float32) float64 { return tanhLoop[float32] },
+	"HardSigmoid": func(o *Op) func(dst, g []float32, x, y []float32) float64 { return hardSigmoidLoop[float32](o) },
+	"HardSwish":   func(*Op) func(dst, g []float32, x, y []float32) float64 { return hardSwish32 },
+	"Identity":    func(*Op) func(dst, g []float32, x, y []float32) float64 { return copyLoop },
+	"Dropout":     func(*Op) func(dst, g []float32, x, y []float32) float64 { return copyLoop },
+}
+
+// sigmoidLoop: dst = g·y(1 − y).
+func sigmoidLoop[T float32 | float64](dst, g []T, _, y []float32) float64 {
+	y, dst = y[:len(g)], dst[:len(g)]
+	var s0, s1 float64
+	i := 0
+	for ; i+2 <= len(g); i += 2 {
+		g0, g1, y0, y1 := float64(g[i]), float64(g[i+1]), float64(y[i]), float64(y[i+1])
+		s0, s1 = s0+g0*g0, s1+g1*g1
+		dst[i], dst[i+1] = T(g0*(y0*(1-y0))), T(g1*(y1*(1-y1)))
+	}
+	if i < len(g) {
+		g0, y0 := float64(g[i]), float64(y[i])
+		s0 += g0 * g0
+		dst[i] = T(g0 * (y0 * (1 - y0)))
+	}
+	return s0 + s1
+}
+
+// tanhLoop: dst = g·(1 − y²).
+func tanhLoop[T float32 | float64](dst, g []T, _, y []float32) float64 {
+	y, dst = y[:len(g)], dst[:len(g)]
+	var s0, s1 float64
+	i := 0
+	for ; i+2 <= len(g); i += 2 {
+		g0, g1, y0, y1 := float64(g[i]), float64(g[i+1]), float64(y[i]), float64(y[i+1])
+		s0, s1 = s0+g0*g0, s1+g1*g1
+		dst[i], dst[i+1] = T(g0*(1-y0*y0)), T(g1*(1-y1*y1))
+	}
+	if i < len(g) {
+		g0, y0 := float64(g[i]), float64(y[i])
+		s0 += g0 * g0
+		dst[i] = T(g0 * (1 - y0*y0))
+	}
+	return s0 + s1
+}
+
+// hardSigmoidLoop: dst = g·dHardSigmoid(x).
+func hardSigmoidLoop[T float32 | float64](o *Op) func(dst, g []T, x, y []float32) float64 {
+	a, b := float64(o.Float("alpha", 0.2)), float64(o.Float("beta", 0.5))
+	return func(dst, g []T, x, _ []float32) float64 {
+		x, dst = x[:len(g)], dst[:len(g)]
+		var s0, s1 float64
+		i := 0
+		for ; i+2 <= len(g); i += 2 {
+			g0, g1 := float64(g[i]), float64(g[i+1])
+			s0, s1 = s0+g0*g0, s1+g1*g1
+			dst[i], dst[i+1] = T(g0*dHardSigmoid(float64(x[i]), a, b)), T(g1*dHardSigmoid(float64(x[i+1]), a, b))
 		}
-	},
-	"Tanh": func(*Op) func(dst, g []float64, x, y []float32) float64 {
-		return func(dst, g []float64, _, y []float32) float64 {
-			y, dst = y[:len(g)], dst[:len(g)]
-			var s0, s1 float64
-			i := 0
-			for ; i+2 <= len(g); i += 2 {
-				g0, g1, y0, y1 := g[i], g[i+1], float64(y[i]), float64(y[i+1])
-				s0, s1 = s0+g0*g0, s1+g1*g1
-				dst[i], dst[i+1] = g0*(1-y0*y0), g1*(1-y1*y1)
-			}
-			if i < len(g) {
-				g0, y0 := g[i], float64(y[i])
-				s0 += g0 * g0
-				dst[i] = g0 * (1 - y0*y0)
-			}
-			return s0 + s1
+		if i < len(g) {
+			g0 := float64(g[i])
+			s0 += g0 * g0
+			dst[i] = T(g0 * dHardSigmoid(float64(x[i]), a, b))
 		}
-	},
-	"HardSigmoid": func(o *Op) func(dst, g []float64, x, y []float32) float64 {
-		a, b := float64(o.Float("alpha", 0.2)), float64(o.Float("beta", 0.5))
-		return func(dst, g []float64, x, _ []float32) float64 {
-			x, dst = x[:len(g)], dst[:len(g)]
-			var s0, s1 float64
-			i := 0
-			for ; i+2 <= len(g); i += 2 {
-				g0, g1 := g[i], g[i+1]
-				s0, s1 = s0+g0*g0, s1+g1*g1
-				dst[i], dst[i+1] = g0*dHardSigmoid(float64(x[i]), a, b), g1*dHardSigmoid(float64(x[i+1]), a, b)
-			}
-			if i < len(g) {
-				s0 += g[i] * g[i]
-				dst[i] = g[i] * dHardSigmoid(float64(x[i]), a, b)
-			}
-			return s0 + s1
-		}
-	},
-	"HardSwish": func(*Op) func(dst, g []float64, x, y []float32) float64 {
-		return func(dst, g []float64, x, _ []float32) float64 {
-			x, dst = x[:len(g)], dst[:len(g)]
-			var s0, s1 float64
-			i := 0
-			for ; i+2 <= len(g); i += 2 {
-				g0, g1 := g[i], g[i+1]
-				s0, s1 = s0+g0*g0, s1+g1*g1
-				dst[i], dst[i+1] = g0*dHardSwish(float64(x[i])), g1*dHardSwish(float64(x[i+1]))
-			}
-			if i < len(g) {
-				s0 += g[i] * g[i]
-				dst[i] = g[i] * dHardSwish(float64(x[i]))
-			}
-			return s0 + s1
-		}
-	},
+		return s0 + s1
+	}
+}
+
+// hardSwishLoop: dst = g·dHardSwish(x).
+func hardSwishLoop[T float32 | float64](dst, g []T, x, _ []float32) float64 {
+	x, dst = x[:len(g)], dst[:len(g)]
+	var s0, s1 float64
+	i := 0
+	for ; i+2 <= len(g); i += 2 {
+		g0, g1 := float64(g[i]), float64(g[i+1])
+		s0, s1 = s0+g0*g0, s1+g1*g1
+		dst[i], dst[i+1] = T(g0*dHardSwish(float64(x[i]))), T(g1*dHardSwish(float64(x[i+1])))
+	}
+	if i < len(g) {
+		g0 := float64(g[i])
+		s0 += g0 * g0
+		dst[i] = T(g0 * dHardSwish(float64(x[i])))
+	}
+	return s0 + s1
+}
+
+// hardSwish32 is hardSwishLoop for float32 gradients, the first
+// len(g)&^15 elements by the vector loop where there is one (its d(x) in
+// float32: x·(1/3) + 1/2 within 2⁻²³ of the float64 expression).
+func hardSwish32(dst, g, x, y []float32) float64 {
+	i, s := hardSwishVec(dst, g, x)
+	return s + hardSwishLoop(dst[i:], g[i:], x[i:], y)
+}
+
+// copyLoop: dst = g (the identity), with Σ g².
+func copyLoop(dst, g []float32, _, _ []float32) float64 {
+	copy(dst, g)
+	return sumSq32(g)
 }
 
 // dHardSigmoid is HardSigmoid's derivative a where 0 < a·x + b < 1, else 0

@@ -55,11 +55,15 @@ func gemmVJP(o *Op) error {
 	}
 	tA, tB := o.Int("transA", 0) != 0, o.Int("transB", 0) != 0
 	alpha, beta := float64(o.Float("alpha", 1)), float64(o.Float("beta", 1))
-	g := o.G(0)
 	M, N := o.Out[0].Shape[0], o.Out[0].Shape[1]
 	ar, ac, br, bc := A.Shape[0], A.Shape[1], B.Shape[0], B.Shape[1]
 	a32, ok1 := A.Data.([]float32)
 	b32, ok2 := B.Data.([]float32)
+	if ok1 && ok2 && !forceF64 && o.f32 && (o.want32(0) || !o.Needs(0)) && (o.Input(2) == nil || !o.Needs(2) || o.In[2].Rank() <= 2) {
+		gemm32(o, tA, tB, float32(alpha), beta, M, N, a32, ar, ac, b32, br, bc)
+		return nil
+	}
+	g := o.G(0)
 	if ok1 && ok2 && !forceF64 {
 		gemmF32(o, tA, tB, float32(alpha), g, M, N, a32, ar, ac, b32, br, bc)
 	} else if ga := o.Grad(0); ga != nil {
@@ -153,6 +157,50 @@ func matmulVJP(o *Op) error {
 		}
 	}
 	return nil
+}
+
+// gemm32 is gemmVJP for float32 operands with float32 gradients
+// (grad32.go): G read as float32 (narrowed once when it comes as float64,
+// as the seed does), dA written by the SGEMM in float32, dB and dC summed
+// in float64.
+func gemm32(o *Op, tA, tB bool, alpha float32, beta float64, M, N int, a []float32, ar, ac int, b []float32, br, bc int) {
+	g32 := o.G32(0)
+	if ga := o.GradFull32(0); ga != nil {
+		if !tA { // dA [M,K] = α·G·op(B)ᵀ
+			K := ac
+			gemm.Sgemm(false, !tB, M, K, N, alpha, g32, N, b, bc, 0, ga, K)
+		} else { // A [K,M]: dA = α·op(B)·Gᵀ [K,M]
+			K := ar
+			gemm.Sgemm(tB, true, K, M, N, alpha, b, bc, g32, N, 0, ga, M)
+		}
+	}
+	if gb := o.Grad(1); gb != nil {
+		out := scratch(len(gb))
+		defer release(out)
+		if !tB { // B [K,N]: dB = α·op(A)ᵀ·G
+			gemm.Sgemm(!tA, false, br, N, M, alpha, a, ac, g32, N, 0, out, N)
+		} else { // B [N,K]: dB = α·Gᵀ·op(A)
+			gemm.Sgemm(true, tA, N, bc, M, alpha, g32, N, a, ac, 0, out, bc)
+		}
+		for i, v := range out {
+			gb[i] += float64(v)
+		}
+	}
+	if gc := o.Grad(2); gc != nil {
+		switch {
+		case len(gc) == N && (o.In[2].Rank() == 1 || o.In[2].Shape[0] == 1): // a bias row: column sums
+			for i := 0; i < M; i++ {
+				for j, v := range g32[i*N : (i+1)*N] {
+					gc[j] += beta * float64(v)
+				}
+			}
+		default:
+			m := bcastMap(o.In[2].Shape, o.Out[0].Shape)
+			for k, v := range g32 {
+				gc[m[k]] += beta * float64(v)
+			}
+		}
+	}
 }
 
 // gemmF32 is Gemm's dA and dB for float32 operands, with the float32 SGEMM

@@ -107,10 +107,13 @@ func batchNormVJP(o *Op) error {
 	I := prod(X.Shape[2:])
 	eps := float64(o.Float("epsilon", 1e-5))
 	s, mean, vr := o.X(1), o.X(3), o.X(4)
+	x32, _ := X.Data.([]float32)
+	if x32 != nil && o.has32(0) && (o.want32(0) || !o.Needs(0)) {
+		return batchNorm32(o, N, C, I, eps, x32)
+	}
 	g := o.G(0)
 	// gx may be G itself: each plane's sums are taken before it is overwritten
 	gx, gs, gb := o.InPlace(0), o.Grad(1), o.Grad(2)
-	x32, _ := X.Data.([]float32)
 	var x []float64
 	if gs != nil && x32 == nil {
 		x = o.X(0)

@@ -32,12 +32,26 @@ func maxPoolVJP(o *Op) error {
 	if err != nil {
 		return err
 	}
+	planes := X.Shape[0] * X.Shape[1]
+	if x32, ok := X.Data.([]float32); ok && o.has32(0) && o.want32(0) { // float32 (grad32.go)
+		y32, _ := Y.Data.([]float32)
+		if y32 != nil {
+			g := o.G32(0)
+			gx := o.Grad32(0)
+			if is2x2(win) {
+				gx = o.GradFull32(0)
+			}
+			split(planes*win.I, func(lo, hi int) {
+				maxPoolPlanes(win, x32, y32, g, gx, (lo+win.I-1)/max(win.I, 1), (hi+win.I-1)/max(win.I, 1))
+			})
+			return nil
+		}
+	}
 	g := o.G(0)
 	gx := o.Grad(0)
 	if is2x2(win) {
 		gx = o.GradFull(0) // maxPool2x2Planes writes every element
 	}
-	planes := X.Shape[0] * X.Shape[1]
 	// each plane's gradient lands in its own input plane: planes split freely
 	split(planes*win.I, func(lo, hi int) {
 		p0, p1 := (lo+win.I-1)/max(win.I, 1), (hi+win.I-1)/max(win.I, 1)
@@ -65,7 +79,7 @@ func is2x2(win *window) bool {
 // that, the largest), for planes [p0, p1), in the model's own precision:
 // it adds into gx, except for 2×2 windows (is2x2), where it writes every
 // element of the planes.
-func maxPoolPlanes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
+func maxPoolPlanes[T, U float32 | float64](win *window, x, y []T, g, gx []U, p0, p1 int) {
 	if is2x2(win) {
 		maxPool2x2Planes(win, x, y, g, gx, p0, p1)
 		return
@@ -95,8 +109,7 @@ func maxPoolPlanes[T float32 | float64](win *window, x, y []T, g, gx []float64, 
 }
 
 func avgPoolVJP(o *Op) error {
-	gx := o.Grad(0)
-	if gx == nil {
+	if !o.Needs(0) {
 		return nil
 	}
 	X, Y := o.In[0], o.Out[0]
@@ -137,15 +150,25 @@ func avgPoolVJP(o *Op) error {
 		}
 		incr(op, win.out)
 	}
-	g := o.G(0)
 	planes := X.Shape[0] * X.Shape[1]
+	if o.has32(0) && o.want32(0) { // float32 (grad32.go)
+		avgPoolPlanes(win, div, planes, o.G32(0), o.Grad32(0))
+		return nil
+	}
+	avgPoolPlanes(win, div, planes, o.G(0), o.Grad(0))
+	return nil
+}
+
+// avgPoolPlanes adds each output's gradient, divided by div[p], to its
+// window's taps inside the input.
+func avgPoolPlanes[U float32 | float64](win *window, div []float64, planes int, g, gx []U) {
 	for pl := 0; pl < planes; pl++ {
 		dx := gx[pl*win.I : (pl+1)*win.I]
 		for p := 0; p < win.P; p++ {
 			if div[p] == 0 {
 				continue
 			}
-			v := g[pl*win.P+p] / div[p]
+			v := U(float64(g[pl*win.P+p]) / div[p])
 			for t := 0; t < win.K; t++ {
 				if off := win.taps[p*win.K+t]; off >= 0 {
 					dx[off] += v
@@ -153,17 +176,27 @@ func avgPoolVJP(o *Op) error {
 			}
 		}
 	}
-	return nil
 }
 
 func globalAvgVJP(o *Op) error {
-	gx := o.Grad(0)
-	if gx == nil {
+	if !o.Needs(0) {
 		return nil
 	}
 	X := o.In[0]
 	planes := X.Shape[0] * X.Shape[1]
 	I := prod(X.Shape[2:])
+	if o.has32(0) && o.want32(0) { // float32 (grad32.go)
+		g, gx := o.G32(0), o.GradFull32(0)
+		for pl := 0; pl < planes; pl++ {
+			v := float32(float64(g[pl]) / float64(I))
+			d := gx[pl*I : (pl+1)*I]
+			for i := range d {
+				d[i] = v
+			}
+		}
+		return nil
+	}
+	gx := o.Grad(0)
 	g := o.G(0)
 	for pl := 0; pl < planes; pl++ {
 		v := g[pl] / float64(I)
@@ -204,8 +237,14 @@ func globalMaxVJP(o *Op) error {
 // branches, which tap holds the maximum being as good as random; a window
 // whose chosen tap is not equal to the maximum as a float (a NaN maximum)
 // takes the general rule.
-func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float64, p0, p1 int) {
+func maxPool2x2Planes[T, U float32 | float64](win *window, x, y []T, g, gx []U, p0, p1 int) {
 	H, W, OH, OW := win.in[0], win.in[1], win.out[0], win.out[1]
+	// all float32 (grad32.go): the rows by the vector loop where there is one
+	x32, _ := any(x).([]float32)
+	y32, _ := any(y).([]float32)
+	g32, _ := any(g).([]float32)
+	d32, vec := any(gx).([]float32)
+	vec = vec && x32 != nil && haveBN512
 	for pl := p0; pl < p1; pl++ {
 		xp, dx := x[pl*H*W:(pl+1)*H*W], gx[pl*H*W:(pl+1)*H*W]
 		yp, gp := y[pl*OH*OW:(pl+1)*OH*OW], g[pl*OH*OW:(pl+1)*OH*OW]
@@ -216,54 +255,62 @@ func maxPool2x2Planes[T float32 | float64](win *window, x, y []T, g, gx []float6
 			if 2*OW < W { // the column right of the last window
 				dx[r0+W-1], dx[r1+W-1] = 0, 0
 			}
-			for ow := 0; ow < OW; ow++ {
-				want := yp[oh*OW+ow]
-				kw := floatKey(float64(want))
-				i := 2 * ow
-				s := 3 // tap 0..3: (r0, i), (r0, i+1), (r1, i), (r1, i+1)
-				if floatKey(float64(xp[r1+i])) == kw {
-					s = 2
-				}
-				if floatKey(float64(xp[r0+i+1])) == kw {
-					s = 1
-				}
-				if floatKey(float64(xp[r0+i])) == kw {
-					s = 0
-				}
-				taps := [4]int{r0 + i, r0 + i + 1, r1 + i, r1 + i + 1}
-				if xp[taps[s]] != want { // NaN: the general rule
-					s, bv := -1, T(math.Inf(-1))
-					for t, off := range taps {
-						if xp[off] > bv {
-							s, bv = t, xp[off]
-						}
-					}
-					for t, off := range taps {
-						dx[off] = 0
-						if t == s {
-							dx[off] = gp[oh*OW+ow]
-						}
-					}
-					continue
-				}
-				vb := math.Float64bits(gp[oh*OW+ow])
-				var m0, m1, m2, m3 uint64
-				if s == 0 {
-					m0 = vb
-				}
-				if s == 1 {
-					m1 = vb
-				}
-				if s == 2 {
-					m2 = vb
-				}
-				if s == 3 {
-					m3 = vb
-				}
-				dx[r0+i], dx[r0+i+1] = math.Float64frombits(m0), math.Float64frombits(m1)
-				dx[r1+i], dx[r1+i+1] = math.Float64frombits(m2), math.Float64frombits(m3)
+			if !vec || !maxPool2x2RowVec(x32[pl*H*W:(pl+1)*H*W], y32[pl*OH*OW:(pl+1)*OH*OW], g32[pl*OH*OW:(pl+1)*OH*OW], d32[pl*H*W:(pl+1)*H*W], r0, r1, oh*OW, OW) {
+				maxPool2x2Row(xp, yp, gp, dx, r0, r1, oh*OW, OW)
 			}
 		}
+	}
+}
+
+// maxPool2x2Row is maxPool2x2Planes for one row of OW windows: input rows
+// starting at r0 and r1, outputs from q.
+func maxPool2x2Row[T, U float32 | float64](xp, yp []T, gp, dx []U, r0, r1, q, OW int) {
+	for ow := 0; ow < OW; ow++ {
+		want := yp[q+ow]
+		kw := floatKey(float64(want))
+		i := 2 * ow
+		s := 3 // tap 0..3: (r0, i), (r0, i+1), (r1, i), (r1, i+1)
+		if floatKey(float64(xp[r1+i])) == kw {
+			s = 2
+		}
+		if floatKey(float64(xp[r0+i+1])) == kw {
+			s = 1
+		}
+		if floatKey(float64(xp[r0+i])) == kw {
+			s = 0
+		}
+		taps := [4]int{r0 + i, r0 + i + 1, r1 + i, r1 + i + 1}
+		if xp[taps[s]] != want { // NaN: the general rule
+			s, bv := -1, T(math.Inf(-1))
+			for t, off := range taps {
+				if xp[off] > bv {
+					s, bv = t, xp[off]
+				}
+			}
+			for t, off := range taps {
+				dx[off] = 0
+				if t == s {
+					dx[off] = gp[q+ow]
+				}
+			}
+			continue
+		}
+		vb := math.Float64bits(float64(gp[q+ow]))
+		var m0, m1, m2, m3 uint64
+		if s == 0 {
+			m0 = vb
+		}
+		if s == 1 {
+			m1 = vb
+		}
+		if s == 2 {
+			m2 = vb
+		}
+		if s == 3 {
+			m3 = vb
+		}
+		dx[r0+i], dx[r0+i+1] = U(math.Float64frombits(m0)), U(math.Float64frombits(m1))
+		dx[r1+i], dx[r1+i+1] = U(math.Float64frombits(m2)), U(math.Float64frombits(m3))
 	}
 }
 

@@ -29,6 +29,13 @@ func init() {
 }
 
 func sameOrder(o *Op) error {
+	if o.has32(0) && o.want32(0) { // float32 (grad32.go)
+		g := o.G32(0)
+		if gx := o.InPlace32(0); gx != nil {
+			copy(gx, g)
+		}
+		return nil
+	}
 	g := o.G(0)
 	if gx := o.InPlace(0); gx != nil {
 		copy(gx, g) // nothing to move when gx is G itself

@@ -25,8 +25,16 @@ type Tape struct {
 	// memo keeps what a VJP derives from a node's attributes and shapes
 	// (convolution geometry, reordered weights) from batch to batch.
 	memo map[*loader.Node]any
-	// free keeps the gradient buffers of one backward pass for the next
-	free *freeList
+	// free keeps the gradient buffers of one backward pass for the next,
+	// free32 the float32 ones
+	free   *freeList
+	free32 *pool[float32]
+	// only64 keeps every gradient in float64 (tests: the reference of the
+	// float32 path)
+	only64 bool
+	// Widened counts, in the last backward pass, the float32 gradients
+	// widened to float64 for a rule without a float32 path (rules32)
+	Widened int
 	// arena pools the float32 outputs of the forward kernels the rules
 	// run (dX's convolutions), within a pass and from one pass to the next
 	arena *tensor.Arena
@@ -38,7 +46,7 @@ type Tape struct {
 
 // NewTape prepares a tape for batches of plan p.
 func NewTape(p *probe.Plan) *Tape {
-	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}}
+	t := &Tape{plan: p, step: map[*loader.Node]int{}, memo: map[*loader.Node]any{}, free: &freeList{byLen: map[int][][]float64{}}, free32: &pool[float32]{byLen: map[int][][]float32{}}}
 	t.arena = &tensor.Arena{Budget: tensor.MemoryBudget(), Pool: tensor.NewPool(arenaPool)}
 	t.uses, t.made = map[string]int{}, map[string]string{}
 	for i, s := range p.Steps {
@@ -178,6 +186,10 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		}
 	}
 	grads := map[string][]float64{}
+	// float32 gradients of float32 values (grad32.go); a value is in one
+	// of the two maps at most
+	grads32 := map[string][]float32{}
+	t.Widened = 0
 	for name, g := range seed {
 		v := t.vals[name]
 		if v == nil {
@@ -189,26 +201,61 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		grads[name] = append([]float64(nil), g...)
 	}
 	res := &Result{Params: map[string][]float64{}, Inputs: map[string][]float64{}, Missing: map[string][]string{}}
-	free := t.free
+	free, free32 := t.free, t.free32
+	// wide is a float32 gradient widened for value or for a rule without a
+	// float32 path (counted)
+	wide := func(g []float32) []float64 {
+		w := free.getRaw(len(g))
+		widen(w, g)
+		return w
+	}
 	// masks: ReLU rules left to the BatchNormalization below them, by the
 	// BatchNormalization's output (fuseRelu)
 	masks := map[string]pendingMask{}
+	// known: Σ g² of final gradients a rule took as it wrote them
+	// (reportInSq), by value
+	known := map[string]float64{}
 	for i := len(p.Steps) - 1; i >= 0; i-- {
 		s := &p.Steps[i]
 		n := s.Node
-		if value == nil && sq != nil && t.fuseRelu(n, grads, wants) {
-			g := grads[n.Outputs[0]]
-			delete(grads, n.Outputs[0])
-			masks[n.Inputs[0]] = pendingMask{x: t.vals[n.Inputs[0]].Data.([]float32), step: i, out: n.Outputs[0]}
-			grads[n.Inputs[0]] = g // the mask is applied by the BatchNormalization rule
+		if value == nil && sq != nil && t.fuseRelu(n, grads, grads32, wants) {
+			out, in := n.Outputs[0], n.Inputs[0]
+			if g, ok := grads[out]; ok {
+				delete(grads, out)
+				grads[in] = g // the mask is applied by the BatchNormalization rule
+			} else {
+				grads32[in] = grads32[out]
+				delete(grads32, out)
+			}
+			masks[in] = pendingMask{x: t.vals[in].Data.([]float32), step: i, out: out}
 			continue
 		}
 		gOut := make([][]float64, len(n.Outputs))
+		gOut32 := make([][]float32, len(n.Outputs))
 		any := false
 		// the rule gives Σ G² of its single output (sqRules): reported after it
 		deferSq := sq != nil && len(n.Outputs) == 1 && sqRules[n.OpType] && (n.Domain == "" || n.Domain == "ai.onnx")
 		for j, o := range n.Outputs {
-			if g, ok := grads[o]; ok && o != "" {
+			if o == "" {
+				continue
+			}
+			if s, ok := known[o]; ok && sq != nil {
+				delete(known, o)
+				if g, ok := grads32[o]; ok {
+					sq(i, o, len(g), s)
+					gOut32[j] = g
+					any = true
+					if value != nil {
+						w := wide(g)
+						value(i, o, w)
+						free.put(w)
+					}
+					delete(grads32, o)
+					deferSq = false
+					continue
+				}
+			}
+			if g, ok := grads[o]; ok {
 				gOut[j] = g
 				any = true
 				if value != nil {
@@ -218,6 +265,18 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 					sq(i, o, len(g), sumSq(g))
 				}
 				delete(grads, o)
+			} else if g, ok := grads32[o]; ok {
+				gOut32[j] = g
+				any = true
+				if value != nil {
+					w := wide(g)
+					value(i, o, w)
+					free.put(w)
+				}
+				if sq != nil && !deferSq {
+					sq(i, o, len(g), sumSq32(g))
+				}
+				delete(grads32, o)
 			}
 		}
 		// a ReLU above left its mask: the BatchNormalization rule applies it
@@ -225,12 +284,17 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		pm, masked := masks[n.Outputs[0]]
 		delete(masks, n.Outputs[0])
 		unmask := func() {
-			if masked && gOut[0] != nil {
-				g := gOut[0]
+			if !masked {
+				return
+			}
+			if g := gOut[0]; g != nil {
 				raw := splitSum(len(g), func(lo, hi int) float64 { return reluMaskSq(g[lo:hi], g[lo:hi], pm.x[lo:hi]) })
 				sq(pm.step, pm.out, len(g), raw)
-				masked = false
+			} else if g := gOut32[0]; g != nil {
+				raw := splitSum(len(g), func(lo, hi int) float64 { return reluMaskSq32(g[lo:hi], g[lo:hi], pm.x[lo:hi]) })
+				sq(pm.step, pm.out, len(g), raw)
 			}
+			masked = false
 		}
 		if !any {
 			continue
@@ -238,19 +302,24 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		// flushSq reports the deferred sum: the rule's, or taken from G,
 		// which a rule that does not report leaves unchanged
 		flushSq := func(op *Op) {
-			if !deferSq || gOut[0] == nil {
+			if !deferSq || (gOut[0] == nil && gOut32[0] == nil) {
 				return
 			}
-			if op != nil && op.gsqOK {
-				sq(i, n.Outputs[0], len(gOut[0]), op.gsq)
-			} else {
+			switch {
+			case op != nil && op.gsqOK:
+				sq(i, n.Outputs[0], n0(gOut[0], gOut32[0]), op.gsq)
+			case gOut[0] != nil:
 				sq(i, n.Outputs[0], len(gOut[0]), sumSq(gOut[0]))
+			default:
+				sq(i, n.Outputs[0], len(gOut32[0]), sumSq32(gOut32[0]))
 			}
 		}
 		if isParamNode(n) { // a weight given as a Constant node
 			for j, o := range n.Outputs {
 				if gOut[j] != nil {
 					res.Params[o] = gOut[j]
+				} else if gOut32[j] != nil {
+					res.Params[o] = wide(gOut32[j])
 				}
 			}
 			continue
@@ -293,11 +362,30 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 				out[j] = t.vals[name]
 			}
 		}
+		f32 := !t.only64 && rules32[n.OpType]
+		if !f32 { // a rule without a float32 path reads G widened
+			for j, g := range gOut32 {
+				if g != nil {
+					gOut[j], gOut32[j] = wide(g), nil
+					free32.put(g)
+					t.Widened++
+				}
+			}
+		}
 		op := NewOp(&probe.Call{Node: n, In: in, Out: out, Opset: s.Opset}, gOut, need)
+		op.GOut32 = gOut32
+		op.f32 = f32
 		op.alloc, op.allocRaw = free.get, free.getRaw
+		op.alloc32, op.allocRaw32 = free32.get, free32.getRaw
+		op.widened = &t.Widened
 		op.memo = t.memo
 		op.arena = t.arena
 		op.wantSq = deferSq
+		if f32 && n.OpType == "Conv" && len(n.Inputs) > 0 && n.Inputs[0] != "" {
+			if g, ok := grads32[n.Inputs[0]]; ok && len(g) == in[0].Size() {
+				op.acc32 = g // dX's convolutions add into it (conv32)
+			}
+		}
 		if masked {
 			if _, ok := in[0].Data.([]float32); ok && n.OpType == "BatchNormalization" && deferSq {
 				op.mask = pm.x
@@ -312,7 +400,7 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 				if !op.rawSqOK {
 					return nil, fmt.Errorf("gradient of node %q (%s): internal error: the ReLU mask was not applied", n.Name, n.OpType)
 				}
-				sq(pm.step, pm.out, len(gOut[0]), op.rawSq)
+				sq(pm.step, pm.out, n0(gOut[0], gOut32[0]), op.rawSq)
 			}
 			flushSq(op)
 		}
@@ -325,32 +413,41 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 			}
 			return nil, fmt.Errorf("gradient of node %q (%s): %w", n.Name, n.OpType, err)
 		}
-		// the outputs' gradients are used up: their storage serves later steps
-		for _, g := range gOut {
+		// the outputs' gradients are used up (with the copies G and G32
+		// made): their storage serves later steps
+		for _, g := range op.GOut {
 			if g != nil && !aliases(g, op.GIn) {
 				free.put(g)
 			}
 		}
+		for _, g := range op.GOut32 {
+			if g != nil && !aliases32(g, op.GIn32) {
+				free32.put(g)
+			}
+		}
+		if op.inSqOK && sq != nil && len(n.Inputs) > 0 && t.uses[n.Inputs[0]] == 1 && op.GIn32[0] != nil {
+			if _, started := grads32[n.Inputs[0]]; !started {
+				known[n.Inputs[0]] = op.inSq
+			}
+		}
 		for j, name := range n.Inputs {
-			g := op.GIn[j]
-			if g == nil || name == "" {
+			if name == "" {
 				continue
 			}
-			if acc, ok := grads[name]; ok { // a value read by several nodes
-				split(len(g), func(lo, hi int) {
-					a := acc[lo:hi]
-					for k, v := range g[lo:hi] {
-						a[k] += v
-					}
-				})
-			} else {
-				grads[name] = g
+			if g := op.GIn[j]; g != nil {
+				t.addGrad(grads, grads32, name, g, nil)
+			} else if g := op.GIn32[j]; g != nil {
+				t.addGrad(grads, grads32, name, nil, g)
 			}
 		}
 	}
 	// buffers a kernel drew from the arena without handing them back are
 	// forgotten (the pool keeps only those put back)
 	t.arena.Pool.Recycle(nil, nil)
+	for name, g := range grads32 {
+		grads[name] = wide(g)
+		free32.put(g)
+	}
 	for name, g := range grads {
 		if _, init := p.Graph.Initializers[name]; init {
 			res.Params[name] = g
@@ -359,6 +456,62 @@ func (t *Tape) backward(seed map[string][]float64, value func(step int, name str
 		}
 	}
 	return res, nil
+}
+
+// n0 is the length of whichever of g, g32 is set.
+func n0(g []float64, g32 []float32) int {
+	if g != nil {
+		return len(g)
+	}
+	return len(g32)
+}
+
+// addGrad adds one reader's gradient of value name (g or g32) to the
+// pending ones: float32 + float32 in float32, a mix in float64.
+func (t *Tape) addGrad(grads map[string][]float64, grads32 map[string][]float32, name string, g []float64, g32 []float32) {
+	add64 := func(acc []float64, g []float64) {
+		split(len(g), func(lo, hi int) {
+			a := acc[lo:hi]
+			for k, v := range g[lo:hi] {
+				a[k] += v
+			}
+		})
+	}
+	add32 := func(acc []float64, g []float32) {
+		split(len(g), func(lo, hi int) {
+			a := acc[lo:hi]
+			for k, v := range g[lo:hi] {
+				a[k] += float64(v)
+			}
+		})
+	}
+	acc, ok := grads[name]
+	acc32, ok32 := grads32[name]
+	switch {
+	case g != nil && ok: // a value read by several nodes
+		add64(acc, g)
+	case g != nil && ok32:
+		add32(g, acc32)
+		t.free32.put(acc32)
+		delete(grads32, name)
+		grads[name] = g
+	case g != nil:
+		grads[name] = g
+	case ok:
+		add32(acc, g32)
+		t.free32.put(g32)
+	case ok32 && len(g32) > 0 && &acc32[0] == &g32[0]: // the rule added into it (Op.acc32)
+	case ok32:
+		split(len(g32), func(lo, hi int) {
+			a := acc32[lo:hi]
+			for k, v := range g32[lo:hi] {
+				a[k] += v
+			}
+		})
+		t.free32.put(g32)
+	default:
+		grads32[name] = g32
+	}
 }
 
 // arenaPool bounds the free float32 buffers the tape's arena keeps
@@ -378,20 +531,24 @@ type pendingMask struct {
 // it can do in its own pass over G (one pass over the buffer less): a
 // float32 ReLU whose input is a float32 BatchNormalization's output read by
 // it alone, with a gradient at its output and none at its input yet.
-func (t *Tape) fuseRelu(n *loader.Node, grads map[string][]float64, wants map[string]bool) bool {
+func (t *Tape) fuseRelu(n *loader.Node, grads map[string][]float64, grads32 map[string][]float32, wants map[string]bool) bool {
 	if n.OpType != "Relu" || (n.Domain != "" && n.Domain != "ai.onnx") || len(n.Inputs) != 1 || len(n.Outputs) != 1 {
 		return false
 	}
 	in, out := n.Inputs[0], n.Outputs[0]
 	g, ok := grads[out]
-	if !ok || !wants[in] || t.uses[in] != 1 || t.made[in] != "BatchNormalization" {
+	g32, ok32 := grads32[out]
+	if !(ok || ok32) || !wants[in] || t.uses[in] != 1 || t.made[in] != "BatchNormalization" {
 		return false
 	}
 	if _, started := grads[in]; started {
 		return false
 	}
+	if _, started := grads32[in]; started {
+		return false
+	}
 	x, ok := t.vals[in].Data.([]float32)
-	return ok && len(x) == len(g)
+	return ok && len(x) == n0(g, g32)
 }
 
 // freeList recycles gradient buffers within a backward pass and from one
@@ -399,14 +556,18 @@ func (t *Tape) fuseRelu(n *loader.Node, grads map[string][]float64, wants map[st
 // exact size, or else the smallest one up to fitSlack times larger (a
 // fresh buffer costs the runtime's zeroing and the first touch of its
 // pages, about 5% of the backward pass of resnet_tiny).
-type freeList struct{ byLen map[int][][]float64 }
+type freeList = pool[float64]
+
+// pool is the free list of one element type (freeList: float64; the
+// tape's free32: float32 gradients).
+type pool[T float32 | float64] struct{ byLen map[int][][]T }
 
 // fitSlack bounds the memory a recycled buffer wastes (common practice:
 // a small power of two).
 const fitSlack = 4
 
 // take removes and returns a free buffer for n elements (nil: none fits).
-func (f *freeList) take(n int) []float64 {
+func (f *pool[T]) take(n int) []T {
 	c := n
 	if len(f.byLen[n]) == 0 {
 		c = 0
@@ -425,23 +586,23 @@ func (f *freeList) take(n int) []float64 {
 	return b[:n]
 }
 
-func (f *freeList) get(n int) []float64 {
+func (f *pool[T]) get(n int) []T {
 	if b := f.take(n); b != nil {
 		clear(b)
 		return b
 	}
-	return make([]float64, n)
+	return make([]T, n)
 }
 
 // getRaw is get without clearing a recycled buffer.
-func (f *freeList) getRaw(n int) []float64 {
+func (f *pool[T]) getRaw(n int) []T {
 	if b := f.take(n); b != nil {
 		return b
 	}
-	return make([]float64, n)
+	return make([]T, n)
 }
 
-func (f *freeList) put(b []float64) {
+func (f *pool[T]) put(b []T) {
 	if cap(b) > 0 {
 		f.byLen[cap(b)] = append(f.byLen[cap(b)], b[:cap(b)])
 	}

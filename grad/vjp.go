@@ -19,6 +19,21 @@ type Op struct {
 	// GIn[i] is dL/d(input i), allocated by Grad; nil for inputs that take
 	// no gradient (absent, not float, or not depending on a parameter).
 	GIn [][]float64
+	// GOut32 and GIn32 are GOut and GIn held in float32 (grad32.go): each
+	// output's gradient comes in one of GOut[j], GOut32[j] (G and G32 make
+	// the other from it), each input's goes to one of GIn[i], GIn32[i].
+	GOut32 [][]float32
+	GIn32  [][]float32
+	// f32 lets a rule of rules32 give float32 inputs float32 gradients
+	// (set by the tape; a rule called without it gives float64 ones)
+	f32 bool
+	// alloc32 and allocRaw32 are alloc and allocRaw for float32 buffers;
+	// widened counts the float32 gradients a rule read as float64
+	alloc32, allocRaw32 func(n int) []float32
+	widened             *int
+	// acc32, when set, is input 0's float32 gradient from other readers,
+	// pending: a rule may add its own into it and make it GIn32[0]
+	acc32 []float32
 	// need[i] reports whether input i wants a gradient.
 	need []bool
 	xs   map[int][]float64
@@ -38,6 +53,9 @@ type Op struct {
 	wantSq bool
 	gsq    float64
 	gsqOK  bool
+	// inSq: Σ g² of dL/d(input 0) as written (reportInSq)
+	inSq   float64
+	inSqOK bool
 	// mask, when set, is the float32 input of a ReLU above this
 	// BatchNormalization whose rule the tape left to it: G is taken as 0
 	// where mask ≤ 0 (or NaN), and Σ G² before the mask goes to rawSq.
@@ -53,6 +71,11 @@ var sqRules = map[string]bool{"Relu": true, "BatchNormalization": true, "Conv": 
 
 // reportSq records Σ G² of output 0 for the tape's grad_rms.
 func (o *Op) reportSq(s float64) { o.gsq, o.gsqOK = s, true }
+
+// reportInSq records Σ g² of the gradient the rule wrote for input 0, taken
+// as it wrote it: when that value has no other reader, the tape reports it
+// for the value instead of summing its gradient again.
+func (o *Op) reportInSq(s float64) { o.inSq, o.inSqOK = s, true }
 
 // memoize returns what build derives for this node, computed once per tape
 // while valid(v) holds for the stored value (without a tape: every call).
@@ -113,7 +136,7 @@ func Ops() []string {
 // NewOp prepares a node for its VJP: forward inputs and outputs, the output
 // gradients, and which inputs want a gradient (nil need: every float input).
 func NewOp(c *probe.Call, gOut [][]float64, need []bool) *Op {
-	o := &Op{Call: c, GOut: gOut, GIn: make([][]float64, len(c.In)), need: need}
+	o := &Op{Call: c, GOut: gOut, GIn: make([][]float64, len(c.In)), GIn32: make([][]float32, len(c.In)), need: need}
 	if o.need == nil {
 		o.need = make([]bool, len(c.In))
 		for i, t := range c.In {
@@ -204,10 +227,20 @@ func (o *Op) Y(j int) []float64 {
 }
 
 // G is dL/d(output j); a zero slice of the output's size when no gradient
-// reached it.
+// reached it. A float32 gradient is widened (once: it becomes GOut[j]).
 func (o *Op) G(j int) []float64 {
 	if j < len(o.GOut) && o.GOut[j] != nil {
 		return o.GOut[j]
+	}
+	if j < len(o.GOut32) && o.GOut32[j] != nil {
+		// GOut32[j] stays: the tape recycles both
+		g := o.raw64(len(o.GOut32[j]))
+		widen(g, o.GOut32[j])
+		o.GOut[j] = g
+		if o.widened != nil {
+			*o.widened++
+		}
+		return g
 	}
 	return make([]float64, o.Out[j].Size())
 }
