@@ -204,10 +204,13 @@ func ymap(y float64, logY bool) float64 {
 }
 
 // logTicks labels the powers of ten and marks 2 and 5 times them as minor
-// ticks, on an axis of log10 values.
+// ticks, on an axis of log10 values. An axis spanning less than about two
+// decades (fewer than two powers of ten on it) labels the 2× and 5× ticks
+// too, so that a reader always has two numbers to read a point against.
 type logTicks struct{}
 
 func (logTicks) Ticks(lmin, lmax float64) []plot.Tick {
+	labelAll := math.Floor(lmax)-math.Ceil(lmin) < 1
 	var ts []plot.Tick
 	for e := math.Floor(lmin); e <= math.Ceil(lmax); e++ {
 		base := math.Pow(10, e)
@@ -217,7 +220,7 @@ func (logTicks) Ticks(lmin, lmax float64) []plot.Tick {
 				continue
 			}
 			t := plot.Tick{Value: math.Log10(v)}
-			if m == 1 {
+			if m == 1 || labelAll {
 				t.Label = trimFloat(v)
 			}
 			ts = append(ts, t)
