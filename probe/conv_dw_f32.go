@@ -9,7 +9,9 @@ package probe
 // multiply-adds per output for 3×3), so there is no GEMM: whole planes go to
 // a worker, the bias is the accumulator's start value (every element of Y is
 // written, none read first), and a fused activation (Call.fuse) is applied
-// to the plane while it is still in cache. 3×3 undilated windows with stride
+// to the plane while it is still in cache. Planes whose output rows fit one
+// vector (OW ≤ 16, windows up to 7×7, strides 1 or 2) run dwSmallPlane
+// (AVX-512); other 3×3 undilated windows with stride
 // 1 or 2 run a row kernel (AVX-512 or AVX2+FMA on amd64, dw3RowGo
 // elsewhere); other windows go tap by tap through dwGenericPlane.
 
@@ -35,9 +37,14 @@ func convDepthwise2D(a *convF32Args) {
 	if f := a.c.fuse; f != nil && f.out != nil {
 		act, ad = f.f32, f.out.F32()
 	}
-	row3 := KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 && (g.strides[1] == 1 || g.strides[1] == 2) && W <= len(dwZeroRow)
+	small := dwSmallOK(g)
+	var sa dwSmallArgs
+	if small {
+		sa = newDwSmallArgs(g)
+	}
+	row3 := !small && KH == 3 && KW == 3 && g.dil[0] == 1 && g.dil[1] == 1 && (g.strides[1] == 1 || g.strides[1] == 2) && W <= len(dwZeroRow)
 	flat := row3 && g.strides[0] == 1 && g.strides[1] == 1 && OW < dwFlatWidth
-	taps := !row3 && KH*KW <= dwMaxTaps
+	taps := !small && !row3 && KH*KW <= dwMaxTaps
 	var offs []int
 	if taps {
 		offs = dwTapOffsets(g)
@@ -54,6 +61,7 @@ func convDepthwise2D(a *convF32Args) {
 			tw = new(dwTapsWork)
 			tw.init(g, offs, *scratch)
 		}
+		sa := sa // each worker its own copy (dwSmallPlane sets w and bias)
 		for p := p0; p < p1; p++ {
 			n, m := p/a.M, p%a.M
 			ci := m / a.Mg // input channel (Cg == 1)
@@ -64,7 +72,9 @@ func convDepthwise2D(a *convF32Args) {
 			if a.bd != nil {
 				bias = a.bd[m]
 			}
-			if flat {
+			if small {
+				dwSmallPlane(y, x, w, bias, &sa)
+			} else if flat {
 				dw3x3FlatPlane(y, x, w, bias, H, W, OH, OW, g.padBeg[0], g.padBeg[1], *scratch, p > p0)
 			} else if row3 {
 				dw3x3Plane(y, x, w, bias, H, W, OH, OW, g.strides[0], g.strides[1], g.padBeg[0], g.padBeg[1])
