@@ -25,8 +25,8 @@ type dwSmallArgs struct {
 	h, wd, oh, ow  int
 	kh, kw, pt, sh int
 	sw             int
-	bias           float32 // set per plane
-	outMask        uint32  // lanes j < OW
+	bias           float32   // set per plane
+	outMask        uint32    // lanes j < OW
 	offs           [7]int    // kw − pl: column of lane 0's tap kw (stride 1), or of the 32-value window's start (stride 2)
 	masks          [7]uint32 // lanes (stride 2: of the 32-value window) whose tap kw lies inside the image
 	zero           *float32  // a row of zeros standing in for rows outside the image
