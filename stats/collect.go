@@ -471,6 +471,14 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 		}
 	}
 	for i, n := range g.Nodes {
+		if _, in := c.composite.inner[n]; in {
+			// a value inside x·sigmoid(x) or the erf GELU is an elementwise
+			// function of the activation's input, which is observed, and read
+			// only inside the pattern (a NaN there shows at its end): its own
+			// pass would repeat that layer's statistics at a quarter of the
+			// encoder's statistics cost, so it is not a layer
+			continue
+		}
 		for _, o := range n.Outputs {
 			if o == "" || !c.dataDep[o] {
 				continue
