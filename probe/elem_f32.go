@@ -340,11 +340,22 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 	KH, KW := g.k[0], g.k[1]
 	sh, sw, dh, dw := g.strides[0], g.strides[1], g.dil[0], g.dil[1]
 	pt, pl := g.padBeg[0], g.padBeg[1]
+	// stride 1 with the output as wide as the input ("same" columns): the
+	// whole plane at once (poolMaxSamePlane)
+	same := sh == 1 && sw == 1 && dh == 1 && dw == 1 && OW == W && pt < KH && g.padEnd[0] < KH
 	parFor(planes, max(1, elemChunk/max(1, OH*OW*4)), func(p0, p1 int) {
 		tmp := make([]float32, W)
+		var vbuf []float32
+		if same {
+			vbuf = make([]float32, OH*W)
+		}
 		for pl0 := p0; pl0 < p1; pl0++ {
 			xp := x[pl0*H*W : (pl0+1)*H*W]
 			yp := y[pl0*OH*OW : (pl0+1)*OH*OW]
+			if same {
+				poolMaxSamePlane(yp, xp, vbuf, H, W, OH, KH, KW, pt, pl)
+				continue
+			}
 			for oh := 0; oh < OH; oh++ {
 				rows := 0
 				for kh := 0; kh < KH; kh++ {
@@ -370,6 +381,8 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 				if KW == 3 && sw == 2 && dw == 1 && pl == 1 {
 					vec0 = 1
 					vec1 = 1 + maxCols3s2Vec(yr, tmp)
+				} else if KW == 3 && sw == 2 && dw == 1 && pl == 0 {
+					vec1 = maxCols3s2Vec0(yr, tmp)
 				} else if sw == 1 {
 					vec0, vec1 = poolMaxColsS1(yr, tmp, KW, dw, pl)
 				}
@@ -398,6 +411,71 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 			}
 		}
 	})
+}
+
+// poolMaxSamePlane is one plane of poolMax2DF32 for stride 1, dilation 1,
+// OW = W (the left and right paddings add up to KW − 1) and top and bottom
+// paddings below KH (every window holds an image row), on whole planes
+// instead of row by row (a 14×14 plane's rows are too short for per-row
+// calls to pay): first v[oh] = the maximum of the window's input rows
+// (the rows whose window lies inside the image in KH − 1 long vector
+// maxima over all of them at once), then, on the flattened plane,
+// y[i] = max over k < KW of v[i − pl + k], which is each output's window
+// except where it wraps around a row end: the first pl and the last
+// KW − 1 − pl columns of each row are redone with their taps inside the
+// row. Go's max is commutative and associative (NaN wins, +0 beats −0), so
+// the bits are those of the row-by-row path.
+func poolMaxSamePlane(y, x, v []float32, H, W, OH, KH, KW, pt, pl int) {
+	a, b := max(0, pt), min(OH, H-KH+1+pt) // output rows whose window is inside the image
+	if a < b {
+		dst := v[a*W : b*W]
+		copy(dst, x[(a-pt)*W:])
+		for k := 1; k < KH; k++ {
+			maxInto(dst, x[(a-pt+k)*W:][:len(dst)])
+		}
+	}
+	for oh := 0; oh < OH; oh++ {
+		if oh >= a && oh < b {
+			continue
+		}
+		r0, r1 := max(0, oh-pt), min(H, oh-pt+KH)
+		dst := v[oh*W : (oh+1)*W]
+		copy(dst, x[r0*W:])
+		for r := r0 + 1; r < r1; r++ {
+			maxInto(dst, x[r*W:][:W])
+		}
+	}
+	n := OH * W
+	pr := KW - 1 - pl
+	if pl < n-pr {
+		mid := y[pl : n-pr]
+		copy(mid, v)
+		for k := 1; k < KW; k++ {
+			maxInto(mid, v[k:][:len(mid)])
+		}
+	}
+	for oh := 0; oh < OH; oh++ {
+		row, yr := v[oh*W:(oh+1)*W], y[oh*W:(oh+1)*W]
+		for c := 0; c < W; c++ {
+			if c == pl && c < W-pr {
+				c = W - pr - 1 // the columns between were right
+				continue
+			}
+			lo, hi := max(0, c-pl), min(W, c-pl+KW)
+			best := row[lo]
+			for _, u := range row[lo+1 : hi] {
+				best = max(best, u)
+			}
+			yr[c] = best
+		}
+	}
+}
+
+// maxInto sets dst[i] = max(dst[i], src[i]) (Go's max).
+func maxInto(dst, src []float32) {
+	for i := maxRowsVec(dst, dst, src); i < len(dst); i++ {
+		dst[i] = max(dst[i], src[i])
+	}
 }
 
 func poolMaxF32(y, x []float32, planes int, w *poolWindows) {

@@ -48,6 +48,22 @@ func maxCols3s2Vec(y, tmp []float32) int {
 	return k
 }
 
+// maxCols3s2Vec0 is maxCols3s2Vec for a window row without left padding:
+// it sets y[o] = max(tmp[2o], tmp[2o+1], tmp[2o+2]) for o < k and returns k
+// (a multiple of 16, 0 without AVX-512).
+func maxCols3s2Vec0(y, tmp []float32) int {
+	if !havePoolVec {
+		return 0
+	}
+	k := min(len(y), (len(tmp)-18)/2) &^ 15
+	if k <= 0 {
+		return 0
+	}
+	_, _ = y[k-1], tmp[2*k] // the last output and the last value read
+	maxCols3s2AVX512(&y[0], &tmp[1], k)
+	return k
+}
+
 // sum8AVX512 adds x[8i+j] to acc[j] for i < n/8, in order (n a multiple
 // of 8): the same float64 additions as the Go loop it replaces.
 //

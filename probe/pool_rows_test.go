@@ -160,3 +160,96 @@ func BenchmarkGlobalAvgPool(b *testing.B) {
 		})
 	}
 }
+
+// The whole-plane max pooling of "same" stride-1 windows (poolMaxSamePlane:
+// GoogLeNet's and Inception's 3×3 branch pools) and the 3-wide stride-2
+// windows without left padding (maxCols3s2Vec0: their ceil-mode
+// downsampling pools) against a direct Go max over each window, bit for
+// bit, on planes with NaN, +0 and −0 among the values (Go's max: NaN wins,
+// +0 beats −0; the ONNX MaxPool specification leaves those to the
+// implementation, so the direct loop is the reference).
+func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
+	r := rand.New(rand.NewSource(62))
+	saved := havePoolVec
+	defer func() { havePoolVec = saved }()
+	direct := func(x []float32, planes int, g *convGeom) []float32 {
+		H, W, OH, OW := g.in[0], g.in[1], g.out[0], g.out[1]
+		y := make([]float32, planes*OH*OW)
+		for p := 0; p < planes; p++ {
+			for oh := 0; oh < OH; oh++ {
+				for ow := 0; ow < OW; ow++ {
+					first, best := true, float32(0)
+					for kh := 0; kh < g.k[0]; kh++ {
+						for kw := 0; kw < g.k[1]; kw++ {
+							ih, iw := oh*g.strides[0]-g.padBeg[0]+kh, ow*g.strides[1]-g.padBeg[1]+kw
+							if ih < 0 || ih >= H || iw < 0 || iw >= W {
+								continue
+							}
+							v := x[p*H*W+ih*W+iw]
+							if first {
+								best, first = v, false
+							} else {
+								best = max(best, v)
+							}
+						}
+					}
+					y[(p*OH+oh)*OW+ow] = best
+				}
+			}
+		}
+		return y
+	}
+	ran := 0
+	for trial := 0; trial < 400; trial++ {
+		var K, s, pads []int
+		var ceil int64
+		if trial%2 == 0 { // same-width stride 1
+			kh, kw := 1+r.Intn(7), 1+r.Intn(7)
+			pl, pt := r.Intn(kw), r.Intn(kh)
+			K, s, pads = []int{kh, kw}, []int{1, 1}, []int{pt, pl, r.Intn(kh), kw - 1 - pl}
+		} else { // 3 wide, stride 2, no left padding
+			K, s, pads = []int{3, 3}, []int{2, 2}, []int{r.Intn(2), 0, r.Intn(2), r.Intn(2)}
+			ceil = int64(r.Intn(2))
+		}
+		H, W := 1+r.Intn(20), 1+r.Intn(80)
+		x := linRand(r, 2, 2, H, W)
+		xs := x.F32()
+		for k := 0; k < 1+len(xs)/20; k++ {
+			switch r.Intn(3) {
+			case 0:
+				xs[r.Intn(len(xs))] = float32(math.NaN())
+			case 1:
+				xs[r.Intn(len(xs))] = float32(math.Copysign(0, -1))
+			default:
+				xs[r.Intn(len(xs))] = 0
+			}
+		}
+		attrs := map[string]*loader.Attr{
+			"kernel_shape": linInts("kernel_shape", int64(K[0]), int64(K[1])),
+			"strides":      linInts("strides", int64(s[0]), int64(s[1])),
+			"pads":         linInts("pads", int64(pads[0]), int64(pads[1]), int64(pads[2]), int64(pads[3])),
+			"ceil_mode":    {Name: "ceil_mode", Kind: loader.AttrInt, I: ceil},
+		}
+		c := &Call{Node: &loader.Node{Attrs: attrs}, In: []*tensor.Tensor{x}, Opset: 19}
+		g, err := poolGeometry(c, x, true)
+		if err != nil {
+			continue
+		}
+		ran++
+		want := direct(xs, 4, &g)
+		for _, vec := range []bool{saved, false} {
+			havePoolVec = vec
+			got := make([]float32, len(want))
+			poolMax2DF32(got, xs, 4, &g)
+			for i := range want {
+				if math.Float32bits(got[i]) != math.Float32bits(want[i]) && !(got[i] != got[i] && want[i] != want[i]) {
+					t.Fatalf("trial %d K %v s %v %dx%d pads %v ceil %d vector=%v: element %d = %g, direct %g",
+						trial, K, s, H, W, pads, ceil, vec, i, got[i], want[i])
+				}
+			}
+		}
+	}
+	if ran < 300 {
+		t.Fatalf("only %d geometries ran", ran)
+	}
+}
