@@ -275,11 +275,23 @@ func poolAvg2DF32(y, x []float32, planes int, g *convGeom, includePad bool) {
 			}
 		}
 	}
+	same := poolSamePlaneOK && sh == 1 && sw == 1 && dh == 1 && dw == 1 && pt < KH && g.padEnd[0] < KH && pl < KW && g.padEnd[1] < KW
 	parFor(planes, max(1, elemChunk/max(1, OH*OW*4)), func(p0, p1 int) {
 		tmp := make([]float32, W)
+		var vbuf, zbuf []float32
+		if same {
+			vbuf = make([]float32, OH*W)
+			if OW != W {
+				zbuf = make([]float32, OH*W)
+			}
+		}
 		for pl0 := p0; pl0 < p1; pl0++ {
 			xp := x[pl0*H*W : (pl0+1)*H*W]
 			yp := y[pl0*OH*OW : (pl0+1)*OH*OW]
+			if same {
+				poolAvgSamePlane(yp, xp, vbuf, zbuf, g, includePad, colIn, colPad)
+				continue
+			}
 			for oh := 0; oh < OH; oh++ {
 				rows, rowsPad := 0, 0
 				for kh := 0; kh < KH; kh++ {
@@ -340,20 +352,23 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 	KH, KW := g.k[0], g.k[1]
 	sh, sw, dh, dw := g.strides[0], g.strides[1], g.dil[0], g.dil[1]
 	pt, pl := g.padBeg[0], g.padBeg[1]
-	// stride 1 with the output as wide as the input ("same" columns): the
-	// whole plane at once (poolMaxSamePlane)
-	same := sh == 1 && sw == 1 && dh == 1 && dw == 1 && OW == W && pt < KH && g.padEnd[0] < KH
+	// stride 1, every window holding image values: the whole plane at once
+	// (poolMaxSamePlane)
+	same := poolSamePlaneOK && sh == 1 && sw == 1 && dh == 1 && dw == 1 && pt < KH && g.padEnd[0] < KH && pl < KW && g.padEnd[1] < KW
 	parFor(planes, max(1, elemChunk/max(1, OH*OW*4)), func(p0, p1 int) {
 		tmp := make([]float32, W)
-		var vbuf []float32
+		var vbuf, zbuf []float32
 		if same {
 			vbuf = make([]float32, OH*W)
+			if OW != W {
+				zbuf = make([]float32, OH*W)
+			}
 		}
 		for pl0 := p0; pl0 < p1; pl0++ {
 			xp := x[pl0*H*W : (pl0+1)*H*W]
 			yp := y[pl0*OH*OW : (pl0+1)*OH*OW]
 			if same {
-				poolMaxSamePlane(yp, xp, vbuf, H, W, OH, KH, KW, pt, pl)
+				poolMaxSamePlane(yp, xp, vbuf, zbuf, g)
 				continue
 			}
 			for oh := 0; oh < OH; oh++ {
@@ -413,25 +428,63 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 	})
 }
 
-// poolMaxSamePlane is one plane of poolMax2DF32 for stride 1, dilation 1,
-// OW = W (the left and right paddings add up to KW − 1) and top and bottom
-// paddings below KH (every window holds an image row), on whole planes
+// poolMaxSamePlane is one plane of poolMax2DF32 for stride 1 and
+// dilation 1 with left and right paddings below KW and top and bottom
+// paddings below KH (every window holds an image value), on whole planes
 // instead of row by row (a 14×14 plane's rows are too short for per-row
 // calls to pay): first v[oh] = the maximum of the window's input rows
-// (the rows whose window lies inside the image in KH − 1 long vector
-// maxima over all of them at once), then, on the flattened plane,
-// y[i] = max over k < KW of v[i − pl + k], which is each output's window
-// except where it wraps around a row end: the first pl and the last
-// KW − 1 − pl columns of each row are redone with their taps inside the
-// row. Go's max is commutative and associative (NaN wins, +0 beats −0), so
-// the bits are those of the row-by-row path.
-func poolMaxSamePlane(y, x, v []float32, H, W, OH, KH, KW, pt, pl int) {
-	a, b := max(0, pt), min(OH, H-KH+1+pt) // output rows whose window is inside the image
+// (poolRowsInto), then, on the flattened rows of v, z[j] = max over
+// k < KW of v[j + k], the output whose window starts at column j mod W of
+// its row unless the window wraps around the row's end: the outputs whose
+// window lies inside the row are read from z (z is y itself when OW = W,
+// the "same" pooling of GoogLeNet's and Inception's branches), the others
+// are redone with their taps inside the row. Go's max is commutative and
+// associative (NaN wins, +0 beats −0), so the bits are those of the
+// row-by-row path. zbuf holds OH·W values (used when OW ≠ W).
+func poolMaxSamePlane(y, x, v, zbuf []float32, g *convGeom) {
+	H, W, OH, OW := g.in[0], g.in[1], g.out[0], g.out[1]
+	KH, KW, pt, pl := g.k[0], g.k[1], g.padBeg[0], g.padBeg[1]
+	poolRowsInto(v, x, H, W, OH, KH, pt, maxInto)
+	span := OH*W - (KW - 1)
+	lo, hi := pl, min(OW, W-KW+pl+1) // output columns whose window is inside the row
+	if span > 0 && lo < hi {
+		z := poolZ(y, zbuf, W, OW, pl, span)
+		copy(z, v[:span])
+		for k := 1; k < KW; k++ {
+			maxInto(z, v[k:][:span])
+		}
+		poolCopyOut(y, z, W, OH, OW, pl, lo, hi)
+	} else {
+		lo, hi = 0, 0
+	}
+	for oh := 0; oh < OH; oh++ {
+		row, yr := v[oh*W:(oh+1)*W], y[oh*OW:(oh+1)*OW]
+		for ow := 0; ow < OW; ow++ {
+			if ow == lo && lo < hi {
+				ow = hi - 1 // read from z
+				continue
+			}
+			c0, c1 := max(0, ow-pl), min(W, ow-pl+KW)
+			best := row[c0]
+			for _, u := range row[c0+1 : c1] {
+				best = max(best, u)
+			}
+			yr[ow] = best
+		}
+	}
+}
+
+// poolRowsInto sets v[oh] (OH rows of W) to the combination (f: maxInto or
+// addInto) of the input rows oh − pt … oh − pt + KH − 1 that lie in the
+// image, in that order: the rows whose window is inside the image in
+// KH − 1 long runs over all of them at once, the others row by row.
+func poolRowsInto(v, x []float32, H, W, OH, KH, pt int, f func(dst, src []float32)) {
+	a, b := max(0, pt), min(OH, H-KH+1+pt)
 	if a < b {
 		dst := v[a*W : b*W]
 		copy(dst, x[(a-pt)*W:])
 		for k := 1; k < KH; k++ {
-			maxInto(dst, x[(a-pt+k)*W:][:len(dst)])
+			f(dst, x[(a-pt+k)*W:][:len(dst)])
 		}
 	}
 	for oh := 0; oh < OH; oh++ {
@@ -442,34 +495,96 @@ func poolMaxSamePlane(y, x, v []float32, H, W, OH, KH, KW, pt, pl int) {
 		dst := v[oh*W : (oh+1)*W]
 		copy(dst, x[r0*W:])
 		for r := r0 + 1; r < r1; r++ {
-			maxInto(dst, x[r*W:][:W])
-		}
-	}
-	n := OH * W
-	pr := KW - 1 - pl
-	if pl < n-pr {
-		mid := y[pl : n-pr]
-		copy(mid, v)
-		for k := 1; k < KW; k++ {
-			maxInto(mid, v[k:][:len(mid)])
-		}
-	}
-	for oh := 0; oh < OH; oh++ {
-		row, yr := v[oh*W:(oh+1)*W], y[oh*W:(oh+1)*W]
-		for c := 0; c < W; c++ {
-			if c == pl && c < W-pr {
-				c = W - pr - 1 // the columns between were right
-				continue
-			}
-			lo, hi := max(0, c-pl), min(W, c-pl+KW)
-			best := row[lo]
-			for _, u := range row[lo+1 : hi] {
-				best = max(best, u)
-			}
-			yr[c] = best
+			f(dst, x[r*W:][:W])
 		}
 	}
 }
+
+// poolZ is where the window results of the flattened rows go: y itself,
+// shifted by pl, when the output rows are as wide as the input rows, else
+// zbuf.
+func poolZ(y, zbuf []float32, W, OW, pl, span int) []float32 {
+	if OW == W {
+		return y[pl : pl+span]
+	}
+	return zbuf[:span]
+}
+
+// poolCopyOut copies output columns [lo, hi) of every row from z into y
+// (nothing to do when z is y).
+func poolCopyOut(y, z []float32, W, OH, OW, pl, lo, hi int) {
+	if OW == W {
+		return
+	}
+	for oh := 0; oh < OH; oh++ {
+		copy(y[oh*OW+lo:oh*OW+hi], z[oh*W+lo-pl:])
+	}
+}
+
+// poolSamePlaneOK lets poolMax2DF32 and poolAvg2DF32 take whole planes
+// (poolMaxSamePlane, poolAvgSamePlane); tests clear it to compare with the
+// row-by-row paths.
+var poolSamePlaneOK = true
+
+// poolAvgSamePlane is one plane of poolAvg2DF32 for the windows of
+// poolMaxSamePlane, with the same additions in the same order, so the same
+// bits: v[oh] = the window's input rows added in order (poolRowsInto); on
+// the flattened rows each window's sum starts at +0 and adds its KW taps in
+// order, the sums of the rows whose window holds KH image rows are divided
+// by KH·KW in one vector pass and copied out where the window lies inside
+// its row; the other outputs (the rows and columns that the window clips)
+// are redone as poolAvg2DF32's row loop computes them.
+func poolAvgSamePlane(y, x, v, zbuf []float32, g *convGeom, includePad bool, colIn, colPad []int) {
+	H, W, OH, OW := g.in[0], g.in[1], g.out[0], g.out[1]
+	KH, KW, pt, pl := g.k[0], g.k[1], g.padBeg[0], g.padBeg[1]
+	poolRowsInto(v, x, H, W, OH, KH, pt, addInto)
+	a, b := max(0, pt), min(OH, H-KH+1+pt) // rows whose window holds KH image rows
+	span := OH*W - (KW - 1)
+	lo, hi := pl, min(OW, W-KW+pl+1)
+	if span > 0 && lo < hi && a < b {
+		z := poolZ(y, zbuf, W, OW, pl, span)
+		clear(z)
+		for k := 0; k < KW; k++ {
+			addInto(z, v[k:][:span])
+		}
+		full := z[a*W : min(span, b*W)]
+		vsF32(divT, full, full, float32(KH*KW), false)
+		poolCopyOut(y[:b*OW], z, W, b, OW, pl, lo, hi) // rows below b are redone below
+	} else {
+		lo, hi = 0, 0
+	}
+	for oh := 0; oh < OH; oh++ {
+		r0, r1 := max(0, oh-pt), min(H, oh-pt+KH)
+		rows, rowsPad := r1-r0, 0
+		for kh := 0; kh < KH; kh++ {
+			if oh-pt+kh < H+g.padEnd[0] {
+				rowsPad++
+			}
+		}
+		full := oh >= a && oh < b
+		row, yr := v[oh*W:(oh+1)*W], y[oh*OW:(oh+1)*OW]
+		for ow := 0; ow < OW; ow++ {
+			if full && ow == lo && lo < hi {
+				ow = hi - 1 // from z
+				continue
+			}
+			cnt := rows * colIn[ow]
+			if includePad {
+				cnt = rowsPad * colPad[ow]
+			}
+			var s float32
+			for kw := 0; kw < KW; kw++ {
+				if iw := ow - pl + kw; iw >= 0 && iw < W {
+					s += row[iw]
+				}
+			}
+			yr[ow] = s / float32(cnt)
+		}
+	}
+}
+
+// addInto sets dst[i] += src[i].
+func addInto(dst, src []float32) { vvF32(addT, dst, dst, src) }
 
 // maxInto sets dst[i] = max(dst[i], src[i]) (Go's max).
 func maxInto(dst, src []float32) {

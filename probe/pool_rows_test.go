@@ -161,7 +161,8 @@ func BenchmarkGlobalAvgPool(b *testing.B) {
 	}
 }
 
-// The whole-plane max pooling of "same" stride-1 windows (poolMaxSamePlane:
+// The whole-plane max and average pooling of "same" stride-1 windows
+// (poolMaxSamePlane, poolAvgSamePlane against the row loop:
 // GoogLeNet's and Inception's 3×3 branch pools) and the 3-wide stride-2
 // windows without left padding (maxCols3s2Vec0: their ceil-mode
 // downsampling pools) against a direct Go max over each window, bit for
@@ -203,10 +204,13 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 	for trial := 0; trial < 400; trial++ {
 		var K, s, pads []int
 		var ceil int64
-		if trial%2 == 0 { // same-width stride 1
+		if trial%2 == 0 { // stride 1, mostly same-width
 			kh, kw := 1+r.Intn(7), 1+r.Intn(7)
 			pl, pt := r.Intn(kw), r.Intn(kh)
 			K, s, pads = []int{kh, kw}, []int{1, 1}, []int{pt, pl, r.Intn(kh), kw - 1 - pl}
+			if trial%4 == 0 { // narrower output rows: any padding below the window
+				pads = []int{pt, pl, r.Intn(kh), r.Intn(kw)}
+			}
 		} else { // 3 wide, stride 2, no left padding
 			K, s, pads = []int{3, 3}, []int{2, 2}, []int{r.Intn(2), 0, r.Intn(2), r.Intn(2)}
 			ceil = int64(r.Intn(2))
@@ -236,6 +240,24 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 			continue
 		}
 		ran++
+		if s[0] == 1 {
+			// average pooling: the whole-plane path against the row loop, bit for bit
+			for _, incl := range []bool{false, true} {
+				poolSamePlaneOK = true
+				got := make([]float32, 4*g.out[0]*g.out[1])
+				poolAvg2DF32(got, xs, 4, &g, incl)
+				poolSamePlaneOK = false
+				rows := make([]float32, len(got))
+				poolAvg2DF32(rows, xs, 4, &g, incl)
+				poolSamePlaneOK = true
+				for i := range rows {
+					if math.Float32bits(got[i]) != math.Float32bits(rows[i]) && !(got[i] != got[i] && rows[i] != rows[i]) {
+						t.Fatalf("trial %d K %v %dx%d pads %v include_pad %v: AveragePool element %d = %g, row loop %g",
+							trial, K, H, W, pads, incl, i, got[i], rows[i])
+					}
+				}
+			}
+		}
 		want := direct(xs, 4, &g)
 		for _, vec := range []bool{saved, false} {
 			havePoolVec = vec
