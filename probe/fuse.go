@@ -67,7 +67,7 @@ func (f *fusedAct) siluF32(dst, src []float32) {
 }
 
 // fuseProducers lists the operators whose kernels honour Call.fuse.
-var fuseProducers = map[string]bool{"Conv": true}
+var fuseProducers = map[string]bool{"Conv": true, "BatchNormalization": true}
 
 // fusableActs maps an activation operator (one marked Fusable in the one
 // list of activation operators, internal/actkind) to the float32 function its own

@@ -256,3 +256,72 @@ func TestActivationListIsRegistered(t *testing.T) {
 		}
 	}
 }
+
+// BatchNormalization (inference) as the producer: a pre-activation
+// network's BatchNormalization → Relu (DenseNet) and BatchNormalization →
+// x·sigmoid(x), fused and unfused, give the hook the same bits at every
+// node, and normAffineF32's planes equal normAffine's loop.
+func TestFusionBatchNormProducer(t *testing.T) {
+	r := rand.New(rand.NewSource(33))
+	b := modelbuild.New("bnact", 15)
+	b.Input("x", []int{3, 6, 9, 11}, true)
+	init := func(name string, shape []int, v []float32) string {
+		b.Init(name, shape, v)
+		return name
+	}
+	bnInputs := func(p string) []string {
+		v := linRand(r, 6).F32()
+		for i := range v {
+			v[i] = 0.5 + v[i]*v[i] // a positive variance
+		}
+		return []string{init(p+"s", []int{6}, linRand(r, 6).F32()), init(p+"b", []int{6}, linRand(r, 6).F32()),
+			init(p+"m", []int{6}, linRand(r, 6).F32()), init(p+"v", []int{6}, v)}
+	}
+	b.Node("BatchNormalization", "bn1", append([]string{"x"}, bnInputs("bn1")...), []string{"n1"})
+	b.Node("Relu", "relu", []string{"n1"}, []string{"a1"})
+	b.Node("BatchNormalization", "bn2", append([]string{"a1"}, bnInputs("bn2")...), []string{"n2"})
+	b.Node("Sigmoid", "sig", []string{"n2"}, []string{"s2"})
+	b.Node("Mul", "silu", []string{"n2", "s2"}, []string{"out"})
+	b.Output("out")
+	_, fused := planOf(t, b)
+	_, plain := planOf(t, b)
+	for i := range plain.Steps {
+		plain.Steps[i].fuseWith, plain.Steps[i].fuseMul = -1, -1
+	}
+	n := 0
+	for i := range fused.Steps {
+		if fused.fusedNode(i) != nil {
+			n++
+		}
+	}
+	if n != 2 {
+		t.Fatalf("%d fused links, want 2", n)
+	}
+	batches := []*tensor.Tensor{linRand(r, 3, 6, 9, 11), linRand(r, 3, 6, 9, 11)}
+	a, c := recordRun(t, fused, batches), recordRun(t, plain, batches)
+	if len(a) != len(c) {
+		t.Fatalf("%d hook calls fused, %d unfused", len(a), len(c))
+	}
+	for k := range c {
+		for o := range c[k].outs {
+			for e, want := range c[k].outs[o] {
+				if got := a[k].outs[o][e]; math.Float32bits(got) != math.Float32bits(want) {
+					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, got, want)
+				}
+			}
+		}
+	}
+	// the vector planes against the scalar loop (planes of 99 and of 7 values)
+	for _, inner := range []int{99, 7} {
+		x := linRand(r, 2*3*inner).F32()
+		k, o := []float64{0.3, -1.7, 2.5}, []float64{0.1, 0, -0.4}
+		want, got := make([]float32, len(x)), make([]float32, len(x))
+		normAffine(want, x, 2, 3, inner, k, o)
+		normAffineF32(got, x, 2, 3, inner, k, o, nil, nil)
+		for i := range want {
+			if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+				t.Fatalf("inner %d: element %d = %g, normAffine %g", inner, i, got[i], want[i])
+			}
+		}
+	}
+}

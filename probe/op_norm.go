@@ -75,6 +75,32 @@ func normAffine[T Float](y, x []T, n, c, inner int, k, o []float64) {
 	}
 }
 
+// normAffineF32 is normAffine for float32 (the same products and sums,
+// each rounded to float32, so the same bits), planes of [n, c] across the
+// cores, each plane by vector multiply then add when it holds a vector or
+// more; with act, also ad = act(y) plane by plane.
+func normAffineF32(y, x []float32, n, c, inner int, k, o []float64, act func(dst, src []float32), ad []float32) {
+	planes := n * c
+	parFor(planes, max(1, elemChunk/max(1, inner)), func(p0, p1 int) {
+		for p := p0; p < p1; p++ {
+			ch := p % c
+			kk, oo := float32(k[ch]), float32(o[ch])
+			ys, xs := y[p*inner:(p+1)*inner], x[p*inner:(p+1)*inner]
+			if inner >= 16 {
+				vsF32(mulT, ys, xs, kk, false)
+				vsF32(addT, ys, ys, oo, false)
+			} else {
+				for j, v := range xs {
+					ys[j] = v*kk + oo
+				}
+			}
+			if act != nil {
+				act(ad[p*inner:(p+1)*inner], ys)
+			}
+		}
+	})
+}
+
 // normAffineTensor applies normAffine to a float tensor and returns the result.
 func normAffineTensor(ar *tensor.Arena, x *tensor.Tensor, n, c, inner int, k, o []float64) *tensor.Tensor {
 	y := ar.New(x.DType, x.Shape)
@@ -180,6 +206,20 @@ func batchNormKernel(c *Call) error {
 	for i := range k {
 		k[i] = scale[i] / math.Sqrt(useVar[i]+eps)
 		o[i] = bias[i] - useMean[i]*k[i]
+	}
+	if xf, ok := x.Data.([]float32); ok && !training {
+		// float32 inference: planes across the cores, and a fused
+		// activation (Call.fuse) applied to each plane while it is in cache
+		y := c.Arena().NewUninit(tensor.Float32, x.Shape)
+		var act func(dst, src []float32)
+		var ad []float32
+		if f := c.fuse; f != nil {
+			f.alloc(c.Arena(), x.Shape)
+			act, ad = f.f32, f.out.F32()
+		}
+		normAffineF32(y.F32(), xf, n, ch, inner, k, o, act, ad)
+		c.Set(0, y)
+		return nil
 	}
 	c.Set(0, normAffineTensor(c.Arena(), x, n, ch, inner, k, o))
 	if !training {
