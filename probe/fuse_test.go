@@ -201,34 +201,8 @@ func TestFusionLargePlanes(t *testing.T) {
 	b.Node("Conv", "c1", []string{"a3", init("w1", 4, 5, 1, 1), init("b1", 4)}, []string{"y1"})
 	b.Node("Clip", "clip", []string{"y1", init("lo", 1), init("hi", 1)}, []string{"out"})
 	b.Output("out")
-	_, fused := planOf(t, b)
-	_, plain := planOf(t, b)
-	for i := range plain.Steps {
-		plain.Steps[i].fuseWith = -1
-	}
-	n := 0
-	for i := range fused.Steps {
-		if fused.fusedNode(i) != nil {
-			n++
-		}
-	}
-	if n != 2 {
-		t.Fatalf("%d fused links, want 2", n)
-	}
 	batches := []*tensor.Tensor{linRand(r, 2, 3, 48, 48), linRand(r, 2, 3, 48, 48)}
-	a, c := recordRun(t, fused, batches), recordRun(t, plain, batches)
-	if len(a) != len(c) {
-		t.Fatalf("%d hook calls fused, %d unfused", len(a), len(c))
-	}
-	for k := range c {
-		for o := range c[k].outs {
-			for e, want := range c[k].outs[o] {
-				if got := a[k].outs[o][e]; math.Float32bits(got) != math.Float32bits(want) {
-					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, got, want)
-				}
-			}
-		}
-	}
+	fusionSameBits(t, b, 2, batches)
 }
 
 // The fusion table and the one list of activation operators agree: every
@@ -283,6 +257,27 @@ func TestFusionBatchNormProducer(t *testing.T) {
 	b.Node("Sigmoid", "sig", []string{"n2"}, []string{"s2"})
 	b.Node("Mul", "silu", []string{"n2", "s2"}, []string{"out"})
 	b.Output("out")
+	fusionSameBits(t, b, 2, []*tensor.Tensor{linRand(r, 3, 6, 9, 11), linRand(r, 3, 6, 9, 11)})
+	// the vector planes against the scalar loop (planes of 99 and of 7 values)
+	for _, inner := range []int{99, 7} {
+		x := linRand(r, 2*3*inner).F32()
+		k, o := []float64{0.3, -1.7, 2.5}, []float64{0.1, 0, -0.4}
+		want, got := make([]float32, len(x)), make([]float32, len(x))
+		normAffine(want, x, 2, 3, inner, k, o)
+		normAffineF32(got, x, 2, 3, inner, k, o, nil, nil)
+		for i := range want {
+			if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+				t.Fatalf("inner %d: element %d = %g, normAffine %g", inner, i, got[i], want[i])
+			}
+		}
+	}
+}
+
+// fusionSameBits plans the model of b twice, one plan with its fusions
+// undone, checks that the other links want producer/activation pairs, runs
+// both on batches and fails unless every hook call sees the same bits.
+func fusionSameBits(t *testing.T, b *modelbuild.Builder, want int, batches []*tensor.Tensor) {
+	t.Helper()
 	_, fused := planOf(t, b)
 	_, plain := planOf(t, b)
 	for i := range plain.Steps {
@@ -294,33 +289,19 @@ func TestFusionBatchNormProducer(t *testing.T) {
 			n++
 		}
 	}
-	if n != 2 {
-		t.Fatalf("%d fused links, want 2", n)
+	if n != want {
+		t.Fatalf("%d fused links, want %d", n, want)
 	}
-	batches := []*tensor.Tensor{linRand(r, 3, 6, 9, 11), linRand(r, 3, 6, 9, 11)}
 	a, c := recordRun(t, fused, batches), recordRun(t, plain, batches)
 	if len(a) != len(c) {
 		t.Fatalf("%d hook calls fused, %d unfused", len(a), len(c))
 	}
 	for k := range c {
 		for o := range c[k].outs {
-			for e, want := range c[k].outs[o] {
-				if got := a[k].outs[o][e]; math.Float32bits(got) != math.Float32bits(want) {
-					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, got, want)
+			for e, w := range c[k].outs[o] {
+				if g := a[k].outs[o][e]; math.Float32bits(g) != math.Float32bits(w) {
+					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, g, w)
 				}
-			}
-		}
-	}
-	// the vector planes against the scalar loop (planes of 99 and of 7 values)
-	for _, inner := range []int{99, 7} {
-		x := linRand(r, 2*3*inner).F32()
-		k, o := []float64{0.3, -1.7, 2.5}, []float64{0.1, 0, -0.4}
-		want, got := make([]float32, len(x)), make([]float32, len(x))
-		normAffine(want, x, 2, 3, inner, k, o)
-		normAffineF32(got, x, 2, 3, inner, k, o, nil, nil)
-		for i := range want {
-			if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
-				t.Fatalf("inner %d: element %d = %g, normAffine %g", inner, i, got[i], want[i])
 			}
 		}
 	}
