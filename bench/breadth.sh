@@ -14,9 +14,13 @@
 # compared with ONNX Runtime's on its first 4 images (bench/detectcheck).
 #
 # Usage: bench/breadth.sh [model ...]   (default: all twelve)
+# With SPLIT=1 a last column splits vitals' time (bench/hookcost over the
+# first B images, batch 8, best of REPS, the first batch a warm-up left out):
+# the executor with an empty hook, and with the statistics hook.
 # Environment: A, B (sample counts, default 8 and 40), REPS (best of, default
-# 2), VITALS (a vitals binary to time instead of building this tree's, e.g.
-# an older build for a before/after table), VITALS_BREADTH_DIR (the models),
+# 2; the best t(A) and the best t(B) are differenced), SPLIT, VITALS (a
+# vitals binary to time instead of building this tree's, e.g. an older build
+# for a before/after table), VITALS_BREADTH_DIR (the models),
 # VITALS_BREADTH_TMP (the run's binaries and scratch files; default a fresh
 # directory per run, so two runs at once do not overwrite each other's).
 set -euo pipefail
@@ -50,6 +54,7 @@ else
 	go build -o "$TMPD/vitals" ./cmd/vitals
 fi
 go build -o "$TMPD/detectcheck" ./bench/detectcheck
+[ -n "${SPLIT:-}" ] && go build -o "$TMPD/hookcost" ./bench/hookcost
 
 # seconds of one whole `vitals check` over the first $2 items of model $1
 vitals_time() {
@@ -71,24 +76,40 @@ vitals_time() {
 
 echo "machine: $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2- | sed 's/^ //'), $(nproc) cores"
 echo "load average before: $(cut -d' ' -f1-3 /proc/loadavg)"
-echo "batch $BATCH (SSDLite 1), vitals: (t($B) − t($A)) / $((B - A)) images, best of $REPS"
+echo "batch $BATCH (SSDLite 1), vitals: (best t($B) − best t($A)) / $((B - A)) images, best of $REPS"
 echo
-echo "| model | vitals check ms/image | ONNX Runtime ms/image | vitals / ORT |"
-echo "|---|---|---|---|"
+if [ -n "${SPLIT:-}" ]; then
+	echo "| model | vitals check ms/image | ONNX Runtime ms/image | vitals / ORT | executor ms/image: empty hook / statistics hook |"
+	echo "|---|---|---|---|---|"
+else
+	echo "| model | vitals check ms/image | ONNX Runtime ms/image | vitals / ORT |"
+	echo "|---|---|---|---|"
+fi
 for m in "${models[@]}"; do
-	best_v=1e18
+	best_a=1e18
+	best_b=1e18
 	best_o=1e18
 	mode=()
 	[ "$m" = ssdlite ] && mode=(item)
 	for r in $(seq "$REPS"); do
 		ta=$(vitals_time "$m" "$A")
 		tb=$(vitals_time "$m" "$B")
-		v=$(awk -v a="$ta" -v b="$tb" -v n=$((B - A)) 'BEGIN {printf "%.2f", (b - a) * 1000 / n}')
 		o=$(cd bench/ort && node run.js "$DIR/$m.onnx" "$DIR/$m.npy" $BATCH "$B" 2 1 "${mode[@]}" | sed 's/.*=//')
-		best_v=$(awk -v a="$best_v" -v b="$v" 'BEGIN {print (b < a) ? b : a}')
+		best_a=$(awk -v a="$best_a" -v b="$ta" 'BEGIN {print (b < a) ? b : a}')
+		best_b=$(awk -v a="$best_b" -v b="$tb" 'BEGIN {print (b < a) ? b : a}')
 		best_o=$(awk -v a="$best_o" -v b="$o" 'BEGIN {print (b < a) ? b : a}')
 	done
-	printf '| %s | %s | %s | %s |\n' "$m" "$best_v" "$best_o" "$(awk -v a="$best_v" -v b="$best_o" 'BEGIN {printf "%.2f×", a / b}')"
+	# the best time of each sample count, then their difference: the best of
+	# the per-round differences would favour a round whose short run was slowed
+	best_v=$(awk -v a="$best_a" -v b="$best_b" -v n=$((B - A)) 'BEGIN {printf "%.2f", (b - a) * 1000 / n}')
+	split=""
+	if [ -n "${SPLIT:-}" ] && [ "$m" != ssdlite ]; then
+		hc=$("$TMPD/hookcost" -model "$DIR/$m.onnx" -data "$DIR/$m.npy" -batch $BATCH -samples "$B" -reps "$REPS" -terse)
+		split=" $(echo "$hc" | awk -F' / ' '{split($2, s, " "); printf "%s / %s |", $1, s[1]}')"
+	elif [ -n "${SPLIT:-}" ]; then
+		split=" – |"
+	fi
+	printf '| %s | %s | %s | %s |%s\n' "$m" "$best_v" "$best_o" "$(awk -v a="$best_v" -v b="$best_o" 'BEGIN {printf "%.2f×", a / b}')" "$split"
 done
 echo "load average after: $(cut -d' ' -f1-3 /proc/loadavg)"
 
