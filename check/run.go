@@ -93,6 +93,14 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 			return nil, nil, "", err
 		}
 	}
+	// values no hook reads (inside composite activations) may be left
+	// unwritten; the backward pass and a tap read every value
+	if gr == nil && o.tap == nil {
+		m.plan.SetUnobserved(c.Unobserved())
+		defer m.plan.SetUnobserved(nil)
+	} else {
+		m.plan.SetUnobserved(nil)
+	}
 	start := time.Now()
 	// activation storage is reused from batch to batch (at most a quarter of
 	// the memory budget, 1 GiB without one)

@@ -177,6 +177,7 @@ func (p *Plan) markFusions() {
 			s.fuseWith = j
 		}
 	}
+	p.markChains(readers)
 }
 
 // siluAfter finds a SiLU reading value v of step i: v's only readers are a

@@ -49,6 +49,10 @@ type Plan struct {
 	runs atomic.Int64
 	// flat is the main plan's flat view (flat.go).
 	flat *Flat
+	// chains maps the first step of each elementwise chain to it (fuse_chain.go).
+	chains map[int]*elemChain
+	// unobserved names the values the hook does not read (SetUnobserved).
+	unobserved map[string]bool
 }
 
 // Step is one node with its chosen kernel.
@@ -61,6 +65,9 @@ type Step struct {
 	// fuseMul is the Mul step of a SiLU (x·sigmoid(x), fuseWith being the
 	// Sigmoid) this step may compute too, or −1.
 	fuseMul int
+	// inChain: the step is a later member of an elementwise chain, whose
+	// first step may compute its output (fuse_chain.go).
+	inChain bool
 }
 
 // UnsupportedError lists the operators that have no kernel, one entry per
@@ -442,9 +449,18 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 			c.In[j] = t
 		}
 		c.Out = make([]*tensor.Tensor, len(s.Node.Outputs))
+		elided := false // a chain's value left unwritten (nil)
 		if t, ok := fused[i]; ok {
-			c.Out[0] = t
+			c.Out[0], elided = t, t == nil
 			delete(fused, i)
+		} else if outs, ok := p.chainFor(i, env, c); ok {
+			c.Out[0], elided = outs[0], outs[0] == nil
+			if fused == nil {
+				fused = map[int]*tensor.Tensor{}
+			}
+			for k, m := range p.chains[i].members[1:] {
+				fused[m.step] = outs[k+1]
+			}
 		} else {
 			c.fuse = p.fuseFor(i, env, c)
 			if err := p.call(s, c); err != nil {
@@ -462,6 +478,10 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 		}
 		for j, name := range s.Node.Outputs {
 			if name == "" {
+				continue
+			}
+			if c.Out[j] == nil && elided {
+				env.vals[name] = nil // read only by the chain, which is done
 				continue
 			}
 			if c.Out[j] == nil {

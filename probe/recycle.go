@@ -78,7 +78,7 @@ func (r *recycler) overlapsAlive(t *tensor.Tensor, fused map[int]*tensor.Tensor)
 		}
 	}
 	for _, f := range fused {
-		if tensor.Overlap(t, f) {
+		if f != nil && tensor.Overlap(t, f) {
 			return true
 		}
 	}

@@ -151,3 +151,36 @@ func gelu(m *loader.Node, producer map[string]*loader.Node, only func(string) bo
 	}
 	return append(parts, a, e, d)
 }
+
+// Unobserved lists the node outputs the collector's hook does not read: the
+// values inside recognised composite activations, which are no layers and
+// which the transformer, quantization and float16 observers do not watch
+// either. probe.Plan.SetUnobserved takes the list: an executor that
+// computes such a pattern in one pass need not write them.
+func (c *Collector) Unobserved() map[string]bool {
+	u := map[string]bool{}
+	for n := range c.composite.inner {
+		for _, o := range n.Outputs {
+			if o == "" || c.byOut[o] != nil || c.watched(o) {
+				continue
+			}
+			u[o] = true
+		}
+	}
+	return u
+}
+
+// watched reports whether one of the collector's special observers reads
+// value name.
+func (c *Collector) watched(name string) bool {
+	if c.tf != nil && c.tf.entries[name] != nil {
+		return true
+	}
+	if c.half != nil && c.half.acts[name] != nil {
+		return true
+	}
+	if c.quant != nil && (c.quant.byInt[name] != nil || len(c.quant.byInput[name]) > 0) {
+		return true
+	}
+	return false
+}

@@ -80,6 +80,9 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	if err != nil {
 		return err
 	}
+	// the values vitals check leaves unwritten (inside composite
+	// activations) are left unwritten here too
+	p.SetUnobserved(stats.NewCollector(m, p).Unobserved())
 	x, err := loader.ReadNpy(dataPath)
 	if err != nil {
 		return err
