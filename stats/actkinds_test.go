@@ -89,6 +89,33 @@ func TestEveryActivationKindIsMeasuredAndDrawn(t *testing.T) {
 			a := b.Node("Add", "g_add", []string{scalar(b, "one", 1), e}, []string{"a"})
 			return "g_out", b.Node("Mul", "g_out", []string{h, a}, []string{"y"})
 		}, "relu-like", []string{"g_half", "g_scale", "g_erf", "g_add"}},
+		// the tanh approximation ½x(1 + tanh(√(2/π)(x + 0.044715x³)))
+		// (Hendrycks & Gimpel 2016), as PyTorch 1.13 exports
+		// gelu(approximate="tanh"): x³ as x·(x·x), constants first
+		{"GELU tanh form as PyTorch exports it", 13, func(b *modelbuild.Builder, z string) (string, string) {
+			sq := b.Node("Mul", "t_sq", []string{z, z}, []string{"sq"})
+			cu := b.Node("Mul", "t_cube", []string{z, sq}, []string{"cu"})
+			c := b.Node("Mul", "t_c", []string{scalar(b, "c", 0.044715), cu}, []string{"c3"})
+			s := b.Node("Add", "t_sum", []string{z, c}, []string{"s"})
+			k := b.Node("Mul", "t_k", []string{scalar(b, "k", float32(math.Sqrt(2/math.Pi))), s}, []string{"kk"})
+			th := b.Node("Tanh", "t_tanh", []string{k}, []string{"th"})
+			a := b.Node("Add", "t_one", []string{scalar(b, "one", 1), th}, []string{"a"})
+			m := b.Node("Mul", "t_x", []string{z, a}, []string{"m"})
+			// ½ from a Constant node read first (the first input is no data)
+			half := b.Node("Constant", "half_c", nil, []string{"half"}, modelbuild.Attr{Name: "value_float", Value: float32(0.5)})
+			return "t_out", b.Node("Mul", "t_out", []string{half, m}, []string{"y"})
+		}, "relu-like", []string{"t_sq", "t_cube", "t_c", "t_sum", "t_k", "t_tanh", "t_one", "t_x"}},
+		// the same with Pow(x, 3) and ½x first, as GPT-2 code writes it
+		{"GELU tanh form with Pow", 13, func(b *modelbuild.Builder, z string) (string, string) {
+			h := b.Node("Mul", "t_h", []string{z, scalar(b, "half", 0.5)}, []string{"hx"})
+			p := b.Node("Pow", "t_pow", []string{z, scalar(b, "three", 3)}, []string{"p"})
+			c := b.Node("Mul", "t_c", []string{p, scalar(b, "c", 0.044715)}, []string{"c3"})
+			s := b.Node("Add", "t_sum", []string{c, z}, []string{"s"})
+			k := b.Node("Mul", "t_k", []string{s, scalar(b, "k", float32(math.Sqrt(2/math.Pi)))}, []string{"kk"})
+			th := b.Node("Tanh", "t_tanh", []string{k}, []string{"th"})
+			a := b.Node("Add", "t_one", []string{th, scalar(b, "one", 1)}, []string{"a"})
+			return "t_out", b.Node("Mul", "t_out", []string{h, a}, []string{"y"})
+		}, "relu-like", []string{"t_h", "t_pow", "t_c", "t_sum", "t_k", "t_tanh", "t_one"}},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			rng := rand.New(rand.NewPCG(3, 4))
@@ -131,7 +158,8 @@ func TestEveryActivationKindIsMeasuredAndDrawn(t *testing.T) {
 }
 
 // Near misses are not read as activations: x·sigmoid(y) with y ≠ x is a
-// gate, and x·½·(1+erf(x/2)) is not GELU.
+// gate, and x·½·(1+erf(x/2)) and a tanh form with 0.5 for 0.044715 are not
+// GELU.
 func TestCompositeNearMissesAreNotActivations(t *testing.T) {
 	for _, tc := range []struct {
 		name string
@@ -147,6 +175,16 @@ func TestCompositeNearMissesAreNotActivations(t *testing.T) {
 			e := b.Node("Erf", "g_erf", []string{d}, []string{"e"})
 			a := b.Node("Add", "g_add", []string{e, scalar(b, "one", 1)}, []string{"a"})
 			m := b.Node("Mul", "g_mul", []string{z, a}, []string{"m"})
+			return "mul", b.Node("Mul", "mul", []string{m, scalar(b, "half", 0.5)}, []string{"y"})
+		}},
+		{"tanh(√(2/π)(x + 0.5x³))", func(b *modelbuild.Builder, z string) (string, string) {
+			p := b.Node("Pow", "t_pow", []string{z, scalar(b, "three", 3)}, []string{"p"})
+			c := b.Node("Mul", "t_c", []string{p, scalar(b, "c", 0.5)}, []string{"c3"})
+			s := b.Node("Add", "t_sum", []string{c, z}, []string{"s"})
+			k := b.Node("Mul", "t_k", []string{s, scalar(b, "k", float32(math.Sqrt(2/math.Pi)))}, []string{"kk"})
+			th := b.Node("Tanh", "t_tanh", []string{k}, []string{"th"})
+			a := b.Node("Add", "t_one", []string{th, scalar(b, "one", 1)}, []string{"a"})
+			m := b.Node("Mul", "t_x", []string{z, a}, []string{"m"})
 			return "mul", b.Node("Mul", "mul", []string{m, scalar(b, "half", 0.5)}, []string{"y"})
 		}},
 	} {

@@ -172,6 +172,9 @@ func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
 				if a := n.Attrs["value"]; a != nil && a.T != nil {
 					return a.T, true
 				}
+				if a := n.Attrs["value_float"]; a != nil {
+					return tensor.From([]float32{a.F}), true
+				}
 			case n.OpType == "Identity" && len(n.Inputs) == 1:
 				next = n.Inputs[0]
 			case n.OpType == "DequantizeLinear": // quantized weights of a QDQ model (quant.go)
@@ -559,8 +562,18 @@ func (c *Collector) reuseSame(la *layerAcc, x []float32) bool {
 // make units channels (axis 1), Gemm/MatMul make them features (last axis).
 func (c *Collector) unitKindOf(n *loader.Node) int {
 	cur := n
-	for step := 0; step < 32 && cur != nil && len(cur.Inputs) > 0; step++ {
-		p := c.producer[cur.Inputs[0]]
+	for step := 0; step < 32 && cur != nil; step++ {
+		// follow the data through Add(bias), Mul, BatchNormalization,
+		// Reshape...: the first input computed from the model's inputs (a
+		// constant may come first, as in Mul(½, x) or Add(bias, x))
+		in := ""
+		for _, name := range cur.Inputs {
+			if c.dataDep[name] {
+				in = name
+				break
+			}
+		}
+		p := c.producer[in]
 		if p == nil {
 			return 0
 		}
@@ -569,12 +582,6 @@ func (c *Collector) unitKindOf(n *loader.Node) int {
 			return 1
 		case "Gemm", "MatMul", "MatMulInteger", "Einsum":
 			return 2
-		}
-		// follow data through Add(bias), Mul, BatchNormalization, Reshape... along input 0,
-		// or input 1 when input 0 is a constant (e.g. Add(bias, x))
-		if !c.dataDep[p.Inputs[0]] && len(p.Inputs) > 1 {
-			cur = &loader.Node{Inputs: p.Inputs[1:]}
-			continue
 		}
 		cur = p
 	}

@@ -10,13 +10,15 @@ import (
 // operator. PyTorch 1.13 exports nn.SiLU as Mul(x, Sigmoid(x)) and nn.GELU
 // as Mul(Mul(x, Add(Erf(Div(x, √2)), 1)), 0.5) (opsets before 20 have no
 // Gelu); other exporters order the factors differently or write x/√2 as
-// x·(1/√2). The node whose output is the activation ("top") is reported as
+// x·(1/√2). GELU's tanh approximation, ½x(1 + tanh(√(2/π)(x + 0.044715x³))),
+// comes as PyTorch exports gelu(approximate="tanh") (x³ as x·(x·x)) or with
+// Pow(x, 3) (GPT-2's own formula). The node whose output is the activation ("top") is reported as
 // an activation layer under the actkind name; the nodes inside the pattern
-// (the Sigmoid, the Erf and its helpers) are parts of it and get no unit
+// (the Sigmoid, the Erf or Tanh and their helpers) are parts of it and get no unit
 // statistics of their own.
 
 // compositeForm is how each composite activation is written, for messages.
-var compositeForm = map[string]string{"Swish": "x·sigmoid(x)", "Gelu": "x·½·(1+erf(x/√2))"}
+var compositeForm = map[string]string{"Swish": "x·sigmoid(x)", "Gelu": "x·½·(1+erf(x/√2)) or its tanh approximation"}
 
 // composite is what compositeActs found.
 type composite struct {
@@ -135,6 +137,13 @@ func gelu(m *loader.Node, producer map[string]*loader.Node, only func(string) bo
 		return nil
 	}
 	e := producer[erfOut]
+	if e != nil && e.OpType == "Tanh" && len(e.Inputs) == 1 && only(erfOut) {
+		inner := geluTanhArg(e.Inputs[0], x, producer, only, scalar)
+		if inner == nil {
+			return nil
+		}
+		return append(append(parts, a, e), inner...)
+	}
 	if e == nil || e.OpType != "Erf" || len(e.Inputs) != 1 || !only(erfOut) {
 		return nil
 	}
@@ -150,6 +159,81 @@ func gelu(m *loader.Node, producer map[string]*loader.Node, only func(string) bo
 		return nil
 	}
 	return append(parts, a, e, d)
+}
+
+// geluTanhArg matches the argument of the tanh in GELU's tanh
+// approximation, √(2/π)·(x + 0.044715·x³) (Hendrycks & Gimpel 2016), with
+// x³ as Pow(x, 3) or x·(x·x) in any order (PyTorch exports
+// gelu(approximate="tanh") with the products), every value read only by
+// the pattern; it returns the nodes, nil when t does not match.
+func geluTanhArg(t, x string, producer map[string]*loader.Node, only func(string) bool,
+	scalar func(name string, want, tol float64) bool) []*loader.Node {
+	const tol = 1e-6
+	// other returns the operand of binary node n that is not the scalar want
+	other := func(n *loader.Node, want float64) string {
+		switch {
+		case scalar(n.Inputs[0], want, tol):
+			return n.Inputs[1]
+		case scalar(n.Inputs[1], want, tol):
+			return n.Inputs[0]
+		}
+		return ""
+	}
+	binary := func(name, op string) *loader.Node {
+		n := producer[name]
+		if n == nil || n.OpType != op || n.Domain != "" || len(n.Inputs) != 2 || !only(name) {
+			return nil
+		}
+		return n
+	}
+	k := binary(t, "Mul")
+	if k == nil {
+		return nil
+	}
+	sum := other(k, math.Sqrt(2/math.Pi))
+	sa := binary(sum, "Add")
+	if sa == nil {
+		return nil
+	}
+	var cubic string
+	switch x {
+	case sa.Inputs[0]:
+		cubic = sa.Inputs[1]
+	case sa.Inputs[1]:
+		cubic = sa.Inputs[0]
+	default:
+		return nil
+	}
+	c := binary(cubic, "Mul")
+	if c == nil {
+		return nil
+	}
+	cube := other(c, 0.044715)
+	nodes := []*loader.Node{k, sa, c}
+	if pw := binary(cube, "Pow"); pw != nil {
+		if pw.Inputs[0] != x || !scalar(pw.Inputs[1], 3, 0) {
+			return nil
+		}
+		return append(nodes, pw)
+	}
+	m3 := binary(cube, "Mul")
+	if m3 == nil {
+		return nil
+	}
+	var sq string
+	switch x {
+	case m3.Inputs[0]:
+		sq = m3.Inputs[1]
+	case m3.Inputs[1]:
+		sq = m3.Inputs[0]
+	default:
+		return nil
+	}
+	m2 := binary(sq, "Mul")
+	if m2 == nil || m2.Inputs[0] != x || m2.Inputs[1] != x {
+		return nil
+	}
+	return append(nodes, m3, m2)
 }
 
 // Unobserved lists the node outputs the collector's hook does not read: the
