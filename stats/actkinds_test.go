@@ -89,6 +89,12 @@ func TestEveryActivationKindIsMeasuredAndDrawn(t *testing.T) {
 			a := b.Node("Add", "g_add", []string{scalar(b, "one", 1), e}, []string{"a"})
 			return "g_out", b.Node("Mul", "g_out", []string{h, a}, []string{"y"})
 		}, "relu-like", []string{"g_half", "g_scale", "g_erf", "g_add"}},
+		// Mish = x·tanh(softplus(x)) (Misra 2019), as opsets before 18 carry it
+		{"Mish as x·tanh(softplus(x))", 13, func(b *modelbuild.Builder, z string) (string, string) {
+			sp := b.Node("Softplus", "m_sp", []string{z}, []string{"sp"})
+			th := b.Node("Tanh", "m_tanh", []string{sp}, []string{"th"})
+			return "mish", b.Node("Mul", "mish", []string{th, z}, []string{"y"})
+		}, "relu-like", []string{"m_sp", "m_tanh"}},
 		// the tanh approximation ½x(1 + tanh(√(2/π)(x + 0.044715x³)))
 		// (Hendrycks & Gimpel 2016), as PyTorch 1.13 exports
 		// gelu(approximate="tanh"): x³ as x·(x·x), constants first

@@ -12,13 +12,14 @@ import (
 // Gelu); other exporters order the factors differently or write x/√2 as
 // x·(1/√2). GELU's tanh approximation, ½x(1 + tanh(√(2/π)(x + 0.044715x³))),
 // comes as PyTorch exports gelu(approximate="tanh") (x³ as x·(x·x)) or with
-// Pow(x, 3) (GPT-2's own formula). The node whose output is the activation ("top") is reported as
+// Pow(x, 3) (GPT-2's own formula); Mish before opset 18 as
+// Mul(x, Tanh(Softplus(x))). The node whose output is the activation ("top") is reported as
 // an activation layer under the actkind name; the nodes inside the pattern
 // (the Sigmoid, the Erf or Tanh and their helpers) are parts of it and get no unit
 // statistics of their own.
 
 // compositeForm is how each composite activation is written, for messages.
-var compositeForm = map[string]string{"Swish": "x·sigmoid(x)", "Gelu": "x·½·(1+erf(x/√2)) or its tanh approximation"}
+var compositeForm = map[string]string{"Swish": "x·sigmoid(x)", "Mish": "x·tanh(softplus(x))", "Gelu": "x·½·(1+erf(x/√2)) or its tanh approximation"}
 
 // composite is what compositeActs found.
 type composite struct {
@@ -58,6 +59,13 @@ func compositeActs(g *loader.Graph) composite {
 			cp.inner[s] = m
 			continue
 		}
+		if parts := mish(m, producer, only); parts != nil {
+			cp.top[m] = "Mish"
+			for _, p := range parts {
+				cp.inner[p] = m
+			}
+			continue
+		}
 		if parts := gelu(m, producer, only, scalar); parts != nil {
 			cp.top[m] = "Gelu"
 			for _, p := range parts {
@@ -66,7 +74,7 @@ func compositeActs(g *loader.Graph) composite {
 		}
 	}
 	// a top that is itself inside another pattern (cannot happen with the
-	// two patterns above, but keeps the two maps disjoint)
+	// patterns above, but keeps the two maps disjoint)
 	for n := range cp.inner {
 		delete(cp.top, n)
 	}
@@ -81,6 +89,24 @@ func swish(m *loader.Node, producer map[string]*loader.Node, only func(string) b
 		s := producer[sg]
 		if s != nil && s.OpType == "Sigmoid" && s.Domain == "" && len(s.Inputs) == 1 && s.Inputs[0] == x && only(sg) {
 			return s
+		}
+	}
+	return nil
+}
+
+// mish matches m = Mul(x, Tanh(Softplus(x))) in either order (Misra 2019;
+// how opsets before 18, which have no Mish, carry it) and returns the Tanh
+// and Softplus nodes (nil when m does not match).
+func mish(m *loader.Node, producer map[string]*loader.Node, only func(string) bool) []*loader.Node {
+	for i := 0; i < 2; i++ {
+		x, tv := m.Inputs[i], m.Inputs[1-i]
+		t := producer[tv]
+		if t == nil || t.OpType != "Tanh" || t.Domain != "" || len(t.Inputs) != 1 || !only(tv) {
+			continue
+		}
+		sp := producer[t.Inputs[0]]
+		if sp != nil && sp.OpType == "Softplus" && sp.Domain == "" && len(sp.Inputs) == 1 && sp.Inputs[0] == x && only(t.Inputs[0]) {
+			return []*loader.Node{t, sp}
 		}
 	}
 	return nil
