@@ -92,28 +92,6 @@ func TestChainsSameBits(t *testing.T) {
 	}
 }
 
-func sameRecords(t *testing.T, a, c []hookRecord) {
-	t.Helper()
-	if len(a) != len(c) {
-		t.Fatalf("%d hook calls fused, %d unfused", len(a), len(c))
-	}
-	for k := range c {
-		if a[k].node != c[k].node {
-			t.Fatalf("hook call %d: node %q, unfused %q", k, a[k].node, c[k].node)
-		}
-		for o := range c[k].outs {
-			if len(a[k].outs[o]) != len(c[k].outs[o]) {
-				t.Fatalf("node %q output %d: %d values, unfused %d", c[k].node, o, len(a[k].outs[o]), len(c[k].outs[o]))
-			}
-			for e, w := range c[k].outs[o] {
-				if g := a[k].outs[o][e]; math.Float32bits(g) != math.Float32bits(w) {
-					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, g, w)
-				}
-			}
-		}
-	}
-}
-
 // With values declared unobserved, a chain leaves out those only it reads:
 // the hook gets nil for them, the same bits for every other value; a
 // declared value read outside the chain (t_t, a graph output) is still

@@ -83,19 +83,5 @@ func TestFusionSiLUHookSeesUnfusedValues(t *testing.T) {
 	if len(a) != len(c) || len(a) != 3*len(plain.Steps) {
 		t.Fatalf("%d hook calls fused, %d unfused, want %d", len(a), len(c), 3*len(plain.Steps))
 	}
-	for k := range c {
-		if a[k].node != c[k].node {
-			t.Fatalf("hook call %d: node %q, unfused %q", k, a[k].node, c[k].node)
-		}
-		for o := range c[k].outs {
-			if len(a[k].outs[o]) != len(c[k].outs[o]) {
-				t.Fatalf("node %q output %d: %d values, unfused %d", a[k].node, o, len(a[k].outs[o]), len(c[k].outs[o]))
-			}
-			for e, w := range c[k].outs[o] {
-				if g := a[k].outs[o][e]; math.Float32bits(g) != math.Float32bits(w) {
-					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, g, w)
-				}
-			}
-		}
-	}
+	sameRecords(t, a, c)
 }

@@ -292,12 +292,24 @@ func fusionSameBits(t *testing.T, b *modelbuild.Builder, want int, batches []*te
 	if n != want {
 		t.Fatalf("%d fused links, want %d", n, want)
 	}
-	a, c := recordRun(t, fused, batches), recordRun(t, plain, batches)
+	sameRecords(t, recordRun(t, fused, batches), recordRun(t, plain, batches))
+}
+
+// sameRecords fails unless the hook calls a (fused) and c (unfused) are
+// for the same nodes in the same order with the same bits.
+func sameRecords(t *testing.T, a, c []hookRecord) {
+	t.Helper()
 	if len(a) != len(c) {
 		t.Fatalf("%d hook calls fused, %d unfused", len(a), len(c))
 	}
 	for k := range c {
+		if a[k].node != c[k].node {
+			t.Fatalf("hook call %d: node %q, unfused %q", k, a[k].node, c[k].node)
+		}
 		for o := range c[k].outs {
+			if len(a[k].outs[o]) != len(c[k].outs[o]) {
+				t.Fatalf("node %q output %d: %d values, unfused %d", c[k].node, o, len(a[k].outs[o]), len(c[k].outs[o]))
+			}
 			for e, w := range c[k].outs[o] {
 				if g := a[k].outs[o][e]; math.Float32bits(g) != math.Float32bits(w) {
 					t.Fatalf("node %q element %d = %g, unfused %g", c[k].node, e, g, w)

@@ -221,16 +221,17 @@ func geluTanhArg(t, x string, producer map[string]*loader.Node, only func(string
 	if sa == nil {
 		return nil
 	}
-	var cubic string
-	switch x {
-	case sa.Inputs[0]:
-		cubic = sa.Inputs[1]
-	case sa.Inputs[1]:
-		cubic = sa.Inputs[0]
-	default:
-		return nil
+	// partner returns the operand of binary node n beside x ("" if x is none)
+	partner := func(n *loader.Node) string {
+		switch x {
+		case n.Inputs[0]:
+			return n.Inputs[1]
+		case n.Inputs[1]:
+			return n.Inputs[0]
+		}
+		return ""
 	}
-	c := binary(cubic, "Mul")
+	c := binary(partner(sa), "Mul")
 	if c == nil {
 		return nil
 	}
@@ -246,16 +247,7 @@ func geluTanhArg(t, x string, producer map[string]*loader.Node, only func(string
 	if m3 == nil {
 		return nil
 	}
-	var sq string
-	switch x {
-	case m3.Inputs[0]:
-		sq = m3.Inputs[1]
-	case m3.Inputs[1]:
-		sq = m3.Inputs[0]
-	default:
-		return nil
-	}
-	m2 := binary(sq, "Mul")
+	m2 := binary(partner(m3), "Mul")
 	if m2 == nil || m2.Inputs[0] != x || m2.Inputs[1] != x {
 		return nil
 	}
