@@ -95,11 +95,9 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 	}
 	// values no hook reads (inside composite activations) may be left
 	// unwritten; the backward pass and a tap read every value
+	var unobserved map[string]bool
 	if gr == nil && o.tap == nil {
-		m.plan.SetUnobserved(c.Unobserved())
-		defer m.plan.SetUnobserved(nil)
-	} else {
-		m.plan.SetUnobserved(nil)
+		unobserved = c.Unobserved()
 	}
 	start := time.Now()
 	// activation storage is reused from batch to batch (at most a quarter of
@@ -219,7 +217,7 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 		if gr != nil {
 			gr.start(in)
 		}
-		outs, released, err := m.plan.RunRecycled(arena, in, hook, dead)
+		outs, released, err := m.plan.RunRecycled(arena, in, hook, dead, unobserved)
 		if ctx.Err() != nil && errors.Is(err, ctx.Err()) {
 			return nil, nil, "", ctx.Err()
 		}

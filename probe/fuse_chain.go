@@ -16,7 +16,7 @@ import (
 // turn to the chunk: the same float32 functions the members' own kernels
 // apply element by element, so every value is bit-identical. Each member's
 // output is written as before and handed to the hook at the member's own
-// step, except the values the caller declared unobserved (Plan.SetUnobserved)
+// step, except the values the caller declared unobserved (Plan.RunRecycled)
 // that no step outside the chain reads: those are not written at all, and
 // the hook gets nil in their place.
 //
@@ -256,12 +256,6 @@ func (p *Plan) chainMemberOf(i int, member map[string]int) chainMember {
 	return m
 }
 
-// SetUnobserved names the values the hook of the plan's next runs does not
-// read (nil: it reads all): a chain then skips writing those of its values
-// no other step reads, and the hook sees nil in their place. Call it
-// between runs, not during one.
-func (p *Plan) SetUnobserved(values map[string]bool) { p.unobserved = values }
-
 // chainFor runs the chain starting at step i, if there is one and its
 // operands allow it.
 func (p *Plan) chainFor(i int, env *Scope, c *Call) ([]*tensor.Tensor, bool) {
@@ -336,7 +330,7 @@ func (p *Plan) runChain(ch *elemChain, env *Scope, c *Call) (outs []*tensor.Tens
 	elided := make([]bool, len(ch.members))
 	nElided := 0
 	for k, m := range ch.members {
-		if !m.outside && p.unobserved[p.Steps[m.step].Node.Outputs[0]] {
+		if !m.outside && c.run.unobserved[p.Steps[m.step].Node.Outputs[0]] {
 			elided[k] = true
 			nElided++
 			continue

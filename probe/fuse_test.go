@@ -83,7 +83,7 @@ func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
 		return nil
 	}
 	for _, x := range batches {
-		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, hook, pool.Put)
+		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, hook, pool.Put, nil)
 		if err != nil {
 			t.Fatal(err)
 		}

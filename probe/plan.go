@@ -51,8 +51,6 @@ type Plan struct {
 	flat *Flat
 	// chains maps the first step of each elementwise chain to it (fuse_chain.go).
 	chains map[int]*elemChain
-	// unobserved names the values the hook does not read (SetUnobserved).
-	unobserved map[string]bool
 }
 
 // Step is one node with its chosen kernel.
@@ -384,6 +382,8 @@ type runState struct {
 	// arena is the run's memory: its budget and buffer pool (nil: the
 	// process default budget, no pool).
 	arena *tensor.Arena
+	// unobserved names the values the hook does not read (RunRecycled).
+	unobserved map[string]bool
 }
 
 // Run executes the plan on one batch of named inputs and returns the graph
@@ -404,21 +404,24 @@ func (p *Plan) Run(inputs map[string]*tensor.Tensor, hook Hook) (map[string]*ten
 // hook's own readers are done with it). The released values it does not get
 // (all of them when dead is nil) are returned, for tensor.Pool.Recycle after
 // the batch. Kernels allocate from arena (the run's budget and buffer pool;
-// nil: the process default budget, no pool).
-func (p *Plan) RunRecycled(arena *tensor.Arena, inputs map[string]*tensor.Tensor, hook Hook, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
+// nil: the process default budget, no pool). unobserved (may be nil) names
+// the values hook does not read: a chain then skips writing those of its
+// values no other step reads, and hook sees nil in their place. The plan
+// is not changed: runs may share it.
+func (p *Plan) RunRecycled(arena *tensor.Arena, inputs map[string]*tensor.Tensor, hook Hook, dead func(*tensor.Tensor), unobserved map[string]bool) (map[string]*tensor.Tensor, []*tensor.Tensor, error) {
 	if err := p.checkInputs(inputs); err != nil {
 		return nil, nil, err
 	}
 	var released []*tensor.Tensor
-	out, err := p.runCollect(arena, inputs, nil, hook, &released, dead)
+	out, err := p.runCollect(&runState{plan: p, hook: hook, arena: arena, unobserved: unobserved}, inputs, nil, &released, dead)
 	return out, released, err
 }
 
 func (p *Plan) run(arena *tensor.Arena, inputs map[string]*tensor.Tensor, parent *Scope, hook Hook) (map[string]*tensor.Tensor, error) {
-	return p.runCollect(arena, inputs, parent, hook, nil, nil)
+	return p.runCollect(&runState{plan: p, hook: hook, arena: arena}, inputs, parent, nil, nil)
 }
 
-func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor, parent *Scope, hook Hook, released *[]*tensor.Tensor, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, error) {
+func (p *Plan) runCollect(rs *runState, inputs map[string]*tensor.Tensor, parent *Scope, released *[]*tensor.Tensor, dead func(*tensor.Tensor)) (map[string]*tensor.Tensor, error) {
 	env := &Scope{vals: make(map[string]*tensor.Tensor, len(p.Graph.Initializers)+len(inputs)+16), parent: parent}
 	for name, t := range p.Graph.Initializers {
 		env.vals[name] = t
@@ -427,7 +430,7 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 		env.vals[name] = t
 	}
 	p.runs.Add(1)
-	rs := &runState{plan: p, hook: hook, arena: arena}
+	hook := rs.hook
 	var rec *recycler
 	if dead != nil && released != nil {
 		rec = newRecycler(env, dead)
@@ -489,7 +492,7 @@ func (p *Plan) runCollect(arena *tensor.Arena, inputs map[string]*tensor.Tensor,
 			}
 			// Kernels that allocate with make rather than tensor.New are held
 			// to the memory budget here, before the run goes on.
-			if err := arena.CheckBytes(tensor.Bytes(c.Out[j].DType, c.Out[j].Size()), func() string { return fmt.Sprintf("output %q %v", name, c.Out[j]) }); err != nil {
+			if err := rs.arena.CheckBytes(tensor.Bytes(c.Out[j].DType, c.Out[j].Size()), func() string { return fmt.Sprintf("output %q %v", name, c.Out[j]) }); err != nil {
 				return nil, fmt.Errorf("node %q (%s): %w", s.Node.Name, s.Node.OpType, err)
 			}
 			env.vals[name] = c.Out[j]

@@ -83,7 +83,7 @@ func TestRecycledRunMatchesPlainRun(t *testing.T) {
 	handed := 0
 	dead := func(t *tensor.Tensor) { handed++; pool.Put(t) }
 	for _, x := range batches {
-		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, record(&got), dead)
+		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, record(&got), dead, nil)
 		if err != nil {
 			t.Fatal(err)
 		}

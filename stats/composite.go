@@ -257,7 +257,7 @@ func geluTanhArg(t, x string, producer map[string]*loader.Node, only func(string
 // Unobserved lists the node outputs the collector's hook does not read: the
 // values inside recognised composite activations, which are no layers and
 // which the transformer, quantization and float16 observers do not watch
-// either. probe.Plan.SetUnobserved takes the list: an executor that
+// either. probe.Plan.RunRecycled takes the list: an executor that
 // computes such a pattern in one pass need not write them.
 func (c *Collector) Unobserved() map[string]bool {
 	u := map[string]bool{}

@@ -96,7 +96,7 @@ func ctlRun(t *testing.T, path string, g ctlGolden, scalars []int64) (*report.Re
 			in[g.ScalarInput] = tensor.From([]int64{scalars[k]})
 		}
 		c.AddInputs(in)
-		outs, released, err := plan.RunRecycled(arena, in, c.Hook, dead)
+		outs, released, err := plan.RunRecycled(arena, in, c.Hook, dead, nil)
 		if err != nil {
 			t.Fatalf("batch %d: %v", k, err)
 		}

@@ -82,7 +82,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 	}
 	// the values vitals check leaves unwritten (inside composite
 	// activations) are left unwritten here too
-	p.SetUnobserved(stats.NewCollector(m, p).Unobserved())
+	skip := stats.NewCollector(m, p).Unobserved()
 	x, err := loader.ReadNpy(dataPath)
 	if err != nil {
 		return err
@@ -162,7 +162,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 				if i == 1 {
 					t0 = time.Now()
 				}
-				outs, released, err := p.RunRecycled(arena, b, hook, dead)
+				outs, released, err := p.RunRecycled(arena, b, hook, dead, skip)
 				if err != nil {
 					return 0, err
 				}
@@ -269,7 +269,7 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 			clear(byNode)
 			for _, b := range batches {
 				last = time.Now()
-				outs, released, err := p.RunRecycled(arena, b, hook, pool.Put)
+				outs, released, err := p.RunRecycled(arena, b, hook, pool.Put, skip)
 				if err != nil {
 					return err
 				}
