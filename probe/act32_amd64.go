@@ -5,7 +5,9 @@ import "math"
 // sigmoid32AVX512 sets dst[i] = 1/(1 + e^−src[i]) for i < n in float32
 // lanes, sixteen at a time (act32_amd64.s), n any length; with mul != nil
 // also mul[i] = src[i]·dst[i] (SiLU), the float32 product the Mul kernel
-// computes, its operands in the Mul node's order (order 1: sigmoid first).
+// computes, its operands in the Mul node's order (order bit 0: sigmoid
+// first); with order bit 1 the sigmoid is not kept: dst is then a scratch
+// of 16 values that every step overwrites.
 //
 // Method: E = e^−|x| = 2^k·(1 + q), q = e^r − 1 by its Taylor series to r⁸
 // (the first omitted term, r⁹/9! ≤ 2e-10 for |r| ≤ ln2/2, is 0.003 float32

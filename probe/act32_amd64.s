@@ -87,6 +87,12 @@ TEXT ·sigmoid32AVX512(SB), NOSPLIT, $0-48
 	KMOVW AX, K2
 	TESTQ R9, R9
 	JZ   plain
+	MOVQ $64, R11                // dst's step: 0 with order bit 1 (dst a
+	BTQ  $1, R10                 // 16-value scratch, the sigmoid not kept)
+	JCC  keepdst
+	XORQ R11, R11
+keepdst:
+	ANDQ $1, R10
 	TESTQ R10, R10
 	JNZ  sfirst
 
@@ -100,7 +106,7 @@ xloop:
 	VMULPS Z11, Z0, Z13
 	VMOVUPS Z13, (R9)
 	ADDQ $64, SI
-	ADDQ $64, DI
+	ADDQ R11, DI
 	ADDQ $64, R9
 	DECQ CX
 	JNZ  xloop
@@ -124,7 +130,7 @@ sloop:
 	VMULPS Z0, Z11, Z13
 	VMOVUPS Z13, (R9)
 	ADDQ $64, SI
-	ADDQ $64, DI
+	ADDQ R11, DI
 	ADDQ $64, R9
 	DECQ CX
 	JNZ  sloop

@@ -105,7 +105,8 @@ func actVec(dst, src []float32, op actOp, p *[3]float64) int {
 
 // siluVec sets dst = sigmoid(src) and mul = src·dst (Mul(src, dst), or
 // Mul(dst, src) if sigFirst) in one pass of float32 lanes, and reports
-// whether it did (AVX-512 only: the values of sigmoidF32 then vvF32).
+// whether it did (AVX-512 only: the values of sigmoidF32 then vvF32). With
+// dst nil only mul is written.
 func siluVec(dst, mul, src []float32, sigFirst bool) bool {
 	if actVecLevel != 2 {
 		return false
@@ -114,11 +115,17 @@ func siluVec(dst, mul, src []float32, sigFirst bool) bool {
 	if n == 0 {
 		return true
 	}
-	_, _ = dst[n-1], mul[n-1]
+	_ = mul[n-1]
 	order := 0
 	if sigFirst {
 		order = 1
 	}
+	if dst == nil {
+		var scratch [16]float32
+		sigmoid32AVX512(&scratch[0], &src[0], n, &sigmoid32Table, &mul[0], order|2)
+		return true
+	}
+	_ = dst[n-1]
 	sigmoid32AVX512(&dst[0], &src[0], n, &sigmoid32Table, &mul[0], order)
 	return true
 }

@@ -40,6 +40,10 @@ type fusedAct struct {
 	// sigFirst: the Mul reads the sigmoid first (Mul(s, x)); the operands keep
 	// their order so that even a NaN's payload is the Mul kernel's
 	sigFirst bool
+	// noSig: the sigmoid is read by the Mul alone and unobserved
+	// (Plan.RunRecycled): out is not written where the kernel can avoid
+	// it, and the run hands its buffer back and the hook nil
+	noSig bool
 }
 
 // alloc creates the fused outputs for a producer output of the given shape
@@ -55,7 +59,11 @@ func (f *fusedAct) alloc(ar *tensor.Arena, shape []int) {
 // of mul = src·dst. dst is out.F32()[o : o+len(dst)], so o = cap(out) − cap(dst).
 func (f *fusedAct) siluF32(dst, src []float32) {
 	o := cap(f.out.F32()) - cap(dst)
-	if siluVec(dst, f.mul.F32()[o:o+len(dst)], src, f.sigFirst) {
+	keep := dst
+	if f.noSig {
+		keep = nil
+	}
+	if siluVec(keep, f.mul.F32()[o:o+len(dst)], src, f.sigFirst) {
 		return
 	}
 	sigmoidF32(dst, src)
@@ -143,7 +151,11 @@ func (p *Plan) markFusions() {
 		}
 	}
 	for i := range p.Steps {
-		p.Steps[i].fuseWith, p.Steps[i].fuseMul = -1, -1
+		p.Steps[i].fuseWith, p.Steps[i].fuseMul, p.Steps[i].sigLocal = -1, -1, false
+	}
+	outputs := map[string]bool{}
+	for _, o := range p.Graph.Outputs {
+		outputs[o.Name] = true
 	}
 	for i := range p.Steps {
 		s := &p.Steps[i]
@@ -156,6 +168,8 @@ func (p *Plan) markFusions() {
 		}
 		if j, k, ok := p.siluAfter(v, i, readers); ok {
 			s.fuseWith, s.fuseMul = j, k
+			sig := p.Steps[j].Node.Outputs[0]
+			s.sigLocal = len(readers[sig]) == 1 && readers[sig][0] == k && !outputs[sig]
 			continue
 		}
 		if len(readers[v]) != 1 || readers[v][0] <= i {
@@ -211,7 +225,8 @@ func (p *Plan) fuseFor(i int, env *Scope, parent *Call) *fusedAct {
 		return nil
 	}
 	if p.Steps[i].fuseMul >= 0 {
-		f := &fusedAct{silu: true, sigFirst: p.Steps[p.Steps[i].fuseMul].Node.Inputs[0] != p.Steps[i].Node.Outputs[0]}
+		f := &fusedAct{silu: true, sigFirst: p.Steps[p.Steps[i].fuseMul].Node.Inputs[0] != p.Steps[i].Node.Outputs[0],
+			noSig: p.Steps[i].sigLocal && parent.run.unobserved[p.Steps[j].Node.Outputs[0]]}
 		f.f32 = f.siluF32
 		return f
 	}

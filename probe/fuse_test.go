@@ -68,8 +68,9 @@ type hookRecord struct {
 
 // recordRun runs the batches through RunRecycled with a pool recycling the
 // released buffers within and between batches (as vitals check does) and
-// records, in call order, a copy of every output the hook sees.
-func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
+// records, in call order, a copy of every output the hook sees (nil for a
+// value left unwritten: the run's unobserved, if any, name them).
+func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor, unobserved ...map[string]bool) []hookRecord {
 	t.Helper()
 	pool := tensor.NewPool(1 << 30)
 	arena := &tensor.Arena{Pool: pool}
@@ -77,13 +78,21 @@ func recordRun(t *testing.T, p *Plan, batches []*tensor.Tensor) []hookRecord {
 	hook := func(n *loader.Node, outs []*tensor.Tensor) error {
 		rec := hookRecord{node: n.Name}
 		for _, o := range outs {
+			if o == nil {
+				rec.outs = append(rec.outs, nil)
+				continue
+			}
 			rec.outs = append(rec.outs, append([]float32{}, o.F32()...))
 		}
 		recs = append(recs, rec)
 		return nil
 	}
+	var skip map[string]bool
+	if len(unobserved) > 0 {
+		skip = unobserved[0]
+	}
 	for _, x := range batches {
-		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, hook, pool.Put, nil)
+		outs, released, err := p.RunRecycled(arena, map[string]*tensor.Tensor{"x": x}, hook, pool.Put, skip)
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -63,6 +63,9 @@ type Step struct {
 	// fuseMul is the Mul step of a SiLU (x·sigmoid(x), fuseWith being the
 	// Sigmoid) this step may compute too, or −1.
 	fuseMul int
+	// sigLocal: with fuseMul, the Sigmoid's output is read by the Mul alone
+	// and is no graph output
+	sigLocal bool
 	// inChain: the step is a later member of an elementwise chain, whose
 	// first step may compute its output (fuse_chain.go).
 	inChain bool
@@ -476,6 +479,13 @@ func (p *Plan) runCollect(rs *runState, inputs map[string]*tensor.Tensor, parent
 				fused[s.fuseWith] = c.fuse.out
 				if c.fuse.mul != nil {
 					fused[s.fuseMul] = c.fuse.mul
+				}
+				if c.fuse.noSig {
+					// the sigmoid went unwritten: its buffer back, nil to the hook
+					if rs.arena != nil && rs.arena.Pool != nil {
+						rs.arena.Pool.Put(c.fuse.out)
+					}
+					fused[s.fuseWith] = nil
 				}
 			}
 		}
