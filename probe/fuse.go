@@ -192,6 +192,7 @@ func (p *Plan) markFusions() {
 		}
 	}
 	p.markChains(readers)
+	p.markBiasAdds(readers, outputs)
 }
 
 // siluAfter finds a SiLU reading value v of step i: v's only readers are a

@@ -63,6 +63,9 @@ type Step struct {
 	// fuseMul is the Mul step of a SiLU (x·sigmoid(x), fuseWith being the
 	// Sigmoid) this step may compute too, or −1.
 	fuseMul int
+	// biasAdd is the Add step that adds a constant bias to this MatMul
+	// step's product, which may then be computed in place (fuse_bias.go), or −1.
+	biasAdd int
 	// sigLocal: with fuseMul, the Sigmoid's output is read by the Mul alone
 	// and is no graph output
 	sigLocal bool
@@ -471,6 +474,15 @@ func (p *Plan) runCollect(rs *runState, inputs map[string]*tensor.Tensor, parent
 			c.fuse = p.fuseFor(i, env, c)
 			if err := p.call(s, c); err != nil {
 				return nil, err
+			}
+			if s.biasAdd >= 0 && rs.unobserved[s.Node.Outputs[0]] && c.Out[0] != nil {
+				if sum := p.biasInPlace(i, c.Out[0], env); sum != nil {
+					if fused == nil {
+						fused = map[int]*tensor.Tensor{}
+					}
+					fused[s.biasAdd] = sum
+					c.Out[0], elided = nil, true
+				}
 			}
 			if c.fuse != nil && c.fuse.out != nil {
 				if fused == nil {

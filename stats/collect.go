@@ -474,12 +474,13 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 		}
 	}
 	for i, n := range g.Nodes {
-		if _, in := c.composite.inner[n]; in {
+		if c.composite.folded(n) {
 			// a value inside x·sigmoid(x) or the erf GELU is an elementwise
 			// function of the activation's input, which is observed, and read
 			// only inside the pattern (a NaN there shows at its end): its own
 			// pass would repeat that layer's statistics at a quarter of the
-			// encoder's statistics cost, so it is not a layer
+			// encoder's statistics cost, so it is not a layer; nor is a
+			// dense layer's product before its bias Add (biasedMatMul)
 			continue
 		}
 		for _, o := range n.Outputs {

@@ -4,6 +4,7 @@ import (
 	"math"
 
 	"github.com/vitals-health/vitals/loader"
+	"github.com/vitals-health/vitals/tensor"
 )
 
 // Activations that exporters write as a small subgraph instead of one
@@ -25,11 +26,22 @@ var compositeForm = map[string]string{"Swish": "x·sigmoid(x)", "Mish": "x·tanh
 type composite struct {
 	top   map[*loader.Node]string       // node → "Swish" or "Gelu"
 	inner map[*loader.Node]*loader.Node // node inside a pattern → its top
+	// biased: a MatMul by a constant matrix whose product only the Add of a
+	// constant bias reads → that Add (biasedMatMul)
+	biased map[*loader.Node]*loader.Node
+}
+
+// folded reports whether n's outputs are parts of a larger unit (a
+// composite activation, or a dense layer's product before its bias) and
+// so no layers of their own.
+func (cp composite) folded(n *loader.Node) bool {
+	_, in := cp.inner[n]
+	return in || cp.biased[n] != nil
 }
 
 // compositeActs finds the SiLU/Swish and erf-GELU patterns in g.
 func compositeActs(g *loader.Graph) composite {
-	cp := composite{top: map[*loader.Node]string{}, inner: map[*loader.Node]*loader.Node{}}
+	cp := composite{top: map[*loader.Node]string{}, inner: map[*loader.Node]*loader.Node{}, biased: map[*loader.Node]*loader.Node{}}
 	producer := map[string]*loader.Node{}
 	readers := map[string]int{}
 	for _, n := range g.Nodes {
@@ -49,6 +61,17 @@ func compositeActs(g *loader.Graph) composite {
 	scalar := func(name string, want, tol float64) bool {
 		t, ok := constValue(g, name)
 		return ok && t.Size() == 1 && math.Abs(t.Float64At(0)-want) <= tol
+	}
+	reader := map[string]*loader.Node{}
+	for _, n := range g.Nodes {
+		for _, in := range n.Inputs {
+			reader[in] = n
+		}
+	}
+	for _, m := range g.Nodes {
+		if a := biasedMatMul(g, m, reader, only); a != nil {
+			cp.biased[m] = a
+		}
 	}
 	for _, m := range g.Nodes {
 		if m.OpType != "Mul" || m.Domain != "" || len(m.Inputs) != 2 || len(m.Outputs) != 1 {
@@ -79,6 +102,73 @@ func compositeActs(g *loader.Graph) composite {
 		delete(cp.top, n)
 	}
 	return cp
+}
+
+// biasedMatMul returns the Add that completes m as a dense layer, nil if
+// none: m = MatMul(x, W) with W a constant float matrix [k, n] (an
+// initializer, possibly through Identity or a Constant node; a quantized
+// model's dequantized weights are left alone), its product read only by
+// Add(product, b) (either order) with b a constant of n values along the
+// last axis (shape [n], or [1, …, 1, n] of rank at most 2). That is how
+// PyTorch exports nn.Linear on inputs of rank 3 and more, where a rank-2
+// input gives Gemm with the bias inside: the product alone is the layer
+// before its bias, the same values shifted per feature, and the layer the
+// report names is the Add, as it names the Gemm or the Conv with its bias.
+func biasedMatMul(g *loader.Graph, m *loader.Node, reader map[string]*loader.Node, only func(string) bool) *loader.Node {
+	if m.OpType != "MatMul" || m.Domain != "" || len(m.Inputs) != 2 || len(m.Outputs) != 1 || m.Outputs[0] == "" || !only(m.Outputs[0]) {
+		return nil
+	}
+	w, ok := plainConst(g, m.Inputs[1])
+	if !ok || w.Rank() != 2 || !w.DType.IsFloat() {
+		return nil
+	}
+	a := reader[m.Outputs[0]]
+	if a == nil || a.OpType != "Add" || a.Domain != "" || len(a.Inputs) != 2 || len(a.Outputs) != 1 {
+		return nil
+	}
+	b := a.Inputs[0]
+	if b == m.Outputs[0] {
+		b = a.Inputs[1]
+	}
+	if b == m.Outputs[0] {
+		return nil
+	}
+	bias, ok := plainConst(g, b)
+	if !ok || bias.DType != w.DType || bias.Rank() < 1 || bias.Rank() > 2 || bias.Shape[bias.Rank()-1] != w.Shape[1] || bias.Size() != w.Shape[1] {
+		return nil
+	}
+	return a
+}
+
+// plainConst is constValue without dequantization: a float or integer
+// tensor stored in the model as it is.
+func plainConst(g *loader.Graph, name string) (*tensor.Tensor, bool) {
+	for hop := 0; hop < 16; hop++ {
+		if t, ok := g.Initializers[name]; ok {
+			return t, true
+		}
+		var p *loader.Node
+		for _, n := range g.Nodes {
+			if len(n.Outputs) > 0 && n.Outputs[0] == name {
+				p = n
+				break
+			}
+		}
+		switch {
+		case p == nil:
+			return nil, false
+		case p.OpType == "Identity" && len(p.Inputs) == 1:
+			name = p.Inputs[0]
+		case p.OpType == "Constant":
+			if a := p.Attrs["value"]; a != nil && a.T != nil {
+				return a.T, true
+			}
+			return nil, false
+		default:
+			return nil, false
+		}
+	}
+	return nil, false
 }
 
 // swish matches m = Mul(x, Sigmoid(x)) in either order and returns the
@@ -261,7 +351,14 @@ func geluTanhArg(t, x string, producer map[string]*loader.Node, only func(string
 // computes such a pattern in one pass need not write them.
 func (c *Collector) Unobserved() map[string]bool {
 	u := map[string]bool{}
+	var folded []*loader.Node
 	for n := range c.composite.inner {
+		folded = append(folded, n)
+	}
+	for n := range c.composite.biased {
+		folded = append(folded, n)
+	}
+	for _, n := range folded {
 		for _, o := range n.Outputs {
 			if o == "" || c.byOut[o] != nil || c.watched(o) {
 				continue
