@@ -306,6 +306,19 @@ func normRows[T Float](y, x []T, m int, scale, bias []float64, eps float64, rms 
 	if m > 0 {
 		rows = len(x) / m
 	}
+	if y32, ok := any(y).([]float32); ok { // float32: norm_f32.go
+		x32 := any(x).([]float32)
+		for r := 0; r < rows; r++ {
+			mu, rs := normRow32(y32[r*m:(r+1)*m], x32[r*m:(r+1)*m], scale, bias, eps, rms)
+			if means != nil {
+				means[r] = mu
+			}
+			if inv != nil {
+				inv[r] = rs
+			}
+		}
+		return
+	}
 	for r := 0; r < rows; r++ {
 		xs, ys := x[r*m:(r+1)*m], y[r*m:(r+1)*m]
 		var mu float64
