@@ -84,6 +84,13 @@ func shapeStridedTiled[T any](dst []T, dOff int, dStr []int, src []T, sOff int, 
 	}
 	rows, cols := dims[p], dims[r-1]
 	dRow, sCol := dStr[p], sStr[r-1]
+	if d32, ok := any(dst).([]float32); ok && haveTranspose16 && rows >= 16 && cols >= 16 {
+		s32 := any(src).([]float32)
+		shapeEach(oDims, oD, oS, dOff, sOff, func(d, s int) {
+			shapeTranspose32(d32[d:], dRow, s32[s:], sCol, rows, cols)
+		})
+		return
+	}
 	shapeEach(oDims, oD, oS, dOff, sOff, func(d, s int) {
 		shapeTranspose(dst[d:], dRow, src[s:], sCol, rows, cols)
 	})
@@ -108,6 +115,25 @@ func shapeTranspose[T any](dst []T, dRow int, src []T, sCol int, rows, cols int)
 				}
 			}
 		}
+	}
+}
+
+// shapeTranspose32 is shapeTranspose for float32 with the full 16×16
+// tiles moved in vector registers (transpose16) and the edges as before.
+func shapeTranspose32(dst []float32, dRow int, src []float32, sCol int, rows, cols int) {
+	r16, c16 := rows&^15, cols&^15
+	for i0 := 0; i0 < r16; i0 += 16 {
+		for j0 := 0; j0 < c16; j0 += 16 {
+			if !transpose16(dst[i0*dRow+j0:], dRow, src[i0+j0*sCol:], sCol) {
+				shapeTranspose(dst[i0*dRow+j0:], dRow, src[i0+j0*sCol:], sCol, 16, 16)
+			}
+		}
+	}
+	if c16 < cols { // the right edge: columns c16… of every row
+		shapeTranspose(dst[c16:], dRow, src[c16*sCol:], sCol, rows, cols-c16)
+	}
+	if r16 < rows { // the bottom edge: rows r16… of the first c16 columns
+		shapeTranspose(dst[r16*dRow:], dRow, src[r16:], sCol, rows-r16, c16)
 	}
 }
 
