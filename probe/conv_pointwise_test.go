@@ -68,10 +68,7 @@ func TestFusionPointwiseSeesUnfusedValues(t *testing.T) {
 	r := rand.New(rand.NewSource(42))
 	b := modelbuild.New("pw", 14)
 	b.Input("x", []int{3, 8, 40, 40}, true)
-	init := func(name string, shape ...int) string {
-		b.Init(name, shape, linRand(r, shape...).F32())
-		return name
-	}
+	init := randInit(b, r)
 	b.Node("Conv", "c0", []string{"x", init("w0", 96, 8, 1, 1), init("b0", 96)}, []string{"y0"})
 	b.Node("Sigmoid", "s0", []string{"y0"}, []string{"g0"})
 	b.Node("Mul", "m0", []string{"y0", "g0"}, []string{"a0"})

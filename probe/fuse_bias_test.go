@@ -23,10 +23,7 @@ func TestBiasAddInPlace(t *testing.T) {
 	r := rand.New(rand.NewSource(53))
 	b := modelbuild.New("bias", 14)
 	b.Input("x", []int{2, 5, 8}, true)
-	init := func(name string, shape ...int) string {
-		b.Init(name, shape, linRand(r, shape...).F32())
-		return name
-	}
+	init := randInit(b, r)
 	b.Node("MatMul", "m0", []string{"x", init("w0", 8, 12)}, []string{"p0"})
 	b.Node("Add", "a0", []string{"p0", init("b0", 12)}, []string{"y0"})
 	b.Node("Relu", "r0", []string{"y0"}, []string{"z0"})

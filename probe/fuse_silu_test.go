@@ -20,10 +20,7 @@ func TestFusionSiLUHookSeesUnfusedValues(t *testing.T) {
 	r := rand.New(rand.NewSource(41))
 	b := modelbuild.New("silu", 14)
 	b.Input("x", []int{2, 4, 40, 40}, true)
-	init := func(name string, shape ...int) string {
-		b.Init(name, shape, linRand(r, shape...).F32())
-		return name
-	}
+	init := randInit(b, r)
 	i64 := func(v ...int64) []int64 { return v }
 	// dense 3×3 on large planes → SiLU as Mul(x, s)
 	b.Node("Conv", "c0", []string{"x", init("w0", 8, 4, 3, 3), init("b0", 8)}, []string{"y0"},

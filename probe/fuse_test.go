@@ -61,6 +61,15 @@ func fuseTestModel(t *testing.T, r *rand.Rand) *loader.Model {
 	return BuiltModel(t, b)
 }
 
+// randInit returns a function that adds an initializer of the given shape
+// with linRand values to b and returns its name.
+func randInit(b *modelbuild.Builder, r *rand.Rand) func(name string, shape ...int) string {
+	return func(name string, shape ...int) string {
+		b.Init(name, shape, linRand(r, shape...).F32())
+		return name
+	}
+}
+
 type hookRecord struct {
 	node string
 	outs [][]float32
@@ -200,10 +209,7 @@ func TestFusionLargePlanes(t *testing.T) {
 	r := rand.New(rand.NewSource(32))
 	b := modelbuild.New("large", 13)
 	b.Input("x", []int{2, 3, 48, 48}, true)
-	init := func(name string, shape ...int) string {
-		b.Init(name, shape, linRand(r, shape...).F32())
-		return name
-	}
+	init := randInit(b, r)
 	b.Node("Conv", "c3", []string{"x", init("w3", 5, 3, 3, 3), init("b3", 5)}, []string{"y3"},
 		modelbuild.Attr{Name: "pads", Value: []int64{1, 1, 1, 1}})
 	b.Node("Relu", "relu", []string{"y3"}, []string{"a3"})
