@@ -229,8 +229,11 @@ type layerAcc struct {
 	scaleOf  *layerAcc
 	scaleExp int
 	keepLast bool
-	last     lastBatch
-	batches  int64 // observe calls so far (one per batch)
+	// parts are a Concat's inputs, whose merged statistics are its own
+	// (concat.go); the layer itself is then not observed
+	parts   []*layerAcc
+	last    lastBatch
+	batches int64 // observe calls so far (one per batch)
 }
 
 // lastBatch is what one batch of a layer gave: its moments and the
@@ -524,6 +527,7 @@ func NewCollector(m *loader.Model, p *probe.Plan) *Collector {
 		}
 	}
 	c.tf = newTFObserver(c)
+	c.markConcats()
 	return c
 }
 
@@ -612,6 +616,13 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 		c.half.observe(n.Outputs[i], t)
 		la := c.byOut[n.Outputs[i]]
 		if la == nil {
+			continue
+		}
+		if la.parts != nil { // merged from its inputs at Finish
+			if la.shape == nil {
+				la.shape = append([]int{}, t.Shape...)
+			}
+			la.batches++
 			continue
 		}
 		if err := c.queue(obsJob{la: la, t: t}); err != nil {

@@ -112,6 +112,7 @@ func (c *Collector) Finish(source string) *Collected {
 		r.Model.Float16Weights = c.half.weights
 	}
 	col := &Collected{Report: r, Graph: g}
+	c.mergeConcats()
 	layerIdx := map[*layerAcc]int{}
 	for _, la := range c.layers {
 		if la.mom.N == 0 && la.mom.Nonfinite == 0 {
