@@ -48,6 +48,19 @@ func maxCols3s2Vec(y, tmp []float32) int {
 	return k
 }
 
+// maxCols3s2Whole sets dst[o] = max(src[2o−1], src[2o], src[2o+1]) for
+// every o < len(dst) (a multiple of 16), reading src[−1] through
+// src[2·len(dst)−1]: src is a subslice whose element −1 exists, and must
+// hold 2·len(dst) values. Only where havePoolVec.
+func maxCols3s2Whole(dst, src []float32) {
+	n := len(dst)
+	if n == 0 {
+		return
+	}
+	_ = src[2*n-1]
+	maxCols3s2AVX512(&dst[0], &src[0], n)
+}
+
 // maxCols3s2Vec0 is maxCols3s2Vec for a window row without left padding:
 // it sets y[o] = max(tmp[2o], tmp[2o+1], tmp[2o+2]) for o < k and returns k
 // (a multiple of 16, 0 without AVX-512).

@@ -164,8 +164,9 @@ func BenchmarkGlobalAvgPool(b *testing.B) {
 // The whole-plane max and average pooling of "same" stride-1 windows
 // (poolMaxSamePlane, poolAvgSamePlane against the row loop:
 // GoogLeNet's and Inception's 3×3 branch pools) and the 3-wide stride-2
-// windows without left padding (maxCols3s2Vec0: their ceil-mode
-// downsampling pools) against a direct Go max over each window, bit for
+// windows with left padding 0 or 1 (their ceil-mode downsampling pools,
+// ResNet's first pool; whole vectors of 16 outputs over a row padded with
+// −Inf, maxCols3s2Whole) against a direct Go max over each window, bit for
 // bit, on planes with NaN, +0 and −0 among the values (Go's max: NaN wins,
 // +0 beats −0; the ONNX MaxPool specification leaves those to the
 // implementation, so the direct loop is the reference).
@@ -211,11 +212,11 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 			if trial%4 == 0 { // narrower output rows: any padding below the window
 				pads = []int{pt, pl, r.Intn(kh), r.Intn(kw)}
 			}
-		} else { // 3 wide, stride 2, no left padding
-			K, s, pads = []int{3, 3}, []int{2, 2}, []int{r.Intn(2), 0, r.Intn(2), r.Intn(2)}
+		} else { // 3 wide, stride 2, left padding 0 or 1
+			K, s, pads = []int{3, 3}, []int{2, 2}, []int{r.Intn(2), r.Intn(2), r.Intn(2), r.Intn(2)}
 			ceil = int64(r.Intn(2))
 		}
-		H, W := 1+r.Intn(20), 1+r.Intn(80)
+		H, W := 1+r.Intn(20), 1+r.Intn(140)
 		x := linRand(r, 2, 2, H, W)
 		xs := x.F32()
 		for k := 0; k < 1+len(xs)/20; k++ {
@@ -273,5 +274,34 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 	}
 	if ran < 300 {
 		t.Fatalf("only %d geometries ran", ran)
+	}
+}
+
+// BenchmarkMaxPoolShapes times 3×3 MaxPool over a batch of 8 at GoogLeNet's
+// shapes (ceil mode): the stride-2 downsampling pools at 112×112 and
+// 56×56, the stride-1 branch pools at 28×28 and 14×14; outputs recycled.
+func BenchmarkMaxPoolShapes(b *testing.B) {
+	r := rand.New(rand.NewSource(1))
+	for _, tc := range []struct {
+		name string
+		C, H int
+		k, s, p int64
+	}{{"s2_112", 64, 112, 3, 2, 0}, {"s2_56", 192, 56, 3, 2, 0}, {"s1_28", 256, 28, 3, 1, 1}, {"s1_14", 512, 14, 3, 1, 1}} {
+		b.Run(tc.name, func(b *testing.B) {
+			x := linRand(r, 8, tc.C, tc.H, tc.H)
+			attrs := map[string]*loader.Attr{"kernel_shape": linInts("kernel_shape", tc.k, tc.k), "strides": linInts("strides", tc.s, tc.s),
+				"pads": linInts("pads", tc.p, tc.p, tc.p, tc.p), "ceil_mode": {Name: "ceil_mode", Kind: loader.AttrInt, I: 1}}
+			pool := tensor.NewPool(1 << 30)
+			testArena = &tensor.Arena{Pool: pool}
+			defer func() { testArena = nil }()
+			b.SetBytes(int64(4 * x.Size()))
+			for b.Loop() {
+				c := fastCall("MaxPool", attrs, 12, []string{"X"}, nil, x)
+				if err := maxPoolKernel(c); err != nil {
+					b.Fatal(err)
+				}
+				pool.Recycle([]*tensor.Tensor{c.Out[0]}, nil)
+			}
+		})
 	}
 }
