@@ -283,8 +283,8 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 func BenchmarkMaxPoolShapes(b *testing.B) {
 	r := rand.New(rand.NewSource(1))
 	for _, tc := range []struct {
-		name string
-		C, H int
+		name    string
+		C, H    int
 		k, s, p int64
 	}{{"s2_112", 64, 112, 3, 2, 0}, {"s2_56", 192, 56, 3, 2, 0}, {"s1_28", 256, 28, 3, 1, 1}, {"s1_14", 512, 14, 3, 1, 1}} {
 		b.Run(tc.name, func(b *testing.B) {
