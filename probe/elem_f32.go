@@ -355,11 +355,11 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 	// stride 1, every window holding image values: the whole plane at once
 	// (poolMaxSamePlane)
 	same := poolSamePlaneOK && sh == 1 && sw == 1 && dh == 1 && dw == 1 && pt < KH && g.padEnd[0] < KH && pl < KW && g.padEnd[1] < KW
-	// the 3-wide stride-2 column kernels run over whole vectors of 16
+	// the 2- and 3-wide stride-2 column kernels run over whole vectors of 16
 	// outputs into ys, reading the row max from tmpPad, whose values past
 	// the row are −Inf (no window's maximum changes: every output window
 	// holds an image value, and max(v, −Inf) = v, NaN included)
-	s2 := KW == 3 && sw == 2 && dw == 1 && (pl == 0 || pl == 1) && havePoolVec
+	s2 := (KW == 3 && (pl == 0 || pl == 1) || KW == 2 && pl == 0) && sw == 2 && dw == 1 && havePoolVec
 	parFor(planes, max(1, elemChunk/max(1, OH*OW*4)), func(p0, p1 int) {
 		tmpPad := make([]float32, W+40)
 		for i := W; i < len(tmpPad); i++ {
@@ -406,13 +406,19 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 				}
 				yr := yp[oh*OW : (oh+1)*OW]
 				vec0, vec1 := 0, 0 // outputs [vec0, vec1) done by the vector kernel
-				if s2 && pl == 0 && 2*dwTapsRound(OW) < len(tmpPad) {
+				if s2 && KW == 2 && 2*dwTapsRound(OW) <= len(tmpPad) {
+					// y[o] = max(tmp[2o], tmp[2o+1]), reading tmpPad[0 .. 2n−1]
+					n := dwTapsRound(OW)
+					maxCols2s2Whole(ys[:n], tmpPad)
+					copy(yr, ys[:OW])
+					vec0, vec1 = 0, OW
+				} else if s2 && KW == 3 && pl == 0 && 2*dwTapsRound(OW) < len(tmpPad) {
 					// y[o] = max(tmp[2o], tmp[2o+1], tmp[2o+2]), reading tmpPad[0 .. 2n]
 					n := dwTapsRound(OW)
 					maxCols3s2Whole(ys[:n], tmpPad[1:])
 					copy(yr, ys[:OW])
 					vec0, vec1 = 0, OW
-				} else if s2 && pl == 1 && OW > 1 && 2*dwTapsRound(OW-1)+1 < len(tmpPad) {
+				} else if s2 && KW == 3 && pl == 1 && OW > 1 && 2*dwTapsRound(OW-1)+1 < len(tmpPad) {
 					// outputs 1 … OW−1: max(tmp[2o−1], tmp[2o], tmp[2o+1]), reading tmpPad[1 .. 2n+1]
 					n := dwTapsRound(OW - 1)
 					maxCols3s2Whole(ys[1:1+n], tmpPad[2:])

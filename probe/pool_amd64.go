@@ -48,6 +48,24 @@ func maxCols3s2Vec(y, tmp []float32) int {
 	return k
 }
 
+// maxCols2s2AVX512 sets dst[o] = max(src[2o], src[2o+1]) for o < n, n a
+// multiple of 16.
+//
+//go:noescape
+func maxCols2s2AVX512(dst, src *float32, n int)
+
+// maxCols2s2Whole sets dst[o] = max(src[2o], src[2o+1]) for every o <
+// len(dst) (a multiple of 16); src must hold 2·len(dst) values. Only where
+// havePoolVec.
+func maxCols2s2Whole(dst, src []float32) {
+	n := len(dst)
+	if n == 0 {
+		return
+	}
+	_ = src[2*n-1]
+	maxCols2s2AVX512(&dst[0], &src[0], n)
+}
+
 // maxCols3s2Whole sets dst[o] = max(src[2o−1], src[2o], src[2o+1]) for
 // every o < len(dst) (a multiple of 16), reading src[−1] through
 // src[2·len(dst)−1]: src is a subslice whose element −1 exists, and must

@@ -108,6 +108,36 @@ cols:
 colsdone:
 	RET
 
+// func maxCols2s2AVX512(dst, src *float32, n int)
+// dst[o] = max(src[2o], src[2o+1]) for o < n (n a multiple of 16); it reads
+// src[0] through src[2n−1].
+TEXT ·maxCols2s2AVX512(SB), NOSPLIT, $0-24
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ n+16(FP), CX
+	SHRQ $4, CX
+	JZ   pairsdone
+	VMOVDQU32 poolEvenIdx<>(SB), Z30
+	VMOVDQU32 poolOddIdx<>(SB), Z29
+
+pairs:
+	VMOVUPS (SI), Z0             // src[2o .. 2o+15]
+	VMOVUPS 64(SI), Z1           // src[2o+16 .. 2o+31]
+	VMOVDQA32 Z30, Z5
+	VPERMI2PS Z1, Z0, Z5         // src[2o]
+	VMOVDQA32 Z29, Z6
+	VPERMI2PS Z1, Z0, Z6         // src[2o+1]
+	GOMAX(Z5, Z6, Z9)
+	VMOVUPS Z9, (DI)
+	ADDQ $128, SI
+	ADDQ $64, DI
+	DECQ CX
+	JNZ  pairs
+	VZEROUPPER
+
+pairsdone:
+	RET
+
 // func sum8AVX512(x *float32, n int, acc *[8]float64)
 // acc[j] += Σ_i x[8i + j] for i < n/8 (n a multiple of 8), in order, one
 // float64 lane per j: the additions of the Go loop of poolGlobalAvgF32.

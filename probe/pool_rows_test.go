@@ -165,8 +165,9 @@ func BenchmarkGlobalAvgPool(b *testing.B) {
 // (poolMaxSamePlane, poolAvgSamePlane against the row loop:
 // GoogLeNet's and Inception's 3×3 branch pools) and the 3-wide stride-2
 // windows with left padding 0 or 1 (their ceil-mode downsampling pools,
-// ResNet's first pool; whole vectors of 16 outputs over a row padded with
-// −Inf, maxCols3s2Whole) against a direct Go max over each window, bit for
+// ResNet's first pool) and 2-wide ones (VGG's and U-Net's 2×2 pools), whole
+// vectors of 16 outputs over a row padded with −Inf (maxCols3s2Whole,
+// maxCols2s2Whole), against a direct Go max over each window, bit for
 // bit, on planes with NaN, +0 and −0 among the values (Go's max: NaN wins,
 // +0 beats −0; the ONNX MaxPool specification leaves those to the
 // implementation, so the direct loop is the reference).
@@ -212,8 +213,9 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 			if trial%4 == 0 { // narrower output rows: any padding below the window
 				pads = []int{pt, pl, r.Intn(kh), r.Intn(kw)}
 			}
-		} else { // 3 wide, stride 2, left padding 0 or 1
-			K, s, pads = []int{3, 3}, []int{2, 2}, []int{r.Intn(2), r.Intn(2), r.Intn(2), r.Intn(2)}
+		} else { // 3 or 2 wide, stride 2, left padding 0 or 1
+			kw := 2 + r.Intn(2)
+			K, s, pads = []int{kw, kw}, []int{2, 2}, []int{r.Intn(2), r.Intn(2), r.Intn(2), r.Intn(2)}
 			ceil = int64(r.Intn(2))
 		}
 		H, W := 1+r.Intn(20), 1+r.Intn(140)
@@ -279,14 +281,15 @@ func TestPoolMaxPlaneAndStride2MatchDirect(t *testing.T) {
 
 // BenchmarkMaxPoolShapes times 3×3 MaxPool over a batch of 8 at GoogLeNet's
 // shapes (ceil mode): the stride-2 downsampling pools at 112×112 and
-// 56×56, the stride-1 branch pools at 28×28 and 14×14; outputs recycled.
+// 56×56, the stride-1 branch pools at 28×28 and 14×14, the 2×2 stride-2
+// pool at 14×14 and (VGG, U-Net) at 112×112; outputs recycled.
 func BenchmarkMaxPoolShapes(b *testing.B) {
 	r := rand.New(rand.NewSource(1))
 	for _, tc := range []struct {
 		name    string
 		C, H    int
 		k, s, p int64
-	}{{"s2_112", 64, 112, 3, 2, 0}, {"s2_56", 192, 56, 3, 2, 0}, {"s1_28", 256, 28, 3, 1, 1}, {"s1_14", 512, 14, 3, 1, 1}} {
+	}{{"s2_112", 64, 112, 3, 2, 0}, {"s2_56", 192, 56, 3, 2, 0}, {"s1_28", 256, 28, 3, 1, 1}, {"s1_14", 512, 14, 3, 1, 1}, {"k2s2_14", 832, 14, 2, 2, 0}, {"k2s2_112", 64, 112, 2, 2, 0}} {
 		b.Run(tc.name, func(b *testing.B) {
 			x := linRand(r, 8, tc.C, tc.H, tc.H)
 			attrs := map[string]*loader.Attr{"kernel_shape": linInts("kernel_shape", tc.k, tc.k), "strides": linInts("strides", tc.s, tc.s),
