@@ -7,7 +7,6 @@ import (
 	"testing"
 
 	"github.com/vitals-health/vitals/internal/modelbuild"
-	"github.com/vitals-health/vitals/tensor"
 )
 
 // A Concat of observed layers takes its statistics from them (concat.go):
@@ -53,26 +52,7 @@ func TestConcatMergedFromParts(t *testing.T) {
 	if !derived["cat"] || derived["withx"] || derived["cat3"] || len(derived) != 1 {
 		t.Fatalf("derived Concat layers %v, want cat alone", derived)
 	}
-	rng := rand.New(rand.NewPCG(11, 12))
-	for k, scale := range []float32{1, 0, 0.5, 8, 3, 1000} {
-		x := tensor.New(tensor.Float32, []int{5, 4, 6})
-		for i := range x.F32() {
-			x.F32()[i] = scale * float32(rng.NormFloat64()+0.3*float64(k))
-		}
-		if k == 3 {
-			x.F32()[7] = float32(math.NaN())
-		}
-		for _, c := range []*Collector{merged, plain} {
-			in := map[string]*tensor.Tensor{"x": x}
-			c.AddInputs(in)
-			if _, err := p.Run(in, c.Hook); err != nil {
-				t.Fatal(err)
-			}
-			if err := c.Wait(); err != nil {
-				t.Fatal(err)
-			}
-		}
-	}
+	runBatches(t, p, wideningBatches(rand.New(rand.NewPCG(11, 12)), 7), merged, plain)
 	merged.mergeConcats()
 	close := func(a, b float64) bool { return a == b || math.Abs(a-b) <= 1e-12*math.Max(math.Abs(a), math.Abs(b)) }
 	for i, la := range merged.layers {
@@ -82,15 +62,7 @@ func TestConcatMergedFromParts(t *testing.T) {
 			t.Fatalf("%s: mean %g M2 %g, want %g %g", la.output, mom.Mean, mom.M2, want.mom.Mean, want.mom.M2)
 		}
 		mom.Mean, mom.M2 = want.mom.Mean, want.mom.M2
-		if mom != want.mom || la.hist.Exp != want.hist.Exp || la.hist.Start != want.hist.Start ||
-			la.hist.Min != want.hist.Min || la.hist.Max != want.hist.Max || len(la.hist.Counts) != len(want.hist.Counts) {
-			t.Fatalf("%s: moments %+v grid %d/%d, want %+v %d/%d", la.output, la.mom, la.hist.Exp, la.hist.Start, want.mom, want.hist.Exp, want.hist.Start)
-		}
-		for k := range la.hist.Counts {
-			if la.hist.Counts[k] != want.hist.Counts[k] {
-				t.Fatalf("%s: bin %d has %d, want %d", la.output, k, la.hist.Counts[k], want.hist.Counts[k])
-			}
-		}
+		sameAccumulators(t, la, want, mom)
 		if la.output == "c" {
 			if mom.Nonfinite != 2 || len(la.perChan) != 8 || len(want.perChan) != 8 || fmt.Sprint(la.shape) != fmt.Sprint(want.shape) {
 				t.Fatalf("c: %d non-finite, %d and %d channels, shape %v and %v", mom.Nonfinite, len(la.perChan), len(want.perChan), la.shape, want.shape)

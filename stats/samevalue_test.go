@@ -37,23 +37,7 @@ func TestSameValueLayersReuseExactly(t *testing.T) {
 	for _, la := range plain.layers {
 		la.sameAs = nil
 	}
-	rng := rand.New(rand.NewPCG(9, 10))
-	for k, scale := range []float32{1, 0, 0.5, 8, 3, 1000} {
-		x := tensor.New(tensor.Float32, []int{5, 4, 6})
-		for i := range x.F32() {
-			x.F32()[i] = scale * float32(rng.NormFloat64()+0.3*float64(k))
-		}
-		for _, c := range []*Collector{reuse, plain} {
-			in := map[string]*tensor.Tensor{"x": x}
-			c.AddInputs(in)
-			if _, err := p.Run(in, c.Hook); err != nil {
-				t.Fatal(err)
-			}
-			if err := c.Wait(); err != nil {
-				t.Fatal(err)
-			}
-		}
-	}
+	runBatches(t, p, wideningBatches(rand.New(rand.NewPCG(9, 10)), -1), reuse, plain)
 	if n := reuse.reused.Load(); n != 6*6 {
 		t.Fatalf("%d batch results reused, want 36 (6 layers × 6 batches)", n)
 	}
@@ -68,14 +52,58 @@ func TestSameValueLayersReuseExactly(t *testing.T) {
 			}
 			mom.Mean, mom.M2 = want.mom.Mean, want.mom.M2
 		}
-		if mom != want.mom || la.hist.Exp != want.hist.Exp || la.hist.Start != want.hist.Start ||
-			la.hist.Min != want.hist.Min || la.hist.Max != want.hist.Max {
-			t.Fatalf("%s: moments %+v grid %d/%d, want %+v %d/%d", la.output, la.mom, la.hist.Exp, la.hist.Start, want.mom, want.hist.Exp, want.hist.Start)
+		sameAccumulators(t, la, want, mom)
+	}
+}
+
+// wideningBatches returns six [5, 4, 6] batches of scaled Gaussian values
+// whose range widens the histogram's grid (one all zero); a NaN goes into
+// the fourth at index nanAt (none when negative).
+func wideningBatches(rng *rand.Rand, nanAt int) []*tensor.Tensor {
+	var xs []*tensor.Tensor
+	for k, scale := range []float32{1, 0, 0.5, 8, 3, 1000} {
+		x := tensor.New(tensor.Float32, []int{5, 4, 6})
+		for i := range x.F32() {
+			x.F32()[i] = scale * float32(rng.NormFloat64()+0.3*float64(k))
 		}
-		for k := range la.hist.Counts {
-			if la.hist.Counts[k] != want.hist.Counts[k] {
-				t.Fatalf("%s: bin %d has %d, want %d", la.output, k, la.hist.Counts[k], want.hist.Counts[k])
+		if k == 3 && nanAt >= 0 {
+			x.F32()[nanAt] = float32(math.NaN())
+		}
+		xs = append(xs, x)
+	}
+	return xs
+}
+
+// runBatches runs every batch (graph input "x") through p into each
+// collector.
+func runBatches(t *testing.T, p *probe.Plan, xs []*tensor.Tensor, cs ...*Collector) {
+	t.Helper()
+	for _, x := range xs {
+		for _, c := range cs {
+			in := map[string]*tensor.Tensor{"x": x}
+			c.AddInputs(in)
+			if _, err := p.Run(in, c.Hook); err != nil {
+				t.Fatal(err)
 			}
+			if err := c.Wait(); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+}
+
+// sameAccumulators fails unless la's moments (mom, la's own with any
+// tolerated difference already replaced), histogram grid, range and counts
+// are want's.
+func sameAccumulators(t *testing.T, la, want *layerAcc, mom Moments) {
+	t.Helper()
+	if mom != want.mom || la.hist.Exp != want.hist.Exp || la.hist.Start != want.hist.Start ||
+		la.hist.Min != want.hist.Min || la.hist.Max != want.hist.Max || len(la.hist.Counts) != len(want.hist.Counts) {
+		t.Fatalf("%s: moments %+v grid %d/%d, want %+v %d/%d", la.output, la.mom, la.hist.Exp, la.hist.Start, want.mom, want.hist.Exp, want.hist.Start)
+	}
+	for k := range la.hist.Counts {
+		if la.hist.Counts[k] != want.hist.Counts[k] {
+			t.Fatalf("%s: bin %d has %d, want %d", la.output, k, la.hist.Counts[k], want.hist.Counts[k])
 		}
 	}
 }
