@@ -85,7 +85,8 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 				return buf
 			}
 		}
-		ident, zero := identicalRows(rows, rowLen, row)
+		h, nz := rowHashes(x, rows, rowLen, byCols)
+		ident, zero := identicalRows(rowLen, row, h, nz)
 		std := m.Std()
 		gain := std * math.Sqrt(float64(fanIn))
 		wr := report.Weight{
@@ -103,29 +104,20 @@ func WeightStats(g *loader.Graph, follow func(n *loader.Node) string) []report.W
 }
 
 // identicalRows counts non-zero rows that equal at least one other row
-// (every member of a group of equal rows counts), and all-zero rows. Rows are
-// read through row (which may fill buf) and grouped by a 64-bit FNV-1a hash of
-// their bit patterns; rows sharing a hash are compared value by value, so the
-// weights are never copied whole.
-func identicalRows(rows, rowLen int, row func(r int, buf []float32) []float32) (identical, zero int) {
+// (every member of a group of equal rows counts), and all-zero rows. Rows
+// are grouped by h, their 64-bit FNV-1a hashes of their bit patterns
+// (rowHashes; nz: the row holds a value that is not 0); rows sharing a hash
+// are read through row (which may fill buf) and compared value by value, so
+// the weights are never copied whole.
+func identicalRows(rowLen int, row func(r int, buf []float32) []float32, h []uint64, nz []bool) (identical, zero int) {
 	buf := make([]float32, rowLen)
 	byHash := map[uint64][]int{}
-	for r := 0; r < rows; r++ {
-		v := row(r, buf)
-		h := uint64(14695981039346656037)
-		allZero := true
-		for _, f := range v {
-			if f != 0 {
-				allZero = false
-			}
-			h ^= uint64(math.Float32bits(f))
-			h *= 1099511628211
-		}
-		if allZero {
+	for r := range h {
+		if !nz[r] {
 			zero++
 			continue
 		}
-		byHash[h] = append(byHash[h], r)
+		byHash[h[r]] = append(byHash[h[r]], r)
 	}
 	for _, group := range byHash {
 		if len(group) < 2 {
@@ -156,6 +148,67 @@ func identicalRows(rows, rowLen int, row func(r int, buf []float32) []float32) (
 		}
 	}
 	return identical, zero
+}
+
+const (
+	fnvOffset = 14695981039346656037
+	fnvPrime  = 1099511628211
+)
+
+// rowHashes returns each row's 64-bit FNV-1a hash of its values' bit
+// patterns in order, h = (h ⊕ bits(v))·p from the offset basis, and
+// whether it holds a value that is not 0 (−0 is 0, NaN is not). x is
+// rows × rowLen row-major, or with byCols rowLen × rows with the rows of
+// interest its columns (a MatMul weight's output units). The columns are
+// hashed side by side in one pass down the matrix, and plain rows four at a
+// time, so that no hash waits on the multiply before it and no column is
+// gathered across the whole matrix (GPT-2-small's weights: about 0.3 s of
+// CPU before).
+func rowHashes(x []float32, rows, rowLen int, byCols bool) ([]uint64, []bool) {
+	h := make([]uint64, rows)
+	nz := make([]bool, rows)
+	for i := range h {
+		h[i] = fnvOffset
+	}
+	if byCols {
+		for j := 0; j < rowLen; j++ {
+			line := x[j*rows : (j+1)*rows]
+			hs, zs := h[:len(line)], nz[:len(line)]
+			for c, f := range line {
+				hs[c] = (hs[c] ^ uint64(math.Float32bits(f))) * fnvPrime
+				zs[c] = zs[c] || f != 0
+			}
+		}
+		return h, nz
+	}
+	r := 0
+	for ; r+4 <= rows; r += 4 {
+		a := x[r*rowLen : (r+1)*rowLen]
+		b := x[(r+1)*rowLen : (r+2)*rowLen]
+		c := x[(r+2)*rowLen : (r+3)*rowLen]
+		d := x[(r+3)*rowLen : (r+4)*rowLen]
+		ha, hb, hc, hd := uint64(fnvOffset), uint64(fnvOffset), uint64(fnvOffset), uint64(fnvOffset)
+		za, zb, zc, zd := false, false, false, false
+		for j := range a {
+			fa, fb, fc, fd := a[j], b[j], c[j], d[j]
+			ha = (ha ^ uint64(math.Float32bits(fa))) * fnvPrime
+			hb = (hb ^ uint64(math.Float32bits(fb))) * fnvPrime
+			hc = (hc ^ uint64(math.Float32bits(fc))) * fnvPrime
+			hd = (hd ^ uint64(math.Float32bits(fd))) * fnvPrime
+			za, zb, zc, zd = za || fa != 0, zb || fb != 0, zc || fc != 0, zd || fd != 0
+		}
+		h[r], h[r+1], h[r+2], h[r+3] = ha, hb, hc, hd
+		nz[r], nz[r+1], nz[r+2], nz[r+3] = za, zb, zc, zd
+	}
+	for ; r < rows; r++ {
+		hv, z := uint64(fnvOffset), false
+		for _, f := range x[r*rowLen : (r+1)*rowLen] {
+			hv = (hv ^ uint64(math.Float32bits(f))) * fnvPrime
+			z = z || f != 0
+		}
+		h[r], nz[r] = hv, z
+	}
+	return h, nz
 }
 
 // ParameterCount sums the element counts of all float initializers, of the
