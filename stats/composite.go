@@ -345,7 +345,8 @@ func geluTanhArg(t, x string, producer map[string]*loader.Node, only func(string
 }
 
 // Unobserved lists the node outputs the collector's hook does not read: the
-// values inside recognised composite activations, which are no layers and
+// values inside recognised composite activations and the products of dense
+// layers before their bias Add (biasedMatMul), which are no layers and
 // which the transformer, quantization and float16 observers do not watch
 // either. probe.Plan.RunRecycled takes the list: an executor that
 // computes such a pattern in one pass need not write them.
