@@ -54,3 +54,4 @@ func BenchmarkConvDW5x5s1(b *testing.B)  { benchDWPaths(b, 960, 7, 1, 5) }
 func BenchmarkConvDW5x5s2(b *testing.B)  { benchDWPaths(b, 672, 14, 2, 5) }
 func BenchmarkConvDW5x5_28(b *testing.B) { benchDWPaths(b, 120, 28, 1, 5) }
 func BenchmarkConvDW5x5_14(b *testing.B) { benchDWPaths(b, 672, 14, 1, 5) }
+func BenchmarkConvDW7x7_7(b *testing.B)  { benchDWPaths(b, 768, 7, 1, 7) }

@@ -37,7 +37,7 @@ func convDepthwise2D(a *convF32Args) {
 	if f := a.c.fuse; f != nil && f.out != nil {
 		act, ad = f.f32, f.out.F32()
 	}
-	small := dwSmallOK(g)
+	small := dwSmallOK(g) && !dwTapsCheaper(g)
 	var sa dwSmallArgs
 	if small {
 		sa = newDwSmallArgs(g)

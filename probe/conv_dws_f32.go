@@ -43,6 +43,27 @@ func dwSmallOK(g *convGeom) bool {
 		(g.strides[0] == 1 || g.strides[0] == 2) && (g.strides[1] == 1 || g.strides[1] == 2)
 }
 
+// dwTapsCheaper reports whether a stride-1 window of 5×5 or more on planes
+// that dwSmallPlane could take costs fewer vector operations on the tap
+// runs of dwTapsPlane: dwSmallPlane does OH·KH·KW vector multiply-adds
+// (one per output row and tap, OW ≤ 16 lanes used), dwTapsPlane
+// ⌈((OH−1)·Wq + OW)/16⌉·KH·KW over the flattened padded plane plus two
+// row copies per padded input row and output row (counted as two vector
+// operations each; BenchmarkConvDW5x5s1 and BenchmarkConvDW7s1 on 7×7
+// planes: 5×5 459–498 µs on the taps against 543–571 µs, 3×3 on the taps
+// 315–333 against 256–266 µs, which the count keeps on dwSmallPlane).
+func dwTapsCheaper(g *convGeom) bool {
+	if len(g.k) != 2 || g.strides[0] != 1 || g.strides[1] != 1 || g.k[0]*g.k[1] < 25 || g.k[0]*g.k[1] > dwMaxTaps {
+		return false
+	}
+	OH, OW := g.out[0], g.out[1]
+	Hq, Wq := dwTapsDims(g)
+	taps := g.k[0] * g.k[1]
+	small := OH * taps
+	runs := dwTapsRound((OH-1)*Wq+OW) / 16 * taps
+	return runs+2*(Hq+OH) < small
+}
+
 // newDwSmallArgs sets the per-node constants for geometry g (dwSmallOK).
 func newDwSmallArgs(g *convGeom) dwSmallArgs {
 	a := dwSmallArgs{
