@@ -424,11 +424,6 @@ func poolMax2DF32(y, x []float32, planes int, g *convGeom) {
 					maxCols3s2Whole(ys[1:1+n], tmpPad[2:])
 					copy(yr[1:], ys[1:OW])
 					vec0, vec1 = 1, OW
-				} else if KW == 3 && sw == 2 && dw == 1 && pl == 1 {
-					vec0 = 1
-					vec1 = 1 + maxCols3s2Vec(yr, tmp)
-				} else if KW == 3 && sw == 2 && dw == 1 && pl == 0 {
-					vec1 = maxCols3s2Vec0(yr, tmp)
 				} else if sw == 1 {
 					vec0, vec1 = poolMaxColsS1(yr, tmp, KW, dw, pl)
 				}

@@ -31,23 +31,6 @@ func maxRowsVec(dst, a, b []float32) int {
 	return n
 }
 
-// maxCols3s2Vec is the vector part of a 3-wide, stride-2, pad-1 window
-// row: it sets y[o] for o in [1, 1+k) from the row max tmp (W values) and
-// returns k (a multiple of 16, 0 without AVX-512). Those outputs' windows
-// lie inside the row.
-func maxCols3s2Vec(y, tmp []float32) int {
-	if !havePoolVec {
-		return 0
-	}
-	k := min(len(y)-1, (len(tmp)-18)/2) &^ 15
-	if k <= 0 {
-		return 0
-	}
-	_, _ = y[k], tmp[2*k+1] // the last output and the last value read
-	maxCols3s2AVX512(&y[1], &tmp[2], k)
-	return k
-}
-
 // maxCols2s2AVX512 sets dst[o] = max(src[2o], src[2o+1]) for o < n, n a
 // multiple of 16.
 //
@@ -77,22 +60,6 @@ func maxCols3s2Whole(dst, src []float32) {
 	}
 	_ = src[2*n-1]
 	maxCols3s2AVX512(&dst[0], &src[0], n)
-}
-
-// maxCols3s2Vec0 is maxCols3s2Vec for a window row without left padding:
-// it sets y[o] = max(tmp[2o], tmp[2o+1], tmp[2o+2]) for o < k and returns k
-// (a multiple of 16, 0 without AVX-512).
-func maxCols3s2Vec0(y, tmp []float32) int {
-	if !havePoolVec {
-		return 0
-	}
-	k := min(len(y), (len(tmp)-18)/2) &^ 15
-	if k <= 0 {
-		return 0
-	}
-	_, _ = y[k-1], tmp[2*k] // the last output and the last value read
-	maxCols3s2AVX512(&y[0], &tmp[1], k)
-	return k
 }
 
 // sum8AVX512 adds x[8i+j] to acc[j] for i < n/8, in order (n a multiple

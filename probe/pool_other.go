@@ -6,10 +6,7 @@ var havePoolVec = false
 
 func maxRowsVec(dst, a, b []float32) int { return 0 }
 
-func maxCols3s2Vec(y, tmp []float32) int { return 0 }
-
 func sum8Vec(x []float32, acc *[8]float64) int { return 0 }
-func maxCols3s2Vec0(y, tmp []float32) int      { return 0 }
 
 func maxCols3s2Whole(dst, src []float32) {}
 
