@@ -71,9 +71,6 @@ func (p *Plan) biasInPlace(i int, product *tensor.Tensor, env *Scope) *tensor.Te
 	shapes := [2][]int{}
 	in[pos], shapes[pos] = out, product.Shape
 	in[1-pos], shapes[1-pos] = bias.F32(), bias.Shape
-	if !arithF32Fast(addT, out, product.Shape, in[0], shapes[0], in[1], shapes[1]) &&
-		!arithF32Runs(addT, out, product.Shape, in[0], shapes[0], in[1], shapes[1]) {
-		applyArith(addT, out, product.Shape, in[0], shapes[0], in[1], shapes[1])
-	}
+	arithF32(addT, out, product.Shape, in[0], shapes[0], in[1], shapes[1])
 	return product
 }

@@ -48,6 +48,14 @@ func applyArith[T Number](op opID, out []T, os []int, a []T, as []int, b []T, bs
 	}
 }
 
+// arithF32 is the float32 broadcasting kernel: the vector fast paths where
+// the shapes allow, else the index loop (out may be a or b itself).
+func arithF32(op opID, out []float32, os []int, a []float32, as []int, b []float32, bs []int) {
+	if !arithF32Fast(op, out, os, a, as, b, bs) && !arithF32Runs(op, out, os, a, as, b, bs) {
+		applyArith(op, out, os, a, as, b, bs)
+	}
+}
+
 func isInt[T Number]() bool {
 	var one T = 1
 	return one/2 == 0
@@ -71,9 +79,7 @@ func arith(op opID) Kernel {
 		out := c.Arena().NewUninit(a.DType, os) // every element is written below
 		switch x := a.Data.(type) {
 		case []float32:
-			if !arithF32Fast(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) && !arithF32Runs(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape) {
-				applyArith(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape)
-			}
+			arithF32(op, out.F32(), os, x, a.Shape, b.F32(), b.Shape)
 		case []float64:
 			applyArith(op, out.F64(), os, x, a.Shape, b.F64(), b.Shape)
 		case []int64:
