@@ -158,6 +158,18 @@ func clipBounds(n *loader.Node, g *loader.Graph) (lo, hi float64, ok bool) {
 // initializers once alias the others with an Identity (PyTorch does, for
 // example, for BatchNorm running statistics still at their initial 0 and 1).
 func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
+	return constTensor(g, name, true)
+}
+
+// plainConst is constValue without dequantization: a tensor stored in the
+// model as it is (a quantized model's dequantized weights are not one).
+func plainConst(g *loader.Graph, name string) (*tensor.Tensor, bool) {
+	return constTensor(g, name, false)
+}
+
+// constTensor is constValue, a DequantizeLinear of constants counting as a
+// constant only with dequant.
+func constTensor(g *loader.Graph, name string, dequant bool) (*tensor.Tensor, bool) {
 	for hop := 0; hop < 16; hop++ {
 		if t, ok := g.Initializers[name]; ok {
 			return t, true
@@ -177,7 +189,7 @@ func constValue(g *loader.Graph, name string) (*tensor.Tensor, bool) {
 				}
 			case n.OpType == "Identity" && len(n.Inputs) == 1:
 				next = n.Inputs[0]
-			case n.OpType == "DequantizeLinear": // quantized weights of a QDQ model (quant.go)
+			case n.OpType == "DequantizeLinear" && dequant: // quantized weights of a QDQ model (quant.go)
 				return dequantConst(g, n)
 			}
 			break

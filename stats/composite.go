@@ -4,7 +4,6 @@ import (
 	"math"
 
 	"github.com/vitals-health/vitals/loader"
-	"github.com/vitals-health/vitals/tensor"
 )
 
 // Activations that exporters write as a small subgraph instead of one
@@ -44,12 +43,14 @@ func compositeActs(g *loader.Graph) composite {
 	cp := composite{top: map[*loader.Node]string{}, inner: map[*loader.Node]*loader.Node{}, biased: map[*loader.Node]*loader.Node{}}
 	producer := map[string]*loader.Node{}
 	readers := map[string]int{}
+	reader := map[string]*loader.Node{} // a (the last) node reading each value
 	for _, n := range g.Nodes {
 		for _, o := range n.Outputs {
 			producer[o] = n
 		}
 		for _, in := range n.Inputs {
 			readers[in]++
+			reader[in] = n
 		}
 	}
 	for _, o := range g.Outputs {
@@ -61,12 +62,6 @@ func compositeActs(g *loader.Graph) composite {
 	scalar := func(name string, want, tol float64) bool {
 		t, ok := constValue(g, name)
 		return ok && t.Size() == 1 && math.Abs(t.Float64At(0)-want) <= tol
-	}
-	reader := map[string]*loader.Node{}
-	for _, n := range g.Nodes {
-		for _, in := range n.Inputs {
-			reader[in] = n
-		}
 	}
 	for _, m := range g.Nodes {
 		if a := biasedMatMul(g, m, reader, only); a != nil {
@@ -138,37 +133,6 @@ func biasedMatMul(g *loader.Graph, m *loader.Node, reader map[string]*loader.Nod
 		return nil
 	}
 	return a
-}
-
-// plainConst is constValue without dequantization: a float or integer
-// tensor stored in the model as it is.
-func plainConst(g *loader.Graph, name string) (*tensor.Tensor, bool) {
-	for hop := 0; hop < 16; hop++ {
-		if t, ok := g.Initializers[name]; ok {
-			return t, true
-		}
-		var p *loader.Node
-		for _, n := range g.Nodes {
-			if len(n.Outputs) > 0 && n.Outputs[0] == name {
-				p = n
-				break
-			}
-		}
-		switch {
-		case p == nil:
-			return nil, false
-		case p.OpType == "Identity" && len(p.Inputs) == 1:
-			name = p.Inputs[0]
-		case p.OpType == "Constant":
-			if a := p.Attrs["value"]; a != nil && a.T != nil {
-				return a.T, true
-			}
-			return nil, false
-		default:
-			return nil, false
-		}
-	}
-	return nil, false
 }
 
 // swish matches m = Mul(x, Sigmoid(x)) in either order and returns the
