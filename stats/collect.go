@@ -241,8 +241,9 @@ type layerAcc struct {
 	scaleOf  *layerAcc
 	scaleExp int
 	keepLast bool
-	// parts are a Concat's inputs, whose merged statistics are its own
-	// (concat.go); the layer itself is then not observed
+	// parts are a Concat's inputs or the outputs of a Split reading this
+	// value, whose merged statistics are its own (concat.go); the layer
+	// itself is then not observed
 	parts   []*layerAcc
 	last    lastBatch
 	batches int64 // observe calls so far (one per batch)
@@ -630,7 +631,7 @@ func (c *Collector) Hook(n *loader.Node, outs []*tensor.Tensor) error {
 		if la == nil {
 			continue
 		}
-		if la.parts != nil { // merged from its inputs at Finish
+		if la.parts != nil { // merged from its parts at Finish
 			if la.shape == nil {
 				la.shape = append([]int{}, t.Shape...)
 			}

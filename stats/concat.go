@@ -41,14 +41,11 @@ func (c *Collector) markConcats() {
 			c.watched(la.output) || c.InSubgraph(n) {
 			continue
 		}
-		isConcat := n.OpType == "Concat" && (n.Domain == "" || n.Domain == "ai.onnx") && len(n.Inputs) > 0 && len(n.Outputs) == 1 && la.output == n.Outputs[0]
-		if !isConcat && c.splitReader(la.output) == nil {
-			continue
-		}
 		perChan := c.perChanWanted[la.output]
+		isConcat := n.OpType == "Concat" && (n.Domain == "" || n.Domain == "ai.onnx") && len(n.Inputs) > 0 && len(n.Outputs) == 1 && la.output == n.Outputs[0]
 		if !isConcat {
-			if !perChan {
-				la.parts = c.splitParts(la)
+			if s := c.splitReader(la.output); s != nil && !perChan {
+				la.parts = c.splitParts(s)
 			}
 			continue
 		}
@@ -87,12 +84,10 @@ func (c *Collector) splitReader(v string) *loader.Node {
 	return nil
 }
 
-// splitParts returns the layers of the outputs of the Split reading la's
-// value, nil unless every output is an observed layer that is not itself
-// merged from parts.
-func (c *Collector) splitParts(la *layerAcc) []*layerAcc {
-	s := c.splitReader(la.output)
-	if s == nil || len(s.Outputs) == 0 {
+// splitParts returns the layers of Split s's outputs, nil unless every
+// output is an observed layer that is not itself merged from parts.
+func (c *Collector) splitParts(s *loader.Node) []*layerAcc {
+	if len(s.Outputs) == 0 {
 		return nil
 	}
 	var parts []*layerAcc
@@ -114,9 +109,8 @@ func concatAlongChannels(n *loader.Node) bool {
 	return a != nil && a.I == 1
 }
 
-// mergeConcats fills each derived Concat layer from its parts (Finish,
-// after every batch and shard is in). Layers are in graph order, so a
-// Concat of Concats finds its parts filled.
+// mergeConcats fills each layer merged from parts (a Concat's, a Split
+// input's) from them (Finish, after every batch and shard is in).
 func (c *Collector) mergeConcats() {
 	done := map[*layerAcc]bool{}
 	for _, la := range c.layers {
