@@ -81,7 +81,8 @@ func run(modelPath, dataPath string, batch, samples, reps int, ops bool) error {
 		return err
 	}
 	// the values vitals check leaves unwritten (inside composite
-	// activations) are left unwritten here too
+	// activations, dense layers' products before their bias) are left
+	// unwritten here too
 	skip := stats.NewCollector(m, p).Unobserved()
 	x, err := loader.ReadNpy(dataPath)
 	if err != nil {
