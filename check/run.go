@@ -93,8 +93,9 @@ func collect(ctx context.Context, m *Model, feed *sampleFeed, o Options, each fu
 			return nil, nil, "", err
 		}
 	}
-	// values no hook reads (inside composite activations, dense layers' products before their bias) may be left
-	// unwritten; the backward pass and a tap read every value
+	// values no hook reads (inside composite activations, dense layers'
+	// products before their bias) may be left unwritten; the backward pass
+	// and a tap read every value
 	var unobserved map[string]bool
 	if gr == nil && o.tap == nil {
 		unobserved = c.Unobserved()
